@@ -1,0 +1,48 @@
+# The single entry point. Every target creates and uses its own virtual environment
+# (.venv), so nothing needs to be installed by hand beyond Python 3.10+ and Rust.
+#   make demo    install (release build) and run the demo on the bundled data
+#   make test    install test dependencies, run every Rust and Python test
+#   make lint    cargo fmt --check, clippy -D warnings, ruff
+#   make bench   release build, then the benchmarks under tests/bench/
+#   make dev     fast incremental rebuild for the edit loop
+
+PYTHON ?= python3
+VENV   ?= .venv
+PY     := $(VENV)/bin/python
+export VIRTUAL_ENV := $(abspath $(VENV))
+
+.PHONY: demo test lint bench dev install install-test clean
+
+$(VENV)/created:
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet "maturin>=1.16,<2"
+	touch $@
+
+install: $(VENV)/created
+	$(VENV)/bin/maturin develop --release --quiet
+
+install-test: $(VENV)/created
+	$(VENV)/bin/maturin develop --profile fastdev --extras test --quiet
+
+dev: install-test
+
+demo: install
+	$(PY) -m bagwise demo
+
+test: install-test
+	cargo test --quiet
+	$(PY) -m mypy.stubtest bagwise._core
+	$(PY) -m pytest
+
+lint: install-test
+	cargo fmt --check
+	cargo clippy --quiet --all-targets -- -D warnings
+	cargo clippy --quiet --all-targets --features python -- -D warnings
+	$(VENV)/bin/ruff check python tests demo-data
+
+bench: install
+	$(PY) tests/bench/bench_resampling.py
+
+clean:
+	rm -rf $(VENV) target

@@ -1,0 +1,63 @@
+"""Input checks shared by the public functions; messages name the argument in backticks."""
+
+from __future__ import annotations
+
+import numbers
+import secrets
+
+import numpy as np
+
+
+def positive_int(value: object, name: str) -> int:
+    """Return ``value`` as a Python int if it is a whole number >= 1."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise TypeError(f"`{name}`: expected an integer, got {type(value).__name__}")
+    value = int(value)
+    if value < 1:
+        raise ValueError(f"`{name}`: must be at least 1, got {value}")
+    return value
+
+
+def seed_value(seed: object) -> int:
+    """A 64-bit seed; ``None`` draws a fresh one from the operating system."""
+    if seed is None:
+        return secrets.randbits(64)
+    if isinstance(seed, bool) or not isinstance(seed, numbers.Integral):
+        raise TypeError(f"`seed`: expected a non-negative integer or None, got {type(seed).__name__}")
+    seed = int(seed)
+    if not 0 <= seed < 2**64:
+        raise ValueError(f"`seed`: must lie in [0, 2**64), got {seed}")
+    return seed
+
+
+def threads_value(threads: object) -> int | None:
+    """``None`` (all cores) or a positive thread count."""
+    if threads is None:
+        return None
+    return positive_int(threads, "threads")
+
+
+def label_codes(labels: object, n_rows: int, name: str) -> tuple[np.ndarray, np.ndarray]:
+    """Factorise 1-D labels of any dtype into (codes as int64, unique labels).
+
+    Raises ``ValueError`` for a wrong length, missing values (NaN/None) or more than one
+    dimension.
+    """
+    array = np.asarray(labels)
+    if array.ndim != 1:
+        raise ValueError(f"`{name}`: expected a 1-D array of labels, got shape {array.shape}")
+    if array.shape[0] != n_rows:
+        raise ValueError(f"`{name}`: has {array.shape[0]} labels but n_rows is {n_rows}")
+    if array.dtype.kind == "f":
+        if not np.all(np.isfinite(array)):
+            raise ValueError(f"`{name}`: contains NaN or infinite labels")
+    elif array.dtype.kind == "O":
+        if any(v is None or (isinstance(v, float) and v != v) for v in array.tolist()):
+            raise ValueError(f"`{name}`: contains missing labels (None or NaN)")
+    elif array.dtype.kind not in "iubUS":
+        raise TypeError(f"`{name}`: labels of dtype {array.dtype} are not supported")
+    try:
+        uniques, codes = np.unique(array, return_inverse=True)
+    except TypeError as err:
+        raise TypeError(f"`{name}`: labels must be mutually comparable ({err})") from None
+    return codes.astype(np.int64, copy=False).reshape(-1), uniques

@@ -1,0 +1,336 @@
+"""Which training rows each ensemble member sees: `resample` and its `Resample` result."""
+
+from __future__ import annotations
+
+import math
+from typing import Literal
+
+import numpy as np
+
+from . import _core
+from ._display import html_block, safe_html, text_block
+from ._progress import ProgressArg, progress_callback
+from ._validation import label_codes, positive_int, seed_value, threads_value
+
+__all__ = ["Resample", "resample"]
+
+SchemeName = Literal["bootstrap", "subsample", "bayesian"]
+_SCHEMES = ("bootstrap", "subsample", "bayesian")
+
+
+def _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length, seed, threads):
+    n_rows = positive_int(n_rows, "n_rows")
+    members = positive_int(members, "members")
+    if scheme not in _SCHEMES:
+        raise ValueError(f"`scheme`: expected one of {_SCHEMES}, got {scheme!r}")
+    if isinstance(fraction, bool) or not isinstance(fraction, (int, float, np.floating)):
+        raise TypeError(f"`fraction`: expected a number, got {type(fraction).__name__}")
+    fraction = float(fraction)
+    given = [name for name, v in (("strata", strata), ("groups", groups),
+                                  ("block_length", block_length)) if v is not None]
+    if len(given) > 1:
+        raise ValueError(
+            f"`{given[0]}`, `{given[1]}`: give at most one of strata, groups and block_length "
+            "(combinations are not defined yet)"
+        )
+    strata_codes = label_codes(strata, n_rows, "strata") if strata is not None else None
+    group_codes = label_codes(groups, n_rows, "groups") if groups is not None else None
+    if block_length is not None:
+        block_length = positive_int(block_length, "block_length")
+        if block_length > n_rows:
+            raise ValueError(f"`block_length`: must be at most n_rows ({n_rows}), got {block_length}")
+    return (n_rows, members, scheme, fraction, strata_codes, group_codes, block_length,
+            seed_value(seed), threads_value(threads))
+
+
+def resample(
+    n_rows: int,
+    members: int,
+    *,
+    scheme: SchemeName = "bootstrap",
+    fraction: float = 1.0,
+    strata=None,
+    groups=None,
+    block_length: int | None = None,
+    seed: int | None = 0,
+    threads: int | None = None,
+    progress: ProgressArg = False,
+) -> Resample:
+    """Draw the training rows of every ensemble member.
+
+    Parameters
+    ----------
+    n_rows : int
+        Number of training rows.
+    members : int
+        Number of ensemble members.
+    scheme : {"bootstrap", "subsample", "bayesian"}
+        ``"bootstrap"``: ``round(n_rows * fraction)`` draws with replacement (Efron 1979).
+        ``"subsample"``: ``round(n_rows * fraction)`` distinct rows without replacement
+        (subagging; Bühlmann & Yu 2002). ``"bayesian"``: Dirichlet(1, ..., 1) row weights
+        scaled to sum to ``n_rows`` (Rubin 1981); this scheme has no counts and no
+        out-of-bag rows.
+    fraction : float
+        Draw size as a share of ``n_rows``: in (0, 1] for subsampling, any positive value
+        for the bootstrap, 1 for Bayesian weights.
+    strata : array-like of labels, optional
+        Resample within each stratum, so each keeps ``round(size * fraction)`` rows (its
+        exact size when ``fraction=1``).
+    groups : array-like of labels, optional
+        Resample whole groups (cluster bootstrap); all rows of a group share its count.
+    block_length : int, optional
+        Moving-block bootstrap for ordered rows (Künsch 1989): blocks of this many
+        consecutive rows, drawn with replacement until the draw size is reached.
+    seed : int or None
+        Seed of the member streams. Member ``m`` always uses stream ``m``, so results do not
+        depend on ``threads`` and the first members do not change when ``members`` grows.
+        ``None`` draws a fresh seed, kept in ``Resample.seed``.
+    threads : int, optional
+        Worker threads (default: all cores).
+    progress : bool or callable
+        ``True`` shows a tqdm bar; a callable receives ``(done, total)`` members.
+
+    Returns
+    -------
+    Resample
+
+    Examples
+    --------
+    >>> import bagwise
+    >>> draw = bagwise.resample(1000, 200, seed=1)
+    >>> draw.counts.shape, draw.counts.dtype
+    ((200, 1000), dtype('uint8'))
+    >>> bool((draw.counts.sum(axis=1) == 1000).all())
+    True
+    >>> round(float(draw.out_of_bag.mean()), 2)  # close to (1 - 1/n)^n ≈ 0.368
+    0.37
+    """
+    (n_rows, members, scheme, fraction, strata_codes, group_codes, block_length, seed,
+     threads) = _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length,
+                             seed, threads)
+    plan = _core.Resampler(
+        n_rows,
+        scheme,
+        fraction,
+        strata=None if strata_codes is None else strata_codes[0],
+        groups=None if group_codes is None else group_codes[0],
+        block_length=block_length,
+    )
+    with progress_callback(progress, "resampling") as callback:
+        if scheme == "bayesian":
+            counts, weights = None, plan.bayesian_weights(seed, members, threads, callback)
+        else:
+            counts, weights = plan.counts(seed, members, threads, callback), None
+    if strata_codes is not None:
+        design, labels = "strata", strata_codes
+    elif group_codes is not None:
+        design, labels = "groups", group_codes
+    elif block_length is not None:
+        design, labels = "blocks", None
+    else:
+        design, labels = "rows", None
+    return Resample(
+        n_rows=n_rows, members=members, scheme=scheme, fraction=fraction, design=design,
+        labels=labels, block_length=block_length, seed=seed,
+        draws_per_member=plan.draws_per_member, counts=counts, weights=weights,
+    )
+
+
+class Resample:
+    """The rows drawn for every member of an ensemble.
+
+    Attributes
+    ----------
+    n_rows, members : int
+        Shape of the draw: ``(members, n_rows)``.
+    scheme : str
+        ``"bootstrap"``, ``"subsample"`` or ``"bayesian"``.
+    fraction : float
+        Draw size as a share of the rows (of each stratum, or of the groups).
+    design : str
+        ``"rows"``, ``"strata"``, ``"groups"`` or ``"blocks"``.
+    block_length : int or None
+        Length of the moving blocks (block design only).
+    seed : int
+        The seed actually used (also when ``seed=None`` was passed).
+    draws_per_member : int
+        Rows drawn per member (expected rows for group designs, whose draws vary).
+    counts : ndarray of unsigned int, shape (members, n_rows)
+        In-bag count of every row in every member, in the narrowest unsigned dtype that
+        holds the largest count drawn (uint8 unless a row is drawn over 255 times); counts
+        never wrap around. Not defined for ``scheme="bayesian"`` (raises ``ValueError``).
+    out_of_bag : ndarray of bool, shape (members, n_rows)
+        ``counts == 0``; made on first access.
+    weights : ndarray of float64, shape (members, n_rows)
+        Row weights: the counts as floats (made on first access) or the Bayesian weights.
+    """
+
+    def __init__(self, *, n_rows, members, scheme, fraction, design, labels, block_length,
+                 seed, draws_per_member, counts, weights):
+        self.n_rows = n_rows
+        self.members = members
+        self.scheme = scheme
+        self.fraction = fraction
+        self.design = design
+        self.block_length = block_length
+        self.seed = seed
+        self.draws_per_member = draws_per_member
+        self._labels = labels
+        self._counts = counts
+        self._weights = weights
+        self._out_of_bag = None
+
+    # -- arrays -------------------------------------------------------------------------
+    @property
+    def counts(self) -> np.ndarray:
+        if self._counts is None:
+            raise ValueError(
+                "`counts`: not defined for scheme='bayesian' - every row gets a positive "
+                "continuous weight, so no row is out of bag; use `weights`"
+            )
+        return self._counts
+
+    @property
+    def out_of_bag(self) -> np.ndarray:
+        if self._out_of_bag is None:
+            if self._counts is None:
+                raise ValueError(
+                    "`out_of_bag`: not defined for scheme='bayesian' - every row has a "
+                    "positive weight in every member"
+                )
+            self._out_of_bag = self._counts == 0
+        return self._out_of_bag
+
+    @property
+    def weights(self) -> np.ndarray:
+        if self._weights is None:
+            self._weights = self._counts.astype(np.float64)
+        return self._weights
+
+    @property
+    def strata(self) -> np.ndarray | None:
+        """Stratum label of every row (strata design), else ``None``."""
+        return self._labels[1][self._labels[0]] if self.design == "strata" else None
+
+    @property
+    def groups(self) -> np.ndarray | None:
+        """Group label of every row (group design), else ``None``."""
+        return self._labels[1][self._labels[0]] if self.design == "groups" else None
+
+    @property
+    def block_starts(self) -> np.ndarray:
+        """First row of every moving block, shape (members, blocks per member).
+
+        Redrawn from the same member streams as ``counts``, so the two always agree; the
+        last block of a member is cut short when the draw size is not a multiple of
+        ``block_length``.
+        """
+        if self.design != "blocks":
+            raise ValueError("`block_starts`: only defined when `block_length` was given")
+        plan = _core.Resampler(self.n_rows, self.scheme, self.fraction,
+                               block_length=self.block_length)
+        return plan.block_starts(self.seed, self.members)
+
+    # -- summaries ----------------------------------------------------------------------
+    def out_of_bag_share(self) -> np.ndarray:
+        """Share of rows that each member leaves out, shape (members,)."""
+        return self.out_of_bag.mean(axis=1)
+
+    def expected_out_of_bag_share(self) -> float:
+        """Share of rows a member is expected to leave out, under the scheme and design.
+
+        Bootstrap over rows: ``(1 - 1/n)**d`` for ``d`` draws (Efron & Tibshirani 1993);
+        subsampling: ``1 - d/n``. Strata and groups apply the same formulas per unit and
+        weight them by size; blocks: a row is missed by every block that could cover it.
+        ``nan`` for Bayesian weights.
+        """
+        if self.scheme == "bayesian":
+            return math.nan
+        if self.design == "strata":
+            sizes = np.bincount(self._labels[0])
+            sizes = sizes[sizes > 0]
+            draws = np.maximum(1, np.round(sizes * self.fraction))
+            if self.scheme == "bootstrap":
+                miss = (1 - 1 / sizes) ** draws
+            else:
+                miss = 1 - np.minimum(draws, sizes) / sizes
+            return float(np.sum(sizes * miss) / self.n_rows)
+        if self.design == "groups":
+            sizes = np.bincount(self._labels[0])
+            sizes = sizes[sizes > 0]
+            g = len(sizes)
+            draws = max(1, round(g * self.fraction))
+            miss = (1 - 1 / g) ** draws if self.scheme == "bootstrap" else 1 - min(draws, g) / g
+            return float(miss)
+        n = self.n_rows
+        if self.design == "blocks":
+            length = self.block_length
+            starts = n - length + 1
+            blocks = -(-self.draws_per_member // length)
+            rows = np.arange(n)
+            covering = np.minimum(rows, starts - 1) - np.maximum(0, rows - length + 1) + 1
+            # A row is out of bag when no block covers it, the last (maybe shorter) one too.
+            last = self.draws_per_member - (blocks - 1) * length
+            covering_last = np.clip(np.minimum(rows, starts - 1) - np.maximum(0, rows - last + 1) + 1,
+                                    0, None)
+            miss = (1 - covering / starts) ** (blocks - 1) * (1 - covering_last / starts)
+            return float(miss.mean())
+        d = self.draws_per_member
+        if self.scheme == "bootstrap":
+            return float((1 - 1 / n) ** d)
+        return 1 - min(d, n) / n
+
+    def _rows(self) -> list[tuple[str, str]]:
+        rows = [
+            ("scheme", self.scheme if self.fraction == 1 else f"{self.scheme} ({self.fraction:g})"),
+            ("design", self.design + (f" (length {self.block_length})"
+                                      if self.design == "blocks" else "")),
+            ("members x rows", f"{self.members:,} x {self.n_rows:,}"),
+            ("draws per member", f"{self.draws_per_member:,}"),
+            ("seed", str(self.seed)),
+        ]
+        if self._counts is not None:
+            share = self.out_of_bag_share()
+            se = share.std(ddof=1) / math.sqrt(len(share)) if len(share) > 1 else math.nan
+            rows += [
+                ("counts dtype", str(self._counts.dtype)),
+                ("largest count", str(int(self._counts.max()))),
+                ("out-of-bag share", f"{share.mean():.4f} ± {se:.4f}"),
+                ("expected share", f"{self.expected_out_of_bag_share():.4f}"),
+            ]
+        else:
+            rows.append(("weights", "Dirichlet(1, ..., 1) x n_rows; no counts"))
+        return rows
+
+    def _reading(self) -> str:
+        if self._counts is None:
+            return "every row carries a positive weight in every member: no out-of-bag rows"
+        share = self.out_of_bag_share().mean()
+        return f"each member leaves out {share:.1%} of the rows on average"
+
+    def __repr__(self) -> str:
+        return text_block("Resample", self._rows(), self._reading())
+
+    def _repr_html_(self) -> str:
+        return safe_html(self, lambda: html_block("Resample", self._rows(), self._reading()))
+
+    def to_frame(self):
+        """One row per member: draw size, distinct rows, out-of-bag share, largest count.
+
+        For Bayesian weights: smallest, largest and spread of the weights instead.
+        """
+        import pandas as pd
+
+        member = np.arange(self.members)
+        if self._counts is None:
+            w = self._weights
+            return pd.DataFrame({"member": member, "weight_min": w.min(axis=1),
+                                 "weight_max": w.max(axis=1), "weight_std": w.std(axis=1)})
+        c = self._counts
+        return pd.DataFrame({
+            "member": member,
+            "rows_drawn": c.sum(axis=1, dtype=np.int64),
+            "distinct_rows": (c > 0).sum(axis=1),
+            "out_of_bag_share": self.out_of_bag_share(),
+            "largest_count": c.max(axis=1).astype(np.int64),
+        })

@@ -1,0 +1,115 @@
+//! The pyo3 layer: converts, validates, releases the GIL, calls the core, converts back.
+//! Everything heavy goes through [`run_core`], so GIL handling, progress, Ctrl-C and error
+//! mapping are written once.
+
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::sync::Mutex;
+
+use numpy::{Element, PyArray2};
+use pyo3::exceptions::{
+    PyKeyboardInterrupt, PyOverflowError, PyRuntimeError, PyTypeError, PyValueError,
+};
+use pyo3::prelude::*;
+
+use crate::error::Error;
+use crate::parallel::{Monitor, Pool, Threads};
+
+mod resampling;
+
+/// Maps a core error to the Python exception a user expects.
+pub(crate) fn to_py_err(error: Error) -> PyErr {
+    match error {
+        Error::InvalidValue { .. } => PyValueError::new_err(error.to_string()),
+        Error::InvalidType { .. } => PyTypeError::new_err(error.to_string()),
+        Error::CountOverflow { .. } => PyOverflowError::new_err(error.to_string()),
+        Error::Interrupted => PyKeyboardInterrupt::new_err("interrupted"),
+    }
+}
+
+/// Reports progress to an optional Python callable `callback(done, total)` and checks for
+/// Ctrl-C; either raising stops the core loop, and that exception is what Python sees.
+struct PythonMonitor {
+    callback: Option<Py<PyAny>>,
+    raised: Mutex<Option<PyErr>>,
+}
+
+impl Monitor for PythonMonitor {
+    fn progress(&self, done: usize, total: usize) -> crate::Result<()> {
+        Python::attach(|py| {
+            let outcome = py.check_signals().and_then(|()| match &self.callback {
+                Some(callback) => callback.call1(py, (done, total)).map(drop),
+                None => Ok(()),
+            });
+            outcome.map_err(|err| {
+                *self.raised.lock().expect("monitor lock") = Some(err);
+                Error::Interrupted
+            })
+        })
+    }
+}
+
+/// Runs `work` with the GIL released on a pool of `threads`, reporting progress to
+/// `progress`; maps core errors and panics to Python exceptions.
+pub(crate) fn run_core<T: Send>(
+    py: Python<'_>,
+    threads: Option<usize>,
+    progress: Option<Py<PyAny>>,
+    work: impl FnOnce(&Pool, &dyn Monitor) -> crate::Result<T> + Send,
+) -> PyResult<T> {
+    let pool = Threads::from_option(threads)
+        .and_then(Threads::pool)
+        .map_err(to_py_err)?;
+    let monitor = PythonMonitor {
+        callback: progress,
+        raised: Mutex::new(None),
+    };
+    let outcome = py.detach(|| catch_unwind(AssertUnwindSafe(|| work(&pool, &monitor))));
+    match outcome {
+        Ok(Ok(value)) => Ok(value),
+        Ok(Err(Error::Interrupted)) => Err(monitor
+            .raised
+            .into_inner()
+            .ok()
+            .flatten()
+            .unwrap_or_else(|| PyKeyboardInterrupt::new_err("interrupted"))),
+        Ok(Err(error)) => Err(to_py_err(error)),
+        Err(panic) => {
+            let detail = panic
+                .downcast_ref::<&str>()
+                .map(|s| s.to_string())
+                .or_else(|| panic.downcast_ref::<String>().cloned())
+                .unwrap_or_default();
+            Err(PyRuntimeError::new_err(format!(
+                "internal error in bagwise (please report it): {detail}"
+            )))
+        }
+    }
+}
+
+/// A zeroed C-contiguous array from `numpy.zeros`, so an allocation failure is numpy's own
+/// `MemoryError` (never a panic) and the buffer gets numpy's huge-page hint.
+pub(crate) fn zeros<'py, T: Element>(
+    py: Python<'py>,
+    shape: [usize; 2],
+) -> PyResult<Bound<'py, PyArray2<T>>> {
+    let numpy = py.import("numpy")?;
+    let array = numpy.call_method1("zeros", (shape, T::get_dtype(py)))?;
+    Ok(array.cast_into::<PyArray2<T>>()?)
+}
+
+/// Converts a Python integer that must be positive into usize, naming the argument.
+pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
+    usize::try_from(value)
+        .ok()
+        .filter(|&v| v > 0)
+        .ok_or_else(|| {
+            PyValueError::new_err(format!("`{argument}`: must be at least 1, got {value}"))
+        })
+}
+
+#[pymodule]
+fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    resampling::register(m)?;
+    Ok(())
+}

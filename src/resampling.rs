@@ -1,0 +1,1007 @@
+//! Resampling schemes: which training rows each ensemble member sees, and how often.
+//!
+//! A [`ResampleParams`] is checked once into a [`Resampler`]; the resampler then writes
+//! in-bag counts (or Bayesian weights) for any number of members straight into a
+//! members × rows output, one member per rayon task. Member `m` always uses stream `m` of
+//! [`MemberStreams`], so results do not depend on the thread count and a member's draw does
+//! not change when more members are asked for.
+//!
+//! Schemes and their sources:
+//!
+//! ```text
+//! bootstrap   round(n·fraction) draws with replacement; count N_i ~ Binomial(draws, 1/n)
+//!             (Efron 1979, Annals of Statistics 7(1); Efron & Tibshirani 1993, ch. 6)
+//! subsample   round(n·fraction) distinct rows without replacement, count 0 or 1
+//!             (subagging: Bühlmann & Yu 2002, Annals of Statistics 30(4))
+//! bayesian    weights w = n·(E_1, …, E_n)/ΣE with E_i ~ Exp(1), i.e. n·Dirichlet(1, …, 1)
+//!             (Rubin 1981, Annals of Statistics 9(1)); no counts exist for this scheme
+//! strata      the scheme is applied within every stratum separately, so each stratum keeps
+//!             round(n_s·fraction) draws (its exact size when fraction = 1)
+//! groups      whole groups are the resampling units (cluster bootstrap; Davison & Hinkley
+//!             1997, Bootstrap Methods and their Application, §3.8): a row's count is its
+//!             group's count; Bayesian group weights E_g are scaled so all rows sum to n
+//! blocks      moving-block bootstrap for ordered rows (Künsch 1989, Annals of Statistics
+//!             17(3)): ceil(draws/L) blocks of L consecutive rows, starts uniform on
+//!             0..=n−L, concatenated and cut to `draws` rows (the last block may be shorter)
+//! ```
+
+use ndarray::Array2;
+use rayon::prelude::*;
+
+use crate::error::{Error, Result};
+use crate::parallel::{Monitor, Pool};
+use crate::random::{Draws, MemberStreams};
+
+/// How rows are drawn for one member.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Scheme {
+    /// With replacement (Efron 1979).
+    Bootstrap,
+    /// Without replacement (Bühlmann & Yu 2002).
+    Subsample,
+    /// Continuous Dirichlet weights (Rubin 1981).
+    Bayesian,
+}
+
+impl Scheme {
+    /// Parses the user-facing name.
+    pub fn parse(name: &str) -> Result<Self> {
+        match name {
+            "bootstrap" => Ok(Scheme::Bootstrap),
+            "subsample" => Ok(Scheme::Subsample),
+            "bayesian" => Ok(Scheme::Bayesian),
+            other => Err(Error::value(
+                "scheme",
+                format!("expected 'bootstrap', 'subsample' or 'bayesian', got {other:?}"),
+            )),
+        }
+    }
+
+    /// The user-facing name.
+    pub fn name(self) -> &'static str {
+        match self {
+            Scheme::Bootstrap => "bootstrap",
+            Scheme::Subsample => "subsample",
+            Scheme::Bayesian => "bayesian",
+        }
+    }
+}
+
+/// The structure the draw respects.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Design {
+    /// Rows are exchangeable.
+    Rows,
+    /// Stratum code (0..k) of every row; the draw happens within each stratum.
+    Strata(Vec<usize>),
+    /// Group code (0..g) of every row; whole groups are drawn.
+    Groups(Vec<usize>),
+    /// Moving blocks of this many consecutive rows.
+    Blocks(usize),
+}
+
+/// Unchecked resampling parameters.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ResampleParams {
+    pub n_rows: usize,
+    pub scheme: Scheme,
+    pub fraction: f64,
+    pub design: Design,
+}
+
+/// Rows (or groups) listed by code: `rows[offsets[c]..offsets[c + 1]]` belong to code `c`.
+#[derive(Debug, Clone, PartialEq, Eq)]
+struct Partition {
+    offsets: Vec<usize>,
+    rows: Vec<usize>,
+}
+
+impl Partition {
+    fn from_codes(codes: &[usize]) -> Self {
+        let n_codes = codes.iter().max().map_or(0, |&c| c + 1);
+        let mut offsets = vec![0usize; n_codes + 1];
+        for &c in codes {
+            offsets[c + 1] += 1;
+        }
+        for c in 0..n_codes {
+            offsets[c + 1] += offsets[c];
+        }
+        let mut cursor = offsets.clone();
+        let mut rows = vec![0usize; codes.len()];
+        for (row, &c) in codes.iter().enumerate() {
+            rows[cursor[c]] = row;
+            cursor[c] += 1;
+        }
+        // Codes that no row uses would be empty units; drop them.
+        let mut kept = vec![0usize];
+        for c in 0..n_codes {
+            if offsets[c + 1] > offsets[c] {
+                kept.push(offsets[c + 1]);
+            }
+        }
+        Partition {
+            offsets: kept,
+            rows,
+        }
+    }
+
+    fn len(&self) -> usize {
+        self.offsets.len() - 1
+    }
+
+    fn members(&self, code: usize) -> &[usize] {
+        &self.rows[self.offsets[code]..self.offsets[code + 1]]
+    }
+}
+
+#[derive(Debug, Clone, PartialEq)]
+enum Plan {
+    Rows {
+        draws: usize,
+    },
+    Strata {
+        strata: Partition,
+        draws: Vec<usize>,
+    },
+    Groups {
+        groups: Partition,
+        draws: usize,
+    },
+    Blocks {
+        length: usize,
+        draws: usize,
+        blocks: usize,
+    },
+}
+
+/// Checked parameters, ready to draw any number of members.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Resampler {
+    n_rows: usize,
+    scheme: Scheme,
+    fraction: f64,
+    plan: Plan,
+}
+
+/// Largest number of draws per member accepted (keeps every count within u64 and the
+/// work bounded).
+const MAX_DRAWS: f64 = (1u64 << 48) as f64;
+
+fn draw_size(units: usize, fraction: f64, scheme: Scheme) -> Result<usize> {
+    let size = (units as f64 * fraction).round().max(1.0);
+    if size > MAX_DRAWS {
+        return Err(Error::value(
+            "fraction",
+            format!("{fraction} × {units} rows asks for more than 2^48 draws per member"),
+        ));
+    }
+    let size = size as usize;
+    Ok(if scheme == Scheme::Subsample {
+        size.min(units)
+    } else {
+        size
+    })
+}
+
+fn check_codes(codes: &[usize], n_rows: usize, argument: &'static str) -> Result<()> {
+    if codes.len() != n_rows {
+        return Err(Error::value(
+            argument,
+            format!("has {} entries but n_rows is {n_rows}", codes.len()),
+        ));
+    }
+    if codes.iter().any(|&c| c >= n_rows) {
+        return Err(Error::value(argument, "codes must lie in 0..n_rows"));
+    }
+    Ok(())
+}
+
+impl ResampleParams {
+    /// Validates the parameters.
+    ///
+    /// # Errors
+    /// [`Error::InvalidValue`] naming `n_rows`, `fraction`, `strata`, `groups`,
+    /// `block_length` or `scheme` when a value is out of range or a combination is not
+    /// defined (blocks with subsampling or Bayesian weights).
+    pub fn check(self) -> Result<Resampler> {
+        let ResampleParams {
+            n_rows,
+            scheme,
+            fraction,
+            design,
+        } = self;
+        if n_rows == 0 {
+            return Err(Error::value("n_rows", "must be at least 1"));
+        }
+        if !fraction.is_finite() || fraction <= 0.0 {
+            return Err(Error::value(
+                "fraction",
+                format!("must be a finite number above 0, got {fraction}"),
+            ));
+        }
+        match scheme {
+            Scheme::Subsample if fraction > 1.0 => {
+                return Err(Error::value(
+                    "fraction",
+                    format!("must lie in (0, 1] for scheme='subsample', got {fraction}"),
+                ))
+            }
+            Scheme::Bayesian if fraction != 1.0 => {
+                return Err(Error::value(
+                    "fraction",
+                    "has no meaning for scheme='bayesian' (weights always sum to n_rows); leave it at 1.0",
+                ))
+            }
+            _ => {}
+        }
+        let plan = match design {
+            Design::Rows => Plan::Rows {
+                draws: draw_size(n_rows, fraction, scheme)?,
+            },
+            Design::Strata(codes) => {
+                check_codes(&codes, n_rows, "strata")?;
+                let strata = Partition::from_codes(&codes);
+                let draws = (0..strata.len())
+                    .map(|s| draw_size(strata.members(s).len(), fraction, scheme))
+                    .collect::<Result<Vec<_>>>()?;
+                Plan::Strata { strata, draws }
+            }
+            Design::Groups(codes) => {
+                check_codes(&codes, n_rows, "groups")?;
+                let groups = Partition::from_codes(&codes);
+                let draws = draw_size(groups.len(), fraction, scheme)?;
+                Plan::Groups { groups, draws }
+            }
+            Design::Blocks(length) => {
+                if length == 0 || length > n_rows {
+                    return Err(Error::value(
+                        "block_length",
+                        format!("must lie in 1..=n_rows ({n_rows}), got {length}"),
+                    ));
+                }
+                if scheme != Scheme::Bootstrap {
+                    return Err(Error::value(
+                        "block_length",
+                        format!(
+                            "moving blocks are defined for scheme='bootstrap' only, not {:?}",
+                            scheme.name()
+                        ),
+                    ));
+                }
+                let draws = draw_size(n_rows, fraction, scheme)?;
+                Plan::Blocks {
+                    length,
+                    draws,
+                    blocks: draws.div_ceil(length),
+                }
+            }
+        };
+        Ok(Resampler {
+            n_rows,
+            scheme,
+            fraction,
+            plan,
+        })
+    }
+}
+
+/// An unsigned integer type that in-bag counts can be stored in.
+pub trait Count: Copy + Default + Send + Sync + 'static {
+    /// Largest representable count.
+    const MAX: u64;
+    /// Adds one; returns `true` if that overflowed (the stored value is then unusable).
+    fn increment(&mut self) -> bool;
+    /// The value `v`, or `None` if it does not fit.
+    fn try_from_u64(v: u64) -> Option<Self>;
+    /// Widens to u64.
+    fn as_u64(self) -> u64;
+}
+
+macro_rules! impl_count {
+    ($($t:ty),*) => {$(
+        impl Count for $t {
+            const MAX: u64 = <$t>::MAX as u64;
+            #[inline]
+            fn increment(&mut self) -> bool {
+                let (value, overflow) = self.overflowing_add(1);
+                *self = value;
+                overflow
+            }
+            #[inline]
+            fn try_from_u64(v: u64) -> Option<Self> {
+                <$t>::try_from(v).ok()
+            }
+            #[inline]
+            fn as_u64(self) -> u64 {
+                self as u64
+            }
+        }
+    )*};
+}
+impl_count!(u8, u16, u32, u64);
+
+/// The unsigned integer type of a counts array.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum CountWidth {
+    U8,
+    U16,
+    U32,
+    U64,
+}
+
+/// In-bag counts in the narrowest unsigned type that holds every count drawn.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Counts {
+    U8(Array2<u8>),
+    U16(Array2<u16>),
+    U32(Array2<u32>),
+    U64(Array2<u64>),
+}
+
+impl Counts {
+    /// Shape (members, n_rows).
+    pub fn dim(&self) -> (usize, usize) {
+        match self {
+            Counts::U8(a) => a.dim(),
+            Counts::U16(a) => a.dim(),
+            Counts::U32(a) => a.dim(),
+            Counts::U64(a) => a.dim(),
+        }
+    }
+
+    /// Count of `row` in `member`, widened.
+    pub fn get(&self, member: usize, row: usize) -> u64 {
+        match self {
+            Counts::U8(a) => a[[member, row]].as_u64(),
+            Counts::U16(a) => a[[member, row]].as_u64(),
+            Counts::U32(a) => a[[member, row]].as_u64(),
+            Counts::U64(a) => a[[member, row]].as_u64(),
+        }
+    }
+}
+
+/// Members handled between two monitor calls: about 2^22 draws per thread, so a chunk
+/// takes a few milliseconds and Ctrl-C is noticed quickly.
+fn chunk_members(draws_per_member: usize, threads: usize) -> usize {
+    let per_thread = (1usize << 22) / draws_per_member.max(1);
+    (per_thread.max(1) * threads.max(1)).max(1)
+}
+
+impl Resampler {
+    /// Number of rows.
+    pub fn n_rows(&self) -> usize {
+        self.n_rows
+    }
+
+    /// The scheme.
+    pub fn scheme(&self) -> Scheme {
+        self.scheme
+    }
+
+    /// The fraction the draw sizes were computed from.
+    pub fn fraction(&self) -> f64 {
+        self.fraction
+    }
+
+    /// Rows drawn per member: the sum of one member's counts (for Bayesian weights, n_rows).
+    pub fn draws_per_member(&self) -> usize {
+        match &self.plan {
+            _ if self.scheme == Scheme::Bayesian => self.n_rows,
+            Plan::Rows { draws } | Plan::Blocks { draws, .. } => *draws,
+            Plan::Strata { draws, .. } => draws.iter().sum(),
+            Plan::Groups { groups, draws } => {
+                // A drawn group contributes all its rows; the sum varies by member unless
+                // groups have equal sizes. Report the expected number of rows.
+                (*draws as f64 * self.n_rows as f64 / groups.len() as f64).round() as usize
+            }
+        }
+    }
+
+    /// The largest count any row can receive: the bound the output type must cover.
+    pub fn max_possible_count(&self) -> u64 {
+        if self.scheme == Scheme::Subsample {
+            return 1;
+        }
+        match &self.plan {
+            Plan::Rows { draws } => *draws as u64,
+            Plan::Strata { draws, .. } => draws.iter().copied().max().unwrap_or(0) as u64,
+            Plan::Groups { draws, .. } => *draws as u64,
+            Plan::Blocks { blocks, .. } => *blocks as u64,
+        }
+    }
+
+    /// Number of moving blocks per member, if this is a block design.
+    pub fn blocks_per_member(&self) -> Option<usize> {
+        match &self.plan {
+            Plan::Blocks { blocks, .. } => Some(*blocks),
+            _ => None,
+        }
+    }
+
+    fn require_counts(&self) -> Result<()> {
+        if self.scheme == Scheme::Bayesian {
+            return Err(Error::value(
+                "scheme",
+                "scheme='bayesian' gives every row a positive continuous weight, so in-bag \
+                 counts and out-of-bag rows are not defined; use the weights",
+            ));
+        }
+        Ok(())
+    }
+
+    /// The integer widths to try for the counts, narrowest first: uint8 always, then the
+    /// wider ones up to the first that holds [`max_possible_count`]. Drawing into a width
+    /// that turns out too narrow fails with [`Error::CountOverflow`] (never a wrapped
+    /// count), and the next width redraws the same streams.
+    ///
+    /// [`max_possible_count`]: Resampler::max_possible_count
+    pub fn count_widths(&self) -> Vec<CountWidth> {
+        let bound = self.max_possible_count();
+        let mut widths = vec![CountWidth::U8];
+        for (narrower_max, wider) in [
+            (u8::MAX as u64, CountWidth::U16),
+            (u16::MAX as u64, CountWidth::U32),
+            (u32::MAX as u64, CountWidth::U64),
+        ] {
+            if bound > narrower_max {
+                widths.push(wider);
+            }
+        }
+        widths
+    }
+
+    /// Draws the in-bag counts of members `0..members` in the narrowest unsigned type that
+    /// holds every count drawn (uint8 unless some row is drawn more than 255 times); see
+    /// [`count_widths`](Resampler::count_widths).
+    ///
+    /// # Errors
+    /// `scheme` for Bayesian weights (no counts), `members` for zero members,
+    /// [`Error::Interrupted`] when the monitor stops the work.
+    pub fn counts(
+        &self,
+        seed: u64,
+        members: usize,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<Counts> {
+        let mut last = Error::CountOverflow { max: 0 };
+        for width in self.count_widths() {
+            let attempt = match width {
+                CountWidth::U8 => self.counts_as(seed, members, pool, monitor).map(Counts::U8),
+                CountWidth::U16 => self
+                    .counts_as(seed, members, pool, monitor)
+                    .map(Counts::U16),
+                CountWidth::U32 => self
+                    .counts_as(seed, members, pool, monitor)
+                    .map(Counts::U32),
+                CountWidth::U64 => self
+                    .counts_as(seed, members, pool, monitor)
+                    .map(Counts::U64),
+            };
+            match attempt {
+                Err(e @ Error::CountOverflow { .. }) => last = e,
+                other => return other,
+            }
+        }
+        Err(last)
+    }
+
+    /// Draws the counts of members `0..members` into a new array of type `T`.
+    ///
+    /// # Errors
+    /// [`Error::CountOverflow`] if some count does not fit `T`, plus those of [`counts`].
+    ///
+    /// [`counts`]: Resampler::counts
+    pub fn counts_as<T: Count>(
+        &self,
+        seed: u64,
+        members: usize,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<Array2<T>> {
+        if members == 0 {
+            return Err(Error::value("members", "must be at least 1"));
+        }
+        let mut out = Array2::<T>::default((members, self.n_rows));
+        let slice = out.as_slice_mut().expect("a new array is contiguous");
+        self.fill_counts(seed, slice, pool, monitor)?;
+        Ok(out)
+    }
+
+    /// Writes the counts of members `0..out.len() / n_rows` into `out` (row-major
+    /// members × n_rows, all zeros on entry), e.g. straight into a numpy array.
+    ///
+    /// # Errors
+    /// `scheme` for Bayesian weights; `members` if `out` is empty or not a whole number of
+    /// rows; [`Error::CountOverflow`] if a count does not fit `T`; [`Error::Interrupted`].
+    pub fn fill_counts<T: Count>(
+        &self,
+        seed: u64,
+        out: &mut [T],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        self.require_counts()?;
+        let n = self.n_rows;
+        if out.is_empty() || out.len() % n != 0 {
+            return Err(Error::value(
+                "members",
+                format!(
+                    "the output holds {} values, not a positive multiple of n_rows ({n})",
+                    out.len()
+                ),
+            ));
+        }
+        let members = out.len() / n;
+        let mut streams = MemberStreams::new(seed);
+        let chunk = chunk_members(self.draws_per_member(), pool.threads());
+        let mut done = 0;
+        for block in out.chunks_mut(chunk * n) {
+            let k = block.len() / n;
+            let mut draws = streams.take(k);
+            pool.run(|| {
+                block
+                    .par_chunks_mut(n)
+                    .zip(draws.par_iter_mut())
+                    .try_for_each(|(row, d)| self.fill_member(d, row))
+            })?;
+            done += k;
+            monitor.progress(done, members)?;
+        }
+        Ok(())
+    }
+
+    /// Writes one member's counts into `row` (all zeros on entry).
+    fn fill_member<T: Count>(&self, d: &mut Draws, row: &mut [T]) -> Result<()> {
+        let overflow = match (&self.plan, self.scheme) {
+            (Plan::Rows { draws }, Scheme::Bootstrap) => {
+                let n = row.len();
+                let mut overflow = false;
+                d.for_each_below(n, *draws, |i| overflow |= row[i].increment());
+                overflow
+            }
+            (Plan::Rows { draws }, _) => {
+                let n = row.len();
+                let all: Vec<usize> = Vec::new();
+                subsample_into(d, n, *draws, &all, row);
+                false
+            }
+            (Plan::Strata { strata, draws }, Scheme::Bootstrap) => {
+                let mut overflow = false;
+                for (s, &m) in draws.iter().enumerate() {
+                    let rows = strata.members(s);
+                    d.for_each_below(rows.len(), m, |i| overflow |= row[rows[i]].increment());
+                }
+                overflow
+            }
+            (Plan::Strata { strata, draws }, _) => {
+                for (s, &m) in draws.iter().enumerate() {
+                    let rows = strata.members(s);
+                    subsample_into(d, rows.len(), m, rows, row);
+                }
+                false
+            }
+            (Plan::Groups { groups, draws }, scheme) => {
+                let g = groups.len();
+                let mut group_counts = vec![0u64; g];
+                if scheme == Scheme::Bootstrap {
+                    d.for_each_below(g, *draws, |i| group_counts[i] += 1);
+                } else {
+                    let all: Vec<usize> = Vec::new();
+                    subsample_into(d, g, *draws, &all, &mut group_counts);
+                }
+                let mut overflow = false;
+                for (code, &c) in group_counts.iter().enumerate() {
+                    if c == 0 {
+                        continue;
+                    }
+                    match T::try_from_u64(c) {
+                        Some(value) => groups.members(code).iter().for_each(|&r| row[r] = value),
+                        None => overflow = true,
+                    }
+                }
+                overflow
+            }
+            (Plan::Blocks { length, draws, .. }, _) => {
+                let mut overflow = false;
+                let starts = row.len() - length + 1;
+                let mut left = *draws;
+                while left > 0 {
+                    let start = d.below(starts);
+                    let take = left.min(*length);
+                    for slot in &mut row[start..start + take] {
+                        overflow |= slot.increment();
+                    }
+                    left -= take;
+                }
+                overflow
+            }
+        };
+        if overflow {
+            Err(Error::CountOverflow { max: T::MAX })
+        } else {
+            Ok(())
+        }
+    }
+
+    /// The start row of every moving block, (members, blocks_per_member), drawn from the
+    /// same streams as [`counts`](Resampler::counts) so the two always agree.
+    ///
+    /// # Errors
+    /// `block_length` if this is not a block design; `members` for zero members.
+    pub fn block_starts(&self, seed: u64, members: usize, pool: &Pool) -> Result<Array2<u64>> {
+        let Plan::Blocks { length, blocks, .. } = &self.plan else {
+            return Err(Error::value(
+                "block_length",
+                "block starts exist only for block designs",
+            ));
+        };
+        if members == 0 {
+            return Err(Error::value("members", "must be at least 1"));
+        }
+        let starts = self.n_rows - length + 1;
+        let mut out = Array2::<u64>::zeros((members, *blocks));
+        let mut draws = MemberStreams::new(seed).take(members);
+        let slice = out.as_slice_mut().expect("contiguous");
+        pool.run(|| {
+            slice
+                .par_chunks_mut(*blocks)
+                .zip(draws.par_iter_mut())
+                .for_each(|(row, d)| row.iter_mut().for_each(|s| *s = d.below(starts) as u64))
+        });
+        Ok(out)
+    }
+
+    /// Bayesian-bootstrap weights of members `0..members`, (members, n_rows) float64.
+    ///
+    /// ```text
+    /// rows:    w_i = n · E_i / Σ_j E_j                      E ~ Exp(1) i.i.d.
+    /// strata:  w_i = n_s · E_i / Σ_{j in s} E_j            (each stratum keeps its size)
+    /// groups:  w_i = n · E_g(i) / Σ_h |h| E_h              (rows of a group share a weight)
+    /// ```
+    /// Normalised exponentials are Dirichlet(1, …, 1) (Rubin 1981).
+    ///
+    /// # Errors
+    /// `scheme` unless the scheme is Bayesian; `members` for zero members;
+    /// [`Error::Interrupted`] from the monitor.
+    pub fn bayesian_weights(
+        &self,
+        seed: u64,
+        members: usize,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<Array2<f64>> {
+        if members == 0 {
+            return Err(Error::value("members", "must be at least 1"));
+        }
+        let mut out = Array2::<f64>::zeros((members, self.n_rows));
+        let slice = out.as_slice_mut().expect("a new array is contiguous");
+        self.fill_bayesian_weights(seed, slice, pool, monitor)?;
+        Ok(out)
+    }
+
+    /// Writes the Bayesian weights of members `0..out.len() / n_rows` into `out`
+    /// (row-major members × n_rows).
+    ///
+    /// # Errors
+    /// As [`bayesian_weights`](Resampler::bayesian_weights); `members` if `out` is not a
+    /// positive whole number of rows.
+    pub fn fill_bayesian_weights(
+        &self,
+        seed: u64,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        if self.scheme != Scheme::Bayesian {
+            return Err(Error::value(
+                "scheme",
+                "continuous weights are drawn for scheme='bayesian' only; other schemes weight rows by their counts",
+            ));
+        }
+        let n = self.n_rows;
+        if out.is_empty() || out.len() % n != 0 {
+            return Err(Error::value(
+                "members",
+                format!(
+                    "the output holds {} values, not a positive multiple of n_rows ({n})",
+                    out.len()
+                ),
+            ));
+        }
+        let members = out.len() / n;
+        let mut streams = MemberStreams::new(seed);
+        let chunk = chunk_members(n, pool.threads());
+        let mut done = 0;
+        for block in out.chunks_mut(chunk * n) {
+            let k = block.len() / n;
+            let mut draws = streams.take(k);
+            pool.run(|| {
+                block
+                    .par_chunks_mut(n)
+                    .zip(draws.par_iter_mut())
+                    .for_each(|(row, d)| self.fill_weights(d, row))
+            });
+            done += k;
+            monitor.progress(done, members)?;
+        }
+        Ok(())
+    }
+
+    fn fill_weights(&self, d: &mut Draws, row: &mut [f64]) {
+        let n = row.len() as f64;
+        match &self.plan {
+            Plan::Strata { strata, .. } => {
+                for s in 0..strata.len() {
+                    let rows = strata.members(s);
+                    let e: Vec<f64> = rows.iter().map(|_| d.exponential()).collect();
+                    let scale = rows.len() as f64 / e.iter().sum::<f64>();
+                    rows.iter().zip(&e).for_each(|(&r, &x)| row[r] = x * scale);
+                }
+            }
+            Plan::Groups { groups, .. } => {
+                let e: Vec<f64> = (0..groups.len()).map(|_| d.exponential()).collect();
+                let mass: f64 = (0..groups.len())
+                    .map(|g| e[g] * groups.members(g).len() as f64)
+                    .sum();
+                for (g, &x) in e.iter().enumerate() {
+                    let w = n * x / mass;
+                    groups.members(g).iter().for_each(|&r| row[r] = w);
+                }
+            }
+            _ => {
+                row.iter_mut().for_each(|w| *w = d.exponential());
+                let scale = n / row.iter().sum::<f64>();
+                row.iter_mut().for_each(|w| *w *= scale);
+            }
+        }
+    }
+}
+
+/// Marks `size` distinct units of `0..units` with a count of one (Floyd's algorithm:
+/// Bentley & Floyd 1987, "A sample of brilliance", CACM 30(9)); O(size) draws, no
+/// extra memory, the output itself serving as the membership test. `rows` maps unit
+/// indices to output positions (empty: identity).
+fn subsample_into<T: Count>(
+    d: &mut Draws,
+    units: usize,
+    size: usize,
+    rows: &[usize],
+    out: &mut [T],
+) {
+    let at = |unit: usize| if rows.is_empty() { unit } else { rows[unit] };
+    let one = T::try_from_u64(1).expect("1 fits every count type");
+    for j in (units - size)..units {
+        let t = at(d.below(j + 1));
+        if out[t].as_u64() == 0 {
+            out[t] = one;
+        } else {
+            out[at(j)] = one;
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::{Pool, Silent};
+    const POOL: Pool = Pool::Global;
+
+    fn plan(n_rows: usize, scheme: Scheme, fraction: f64, design: Design) -> Resampler {
+        ResampleParams {
+            n_rows,
+            scheme,
+            fraction,
+            design,
+        }
+        .check()
+        .unwrap()
+    }
+
+    fn as_u64(counts: &Counts) -> Array2<u64> {
+        let (m, n) = counts.dim();
+        Array2::from_shape_fn((m, n), |(i, j)| counts.get(i, j))
+    }
+
+    #[test]
+    fn bootstrap_counts_sum_to_the_draw_size() {
+        let r = plan(1000, Scheme::Bootstrap, 0.5, Design::Rows);
+        let c = as_u64(&r.counts(1, 20, &POOL, &Silent).unwrap());
+        assert!(c.rows().into_iter().all(|row| row.sum() == 500));
+    }
+
+    #[test]
+    fn out_of_bag_share_is_near_one_over_e() {
+        // Efron & Tibshirani (1993): P(row not drawn) = (1 − 1/n)^n.
+        let n = 500;
+        let r = plan(n, Scheme::Bootstrap, 1.0, Design::Rows);
+        let c = as_u64(&r.counts(2, 400, &POOL, &Silent).unwrap());
+        let zeros = c.iter().filter(|&&v| v == 0).count() as f64 / (400 * n) as f64;
+        let expected = (1.0 - 1.0 / n as f64).powi(n as i32);
+        assert!((zeros - expected).abs() < 0.003, "{zeros} vs {expected}");
+    }
+
+    #[test]
+    fn subsample_draws_distinct_rows() {
+        let r = plan(101, Scheme::Subsample, 0.5, Design::Rows);
+        let c = as_u64(&r.counts(3, 50, &POOL, &Silent).unwrap());
+        for row in c.rows() {
+            assert_eq!(row.sum(), 51);
+            assert!(row.iter().all(|&v| v <= 1));
+        }
+        let full = plan(10, Scheme::Subsample, 1.0, Design::Rows);
+        assert!(as_u64(&full.counts(0, 3, &POOL, &Silent).unwrap())
+            .iter()
+            .all(|&v| v == 1));
+    }
+
+    #[test]
+    fn strata_keep_their_sizes() {
+        let codes: Vec<usize> = (0..90)
+            .map(|i| {
+                if i < 10 {
+                    0
+                } else if i < 40 {
+                    2
+                } else {
+                    5
+                }
+            })
+            .collect();
+        for scheme in [Scheme::Bootstrap, Scheme::Subsample] {
+            let fraction = if scheme == Scheme::Bootstrap {
+                1.0
+            } else {
+                0.5
+            };
+            let r = plan(90, scheme, fraction, Design::Strata(codes.clone()));
+            let c = as_u64(&r.counts(4, 30, &POOL, &Silent).unwrap());
+            for row in c.rows() {
+                let sum = |lo: usize, hi: usize| row.slice(ndarray::s![lo..hi]).sum();
+                let scale = |size: f64| (size * fraction).round() as u64;
+                assert_eq!(sum(0, 10), scale(10.0));
+                assert_eq!(sum(10, 40), scale(30.0));
+                assert_eq!(sum(40, 90), scale(50.0));
+            }
+        }
+    }
+
+    #[test]
+    fn rows_of_a_group_share_their_count() {
+        let codes: Vec<usize> = (0..60).map(|i| (i * 7) % 12).collect();
+        let r = plan(60, Scheme::Bootstrap, 1.0, Design::Groups(codes.clone()));
+        let c = as_u64(&r.counts(5, 40, &POOL, &Silent).unwrap());
+        for row in c.rows() {
+            for i in 0..60 {
+                for j in 0..60 {
+                    if codes[i] == codes[j] {
+                        assert_eq!(row[i], row[j]);
+                    }
+                }
+            }
+            // Twelve group draws of five rows each.
+            assert_eq!(row.sum(), 60);
+        }
+    }
+
+    #[test]
+    fn block_counts_match_their_starts() {
+        let (n, length) = (103, 10);
+        let r = plan(n, Scheme::Bootstrap, 1.0, Design::Blocks(length));
+        let c = as_u64(&r.counts(6, 25, &POOL, &Silent).unwrap());
+        let starts = r.block_starts(6, 25, &POOL).unwrap();
+        assert_eq!(starts.ncols(), 11);
+        for (row, st) in c.rows().into_iter().zip(starts.rows()) {
+            let mut rebuilt = vec![0u64; n];
+            let mut left = n;
+            for &s in st {
+                let take = left.min(length);
+                (s as usize..s as usize + take).for_each(|i| rebuilt[i] += 1);
+                left -= take;
+            }
+            assert_eq!(row.to_vec(), rebuilt);
+        }
+    }
+
+    #[test]
+    fn counts_widen_instead_of_wrapping() {
+        // 3000 draws over 3 rows: about 1000 per row, more than u8 holds.
+        let r = plan(3, Scheme::Bootstrap, 1000.0, Design::Rows);
+        let counts = r.counts(7, 4, &POOL, &Silent).unwrap();
+        assert!(matches!(counts, Counts::U16(_)));
+        assert!(as_u64(&counts)
+            .rows()
+            .into_iter()
+            .all(|row| row.sum() == 3000));
+        assert_eq!(
+            r.counts_as::<u8>(7, 4, &POOL, &Silent).unwrap_err(),
+            Error::CountOverflow { max: 255 }
+        );
+    }
+
+    #[test]
+    fn members_do_not_depend_on_how_many_are_drawn() {
+        let r = plan(300, Scheme::Bootstrap, 1.0, Design::Rows);
+        let few = as_u64(&r.counts(8, 3, &POOL, &Silent).unwrap());
+        let many = as_u64(&r.counts(8, 50, &POOL, &Silent).unwrap());
+        assert_eq!(few, many.slice(ndarray::s![..3, ..]));
+    }
+
+    #[test]
+    fn bayesian_weights_sum_to_n_and_have_no_counts() {
+        let r = plan(40, Scheme::Bayesian, 1.0, Design::Rows);
+        let w = r.bayesian_weights(9, 10, &POOL, &Silent).unwrap();
+        for row in w.rows() {
+            approx::assert_relative_eq!(row.sum(), 40.0, max_relative = 1e-12);
+            assert!(row.iter().all(|&x| x > 0.0));
+        }
+        assert!(matches!(
+            r.counts(9, 1, &POOL, &Silent),
+            Err(Error::InvalidValue {
+                argument: "scheme",
+                ..
+            })
+        ));
+        let codes: Vec<usize> = (0..40).map(|i| i % 3).collect();
+        let g = plan(40, Scheme::Bayesian, 1.0, Design::Groups(codes.clone()));
+        for row in g.bayesian_weights(9, 5, &POOL, &Silent).unwrap().rows() {
+            approx::assert_relative_eq!(row.sum(), 40.0, max_relative = 1e-12);
+            assert_eq!(row[0], row[3]);
+        }
+        let s = plan(40, Scheme::Bayesian, 1.0, Design::Strata(codes));
+        for row in s.bayesian_weights(9, 5, &POOL, &Silent).unwrap().rows() {
+            let stratum0: f64 = row.iter().step_by(3).sum();
+            approx::assert_relative_eq!(stratum0, 14.0, max_relative = 1e-12);
+        }
+    }
+
+    #[test]
+    fn bad_parameters_name_their_argument() {
+        let check = |n, scheme, fraction, design| match (ResampleParams {
+            n_rows: n,
+            scheme,
+            fraction,
+            design,
+        })
+        .check()
+        {
+            Err(Error::InvalidValue { argument, .. }) => argument,
+            other => panic!("expected an error, got {other:?}"),
+        };
+        assert_eq!(check(0, Scheme::Bootstrap, 1.0, Design::Rows), "n_rows");
+        assert_eq!(check(5, Scheme::Bootstrap, 0.0, Design::Rows), "fraction");
+        assert_eq!(
+            check(5, Scheme::Bootstrap, f64::NAN, Design::Rows),
+            "fraction"
+        );
+        assert_eq!(check(5, Scheme::Subsample, 1.5, Design::Rows), "fraction");
+        assert_eq!(check(5, Scheme::Bayesian, 0.5, Design::Rows), "fraction");
+        assert_eq!(
+            check(5, Scheme::Bootstrap, 1.0, Design::Strata(vec![0; 4])),
+            "strata"
+        );
+        assert_eq!(
+            check(5, Scheme::Bootstrap, 1.0, Design::Groups(vec![9; 5])),
+            "groups"
+        );
+        assert_eq!(
+            check(5, Scheme::Bootstrap, 1.0, Design::Blocks(0)),
+            "block_length"
+        );
+        assert_eq!(
+            check(5, Scheme::Bootstrap, 1.0, Design::Blocks(6)),
+            "block_length"
+        );
+        assert_eq!(
+            check(5, Scheme::Subsample, 0.5, Design::Blocks(2)),
+            "block_length"
+        );
+        assert_eq!(
+            Scheme::parse("jackknife").unwrap_err(),
+            Error::value(
+                "scheme",
+                "expected 'bootstrap', 'subsample' or 'bayesian', got \"jackknife\""
+            )
+        );
+    }
+}
