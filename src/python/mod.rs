@@ -97,6 +97,31 @@ pub(crate) fn zeros<'py, T: Element>(
     Ok(array.cast_into::<PyArray2<T>>()?)
 }
 
+#[allow(dead_code)] // first used by the diagnostics bindings
+/// A 2-D or 3-D float input read as f32 or f64 without an upcasting copy, any strides.
+/// Use `FloatArray::F32(a) => core(a.as_array())` etc. and keep the dispatch in one match.
+pub(crate) enum FloatArray<'py, D: numpy::ndarray::Dimension> {
+    F32(numpy::PyReadonlyArray<'py, f32, D>),
+    F64(numpy::PyReadonlyArray<'py, f64, D>),
+}
+
+#[allow(dead_code)]
+impl<'py, D: numpy::ndarray::Dimension> FloatArray<'py, D> {
+    /// Reads `object` as a float array of dimension `D`, naming `argument` on failure.
+    pub(crate) fn extract(object: &Bound<'py, PyAny>, argument: &'static str) -> PyResult<Self> {
+        if let Ok(a) = object.extract::<numpy::PyReadonlyArray<'py, f64, D>>() {
+            return Ok(FloatArray::F64(a));
+        }
+        if let Ok(a) = object.extract::<numpy::PyReadonlyArray<'py, f32, D>>() {
+            return Ok(FloatArray::F32(a));
+        }
+        Err(PyTypeError::new_err(format!(
+            "`{argument}`: expected a float32 or float64 numpy array with {} dimensions",
+            D::NDIM.map_or("the right number of".to_string(), |n| n.to_string())
+        )))
+    }
+}
+
 /// Converts a Python integer that must be positive into usize, naming the argument.
 pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
     usize::try_from(value)
