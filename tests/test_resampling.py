@@ -297,3 +297,18 @@ def test_core_errors_name_the_argument():
         bagwise._core.Resampler(3, "bootstrap", 1.0, strata=np.array([0.5, 1.0, 2.0]))
     with pytest.raises(ValueError, match="`members`"):
         bagwise._core.Resampler(3, "bootstrap", 1.0).counts(0, 0)
+
+
+def test_bayesian_weights_respect_strata_and_groups():
+    # Rubin (1981) weights applied per stratum (each stratum keeps its total) or per group
+    # (rows of a group share a weight); totals are exact by construction (common practice).
+    labels = np.arange(60) % 4
+    strat = bagwise.resample(60, 50, scheme="bayesian", strata=labels, seed=3).weights
+    for s in range(4):
+        np.testing.assert_allclose(strat[:, labels == s].sum(axis=1), 15, rtol=1e-12)
+    groups = np.arange(60) // 6
+    grouped = bagwise.resample(60, 50, scheme="bayesian", groups=groups, seed=3).weights
+    np.testing.assert_allclose(grouped.sum(axis=1), 60, rtol=1e-12)
+    for g in range(10):
+        block = grouped[:, groups == g]
+        assert (block == block[:, :1]).all()
