@@ -4,6 +4,7 @@
 //!
 //! - [`resampling`]: which rows each member sees (bootstrap, subsampling, Bayesian weights,
 //!   strata, groups, moving blocks);
+//! - [`uncertainty`]: infinitesimal-jackknife and jackknife standard errors via count Grams;
 //! - [`random`]: one reproducible random stream per member;
 //! - [`numeric`]: the f32/f64 input trait and mergeable (Chan-style) moments;
 //! - [`parallel`]: explicit thread counts and progress/interrupt hooks for long loops.
@@ -16,6 +17,7 @@ pub mod numeric;
 pub mod parallel;
 pub mod random;
 pub mod resampling;
+pub mod uncertainty;
 
 #[cfg(feature = "python")]
 mod python;

@@ -7,6 +7,7 @@ import sys
 from pathlib import Path
 
 import numpy as np
+
 from bagwise.datasets import load_vineyards
 
 ROOT = Path(__file__).resolve().parents[1]

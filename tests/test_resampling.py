@@ -11,10 +11,11 @@ import sys
 import textwrap
 import time
 
-import bagwise
 import numpy as np
 import pytest
 import scipy.stats
+
+import bagwise
 
 
 def test_out_of_bag_share_matches_efron_tibshirani():

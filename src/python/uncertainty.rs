@@ -1,0 +1,225 @@
+//! Bindings of [`crate::uncertainty`].
+
+use numpy::{IntoPyArray, PyReadonlyArray2};
+use pyo3::exceptions::{PyTypeError, PyValueError};
+use pyo3::prelude::*;
+use pyo3::types::PyBytes;
+
+use super::{run_core, to_py_err, FloatArray};
+use crate::uncertainty::{CountGram, DrawKind, GramCount, Method};
+
+/// In-bag counts of any unsigned width, read without a copy.
+enum CountArray<'py> {
+    U8(PyReadonlyArray2<'py, u8>),
+    U16(PyReadonlyArray2<'py, u16>),
+    U32(PyReadonlyArray2<'py, u32>),
+    U64(PyReadonlyArray2<'py, u64>),
+}
+
+impl<'py> CountArray<'py> {
+    fn extract(object: &Bound<'py, PyAny>) -> PyResult<Self> {
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U8(a));
+        }
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U16(a));
+        }
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U32(a));
+        }
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U64(a));
+        }
+        Err(PyTypeError::new_err(
+            "`counts`: expected a 2-D numpy array of unsigned integers (members, n_train)",
+        ))
+    }
+}
+
+/// Runs `$body` with `$view` bound to the counts as an `ArrayView2` of their own dtype.
+macro_rules! with_counts {
+    ($counts:expr, $view:ident => $body:expr) => {
+        match $counts {
+            CountArray::U8(a) => {
+                let $view = a.as_array();
+                $body
+            }
+            CountArray::U16(a) => {
+                let $view = a.as_array();
+                $body
+            }
+            CountArray::U32(a) => {
+                let $view = a.as_array();
+                $body
+            }
+            CountArray::U64(a) => {
+                let $view = a.as_array();
+                $body
+            }
+        }
+    };
+}
+
+fn parse_kind(kind: Option<&str>, subsample_rows: Option<usize>) -> PyResult<Option<DrawKind>> {
+    match (kind, subsample_rows) {
+        (None, _) => Ok(None),
+        (Some("bootstrap"), _) => Ok(Some(DrawKind::Bootstrap)),
+        (Some("subsample"), Some(rows)) => Ok(Some(DrawKind::Subsample { rows })),
+        (Some("subsample"), None) => Err(PyValueError::new_err(
+            "`scheme`: 'subsample' needs the number of rows per member",
+        )),
+        (Some(other), _) => Err(PyValueError::new_err(format!(
+            "`scheme`: expected 'bootstrap', 'subsample' or None, got {other:?}"
+        ))),
+    }
+}
+
+fn gram_new<C: GramCount>(
+    py: Python<'_>,
+    counts: numpy::ndarray::ArrayView2<'_, C>,
+    kind: Option<DrawKind>,
+    jackknife: bool,
+    threads: Option<usize>,
+    progress: Option<Py<PyAny>>,
+) -> PyResult<CountGram> {
+    run_core(py, threads, progress, |pool, monitor| {
+        let mut gram = CountGram::new(counts, kind, pool, monitor)?;
+        if jackknife {
+            gram.add_out_of_bag_gram(counts, pool, monitor)?;
+        }
+        Ok(gram)
+    })
+}
+
+/// Gram matrices of one ensemble's in-bag counts, reused for any prediction points.
+#[pyclass(module = "bagwise._core", name = "CountGram", frozen)]
+pub struct PyCountGram {
+    inner: CountGram,
+}
+
+#[pymethods]
+impl PyCountGram {
+    #[new]
+    #[pyo3(signature = (counts, *, scheme=None, subsample_rows=None, jackknife=false, threads=None, progress=None))]
+    fn new(
+        py: Python<'_>,
+        counts: &Bound<'_, PyAny>,
+        scheme: Option<&str>,
+        subsample_rows: Option<usize>,
+        jackknife: bool,
+        threads: Option<usize>,
+        progress: Option<Py<PyAny>>,
+    ) -> PyResult<Self> {
+        let kind = parse_kind(scheme, subsample_rows)?;
+        let counts = CountArray::extract(counts)?;
+        let inner =
+            with_counts!(&counts, view => gram_new(py, view, kind, jackknife, threads, progress))?;
+        Ok(PyCountGram { inner })
+    }
+
+    /// (raw, correction, within, mean) per point for `members` (members, n_points).
+    #[pyo3(signature = (members, method, threads=None))]
+    #[allow(clippy::type_complexity)]
+    fn variance(
+        &self,
+        py: Python<'_>,
+        members: &Bound<'_, PyAny>,
+        method: &str,
+        threads: Option<usize>,
+    ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
+        let method = Method::parse(method).map_err(to_py_err)?;
+        let estimate = match FloatArray::<numpy::Ix2>::extract(members, "members")? {
+            FloatArray::F32(a) => {
+                let view = a.as_array();
+                run_core(py, threads, None, |pool, _| {
+                    self.inner.variance(view, method, pool)
+                })?
+            }
+            FloatArray::F64(a) => {
+                let view = a.as_array();
+                run_core(py, threads, None, |pool, _| {
+                    self.inner.variance(view, method, pool)
+                })?
+            }
+        };
+        let arr = |a: numpy::ndarray::Array1<f64>| a.into_pyarray(py).into_any().unbind();
+        Ok((
+            arr(estimate.raw),
+            arr(estimate.correction),
+            arr(estimate.within),
+            arr(estimate.mean),
+        ))
+    }
+
+    #[getter]
+    fn members(&self) -> usize {
+        self.inner.members()
+    }
+
+    #[getter]
+    fn n_train(&self) -> usize {
+        self.inner.n_train()
+    }
+
+    /// 'bootstrap' or 'subsample'.
+    #[getter]
+    fn scheme(&self) -> &'static str {
+        match self.inner.kind() {
+            DrawKind::Bootstrap => "bootstrap",
+            DrawKind::Subsample { .. } => "subsample",
+        }
+    }
+
+    /// Rows per member for subsamples, else None.
+    #[getter]
+    fn subsample_rows(&self) -> Option<usize> {
+        match self.inner.kind() {
+            DrawKind::Bootstrap => None,
+            DrawKind::Subsample { rows } => Some(rows),
+        }
+    }
+
+    #[getter]
+    fn has_jackknife(&self) -> bool {
+        self.inner.has_out_of_bag_gram()
+    }
+
+    #[getter]
+    fn rows_never_out_of_bag(&self) -> usize {
+        self.inner.rows_never_out_of_bag()
+    }
+
+    /// G = N Nᵀ as a (members, members) float64 array (exact integers).
+    #[getter]
+    fn gram(&self, py: Python<'_>) -> Py<PyAny> {
+        self.inner
+            .gram()
+            .clone()
+            .into_pyarray(py)
+            .into_any()
+            .unbind()
+    }
+
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Bound<'py, PyBytes> {
+        PyBytes::new(py, &self.inner.to_bytes())
+    }
+
+    #[staticmethod]
+    fn from_bytes(data: &[u8]) -> PyResult<Self> {
+        CountGram::from_bytes(data)
+            .map(|inner| PyCountGram { inner })
+            .map_err(to_py_err)
+    }
+
+    fn __reduce__<'py>(
+        slf: &Bound<'py, Self>,
+    ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let py = slf.py();
+        let from_bytes = py.get_type::<PyCountGram>().getattr("from_bytes")?;
+        Ok((from_bytes, (slf.get().to_bytes(py),)))
+    }
+}
+
+pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add_class::<PyCountGram>()
+}

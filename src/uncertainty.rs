@@ -1,0 +1,826 @@
+//! Standard errors of bagged predictions from one fitted ensemble: the infinitesimal
+//! jackknife and the jackknife-after-bootstrap, with their Monte-Carlo bias corrections,
+//! computed through members × members Gram matrices of the in-bag counts.
+//!
+//! Notation: B members, n training rows, N_bi the in-bag count of row i in member b,
+//! t_b(x) member b's prediction at x, t̄(x) their mean, t̃_b = t_b − t̄.
+//!
+//! ```text
+//! Infinitesimal jackknife (Efron 2014, "Estimation and accuracy after model selection",
+//! JASA 109(507)):
+//!     V_IJ(x) = Σ_i Cov_b(N_bi, t_b(x))²,   Cov_b(N_bi, t_b) = (1/B) Σ_b (N_bi − N̄_i) t̃_b
+//! Because Σ_b t̃_b = 0 the centring of N drops out, so with G = N Nᵀ (B × B):
+//!     V_IJ(x) = t̃(x)ᵀ G t̃(x) / B²
+//! Monte-Carlo bias correction (Wager, Hastie & Efron 2014, "Confidence intervals for
+//! random forests: the jackknife and the infinitesimal jackknife", JMLR 15):
+//!     V_IJ-U(x) = V_IJ(x) − (n / B²) Σ_b t̃_b(x)²
+//!
+//! Jackknife-after-bootstrap (same paper): with O_bi = 1[N_bi = 0], o_i = Σ_b O_bi,
+//!     V_J(x) = ((n − 1)/n) Σ_i (t̄_(−i)(x) − t̄(x))²,  t̄_(−i) = Σ_b O_bi t_b / o_i
+//! and since t̄_(−i) − t̄ = Σ_b O_bi t̃_b / o_i, with H = Σ_i O_·i O_·iᵀ / o_i²:
+//!     V_J(x) = ((n − 1)/n) t̃(x)ᵀ H t̃(x)
+//! Rows that no member leaves out (o_i = 0) have no t̄_(−i); they are left out of the sum
+//! and counted. Bias correction: t̄_(−i) averages about B/e members, so its Monte-Carlo
+//! variance exceeds that of t̄ by about (e − 1) v/B with v = Σ_b t̃_b²/B; summed over rows:
+//!     V_J-U(x) = V_J(x) − (e − 1)(n / B²) Σ_b t̃_b(x)²
+//!
+//! Subsampling without replacement, s rows per member (Wager & Athey 2018, "Estimation and
+//! inference of heterogeneous treatment effects using random forests", JASA 113(523)):
+//!     V_IJ(x) = ((n − 1)/n) (n/(n − s))² Σ_i Cov_b(N_bi, t_b(x))²
+//! Derivation check (the bagged sample mean t = Σ_i N_i x_i / s): Var N_i = (s/n)(1 − s/n),
+//! Cov(N_i, N_j) = −Var N_i/(n − 1) give Cov(N_i, t) = (n − s) (x_i − x̄) / (n (n − 1)), so
+//! the factor turns Σ_i Cov² into Σ_i (x_i − x̄)² / (n (n − 1)), the unbiased variance of the
+//! mean. The Monte-Carlo bias of Σ_i Ĉov² is Σ_i Var(N_i) v/B = s (n − s)/n · v/B, which the
+//! corrected estimate subtracts (times the same factor).
+//! ```
+
+use ndarray::{Array1, Array2, ArrayView2, Axis};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+use crate::numeric::Real;
+use crate::parallel::{Monitor, Pool};
+use crate::resampling::Count;
+
+/// How the members' rows were drawn, which fixes the IJ scale and bias correction.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum DrawKind {
+    /// With replacement (counts 0, 1, 2, …).
+    Bootstrap,
+    /// Without replacement, `rows` distinct rows per member.
+    Subsample { rows: usize },
+}
+
+/// The Gram matrices of one ensemble's in-bag counts, built once and reused for any number
+/// of prediction points.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CountGram {
+    members: usize,
+    n_train: usize,
+    kind: DrawKind,
+    /// G = N Nᵀ, exact integers stored as f64.
+    gram: Array2<f64>,
+    /// H = Σ_i O_·i O_·iᵀ / o_i² (rows with o_i = 0 excluded); built on first need.
+    out_of_bag_gram: Option<Array2<f64>>,
+    rows_never_out_of_bag: usize,
+}
+
+/// Rows per column block in the Gram kernels: 16 members × 8 KiB stay in L1/L2.
+const COLUMN_BLOCK: usize = 8192;
+/// Members per tile side in the Gram kernels.
+const TILE: usize = 16;
+
+/// Σ_i a_i b_i for u8 counts: u32 lanes are exact for up to 66 051 products of 255², so
+/// blocks of 8192 cannot overflow; the block sums are added in u64.
+#[inline]
+fn dot_u8(a: &[u8], b: &[u8]) -> u64 {
+    let mut lanes = [0u32; 32];
+    let chunks_a = a.chunks_exact(32);
+    let chunks_b = b.chunks_exact(32);
+    let tail: u64 = chunks_a
+        .remainder()
+        .iter()
+        .zip(chunks_b.remainder())
+        .map(|(&x, &y)| u64::from(x) * u64::from(y))
+        .sum();
+    for (ca, cb) in chunks_a.zip(chunks_b) {
+        for k in 0..32 {
+            lanes[k] += u32::from(u16::from(ca[k]) * u16::from(cb[k]));
+        }
+    }
+    lanes.iter().map(|&v| u64::from(v)).sum::<u64>() + tail
+}
+
+/// Σ_i a_i b_i for any count type, accumulated in u128 (cannot overflow).
+#[inline]
+fn dot_wide<C: Count>(a: &[C], b: &[C]) -> u128 {
+    a.iter()
+        .zip(b)
+        .map(|(&x, &y)| u128::from(x.as_u64()) * u128::from(y.as_u64()))
+        .sum()
+}
+
+/// A count type the uncertainty estimators accept; the dot product is chosen by width and
+/// u8 (the usual case) gets the fast kernel.
+pub trait GramCount: Count {
+    /// Σ_i a_i b_i, exact.
+    fn dot(a: &[Self], b: &[Self]) -> f64;
+}
+
+impl GramCount for u8 {
+    #[inline]
+    fn dot(a: &[u8], b: &[u8]) -> f64 {
+        dot_u8(a, b) as f64
+    }
+}
+
+macro_rules! wide_dot {
+    ($($t:ty),*) => {$(
+        impl GramCount for $t {
+            #[inline]
+            fn dot(a: &[$t], b: &[$t]) -> f64 {
+                dot_wide(a, b) as f64
+            }
+        }
+    )*};
+}
+wide_dot!(u16, u32, u64);
+
+/// The upper-triangle tiles (first member, last member) × (first, last) of a B × B matrix,
+/// in a fixed order so parallel results do not depend on scheduling.
+fn tiles(members: usize) -> Vec<(usize, usize)> {
+    let starts: Vec<usize> = (0..members).step_by(TILE).collect();
+    let mut out = Vec::new();
+    for (i, &a) in starts.iter().enumerate() {
+        for &b in &starts[i..] {
+            out.push((a, b));
+        }
+    }
+    out
+}
+
+/// Fills a symmetric B × B matrix tile by tile: `tile(a0..a1, b0..b1, acc)` adds the
+/// entries (a, b), a ≤ b, of one tile into `acc[(a − a0) · TILE + (b − b0)]`. Tiles run in
+/// parallel and every entry is computed by one task, so results never depend on scheduling.
+fn symmetric_by_tiles(
+    members: usize,
+    pool: &Pool,
+    monitor: &dyn Monitor,
+    tile: impl Fn(std::ops::Range<usize>, std::ops::Range<usize>, &mut [f64]) + Sync,
+) -> Result<Array2<f64>> {
+    let tile_list = tiles(members);
+    let mut out = Array2::<f64>::zeros((members, members));
+    let per_batch = (pool.threads() * 8).max(1);
+    let mut done = 0;
+    for batch in tile_list.chunks(per_batch) {
+        let blocks: Vec<(usize, usize, Vec<f64>)> = pool.run(|| {
+            batch
+                .par_iter()
+                .map(|&(a0, b0)| {
+                    let mut acc = vec![0f64; TILE * TILE];
+                    tile(
+                        a0..(a0 + TILE).min(members),
+                        b0..(b0 + TILE).min(members),
+                        &mut acc,
+                    );
+                    (a0, b0, acc)
+                })
+                .collect()
+        });
+        for (a0, b0, acc) in blocks {
+            for a in a0..(a0 + TILE).min(members) {
+                for b in b0.max(a)..(b0 + TILE).min(members) {
+                    let v = acc[(a - a0) * TILE + (b - b0)];
+                    out[[a, b]] = v;
+                    out[[b, a]] = v;
+                }
+            }
+        }
+        done += batch.len();
+        monitor.progress(done, tile_list.len())?;
+    }
+    Ok(out)
+}
+
+impl CountGram {
+    /// Builds G = N Nᵀ from in-bag counts (members × n_train, any strides).
+    ///
+    /// # Errors
+    /// `counts` with fewer than two members, no rows, or a member that draws no row;
+    /// [`Error::Interrupted`] from the monitor.
+    pub fn new<C: GramCount>(
+        counts: ArrayView2<'_, C>,
+        kind: Option<DrawKind>,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<Self> {
+        let (members, n_train) = counts.dim();
+        if members < 2 {
+            return Err(Error::value(
+                "counts",
+                format!("needs at least 2 members (rows), got {members}"),
+            ));
+        }
+        if n_train < 2 {
+            return Err(Error::value(
+                "counts",
+                format!("needs at least 2 training rows (columns), got {n_train}"),
+            ));
+        }
+        // Contiguous member rows in the counts' own dtype (a copy only for strided input).
+        let owned;
+        let rows: ArrayView2<'_, C> = if counts.is_standard_layout() {
+            counts
+        } else {
+            owned = counts.as_standard_layout().into_owned();
+            owned.view()
+        };
+        let sums: Vec<u64> = rows
+            .axis_iter(Axis(0))
+            .map(|r| r.iter().map(|c| c.as_u64()).sum())
+            .collect();
+        if let Some(empty) = sums.iter().position(|&s| s == 0) {
+            return Err(Error::value(
+                "counts",
+                format!("member {empty} has no in-bag row (all counts are zero)"),
+            ));
+        }
+        let kind = match kind {
+            Some(k) => k,
+            None => detect_kind(rows, &sums),
+        };
+        if let DrawKind::Subsample { rows: s } = kind {
+            if s == 0 || s >= n_train {
+                return Err(Error::value(
+                    "counts",
+                    format!("a subsample must draw between 1 and n_train − 1 rows, got {s} of {n_train}"),
+                ));
+            }
+        }
+        let slice = rows.as_slice().expect("standard layout");
+        let row = |m: usize| &slice[m * n_train..(m + 1) * n_train];
+        let gram = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc| {
+            for start in (0..n_train).step_by(COLUMN_BLOCK) {
+                let end = (start + COLUMN_BLOCK).min(n_train);
+                for a in ra.clone() {
+                    let xa = &row(a)[start..end];
+                    for b in rb.start.max(a)..rb.end {
+                        acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                            C::dot(xa, &row(b)[start..end]);
+                    }
+                }
+            }
+        })?;
+        Ok(CountGram {
+            members,
+            n_train,
+            kind,
+            gram,
+            out_of_bag_gram: None,
+            rows_never_out_of_bag: 0,
+        })
+    }
+
+    /// Builds H = Σ_i O_·i O_·iᵀ / o_i² (needed by the jackknife) from the same counts.
+    ///
+    /// The weight 1/o_i² depends on the row only through o_i, so the rows are sorted by o_i
+    /// and H = Σ_k (1/k²) G_k with G_k the exact integer Gram of the out-of-bag indicators
+    /// over the rows with o_i = k: one pass of the fast u8 kernel over a u8 copy of the
+    /// indicators (the size of u8 counts; never a float copy).
+    ///
+    /// # Errors
+    /// `counts` if its shape differs from the one G was built from.
+    pub fn add_out_of_bag_gram<C: GramCount>(
+        &mut self,
+        counts: ArrayView2<'_, C>,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        if counts.dim() != (self.members, self.n_train) {
+            return Err(Error::value(
+                "counts",
+                "shape differs from the counts the Gram was built from",
+            ));
+        }
+        let (members, n) = counts.dim();
+        let out_members: Vec<u32> = counts
+            .axis_iter(Axis(1))
+            .map(|column| column.iter().filter(|c| c.as_u64() == 0).count() as u32)
+            .collect();
+        let never = out_members.iter().filter(|&&o| o == 0).count();
+        let mut order: Vec<usize> = (0..n).filter(|&i| out_members[i] > 0).collect();
+        order.sort_by_key(|&i| (out_members[i], i));
+        let width = order.len();
+        // Segments of equal o_i in the sorted order, each with its weight 1/o_i².
+        let mut segments: Vec<(usize, usize, f64)> = Vec::new();
+        for (position, &i) in order.iter().enumerate() {
+            let o = out_members[i];
+            match segments.last_mut() {
+                Some(last) if out_members[order[last.0]] == o => last.1 = position + 1,
+                _ => segments.push((position, position + 1, 1.0 / (f64::from(o) * f64::from(o)))),
+            }
+        }
+        let mut indicators = vec![0u8; members * width];
+        pool.run(|| {
+            indicators
+                .par_chunks_mut(width.max(1))
+                .enumerate()
+                .for_each(|(m, out)| {
+                    for (slot, &i) in out.iter_mut().zip(&order) {
+                        *slot = u8::from(counts[[m, i]].as_u64() == 0);
+                    }
+                })
+        });
+        let row = |m: usize| &indicators[m * width..(m + 1) * width];
+        let h = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc| {
+            for &(start, end, weight) in &segments {
+                for a in ra.clone() {
+                    let xa = &row(a)[start..end];
+                    for b in rb.start.max(a)..rb.end {
+                        acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                            weight * dot_u8(xa, &row(b)[start..end]) as f64;
+                    }
+                }
+            }
+        })?;
+        self.out_of_bag_gram = Some(h);
+        self.rows_never_out_of_bag = never;
+        Ok(())
+    }
+
+    /// Number of members B.
+    pub fn members(&self) -> usize {
+        self.members
+    }
+
+    /// Number of training rows n.
+    pub fn n_train(&self) -> usize {
+        self.n_train
+    }
+
+    /// How the rows were drawn (detected from the counts unless given).
+    pub fn kind(&self) -> DrawKind {
+        self.kind
+    }
+
+    /// G = N Nᵀ.
+    pub fn gram(&self) -> &Array2<f64> {
+        &self.gram
+    }
+
+    /// Rows that no member leaves out (excluded from the jackknife), once H is built.
+    pub fn rows_never_out_of_bag(&self) -> usize {
+        self.rows_never_out_of_bag
+    }
+
+    /// Whether H (the jackknife's Gram) has been built.
+    pub fn has_out_of_bag_gram(&self) -> bool {
+        self.out_of_bag_gram.is_some()
+    }
+
+    /// Scale of the IJ sum: 1 for the bootstrap, ((n − 1)/n)(n/(n − s))² for subsamples.
+    fn ij_scale(&self) -> f64 {
+        match self.kind {
+            DrawKind::Bootstrap => 1.0,
+            DrawKind::Subsample { rows: s } => {
+                let n = self.n_train as f64;
+                (n - 1.0) / n * (n / (n - s as f64)).powi(2)
+            }
+        }
+    }
+
+    /// Multiplier of Σ_b t̃_b² in the IJ bias correction: n/B² for the bootstrap
+    /// (Wager, Hastie & Efron 2014), s(n − s)/(n B²) for subsamples (see module docs).
+    fn ij_correction_factor(&self) -> f64 {
+        let b2 = (self.members as f64).powi(2);
+        match self.kind {
+            DrawKind::Bootstrap => self.n_train as f64 / b2,
+            DrawKind::Subsample { rows: s } => {
+                let (n, s) = (self.n_train as f64, s as f64);
+                s * (n - s) / (n * b2)
+            }
+        }
+    }
+
+    /// Variance estimates at every point of `predictions` (members × n_points).
+    ///
+    /// # Errors
+    /// `members` if its first axis differs from the counts' or it holds NaN/inf;
+    /// `method` if the jackknife is asked for before [`add_out_of_bag_gram`].
+    ///
+    /// [`add_out_of_bag_gram`]: CountGram::add_out_of_bag_gram
+    pub fn variance<T: Real>(
+        &self,
+        predictions: ArrayView2<'_, T>,
+        method: Method,
+        pool: &Pool,
+    ) -> Result<VarianceEstimate> {
+        let (b_count, n_points) = predictions.dim();
+        if b_count != self.members {
+            return Err(Error::value(
+                "members",
+                format!(
+                    "has {b_count} members (rows) but the counts have {}",
+                    self.members
+                ),
+            ));
+        }
+        if method == Method::Jackknife && self.kind != DrawKind::Bootstrap {
+            return Err(Error::value(
+                "method",
+                "the jackknife-after-bootstrap and its correction are defined for bootstrap \
+                 draws; use method='ij' for subsamples",
+            ));
+        }
+        let matrix = match method {
+            Method::InfinitesimalJackknife => &self.gram,
+            Method::Jackknife => self.out_of_bag_gram.as_ref().ok_or_else(|| {
+                Error::value(
+                    "method",
+                    "the jackknife needs the out-of-bag Gram; build it first",
+                )
+            })?,
+        };
+        const POINTS: usize = 256;
+        let starts: Vec<usize> = (0..n_points).step_by(POINTS).collect();
+        let parts: Vec<Result<Vec<[f64; 3]>>> = pool.run(|| {
+            starts
+                .par_iter()
+                .map(|&start| {
+                    let end = (start + POINTS).min(n_points);
+                    let block = predictions.slice(ndarray::s![.., start..end]);
+                    // Centre over members in f64: t̃ (B × c).
+                    let mut centred = Array2::<f64>::zeros((b_count, end - start));
+                    for (j, column) in block.axis_iter(Axis(1)).enumerate() {
+                        let mut sum = 0.0;
+                        for (b, &v) in column.iter().enumerate() {
+                            let v = v.to_f64();
+                            if !v.is_finite() {
+                                return Err(Error::value(
+                                    "members",
+                                    "contains NaN or infinite predictions",
+                                ));
+                            }
+                            centred[[b, j]] = v;
+                            sum += v;
+                        }
+                        let mean = sum / b_count as f64;
+                        centred.column_mut(j).mapv_inplace(|v| v - mean);
+                    }
+                    let product = matrix.dot(&centred);
+                    Ok((0..end - start)
+                        .map(|j| {
+                            let t = centred.column(j);
+                            let mean = block.column(j).iter().map(|v| v.to_f64()).sum::<f64>()
+                                / b_count as f64;
+                            [t.dot(&product.column(j)), t.dot(&t), mean]
+                        })
+                        .collect())
+                })
+                .collect()
+        });
+        let mut quadratic = Array1::<f64>::zeros(n_points);
+        let mut spread = Array1::<f64>::zeros(n_points);
+        let mut mean = Array1::<f64>::zeros(n_points);
+        let mut k = 0;
+        for part in parts {
+            for [q, s, m] in part? {
+                quadratic[k] = q;
+                spread[k] = s;
+                mean[k] = m;
+                k += 1;
+            }
+        }
+        let b2 = (b_count as f64).powi(2);
+        let n = self.n_train as f64;
+        let (raw, correction) = match method {
+            Method::InfinitesimalJackknife => {
+                let scale = self.ij_scale();
+                (
+                    quadratic.mapv(|q| scale * q / b2),
+                    spread.mapv(|s| scale * self.ij_correction_factor() * s),
+                )
+            }
+            Method::Jackknife => (
+                quadratic.mapv(|q| (n - 1.0) / n * q),
+                spread.mapv(|s| (std::f64::consts::E - 1.0) * n / b2 * s),
+            ),
+        };
+        let within = spread.mapv(|s| s / (b_count as f64 - 1.0));
+        Ok(VarianceEstimate {
+            raw,
+            correction,
+            within,
+            mean,
+        })
+    }
+}
+
+/// The stored form of a [`CountGram`] (postcard bytes), versioned for forward checks.
+#[derive(Serialize, Deserialize)]
+struct StoredGram {
+    version: u32,
+    members: u64,
+    n_train: u64,
+    kind: DrawKind,
+    gram: Vec<f64>,
+    out_of_bag_gram: Option<Vec<f64>>,
+    rows_never_out_of_bag: u64,
+}
+
+const STORED_VERSION: u32 = 1;
+
+impl CountGram {
+    /// Serialises to compact bytes (for pickling).
+    pub fn to_bytes(&self) -> Vec<u8> {
+        let stored = StoredGram {
+            version: STORED_VERSION,
+            members: self.members as u64,
+            n_train: self.n_train as u64,
+            kind: self.kind,
+            gram: self.gram.iter().copied().collect(),
+            out_of_bag_gram: self
+                .out_of_bag_gram
+                .as_ref()
+                .map(|h| h.iter().copied().collect()),
+            rows_never_out_of_bag: self.rows_never_out_of_bag as u64,
+        };
+        postcard::to_allocvec(&stored).expect("serialising plain data cannot fail")
+    }
+
+    /// Restores from [`to_bytes`](CountGram::to_bytes) output.
+    ///
+    /// # Errors
+    /// `data` if the bytes are truncated, corrupt or from another version.
+    pub fn from_bytes(data: &[u8]) -> Result<Self> {
+        let bad = |why: &str| Error::value("data", format!("not a stored count Gram: {why}"));
+        let stored: StoredGram = postcard::from_bytes(data).map_err(|e| bad(&e.to_string()))?;
+        if stored.version != STORED_VERSION {
+            return Err(bad(&format!(
+                "version {} is not {STORED_VERSION}",
+                stored.version
+            )));
+        }
+        let b = usize::try_from(stored.members).map_err(|_| bad("member count"))?;
+        let square = |v: Vec<f64>| {
+            Array2::from_shape_vec((b, b), v).map_err(|_| bad("matrix size does not match"))
+        };
+        Ok(CountGram {
+            members: b,
+            n_train: stored.n_train as usize,
+            kind: stored.kind,
+            gram: square(stored.gram)?,
+            out_of_bag_gram: stored.out_of_bag_gram.map(square).transpose()?,
+            rows_never_out_of_bag: stored.rows_never_out_of_bag as usize,
+        })
+    }
+}
+
+/// Infers the draw kind: counts of 0/1 with the same number of rows in every member and
+/// fewer than n_train rows is a subsample; anything else is a bootstrap.
+fn detect_kind<C: Count>(rows: ArrayView2<'_, C>, sums: &[u64]) -> DrawKind {
+    let n = rows.ncols() as u64;
+    let binary = rows.iter().all(|c| c.as_u64() <= 1);
+    let same = sums.windows(2).all(|w| w[0] == w[1]);
+    if binary && same && sums[0] < n {
+        DrawKind::Subsample {
+            rows: sums[0] as usize,
+        }
+    } else {
+        DrawKind::Bootstrap
+    }
+}
+
+/// Which variance estimator.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Method {
+    /// Infinitesimal jackknife (Efron 2014).
+    InfinitesimalJackknife,
+    /// Jackknife-after-bootstrap (Wager, Hastie & Efron 2014).
+    Jackknife,
+}
+
+impl Method {
+    /// Parses `"ij"` or `"jackknife"`.
+    pub fn parse(name: &str) -> Result<Self> {
+        match name {
+            "ij" => Ok(Method::InfinitesimalJackknife),
+            "jackknife" => Ok(Method::Jackknife),
+            other => Err(Error::value(
+                "method",
+                format!("expected 'ij' or 'jackknife', got {other:?}"),
+            )),
+        }
+    }
+}
+
+/// Per-point pieces of a variance estimate; the corrected estimate is `raw − correction`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct VarianceEstimate {
+    /// The uncorrected estimate (V_IJ or V_J).
+    pub raw: Array1<f64>,
+    /// The Monte-Carlo bias correction subtracted by the corrected estimate.
+    pub correction: Array1<f64>,
+    /// Across-member variance of the predictions (ddof 1): the part more members average away.
+    pub within: Array1<f64>,
+    /// Ensemble mean prediction.
+    pub mean: Array1<f64>,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::Silent;
+    use crate::resampling::{Design, ResampleParams, Scheme};
+    use approx::assert_relative_eq;
+
+    const POOL: Pool = Pool::Global;
+
+    fn draw(n: usize, members: usize, scheme: Scheme, fraction: f64) -> Array2<u8> {
+        ResampleParams {
+            n_rows: n,
+            scheme,
+            fraction,
+            design: Design::Rows,
+        }
+        .check()
+        .unwrap()
+        .counts_as::<u8>(3, members, &POOL, &Silent)
+        .unwrap()
+    }
+
+    /// V_IJ and V_J by their defining sums.
+    fn direct(counts: &Array2<u8>, t: &Array2<f64>) -> (Vec<f64>, Vec<f64>) {
+        let (b, n) = counts.dim();
+        let p = t.ncols();
+        let mut ij = vec![0.0; p];
+        let mut jk = vec![0.0; p];
+        for x in 0..p {
+            let tbar = t.column(x).sum() / b as f64;
+            for i in 0..n {
+                let nbar = counts.column(i).iter().map(|&c| c as f64).sum::<f64>() / b as f64;
+                let cov: f64 = (0..b)
+                    .map(|m| (counts[[m, i]] as f64 - nbar) * (t[[m, x]] - tbar))
+                    .sum::<f64>()
+                    / b as f64;
+                ij[x] += cov * cov;
+                let out: Vec<usize> = (0..b).filter(|&m| counts[[m, i]] == 0).collect();
+                if !out.is_empty() {
+                    let minus_i = out.iter().map(|&m| t[[m, x]]).sum::<f64>() / out.len() as f64;
+                    jk[x] += (minus_i - tbar).powi(2);
+                }
+            }
+            jk[x] *= (n as f64 - 1.0) / n as f64;
+        }
+        (ij, jk)
+    }
+
+    #[test]
+    fn gram_forms_equal_the_defining_sums() {
+        let (n, b, p) = (37, 23, 5);
+        let counts = draw(n, b, Scheme::Bootstrap, 1.0);
+        let t = Array2::from_shape_fn((b, p), |(m, x)| {
+            (m as f64 * 0.7 + x as f64).sin()
+                + counts.row(m).iter().take(5).map(|&c| c as f64).sum::<f64>()
+        });
+        let (ij, jk) = direct(&counts, &t);
+        let mut gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        assert_eq!(gram.kind(), DrawKind::Bootstrap);
+        gram.add_out_of_bag_gram(counts.view(), &POOL, &Silent)
+            .unwrap();
+        let v = gram
+            .variance(t.view(), Method::InfinitesimalJackknife, &POOL)
+            .unwrap();
+        let j = gram.variance(t.view(), Method::Jackknife, &POOL).unwrap();
+        for x in 0..p {
+            assert_relative_eq!(v.raw[x], ij[x], max_relative = 1e-10);
+            assert_relative_eq!(j.raw[x], jk[x], max_relative = 1e-10);
+        }
+    }
+
+    #[test]
+    fn gram_is_exact_and_symmetric() {
+        let counts = draw(20_000, 40, Scheme::Bootstrap, 1.0);
+        let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        for a in [0, 7, 39] {
+            for b in [0, 16, 33] {
+                let exact: u64 = counts
+                    .row(a)
+                    .iter()
+                    .zip(counts.row(b))
+                    .map(|(&x, &y)| x as u64 * y as u64)
+                    .sum();
+                assert_eq!(gram.gram()[[a, b]], exact as f64);
+                assert_eq!(gram.gram()[[b, a]], exact as f64);
+            }
+        }
+        let wide = counts.mapv(|c| c as u32);
+        let gram32 = CountGram::new(wide.view(), None, &POOL, &Silent).unwrap();
+        assert_eq!(gram32.gram(), gram.gram());
+        let strided = counts.t().to_owned();
+        let gram_t = CountGram::new(strided.t(), None, &POOL, &Silent).unwrap();
+        assert_eq!(gram_t.gram(), gram.gram());
+    }
+
+    #[test]
+    fn bagged_mean_matches_its_closed_form() {
+        // For t_b = Σ_i N_bi x_i / n the ideal IJ variance is Σ_i (x_i − x̄)² / n²
+        // (multinomial covariances; Efron 2014).
+        let (n, b) = (200, 4000);
+        let x: Vec<f64> = (0..n).map(|i| ((i * 7919) % 211) as f64 / 10.0).collect();
+        let counts = draw(n, b, Scheme::Bootstrap, 1.0);
+        let t = Array2::from_shape_fn((b, 1), |(m, _)| {
+            counts
+                .row(m)
+                .iter()
+                .zip(&x)
+                .map(|(&c, &xi)| c as f64 * xi)
+                .sum::<f64>()
+                / n as f64
+        });
+        let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        let v = gram
+            .variance(t.view(), Method::InfinitesimalJackknife, &POOL)
+            .unwrap();
+        let mean = x.iter().sum::<f64>() / n as f64;
+        let ideal = x.iter().map(|xi| (xi - mean).powi(2)).sum::<f64>() / (n * n) as f64;
+        let corrected = v.raw[0] - v.correction[0];
+        assert!(
+            (corrected / ideal - 1.0).abs() < 0.06,
+            "{corrected} vs {ideal}"
+        );
+        assert!(v.raw[0] > corrected);
+    }
+
+    #[test]
+    fn subsample_scale_gives_the_unbiased_variance_of_the_mean() {
+        let (n, b) = (100, 6000);
+        let x: Vec<f64> = (0..n).map(|i| ((i * 31) % 17) as f64).collect();
+        let counts = draw(n, b, Scheme::Subsample, 0.5);
+        let t = Array2::from_shape_fn((b, 1), |(m, _)| {
+            counts
+                .row(m)
+                .iter()
+                .zip(&x)
+                .map(|(&c, &xi)| c as f64 * xi)
+                .sum::<f64>()
+                / 50.0
+        });
+        let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        assert_eq!(gram.kind(), DrawKind::Subsample { rows: 50 });
+        let v = gram
+            .variance(t.view(), Method::InfinitesimalJackknife, &POOL)
+            .unwrap();
+        let mean = x.iter().sum::<f64>() / n as f64;
+        let unbiased = x.iter().map(|xi| (xi - mean).powi(2)).sum::<f64>() / (n * (n - 1)) as f64;
+        let corrected = v.raw[0] - v.correction[0];
+        assert!(
+            (corrected / unbiased - 1.0).abs() < 0.06,
+            "{corrected} vs {unbiased}"
+        );
+    }
+
+    #[test]
+    fn bytes_round_trip_and_reject_garbage() {
+        let counts = draw(50, 6, Scheme::Bootstrap, 1.0);
+        let mut gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        gram.add_out_of_bag_gram(counts.view(), &POOL, &Silent)
+            .unwrap();
+        let bytes = gram.to_bytes();
+        assert_eq!(CountGram::from_bytes(&bytes).unwrap(), gram);
+        assert!(CountGram::from_bytes(&bytes[..bytes.len() / 2]).is_err());
+        assert!(CountGram::from_bytes(b"not a gram").is_err());
+    }
+
+    #[test]
+    fn bad_input_names_the_argument() {
+        let counts = draw(10, 1, Scheme::Bootstrap, 1.0);
+        let err = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap_err();
+        assert!(matches!(
+            err,
+            Error::InvalidValue {
+                argument: "counts",
+                ..
+            }
+        ));
+        let mut zero = draw(10, 3, Scheme::Bootstrap, 1.0);
+        zero.row_mut(1).fill(0);
+        assert!(matches!(
+            CountGram::new(zero.view(), None, &POOL, &Silent),
+            Err(Error::InvalidValue {
+                argument: "counts",
+                ..
+            })
+        ));
+        let counts = draw(10, 3, Scheme::Bootstrap, 1.0);
+        let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        let wrong = Array2::<f64>::zeros((4, 2));
+        assert!(matches!(
+            gram.variance(wrong.view(), Method::InfinitesimalJackknife, &POOL),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
+        let nan = Array2::from_elem((3, 2), f64::NAN);
+        assert!(matches!(
+            gram.variance(nan.view(), Method::InfinitesimalJackknife, &POOL),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
+        assert!(matches!(
+            gram.variance(
+                Array2::<f64>::zeros((3, 2)).view(),
+                Method::Jackknife,
+                &POOL
+            ),
+            Err(Error::InvalidValue {
+                argument: "method",
+                ..
+            })
+        ));
+    }
+}
