@@ -8,8 +8,10 @@
 //! materialised resample (row i repeated c_mi times; Fix & Hodges 1951; Cover & Hart 1967).
 //!     regression:      prediction = (1/k) Σ_slots y_slot
 //!     classification:  fraction of class c = (1/k) · #{slots with y_slot = c}
-//! Brute force: O(members · n_points · n_in_bag · p) distance work plus an O(n_in_bag)
-//! selection per member and point; intended for up to about 50,000 training rows.
+//! Brute force: the distances from each point to all n_rows training rows are computed
+//! once and shared by the members, then each member selects among its in-bag rows:
+//! O(n_points · n_rows · p + members · n_points · n_in_bag) time, O(n_rows) memory per
+//! thread. Intended for up to about 50,000 training rows.
 //! ```
 
 use ndarray::{ArrayView1, ArrayView2};
@@ -23,6 +25,9 @@ use crate::parallel::{Monitor, Pool};
 
 /// Points per parallel prediction task.
 const POINT_CHUNK: usize = 64;
+
+/// Distance terms per thread between two monitor calls when predicting.
+const BLOCK_WORK: usize = 1 << 24;
 
 /// A fitted ensemble of k-nearest-neighbour members: the training rows plus every
 /// member's in-bag rows and counts.
@@ -201,30 +206,40 @@ impl NeighborsEnsemble {
         Ok(())
     }
 
-    /// Member `bag`'s prediction at point `q`, written into `out` (task outputs values).
+    /// Squared distances from `q` to every training row, into `out`.
+    fn distances(&self, q: &[f64], out: &mut [f64]) {
+        let p = self.n_features;
+        for (d, row) in out.iter_mut().zip(self.train.chunks_exact(p)) {
+            *d = row.iter().zip(q).map(|(a, b)| (a - b) * (a - b)).sum();
+        }
+    }
+
+    /// Member `bag`'s prediction at a point whose squared distances to every training row
+    /// are `distances`, written into `out` (task outputs values).
     fn predict_point(
         &self,
         bag: &Bag,
-        q: &[f64],
+        distances: &[f64],
         candidates: &mut Vec<(f64, usize, f64)>,
         out: &mut [f64],
     ) {
-        let p = self.n_features;
+        // Keep the k best rows by (distance, row), scanning rows in ascending order: a row
+        // whose distance equals the current k-th is worse (higher index) and is skipped, and
+        // an accepted row goes after the rows at its distance. Every in-bag row fills at
+        // least one slot, so k distinct rows suffice.
+        let k = self.neighbors;
         candidates.clear();
         for (&i, &w) in bag.rows.iter().zip(&bag.weights) {
-            let row = &self.train[i * p..(i + 1) * p];
-            let d: f64 = row.iter().zip(q).map(|(a, b)| (a - b) * (a - b)).sum();
-            candidates.push((d, i, w));
+            let d = distances[i];
+            if candidates.len() == k {
+                if d >= candidates[k - 1].0 {
+                    continue;
+                }
+                candidates.pop();
+            }
+            let at = candidates.partition_point(|c| c.0 <= d);
+            candidates.insert(at, (d, i, w));
         }
-        let order =
-            |a: &(f64, usize, f64), b: &(f64, usize, f64)| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1));
-        // Every in-bag row fills at least one slot, so the k first rows suffice.
-        let k = self.neighbors;
-        if candidates.len() > k {
-            candidates.select_nth_unstable_by(k - 1, order);
-            candidates.truncate(k);
-        }
-        candidates.sort_unstable_by(order);
         out.fill(0.0);
         let mut left = k as f64;
         for &(_, i, w) in candidates.iter() {
@@ -246,15 +261,17 @@ impl NeighborsEnsemble {
     /// for classification.
     ///
     /// # Errors
-    /// `x` (columns, NaN/inf, empty); `out` of the wrong length.
+    /// `x` (columns, NaN/inf, empty); `out` of the wrong length; [`Error::Interrupted`]
+    /// from the monitor, called between blocks of points.
     pub fn member_predictions_into<T: Real>(
         &self,
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_x(x)?;
-        self.predict_where(x, out, pool, |_, _| true)
+        self.predict_where(x, out, pool, monitor, BLOCK_WORK, |_, _| true)
     }
 
     /// Writes each member's predictions on its out-of-bag rows of the training design `x`
@@ -272,6 +289,7 @@ impl NeighborsEnsemble {
         bags: &[Bag],
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_x(x)?;
         if bags.len() != self.members() {
@@ -284,7 +302,9 @@ impl NeighborsEnsemble {
                 ),
             ));
         }
-        self.predict_where(x, out, pool, |m, i| bags[m].rows.binary_search(&i).is_err())
+        self.predict_where(x, out, pool, monitor, BLOCK_WORK, |m, i| {
+            bags[m].rows.binary_search(&i).is_err()
+        })
     }
 
     fn predict_where<T: Real>(
@@ -292,6 +312,8 @@ impl NeighborsEnsemble {
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
+        block_work: usize,
         wanted: impl Fn(usize, usize) -> bool + Sync,
     ) -> Result<()> {
         let n = x.nrows();
@@ -299,31 +321,64 @@ impl NeighborsEnsemble {
         if out.len() != self.members() * n * o {
             return Err(Error::value("out", "has the wrong length"));
         }
-        pool.run(|| {
-            out.par_chunks_mut(n * o)
-                .zip(self.bags.par_iter())
-                .enumerate()
-                .for_each(|(m, (member_out, bag))| {
-                    member_out
-                        .par_chunks_mut(POINT_CHUNK * o)
-                        .enumerate()
-                        .for_each(|(c, part)| {
-                            let mut candidates = Vec::with_capacity(bag.rows.len());
-                            let mut q = vec![0.0; self.n_features];
-                            for (k, slot) in part.chunks_mut(o).enumerate() {
-                                let i = c * POINT_CHUNK + k;
-                                if !wanted(m, i) {
-                                    slot.fill(f64::NAN);
-                                    continue;
-                                }
-                                for (j, v) in q.iter_mut().enumerate() {
-                                    *v = x[[i, j]].to_f64();
-                                }
-                                self.predict_point(bag, &q, &mut candidates, slot);
+        // Blocks of points of about `block_work` operations per thread, so the monitor
+        // (progress, Ctrl-C) is called every few milliseconds whatever the sizes.
+        let in_bag: usize = self.bags.iter().map(|b| b.rows.len()).sum();
+        let work_per_point = self.n_rows() * self.n_features + in_bag;
+        let per_block = (block_work * pool.threads().max(1) / work_per_point.max(1))
+            .max(1)
+            .div_ceil(POINT_CHUNK)
+            * POINT_CHUNK;
+        let members = self.members();
+        let mut start = 0;
+        while start < n {
+            let end = (start + per_block).min(n);
+            // Regroup the block by chunks of points: chunk c holds one slice per member.
+            let chunks = (end - start).div_ceil(POINT_CHUNK);
+            let mut by_chunk: Vec<Vec<&mut [f64]>> =
+                (0..chunks).map(|_| Vec::with_capacity(members)).collect();
+            for member in out.chunks_mut(n * o) {
+                let part = &mut member[start * o..end * o];
+                for (c, slice) in part.chunks_mut(POINT_CHUNK * o).enumerate() {
+                    by_chunk[c].push(slice);
+                }
+            }
+            pool.run(|| {
+                by_chunk
+                    .into_par_iter()
+                    .enumerate()
+                    .for_each(|(c, mut slices)| {
+                        let mut candidates = Vec::new();
+                        let mut distances = vec![0.0; self.n_rows()];
+                        let mut q = vec![0.0; self.n_features];
+                        let first = start + c * POINT_CHUNK;
+                        let count = slices[0].len() / o;
+                        for k in 0..count {
+                            let i = first + k;
+                            if !(0..members).any(|m| wanted(m, i)) {
+                                slices
+                                    .iter_mut()
+                                    .for_each(|s| s[k * o..(k + 1) * o].fill(f64::NAN));
+                                continue;
                             }
-                        })
-                })
-        });
+                            for (j, v) in q.iter_mut().enumerate() {
+                                *v = x[[i, j]].to_f64();
+                            }
+                            self.distances(&q, &mut distances);
+                            for (m, (slice, bag)) in slices.iter_mut().zip(&self.bags).enumerate() {
+                                let slot = &mut slice[k * o..(k + 1) * o];
+                                if wanted(m, i) {
+                                    self.predict_point(bag, &distances, &mut candidates, slot);
+                                } else {
+                                    slot.fill(f64::NAN);
+                                }
+                            }
+                        }
+                    })
+            });
+            start = end;
+            monitor.progress(start, n)?;
+        }
         Ok(())
     }
 }
@@ -346,7 +401,7 @@ mod tests {
             NeighborsEnsemble::fit(x.view(), y.view(), b, Task::Regression, 3, &Silent).unwrap();
         let q = array![[1.5]];
         let mut out = vec![0.0; 2];
-        fit.member_predictions_into(q.view(), &mut out, &pool)
+        fit.member_predictions_into(q.view(), &mut out, &pool, &Silent)
             .unwrap();
         // Member 0: rows 1, 2 (distance 0.25), then row 0 before row 3 (2.25, lower index).
         assert_eq!(out[0], (20.0 + 30.0 + 10.0) / 3.0);
@@ -364,13 +419,14 @@ mod tests {
         let pool = Threads::Fixed(2).pool().unwrap();
         let fit = NeighborsEnsemble::fit(x.view(), y.view(), b.clone(), task, 2, &Silent).unwrap();
         let mut oob = vec![0.0; 2 * 5 * 2];
-        fit.out_of_bag_into(x.view(), &b, &mut oob, &pool).unwrap();
+        fit.out_of_bag_into(x.view(), &b, &mut oob, &pool, &Silent)
+            .unwrap();
         // Member 0 left row 1 out: its two nearest draws are row 0 twice -> class 0.
         assert_eq!(&oob[2..4], &[1.0, 0.0]);
         assert!(oob[0].is_nan() && oob[8].is_nan());
         assert!(oob[10..].iter().all(|v| v.is_nan()));
         let mut all = vec![0.0; 2 * 5 * 2];
-        fit.member_predictions_into(x.view(), &mut all, &pool)
+        fit.member_predictions_into(x.view(), &mut all, &pool, &Silent)
             .unwrap();
         // Member 1 at row 4 (0, 0.2): nearest rows 4 (class 1) and 0 (class 0).
         assert_eq!(&all[18..20], &[0.5, 0.5]);
@@ -392,8 +448,53 @@ mod tests {
         let fit = NeighborsEnsemble::fit(x.view(), y.view(), one(), reg, 2, &Silent).unwrap();
         let wide = Array2::<f64>::zeros((1, 2));
         assert!(fit
-            .member_predictions_into(wide.view(), &mut [0.0], &pool)
+            .member_predictions_into(wide.view(), &mut [0.0], &pool, &Silent)
             .is_err());
         assert!(fit.validate().is_ok());
+    }
+
+    struct Counting(std::sync::atomic::AtomicUsize, usize);
+
+    impl Monitor for Counting {
+        fn progress(&self, _done: usize, _total: usize) -> Result<()> {
+            let calls = self.0.fetch_add(1, std::sync::atomic::Ordering::SeqCst) + 1;
+            if calls >= self.1 {
+                Err(Error::Interrupted)
+            } else {
+                Ok(())
+            }
+        }
+    }
+
+    #[test]
+    fn blocks_of_points_equal_single_points_and_stop_on_request() {
+        // 4 members x 256 rows x 1 feature: 256 distance terms plus 4 x 171 in-bag rows per
+        // point; 100,000 per block gives blocks of 128 points (two chunks of 64), then 22.
+        let n = 256;
+        let x = Array2::from_shape_fn((n, 1), |(i, _)| ((i * 7919) % n) as f64 / n as f64);
+        let y = x.column(0).mapv(|v| (7.0 * v).sin());
+        let counts = Array2::from_shape_fn((4, n), |(m, i)| ((i + m) % 3) as u8);
+        let b = bags(counts.view(), n).unwrap();
+        let fit =
+            NeighborsEnsemble::fit(x.view(), y.view(), b, Task::Regression, 4, &Silent).unwrap();
+        let pool = Threads::Fixed(1).pool().unwrap();
+        let q = Array2::from_shape_fn((150, 1), |(i, _)| i as f64 / 150.0 + 1e-4);
+        let mut all = vec![0.0; 4 * 150];
+        let calls = Counting(0.into(), usize::MAX);
+        fit.predict_where(q.view(), &mut all, &pool, &calls, 100_000, |_, _| true)
+            .unwrap();
+        assert_eq!(calls.0.into_inner(), 2);
+        for i in [0, 63, 64, 127, 128, 149] {
+            let mut one = vec![0.0; 4];
+            let point = q.slice(ndarray::s![i..i + 1, ..]);
+            fit.member_predictions_into(point, &mut one, &pool, &Silent)
+                .unwrap();
+            for m in 0..4 {
+                assert_eq!(one[m], all[m * 150 + i]);
+            }
+        }
+        let stop = Counting(0.into(), 1);
+        let err = fit.predict_where(q.view(), &mut all, &pool, &stop, 100_000, |_, _| true);
+        assert_eq!(err, Err(Error::Interrupted));
     }
 }

@@ -75,9 +75,9 @@ impl PyNeighborsEnsemble {
         let array = zeros_nd(py, self.shape(rows_of(&x)))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, _| match xv {
-            View::F32(a) => self.inner.member_predictions_into(a, out, pool),
-            View::F64(a) => self.inner.member_predictions_into(a, out, pool),
+        run_core(py, threads, None, |pool, monitor| match xv {
+            View::F32(a) => self.inner.member_predictions_into(a, out, pool, monitor),
+            View::F64(a) => self.inner.member_predictions_into(a, out, pool, monitor),
         })?;
         Ok(array.into_any().unbind())
     }
@@ -116,9 +116,9 @@ impl PyNeighborsEnsemble {
         let array = zeros_nd(py, self.shape(n))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, _| match xv {
-            View::F32(a) => self.inner.out_of_bag_into(a, &bags, out, pool),
-            View::F64(a) => self.inner.out_of_bag_into(a, &bags, out, pool),
+        run_core(py, threads, None, |pool, monitor| match xv {
+            View::F32(a) => self.inner.out_of_bag_into(a, &bags, out, pool, monitor),
+            View::F64(a) => self.inner.out_of_bag_into(a, &bags, out, pool, monitor),
         })?;
         Ok(array.into_any().unbind())
     }
