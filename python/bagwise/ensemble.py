@@ -401,6 +401,9 @@ _ATTRIBUTES_DOC = """
 
     Notes
     -----
+    A fitted bag keeps a reference to its training rows for `out_of_bag_predictions`, so
+    pickles of it include them; files written by `save` do not.
+
     Native ensembles pickle (their state is serde bytes) and `save` to a checksummed file
     of our own that `bagwise.load` reads without executing code. Wrapped estimators can
     only be pickled: never unpickle data from an untrusted source, since unpickling can

@@ -128,19 +128,20 @@ fn fit_member<T: Real>(
     let mut rhs = vec![0.0; p];
     let mut z = vec![0.0; p];
     for (&i, &w) in bag.rows.iter().zip(&bag.weights) {
-        for j in 0..p {
-            z[j] = if constant[j] {
+        let row = x.row(i);
+        for (j, zj) in z.iter_mut().enumerate() {
+            *zj = if constant[j] {
                 0.0
             } else {
-                (x[[i, j]].to_f64() - mean[j]) / scale[j]
+                (row[j].to_f64() - mean[j]) / scale[j]
             };
         }
         let r = w * (y[i] - y_mean);
-        for j in 0..p {
-            let wz = w * z[j];
-            rhs[j] += z[j] * r;
-            for k in 0..=j {
-                gram[j * p + k] += wz * z[k];
+        for (j, (g, zj)) in gram.chunks_exact_mut(p).zip(&z).enumerate() {
+            let wz = w * zj;
+            rhs[j] += zj * r;
+            for (gk, zk) in g[..=j].iter_mut().zip(&z[..=j]) {
+                *gk += wz * zk;
             }
         }
     }
