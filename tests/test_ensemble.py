@@ -159,6 +159,10 @@ def test_wrapped_classifier_maps_member_classes():
     assert missing.any()
     assert np.all(proba[missing, :, 3] == 0)
     np.testing.assert_allclose(bag.predict_proba(x), proba.mean(axis=0))
+    oob = bag.out_of_bag_predictions()
+    assert oob.shape == (8, 60, 4)
+    assert np.array_equal(np.isnan(oob).all(axis=2), bag.in_bag_ > 0)
+    np.testing.assert_array_equal(oob[bag.in_bag_ == 0], proba[bag.in_bag_ == 0])
     logistic = bagwise.ClassificationBag(LogisticRegression(), members=3, stratify=True).fit(x, y)
     assert logistic.score(x, y) > 0.7
 
@@ -317,4 +321,28 @@ def test_ctrl_c_stops_a_long_native_fit_quickly():
     out, _ = proc.communicate(timeout=60)
     waited = time.perf_counter() - sent
     assert out.startswith("interrupted") and out.strip().endswith("False"), out
+    assert waited < 2.0, waited
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
+def test_ctrl_c_stops_a_long_native_prediction_quickly():
+    code = textwrap.dedent("""
+        import time, numpy as np, bagwise
+        x = np.random.default_rng(0).normal(size=(20_000, 5))
+        bag = bagwise.RegressionBag("neighbors", members=200).fit(x, x[:, 0])
+        print("ready", flush=True)
+        start = time.perf_counter()
+        try:
+            bag.member_predictions(x)  # minutes of work
+        except KeyboardInterrupt:
+            print(f"interrupted {time.perf_counter() - start:.3f}", flush=True)
+    """)
+    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    assert proc.stdout.readline().strip() == "ready"
+    time.sleep(1.5)
+    sent = time.perf_counter()
+    proc.send_signal(signal.SIGINT)
+    out, _ = proc.communicate(timeout=60)
+    waited = time.perf_counter() - sent
+    assert out.startswith("interrupted"), out
     assert waited < 2.0, waited
