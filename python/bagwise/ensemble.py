@@ -364,7 +364,10 @@ _PARAMETERS_DOC = """
         smallest weight of a leaf, features tried per split (None: all; an int; or a
         fraction of the features) and split finder ("auto", "exact", "histogram").
     neighbors : int
-        k of ``learner="neighbors"``: in-bag draws averaged per prediction.
+        k of ``learner="neighbors"``: in-bag draws averaged per prediction (a row drawn c
+        times fills up to c of the k slots; ties in distance go to the lower row index).
+        Exact brute force in O(n_points * n_rows * p + members * n_points * n_in_bag) time,
+        meant for up to about 50,000 training rows.
     penalty : float
         Ridge penalty λ of ``learner="linear"``: each member minimises
         ``sum_i c_i (y_i - b - x_i'β)^2 + λ ||β||^2`` on the original feature scale
