@@ -7,14 +7,18 @@
 //! - [`uncertainty`]: infinitesimal-jackknife and jackknife standard errors via count Grams;
 //! - [`random`]: one reproducible random stream per member;
 //! - [`numeric`]: the f32/f64 input trait and mergeable (Chan-style) moments;
-//! - [`parallel`]: explicit thread counts and progress/interrupt hooks for long loops.
+//! - [`parallel`]: explicit thread counts and progress/interrupt hooks for long loops;
+//! - [`learners`]: the native learners of bagged ensembles;
+//! - [`persistence`]: the checksummed file container of fitted ensembles.
 //!
 //! The pyo3 bindings live in the `python` module behind the `python` cargo feature, which
 //! maturin turns on; `cargo test` builds and tests the core without linking Python.
 
 pub mod error;
+pub mod learners;
 pub mod numeric;
 pub mod parallel;
+pub mod persistence;
 pub mod random;
 pub mod resampling;
 pub mod uncertainty;

@@ -1,6 +1,8 @@
 """bagwise: fit bagged ensembles and diagnose them from their member predictions."""
 
 from ._core import __version__
+from .ensemble import ClassificationBag, RegressionBag
+from .persistence import load, save
 from .resampling import Resample, resample
 from .uncertainty import (
     CountGram,
@@ -12,13 +14,17 @@ from .uncertainty import (
 )
 
 __all__ = [
-    "CountGram",
-    "PredictionVariance",
-    "Resample",
-    "Spread",
     "__version__",
+    "ClassificationBag",
     "count_gram",
+    "CountGram",
+    "load",
     "prediction_variance",
+    "PredictionVariance",
+    "RegressionBag",
+    "Resample",
     "resample",
+    "save",
+    "Spread",
     "spread",
 ]

@@ -4,7 +4,16 @@ from typing import final
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["CountGram", "Resampler", "__version__"]
+__all__ = [
+    "CountGram",
+    "LinearEnsemble",
+    "NeighborsEnsemble",
+    "Resampler",
+    "__version__",
+    "crc32",
+    "pack_container",
+    "unpack_container",
+]
 __version__: str
 
 @final
@@ -39,6 +48,89 @@ class Resampler:
     def block_starts(
         self, seed: int, members: int, threads: int | None = None
     ) -> npt.NDArray[np.uint64]: ...
+
+# -- native learners ---------------------------------------------------------------------
+
+_Counts = npt.NDArray[np.unsignedinteger] | npt.NDArray[np.float64]
+_Design = npt.NDArray[np.float32] | npt.NDArray[np.float64]
+
+@final
+class LinearEnsemble:
+    @staticmethod
+    def fit(
+        x: _Design,
+        y: npt.NDArray[np.float64],
+        counts: _Counts,
+        *,
+        task: str = "regression",
+        n_classes: int = 0,
+        penalty: float = 0.0,
+        threads: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
+    ) -> LinearEnsemble: ...
+    def member_predictions(
+        self, x: _Design, threads: int | None = None
+    ) -> npt.NDArray[np.float64]: ...
+    def predict(self, x: _Design, threads: int | None = None) -> npt.NDArray[np.float64]: ...
+    def out_of_bag_predictions(
+        self, x: _Design, counts: _Counts, threads: int | None = None
+    ) -> npt.NDArray[np.float64]: ...
+    @property
+    def members(self) -> int: ...
+    @property
+    def n_features(self) -> int: ...
+    @property
+    def n_classes(self) -> int: ...
+    @property
+    def penalty(self) -> float: ...
+    @property
+    def intercepts(self) -> npt.NDArray[np.float64]: ...
+    @property
+    def coefficients(self) -> npt.NDArray[np.float64]: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> LinearEnsemble: ...
+    def __reduce__(self) -> tuple[Callable[[bytes], LinearEnsemble], tuple[bytes]]: ...
+
+@final
+class NeighborsEnsemble:
+    @staticmethod
+    def fit(
+        x: _Design,
+        y: npt.NDArray[np.float64],
+        counts: _Counts,
+        *,
+        task: str,
+        n_classes: int = 0,
+        neighbors: int = 5,
+        threads: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
+    ) -> NeighborsEnsemble: ...
+    def member_predictions(
+        self, x: _Design, threads: int | None = None
+    ) -> npt.NDArray[np.float64]: ...
+    def predict(self, x: _Design, threads: int | None = None) -> npt.NDArray[np.float64]: ...
+    def out_of_bag_predictions(
+        self, x: _Design, counts: _Counts, threads: int | None = None
+    ) -> npt.NDArray[np.float64]: ...
+    @property
+    def members(self) -> int: ...
+    @property
+    def n_features(self) -> int: ...
+    @property
+    def n_classes(self) -> int: ...
+    @property
+    def neighbors(self) -> int: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> NeighborsEnsemble: ...
+    def __reduce__(self) -> tuple[Callable[[bytes], NeighborsEnsemble], tuple[bytes]]: ...
+
+# -- persistence ---------------------------------------------------------------------------
+
+def pack_container(kind: str, metadata: str, payload: bytes) -> bytes: ...
+def unpack_container(data: bytes) -> tuple[str, str, bytes]: ...
+def crc32(data: bytes) -> int: ...
 
 @final
 class CountGram:

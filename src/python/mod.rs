@@ -14,6 +14,9 @@ use pyo3::prelude::*;
 use crate::error::Error;
 use crate::parallel::{Monitor, Pool, Threads};
 
+mod linear;
+mod neighbors;
+mod persistence;
 mod resampling;
 mod uncertainty;
 
@@ -136,5 +139,8 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     resampling::register(m)?;
     uncertainty::register(m)?;
+    linear::register(m)?;
+    neighbors::register(m)?;
+    persistence::register(m)?;
     Ok(())
 }

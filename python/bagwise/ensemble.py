@@ -1,0 +1,530 @@
+"""Bagged ensembles in one line: `RegressionBag` and `ClassificationBag`.
+
+Members are native Rust learners (``"linear"``, ``"neighbors"``, and ``"tree"`` when the
+build has it) fit in one parallel call with the in-bag counts as row weights, or clones of
+any scikit-learn-compatible estimator fit on the resampled rows.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, clone
+from sklearn.utils import _safe_indexing
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import (
+    _num_samples,
+    check_consistent_length,
+    check_is_fitted,
+    column_or_1d,
+    validate_data,
+)
+
+from . import _core
+from ._progress import progress_callback
+from ._validation import positive_int, seed_value, threads_value
+from .resampling import resample
+
+__all__ = ["ClassificationBag", "RegressionBag"]
+
+# Native learner name -> pyclass name in bagwise._core.
+_NATIVE = {"tree": "TreeEnsemble", "linear": "LinearEnsemble", "neighbors": "NeighborsEnsemble"}
+_SCHEMES = ("bootstrap", "subsample", "bayesian", "none")
+_CRITERIA = ("gini", "entropy")
+_SPLITTERS = ("auto", "exact", "histogram")
+
+
+def _bag_iv(est: _Bag, classification: bool) -> dict:
+    """Check the constructor parameters of a bag; return them normalised."""
+    learner = est.learner
+    if isinstance(learner, str):
+        if learner not in _NATIVE:
+            raise ValueError(
+                f"`learner`: expected one of {tuple(_NATIVE)} or an estimator object, got {learner!r}"
+            )
+        if learner == "tree" and not hasattr(_core, _NATIVE["tree"]):
+            raise ValueError("`learner`: the native tree learner is not built in this version")
+        if learner == "linear" and classification:
+            raise ValueError("`learner`: 'linear' is least squares, for RegressionBag only")
+    else:
+        needed = ("fit", "predict_proba") if classification else ("fit", "predict")
+        missing = [m for m in needed if not callable(getattr(learner, m, None))]
+        if missing:
+            raise TypeError(
+                f"`learner`: expected 'tree', 'linear', 'neighbors' or an estimator with "
+                f"{' and '.join(needed)}; {type(learner).__name__} lacks {', '.join(missing)}"
+            )
+    members = positive_int(est.members, "members")
+    if est.scheme not in _SCHEMES:
+        raise ValueError(f"`scheme`: expected one of {_SCHEMES}, got {est.scheme!r}")
+    fraction = est.fraction
+    if isinstance(fraction, bool) or not isinstance(fraction, numbers.Real):
+        raise TypeError(f"`fraction`: expected a number, got {type(fraction).__name__}")
+    if est.scheme == "none" and fraction != 1:
+        raise ValueError("`fraction`: scheme='none' gives every member all rows; leave fraction at 1.0")
+    if est.max_depth is not None:
+        positive_int(est.max_depth, "max_depth")
+    positive_int(est.min_leaf, "min_leaf")
+    split = est.split_features
+    if split is not None:
+        if isinstance(split, bool) or not isinstance(split, numbers.Real):
+            raise TypeError(f"`split_features`: expected None, an int or a fraction, got {split!r}")
+        if isinstance(split, numbers.Integral):
+            positive_int(split, "split_features")
+        elif not 0 < split <= 1:
+            raise ValueError(f"`split_features`: a fraction must lie in (0, 1], got {split}")
+    neighbors = positive_int(est.neighbors, "neighbors")
+    penalty = est.penalty
+    if isinstance(penalty, bool) or not isinstance(penalty, numbers.Real):
+        raise TypeError(f"`penalty`: expected a number, got {type(penalty).__name__}")
+    if not (math.isfinite(penalty) and penalty >= 0):
+        raise ValueError(f"`penalty`: must be a finite number >= 0, got {penalty}")
+    if not isinstance(est.use_sample_weight, bool):
+        raise TypeError("`use_sample_weight`: expected True or False")
+    if est.scheme == "bayesian":
+        weighted = learner == "linear" or (not isinstance(learner, str) and est.use_sample_weight)
+        if not weighted:
+            raise ValueError(
+                "`scheme`: 'bayesian' weights are continuous, so they cannot be used as row "
+                "multiplicities; use learner='linear' or a wrapped estimator with "
+                "use_sample_weight=True"
+            )
+    if classification:
+        if est.criterion not in _CRITERIA:
+            raise ValueError(f"`criterion`: expected one of {_CRITERIA}, got {est.criterion!r}")
+        if not isinstance(est.stratify, bool):
+            raise TypeError("`stratify`: expected True or False")
+    if est.splitter not in _SPLITTERS:
+        raise ValueError(f"`splitter`: expected one of {_SPLITTERS}, got {est.splitter!r}")
+    if est.progress is not None and not isinstance(est.progress, bool) and not callable(est.progress):
+        raise TypeError(f"`progress`: expected a bool or a callable, got {type(est.progress).__name__}")
+    return {
+        "learner": learner, "members": members, "fraction": float(fraction),
+        "neighbors": neighbors, "penalty": float(penalty), "seed": seed_value(est.seed),
+        "threads": threads_value(est.threads),
+    }
+
+
+def _fit_member(template, X, y, counts, use_sample_weight, random_state):
+    """Clone ``template`` and fit it on one member's resample."""
+    member = clone(template)
+    if random_state is not None:
+        member.set_params(random_state=random_state)
+    if use_sample_weight:
+        member.fit(X, y, sample_weight=np.asarray(counts, dtype=np.float64))
+    else:
+        rows = np.repeat(np.arange(len(counts)), np.asarray(counts, dtype=np.int64))
+        member.fit(_safe_indexing(X, rows), y[rows])
+    return member
+
+
+class _Bag(BaseEstimator):
+    """Shared machinery of `RegressionBag` and `ClassificationBag`."""
+
+    _classification = False
+
+    # -- fitting --------------------------------------------------------------------------
+    def fit(self, X, y, groups=None):
+        """Fit every member on its resample of the rows of ``X``.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_rows, n_features)
+            Training rows. Native learners need numbers (float32 is kept as is); wrapped
+            estimators receive ``X`` in its own type (e.g. a DataFrame), row-indexed.
+        y : array-like of shape (n_rows,)
+            Targets (regression) or class labels (classification).
+        groups : array-like of shape (n_rows,), optional
+            Group labels: whole groups are resampled (cluster bootstrap).
+
+        Returns
+        -------
+        self
+        """
+        self._forget()
+        try:
+            self._fit(X, y, groups)
+        except BaseException:
+            # An error or Ctrl-C leaves the estimator unfitted, never half fitted.
+            self._forget()
+            raise
+        return self
+
+    def _forget(self):
+        for name in ("in_bag_", "n_features_in_", "feature_names_in_", "classes_", "members_",
+                     "seed_", "_model", "_train_X"):
+            self.__dict__.pop(name, None)
+
+    def _fit(self, X, y, groups):
+        params = _bag_iv(self, self._classification)
+        learner = params["learner"]
+        native = isinstance(learner, str)
+        if native:
+            X, y = validate_data(self, X, y, dtype=[np.float64, np.float32],
+                                 y_numeric=not self._classification, ensure_min_samples=2)
+        else:
+            validate_data(self, X, skip_check_array=True)
+            if y is None:
+                raise ValueError(f"{type(self).__name__} requires y to be passed, but the target y is None")
+            y = column_or_1d(y, warn=True)
+            check_consistent_length(X, y)
+            if _num_samples(X) < 2:
+                raise ValueError(f"`X`: bagging needs at least 2 rows, got {_num_samples(X)} sample")
+        n_rows = len(y)
+        if self._classification:
+            check_classification_targets(y)
+            classes, codes = np.unique(y, return_inverse=True)
+            codes = codes.reshape(-1)
+        else:
+            classes, codes = None, None
+        counts = self._draw(n_rows, params, codes, groups)
+        if native:
+            target = codes.astype(np.float64) if self._classification else np.asarray(y, np.float64)
+            model = self._fit_native(X, target, counts, params, 0 if classes is None else len(classes))
+            members = None
+        else:
+            model = None
+            members = self._fit_wrapped(X, y, counts, params)
+        # Everything succeeded: publish the fitted state at once.
+        self.in_bag_ = counts
+        self.seed_ = params["seed"]
+        if classes is not None:
+            self.classes_ = classes
+        if native:
+            self._model = model
+        else:
+            self.members_ = members
+        self._train_X = X
+
+    def _draw(self, n_rows, params, codes, groups):
+        members = params["members"]
+        if self.scheme == "none":
+            if groups is not None:
+                raise ValueError("`groups`: scheme='none' gives every member all rows; groups have no effect")
+            return np.ones((members, n_rows), dtype=np.uint8)
+        strata = codes if self._classification and self.stratify else None
+        draw = resample(n_rows, members, scheme=self.scheme, fraction=params["fraction"],
+                        strata=strata, groups=groups, seed=params["seed"], threads=params["threads"])
+        return draw.weights if self.scheme == "bayesian" else draw.counts
+
+    def _fit_native(self, X, target, counts, params, n_classes):
+        learner = params["learner"]
+        kind = getattr(_core, _NATIVE[learner])
+        task = "classification" if self._classification else "regression"
+        if learner == "linear":
+            options = {"penalty": params["penalty"]}
+        elif learner == "neighbors":
+            options = {"neighbors": params["neighbors"]}
+        else:
+            options = {
+                "max_depth": self.max_depth, "min_leaf": self.min_leaf,
+                "split_features": self.split_features,
+                "criterion": self.criterion if self._classification else "squared_error",
+                "splitter": self.splitter, "seed": params["seed"],
+            }
+        with progress_callback(self.progress, "fitting") as callback:
+            return kind.fit(X, target, counts, task=task, n_classes=n_classes,
+                            threads=params["threads"], progress=callback, **options)
+
+    def _fit_wrapped(self, X, y, counts, params):
+        from joblib import Parallel, delayed
+
+        template = params["learner"]
+        members = params["members"]
+        if self.use_sample_weight:
+            import inspect
+
+            if "sample_weight" not in inspect.signature(template.fit).parameters:
+                raise ValueError(
+                    f"`use_sample_weight`: {type(template).__name__}.fit does not accept sample_weight"
+                )
+        if "random_state" in template.get_params(deep=False):
+            # One reproducible seed per member, as the member streams of the native path.
+            children = np.random.SeedSequence(params["seed"]).spawn(members)
+            states = [int(c.generate_state(1)[0] & 0x7FFFFFFF) for c in children]
+        else:
+            states = [None] * members
+        n_jobs = -1 if params["threads"] is None else params["threads"]
+        tasks = (delayed(_fit_member)(template, X, y, counts[m], self.use_sample_weight, states[m])
+                 for m in range(members))
+        fitted = []
+        with progress_callback(self.progress, "fitting") as callback:
+            runner = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator")
+            for member in runner(tasks):
+                fitted.append(member)
+                if callback is not None:
+                    callback(len(fitted), members)
+        return fitted
+
+    def __sklearn_is_fitted__(self):
+        return hasattr(self, "in_bag_")
+
+    # -- prediction -----------------------------------------------------------------------
+    @property
+    def _native(self) -> bool:
+        return "_model" in self.__dict__
+
+    def _check_X(self, X):
+        check_is_fitted(self)
+        if self._native:
+            return validate_data(self, X, reset=False, dtype=[np.float64, np.float32])
+        validate_data(self, X, reset=False, skip_check_array=True)
+        return X
+
+    def member_predictions(self, X) -> np.ndarray:
+        """Every member's prediction at every point.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_points, n_features)
+
+        Returns
+        -------
+        ndarray of float64
+            ``(members, n_points)`` for regression, ``(members, n_points, n_classes)``
+            class probabilities for classification (columns in the order of
+            ``classes_``). Native learners answer in one parallel call.
+        """
+        X = self._check_X(X)
+        if self._native:
+            return self._model.member_predictions(X, self.threads)
+        return np.stack([self._member_predict(member, X) for member in self.members_])
+
+    def out_of_bag_predictions(self, X=None) -> np.ndarray:
+        """Each member's predictions on the training rows, NaN where it saw the row.
+
+        Parameters
+        ----------
+        X : array-like, optional
+            The training rows. Needed only after `bagwise.load` (saved files do not keep
+            the training data); otherwise the rows given to `fit` are used.
+
+        Returns
+        -------
+        ndarray of float64
+            Shaped as `member_predictions` on the training rows. Native learners compute
+            only the out-of-bag rows; with ``scheme="none"`` every entry is NaN.
+        """
+        check_is_fitted(self)
+        if self.in_bag_.dtype.kind == "f":
+            raise ValueError(
+                "`scheme`: 'bayesian' gives every row a positive weight in every member, so "
+                "no row is out of bag"
+            )
+        if X is None:
+            if "_train_X" not in self.__dict__:
+                raise ValueError("`X`: give the training rows (a loaded ensemble does not keep them)")
+            X = self._train_X
+        else:
+            X = self._check_X(X)
+        if _num_samples(X) != self.in_bag_.shape[1]:
+            raise ValueError(
+                f"`X`: has {_num_samples(X)} rows but the ensemble was fit on {self.in_bag_.shape[1]}"
+            )
+        if self._native:
+            return self._model.out_of_bag_predictions(X, self.in_bag_, self.threads)
+        shape = (self.in_bag_.shape[1],) + ((len(self.classes_),) if self._classification else ())
+        out = np.full((len(self.members_),) + shape, np.nan)
+        for m, member in enumerate(self.members_):
+            rows = np.flatnonzero(self.in_bag_[m] == 0)
+            if len(rows):
+                out[m, rows] = self._member_predict(member, _safe_indexing(X, rows))
+        return out
+
+    def save(self, path) -> None:
+        """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""
+        from .persistence import save
+
+        save(self, path)
+
+
+_PARAMETERS_DOC = """
+    Parameters
+    ----------
+    learner : {"tree", "linear", "neighbors"} or estimator
+        The member model. Native learners fit all members in one parallel Rust call with
+        the in-bag counts as row weights (no resampled copy of ``X``): ``"tree"`` (CART,
+        when the build has it), ``"linear"`` (least squares / ridge with intercept,
+        regression only), ``"neighbors"`` (k nearest neighbours, a row drawn c times
+        counting c times). Any other object with ``fit`` and ``predict`` (``predict_proba``
+        for classification) is cloned per member with `sklearn.base.clone`.
+    members : int
+        Number of members.
+    scheme : {"bootstrap", "subsample", "bayesian", "none"}
+        How members resample the rows (see `bagwise.resample`); ``"none"`` gives every
+        member all rows once (a single model is ``members=1, scheme="none"``).
+        ``"bayesian"`` weights are continuous: only ``learner="linear"`` and wrapped
+        estimators with ``use_sample_weight=True`` accept them.
+    fraction : float
+        Draw size as a share of the rows.
+    max_depth, min_leaf, split_features, splitter
+        Tree parameters (ignored by the other learners): largest depth (None: no limit),
+        smallest weight of a leaf, features tried per split (None: all; an int; or a
+        fraction of the features) and split finder ("auto", "exact", "histogram").
+    neighbors : int
+        k of ``learner="neighbors"``: in-bag draws averaged per prediction (a row drawn c
+        times fills up to c of the k slots; ties in distance go to the lower row index).
+        Exact brute force in O(n_points * n_rows * p + members * n_points * n_in_bag) time,
+        meant for up to about 50,000 training rows.
+    penalty : float
+        Ridge penalty λ of ``learner="linear"``: each member minimises
+        ``sum_i c_i (y_i - b - x_i'β)^2 + λ ||β||^2`` on the original feature scale
+        (intercept unpenalised; as sklearn.linear_model.Ridge with sample_weight=c).
+        0 is weighted least squares, which raises ``ValueError`` on rank deficiency.
+    seed : int or None
+        Seed of the resampling (and of member randomness); ``None`` draws a fresh one,
+        kept in ``seed_``.
+    threads : int, optional
+        Worker threads (default: all cores). Native results do not depend on it; wrapped
+        members run on joblib threads.
+    progress : bool or callable
+        ``True`` shows a tqdm bar advancing per fitted member; a callable receives
+        ``(done, total)``.
+    use_sample_weight : bool
+        Wrapped estimators only: fit each member on all rows with the counts as
+        ``sample_weight`` instead of on the repeated rows.
+"""
+
+_ATTRIBUTES_DOC = """
+    Attributes
+    ----------
+    in_bag_ : ndarray of shape (members, n_rows)
+        In-bag count of every training row in every member (unsigned integers; float64
+        weights for ``scheme="bayesian"``).
+    n_features_in_ : int
+        Number of features seen in `fit`.
+    feature_names_in_ : ndarray of str
+        Column names, when `fit` was given a DataFrame with string column names.
+    members_ : list of estimators
+        The fitted clones (wrapped estimators only; native members live in Rust).
+    seed_ : int
+        The seed used (also when ``seed=None``).
+
+    Notes
+    -----
+    A fitted bag keeps a reference to its training rows for `out_of_bag_predictions`, so
+    pickles of it include them; files written by `save` do not.
+
+    Native ensembles pickle (their state is serde bytes) and `save` to a checksummed file
+    of our own that `bagwise.load` reads without executing code. Wrapped estimators can
+    only be pickled: never unpickle data from an untrusted source, since unpickling can
+    run arbitrary code.
+"""
+
+
+class RegressionBag(RegressorMixin, _Bag):
+    __doc__ = (
+        """A bagged regression ensemble: members fit on resamples, predictions averaged.
+"""
+        + _PARAMETERS_DOC
+        + _ATTRIBUTES_DOC
+        + """
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.normal(size=(200, 3))
+    >>> y = X @ [1.0, -2.0, 0.5] + rng.normal(scale=0.1, size=200)
+    >>> bag = bagwise.RegressionBag("linear", members=20, seed=1).fit(X, y)
+    >>> bag.member_predictions(X[:5]).shape
+    (20, 5)
+    >>> round(bag.score(X, y), 3)
+    0.998
+    """
+    )
+
+    def __init__(self, learner="tree", members=100, *, scheme="bootstrap", fraction=1.0,
+                 max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
+                 seed=0, threads=None, progress=False, splitter="auto", use_sample_weight=False):
+        self.learner = learner
+        self.members = members
+        self.scheme = scheme
+        self.fraction = fraction
+        self.max_depth = max_depth
+        self.min_leaf = min_leaf
+        self.split_features = split_features
+        self.neighbors = neighbors
+        self.penalty = penalty
+        self.seed = seed
+        self.threads = threads
+        self.progress = progress
+        self.splitter = splitter
+        self.use_sample_weight = use_sample_weight
+
+    def _member_predict(self, member, X):
+        return np.asarray(member.predict(X), dtype=np.float64).reshape(-1)
+
+    def predict(self, X) -> np.ndarray:
+        """The ensemble mean over members, shape (n_points,)."""
+        return self.member_predictions(X).mean(axis=0)
+
+
+class ClassificationBag(ClassifierMixin, _Bag):
+    __doc__ = (
+        """A bagged classification ensemble: members' class probabilities averaged.
+"""
+        + _PARAMETERS_DOC
+        + """    stratify : bool
+        Resample within every class, so each member keeps the class sizes.
+    criterion : {"gini", "entropy"}
+        Split criterion of ``learner="tree"``.
+"""
+        + _ATTRIBUTES_DOC
+        + """    classes_ : ndarray
+        The class labels, sorted; probability columns follow this order.
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.normal(size=(300, 2))
+    >>> y = np.where(X[:, 0] + X[:, 1] > 0, "yes", "no")
+    >>> bag = bagwise.ClassificationBag("neighbors", members=10, neighbors=7).fit(X, y)
+    >>> bag.classes_
+    array(['no', 'yes'], dtype='<U3')
+    >>> bag.member_predictions(X[:4]).shape
+    (10, 4, 2)
+    >>> float(bag.score(X, y)) > 0.9
+    True
+    """
+    )
+
+    def __init__(self, learner="tree", members=100, *, scheme="bootstrap", fraction=1.0,
+                 max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
+                 seed=0, threads=None, progress=False, stratify=False, criterion="gini",
+                 splitter="auto", use_sample_weight=False):
+        self.learner = learner
+        self.members = members
+        self.scheme = scheme
+        self.fraction = fraction
+        self.max_depth = max_depth
+        self.min_leaf = min_leaf
+        self.split_features = split_features
+        self.neighbors = neighbors
+        self.penalty = penalty
+        self.seed = seed
+        self.threads = threads
+        self.progress = progress
+        self.stratify = stratify
+        self.criterion = criterion
+        self.splitter = splitter
+        self.use_sample_weight = use_sample_weight
+
+    _classification = True
+
+    def _member_predict(self, member, X):
+        proba = np.asarray(member.predict_proba(X), dtype=np.float64)
+        out = np.zeros((proba.shape[0], len(self.classes_)))
+        out[:, np.searchsorted(self.classes_, member.classes_)] = proba
+        return out
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Mean of the members' class probabilities, shape (n_points, n_classes)."""
+        return self.member_predictions(X).mean(axis=0)
+
+    def predict(self, X) -> np.ndarray:
+        """The class with the largest mean probability (ties: the first in ``classes_``)."""
+        proba = self.predict_proba(X)
+        return self.classes_[np.argmax(proba, axis=1)]

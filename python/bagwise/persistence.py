@@ -1,0 +1,185 @@
+"""Save fitted native ensembles to a file of our own and load them back, executing no code.
+
+The container (written and verified in Rust, see ``src/persistence.rs``) holds the magic
+bytes ``\\x89BAGWISE``, a format version, the learner kind, a JSON metadata section (the
+estimator's parameters, ``classes_``, ``feature_names_in_``, ``n_features_in_``, the in-bag
+counts), the learner's binary state and a CRC-32 of everything before it. Loading parses
+JSON and plain binary data only, unlike unpickling.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import numbers
+import os
+
+import numpy as np
+
+from . import _core
+
+__all__ = ["load", "save"]
+
+_FORMAT = "bagwise-ensemble"
+_KINDS = {"LinearEnsemble": "linear", "NeighborsEnsemble": "neighbors", "TreeEnsemble": "tree"}
+_CLASS_KINDS = "biufUO"
+
+
+def _array_to_json(array: np.ndarray) -> dict:
+    array = np.ascontiguousarray(array)
+    little = array.astype(array.dtype.newbyteorder("<"), copy=False)
+    return {"dtype": little.dtype.str, "shape": list(array.shape),
+            "data": base64.b64encode(little.tobytes()).decode("ascii")}
+
+
+def _array_from_json(entry: dict) -> np.ndarray:
+    dtype = np.dtype(entry["dtype"])
+    if dtype.kind not in "uf":
+        raise ValueError(f"unexpected dtype {dtype}")
+    raw = base64.b64decode(entry["data"], validate=True)
+    return np.frombuffer(raw, dtype=dtype).reshape(entry["shape"]).astype(dtype.newbyteorder("="))
+
+
+def _classes_to_json(classes: np.ndarray) -> dict:
+    kind = classes.dtype.kind
+    if kind not in _CLASS_KINDS or (kind == "O" and not all(isinstance(c, str) for c in classes)):
+        raise TypeError(
+            f"`classes_`: labels of dtype {classes.dtype} cannot be saved; use numbers or strings"
+        )
+    return {"dtype": "object" if kind == "O" else classes.dtype.str, "values": classes.tolist()}
+
+
+def save(estimator, path) -> None:
+    """Write a fitted native `RegressionBag` / `ClassificationBag` to ``path``.
+
+    Parameters
+    ----------
+    estimator : RegressionBag or ClassificationBag
+        Fitted with a native learner (``"linear"``, ``"neighbors"``, ``"tree"``).
+    path : str or os.PathLike
+        The file to write (overwritten).
+
+    Raises
+    ------
+    TypeError
+        For an ensemble of wrapped estimators: those can only be pickled (and a pickle
+        must never be loaded from an untrusted source, since unpickling can run code).
+
+    Notes
+    -----
+    The training rows are not stored, so after `load` call
+    ``out_of_bag_predictions(X_train)`` with them.
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise, tempfile, os
+    >>> rng = np.random.default_rng(0)
+    >>> X, y = rng.normal(size=(50, 2)), rng.normal(size=50)
+    >>> bag = bagwise.RegressionBag("linear", members=5).fit(X, y)
+    >>> path = os.path.join(tempfile.mkdtemp(), "bag.bagwise")
+    >>> bagwise.save(bag, path)
+    >>> back = bagwise.load(path)
+    >>> bool(np.array_equal(back.predict(X), bag.predict(X)))
+    True
+    """
+    from sklearn.utils.validation import check_is_fitted
+
+    from .ensemble import ClassificationBag, RegressionBag
+
+    if not isinstance(estimator, (RegressionBag, ClassificationBag)):
+        raise TypeError(f"`estimator`: expected a RegressionBag or ClassificationBag, got "
+                        f"{type(estimator).__name__}")
+    check_is_fitted(estimator)
+    if "_model" not in estimator.__dict__:
+        raise TypeError(
+            "`estimator`: an ensemble of wrapped estimators cannot be saved in the bagwise "
+            "format (its members are arbitrary Python objects); pickle it instead, and never "
+            "unpickle data from an untrusted source"
+        )
+    model = estimator._model
+    params = estimator.get_params(deep=False)
+    if callable(params.get("progress")):
+        params["progress"] = False
+    params["seed"] = estimator.seed_
+    for key, value in params.items():
+        if isinstance(value, (bool, str)) or value is None:
+            continue
+        if isinstance(value, numbers.Integral):
+            params[key] = int(value)
+        elif isinstance(value, numbers.Real):
+            params[key] = float(value)
+    metadata = {
+        "format": _FORMAT,
+        "estimator": type(estimator).__name__,
+        "bagwise_version": _core.__version__,
+        "params": params,
+        "n_features_in": int(estimator.n_features_in_),
+        "feature_names_in": (estimator.feature_names_in_.tolist()
+                             if hasattr(estimator, "feature_names_in_") else None),
+        "classes": (_classes_to_json(estimator.classes_)
+                    if hasattr(estimator, "classes_") else None),
+        "in_bag": _array_to_json(estimator.in_bag_),
+    }
+    data = _core.pack_container(_KINDS[type(model).__name__], json.dumps(metadata),
+                                model.to_bytes())
+    with open(os.fspath(path), "wb") as handle:
+        handle.write(data)
+
+
+def load(path):
+    """Read an ensemble written by `save`; executes no code from the file.
+
+    Raises
+    ------
+    ValueError
+        When the file is not a bagwise file, has another format version, fails its
+        checksum (corrupted or truncated) or holds inconsistent contents.
+    """
+    from .ensemble import ClassificationBag, RegressionBag
+
+    with open(os.fspath(path), "rb") as handle:
+        data = handle.read()
+    where = f"`path`: {os.fspath(path)!s}"
+    try:
+        kind, text, payload = _core.unpack_container(data)
+    except ValueError as err:
+        raise ValueError(f"{where}: {err}") from None
+    try:
+        meta = json.loads(text)
+        if meta.get("format") != _FORMAT:
+            raise ValueError("the metadata is not that of a bagwise ensemble")
+        cls = {"RegressionBag": RegressionBag, "ClassificationBag": ClassificationBag}[meta["estimator"]]
+        names = {v: k for k, v in _KINDS.items()}
+        if kind not in names:
+            raise ValueError(f"unknown learner kind {kind!r}")
+        if not hasattr(_core, names[kind]):
+            raise ValueError(f"the file holds a {kind!r} ensemble, which this build does not have")
+        model = getattr(_core, names[kind]).from_bytes(payload)
+        estimator = cls(**meta["params"])
+        in_bag = _array_from_json(meta["in_bag"])
+        classes = meta["classes"]
+        if classes is not None:
+            classes = np.array(classes["values"], dtype=classes["dtype"])
+        n_features = int(meta["n_features_in"])
+    except ValueError as err:
+        raise ValueError(f"{where}: inconsistent contents ({err})") from None
+    except (KeyError, TypeError, AttributeError) as err:
+        raise ValueError(f"{where}: inconsistent contents (bad metadata: {err!r})") from None
+    consistent = (
+        model.members == in_bag.shape[0]
+        and model.n_features == n_features
+        and in_bag.ndim == 2
+        and (classes is None) == (cls is RegressionBag)
+        and (classes is None or model.n_classes == len(classes))
+    )
+    if not consistent:
+        raise ValueError(f"{where}: inconsistent contents (sizes disagree)")
+    estimator._model = model
+    estimator.in_bag_ = in_bag
+    estimator.n_features_in_ = n_features
+    estimator.seed_ = meta["params"]["seed"]
+    if meta["feature_names_in"] is not None:
+        estimator.feature_names_in_ = np.asarray(meta["feature_names_in"], dtype=object)
+    if classes is not None:
+        estimator.classes_ = classes
+    return estimator

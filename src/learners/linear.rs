@@ -1,0 +1,510 @@
+//! Bagged least squares and ridge regression: one weighted fit with intercept per member,
+//! the in-bag counts (or Bayesian weights) as row weights.
+//!
+//! ```text
+//! Objective of member m, on the ORIGINAL scale of the features (as
+//! sklearn.linear_model.Ridge(alpha=λ) with sample_weight=w; λ = 0 is weighted least squares):
+//!     minimise over b, β    Σ_i w_i (y_i − b − x_iᵀβ)² + λ ‖β‖²       (intercept unpenalised)
+//! Solved on a centred, scaled design for numerical stability (Golub & Van Loan 2013,
+//! Matrix Computations, §4.2 Cholesky, §5.3 normal equations):
+//!     W = Σ w_i,  x̄_j = Σ w_i x_ij / W,  ȳ = Σ w_i y_i / W,
+//!     s_j = sqrt(Σ w_i (x_ij − x̄_j)² / W)       (s_j := 1 and z_ij := 0 for a constant column)
+//!     z_ij = (x_ij − x̄_j) / s_j,  G = Zᵀ diag(w) Z / W,  r = Zᵀ diag(w) (y − ȳ) / W
+//!     (G + (λ / W) · diag(1 / s_j²)) γ = r        by Cholesky, then β_j = γ_j / s_j,
+//!     b = ȳ − x̄ᵀβ.
+//! ```
+//! The normal equations square the condition number of the scaled design; a Cholesky pivot
+//! below `RANK_TOLERANCE` × its diagonal entry is reported as rank deficiency (collinear
+//! or constant features, or fewer distinct in-bag rows than features + 1) instead of
+//! returning unstable coefficients.
+
+use ndarray::{ArrayView1, ArrayView2};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+use super::{check_design, member_chunk, Bag};
+use crate::error::{Error, Result};
+use crate::numeric::Real;
+use crate::parallel::{Monitor, Pool};
+
+/// Smallest accepted ratio of a Cholesky pivot to its diagonal entry (a reciprocal
+/// condition estimate of the scaled Gram matrix).
+pub const RANK_TOLERANCE: f64 = 1e-10;
+
+/// Relative spread below which a column counts as constant within a member's rows.
+const CONSTANT_TOLERANCE: f64 = 1e-12;
+
+/// Points per parallel prediction task.
+const POINT_CHUNK: usize = 4096;
+
+/// A fitted ensemble of linear members.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LinearEnsemble {
+    n_features: usize,
+    penalty: f64,
+    /// One intercept per member.
+    intercepts: Vec<f64>,
+    /// members × n_features, row-major.
+    coefficients: Vec<f64>,
+}
+
+/// Solves `a x = b` in place for a symmetric positive definite `a` (p × p, row-major) by
+/// Cholesky; `None` when a pivot falls below `RANK_TOLERANCE` times its diagonal entry.
+fn cholesky_solve(mut a: Vec<f64>, mut b: Vec<f64>, p: usize) -> Option<Vec<f64>> {
+    for k in 0..p {
+        let diagonal = a[k * p + k];
+        let mut pivot = diagonal;
+        for j in 0..k {
+            pivot -= a[k * p + j] * a[k * p + j];
+        }
+        if !pivot.is_finite() || pivot <= RANK_TOLERANCE * diagonal.abs() {
+            return None;
+        }
+        let root = pivot.sqrt();
+        a[k * p + k] = root;
+        for i in k + 1..p {
+            let mut v = a[i * p + k];
+            for j in 0..k {
+                v -= a[i * p + j] * a[k * p + j];
+            }
+            a[i * p + k] = v / root;
+        }
+    }
+    for i in 0..p {
+        let mut v = b[i];
+        for j in 0..i {
+            v -= a[i * p + j] * b[j];
+        }
+        b[i] = v / a[i * p + i];
+    }
+    for i in (0..p).rev() {
+        let mut v = b[i];
+        for j in i + 1..p {
+            v -= a[j * p + i] * b[j];
+        }
+        b[i] = v / a[i * p + i];
+    }
+    Some(b)
+}
+
+/// Fits one member; returns (intercept, coefficients).
+fn fit_member<T: Real>(
+    x: ArrayView2<'_, T>,
+    y: ArrayView1<'_, f64>,
+    bag: &Bag,
+    penalty: f64,
+    member: usize,
+) -> Result<(f64, Vec<f64>)> {
+    let p = x.ncols();
+    let total = bag.total();
+    // Pass 1: weighted means.
+    let mut mean = vec![0.0; p];
+    let mut y_mean = 0.0;
+    for (&i, &w) in bag.rows.iter().zip(&bag.weights) {
+        for (j, m) in mean.iter_mut().enumerate() {
+            *m += w * x[[i, j]].to_f64();
+        }
+        y_mean += w * y[i];
+    }
+    mean.iter_mut().for_each(|m| *m /= total);
+    y_mean /= total;
+    // Pass 2: weighted scales of the centred columns.
+    let mut scale = vec![0.0; p];
+    for (&i, &w) in bag.rows.iter().zip(&bag.weights) {
+        for (j, s) in scale.iter_mut().enumerate() {
+            let d = x[[i, j]].to_f64() - mean[j];
+            *s += w * d * d;
+        }
+    }
+    let mut constant = vec![false; p];
+    for j in 0..p {
+        let s = (scale[j] / total).sqrt();
+        constant[j] =
+            !s.is_finite() || s <= CONSTANT_TOLERANCE * mean[j].abs().max(f64::MIN_POSITIVE);
+        scale[j] = if constant[j] { 1.0 } else { s };
+    }
+    // Pass 3: Gram matrix and right-hand side of the scaled design.
+    let mut gram = vec![0.0; p * p];
+    let mut rhs = vec![0.0; p];
+    let mut z = vec![0.0; p];
+    for (&i, &w) in bag.rows.iter().zip(&bag.weights) {
+        let row = x.row(i);
+        for (j, zj) in z.iter_mut().enumerate() {
+            *zj = if constant[j] {
+                0.0
+            } else {
+                (row[j].to_f64() - mean[j]) / scale[j]
+            };
+        }
+        let r = w * (y[i] - y_mean);
+        for (j, (g, zj)) in gram.chunks_exact_mut(p).zip(&z).enumerate() {
+            let wz = w * zj;
+            rhs[j] += zj * r;
+            for (gk, zk) in g[..=j].iter_mut().zip(&z[..=j]) {
+                *gk += wz * zk;
+            }
+        }
+    }
+    for j in 0..p {
+        rhs[j] /= total;
+        for k in 0..=j {
+            gram[j * p + k] /= total;
+            gram[k * p + j] = gram[j * p + k];
+        }
+        gram[j * p + j] += penalty / total / (scale[j] * scale[j]);
+    }
+    let gamma = cholesky_solve(gram, rhs, p).ok_or_else(|| {
+        Error::value(
+            if penalty > 0.0 { "penalty" } else { "x" },
+            if penalty > 0.0 {
+                format!(
+                    "member {member}: the penalised system is numerically singular; \
+                     use a larger penalty"
+                )
+            } else {
+                format!(
+                    "member {member}: the in-bag rows are rank deficient (collinear or \
+                     constant features, or fewer distinct rows than features + 1); \
+                     set penalty > 0 for a ridge fit"
+                )
+            },
+        )
+    })?;
+    let beta: Vec<f64> = gamma.iter().zip(&scale).map(|(g, s)| g / s).collect();
+    let intercept = y_mean - beta.iter().zip(&mean).map(|(b, m)| b * m).sum::<f64>();
+    Ok((intercept, beta))
+}
+
+impl LinearEnsemble {
+    /// Fits one member per bag on the rows of `x` (n_rows × p) and targets `y`.
+    ///
+    /// # Errors
+    /// `x` (empty, NaN/inf, rank deficient without a penalty), `y` (length, NaN/inf),
+    /// `penalty` (negative or not finite), `counts` (no members), [`Error::Interrupted`].
+    pub fn fit<T: Real>(
+        x: ArrayView2<'_, T>,
+        y: ArrayView1<'_, f64>,
+        bags: &[Bag],
+        penalty: f64,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<Self> {
+        check_design(x, "x")?;
+        if y.len() != x.nrows() {
+            return Err(Error::value(
+                "y",
+                format!("has {} values but x has {} rows", y.len(), x.nrows()),
+            ));
+        }
+        if y.iter().any(|v| !v.is_finite()) {
+            return Err(Error::value("y", "contains NaN or infinite values"));
+        }
+        if !penalty.is_finite() || penalty < 0.0 {
+            return Err(Error::value(
+                "penalty",
+                format!("must be a finite number >= 0, got {penalty}"),
+            ));
+        }
+        if bags.is_empty() {
+            return Err(Error::value("counts", "needs at least one member"));
+        }
+        if bags.iter().any(|b| b.rows.iter().any(|&i| i >= x.nrows())) {
+            return Err(Error::value("counts", "refers to rows beyond x"));
+        }
+        let p = x.ncols();
+        let mut intercepts = Vec::with_capacity(bags.len());
+        let mut coefficients = Vec::with_capacity(bags.len() * p);
+        let chunk = member_chunk(pool.threads());
+        for (c, block) in bags.chunks(chunk).enumerate() {
+            let fitted = pool.run(|| {
+                block
+                    .par_iter()
+                    .enumerate()
+                    .map(|(k, bag)| fit_member(x, y, bag, penalty, c * chunk + k))
+                    .collect::<Result<Vec<_>>>()
+            })?;
+            for (b, beta) in fitted {
+                intercepts.push(b);
+                coefficients.extend(beta);
+            }
+            monitor.progress(intercepts.len(), bags.len())?;
+        }
+        Ok(LinearEnsemble {
+            n_features: p,
+            penalty,
+            intercepts,
+            coefficients,
+        })
+    }
+
+    /// Number of members.
+    pub fn members(&self) -> usize {
+        self.intercepts.len()
+    }
+
+    /// Number of features.
+    pub fn n_features(&self) -> usize {
+        self.n_features
+    }
+
+    /// The ridge penalty λ the members were fit with.
+    pub fn penalty(&self) -> f64 {
+        self.penalty
+    }
+
+    /// Intercept of every member.
+    pub fn intercepts(&self) -> &[f64] {
+        &self.intercepts
+    }
+
+    /// Coefficients, members × n_features row-major.
+    pub fn coefficients(&self) -> &[f64] {
+        &self.coefficients
+    }
+
+    /// Checks the internal consistency of a deserialised ensemble.
+    ///
+    /// # Errors
+    /// `data` when sizes disagree or a value is not finite.
+    pub fn validate(&self) -> Result<()> {
+        let ok = self.n_features >= 1
+            && !self.intercepts.is_empty()
+            && Some(self.coefficients.len()) == self.intercepts.len().checked_mul(self.n_features)
+            && self.penalty.is_finite()
+            && self.penalty >= 0.0
+            && self
+                .intercepts
+                .iter()
+                .chain(&self.coefficients)
+                .all(|v| v.is_finite());
+        if ok {
+            Ok(())
+        } else {
+            Err(Error::value("data", "is not a consistent linear ensemble"))
+        }
+    }
+
+    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
+        check_design(x, "x")?;
+        if x.ncols() != self.n_features {
+            return Err(Error::value(
+                "x",
+                format!(
+                    "has {} columns but the ensemble was fit on {} features",
+                    x.ncols(),
+                    self.n_features
+                ),
+            ));
+        }
+        Ok(())
+    }
+
+    #[inline]
+    fn predict_row<T: Real>(&self, member: usize, x: ArrayView2<'_, T>, i: usize) -> f64 {
+        let p = self.n_features;
+        let beta = &self.coefficients[member * p..(member + 1) * p];
+        let mut v = self.intercepts[member];
+        for (j, b) in beta.iter().enumerate() {
+            v += b * x[[i, j]].to_f64();
+        }
+        v
+    }
+
+    /// Writes every member's prediction at every point into `out` (members × n_points,
+    /// row-major).
+    ///
+    /// # Errors
+    /// `x` (columns, NaN/inf, empty); `out` of the wrong length.
+    pub fn member_predictions_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+    ) -> Result<()> {
+        self.check_x(x)?;
+        let n = x.nrows();
+        if out.len() != n * self.members() {
+            return Err(Error::value("out", "has the wrong length"));
+        }
+        pool.run(|| {
+            out.par_chunks_mut(n).enumerate().for_each(|(m, row)| {
+                row.par_chunks_mut(POINT_CHUNK)
+                    .enumerate()
+                    .for_each(|(c, part)| {
+                        for (k, slot) in part.iter_mut().enumerate() {
+                            *slot = self.predict_row(m, x, c * POINT_CHUNK + k);
+                        }
+                    })
+            })
+        });
+        Ok(())
+    }
+
+    /// Writes each member's prediction on its out-of-bag rows of the training design `x`
+    /// into `out` (members × n_rows), NaN where the member saw the row. Only out-of-bag
+    /// rows are computed.
+    ///
+    /// # Errors
+    /// As [`member_predictions_into`](Self::member_predictions_into); `counts` when the
+    /// number of bags differs from the number of members.
+    pub fn out_of_bag_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        bags: &[Bag],
+        out: &mut [f64],
+        pool: &Pool,
+    ) -> Result<()> {
+        self.check_x(x)?;
+        if bags.len() != self.members() {
+            return Err(Error::value(
+                "counts",
+                format!(
+                    "has {} members but the ensemble has {}",
+                    bags.len(),
+                    self.members()
+                ),
+            ));
+        }
+        let n = x.nrows();
+        if out.len() != n * self.members() {
+            return Err(Error::value("out", "has the wrong length"));
+        }
+        pool.run(|| {
+            out.par_chunks_mut(n)
+                .zip(bags.par_iter())
+                .enumerate()
+                .for_each(|(m, (row, bag))| {
+                    row.fill(f64::NAN);
+                    let mut inside = bag.rows.iter().peekable();
+                    for (i, slot) in row.iter_mut().enumerate() {
+                        if inside.next_if(|&&r| r == i).is_none() {
+                            *slot = self.predict_row(m, x, i);
+                        }
+                    }
+                })
+        });
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::learners::bags;
+    use crate::parallel::{Silent, Threads};
+    use approx::assert_relative_eq;
+    use ndarray::{array, Array1, Array2};
+
+    fn design(n: usize) -> (Array2<f64>, Array1<f64>) {
+        let x = Array2::from_shape_fn((n, 3), |(i, j)| {
+            ((i * 7 + j * 13) % 17) as f64 + 0.1 * (i * j) as f64 + 1000.0 * u8::from(j == 2) as f64
+        });
+        let y = Array1::from_shape_fn(n, |i| {
+            2.0 + x[[i, 0]] - 0.5 * x[[i, 1]] + 0.25 * x[[i, 2]] + ((i % 5) as f64 - 2.0) * 0.1
+        });
+        (x, y)
+    }
+
+    #[test]
+    fn exact_data_recover_coefficients() {
+        let x = array![[0.0, 1.0], [1.0, 0.0], [2.0, 3.0], [3.0, 1.0], [4.0, 5.0]];
+        let y = x.column(0).mapv(|v| 1.0 + 2.0 * v) + &x.column(1).mapv(|v| -3.0 * v);
+        let b = bags(array![[1u8, 2, 1, 1, 3]].view(), 5).unwrap();
+        let pool = Threads::Fixed(1).pool().unwrap();
+        let fit = LinearEnsemble::fit(x.view(), y.view(), &b, 0.0, &pool, &Silent).unwrap();
+        assert_relative_eq!(fit.intercepts()[0], 1.0, epsilon = 1e-10);
+        assert_relative_eq!(fit.coefficients()[0], 2.0, epsilon = 1e-10);
+        assert_relative_eq!(fit.coefficients()[1], -3.0, epsilon = 1e-10);
+    }
+
+    #[test]
+    fn weights_equal_repeated_rows_and_ridge_matches_normal_equations() {
+        let (x, y) = design(40);
+        let counts = Array2::from_shape_fn((1, 40), |(_, i)| (i % 3) as u8);
+        let b = bags(counts.view(), 40).unwrap();
+        let rows: Vec<usize> = (0..40).flat_map(|i| vec![i; i % 3]).collect();
+        let xr = x.select(ndarray::Axis(0), &rows);
+        let yr = y.select(ndarray::Axis(0), &rows);
+        let ones = bags(Array2::<u8>::ones((1, rows.len())).view(), rows.len()).unwrap();
+        let pool = Threads::Fixed(2).pool().unwrap();
+        for penalty in [0.0, 3.0] {
+            let a = LinearEnsemble::fit(x.view(), y.view(), &b, penalty, &pool, &Silent).unwrap();
+            let r =
+                LinearEnsemble::fit(xr.view(), yr.view(), &ones, penalty, &pool, &Silent).unwrap();
+            for j in 0..3 {
+                assert_relative_eq!(
+                    a.coefficients()[j],
+                    r.coefficients()[j],
+                    max_relative = 1e-9
+                );
+            }
+            assert_relative_eq!(a.intercepts()[0], r.intercepts()[0], max_relative = 1e-9);
+            // The ridge solution satisfies (Xcᵀ W Xc + λI) β = Xcᵀ W yc on the original
+            // scale (the stated objective's gradient is zero).
+            let w: Vec<f64> = rows.iter().map(|_| 1.0).collect();
+            let n = rows.len() as f64;
+            let xm: Vec<f64> = (0..3).map(|j| xr.column(j).sum() / n).collect();
+            let ym = yr.sum() / n;
+            for j in 0..3 {
+                let mut lhs = penalty * a.coefficients()[j];
+                let mut rhs = 0.0;
+                for (k, wi) in w.iter().enumerate() {
+                    let xc: Vec<f64> = (0..3).map(|l| xr[[k, l]] - xm[l]).collect();
+                    let fitted: f64 = (0..3).map(|l| xc[l] * a.coefficients()[l]).sum();
+                    lhs += wi * xc[j] * fitted;
+                    rhs += wi * xc[j] * (yr[k] - ym);
+                }
+                assert_relative_eq!(lhs, rhs, max_relative = 1e-8);
+            }
+        }
+    }
+
+    #[test]
+    fn rank_deficiency_is_an_error_unless_penalised() {
+        let x = array![[1.0, 2.0], [2.0, 4.0], [3.0, 6.0], [4.0, 8.0]];
+        let y = array![1.0, 2.0, 3.0, 5.0];
+        let b = bags(array![[1u8, 1, 1, 1]].view(), 4).unwrap();
+        let pool = Threads::Fixed(1).pool().unwrap();
+        let err = LinearEnsemble::fit(x.view(), y.view(), &b, 0.0, &pool, &Silent).unwrap_err();
+        assert!(err.to_string().contains("rank deficient"), "{err}");
+        let ridge = LinearEnsemble::fit(x.view(), y.view(), &b, 1.0, &pool, &Silent).unwrap();
+        assert!(ridge.coefficients().iter().all(|c| c.is_finite()));
+        // A constant column gets a zero coefficient under a penalty.
+        let xc = array![[1.0, 5.0], [2.0, 5.0], [3.0, 5.0], [4.0, 5.0]];
+        let fit = LinearEnsemble::fit(xc.view(), y.view(), &b, 0.5, &pool, &Silent).unwrap();
+        assert_eq!(fit.coefficients()[1], 0.0);
+        assert!(LinearEnsemble::fit(xc.view(), y.view(), &b, 0.0, &pool, &Silent).is_err());
+        assert!(LinearEnsemble::fit(x.view(), y.view(), &b, -1.0, &pool, &Silent).is_err());
+        let bad_y = array![1.0, f64::NAN, 3.0, 5.0];
+        assert!(LinearEnsemble::fit(x.view(), bad_y.view(), &b, 1.0, &pool, &Silent).is_err());
+    }
+
+    #[test]
+    fn predictions_do_not_depend_on_threads_and_out_of_bag_is_nan_in_bag() {
+        let (x, y) = design(60);
+        let counts = Array2::from_shape_fn((5, 60), |(m, i)| ((i * (m + 3)) % 4 == 0) as u8 * 2);
+        let b = bags(counts.view(), 60).unwrap();
+        let mut results = Vec::new();
+        for t in [1, 2] {
+            let pool = Threads::Fixed(t).pool().unwrap();
+            let fit = LinearEnsemble::fit(x.view(), y.view(), &b, 0.0, &pool, &Silent).unwrap();
+            let mut out = vec![0.0; 5 * 60];
+            fit.member_predictions_into(x.view(), &mut out, &pool)
+                .unwrap();
+            let mut oob = vec![0.0; 5 * 60];
+            fit.out_of_bag_into(x.view(), &b, &mut oob, &pool).unwrap();
+            for m in 0..5 {
+                for i in 0..60 {
+                    let v = oob[m * 60 + i];
+                    if counts[[m, i]] > 0 {
+                        assert!(v.is_nan());
+                    } else {
+                        assert_eq!(v, out[m * 60 + i]);
+                    }
+                }
+            }
+            results.push(out);
+        }
+        assert_eq!(results[0], results[1]);
+    }
+}

@@ -1,0 +1,182 @@
+//! Native learners of bagged ensembles. Every learner fits all members at once from the
+//! training rows and the members × rows in-bag counts (row weights), so no resampled copy
+//! of the design is ever made, and predicts for all members in one parallel call.
+//!
+//! - [`linear`]: weighted least squares / ridge with intercept (regression);
+//! - [`neighbors`]: k nearest neighbours weighted by in-bag multiplicity.
+
+pub mod linear;
+pub mod neighbors;
+
+use ndarray::ArrayView2;
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+
+/// What an ensemble predicts.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Task {
+    /// A real target; members predict one value per point.
+    Regression,
+    /// Class codes `0..n_classes`; members predict class fractions per point.
+    Classification { n_classes: usize },
+}
+
+impl Task {
+    /// Parses the user-facing name; `n_classes` is used for classification only.
+    ///
+    /// # Errors
+    /// `task` for an unknown name, `n_classes` below 1 for classification.
+    pub fn parse(name: &str, n_classes: usize) -> Result<Self> {
+        match name {
+            "regression" => Ok(Task::Regression),
+            "classification" if n_classes >= 1 => Ok(Task::Classification { n_classes }),
+            "classification" => Err(Error::value("n_classes", "must be at least 1")),
+            other => Err(Error::value(
+                "task",
+                format!("expected 'regression' or 'classification', got {other:?}"),
+            )),
+        }
+    }
+
+    /// Values per point in a member's prediction: 1, or the number of classes.
+    pub fn outputs(self) -> usize {
+        match self {
+            Task::Regression => 1,
+            Task::Classification { n_classes } => n_classes,
+        }
+    }
+}
+
+/// A row-weight element: in-bag counts (unsigned integers) or continuous weights (f64).
+pub trait Weight: Copy + Send + Sync + 'static {
+    /// The weight as f64.
+    fn weight(self) -> f64;
+}
+
+macro_rules! impl_weight {
+    ($($t:ty),*) => {$(
+        impl Weight for $t {
+            #[inline]
+            fn weight(self) -> f64 {
+                self as f64
+            }
+        }
+    )*};
+}
+impl_weight!(u8, u16, u32, u64, f64);
+
+/// The in-bag rows of one member: row indices (ascending) and their weights (> 0).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Bag {
+    pub rows: Vec<usize>,
+    pub weights: Vec<f64>,
+}
+
+impl Bag {
+    /// Sum of the weights (the number of draws for counts).
+    pub fn total(&self) -> f64 {
+        self.weights.iter().sum()
+    }
+}
+
+/// Reads members × rows weights into one [`Bag`] per member.
+///
+/// # Errors
+/// `counts` when a weight is negative or not finite, when its shape is not
+/// (members, `n_rows`), or when a member has no row with positive weight.
+pub fn bags<W: Weight>(counts: ArrayView2<'_, W>, n_rows: usize) -> Result<Vec<Bag>> {
+    let (members, rows) = counts.dim();
+    if rows != n_rows {
+        return Err(Error::value(
+            "counts",
+            format!("has {rows} columns but x has {n_rows} rows"),
+        ));
+    }
+    if members == 0 {
+        return Err(Error::value("counts", "needs at least one member (row)"));
+    }
+    counts
+        .outer_iter()
+        .enumerate()
+        .map(|(m, member)| {
+            let mut bag = Bag {
+                rows: Vec::new(),
+                weights: Vec::new(),
+            };
+            for (i, &c) in member.iter().enumerate() {
+                let w = c.weight();
+                if !w.is_finite() || w < 0.0 {
+                    return Err(Error::value(
+                        "counts",
+                        format!("member {m}, row {i}: weights must be finite and >= 0, got {w}"),
+                    ));
+                }
+                if w > 0.0 {
+                    bag.rows.push(i);
+                    bag.weights.push(w);
+                }
+            }
+            if bag.rows.is_empty() {
+                return Err(Error::value(
+                    "counts",
+                    format!("member {m} has no in-bag row (all weights are 0)"),
+                ));
+            }
+            Ok(bag)
+        })
+        .collect()
+}
+
+/// Checks a design: at least one row and column, all values finite.
+///
+/// # Errors
+/// `argument` when empty or when a value is NaN or infinite.
+pub fn check_design<T: crate::numeric::Real>(
+    x: ArrayView2<'_, T>,
+    argument: &'static str,
+) -> Result<()> {
+    let (n, p) = x.dim();
+    if n == 0 || p == 0 {
+        return Err(Error::value(
+            argument,
+            format!("needs at least one row and one column, got shape ({n}, {p})"),
+        ));
+    }
+    if x.iter().any(|v| !v.to_f64().is_finite()) {
+        return Err(Error::value(argument, "contains NaN or infinite values"));
+    }
+    Ok(())
+}
+
+/// Members handled between two monitor calls when fitting: enough to keep every thread
+/// busy, few enough that progress and Ctrl-C are seen often.
+pub(crate) fn member_chunk(threads: usize) -> usize {
+    threads.max(1) * 2
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    #[test]
+    fn bags_keep_positive_weights_in_row_order() {
+        let counts = array![[0u8, 2, 1], [3, 0, 0]];
+        let b = bags(counts.view(), 3).unwrap();
+        assert_eq!(b[0].rows, vec![1, 2]);
+        assert_eq!(b[0].weights, vec![2.0, 1.0]);
+        assert_eq!(b[1].total(), 3.0);
+    }
+
+    #[test]
+    fn bad_bags_are_rejected() {
+        assert!(bags(array![[0u8, 0]].view(), 2).is_err());
+        assert!(bags(array![[1u8, 0]].view(), 3).is_err());
+        assert!(bags(array![[1.0, -1.0]].view(), 2).is_err());
+        assert!(bags(array![[1.0, f64::NAN]].view(), 2).is_err());
+        assert!(Task::parse("classification", 0).is_err());
+        assert!(Task::parse("ranking", 2).is_err());
+        assert_eq!(Task::parse("classification", 3).unwrap().outputs(), 3);
+    }
+}

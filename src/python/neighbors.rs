@@ -1,0 +1,182 @@
+//! Bindings of [`crate::learners::neighbors`].
+
+use numpy::ndarray::Axis;
+use numpy::{IntoPyArray, PyArrayDyn, PyArrayMethods, PyReadonlyArray1, PyReadonlyArrayDyn};
+use pyo3::prelude::*;
+use pyo3::types::PyBytes;
+
+use super::linear::{decode, encode, read_bags, rows_of, view, View};
+use super::{run_core, to_py_err, FloatArray};
+use crate::learners::neighbors::NeighborsEnsemble;
+use crate::learners::Task;
+
+/// A zeroed float64 array from `numpy.zeros` of any shape (allocation failure is numpy's
+/// `MemoryError`).
+fn zeros_nd<'py>(py: Python<'py>, shape: Vec<usize>) -> PyResult<Bound<'py, PyArrayDyn<f64>>> {
+    let numpy = py.import("numpy")?;
+    let array = numpy.call_method1("zeros", (shape, "float64"))?;
+    Ok(array.cast_into::<PyArrayDyn<f64>>()?)
+}
+
+/// Bagged k-nearest-neighbour members (regression or classification).
+#[pyclass(module = "bagwise._core", name = "NeighborsEnsemble", frozen)]
+pub struct PyNeighborsEnsemble {
+    inner: NeighborsEnsemble,
+}
+
+impl PyNeighborsEnsemble {
+    fn shape(&self, n: usize) -> Vec<usize> {
+        match self.inner.task() {
+            Task::Regression => vec![self.inner.members(), n],
+            Task::Classification { n_classes } => vec![self.inner.members(), n, n_classes],
+        }
+    }
+}
+
+#[pymethods]
+impl PyNeighborsEnsemble {
+    #[staticmethod]
+    #[pyo3(signature = (x, y, counts, *, task, n_classes=0, neighbors=5, threads=None, progress=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn fit(
+        py: Python<'_>,
+        x: &Bound<'_, PyAny>,
+        y: PyReadonlyArray1<'_, f64>,
+        counts: &Bound<'_, PyAny>,
+        task: &str,
+        n_classes: usize,
+        neighbors: usize,
+        threads: Option<usize>,
+        progress: Option<Py<PyAny>>,
+    ) -> PyResult<Self> {
+        let task = Task::parse(task, n_classes).map_err(to_py_err)?;
+        let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
+        let bags = read_bags(counts, rows_of(&x))?;
+        let y = y.as_array();
+        let xv = view(&x);
+        let inner = run_core(py, threads, progress, |_, monitor| match xv {
+            View::F32(a) => NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor),
+            View::F64(a) => NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor),
+        })?;
+        Ok(PyNeighborsEnsemble { inner })
+    }
+
+    /// (members, n_points) for regression, (members, n_points, n_classes) for
+    /// classification, float64.
+    #[pyo3(signature = (x, threads=None))]
+    fn member_predictions(
+        &self,
+        py: Python<'_>,
+        x: &Bound<'_, PyAny>,
+        threads: Option<usize>,
+    ) -> PyResult<Py<PyAny>> {
+        let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
+        let xv = view(&x);
+        let array = zeros_nd(py, self.shape(rows_of(&x)))?;
+        // SAFETY: the array was just created here and is not shared with Python yet.
+        let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
+        run_core(py, threads, None, |pool, monitor| match xv {
+            View::F32(a) => self.inner.member_predictions_into(a, out, pool, monitor),
+            View::F64(a) => self.inner.member_predictions_into(a, out, pool, monitor),
+        })?;
+        Ok(array.into_any().unbind())
+    }
+
+    /// The ensemble mean over members: (n_points,) or (n_points, n_classes).
+    #[pyo3(signature = (x, threads=None))]
+    fn predict(
+        &self,
+        py: Python<'_>,
+        x: &Bound<'_, PyAny>,
+        threads: Option<usize>,
+    ) -> PyResult<Py<PyAny>> {
+        let all = self.member_predictions(py, x, threads)?;
+        let all = all.bind(py).extract::<PyReadonlyArrayDyn<'_, f64>>()?;
+        let mean = all
+            .as_array()
+            .mean_axis(Axis(0))
+            .expect("at least one member");
+        Ok(mean.into_pyarray(py).into_any().unbind())
+    }
+
+    /// Shaped as `member_predictions` on the training rows, NaN where the member saw the
+    /// row; only out-of-bag rows are computed.
+    #[pyo3(signature = (x, counts, threads=None))]
+    fn out_of_bag_predictions(
+        &self,
+        py: Python<'_>,
+        x: &Bound<'_, PyAny>,
+        counts: &Bound<'_, PyAny>,
+        threads: Option<usize>,
+    ) -> PyResult<Py<PyAny>> {
+        let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
+        let n = rows_of(&x);
+        let bags = read_bags(counts, n)?;
+        let xv = view(&x);
+        let array = zeros_nd(py, self.shape(n))?;
+        // SAFETY: the array was just created here and is not shared with Python yet.
+        let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
+        run_core(py, threads, None, |pool, monitor| match xv {
+            View::F32(a) => self.inner.out_of_bag_into(a, &bags, out, pool, monitor),
+            View::F64(a) => self.inner.out_of_bag_into(a, &bags, out, pool, monitor),
+        })?;
+        Ok(array.into_any().unbind())
+    }
+
+    #[getter]
+    fn members(&self) -> usize {
+        self.inner.members()
+    }
+
+    #[getter]
+    fn n_features(&self) -> usize {
+        self.inner.n_features()
+    }
+
+    /// Number of classes (0 for regression).
+    #[getter]
+    fn n_classes(&self) -> usize {
+        match self.inner.task() {
+            Task::Regression => 0,
+            Task::Classification { n_classes } => n_classes,
+        }
+    }
+
+    #[getter]
+    fn neighbors(&self) -> usize {
+        self.inner.neighbors()
+    }
+
+    fn to_bytes<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyBytes>> {
+        encode(py, &self.inner)
+    }
+
+    #[staticmethod]
+    fn from_bytes(data: &[u8]) -> PyResult<Self> {
+        let inner: NeighborsEnsemble = decode(data, "neighbours ensemble")?;
+        inner.validate().map_err(to_py_err)?;
+        Ok(PyNeighborsEnsemble { inner })
+    }
+
+    fn __reduce__<'py>(
+        &self,
+        py: Python<'py>,
+    ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let rebuild = py.get_type::<Self>().getattr("from_bytes")?;
+        Ok((rebuild, (self.to_bytes(py)?,)))
+    }
+
+    fn __repr__(&self) -> String {
+        format!(
+            "NeighborsEnsemble(members={}, n_features={}, n_classes={}, neighbors={})",
+            self.inner.members(),
+            self.inner.n_features(),
+            self.n_classes(),
+            self.inner.neighbors()
+        )
+    }
+}
+
+pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add_class::<PyNeighborsEnsemble>()
+}
