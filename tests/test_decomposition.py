@@ -535,6 +535,9 @@ BAD = [
     (bagwise.decompose, (L, _with(LY, 2, -2)), {}, "y", ValueError),
     (bagwise.aggregate, (_with(L, (1, 1), 7),), {"n_classes": 3}, "n_classes", ValueError),
     (bagwise.aggregate, (L,), {"n_classes": 0}, "n_classes", ValueError),
+    (bagwise.aggregate, (_with(L, (0, 0), 10**7),), {}, "n_classes", ValueError),
+    (bagwise.decompose, (_with(L, (0, 0), 10**7), LY), {}, "n_classes", ValueError),
+    (bagwise.size_curve, (_with(L, (0, 0), 10**7), LY), {}, "n_classes", ValueError),
     (bagwise.aggregate, (P,), {"n_classes": 5}, "n_classes", ValueError),
     (bagwise.aggregate, (_with(T, (0, 0), np.nan),), {}, "members", ValueError),
     (bagwise.aggregate, ([["a", "b"]],), {}, "members", TypeError),
@@ -590,6 +593,8 @@ def test_core_errors_name_the_argument():
         core.mean_prediction(np.ones((2, 3), dtype=np.int32))
     with pytest.raises(ValueError, match="`members`"):
         core.majority_vote(np.array([[0, 4]]), 3)
+    with pytest.raises(ValueError, match="`n_classes`"):
+        core.DecompositionAccumulator("error_rate").update(np.array([[0, 10**7]]), np.zeros(2, np.int64))
     with pytest.raises(ValueError, match="`loss`"):
         core.DecompositionAccumulator("hinge")
     acc = core.DecompositionAccumulator("squared")

@@ -47,6 +47,7 @@ __all__ = [
 _LOSS_OF_KIND = {"values": "squared", "probabilities": "brier", "labels": "error_rate"}
 _KIND_OF_LOSS = {loss: kind for kind, loss in _LOSS_OF_KIND.items()}
 _WEIGHT_TOLERANCE = 1e-6
+_MAX_VOTE_CLASSES = 1 << 16  # the core's vote tables hold 2048 points x n_classes totals
 
 
 # -- shared input checks ------------------------------------------------------------------
@@ -128,8 +129,12 @@ def _n_classes(n_classes, labels, y=None):
     if y is not None and y.size:
         top = max(top, int(y.max()))
     if n_classes is None:
-        return top + 1
-    n_classes = positive_int(n_classes, "n_classes")
+        n_classes = top + 1
+    else:
+        n_classes = positive_int(n_classes, "n_classes")
+    if n_classes > _MAX_VOTE_CLASSES:
+        raise ValueError(f"`n_classes`: {n_classes} classes exceed the {_MAX_VOTE_CLASSES} a vote "
+                         "supports; labels must be class indices 0..n_classes-1")
     if top >= n_classes:
         raise ValueError(f"`n_classes`: is {n_classes} but a label {top} occurs")
     return n_classes
