@@ -324,12 +324,7 @@ fn label_of(label: i64, n_classes: usize, argument: &'static str) -> Result<usiz
     usize::try_from(label)
         .ok()
         .filter(|&l| l < n_classes)
-        .ok_or_else(|| {
-            Error::value(
-                argument,
-                format!("label {label} is outside 0..{n_classes} (labels are class indices)"),
-            )
-        })
+        .ok_or_else(|| bad_label(label, n_classes, argument))
 }
 
 /// Fills `target` with the one-hot encoding (n_points × n_classes cells) of the labels.
@@ -669,21 +664,45 @@ fn vote_chunk(
     totals: &mut [f64],
     winner: &mut [usize],
 ) -> Result<()> {
+    let len = points.len();
+    let (totals, winner) = (&mut totals[..len * n_classes], &mut winner[..len]);
     for b in order {
         let w = weights[b];
-        for (j, &label) in members.slice(s![b, points.clone()]).iter().enumerate() {
-            let c = label_of(label, n_classes, "members")?;
+        let row = members.slice(s![b, points.clone()]);
+        let mut vote = |j: usize, label: i64| -> Result<()> {
+            let c = usize::try_from(label)
+                .ok()
+                .filter(|&c| c < n_classes)
+                .ok_or_else(|| bad_label(label, n_classes, "members"))?;
+            let current = winner[j];
             let cell = &mut totals[j * n_classes..(j + 1) * n_classes];
             cell[c] += w;
-            let current = winner[j];
-            if c != current
-                && (cell[c] > cell[current] || (cell[c] == cell[current] && c < current))
-            {
-                winner[j] = c;
-            }
+            let (total, best) = (cell[c], cell[current]);
+            // Branch-free select: votes arrive in random order, so a branch would mispredict.
+            winner[j] = if (total > best) | ((total == best) & (c < current)) {
+                c
+            } else {
+                current
+            };
+            Ok(())
+        };
+        match row.as_slice() {
+            Some(labels) => labels
+                .iter()
+                .enumerate()
+                .try_for_each(|(j, &l)| vote(j, l))?,
+            None => row.iter().enumerate().try_for_each(|(j, &l)| vote(j, l))?,
         }
     }
     Ok(())
+}
+
+#[cold]
+fn bad_label(label: i64, n_classes: usize, argument: &'static str) -> Error {
+    Error::value(
+        argument,
+        format!("label {label} is outside 0..{n_classes} (labels are class indices)"),
+    )
 }
 
 fn check_vote_classes(n_classes: usize) -> Result<()> {
@@ -1647,6 +1666,25 @@ fn is_constant(residual: &Moments, target_rms: f64) -> bool {
     residual.variance(1).sqrt() <= 16.0 * f64::EPSILON * (rms + target_rms)
 }
 
+/// Dot product in eight fixed lanes (vectorisable, and the same order on every run).
+#[inline]
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let mut lanes = [0.0; 8];
+    let (ca, cb) = (a.chunks_exact(8), b.chunks_exact(8));
+    let tail: f64 = ca
+        .remainder()
+        .iter()
+        .zip(cb.remainder())
+        .map(|(p, q)| p * q)
+        .sum();
+    for (x, y) in ca.zip(cb) {
+        for k in 0..8 {
+            lanes[k] += x[k] * y[k];
+        }
+    }
+    lanes.iter().sum::<f64>() + tail
+}
+
 /// Members per tile of the blocked Gram computation.
 const TILE_MEMBERS: usize = 16;
 /// Points per slab of the blocked Gram computation.
@@ -1746,8 +1784,7 @@ pub fn correlation_matrix<T: Real>(
                             let va = &xa[i * TILE_POINTS..i * TILE_POINTS + len];
                             for k in 0..rb.len() {
                                 let vb = &xb[k * TILE_POINTS..k * TILE_POINTS + len];
-                                acc[i * rb.len() + k] +=
-                                    va.iter().zip(vb).map(|(p, q)| p * q).sum::<f64>();
+                                acc[i * rb.len() + k] += dot(va, vb);
                             }
                         }
                         start += TILE_POINTS;
