@@ -17,8 +17,8 @@
 //! ```text
 //! ambiguity decomposition   Krogh & Vedelsby (1995), "Neural network ensembles, cross
 //!                           validation, and active learning", NIPS 7, eq. (5)-(6)
-//! weighted one-pass moments West (1979), "Updating mean and variance estimates: an
-//!                           improved method", Communications of the ACM 22(9)
+//! one-pass shifted sums     Chan, Golub & LeVeque (1983), "Algorithms for computing the
+//!                           sample variance", The American Statistician 37(3)
 //! multi-class Brier score   Brier (1950), Monthly Weather Review 78(1), eq. (1)
 //! sampling without          Cochran (1977), Sampling Techniques, 3rd ed., Theorem 2.2
 //! replacement               (variance of the mean of a simple random sample)
@@ -36,7 +36,7 @@ use crate::random::MemberStreams;
 
 /// Points per chunk: the unit of parallel work and of merging. Fixed, so results do not
 /// depend on the thread count.
-pub const CHUNK_POINTS: usize = 2048;
+pub const CHUNK_POINTS: usize = 4096;
 
 /// Largest allowed |Σ_c p_c − 1| for one member's probabilities at one point, and the
 /// slack allowed below 0 and above 1 for a single probability (f32 softmax outputs over a
@@ -91,20 +91,22 @@ impl Loss {
 /// ```text
 /// raw_b   the given weight (1 for every member when none are given)
 /// total   Σ_b raw_b (M without weights; 1 within tolerance with weights)
-/// step_b  raw_b / Σ_{a ≤ b} raw_a, the West (1979) update factor (0 while the running
-///         total is still 0)
 /// ```
 #[derive(Debug, Clone, PartialEq)]
 pub struct MemberWeights {
     raw: Vec<f64>,
-    step: Vec<f64>,
     total: f64,
+    uniform: bool,
 }
 
 impl MemberWeights {
     /// Equal weights for `members` members.
     pub fn uniform(members: usize) -> Self {
-        Self::build(vec![1.0; members])
+        MemberWeights {
+            raw: vec![1.0; members],
+            total: members as f64,
+            uniform: true,
+        }
     }
 
     /// The given weights (`weights.len()` must equal `members`).
@@ -135,32 +137,21 @@ impl MemberWeights {
                 format!("must sum to 1 (within {WEIGHT_TOLERANCE:e}), got {total}"),
             ));
         }
-        Ok(Self::build(weights.to_vec()))
-    }
-
-    fn build(raw: Vec<f64>) -> Self {
-        let mut running = 0.0;
-        let step = raw
-            .iter()
-            .map(|&w| {
-                running += w;
-                if running > 0.0 {
-                    w / running
-                } else {
-                    0.0
-                }
-            })
-            .collect();
-        MemberWeights {
-            raw,
-            step,
-            total: running,
-        }
+        Ok(MemberWeights {
+            raw: weights.to_vec(),
+            total,
+            uniform: false,
+        })
     }
 
     /// Number of members.
     pub fn members(&self) -> usize {
         self.raw.len()
+    }
+
+    /// Whether these are the equal weights of [`MemberWeights::uniform`].
+    pub fn is_uniform(&self) -> bool {
+        self.uniform
     }
 }
 
@@ -375,26 +366,26 @@ type TargetFill<'a> = dyn Fn(&Range<usize>, &mut Vec<f64>) -> Result<()> + Sync 
 
 // -- the one-pass kernel -----------------------------------------------------------------
 
-/// West's (1979) weighted update of the residual mean and M2 of every cell by one member.
-#[inline(always)]
-fn west_update<'v, T: Real + 'v>(
-    values: impl Iterator<Item = &'v T>,
-    target: &[f64],
-    weight: f64,
-    step: f64,
-    mean: &mut [f64],
-    m2: &mut [f64],
-) {
-    for (((&t, &y), mu), s) in values.zip(target).zip(mean.iter_mut()).zip(m2.iter_mut()) {
-        let r = t.to_f64() - y;
-        let d = r - *mu;
-        *mu += step * d;
-        *s += weight * d * (r - *mu);
-    }
-}
+/// Members whose mean is the shift K of the shifted sums.
+const SHIFT_MEMBERS: usize = 4;
 
-/// Weighted mean and M2 of the residuals `t_b − target` of every cell of one chunk, one
-/// pass over the members (the M2 is Σ_b w_b (r_b − r̄)², not yet divided by the total).
+/// Members updated together by [`shifted_block`].
+const MEMBER_BLOCK: usize = 8;
+
+/// Weighted mean of the residuals and Σ_b w_b (t_b − t̄)² of every cell of one chunk, one
+/// pass over the members (the second is not yet divided by the total weight).
+///
+/// ```text
+/// Shifted sums (the "shifted data" sums discussed by Chan, Golub & LeVeque 1983): with a
+/// constant K per
+/// cell and d_b = t_b − K,
+///   S1 = Σ_b w_b d_b,  S2 = Σ_b w_b d_b²,  W = Σ_b w_b
+///   t̄ = K + S1/W,      Σ_b w_b (t_b − t̄)² = S2 − S1²/W
+/// exactly, for any K. K is the mean of the first (up to four) members, close to t̄, so S2
+/// and S1²/W stay of the size of the spread itself and their difference loses no digits.
+/// Per value this is a subtraction and two multiply-adds, and the target is not read at
+/// all: the residual mean is t̄ − y.
+/// ```
 fn residual_moments<T: Real>(
     members: &ArrayView3<'_, T>,
     points: &Range<usize>,
@@ -404,24 +395,42 @@ fn residual_moments<T: Real>(
     mean: &mut Vec<f64>,
     m2: &mut Vec<f64>,
 ) -> Result<()> {
-    mean.clear();
-    mean.resize(target.len(), 0.0);
-    m2.clear();
-    m2.resize(target.len(), 0.0);
+    let cells = target.len();
     let m = members.len_of(Axis(0));
     let view = |b: usize| members.slice(s![b, points.clone(), ..]);
+    // mean ← the shift K, m2 ← S1; S2 goes to a third buffer, then all are finished.
+    let mut shift = vec![0.0; cells];
+    let first = m.min(SHIFT_MEMBERS);
+    for b in 0..first {
+        let v = view(b);
+        match v.as_slice() {
+            Some(values) => shift
+                .iter_mut()
+                .zip(values)
+                .for_each(|(k, &t)| *k += t.to_f64()),
+            None => shift
+                .iter_mut()
+                .zip(v.iter())
+                .for_each(|(k, &t)| *k += t.to_f64()),
+        }
+    }
+    let inverse_first = 1.0 / first as f64;
+    shift.iter_mut().for_each(|k| *k *= inverse_first);
+    let mut s1 = vec![0.0; cells];
+    let mut s2 = vec![0.0; cells];
+    let uniform = weights.is_uniform();
     let mut b = 0;
     while b < m {
-        // Four contiguous members at a time: each cell's accumulators are loaded once per
-        // four members; the per-cell order of updates (b, b+1, b+2, b+3) is unchanged, so
-        // the numbers are the same as one member at a time.
+        // MEMBER_BLOCK contiguous members at a time: each cell's sums are loaded once per
+        // block; the per-cell order of the additions (b, b+1, ...) is unchanged, so the
+        // numbers are the same as one member at a time.
         if b + MEMBER_BLOCK <= m {
-            let views = [view(b), view(b + 1), view(b + 2), view(b + 3)];
-            if let [Some(r0), Some(r1), Some(r2), Some(r3)] = views.each_ref().map(|v| v.as_slice())
-            {
-                let w = [0, 1, 2, 3].map(|k| weights.raw[b + k]);
-                let c = [0, 1, 2, 3].map(|k| weights.step[b + k]);
-                west_block(&[r0, r1, r2, r3], target, &w, &c, mean, m2);
+            let views: [_; MEMBER_BLOCK] = std::array::from_fn(|k| view(b + k));
+            let slices = views.each_ref().map(|v| v.as_slice());
+            if slices.iter().all(Option::is_some) {
+                let rows = slices.map(|r| r.expect("checked"));
+                let w: [f64; MEMBER_BLOCK] = std::array::from_fn(|k| weights.raw[b + k]);
+                shifted_block(&rows, &shift, &w, uniform, &mut s1, &mut s2);
                 if probabilities {
                     views
                         .iter()
@@ -432,80 +441,102 @@ fn residual_moments<T: Real>(
             }
         }
         let single = view(b);
-        let (w, c) = (weights.raw[b], weights.step[b]);
+        let w = weights.raw[b];
+        let add = |((a, q), (&k, &t)): ((&mut f64, &mut f64), (&f64, &T))| {
+            let d = t.to_f64() - k;
+            let wd = if uniform { d } else { w * d };
+            *a += wd;
+            *q += wd * d;
+        };
+        let sums = s1.iter_mut().zip(s2.iter_mut());
         match single.as_slice() {
-            Some(values) => west_update(values.iter(), target, w, c, mean, m2),
-            None => west_update(single.iter(), target, w, c, mean, m2),
+            Some(values) => sums.zip(shift.iter().zip(values)).for_each(add),
+            None => sums.zip(shift.iter().zip(single.iter())).for_each(add),
         }
         if probabilities {
             check_probabilities(single)?;
         }
         b += 1;
     }
+    let total = weights.total;
+    mean.clear();
+    m2.clear();
+    for (((&k, &a), &q), &y) in shift.iter().zip(&s1).zip(&s2).zip(target) {
+        let centre = a / total;
+        mean.push(k - y + centre);
+        // Clamp rounding below zero; `f64::max` would also turn a NaN into 0, so compare.
+        let spread = q - a * centre;
+        m2.push(if spread < 0.0 { 0.0 } else { spread });
+    }
     Ok(())
 }
 
-/// Members updated together by [`west_block`].
-const MEMBER_BLOCK: usize = 4;
-
-/// [`west_update`] for four contiguous members at once, compiled for AVX2 when the CPU has
-/// it (chosen at run time). No fused multiply-add is enabled, so both versions round
-/// exactly alike and results do not depend on the machine.
-fn west_block<T: Real>(
+/// Adds [`MEMBER_BLOCK`] contiguous members to the shifted sums; compiled for AVX2 when the CPU has it
+/// (chosen at run time). No fused multiply-add is enabled, so every version rounds exactly
+/// alike and results do not depend on the machine.
+fn shifted_block<T: Real>(
     rows: &[&[T]; MEMBER_BLOCK],
-    target: &[f64],
+    shift: &[f64],
     weight: &[f64; MEMBER_BLOCK],
-    step: &[f64; MEMBER_BLOCK],
-    mean: &mut [f64],
-    m2: &mut [f64],
+    uniform: bool,
+    s1: &mut [f64],
+    s2: &mut [f64],
 ) {
     #[cfg(target_arch = "x86_64")]
     {
         if std::arch::is_x86_feature_detected!("avx2") {
             // SAFETY: the CPU supports AVX2 (checked just above).
-            unsafe { west_block_avx2(rows, target, weight, step, mean, m2) };
+            unsafe {
+                if uniform {
+                    shifted_block_avx2::<T, false>(rows, shift, weight, s1, s2);
+                } else {
+                    shifted_block_avx2::<T, true>(rows, shift, weight, s1, s2);
+                }
+            }
             return;
         }
     }
-    west_block_portable(rows, target, weight, step, mean, m2);
+    if uniform {
+        shifted_block_portable::<T, false>(rows, shift, weight, s1, s2);
+    } else {
+        shifted_block_portable::<T, true>(rows, shift, weight, s1, s2);
+    }
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-fn west_block_avx2<T: Real>(
+fn shifted_block_avx2<T: Real, const WEIGHTED: bool>(
     rows: &[&[T]; MEMBER_BLOCK],
-    target: &[f64],
+    shift: &[f64],
     weight: &[f64; MEMBER_BLOCK],
-    step: &[f64; MEMBER_BLOCK],
-    mean: &mut [f64],
-    m2: &mut [f64],
+    s1: &mut [f64],
+    s2: &mut [f64],
 ) {
-    west_block_portable(rows, target, weight, step, mean, m2);
+    shifted_block_portable::<T, WEIGHTED>(rows, shift, weight, s1, s2);
 }
 
 #[inline(always)]
-fn west_block_portable<T: Real>(
+fn shifted_block_portable<T: Real, const WEIGHTED: bool>(
     rows: &[&[T]; MEMBER_BLOCK],
-    target: &[f64],
+    shift: &[f64],
     weight: &[f64; MEMBER_BLOCK],
-    step: &[f64; MEMBER_BLOCK],
-    mean: &mut [f64],
-    m2: &mut [f64],
+    s1: &mut [f64],
+    s2: &mut [f64],
 ) {
-    let n = target.len();
-    let (mean, m2) = (&mut mean[..n], &mut m2[..n]);
-    let [r0, r1, r2, r3] = rows.map(|r| &r[..n]);
+    let n = shift.len();
+    let (s1, s2) = (&mut s1[..n], &mut s2[..n]);
+    let rows = rows.map(|r| &r[..n]);
     for j in 0..n {
-        let y = target[j];
-        let (mut mu, mut s) = (mean[j], m2[j]);
-        for (k, t) in [r0[j], r1[j], r2[j], r3[j]].into_iter().enumerate() {
-            let r = t.to_f64() - y;
-            let d = r - mu;
-            mu += step[k] * d;
-            s += weight[k] * d * (r - mu);
+        let k = shift[j];
+        let (mut a, mut q) = (s1[j], s2[j]);
+        for (i, row) in rows.iter().enumerate() {
+            let d = row[j].to_f64() - k;
+            let wd = if WEIGHTED { weight[i] * d } else { d };
+            a += wd;
+            q += wd * d;
         }
-        mean[j] = mu;
-        m2[j] = s;
+        s1[j] = a;
+        s2[j] = q;
     }
 }
 
@@ -577,9 +608,9 @@ fn decompose_cells<T: Real>(
 ///   (f − y)²  =  Σ_b w_b (t_b − y)²  −  Σ_b w_b (t_b − f)²
 ///   ensemble  =  mean member loss     −  ambiguity
 /// exactly (expand (t_b − y) = (t_b − f) + (f − y); the cross term Σ_b w_b (t_b − f) is 0).
-/// Computed in one pass over the members per point: West's (1979) weighted running mean
-/// r̄ and M2 = Σ_b w_b (r_b − r̄)² of the residuals r_b = t_b − y give
-///   ensemble = r̄²,  ambiguity = M2 / Σ_b w_b,  member loss = ensemble + ambiguity,
+/// Computed in one pass over the members per point: shifted sums (see `residual_moments`)
+/// give the weighted mean t̄ = f and M2 = Σ_b w_b (t_b − f)², and then
+///   ensemble = (f − y)²,  ambiguity = M2 / Σ_b w_b,  member loss = ensemble + ambiguity,
 /// so the identity holds to rounding and the ambiguity suffers no cancellation.
 /// ```
 ///
@@ -1888,7 +1919,7 @@ mod tests {
 
     #[test]
     fn identity_and_chunking_on_many_points() {
-        let (m, n) = (7, 3 * CHUNK_POINTS + 17);
+        let (m, n) = (11, 3 * CHUNK_POINTS + 17);
         let members = Array2::from_shape_vec((m, n), values(m * n, 1)).unwrap();
         let y = Array1::from(values(n, 2));
         let (sums, [e, mm, g]) = decompose(&members, &y, &MemberWeights::uniform(m));
@@ -1922,6 +1953,22 @@ mod tests {
         let w = MemberWeights::uniform(m);
         let par = decompose_values(members.view(), y.view(), &w, out, &two, &Silent).unwrap();
         assert_eq!(par, sums);
+    }
+
+    #[test]
+    fn large_offsets_lose_no_digits() {
+        // Predictions 1e6 + 1e-3·u: a naive Σt² − (Σt)²/M would lose about 18 digits; the
+        // shifted sums keep the two-pass value (common practice: compare with two passes).
+        let (m, n) = (13, 50);
+        let u = values(m * n, 8);
+        let members = Array2::from_shape_fn((m, n), |(b, j)| 1e6 + 1e-3 * u[b * n + j]);
+        let y = Array1::from_elem(n, 1e6);
+        let (_, [_, _, g]) = decompose(&members, &y, &MemberWeights::uniform(m));
+        for (col, &got) in members.columns().into_iter().zip(&g) {
+            let f = col.sum() / m as f64;
+            let two_pass = col.iter().map(|t| (t - f) * (t - f)).sum::<f64>() / m as f64;
+            assert_relative_eq!(got, two_pass, max_relative = 1e-9);
+        }
     }
 
     #[test]
