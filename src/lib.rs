@@ -14,6 +14,7 @@
 //! The pyo3 bindings live in the `python` module behind the `python` cargo feature, which
 //! maturin turns on; `cargo test` builds and tests the core without linking Python.
 
+pub mod decomposition;
 pub mod error;
 pub mod learners;
 pub mod numeric;

@@ -1,17 +1,23 @@
 from collections.abc import Callable
-from typing import final
+from typing import Any, final
 
 import numpy as np
 import numpy.typing as npt
 
 __all__ = [
-    "CountGram",
-    "LinearEnsemble",
-    "NeighborsEnsemble",
-    "Resampler",
     "__version__",
+    "correlation_matrix",
+    "CountGram",
     "crc32",
+    "DecompositionAccumulator",
+    "LinearEnsemble",
+    "majority_vote",
+    "mean_prediction",
+    "NeighborsEnsemble",
     "pack_container",
+    "Resampler",
+    "residual_correlation",
+    "SizeCurveAccumulator",
     "unpack_container",
 ]
 __version__: str
@@ -169,3 +175,58 @@ class CountGram:
     def to_bytes(self) -> bytes: ...
     @staticmethod
     def from_bytes(data: bytes) -> CountGram: ...
+# -- decomposition -------------------------------------------------------------------------
+
+def mean_prediction(
+    members: npt.NDArray[np.floating],
+    weights: npt.NDArray[np.float64] | None = None,
+    threads: int | None = None,
+) -> npt.NDArray[np.float64]: ...
+def majority_vote(
+    members: npt.NDArray[np.int64],
+    n_classes: int,
+    weights: npt.NDArray[np.float64] | None = None,
+    threads: int | None = None,
+) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]: ...
+def residual_correlation(
+    members: npt.NDArray[np.floating],
+    y: npt.NDArray[np.float64],
+    threads: int | None = None,
+) -> dict[str, Any]: ...
+def correlation_matrix(
+    members: npt.NDArray[np.floating],
+    y: npt.NDArray[np.float64],
+    threads: int | None = None,
+) -> npt.NDArray[np.float64]: ...
+@final
+class DecompositionAccumulator:
+    def __new__(
+        cls, loss: str, weights: npt.NDArray[np.float64] | None = None
+    ) -> DecompositionAccumulator: ...
+    def update(
+        self,
+        members: npt.NDArray[Any],
+        y: npt.NDArray[Any],
+        n_classes: int | None = None,
+        threads: int | None = None,
+    ) -> tuple[
+        npt.NDArray[np.float64], npt.NDArray[np.float64], npt.NDArray[np.float64]
+    ]: ...
+    @property
+    def members(self) -> int | None: ...
+    def moments(self) -> dict[str, Any]: ...
+
+@final
+class SizeCurveAccumulator:
+    def __new__(
+        cls, loss: str, members: int, sizes: list[int], orders: int, seed: int
+    ) -> SizeCurveAccumulator: ...
+    def orders(self) -> npt.NDArray[np.int64]: ...
+    def update(
+        self,
+        members: npt.NDArray[Any],
+        y: npt.NDArray[Any],
+        n_classes: int | None = None,
+        threads: int | None = None,
+    ) -> None: ...
+    def finish(self) -> dict[str, Any]: ...

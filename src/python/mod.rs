@@ -14,6 +14,7 @@ use pyo3::prelude::*;
 use crate::error::Error;
 use crate::parallel::{Monitor, Pool, Threads};
 
+mod decomposition;
 mod linear;
 mod neighbors;
 mod persistence;
@@ -137,6 +138,7 @@ pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
 #[pymodule]
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    decomposition::register(m)?;
     resampling::register(m)?;
     uncertainty::register(m)?;
     linear::register(m)?;
