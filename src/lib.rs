@@ -13,8 +13,10 @@
 
 pub mod error;
 pub mod numeric;
+pub mod out_of_bag;
 pub mod parallel;
 pub mod random;
+pub mod replicates;
 pub mod resampling;
 
 #[cfg(feature = "python")]
