@@ -160,40 +160,56 @@ const GROUP: usize = 4;
 fn add_group<C: CountValue, T: Real, const K: usize>(
     counts: [&[C]; K],
     values: [&[T]; K],
-    acc: &mut [[f64; 2]],
+    acc: Acc<'_>,
 ) -> bool {
-    let len = acc.len();
-    if counts.iter().any(|c| c.len() != len) || values.iter().any(|v| v.len() != len) {
+    let len = acc.sums.len();
+    if acc.n.len() != len
+        || counts.iter().any(|c| c.len() != len)
+        || values.iter().any(|v| v.len() != len)
+    {
         return true; // unreachable by construction; reported as bad counts, never a panic
     }
     let mut negative = false;
-    for (j, a) in acc.iter_mut().enumerate() {
-        let [mut sum, mut n] = *a;
+    for (j, (sum, n)) in acc.sums.iter_mut().zip(acc.n.iter_mut()).enumerate() {
+        let (mut s, mut m) = (*sum, *n);
         for k in 0..K {
             let c = counts[k][j];
             negative |= c.is_negative();
             let z = if c.is_zero() { 1.0 } else { 0.0 };
-            sum += values[k][j].to_f64() * z;
-            n += z;
+            s += values[k][j].to_f64() * z;
+            m += z;
         }
-        *a = [sum, n];
+        *sum = s;
+        *n = m;
     }
     negative
+}
+
+/// Running per-point OOB sums and OOB member counts of a block (counts as f64: exact).
+pub struct Acc<'a> {
+    pub sums: &'a mut [f64],
+    pub n: &'a mut [f64],
 }
 
 /// One member row at a time with any strides.
 fn add_strided<C: CountValue, T: Real>(
     counts: ArrayView2<'_, C>,
     values: ArrayView2<'_, T>,
-    acc: &mut [[f64; 2]],
+    acc: Acc<'_>,
 ) -> bool {
     let mut negative = false;
     for (c, v) in counts.outer_iter().zip(values.outer_iter()) {
-        for ((a, &c), &v) in acc.iter_mut().zip(c.iter()).zip(v.iter()) {
+        for (((sum, n), &c), &v) in acc
+            .sums
+            .iter_mut()
+            .zip(acc.n.iter_mut())
+            .zip(c.iter())
+            .zip(v.iter())
+        {
             negative |= c.is_negative();
             let z = if c.is_zero() { 1.0 } else { 0.0 };
-            a[0] += v.to_f64() * z;
-            a[1] += z;
+            *sum += v.to_f64() * z;
+            *n += z;
         }
     }
     negative
@@ -202,7 +218,7 @@ fn add_strided<C: CountValue, T: Real>(
 fn add_rows<C: CountValue, T: Real>(
     counts: ArrayView2<'_, C>,
     values: ArrayView2<'_, T>,
-    acc: &mut [[f64; 2]],
+    acc: Acc<'_>,
 ) -> bool {
     let rows = |k: usize| (counts.row(k).to_slice(), values.row(k).to_slice());
     match counts.nrows() {
@@ -250,7 +266,7 @@ pub trait InBagCounts: Sync {
         first: usize,
         start: usize,
         values: ValueRows<'_>,
-        acc: &mut [[f64; 2]],
+        acc: Acc<'_>,
     ) -> Result<()>;
 }
 
@@ -289,13 +305,13 @@ impl<C: CountValue> InBagCounts for ArrayView2<'_, C> {
         first: usize,
         start: usize,
         values: ValueRows<'_>,
-        acc: &mut [[f64; 2]],
+        acc: Acc<'_>,
     ) -> Result<()> {
         let k = match &values {
             ValueRows::F32(v) => v.nrows(),
             ValueRows::F64(v) => v.nrows(),
         };
-        let rows = self.slice(s![first..first + k, start..start + acc.len()]);
+        let rows = self.slice(s![first..first + k, start..start + acc.sums.len()]);
         let negative = match values {
             ValueRows::F32(v) => add_rows(rows, v, acc),
             ValueRows::F64(v) => add_rows(rows, v, acc),
@@ -924,7 +940,8 @@ impl Block<'_> {
         let (m, _) = members.dim();
         if task == Task::Regression {
             // (sum, count) side by side: one fused pass over counts and predictions.
-            let mut acc = vec![[0.0; 2]; padded];
+            let mut sums = vec![0.0; padded];
+            let mut n_oob = vec![0.0; padded];
             let mut member = 0;
             while member < m {
                 // Groups of up to GROUP members that never step over a curve size.
@@ -938,19 +955,23 @@ impl Block<'_> {
                 let values = members.value_rows(group, self.start, rows).ok_or_else(|| {
                     Error::value("members", "regression members must give value rows")
                 })?;
-                counts.accumulate_values(member, self.start, values, &mut acc[..rows])?;
+                let acc = Acc {
+                    sums: &mut sums[..rows],
+                    n: &mut n_oob[..rows],
+                };
+                counts.accumulate_values(member, self.start, values, acc)?;
                 member += k;
                 if next < sizes.len() && sizes[next] == member {
-                    curve.push(evaluate_regression(&acc, &targets, &point_weights));
+                    curve.push(evaluate_regression(&sums, &n_oob, &targets, &point_weights));
                     next += 1;
                 }
             }
-            if acc.iter().any(|a| !a[0].is_finite()) {
+            if sums.iter().any(|v| !v.is_finite()) {
                 return Err(members.find_bad_value(self.start, rows));
             }
-            for (j, a) in acc[..rows].iter().enumerate() {
-                self.n_oob[j] = a[1] as i64;
-                self.prediction[j] = if a[1] == 0.0 { f64::NAN } else { a[0] / a[1] };
+            for (j, (&sum, &n)) in sums[..rows].iter().zip(&n_oob).enumerate() {
+                self.n_oob[j] = n as i64;
+                self.prediction[j] = if n == 0.0 { f64::NAN } else { sum / n };
             }
             return Ok(curve);
         }
@@ -1046,24 +1067,25 @@ const SUB_BLOCK: usize = 64;
 
 /// The regression error sums of one block of points from its (sum, count) pairs (padded to
 /// whole lanes; padding has no OOB member and weight 0).
-fn evaluate_regression(acc: &[[f64; 2]], y: &[f64], w: &[f64]) -> ErrorSums {
+fn evaluate_regression(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums {
     let mut e = ErrorSums::default();
-    for ((a, y), w) in acc
+    for (((s, n), y), w) in sums
         .chunks(SUB_BLOCK)
+        .zip(n_oob.chunks(SUB_BLOCK))
         .zip(y.chunks(SUB_BLOCK))
         .zip(w.chunks(SUB_BLOCK))
     {
         let mut lanes = [[0.0f64; LANES]; 4];
-        for ((a, y), w) in a
+        for (((s, n), y), w) in s
             .chunks_exact(LANES)
+            .zip(n.chunks_exact(LANES))
             .zip(y.chunks_exact(LANES))
             .zip(w.chunks_exact(LANES))
         {
             for l in 0..LANES {
-                let [sum, n] = a[l];
-                let covered = n > 0.0;
+                let covered = n[l] > 0.0;
                 let weight = if covered { w[l] } else { 0.0 };
-                let d = sum / n.max(1.0) - y[l];
+                let d = s[l] / n[l].max(1.0) - y[l];
                 lanes[0][l] += if covered { 1.0 } else { 0.0 };
                 lanes[1][l] += weight;
                 lanes[2][l] += weight * d * d;

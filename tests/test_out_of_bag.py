@@ -115,6 +115,13 @@ def test_weights_enter_every_mean():
         sklearn.metrics.mean_squared_error(y, oob.prediction, sample_weight=w), rel=1e-12)
 
 
+def test_zero_weights_give_nan_with_a_warning():
+    members, counts, y = regression_data(n=100, m=20, seed=22)
+    with pytest.warns(RuntimeWarning, match="`weights`: .* sum to zero"):
+        oob = bagwise.out_of_bag(members, counts, y, weights=np.zeros(100))
+    assert np.isnan(oob.error) and np.isfinite(oob.prediction).all()
+
+
 def test_probabilities_match_numpy_and_sklearn_metrics():
     probs, counts, y = probability_data()
     oob = bagwise.out_of_bag(probs, counts, y)
@@ -161,7 +168,7 @@ def test_labels_match_numpy_reference_including_log_loss_floor():
     members = np.where(rng.random((m, n)) < 0.6, y, rng.integers(0, 3, size=(m, n))).astype(np.int16)
     counts = bagwise.resample(n, m, seed=5).counts
     oob = bagwise.out_of_bag(members, counts, y, metric="log_loss")
-    ref = reference(members, counts, y, "labels")
+    ref = reference(members, counts, y, "labels")   # straightforward numpy (reference above)
     np.testing.assert_allclose(oob.probabilities, ref["probabilities"], rtol=1e-15)
     np.testing.assert_array_equal(oob.prediction, ref["prediction"])
     for name in ("error_rate", "brier_score", "log_loss"):
@@ -175,7 +182,7 @@ def test_curve_matches_reference_over_the_first_k_members():
     oob = bagwise.out_of_bag(members, counts, y, curve_sizes=[1, 3, 10, 30])
     assert oob.curve_sizes.tolist() == [1, 3, 10, 30, 60]   # the full ensemble is appended
     for k, err, covered in zip(oob.curve_sizes, oob.curve_error, oob.curve_covered):
-        ref = reference(members, counts, y, "regression", k=k)
+        ref = reference(members, counts, y, "regression", k=k)   # numpy on members[:k]
         assert covered == ref["covered"]
         assert err == pytest.approx(ref["squared_error"], rel=1e-12)
     assert oob.curve("absolute_error")[-1] == oob.absolute_error
@@ -188,7 +195,7 @@ def test_curve_matches_reference_over_the_first_k_members():
 def test_classification_curve_matches_reference():
     probs, counts, y = probability_data(n=400, m=20, seed=7)
     oob = bagwise.out_of_bag(probs, counts, y, metric="brier_score")
-    for k, err in zip(oob.curve_sizes, oob.curve_error):
+    for k, err in zip(oob.curve_sizes, oob.curve_error):   # numpy reference on members[:k]
         assert err == pytest.approx(reference(probs, counts, y, "probabilities", k=k)["brier_score"],
                                     rel=1e-12)
 

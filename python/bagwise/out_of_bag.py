@@ -3,6 +3,7 @@ their `OutOfBag` result."""
 
 from __future__ import annotations
 
+import math
 import warnings
 
 import numpy as np
@@ -163,7 +164,8 @@ def out_of_bag(members, counts, y, *, metric=None, weights=None, threads=None,
     -----
     Errors are weighted means over the points that have at least one out-of-bag member;
     points without one get a NaN prediction, are left out of the errors, are counted in
-    ``n_without_out_of_bag`` and raise a ``RuntimeWarning``. The Brier score is the
+    ``n_without_out_of_bag`` and raise a ``RuntimeWarning`` (as do weights that sum to zero
+    over the covered points, which make every error NaN). The Brier score is the
     multi-class form ``sum_c (p_c - [y = c])**2`` (twice scikit-learn's binary
     ``brier_score_loss``); the log loss uses ``-log(max(p_y, 1e-15))``.
 
@@ -355,6 +357,13 @@ class OutOfBag:
             warnings.warn(
                 f"{missing} of {state.points} points have no out-of-bag member: their "
                 "prediction is NaN and they are left out of the errors (use more members)",
+                RuntimeWarning, stacklevel=3,
+            )
+        covered = int(curve["covered"][-1])
+        if covered and math.isnan(errors[metric]):
+            warnings.warn(
+                f"`weights`: the weights of the {covered} covered points sum to zero, so every "
+                "error is NaN",
                 RuntimeWarning, stacklevel=3,
             )
         return cls(task=state.task, kind=kind, members=state.members, n_points=int(state.points),
