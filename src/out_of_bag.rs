@@ -1083,10 +1083,11 @@ fn evaluate_regression(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> Err
             .zip(w.chunks_exact(LANES))
         {
             for l in 0..LANES {
-                let covered = n[l] > 0.0;
-                let weight = if covered { w[l] } else { 0.0 };
-                let d = s[l] / n[l].max(1.0) - y[l];
-                lanes[0][l] += if covered { 1.0 } else { 0.0 };
+                // Branch-free: `covered` is 1.0 or 0.0, and uncovered points divide by 1.
+                let covered = if n[l] > 0.0 { 1.0 } else { 0.0 };
+                let weight = w[l] * covered;
+                let d = s[l] / (n[l] + (1.0 - covered)) - y[l];
+                lanes[0][l] += covered;
                 lanes[1][l] += weight;
                 lanes[2][l] += weight * d * d;
                 lanes[3][l] += weight * d.abs();

@@ -306,6 +306,11 @@ def test_results_do_not_depend_on_threads():
         np.testing.assert_array_equal(other.prediction, one.prediction)
         np.testing.assert_array_equal(other.curve_error, one.curve_error)
         assert other.error == one.error
+    probs, counts, y = probability_data(n=20_000, m=8, c=3, seed=12)
+    one = bagwise.out_of_bag(probs, counts, y, threads=1)
+    two = bagwise.out_of_bag(probs, counts, y, threads=2)
+    np.testing.assert_array_equal(two.probabilities, one.probabilities)
+    assert (two.brier_score, two.log_loss) == (one.brier_score, one.log_loss)
 
 
 def test_strided_and_fortran_inputs():
