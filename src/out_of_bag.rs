@@ -25,11 +25,13 @@
 //!   log loss       Σ w_i · −ln(max(p̂_{i,y_i}, 1e-15)) / Σ w_i   (p clipped below at 1e-15)
 //! ```
 //!
-//! The members are read once, member by member over blocks of points, keeping running
-//! per-point sums; the error curve over the first k members is evaluated whenever k reaches
-//! a grid size. Blocks of points are independent, and their error sums are compensated
-//! (Neumaier 1974) and merged in point order, so results do not depend on the thread count
-//! and a [`OutOfBagPartial`] computed chunk by chunk merges to the in-memory result.
+//! The members are read once, over blocks of points (a few members per pass for
+//! regression), keeping running per-point sums and OOB counts; the error curve over the
+//! first k members is evaluated whenever k reaches a curve size. Blocks of points are
+//! independent; within a block the error terms are added in plain lane-wise sums of 64
+//! points, which are then added to compensated totals (Neumaier 1974) merged in point
+//! order. So results do not depend on the thread count, and [`OutOfBagPartial`]s computed
+//! chunk by chunk merge to the in-memory result up to ~1e-15 relative.
 
 use ndarray::{s, ArrayView1, ArrayView2, ArrayView3};
 use rayon::prelude::*;
