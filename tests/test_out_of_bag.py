@@ -330,6 +330,33 @@ def test_strided_and_fortran_inputs():
     np.testing.assert_array_equal(a.probabilities, b.probabilities)
 
 
+def test_non_native_byte_order_is_accepted():
+    members, counts, y = regression_data(n=300, m=20, seed=23)
+    big = bagwise.out_of_bag(members.astype(">f8"), counts.astype(">u2"), y.astype(">f8"))
+    assert big.error == bagwise.out_of_bag(members, counts, y).error
+
+
+def test_stream_warns_at_finish_for_points_without_out_of_bag_member():
+    members, counts, y = regression_data(n=100, m=20, seed=24)
+    counts = counts.copy()
+    counts[:, 70] = 3
+    stream = bagwise.out_of_bag_stream()
+    stream.update(members[:, :50], counts[:, :50], y[:50])
+    stream.update(members[:, 50:], counts[:, 50:], y[50:])
+    with pytest.warns(RuntimeWarning, match="1 of 100 points"):
+        result = stream.finish()
+    assert np.isnan(result.prediction[70]) and result.n_without_out_of_bag == 1
+
+
+def test_curve_rejects_a_metric_of_the_other_task():
+    members, counts, y = regression_data(n=100, m=20, seed=25)
+    oob = bagwise.out_of_bag(members, counts, y)
+    with pytest.raises(ValueError, match="`metric`"):
+        oob.curve("log_loss")
+    with pytest.raises(ValueError, match="`metric`"):
+        oob.curve("covered")
+
+
 def test_accepts_a_resample_result_as_counts():
     members, _, y = regression_data(n=300, m=30, seed=15)
     draw = bagwise.resample(300, 30, seed=15)

@@ -142,6 +142,8 @@ def test_threads_and_float32():
     c = bagwise.replicate_spread(t32, y)
     d = bagwise.replicate_spread(t32.astype(np.float64), y)   # same values, widened by us
     assert c.between == d.between and c.within == d.within
+    big = bagwise.replicate_spread(t.astype(">f8"), y)
+    assert big.between == a.between
     strided = bagwise.replicate_spread(t[:, :, ::3])
     copy = bagwise.replicate_spread(np.ascontiguousarray(t[:, :, ::3]))
     np.testing.assert_array_equal(strided.within_per_point, copy.within_per_point)

@@ -21,13 +21,16 @@ PROBABILITY_TOLERANCE = 1e-6
 
 
 def _array(value, name):
-    """``value`` as an ndarray without copying numpy inputs (memory maps stay mapped)."""
-    if isinstance(value, np.ndarray):
-        return value
-    try:
-        return np.asarray(value)
-    except (TypeError, ValueError) as err:
-        raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
+    """``value`` as an ndarray without copying numpy inputs (memory maps stay mapped);
+    only non-native byte order (e.g. big-endian data from a file) is converted."""
+    if not isinstance(value, np.ndarray):
+        try:
+            value = np.asarray(value)
+        except (TypeError, ValueError) as err:
+            raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
+    if not value.dtype.isnative:
+        value = value.astype(value.dtype.newbyteorder("="))
+    return value
 
 
 def _members_kind(members):

@@ -19,6 +19,8 @@ __all__ = ["ReplicateSpread", "replicate_spread"]
 def _replicate_spread_iv(members, y, threads):
     if not isinstance(members, np.ndarray):
         members = np.asarray(members)
+    if not members.dtype.isnative:   # e.g. big-endian data from a file: one converted copy
+        members = members.astype(members.dtype.newbyteorder("="))
     if members.dtype not in (np.float32, np.float64):
         raise TypeError(f"`members`: expected float32 or float64 predictions, got dtype {members.dtype}")
     if members.ndim != 3:
