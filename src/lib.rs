@@ -18,9 +18,11 @@ pub mod decomposition;
 pub mod error;
 pub mod learners;
 pub mod numeric;
+pub mod out_of_bag;
 pub mod parallel;
 pub mod persistence;
 pub mod random;
+pub mod replicates;
 pub mod resampling;
 pub mod uncertainty;
 

@@ -16,7 +16,9 @@ from .decomposition import (
     vote_fractions,
 )
 from .ensemble import ClassificationBag, RegressionBag
+from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
+from .replicates import ReplicateSpread, replicate_spread
 from .resampling import Resample, resample
 from .uncertainty import (
     CountGram,
@@ -40,9 +42,15 @@ __all__ = [
     "Decomposition",
     "DecompositionStream",
     "load",
+    "out_of_bag",
+    "out_of_bag_stream",
+    "OutOfBag",
+    "OutOfBagStream",
     "prediction_variance",
     "PredictionVariance",
     "RegressionBag",
+    "replicate_spread",
+    "ReplicateSpread",
     "Resample",
     "resample",
     "save",

@@ -10,11 +10,15 @@ __all__ = [
     "CountGram",
     "crc32",
     "DecompositionAccumulator",
+    "default_sizes",
     "LinearEnsemble",
     "majority_vote",
     "mean_prediction",
     "NeighborsEnsemble",
+    "out_of_bag_chunk",
+    "OutOfBagState",
     "pack_container",
+    "replicate_spread_arrays",
     "Resampler",
     "residual_correlation",
     "SizeCurveAccumulator",
@@ -230,3 +234,42 @@ class SizeCurveAccumulator:
         threads: int | None = None,
     ) -> None: ...
     def finish(self) -> dict[str, Any]: ...
+# -- out of bag ---------------------------------------------------------------------------
+
+@final
+class OutOfBagState:
+    def merge(self, other: OutOfBagState) -> OutOfBagState: ...
+    @property
+    def task(self) -> str: ...
+    @property
+    def members(self) -> int: ...
+    @property
+    def points(self) -> int: ...
+    @property
+    def sizes(self) -> list[int]: ...
+    @property
+    def without_out_of_bag(self) -> int: ...
+    def curve(self) -> dict[str, list[float] | list[int]]: ...
+
+def out_of_bag_chunk(
+    members: npt.NDArray[np.floating] | npt.NDArray[np.integer],
+    counts: npt.NDArray[np.integer],
+    y: npt.NDArray[np.float64],
+    weights: npt.NDArray[np.float64] | None,
+    sizes: list[int],
+    kind: str,
+    n_classes: int | None = None,
+    threads: int | None = None,
+) -> tuple[
+    OutOfBagState,
+    tuple[npt.NDArray[np.float64], npt.NDArray[np.int64], npt.NDArray[np.float64] | None],
+]: ...
+def default_sizes(members: int) -> list[int]: ...
+
+# -- replicates ---------------------------------------------------------------------------
+
+def replicate_spread_arrays(
+    members: npt.NDArray[np.floating],
+    y: npt.NDArray[np.float64] | None = None,
+    threads: int | None = None,
+) -> tuple[dict[str, npt.NDArray[np.float64]], dict[str, float]]: ...

@@ -17,7 +17,9 @@ use crate::parallel::{Monitor, Pool, Threads};
 mod decomposition;
 mod linear;
 mod neighbors;
+mod out_of_bag;
 mod persistence;
+mod replicates;
 mod resampling;
 mod uncertainty;
 
@@ -144,5 +146,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     linear::register(m)?;
     neighbors::register(m)?;
     persistence::register(m)?;
+    out_of_bag::register(m)?;
+    replicates::register(m)?;
     Ok(())
 }

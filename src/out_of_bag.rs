@@ -1,0 +1,1646 @@
+//! Out-of-bag predictions, errors and error curves (Breiman 1996).
+//!
+//! A training point is *out of bag* (OOB) for a member when that member's in-bag count of
+//! the point is zero. Aggregating, for every point, only the members that never saw it
+//! gives a prediction that behaves like one on held-out data, and its error estimates the
+//! ensemble's test error without a hold-out set:
+//!
+//! ```text
+//! Breiman (1996), "Out-of-bag estimation", technical report, UC Berkeley.
+//!   O_i(k)  = { m < k : count[m, i] = 0 }                 OOB members among the first k
+//!   f̂_i(k)  = (1/|O_i(k)|) Σ_{m ∈ O_i(k)} t_{m,i}          regression: mean prediction
+//!   p̂_ic(k) = (1/|O_i(k)|) Σ_{m ∈ O_i(k)} p_{m,i,c}        classes: mean probability, or
+//!                                                          the vote fraction for labels
+//!                                                          (p_{m,i,c} = 1[label_{m,i} = c])
+//!   class_i = argmax_c p̂_ic, ties to the lowest class index
+//! ```
+//!
+//! Errors are weighted means over the points with |O_i(k)| > 0 (weights w_i ≥ 0, default 1);
+//! points without an OOB member are left out and counted:
+//!
+//! ```text
+//!   squared error  Σ w_i (f̂_i − y_i)² / Σ w_i          absolute error  Σ w_i |f̂_i − y_i| / Σ w_i
+//!   error rate     Σ w_i 1[class_i ≠ y_i] / Σ w_i
+//!   Brier score    Σ w_i Σ_c (p̂_ic − 1[y_i = c])² / Σ w_i      (Brier 1950, multi-class form)
+//!   log loss       Σ w_i · −ln(max(p̂_{i,y_i}, 1e-15)) / Σ w_i   (p clipped below at 1e-15)
+//! ```
+//!
+//! The members are read once, over blocks of points (a few members per pass for
+//! regression), keeping running per-point sums and OOB counts; the error curve over the
+//! first k members is evaluated whenever k reaches a curve size. Blocks of points are
+//! independent; within a block the error terms are added in plain lane-wise sums of 64
+//! points, which are then added to compensated totals (Neumaier 1974) merged in point
+//! order. So results do not depend on the thread count, and [`OutOfBagPartial`]s computed
+//! chunk by chunk merge to the in-memory result up to ~1e-15 relative.
+
+use ndarray::{s, ArrayView1, ArrayView2, ArrayView3};
+use rayon::prelude::*;
+
+use crate::error::{Error, Result};
+use crate::numeric::Real;
+use crate::parallel::{Monitor, Pool};
+
+/// Probabilities below this are raised to it before taking the logarithm.
+pub const LOG_LOSS_FLOOR: f64 = 1e-15;
+
+/// Largest deviation of a member's class probabilities from summing to one.
+pub const PROBABILITY_TOLERANCE: f64 = 1e-6;
+
+/// Largest number of classes (vote buffers are points × classes).
+pub const MAX_CLASSES: usize = 1 << 16;
+
+/// A compensated running sum (Neumaier 1974, "Rundungsfehleranalyse einiger Verfahren zur
+/// Summation endlicher Summen", ZAMM 54): the error of every addition is kept in `carry`,
+/// so the total is nearly independent of the order and grouping of the terms.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Sum {
+    total: f64,
+    carry: f64,
+}
+
+impl Sum {
+    /// Adds one term.
+    #[inline]
+    pub fn add(&mut self, value: f64) {
+        let t = self.total + value;
+        if self.total.abs() >= value.abs() {
+            self.carry += (self.total - t) + value;
+        } else {
+            self.carry += (value - t) + self.total;
+        }
+        self.total = t;
+    }
+
+    /// Adds another compensated sum.
+    pub fn merge(&mut self, other: &Sum) {
+        self.add(other.total);
+        self.add(other.carry);
+    }
+
+    /// The sum.
+    pub fn value(&self) -> f64 {
+        self.total + self.carry
+    }
+}
+
+/// An in-bag count element: any unsigned or signed integer; zero means out of bag.
+pub trait CountValue: Copy + Send + Sync + 'static {
+    /// `true` when the count is zero.
+    fn is_zero(self) -> bool;
+    /// `true` when the count is below zero (always `false` for unsigned types).
+    fn is_negative(self) -> bool;
+}
+
+macro_rules! impl_count_value {
+    (unsigned: $($u:ty),*; signed: $($i:ty),*) => {
+        $(impl CountValue for $u {
+            #[inline]
+            fn is_zero(self) -> bool { self == 0 }
+            #[inline]
+            fn is_negative(self) -> bool { false }
+        })*
+        $(impl CountValue for $i {
+            #[inline]
+            fn is_zero(self) -> bool { self == 0 }
+            #[inline]
+            fn is_negative(self) -> bool { self < 0 }
+        })*
+    };
+}
+impl_count_value!(unsigned: u8, u16, u32, u64; signed: i8, i16, i32, i64);
+
+/// A class label element: any integer type; valid labels are 0..n_classes.
+pub trait LabelValue: Copy + Send + Sync + 'static {
+    /// The label as a class index, `None` when negative or too large for usize.
+    fn index(self) -> Option<usize>;
+}
+
+macro_rules! impl_label_value {
+    ($($t:ty),*) => {$(
+        impl LabelValue for $t {
+            #[inline]
+            fn index(self) -> Option<usize> { usize::try_from(self).ok() }
+        }
+    )*};
+}
+impl_label_value!(u8, u16, u32, u64, i8, i16, i32, i64);
+
+/// A few consecutive members' regression predictions over a block of points (members ×
+/// points), f32 or f64.
+pub enum ValueRows<'a> {
+    F32(ArrayView2<'a, f32>),
+    F64(ArrayView2<'a, f64>),
+}
+
+/// A regression prediction element that can be handed to the fused counts kernel.
+pub trait Prediction: Real {
+    /// Wraps a view of member rows.
+    fn rows(view: ArrayView2<'_, Self>) -> ValueRows<'_>;
+}
+
+impl Prediction for f32 {
+    fn rows(view: ArrayView2<'_, f32>) -> ValueRows<'_> {
+        ValueRows::F32(view)
+    }
+}
+
+impl Prediction for f64 {
+    fn rows(view: ArrayView2<'_, f64>) -> ValueRows<'_> {
+        ValueRows::F64(view)
+    }
+}
+
+/// Members folded into the running sums per pass over a block: each pass reads and writes
+/// the (sum, count) pairs once for up to this many member rows.
+const GROUP: usize = 4;
+
+/// `acc[j] += Σ_k (t_kj · z_kj, z_kj)` over the `K` member rows, z = 1 when out of bag, in
+/// one pass over the counts and predictions (sum and count side by side). The members are
+/// added one after the other in order, so the result does not depend on the grouping.
+/// Returns `true` when a count was negative.
+#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+fn add_group<C: CountValue, T: Real, const K: usize>(
+    counts: [&[C]; K],
+    values: [&[T]; K],
+    acc: Acc<'_>,
+) -> bool {
+    let len = acc.sums.len();
+    if acc.n.len() != len
+        || counts.iter().any(|c| c.len() != len)
+        || values.iter().any(|v| v.len() != len)
+    {
+        return true; // unreachable by construction; reported as bad counts, never a panic
+    }
+    let mut negative = false;
+    for (j, (sum, n)) in acc.sums.iter_mut().zip(acc.n.iter_mut()).enumerate() {
+        let (mut s, mut m) = (*sum, *n);
+        for k in 0..K {
+            let c = counts[k][j];
+            negative |= c.is_negative();
+            let z = if c.is_zero() { 1.0 } else { 0.0 };
+            s += values[k][j].to_f64() * z;
+            m += z;
+        }
+        *sum = s;
+        *n = m;
+    }
+    negative
+}
+
+/// Running per-point OOB sums and OOB member counts of a block (counts as f64: exact).
+pub struct Acc<'a> {
+    pub sums: &'a mut [f64],
+    pub n: &'a mut [f64],
+}
+
+/// One member row at a time with any strides.
+fn add_strided<C: CountValue, T: Real>(
+    counts: ArrayView2<'_, C>,
+    values: ArrayView2<'_, T>,
+    acc: Acc<'_>,
+) -> bool {
+    let mut negative = false;
+    for (c, v) in counts.outer_iter().zip(values.outer_iter()) {
+        for (((sum, n), &c), &v) in acc
+            .sums
+            .iter_mut()
+            .zip(acc.n.iter_mut())
+            .zip(c.iter())
+            .zip(v.iter())
+        {
+            negative |= c.is_negative();
+            let z = if c.is_zero() { 1.0 } else { 0.0 };
+            *sum += v.to_f64() * z;
+            *n += z;
+        }
+    }
+    negative
+}
+
+/// [`add_group`] compiled for AVX2 when the processor has it (4 f64 lanes instead of
+/// SSE2's 2). Element-wise multiply-adds in the same order, no fused multiply-add, so both
+/// versions give bit-identical sums.
+#[inline]
+fn add_group_dispatch<C: CountValue, T: Real, const K: usize>(
+    counts: [&[C]; K],
+    values: [&[T]; K],
+    acc: Acc<'_>,
+) -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { add_group_avx2(counts, values, acc) };
+        }
+    }
+    add_group(counts, values, acc)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn add_group_avx2<C: CountValue, T: Real, const K: usize>(
+    counts: [&[C]; K],
+    values: [&[T]; K],
+    acc: Acc<'_>,
+) -> bool {
+    add_group(counts, values, acc)
+}
+
+fn add_rows<C: CountValue, T: Real>(
+    counts: ArrayView2<'_, C>,
+    values: ArrayView2<'_, T>,
+    acc: Acc<'_>,
+) -> bool {
+    let rows = |k: usize| (counts.row(k).to_slice(), values.row(k).to_slice());
+    match counts.nrows() {
+        4 => {
+            if let [(Some(c0), Some(v0)), (Some(c1), Some(v1)), (Some(c2), Some(v2)), (Some(c3), Some(v3))] =
+                [rows(0), rows(1), rows(2), rows(3)]
+            {
+                return add_group_dispatch([c0, c1, c2, c3], [v0, v1, v2, v3], acc);
+            }
+        }
+        2 => {
+            if let [(Some(c0), Some(v0)), (Some(c1), Some(v1))] = [rows(0), rows(1)] {
+                return add_group_dispatch([c0, c1], [v0, v1], acc);
+            }
+        }
+        1 => {
+            if let (Some(c0), Some(v0)) = rows(0) {
+                return add_group_dispatch([c0], [v0], acc);
+            }
+        }
+        _ => {}
+    }
+    add_strided(counts, values, acc)
+}
+
+/// In-bag counts of shape (members, points), read as an out-of-bag mask one member row
+/// segment at a time (so the driver is written once for every integer type).
+pub trait InBagCounts: Sync {
+    /// (members, points).
+    fn dim(&self) -> (usize, usize);
+    /// Writes 1.0 into `mask[j]` when point `start + j` is out of bag for `member`, else
+    /// 0.0 (a float mask turns the masked sums into plain multiply-adds).
+    ///
+    /// # Errors
+    /// `counts` when a count is negative.
+    fn out_of_bag_mask(&self, member: usize, start: usize, mask: &mut [f64]) -> Result<()>;
+    /// Adds `(prediction, 1)` of every point `start + j` that is out of bag for each of the
+    /// members `first..first + values.nrows()`, in order, into `acc[j]` (regression's fused
+    /// pass).
+    ///
+    /// # Errors
+    /// `counts` when a count is negative.
+    fn accumulate_values(
+        &self,
+        first: usize,
+        start: usize,
+        values: ValueRows<'_>,
+        acc: Acc<'_>,
+    ) -> Result<()>;
+}
+
+fn negative_count(member: usize, point: usize) -> Error {
+    Error::value(
+        "counts",
+        format!("in-bag counts must be non-negative; member {member}, point {point} is negative"),
+    )
+}
+
+impl<C: CountValue> InBagCounts for ArrayView2<'_, C> {
+    fn dim(&self) -> (usize, usize) {
+        ArrayView2::dim(self)
+    }
+
+    fn out_of_bag_mask(&self, member: usize, start: usize, mask: &mut [f64]) -> Result<()> {
+        let row = self.slice(s![member, start..start + mask.len()]);
+        let mut negative = false;
+        let mut write = |(out, &c): (&mut f64, &C)| {
+            negative |= c.is_negative();
+            *out = if c.is_zero() { 1.0 } else { 0.0 };
+        };
+        match row.as_slice() {
+            Some(values) => mask.iter_mut().zip(values).for_each(&mut write),
+            None => mask.iter_mut().zip(row.iter()).for_each(&mut write),
+        }
+        if negative {
+            let j = row.iter().position(|c| c.is_negative()).unwrap_or(0);
+            return Err(negative_count(member, start + j));
+        }
+        Ok(())
+    }
+
+    fn accumulate_values(
+        &self,
+        first: usize,
+        start: usize,
+        values: ValueRows<'_>,
+        acc: Acc<'_>,
+    ) -> Result<()> {
+        let k = match &values {
+            ValueRows::F32(v) => v.nrows(),
+            ValueRows::F64(v) => v.nrows(),
+        };
+        let rows = self.slice(s![first..first + k, start..start + acc.sums.len()]);
+        let negative = match values {
+            ValueRows::F32(v) => add_rows(rows, v, acc),
+            ValueRows::F64(v) => add_rows(rows, v, acc),
+        };
+        if negative {
+            for (i, row) in rows.outer_iter().enumerate() {
+                if let Some(j) = row.iter().position(|c| c.is_negative()) {
+                    return Err(negative_count(first + i, start + j));
+                }
+            }
+            return Err(Error::value("counts", "internal shape mismatch"));
+        }
+        Ok(())
+    }
+}
+
+/// What the members predict.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Task {
+    /// One real value per point.
+    Regression,
+    /// A class (label or probabilities) among `n_classes`.
+    Classification { n_classes: usize },
+}
+
+impl Task {
+    /// Values accumulated per point: 1 for regression, one per class otherwise.
+    pub fn width(self) -> usize {
+        match self {
+            Task::Regression => 1,
+            Task::Classification { n_classes } => n_classes,
+        }
+    }
+}
+
+/// Member predictions on the training points, added into running per-point sums.
+pub trait MemberPredictions: Sync {
+    /// (members, points).
+    fn dim(&self) -> (usize, usize);
+    /// Regression or classification with its number of classes.
+    fn task(&self) -> Task;
+    /// Adds member `member`'s prediction for points `start..start + mask.len()`, times
+    /// `mask` (1.0 out of bag, 0.0 in bag), into `sums` (points × [`Task::width`],
+    /// row-major).
+    ///
+    /// A NaN or infinite prediction makes its point's sum non-finite (also when in bag,
+    /// since ∞·0 = NaN); the caller checks the sums once per block and then calls
+    /// [`MemberPredictions::find_bad_value`] for the message.
+    ///
+    /// # Errors
+    /// `members` for labels out of range or probabilities that are negative or do not sum
+    /// to one within [`PROBABILITY_TOLERANCE`].
+    fn accumulate(&self, member: usize, start: usize, mask: &[f64], sums: &mut [f64])
+        -> Result<()>;
+
+    /// Regression members: the predictions of members `members` for points
+    /// `start..start + len`, read by the fused counts kernel instead of
+    /// [`MemberPredictions::accumulate`].
+    fn value_rows(
+        &self,
+        members: std::ops::Range<usize>,
+        start: usize,
+        len: usize,
+    ) -> Option<ValueRows<'_>> {
+        let _ = (members, start, len);
+        None
+    }
+
+    /// The error for non-finite sums over points `start..start + len`: the first NaN/inf
+    /// prediction, or an overflow of the sums.
+    fn find_bad_value(&self, start: usize, len: usize) -> Error {
+        let _ = (start, len);
+        Error::value("members", "predictions are too large to average (overflow)")
+    }
+}
+
+/// Regression predictions (members, points).
+pub struct Values<'a, T>(pub ArrayView2<'a, T>);
+
+impl<T: Prediction> MemberPredictions for Values<'_, T> {
+    fn dim(&self) -> (usize, usize) {
+        self.0.dim()
+    }
+
+    fn task(&self) -> Task {
+        Task::Regression
+    }
+
+    fn accumulate(
+        &self,
+        member: usize,
+        start: usize,
+        mask: &[f64],
+        sums: &mut [f64],
+    ) -> Result<()> {
+        let row = self.0.slice(s![member, start..start + mask.len()]);
+        // Independent multiply-adds: the compiler vectorises the contiguous case.
+        match row.as_slice() {
+            Some(values) => {
+                for ((sum, &keep), &v) in sums.iter_mut().zip(mask).zip(values) {
+                    *sum += v.to_f64() * keep;
+                }
+            }
+            None => {
+                for ((sum, &keep), &v) in sums.iter_mut().zip(mask).zip(row.iter()) {
+                    *sum += v.to_f64() * keep;
+                }
+            }
+        }
+        Ok(())
+    }
+
+    fn value_rows(
+        &self,
+        members: std::ops::Range<usize>,
+        start: usize,
+        len: usize,
+    ) -> Option<ValueRows<'_>> {
+        Some(T::rows(self.0.slice(s![members, start..start + len])))
+    }
+
+    fn find_bad_value(&self, start: usize, len: usize) -> Error {
+        let block = self.0.slice(s![.., start..start + len]);
+        for (member, row) in block.outer_iter().enumerate() {
+            if let Some(j) = row.iter().position(|v| !v.to_f64().is_finite()) {
+                return Error::value(
+                    "members",
+                    format!(
+                        "contains NaN or infinite predictions (member {member}, point {})",
+                        start + j
+                    ),
+                );
+            }
+        }
+        Error::value("members", "predictions are too large to average (overflow)")
+    }
+}
+
+/// Class labels (members, points), each in 0..n_classes.
+pub struct Labels<'a, L> {
+    labels: ArrayView2<'a, L>,
+    n_classes: usize,
+}
+
+impl<'a, L: LabelValue> Labels<'a, L> {
+    /// # Errors
+    /// `members` when `n_classes` is 0 or above [`MAX_CLASSES`].
+    pub fn new(labels: ArrayView2<'a, L>, n_classes: usize) -> Result<Self> {
+        check_classes(n_classes)?;
+        Ok(Labels { labels, n_classes })
+    }
+}
+
+fn check_classes(n_classes: usize) -> Result<usize> {
+    if n_classes == 0 || n_classes > MAX_CLASSES {
+        return Err(Error::value(
+            "members",
+            format!("the number of classes must lie in 1..={MAX_CLASSES}, got {n_classes}"),
+        ));
+    }
+    Ok(n_classes)
+}
+
+impl<L: LabelValue> MemberPredictions for Labels<'_, L> {
+    fn dim(&self) -> (usize, usize) {
+        self.labels.dim()
+    }
+
+    fn task(&self) -> Task {
+        Task::Classification {
+            n_classes: self.n_classes,
+        }
+    }
+
+    fn accumulate(
+        &self,
+        member: usize,
+        start: usize,
+        mask: &[f64],
+        sums: &mut [f64],
+    ) -> Result<()> {
+        let c = self.n_classes;
+        let row = self.labels.slice(s![member, start..start + mask.len()]);
+        for (j, (&keep, &label)) in mask.iter().zip(row.iter()).enumerate() {
+            match label.index() {
+                Some(k) if k < c => sums[j * c + k] += keep,
+                _ => {
+                    return Err(Error::value(
+                        "members",
+                        format!(
+                            "class labels must lie in 0..{c}; member {member}, point {} is out \
+                             of range",
+                            start + j
+                        ),
+                    ))
+                }
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Class probabilities (members, points, classes); every member's row sums to one.
+pub struct Probabilities<'a, T>(pub ArrayView3<'a, T>);
+
+impl<T: Real> MemberPredictions for Probabilities<'_, T> {
+    fn dim(&self) -> (usize, usize) {
+        let (m, n, _) = self.0.dim();
+        (m, n)
+    }
+
+    fn task(&self) -> Task {
+        Task::Classification {
+            n_classes: self.0.dim().2,
+        }
+    }
+
+    fn accumulate(
+        &self,
+        member: usize,
+        start: usize,
+        mask: &[f64],
+        sums: &mut [f64],
+    ) -> Result<()> {
+        let block = self.0.slice(s![member, start..start + mask.len(), ..]);
+        for (j, (point, &keep)) in block.outer_iter().zip(mask).enumerate() {
+            let out = &mut sums[j * point.len()..(j + 1) * point.len()];
+            let mut total = 0.0;
+            let mut valid = true;
+            for (o, &p) in out.iter_mut().zip(point.iter()) {
+                let p = p.to_f64();
+                valid &= p >= 0.0 && p.is_finite();
+                total += p;
+                *o += p * keep;
+            }
+            if !valid || (total - 1.0).abs() > PROBABILITY_TOLERANCE {
+                return Err(Error::value(
+                    "members",
+                    format!(
+                        "class probabilities must be finite, non-negative and sum to 1 within \
+                         {PROBABILITY_TOLERANCE:e}; member {member}, point {} sums to {total}",
+                        start + j
+                    ),
+                ));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Error sums over the points covered by at least one OOB member among the first k.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct ErrorSums {
+    /// Points with at least one OOB member.
+    pub covered: u64,
+    /// Σ w_i over those points.
+    pub weight: Sum,
+    /// Σ w_i (f̂_i − y_i)² (regression).
+    pub squared: Sum,
+    /// Σ w_i |f̂_i − y_i| (regression).
+    pub absolute: Sum,
+    /// Σ w_i 1[class_i ≠ y_i] (classification).
+    pub wrong: Sum,
+    /// Σ w_i Σ_c (p̂_ic − 1[y_i = c])² (classification).
+    pub brier: Sum,
+    /// Σ w_i · −ln(max(p̂_{i,y_i}, 1e-15)) (classification).
+    pub log_loss: Sum,
+}
+
+impl ErrorSums {
+    fn merge(&mut self, other: &ErrorSums) {
+        self.covered += other.covered;
+        self.weight.merge(&other.weight);
+        self.squared.merge(&other.squared);
+        self.absolute.merge(&other.absolute);
+        self.wrong.merge(&other.wrong);
+        self.brier.merge(&other.brier);
+        self.log_loss.merge(&other.log_loss);
+    }
+
+    fn mean(&self, sum: &Sum) -> f64 {
+        if self.covered == 0 {
+            f64::NAN
+        } else {
+            sum.value() / self.weight.value()
+        }
+    }
+
+    /// Mean squared error (NaN without covered points).
+    pub fn squared_error(&self) -> f64 {
+        self.mean(&self.squared)
+    }
+    /// Mean absolute error.
+    pub fn absolute_error(&self) -> f64 {
+        self.mean(&self.absolute)
+    }
+    /// Weighted share of misclassified points.
+    pub fn error_rate(&self) -> f64 {
+        self.mean(&self.wrong)
+    }
+    /// Multi-class Brier score.
+    pub fn brier_score(&self) -> f64 {
+        self.mean(&self.brier)
+    }
+    /// Log loss with p clipped below at [`LOG_LOSS_FLOOR`].
+    pub fn log_loss(&self) -> f64 {
+        self.mean(&self.log_loss)
+    }
+}
+
+/// The mergeable state of an out-of-bag evaluation over some of the points: the error sums
+/// at every curve size. Partial states of disjoint chunks of points merge (in any grouping)
+/// into the state of all of them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct OutOfBagPartial {
+    task: Task,
+    members: usize,
+    sizes: Vec<usize>,
+    points: u64,
+    curve: Vec<ErrorSums>,
+}
+
+impl OutOfBagPartial {
+    /// An empty state for `members` members evaluated at the ensemble sizes `sizes`.
+    ///
+    /// # Errors
+    /// `curve_sizes` unless `sizes` is strictly increasing, within 1..=members and ends at
+    /// `members`.
+    pub fn new(task: Task, members: usize, sizes: &[usize]) -> Result<Self> {
+        let increasing = sizes.windows(2).all(|w| w[0] < w[1]);
+        if sizes.is_empty() || !increasing || sizes[0] == 0 || sizes[sizes.len() - 1] != members {
+            return Err(Error::value(
+                "curve_sizes",
+                format!(
+                    "must be strictly increasing ensemble sizes in 1..={members} ending at \
+                     {members}, got {sizes:?}"
+                ),
+            ));
+        }
+        Ok(OutOfBagPartial {
+            task,
+            members,
+            sizes: sizes.to_vec(),
+            points: 0,
+            curve: vec![ErrorSums::default(); sizes.len()],
+        })
+    }
+
+    /// Adds the state of other points.
+    ///
+    /// # Errors
+    /// `members` when the two states have a different task, member count or curve sizes.
+    pub fn merge(&mut self, other: &OutOfBagPartial) -> Result<()> {
+        let same_task = matches!(
+            (self.task, other.task),
+            (Task::Regression, Task::Regression)
+                | (Task::Classification { .. }, Task::Classification { .. })
+        );
+        if !same_task || self.members != other.members || self.sizes != other.sizes {
+            return Err(Error::value(
+                "members",
+                format!(
+                    "cannot merge out-of-bag states of different ensembles ({} members, {:?} \
+                     vs {} members, {:?})",
+                    self.members, self.task, other.members, other.task
+                ),
+            ));
+        }
+        if let (Task::Classification { n_classes: a }, Task::Classification { n_classes: b }) =
+            (self.task, other.task)
+        {
+            // Label chunks may see different largest labels; the sums do not depend on it.
+            self.task = Task::Classification {
+                n_classes: a.max(b),
+            };
+        }
+        self.points += other.points;
+        for (a, b) in self.curve.iter_mut().zip(&other.curve) {
+            a.merge(b);
+        }
+        Ok(())
+    }
+
+    /// The task the state was computed for.
+    pub fn task(&self) -> Task {
+        self.task
+    }
+    /// Number of members.
+    pub fn members(&self) -> usize {
+        self.members
+    }
+    /// The ensemble sizes of the curve.
+    pub fn sizes(&self) -> &[usize] {
+        &self.sizes
+    }
+    /// Points seen.
+    pub fn points(&self) -> u64 {
+        self.points
+    }
+    /// Error sums at every curve size.
+    pub fn curve(&self) -> &[ErrorSums] {
+        &self.curve
+    }
+    /// Error sums of the whole ensemble (the last curve size).
+    pub fn full(&self) -> &ErrorSums {
+        &self.curve[self.curve.len() - 1]
+    }
+    /// Points with no out-of-bag member in the whole ensemble.
+    pub fn without_out_of_bag(&self) -> u64 {
+        self.points - self.full().covered
+    }
+}
+
+/// Per-point outputs of [`out_of_bag`], written in place (e.g. into numpy buffers).
+pub struct PointOutputs<'a> {
+    /// OOB prediction of every point: the mean for regression, the voted class index (as a
+    /// float) for classification; NaN without an OOB member.
+    pub prediction: &'a mut [f64],
+    /// Number of OOB members of every point.
+    pub n_out_of_bag: &'a mut [i64],
+    /// Classification only: points × classes mean probabilities / vote fractions, NaN rows
+    /// without an OOB member. Empty for regression.
+    pub probabilities: &'a mut [f64],
+}
+
+/// The ensemble sizes 1, ..., members at which the default curve is evaluated: about
+/// 8 sizes per decade, geometrically spaced and rounded, always with 1 and `members`.
+pub fn default_curve_sizes(members: usize) -> Vec<usize> {
+    let mut sizes = Vec::new();
+    if members == 0 {
+        return sizes;
+    }
+    let steps = ((members as f64).log10() * 8.0).ceil().max(1.0) as usize;
+    for s in 0..=steps {
+        let k = (members as f64).powf(s as f64 / steps as f64).round() as usize;
+        let k = k.clamp(1, members);
+        if sizes.last() != Some(&k) {
+            sizes.push(k);
+        }
+    }
+    if sizes.last() != Some(&members) {
+        sizes.push(members);
+    }
+    sizes
+}
+
+/// Points handled together: the running sums of a block stay in cache while every member
+/// row passes over it. Depends only on the task, never on the thread count.
+fn block_points(width: usize) -> usize {
+    (16384 / width.max(1)).max(64)
+}
+
+/// Out-of-bag predictions of every point and the error curve over the first k members.
+///
+/// `members` are predictions on the training points (see the module documentation for the
+/// formulas), `counts` the in-bag counts (members, points), `y` the targets (class indices
+/// for classification, given as floats), `weights` optional point weights ≥ 0. `sizes` are
+/// the ensemble sizes of the curve (strictly increasing, ending at the member count; see
+/// [`default_curve_sizes`]).
+///
+/// # Errors
+/// `members` for an empty ensemble or bad values (see [`MemberPredictions::accumulate`]);
+/// `counts` for a shape different from `members` or negative counts; `y`, `weights` for a
+/// wrong length or bad values (non-finite; class index out of range; negative weight);
+/// `curve_sizes`; [`Error::Interrupted`] from the monitor.
+#[allow(clippy::too_many_arguments)]
+pub fn out_of_bag(
+    members: &dyn MemberPredictions,
+    counts: &dyn InBagCounts,
+    y: ArrayView1<'_, f64>,
+    weights: Option<ArrayView1<'_, f64>>,
+    sizes: &[usize],
+    out: PointOutputs<'_>,
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<OutOfBagPartial> {
+    let (m, n) = members.dim();
+    let task = members.task();
+    let width = task.width();
+    if m == 0 || n == 0 {
+        return Err(Error::value(
+            "members",
+            format!("needs at least one member and one point, got shape ({m}, {n})"),
+        ));
+    }
+    if u32::try_from(m).is_err() {
+        return Err(Error::value("members", "more than 2^32 - 1 members"));
+    }
+    if counts.dim() != (m, n) {
+        let (cm, cn) = counts.dim();
+        return Err(Error::value(
+            "counts",
+            format!("has shape ({cm}, {cn}) but `members` has ({m}, {n})"),
+        ));
+    }
+    if y.len() != n {
+        return Err(Error::value(
+            "y",
+            format!("has {} values but `members` has {n} points", y.len()),
+        ));
+    }
+    if let Some(w) = &weights {
+        if w.len() != n {
+            return Err(Error::value(
+                "weights",
+                format!("has {} values but `members` has {n} points", w.len()),
+            ));
+        }
+    }
+    let expected = if width == 1 && task == Task::Regression {
+        0
+    } else {
+        n * width
+    };
+    if out.prediction.len() != n
+        || out.n_out_of_bag.len() != n
+        || out.probabilities.len() != expected
+    {
+        return Err(Error::value(
+            "members",
+            "output buffers do not match the input shape",
+        ));
+    }
+    let mut state = OutOfBagPartial::new(task, m, sizes)?;
+    state.points = n as u64;
+
+    let block = block_points(width);
+    let mut jobs: Vec<Block<'_>> = Vec::with_capacity(n.div_ceil(block));
+    let mut probabilities = out.probabilities;
+    for (i, (prediction, n_oob)) in out
+        .prediction
+        .chunks_mut(block)
+        .zip(out.n_out_of_bag.chunks_mut(block))
+        .enumerate()
+    {
+        let rows = prediction.len();
+        let (head, tail) = std::mem::take(&mut probabilities).split_at_mut(if expected == 0 {
+            0
+        } else {
+            rows * width
+        });
+        probabilities = tail;
+        jobs.push(Block {
+            start: i * block,
+            prediction,
+            n_oob,
+            probabilities: head,
+        });
+    }
+    let per_round = 8 * pool.threads().max(1);
+    let total = jobs.len();
+    let mut done = 0;
+    let mut jobs = jobs.into_iter();
+    loop {
+        let round: Vec<Block<'_>> = jobs.by_ref().take(per_round).collect();
+        if round.is_empty() {
+            break;
+        }
+        let k = round.len();
+        let results: Vec<Result<Vec<ErrorSums>>> = pool.run(|| {
+            round
+                .into_par_iter()
+                .map(|job| job.run(members, counts, y, weights, sizes))
+                .collect()
+        });
+        for result in results {
+            for (a, b) in state.curve.iter_mut().zip(&result?) {
+                a.merge(b);
+            }
+        }
+        done += k;
+        monitor.progress(done, total)?;
+    }
+    Ok(state)
+}
+
+/// One block of points and its slices of the outputs.
+struct Block<'a> {
+    start: usize,
+    prediction: &'a mut [f64],
+    n_oob: &'a mut [i64],
+    probabilities: &'a mut [f64],
+}
+
+impl Block<'_> {
+    fn run(
+        self,
+        members: &dyn MemberPredictions,
+        counts: &dyn InBagCounts,
+        y: ArrayView1<'_, f64>,
+        weights: Option<ArrayView1<'_, f64>>,
+        sizes: &[usize],
+    ) -> Result<Vec<ErrorSums>> {
+        let rows = self.prediction.len();
+        let task = members.task();
+        let width = task.width();
+        let y = y.slice(s![self.start..self.start + rows]);
+        let weights = weights.map(|w| w.slice_move(s![self.start..self.start + rows]));
+        check_targets(task, y, self.start)?;
+        if let Some(w) = &weights {
+            if let Some(j) = w.iter().position(|&v| !(v.is_finite() && v >= 0.0)) {
+                return Err(Error::value(
+                    "weights",
+                    format!(
+                        "must be finite and non-negative; point {} is {}",
+                        self.start + j,
+                        w[j]
+                    ),
+                ));
+            }
+        }
+        // Buffers padded to whole lanes; padding points have no OOB member and weight 0.
+        let padded = rows.div_ceil(LANES) * LANES;
+        let mut targets = vec![0.0; padded];
+        let mut point_weights = vec![0.0; padded];
+        targets.iter_mut().zip(y.iter()).for_each(|(t, &v)| *t = v);
+        match &weights {
+            Some(w) => point_weights
+                .iter_mut()
+                .zip(w.iter())
+                .for_each(|(t, &v)| *t = v),
+            None => point_weights[..rows].fill(1.0),
+        }
+        let mut curve = Vec::with_capacity(sizes.len());
+        let mut next = 0;
+        let (m, _) = members.dim();
+        if task == Task::Regression {
+            // (sum, count) side by side: one fused pass over counts and predictions.
+            let mut sums = vec![0.0; padded];
+            let mut n_oob = vec![0.0; padded];
+            let mut member = 0;
+            while member < m {
+                // Groups of up to GROUP members that never step over a curve size.
+                let stop = sizes.get(next).copied().unwrap_or(m).min(m);
+                let k = match stop - member {
+                    d if d >= GROUP => GROUP,
+                    d if d >= 2 => 2,
+                    _ => 1,
+                };
+                let group = member..member + k;
+                let values = members.value_rows(group, self.start, rows).ok_or_else(|| {
+                    Error::value("members", "regression members must give value rows")
+                })?;
+                let acc = Acc {
+                    sums: &mut sums[..rows],
+                    n: &mut n_oob[..rows],
+                };
+                counts.accumulate_values(member, self.start, values, acc)?;
+                member += k;
+                if next < sizes.len() && sizes[next] == member {
+                    curve.push(evaluate_regression_dispatch(
+                        &sums,
+                        &n_oob,
+                        &targets,
+                        &point_weights,
+                    ));
+                    next += 1;
+                }
+            }
+            if sums.iter().any(|v| !v.is_finite()) {
+                return Err(members.find_bad_value(self.start, rows));
+            }
+            for (j, (&sum, &n)) in sums[..rows].iter().zip(&n_oob).enumerate() {
+                self.n_oob[j] = n as i64;
+                self.prediction[j] = if n == 0.0 { f64::NAN } else { sum / n };
+            }
+            return Ok(curve);
+        }
+        let mut sums = vec![0.0; padded * width];
+        let mut n_oob = vec![0.0; padded];
+        let mut mask = vec![0.0; rows];
+        for member in 0..m {
+            counts.out_of_bag_mask(member, self.start, &mut mask)?;
+            members.accumulate(member, self.start, &mask, &mut sums[..rows * width])?;
+            n_oob.iter_mut().zip(&mask).for_each(|(c, &k)| *c += k);
+            if next < sizes.len() && sizes[next] == member + 1 {
+                curve.push(evaluate_classes(
+                    width,
+                    &sums,
+                    &n_oob,
+                    &targets,
+                    &point_weights,
+                ));
+                next += 1;
+            }
+        }
+        if sums.iter().any(|v| !v.is_finite()) {
+            return Err(members.find_bad_value(self.start, rows));
+        }
+        // The whole ensemble: per-point outputs.
+        for (j, &count) in n_oob[..rows].iter().enumerate() {
+            self.n_oob[j] = count as i64;
+            let point = &sums[j * width..(j + 1) * width];
+            match task {
+                Task::Regression => {
+                    self.prediction[j] = if count == 0.0 {
+                        f64::NAN
+                    } else {
+                        point[0] / count
+                    };
+                }
+                Task::Classification { .. } => {
+                    let out = &mut self.probabilities[j * width..(j + 1) * width];
+                    if count == 0.0 {
+                        self.prediction[j] = f64::NAN;
+                        out.fill(f64::NAN);
+                    } else {
+                        out.iter_mut().zip(point).for_each(|(o, &s)| *o = s / count);
+                        self.prediction[j] = vote(point) as f64;
+                    }
+                }
+            }
+        }
+        Ok(curve)
+    }
+}
+
+fn check_targets(task: Task, y: ArrayView1<'_, f64>, start: usize) -> Result<()> {
+    let bad = match task {
+        Task::Regression => y
+            .iter()
+            .position(|v| !v.is_finite())
+            .map(|j| format!("targets must be finite; point {} is {}", start + j, y[j])),
+        Task::Classification { n_classes } => y
+            .iter()
+            .position(|&v| !(v >= 0.0 && v < n_classes as f64 && v.fract() == 0.0))
+            .map(|j| {
+                format!(
+                    "class labels must be integers in 0..{n_classes}; point {} is {}",
+                    start + j,
+                    y[j]
+                )
+            }),
+    };
+    bad.map_or(Ok(()), |message| Err(Error::value("y", message)))
+}
+
+/// Index of the largest value, the lowest index among ties.
+#[inline]
+fn vote(values: &[f64]) -> usize {
+    let mut best = 0;
+    for (c, &v) in values.iter().enumerate().skip(1) {
+        if v > values[best] {
+            best = c;
+        }
+    }
+    best
+}
+
+/// Points per lane group of the error sums; per-lane partial sums are independent, so the
+/// regression evaluation vectorises.
+const LANES: usize = 4;
+
+/// Points whose plain (lane-wise) partial sums are added to the compensated totals at once:
+/// the error of a plain sum of 64 terms is at most 63 ulp-scale relative, so regrouping
+/// points into different chunks changes the totals by ~1e-15 relative at most.
+const SUB_BLOCK: usize = 64;
+
+/// The regression error sums of one block of points from its (sum, count) pairs (padded to
+/// whole lanes; padding has no OOB member and weight 0).
+/// [`evaluate_regression`] compiled for AVX2 when available (same operations and order).
+fn evaluate_regression_dispatch(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { evaluate_regression_avx2(sums, n_oob, y, w) };
+        }
+    }
+    evaluate_regression(sums, n_oob, y, w)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn evaluate_regression_avx2(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums {
+    evaluate_regression(sums, n_oob, y, w)
+}
+
+#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+fn evaluate_regression(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums {
+    let mut e = ErrorSums::default();
+    for (((s, n), y), w) in sums
+        .chunks(SUB_BLOCK)
+        .zip(n_oob.chunks(SUB_BLOCK))
+        .zip(y.chunks(SUB_BLOCK))
+        .zip(w.chunks(SUB_BLOCK))
+    {
+        let mut lanes = [[0.0f64; LANES]; 4];
+        for (((s, n), y), w) in s
+            .chunks_exact(LANES)
+            .zip(n.chunks_exact(LANES))
+            .zip(y.chunks_exact(LANES))
+            .zip(w.chunks_exact(LANES))
+        {
+            for l in 0..LANES {
+                // Branch-free: `covered` is 1.0 or 0.0, and uncovered points divide by 1.
+                let covered = if n[l] > 0.0 { 1.0 } else { 0.0 };
+                let weight = w[l] * covered;
+                let d = s[l] / (n[l] + (1.0 - covered)) - y[l];
+                lanes[0][l] += covered;
+                lanes[1][l] += weight;
+                lanes[2][l] += weight * d * d;
+                lanes[3][l] += weight * d.abs();
+            }
+        }
+        let [covered, weight, squared, absolute] = lanes.map(|lane| lane.iter().sum::<f64>());
+        e.covered += covered as u64;
+        e.weight.add(weight);
+        e.squared.add(squared);
+        e.absolute.add(absolute);
+    }
+    e
+}
+
+/// The classification error sums of one block of points from its running sums (buffers
+/// padded as in [`evaluate_regression`]).
+fn evaluate_classes(
+    n_classes: usize,
+    sums: &[f64],
+    n_oob: &[f64],
+    y: &[f64],
+    w: &[f64],
+) -> ErrorSums {
+    let mut e = ErrorSums::default();
+    for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
+        let start = block * SUB_BLOCK;
+        let mut part = [0.0f64; 4];
+        let mut covered = 0;
+        for (j, &count) in n.iter().enumerate().filter(|(_, &c)| c > 0.0) {
+            let j = start + j;
+            let point = &sums[j * n_classes..(j + 1) * n_classes];
+            let truth = y[j] as usize;
+            let mut brier = 0.0;
+            for (c, &s) in point.iter().enumerate() {
+                let d = s / count - if c == truth { 1.0 } else { 0.0 };
+                brier += d * d;
+            }
+            let p = (point[truth] / count).max(LOG_LOSS_FLOOR);
+            covered += 1;
+            part[0] += w[j];
+            part[1] += if vote(point) != truth { w[j] } else { 0.0 };
+            part[2] += w[j] * brier;
+            part[3] -= w[j] * p.ln();
+        }
+        e.covered += covered;
+        e.weight.add(part[0]);
+        e.wrong.add(part[1]);
+        e.brier.add(part[2]);
+        e.log_loss.add(part[3]);
+    }
+    e
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::{Silent, Threads};
+    use approx::assert_relative_eq;
+    use ndarray::{array, Array2, Array3};
+
+    struct Output {
+        prediction: Vec<f64>,
+        n_oob: Vec<i64>,
+        probabilities: Vec<f64>,
+        state: OutOfBagPartial,
+    }
+
+    fn run(
+        members: &dyn MemberPredictions,
+        counts: &dyn InBagCounts,
+        y: &[f64],
+        weights: Option<&[f64]>,
+        sizes: &[usize],
+        pool: &Pool,
+    ) -> Result<Output> {
+        let (_, n) = members.dim();
+        let width = match members.task() {
+            Task::Regression => 0,
+            t => t.width(),
+        };
+        let mut prediction = vec![0.0; n];
+        let mut n_oob = vec![0; n];
+        let mut probabilities = vec![0.0; n * width];
+        let state = out_of_bag(
+            members,
+            counts,
+            ArrayView1::from(y),
+            weights.map(ArrayView1::from),
+            sizes,
+            PointOutputs {
+                prediction: &mut prediction,
+                n_out_of_bag: &mut n_oob,
+                probabilities: &mut probabilities,
+            },
+            pool,
+            &Silent,
+        )?;
+        Ok(Output {
+            prediction,
+            n_oob,
+            probabilities,
+            state,
+        })
+    }
+
+    #[test]
+    fn hand_computed_regression() {
+        // 3 members, 3 points. Point 0: OOB for members 0 and 2 → (1 + 3) / 2 = 2.
+        // Point 1: OOB for member 1 only → 5. Point 2: never OOB → NaN, excluded.
+        let t = array![[1.0, 9.0, 7.0], [8.0, 5.0, 7.0], [3.0, 9.0, 7.0]];
+        let c = array![[0u8, 1, 2], [1, 0, 1], [0, 2, 1]];
+        let y = [1.0, 4.0, 0.0];
+        let out = run(
+            &Values(t.view()),
+            &c.view(),
+            &y,
+            None,
+            &[1, 2, 3],
+            &Pool::Global,
+        )
+        .unwrap();
+        assert_eq!(out.prediction[0], 2.0);
+        assert_eq!(out.prediction[1], 5.0);
+        assert!(out.prediction[2].is_nan());
+        assert_eq!(out.n_oob, vec![2, 1, 0]);
+        let full = out.state.full();
+        assert_eq!(full.covered, 2);
+        assert_relative_eq!(full.squared_error(), (1.0 + 1.0) / 2.0);
+        assert_relative_eq!(full.absolute_error(), 1.0);
+        assert_eq!(out.state.without_out_of_bag(), 1);
+        // k = 1: only point 0 (member 0, prediction 1, error 0).
+        assert_eq!(out.state.curve()[0].covered, 1);
+        assert_eq!(out.state.curve()[0].squared_error(), 0.0);
+        // k = 2: point 0 → 1, point 1 → 5: errors 0 and 1.
+        assert_relative_eq!(out.state.curve()[1].squared_error(), 0.5);
+    }
+
+    #[test]
+    fn hand_computed_labels_with_a_tie() {
+        // Point 0: OOB votes 1, 0 → tie, lowest class (0) wins; fractions (0.5, 0.5).
+        let t = array![[1i64, 2], [0, 2], [2, 1]];
+        let c = array![[0i32, 0], [0, 1], [1, 0]];
+        let y = [1.0, 1.0];
+        let labels = Labels::new(t.view(), 3).unwrap();
+        let out = run(&labels, &c.view(), &y, None, &[3], &Pool::Global).unwrap();
+        assert_eq!(out.prediction, vec![0.0, 1.0]);
+        assert_eq!(&out.probabilities[..3], &[0.5, 0.5, 0.0]);
+        assert_eq!(&out.probabilities[3..], &[0.0, 0.5, 0.5]);
+        let full = out.state.full();
+        // Point 0 wrong (0 ≠ 1), point 1 right (tie 1 vs 2 → 1).
+        assert_relative_eq!(full.error_rate(), 0.5);
+        // Brier: point 0: 0.25 + 0.25 = 0.5; point 1: 0 + 0.25 + 0.25 = 0.5.
+        assert_relative_eq!(full.brier_score(), 0.5);
+        assert_relative_eq!(full.log_loss(), -(0.5f64).ln());
+    }
+
+    #[test]
+    fn probabilities_and_log_loss_floor() {
+        let p = Array3::from_shape_vec((1, 2, 2), vec![1.0, 0.0, 0.25, 0.75]).unwrap();
+        let c = array![[0u64, 0]];
+        let out = run(
+            &Probabilities(p.view()),
+            &c.view(),
+            &[1.0, 1.0],
+            None,
+            &[1],
+            &Pool::Global,
+        )
+        .unwrap();
+        let full = out.state.full();
+        assert_relative_eq!(
+            full.log_loss(),
+            (-(LOG_LOSS_FLOOR).ln() - 0.75f64.ln()) / 2.0
+        );
+        assert_relative_eq!(full.brier_score(), (2.0 + 2.0 * 0.0625) / 2.0);
+    }
+
+    #[test]
+    fn weights_enter_the_means() {
+        let t = array![[1.0f32, 3.0]];
+        let c = array![[0u16, 0]];
+        let out = run(
+            &Values(t.view()),
+            &c.view(),
+            &[0.0, 0.0],
+            Some(&[3.0, 1.0]),
+            &[1],
+            &Pool::Global,
+        )
+        .unwrap();
+        assert_relative_eq!(out.state.full().squared_error(), (3.0 + 9.0) / 4.0);
+    }
+
+    #[test]
+    fn thread_count_and_chunking_do_not_change_results() {
+        let (m, n) = (7, 20_000);
+        let t = Array2::from_shape_fn((m, n), |(i, j)| ((i * 31 + j * 17) % 97) as f64 * 0.13);
+        let c = Array2::from_shape_fn((m, n), |(i, j)| ((i * 7 + j * 3) % 3) as u8);
+        let y: Vec<f64> = (0..n).map(|j| (j % 11) as f64).collect();
+        let sizes = default_curve_sizes(m);
+        let one = Threads::Fixed(1).pool().unwrap();
+        let three = Threads::Fixed(3).pool().unwrap();
+        let a = run(&Values(t.view()), &c.view(), &y, None, &sizes, &one).unwrap();
+        let b = run(&Values(t.view()), &c.view(), &y, None, &sizes, &three).unwrap();
+        assert_eq!(a.state, b.state);
+        assert_eq!(
+            a.prediction.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+            b.prediction.iter().map(|v| v.to_bits()).collect::<Vec<_>>()
+        );
+        // Chunks of 3001 points merged in order equal the whole.
+        let mut merged = OutOfBagPartial::new(Task::Regression, m, &sizes).unwrap();
+        let mut start = 0;
+        while start < n {
+            let end = (start + 3001).min(n);
+            let part = run(
+                &Values(t.slice(s![.., start..end])),
+                &c.slice(s![.., start..end]),
+                &y[start..end],
+                None,
+                &sizes,
+                &one,
+            )
+            .unwrap();
+            merged.merge(&part.state).unwrap();
+            start = end;
+        }
+        assert_eq!(merged.points(), a.state.points());
+        for (x, z) in merged.curve().iter().zip(a.state.curve()) {
+            assert_eq!(x.covered, z.covered);
+            assert_relative_eq!(x.squared_error(), z.squared_error(), max_relative = 1e-14);
+        }
+    }
+
+    #[test]
+    fn strided_inputs_match_contiguous() {
+        let t = Array2::from_shape_fn((5, 300), |(i, j)| (i + 2 * j) as f64);
+        let c = Array2::from_shape_fn((5, 300), |(i, j)| ((i + j) % 2) as i16);
+        let tt = t.t().to_owned();
+        let ct = c.t().to_owned();
+        let y = vec![1.0; 300];
+        let a = run(&Values(t.view()), &c.view(), &y, None, &[5], &Pool::Global).unwrap();
+        let b = run(&Values(tt.t()), &ct.t(), &y, None, &[5], &Pool::Global).unwrap();
+        assert_eq!(a.state, b.state);
+        assert_eq!(a.n_oob, b.n_oob);
+    }
+
+    #[test]
+    fn bad_input_is_named() {
+        let t = array![[1.0, f64::NAN]];
+        let c = array![[0u8, 0]];
+        let err = |r: Result<Output>| match r {
+            Err(Error::InvalidValue { argument, .. }) => argument,
+            _ => panic!("expected an error"),
+        };
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &c.view(),
+                &[0.0, 0.0],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "members"
+        );
+        let t = array![[1.0, 2.0]];
+        let neg = array![[0i8, -1]];
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &neg.view(),
+                &[0.0, 0.0],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "counts"
+        );
+        let wide = array![[0u8, 0, 0]];
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &wide.view(),
+                &[0.0, 0.0],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "counts"
+        );
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &c.view(),
+                &[0.0],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "y"
+        );
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &c.view(),
+                &[0.0, f64::INFINITY],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "y"
+        );
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &c.view(),
+                &[0.0, 0.0],
+                Some(&[1.0, -1.0]),
+                &[1],
+                &Pool::Global
+            )),
+            "weights"
+        );
+        assert_eq!(
+            err(run(
+                &Values(t.view()),
+                &c.view(),
+                &[0.0, 0.0],
+                None,
+                &[2],
+                &Pool::Global
+            )),
+            "curve_sizes"
+        );
+        let labels = array![[0u8, 3]];
+        let l = Labels::new(labels.view(), 3).unwrap();
+        assert_eq!(
+            err(run(&l, &c.view(), &[0.0, 0.0], None, &[1], &Pool::Global)),
+            "members"
+        );
+        let l = Labels::new(labels.view(), 4).unwrap();
+        assert_eq!(
+            err(run(&l, &c.view(), &[0.0, 4.0], None, &[1], &Pool::Global)),
+            "y"
+        );
+        assert_eq!(
+            err(run(&l, &c.view(), &[0.0, 0.5], None, &[1], &Pool::Global)),
+            "y"
+        );
+        let p = Array3::from_shape_vec((1, 2, 2), vec![0.5, 0.5, 0.5, 0.6]).unwrap();
+        assert_eq!(
+            err(run(
+                &Probabilities(p.view()),
+                &c.view(),
+                &[0.0, 0.0],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "members"
+        );
+        let empty = Array2::<f64>::zeros((0, 2));
+        let ce = Array2::<u8>::zeros((0, 2));
+        assert_eq!(
+            err(run(
+                &Values(empty.view()),
+                &ce.view(),
+                &[0.0, 0.0],
+                None,
+                &[1],
+                &Pool::Global
+            )),
+            "members"
+        );
+    }
+
+    #[test]
+    fn member_grouping_does_not_change_the_sums() {
+        // With every size on the curve members are folded one at a time, with only the
+        // last size four at a time; the per-point sums are built in the same order.
+        let (m, n) = (11, 5000);
+        let t = Array2::from_shape_fn((m, n), |(i, j)| ((i * 13 + j * 7) % 31) as f64 * 0.37 - 3.0);
+        let c = Array2::from_shape_fn((m, n), |(i, j)| ((i * 5 + j * 11) % 4) as u32);
+        let y: Vec<f64> = (0..n).map(|j| (j % 7) as f64 * 0.5).collect();
+        let every: Vec<usize> = (1..=m).collect();
+        let a = run(
+            &Values(t.view()),
+            &c.view(),
+            &y,
+            None,
+            &every,
+            &Pool::Global,
+        )
+        .unwrap();
+        let b = run(&Values(t.view()), &c.view(), &y, None, &[m], &Pool::Global).unwrap();
+        assert_eq!(a.state.full(), b.state.full());
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&a.prediction), bits(&b.prediction));
+    }
+
+    #[test]
+    #[cfg(target_arch = "x86_64")]
+    fn avx2_kernels_match_the_portable_ones_bit_for_bit() {
+        if !std::arch::is_x86_feature_detected!("avx2") {
+            return;
+        }
+        let n = 1003;
+        let values: Vec<Vec<f32>> = (0..4)
+            .map(|k| {
+                (0..n)
+                    .map(|j| ((j * 37 + k * 11) % 101) as f32 * 0.173 - 7.0)
+                    .collect()
+            })
+            .collect();
+        let counts: Vec<Vec<u16>> = (0..4)
+            .map(|k| (0..n).map(|j| ((j * 5 + k * 3) % 3) as u16).collect())
+            .collect();
+        let c = [
+            &counts[0][..],
+            &counts[1][..],
+            &counts[2][..],
+            &counts[3][..],
+        ];
+        let v = [
+            &values[0][..],
+            &values[1][..],
+            &values[2][..],
+            &values[3][..],
+        ];
+        let run = |avx2: bool| {
+            let (mut sums, mut n_oob) = (vec![0.5; n], vec![1.0; n]);
+            let acc = Acc {
+                sums: &mut sums,
+                n: &mut n_oob,
+            };
+            // SAFETY: AVX2 support was checked at the top of the test.
+            let negative = if avx2 {
+                unsafe { add_group_avx2(c, v, acc) }
+            } else {
+                add_group(c, v, acc)
+            };
+            assert!(!negative);
+            sums.resize(n.div_ceil(LANES) * LANES, 0.0);
+            n_oob.resize(sums.len(), 0.0);
+            let y: Vec<f64> = (0..sums.len()).map(|j| (j % 9) as f64).collect();
+            let w = vec![1.5; sums.len()];
+            // SAFETY: as above.
+            let e = if avx2 {
+                unsafe { evaluate_regression_avx2(&sums, &n_oob, &y, &w) }
+            } else {
+                evaluate_regression(&sums, &n_oob, &y, &w)
+            };
+            (sums, n_oob, e)
+        };
+        let (a, b) = (run(false), run(true));
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&a.0), bits(&b.0));
+        assert_eq!(bits(&a.1), bits(&b.1));
+        assert_eq!(a.2, b.2);
+    }
+
+    #[test]
+    fn in_bag_nan_is_still_an_error() {
+        let t = array![[1.0, 2.0], [f64::NAN, 4.0]];
+        let c = array![[0u8, 0], [1, 0]];
+        match run(
+            &Values(t.view()),
+            &c.view(),
+            &[0.0, 0.0],
+            None,
+            &[2],
+            &Pool::Global,
+        ) {
+            Err(Error::InvalidValue { argument, message }) => {
+                assert_eq!(argument, "members");
+                assert!(message.contains("member 1, point 0"), "{message}");
+            }
+            _ => panic!("expected an error"),
+        }
+    }
+
+    #[test]
+    fn default_sizes_are_log_spaced_and_end_at_members() {
+        assert_eq!(default_curve_sizes(1), vec![1]);
+        let s = default_curve_sizes(200);
+        assert_eq!(s[0], 1);
+        assert_eq!(*s.last().unwrap(), 200);
+        assert!(s.windows(2).all(|w| w[0] < w[1]));
+        assert!(s.len() >= 12 && s.len() <= 20, "{s:?}");
+    }
+
+    #[test]
+    fn compensated_sum_is_order_independent() {
+        let values: Vec<f64> = (0..10_000).map(|i| 1e8 + (i as f64) * 1e-3).collect();
+        let mut forward = Sum::default();
+        values.iter().for_each(|&v| forward.add(v));
+        let mut backward = Sum::default();
+        values.iter().rev().for_each(|&v| backward.add(v));
+        assert_eq!(forward.value(), backward.value());
+    }
+}

@@ -1,0 +1,464 @@
+//! Spread of ensembles refitted on independent training sets: how much of a member's
+//! variance averaging can remove, and the bias–variance–covariance split of the error.
+//!
+//! `members[r, m, i]` is the prediction t_{r,m,i} of member m of the ensemble fitted on
+//! training set (replicate) r, at point i; R replicates of M members each.
+//!
+//! ```text
+//! One-way random-effects ANOVA per point (e.g. Searle, Casella & McCulloch 1992,
+//! "Variance Components", §3.5), replicates as groups:
+//!   f_r   = (1/M) Σ_m t_{r,m}                               ensemble mean of replicate r
+//!   MSW   = Σ_r Σ_m (t_{r,m} − f_r)² / (R(M − 1))           pooled within-replicate variance
+//!   MSB   = M · Σ_r (f_r − f̄)² / (R − 1)                    f̄ = (1/R) Σ_r f_r
+//!   within  = MSW                      E = σ²(1 − ρ)
+//!   between = (MSB − MSW) / M          E = ρσ², unbiased, may be negative from noise
+//!   σ² = between + within,   ρ = between⁺ / (between⁺ + within),  between⁺ = max(between, 0)
+//! Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, 2nd ed.,
+//! §15.2 eq. 15.1: Var(f_M) = ρσ² + (1 − ρ)σ²/M, estimated as between⁺ + within/M.
+//! ```
+//!
+//! With targets y, the bias–variance–covariance split of the expected squared error of the
+//! ensemble mean over training sets (Ueda & Nakano 1996, "Generalization error of ensemble
+//! estimators", ICNN), with moments over the R replicates taken with ddof 0 so that the
+//! terms add up exactly to the replicates' mean squared error:
+//!
+//! ```text
+//!   bias_i   = (1/M) Σ_m (E_r[t_{r,m}] − y_i) = f̄ − y_i
+//!   var_i    = (1/M) Σ_m Var_r(t_{r,m})
+//!   covar_i  = 1/(M(M − 1)) Σ_{m ≠ m'} Cov_r(t_{r,m}, t_{r,m'})
+//!            = (M² Var_r(f_r) − Σ_m Var_r(t_{r,m})) / (M(M − 1))
+//!   E_r[(f_r − y_i)²] = bias_i² + var_i / M + (1 − 1/M) covar_i
+//! ```
+
+use ndarray::{s, ArrayView1, ArrayView3};
+use rayon::prelude::*;
+
+use crate::error::{Error, Result};
+use crate::numeric::{Moments, Real};
+use crate::out_of_bag::Sum;
+use crate::parallel::{Monitor, Pool};
+
+/// Per-point outputs of [`replicate_spread`], written in place (each of length points).
+pub struct SpreadOutputs<'a> {
+    /// Pooled within-replicate member variance (ddof 1).
+    pub within: &'a mut [f64],
+    /// Unbiased between-replicate variance of the true ensemble mean (may be negative).
+    pub between: &'a mut [f64],
+    /// Observed variance of the replicate ensemble means, MSB / M (ddof 1).
+    pub ensemble_variance: &'a mut [f64],
+    /// With targets only (else empty): bias, variance, covariance and the replicates' mean
+    /// squared error of the ensemble mean.
+    pub split: Option<SplitOutputs<'a>>,
+}
+
+/// Per-point Ueda–Nakano terms.
+pub struct SplitOutputs<'a> {
+    pub bias: &'a mut [f64],
+    pub variance: &'a mut [f64],
+    pub covariance: &'a mut [f64],
+    pub expected_squared_error: &'a mut [f64],
+}
+
+/// Means over points of the per-point quantities (NaN where undefined, e.g. one member).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SpreadSummary {
+    pub within: f64,
+    pub between: f64,
+    pub ensemble_variance: f64,
+    /// Points whose between-replicate estimate is below zero.
+    pub negative_between: u64,
+    /// Mean of bias_i² (NaN without targets).
+    pub bias_squared: f64,
+    pub variance: f64,
+    pub covariance: f64,
+    pub expected_squared_error: f64,
+}
+
+const BLOCK_POINTS: usize = 512;
+
+/// Within- and between-replicate variances per point and averaged over points, and with
+/// `y` the bias–variance–covariance split (see the module documentation).
+///
+/// # Errors
+/// `members` for fewer than 2 replicates, no member or point, or NaN/inf predictions; `y`
+/// for a wrong length or non-finite targets; [`Error::Interrupted`].
+pub fn replicate_spread<T: Real>(
+    members: ArrayView3<'_, T>,
+    y: Option<ArrayView1<'_, f64>>,
+    out: SpreadOutputs<'_>,
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<SpreadSummary> {
+    let (r, m, n) = members.dim();
+    if r < 2 {
+        return Err(Error::value(
+            "members",
+            format!("needs at least 2 replicates (independent training sets), got {r}"),
+        ));
+    }
+    if m == 0 || n == 0 {
+        return Err(Error::value(
+            "members",
+            format!("needs at least one member and one point, got shape ({r}, {m}, {n})"),
+        ));
+    }
+    if let Some(y) = &y {
+        if y.len() != n {
+            return Err(Error::value(
+                "y",
+                format!("has {} values but `members` has {n} points", y.len()),
+            ));
+        }
+        if let Some(j) = y.iter().position(|v| !v.is_finite()) {
+            return Err(Error::value(
+                "y",
+                format!("targets must be finite; point {j} is {}", y[j]),
+            ));
+        }
+    }
+    let split_ok = match (&out.split, &y) {
+        (Some(s), Some(_)) => [
+            s.bias.len(),
+            s.variance.len(),
+            s.covariance.len(),
+            s.expected_squared_error.len(),
+        ]
+        .iter()
+        .all(|&len| len == n),
+        (None, None) => true,
+        _ => false,
+    };
+    if out.within.len() != n
+        || out.between.len() != n
+        || out.ensemble_variance.len() != n
+        || !split_ok
+    {
+        return Err(Error::value(
+            "members",
+            "output buffers do not match the input shape",
+        ));
+    }
+
+    let mut split = out.split.map(|s| {
+        [
+            s.bias.chunks_mut(BLOCK_POINTS),
+            s.variance.chunks_mut(BLOCK_POINTS),
+            s.covariance.chunks_mut(BLOCK_POINTS),
+            s.expected_squared_error.chunks_mut(BLOCK_POINTS),
+        ]
+    });
+    let mut jobs = Vec::with_capacity(n.div_ceil(BLOCK_POINTS));
+    for (i, ((within, between), ensemble)) in out
+        .within
+        .chunks_mut(BLOCK_POINTS)
+        .zip(out.between.chunks_mut(BLOCK_POINTS))
+        .zip(out.ensemble_variance.chunks_mut(BLOCK_POINTS))
+        .enumerate()
+    {
+        let parts = split.as_mut().map(|[a, b, c, d]| {
+            [
+                a.next().expect("same length"),
+                b.next().expect("same length"),
+                c.next().expect("same length"),
+                d.next().expect("same length"),
+            ]
+        });
+        jobs.push(Block {
+            start: i * BLOCK_POINTS,
+            within,
+            between,
+            ensemble,
+            split: parts,
+        });
+    }
+
+    let total = jobs.len();
+    let per_round = 8 * pool.threads().max(1);
+    let mut done = 0;
+    let mut sums = BlockSums::default();
+    let mut jobs = jobs.into_iter();
+    loop {
+        let round: Vec<Block<'_>> = jobs.by_ref().take(per_round).collect();
+        if round.is_empty() {
+            break;
+        }
+        let k = round.len();
+        let results: Vec<Result<BlockSums>> = pool.run(|| {
+            round
+                .into_par_iter()
+                .map(|job| job.run(members, y))
+                .collect()
+        });
+        for result in results {
+            sums.merge(&result?);
+        }
+        done += k;
+        monitor.progress(done, total)?;
+    }
+    let nf = n as f64;
+    let with_y = |s: &Sum| {
+        if y.is_some() {
+            s.value() / nf
+        } else {
+            f64::NAN
+        }
+    };
+    Ok(SpreadSummary {
+        within: sums.within.value() / nf,
+        between: sums.between.value() / nf,
+        ensemble_variance: sums.ensemble.value() / nf,
+        negative_between: sums.negative,
+        bias_squared: with_y(&sums.bias_squared),
+        variance: with_y(&sums.variance),
+        covariance: with_y(&sums.covariance),
+        expected_squared_error: with_y(&sums.expected),
+    })
+}
+
+/// Sums over a block of points of the per-point quantities, merged in point order.
+#[derive(Debug, Default, Clone, Copy)]
+struct BlockSums {
+    within: Sum,
+    between: Sum,
+    ensemble: Sum,
+    negative: u64,
+    bias_squared: Sum,
+    variance: Sum,
+    covariance: Sum,
+    expected: Sum,
+}
+
+impl BlockSums {
+    fn merge(&mut self, other: &BlockSums) {
+        self.within.merge(&other.within);
+        self.between.merge(&other.between);
+        self.ensemble.merge(&other.ensemble);
+        self.negative += other.negative;
+        self.bias_squared.merge(&other.bias_squared);
+        self.variance.merge(&other.variance);
+        self.covariance.merge(&other.covariance);
+        self.expected.merge(&other.expected);
+    }
+}
+
+/// One block of points and its slices of the outputs.
+struct Block<'a> {
+    start: usize,
+    within: &'a mut [f64],
+    between: &'a mut [f64],
+    ensemble: &'a mut [f64],
+    split: Option<[&'a mut [f64]; 4]>,
+}
+
+impl Block<'_> {
+    fn run<T: Real>(
+        self,
+        members: ArrayView3<'_, T>,
+        y: Option<ArrayView1<'_, f64>>,
+    ) -> Result<BlockSums> {
+        let rows = self.within.len();
+        let (r, m, _) = members.dim();
+        let block = members.slice(s![.., .., self.start..self.start + rows]);
+        // replicate[r * rows + j]: moments over members; member[k * rows + j]: over replicates.
+        let mut replicate = vec![Moments::default(); r * rows];
+        let mut member = vec![Moments::default(); m * rows];
+        for ri in 0..r {
+            for mi in 0..m {
+                let row = block.slice(s![ri, mi, ..]);
+                let rep = &mut replicate[ri * rows..(ri + 1) * rows];
+                let mem = &mut member[mi * rows..(mi + 1) * rows];
+                for (j, (&t, (a, b))) in row
+                    .iter()
+                    .zip(rep.iter_mut().zip(mem.iter_mut()))
+                    .enumerate()
+                {
+                    let t = t.to_f64();
+                    if !t.is_finite() {
+                        return Err(Error::value(
+                            "members",
+                            format!(
+                                "contains NaN or infinite predictions (replicate {ri}, member \
+                                 {mi}, point {})",
+                                self.start + j
+                            ),
+                        ));
+                    }
+                    a.push(t);
+                    b.push(t);
+                }
+            }
+        }
+        let mf = m as f64;
+        let mut sums = BlockSums::default();
+        let mut split = self.split;
+        for j in 0..rows {
+            let mut means = Moments::default();
+            let mut pooled = Sum::default();
+            for ri in 0..r {
+                let a = &replicate[ri * rows + j];
+                means.push(a.mean());
+                pooled.add(a.variance(1));
+            }
+            let within = pooled.value() / r as f64;
+            let msb = mf * means.variance(1);
+            let between = (msb - within) / mf;
+            self.within[j] = within;
+            self.between[j] = between;
+            self.ensemble[j] = means.variance(1);
+            sums.within.add(within);
+            sums.between.add(between);
+            sums.ensemble.add(means.variance(1));
+            sums.negative += u64::from(between < 0.0);
+            if let (Some([bias_out, var_out, cov_out, err_out]), Some(y)) = (split.as_mut(), &y) {
+                let bias = means.mean() - y[j];
+                let mut member_variance = Sum::default();
+                for mi in 0..m {
+                    member_variance.add(member[mi * rows + j].variance(0));
+                }
+                let variance = member_variance.value() / mf;
+                let ensemble0 = means.variance(0);
+                let covariance = if m > 1 {
+                    (mf * mf * ensemble0 - member_variance.value()) / (mf * (mf - 1.0))
+                } else {
+                    f64::NAN
+                };
+                let mut error = Sum::default();
+                for ri in 0..r {
+                    let d = replicate[ri * rows + j].mean() - y[j];
+                    error.add(d * d);
+                }
+                let expected = error.value() / r as f64;
+                bias_out[j] = bias;
+                var_out[j] = variance;
+                cov_out[j] = covariance;
+                err_out[j] = expected;
+                sums.bias_squared.add(bias * bias);
+                sums.variance.add(variance);
+                sums.covariance.add(covariance);
+                sums.expected.add(expected);
+            }
+        }
+        Ok(sums)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::{Silent, Threads};
+    use approx::assert_relative_eq;
+    use ndarray::{Array1, Array3};
+
+    struct Out {
+        within: Vec<f64>,
+        between: Vec<f64>,
+        ensemble: Vec<f64>,
+        split: [Vec<f64>; 4],
+        summary: SpreadSummary,
+    }
+
+    fn run(members: ArrayView3<'_, f64>, y: Option<&[f64]>, pool: &Pool) -> Result<Out> {
+        let n = members.dim().2;
+        let (mut within, mut between, mut ensemble) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+        let k = if y.is_some() { n } else { 0 };
+        let mut split = [vec![0.0; k], vec![0.0; k], vec![0.0; k], vec![0.0; k]];
+        let [a, b, c, d] = &mut split;
+        let summary = replicate_spread(
+            members,
+            y.map(ArrayView1::from),
+            SpreadOutputs {
+                within: &mut within,
+                between: &mut between,
+                ensemble_variance: &mut ensemble,
+                split: y.map(|_| SplitOutputs {
+                    bias: a,
+                    variance: b,
+                    covariance: c,
+                    expected_squared_error: d,
+                }),
+            },
+            pool,
+            &Silent,
+        )?;
+        Ok(Out {
+            within,
+            between,
+            ensemble,
+            split,
+            summary,
+        })
+    }
+
+    #[test]
+    fn hand_computed_anova() {
+        // Point 0: replicate 0 members (1, 3), replicate 1 members (5, 7).
+        // f = (2, 6); MSW = ((1+1) + (1+1)) / (2·1) = 2; MSB = 2 · Var(2, 6) = 2 · 8 = 16;
+        // between = (16 − 2)/2 = 7.
+        let t = Array3::from_shape_vec((2, 2, 1), vec![1.0, 3.0, 5.0, 7.0]).unwrap();
+        let out = run(t.view(), Some(&[3.0]), &Pool::Global).unwrap();
+        assert_relative_eq!(out.within[0], 2.0);
+        assert_relative_eq!(out.between[0], 7.0);
+        assert_relative_eq!(out.ensemble[0], 8.0);
+        // Split: bias = 4 − 3 = 1; member variances (ddof 0) over replicates: 4, 4 → 4;
+        // Var0(f) = 4 → covar = (4·4 − 8)/2 = 4; E(f − y)² = ((2−3)² + (6−3)²)/2 = 5
+        //   = 1 + 4/2 + (1/2)·4.
+        let [bias, var, cov, err] = &out.split;
+        assert_relative_eq!(bias[0], 1.0);
+        assert_relative_eq!(var[0], 4.0);
+        assert_relative_eq!(cov[0], 4.0);
+        assert_relative_eq!(err[0], 5.0);
+        assert_relative_eq!(out.summary.expected_squared_error, 5.0);
+        assert_eq!(out.summary.negative_between, 0);
+    }
+
+    #[test]
+    fn split_adds_up_and_threads_do_not_matter() {
+        let (r, m, n) = (5, 4, 3000);
+        let t = Array3::from_shape_fn((r, m, n), |(a, b, c)| {
+            (((a * 13 + b * 7 + c * 3) % 17) as f64).sin() + c as f64 * 1e-3
+        });
+        let y: Array1<f64> = (0..n).map(|c| (c % 5) as f64 * 0.1).collect();
+        let one = Threads::Fixed(1).pool().unwrap();
+        let two = Threads::Fixed(2).pool().unwrap();
+        let a = run(t.view(), y.as_slice(), &one).unwrap();
+        let b = run(t.view(), y.as_slice(), &two).unwrap();
+        assert_eq!(a.summary, b.summary);
+        let mf = m as f64;
+        for j in 0..n {
+            let [bias, var, cov, err] = &a.split;
+            let sum = bias[j] * bias[j] + var[j] / mf + (1.0 - 1.0 / mf) * cov[j];
+            assert_relative_eq!(sum, err[j], max_relative = 1e-12, epsilon = 1e-14);
+        }
+        assert!(a.summary.negative_between > 0);
+    }
+
+    #[test]
+    fn errors_and_one_member() {
+        let t = Array3::<f64>::zeros((1, 3, 2));
+        assert!(matches!(
+            run(t.view(), None, &Pool::Global),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
+        let mut t = Array3::<f64>::zeros((2, 3, 2));
+        t[[1, 2, 1]] = f64::NAN;
+        assert!(matches!(
+            run(t.view(), None, &Pool::Global),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
+        let t = Array3::<f64>::zeros((2, 3, 2));
+        assert!(matches!(
+            run(t.view(), Some(&[1.0]), &Pool::Global),
+            Err(Error::InvalidValue { argument: "y", .. })
+        ));
+        let t = Array3::from_shape_fn((3, 1, 2), |(a, _, c)| (a + c) as f64);
+        let out = run(t.view(), Some(&[0.0, 0.0]), &Pool::Global).unwrap();
+        assert!(out.summary.within.is_nan() && out.summary.between.is_nan());
+        assert!(out.summary.covariance.is_nan());
+    }
+}
