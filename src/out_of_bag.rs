@@ -799,13 +799,13 @@ fn block_points(width: usize) -> usize {
 ///
 /// `members` are predictions on the training points (see the module documentation for the
 /// formulas), `counts` the in-bag counts (members, points), `y` the targets (class indices
-/// for classification, given as floats), `weights` optional point weights ≥ 0. `sizes` are
+/// for classification, given as floats), `point_weights` optional point weights ≥ 0. `sizes` are
 /// the ensemble sizes of the curve (strictly increasing, ending at the member count; see
 /// [`default_curve_sizes`]).
 ///
 /// # Errors
 /// `members` for an empty ensemble or bad values (see [`MemberPredictions::accumulate`]);
-/// `counts` for a shape different from `members` or negative counts; `y`, `weights` for a
+/// `counts` for a shape different from `members` or negative counts; `y`, `point_weights` for a
 /// wrong length or bad values (non-finite; class index out of range; negative weight);
 /// `curve_sizes`; [`Error::Interrupted`] from the monitor.
 #[allow(clippy::too_many_arguments)]
@@ -847,7 +847,7 @@ pub fn out_of_bag(
     if let Some(w) = &weights {
         if w.len() != n {
             return Err(Error::value(
-                "weights",
+                "point_weights",
                 format!("has {} values but `members` has {n} points", w.len()),
             ));
         }
@@ -945,7 +945,7 @@ impl Block<'_> {
         if let Some(w) = &weights {
             if let Some(j) = w.iter().position(|&v| !(v.is_finite() && v >= 0.0)) {
                 return Err(Error::value(
-                    "weights",
+                    "point_weights",
                     format!(
                         "must be finite and non-negative; point {} is {}",
                         self.start + j,
@@ -1464,7 +1464,7 @@ mod tests {
                 &[1],
                 &Pool::Global
             )),
-            "weights"
+            "point_weights"
         );
         assert_eq!(
             err(run(

@@ -108,7 +108,7 @@ def test_regression_matches_numpy_reference_and_sklearn_metrics():
 def test_weights_enter_every_mean():
     members, counts, y = regression_data(seed=2)
     w = np.random.default_rng(3).uniform(0, 2, size=len(y))
-    oob = bagwise.out_of_bag(members, counts, y, weights=w)
+    oob = bagwise.out_of_bag(members, counts, y, point_weights=w)
     ref = reference(members, counts, y, "regression", weights=w)
     assert oob.squared_error == pytest.approx(ref["squared_error"], rel=1e-12)
     # sklearn.metrics.mean_squared_error with sample_weight
@@ -118,8 +118,8 @@ def test_weights_enter_every_mean():
 
 def test_zero_weights_give_nan_with_a_warning():
     members, counts, y = regression_data(n=100, m=20, seed=22)
-    with pytest.warns(RuntimeWarning, match="`weights`: .* sum to zero"):
-        oob = bagwise.out_of_bag(members, counts, y, weights=np.zeros(100))
+    with pytest.warns(RuntimeWarning, match="`point_weights`: .* sum to zero"):
+        oob = bagwise.out_of_bag(members, counts, y, point_weights=np.zeros(100))
     assert np.isnan(oob.error) and np.isfinite(oob.prediction).all()
 
 
@@ -385,7 +385,7 @@ def test_stream_over_memory_mapped_chunks_equals_in_memory(tmp_path, kind):
     for a, b in zip(edges[:-1], edges[1:]):
         stream.update(mm["members"][:, a:b], mm["counts"][:, a:b], mm["y"][a:b], mm["w"][a:b])
     got = stream.finish()
-    want = bagwise.out_of_bag(members, counts, y, weights=w,
+    want = bagwise.out_of_bag(members, counts, y, point_weights=w,
                               metric="brier_score" if kind != "regression" else None)
     np.testing.assert_array_equal(got.n_out_of_bag, want.n_out_of_bag)
     np.testing.assert_allclose(got.prediction, want.prediction, rtol=1e-12)
@@ -446,10 +446,10 @@ def test_bad_input_raises_naming_the_argument():
         bagwise.out_of_bag(members[None, None], counts, y)
     with pytest.raises(ValueError, match=r"^`metric`"):
         bagwise.out_of_bag(members, counts, y, metric="error_rate")
-    with pytest.raises(ValueError, match=r"^`weights`"):
-        bagwise.out_of_bag(members, counts, y, weights=-np.ones(50))
-    with pytest.raises(ValueError, match=r"^`weights`"):
-        bagwise.out_of_bag(members, counts, y, weights=np.ones(3))
+    with pytest.raises(ValueError, match=r"^`point_weights`"):
+        bagwise.out_of_bag(members, counts, y, point_weights=-np.ones(50))
+    with pytest.raises(ValueError, match=r"^`point_weights`"):
+        bagwise.out_of_bag(members, counts, y, point_weights=np.ones(3))
     with pytest.raises(ValueError, match=r"^`curve_sizes`"):
         bagwise.out_of_bag(members, counts, y, curve_sizes=[0, 2])
     with pytest.raises(ValueError, match=r"^`threads`|^`threads`: must be at least 1"):

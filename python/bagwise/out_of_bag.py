@@ -66,7 +66,7 @@ def _curve_sizes(curve_sizes, n_members):
     return sizes
 
 
-def _out_of_bag_iv(members, counts, y, metric, weights, threads, curve_sizes):
+def _out_of_bag_iv(members, counts, y, metric, point_weights, threads, curve_sizes):
     """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core."""
     from .resampling import Resample
 
@@ -111,20 +111,20 @@ def _out_of_bag_iv(members, counts, y, metric, weights, threads, curve_sizes):
         metric = allowed[0]
     elif metric not in allowed:
         raise ValueError(f"`metric`: for {task} expected one of {allowed}, got {metric!r}")
-    if weights is not None:
-        weights = _array(weights, "weights")
-        if weights.ndim != 1 or weights.shape[0] != n_points:
+    if point_weights is not None:
+        point_weights = _array(point_weights, "point_weights")
+        if point_weights.ndim != 1 or point_weights.shape[0] != n_points:
             raise ValueError(
-                f"`weights`: expected shape ({n_points},) to match `members`, got {weights.shape}"
+                f"`point_weights`: expected shape ({n_points},) to match `members`, got {point_weights.shape}"
             )
-        if weights.dtype.kind not in "iuf":
-            raise TypeError(f"`weights`: expected numbers, got dtype {weights.dtype}")
-        weights = np.ascontiguousarray(weights, dtype=np.float64)
+        if point_weights.dtype.kind not in "iuf":
+            raise TypeError(f"`point_weights`: expected numbers, got dtype {point_weights.dtype}")
+        point_weights = np.ascontiguousarray(point_weights, dtype=np.float64)
     sizes = _curve_sizes(curve_sizes, n_members)
-    return members, counts, y, kind, n_classes, metric, weights, threads_value(threads), sizes
+    return members, counts, y, kind, n_classes, metric, point_weights, threads_value(threads), sizes
 
 
-def out_of_bag(members, counts, y, *, metric=None, weights=None, threads=None,
+def out_of_bag(members, counts, y, *, metric=None, point_weights=None, threads=None,
                curve_sizes=None) -> OutOfBag:
     """Out-of-bag predictions and error of a bagged ensemble, and its error curve.
 
@@ -150,8 +150,8 @@ def out_of_bag(members, counts, y, *, metric=None, weights=None, threads=None,
         The headline error: ``"squared_error"`` (default) or ``"absolute_error"`` for
         regression; ``"error_rate"`` (default), ``"brier_score"`` or ``"log_loss"`` for
         classification. All of them are computed either way.
-    weights : array-like, shape (n_points,), optional
-        Non-negative point weights of the error means (default: all 1).
+    point_weights : array-like, shape (n_points,), optional
+        Non-negative weights of the points in the error means (default: all 1).
     threads : int, optional
         Worker threads (default: all cores). Results do not depend on it.
     curve_sizes : sequence of int, optional
@@ -167,7 +167,7 @@ def out_of_bag(members, counts, y, *, metric=None, weights=None, threads=None,
     -----
     Errors are weighted means over the points that have at least one out-of-bag member;
     points without one get a NaN prediction, are left out of the errors, are counted in
-    ``n_without_out_of_bag`` and raise a ``RuntimeWarning`` (as do weights that sum to zero
+    ``n_without_out_of_bag`` and raise a ``RuntimeWarning`` (as do point weights that sum to zero
     over the covered points, which make every error NaN). The Brier score is the
     multi-class form ``sum_c (p_c - [y = c])**2`` (twice scikit-learn's binary
     ``brier_score_loss``); the log loss uses ``-log(max(p_y, 1e-15))``.
@@ -187,10 +187,10 @@ def out_of_bag(members, counts, y, *, metric=None, weights=None, threads=None,
     >>> oob.curve_sizes[:4].tolist(), int(oob.curve_sizes[-1])
     ([1, 2, 3, 4], 100)
     """
-    (members, counts, y, kind, n_classes, metric, weights, threads,
-     sizes) = _out_of_bag_iv(members, counts, y, metric, weights, threads, curve_sizes)
+    (members, counts, y, kind, n_classes, metric, point_weights, threads,
+     sizes) = _out_of_bag_iv(members, counts, y, metric, point_weights, threads, curve_sizes)
     state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
-        members, counts, y, weights, sizes, kind, n_classes, threads)
+        members, counts, y, point_weights, sizes, kind, n_classes, threads)
     return OutOfBag._build(state, kind, metric, prediction, n_oob, probabilities)
 
 
@@ -237,16 +237,16 @@ class OutOfBagStream:
         self._state = None
         self._parts: list[tuple[np.ndarray, np.ndarray, np.ndarray | None]] = []
 
-    def update(self, members_chunk, counts_chunk, y_chunk, weights_chunk=None) -> None:
+    def update(self, members_chunk, counts_chunk, y_chunk, point_weights_chunk=None) -> None:
         """Add the next chunk of points: arrays as in :func:`out_of_bag`, restricted to the
         chunk's points (e.g. ``members[:, a:b]`` of a memory map)."""
         if self._kind is not None:
             kind = _members_kind(_array(members_chunk, "members_chunk"))
             if kind != self._kind:
                 raise ValueError(f"`members_chunk`: holds {kind} but earlier chunks held {self._kind}")
-        (members, counts, y, kind, n_classes, metric, weights, threads,
+        (members, counts, y, kind, n_classes, metric, point_weights, threads,
          sizes) = _out_of_bag_iv(members_chunk, counts_chunk, y_chunk, self._metric,
-                                 weights_chunk, self._threads, self._curve_sizes)
+                                 point_weights_chunk, self._threads, self._curve_sizes)
         if self._state is not None:
             if members.shape[0] != self._state.members:
                 raise ValueError(
@@ -258,7 +258,7 @@ class OutOfBagStream:
                     f"`members_chunk`: has {members.shape[2]} classes but earlier chunks had "
                     f"{self._parts[0][2].shape[1]}"
                 )
-        state, part = _core.out_of_bag_chunk(members, counts, y, weights, sizes, kind,
+        state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
                                              n_classes, threads)
         self._state = state if self._state is None else self._state.merge(state)
         self._kind, self._metric = kind, metric
@@ -365,7 +365,7 @@ class OutOfBag:
         covered = int(curve["covered"][-1])
         if covered and math.isnan(errors[metric]):
             warnings.warn(
-                f"`weights`: the weights of the {covered} covered points sum to zero, so every "
+                f"`point_weights`: the weights of the {covered} covered points sum to zero, so every "
                 "error is NaN",
                 RuntimeWarning, stacklevel=3,
             )
