@@ -6,12 +6,14 @@
 //!   strata, groups, moving blocks);
 //! - [`random`]: one reproducible random stream per member;
 //! - [`numeric`]: the f32/f64 input trait and mergeable (Chan-style) moments;
-//! - [`parallel`]: explicit thread counts and progress/interrupt hooks for long loops.
+//! - [`parallel`]: explicit thread counts and progress/interrupt hooks for long loops;
+//! - [`learners`]: native learners (bagged CART trees) fit on in-bag counts as weights.
 //!
 //! The pyo3 bindings live in the `python` module behind the `python` cargo feature, which
 //! maturin turns on; `cargo test` builds and tests the core without linking Python.
 
 pub mod error;
+pub mod learners;
 pub mod numeric;
 pub mod parallel;
 pub mod random;

@@ -15,6 +15,7 @@ use crate::error::Error;
 use crate::parallel::{Monitor, Pool, Threads};
 
 mod resampling;
+mod tree;
 
 /// Maps a core error to the Python exception a user expects.
 pub(crate) fn to_py_err(error: Error) -> PyErr {
@@ -97,7 +98,6 @@ pub(crate) fn zeros<'py, T: Element>(
     Ok(array.cast_into::<PyArray2<T>>()?)
 }
 
-#[allow(dead_code)] // first used by the diagnostics bindings
 /// A 2-D or 3-D float input read as f32 or f64 without an upcasting copy, any strides.
 /// Use `FloatArray::F32(a) => core(a.as_array())` etc. and keep the dispatch in one match.
 pub(crate) enum FloatArray<'py, D: numpy::ndarray::Dimension> {
@@ -105,7 +105,6 @@ pub(crate) enum FloatArray<'py, D: numpy::ndarray::Dimension> {
     F64(numpy::PyReadonlyArray<'py, f64, D>),
 }
 
-#[allow(dead_code)]
 impl<'py, D: numpy::ndarray::Dimension> FloatArray<'py, D> {
     /// Reads `object` as a float array of dimension `D`, naming `argument` on failure.
     pub(crate) fn extract(object: &Bound<'py, PyAny>, argument: &'static str) -> PyResult<Self> {
@@ -136,5 +135,6 @@ pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     resampling::register(m)?;
+    tree::register(m)?;
     Ok(())
 }
