@@ -246,7 +246,7 @@ def test_progress_callback_and_interrupt():
     calls = []
     fit_regression(x, y, counts, threads=2, progress=lambda done, total: calls.append((done, total)))
     assert calls[-1] == (12, 12)
-    assert all(b[0] > a[0] for a, b in zip(calls, calls[1:]))
+    assert all(b[0] >= a[0] for a, b in zip(calls, calls[1:]))
 
     def stop(done, total):
         raise KeyboardInterrupt
@@ -327,4 +327,4 @@ def test_ctrl_c_stops_a_long_fit_quickly():
     out, _ = proc.communicate(timeout=60)
     waited = time.perf_counter() - sent
     assert out.startswith("interrupted"), out
-    assert waited < 2.0
+    assert waited < 1.0

@@ -34,8 +34,9 @@
 //! ```text
 //! exact       thresholds at midpoints (a + b)/2 between adjacent distinct in-node values
 //!             a < b (if rounding puts the midpoint on b, the threshold is a); rows with
-//!             x ≤ threshold go left. Each feature is ranked once per fit; a node sorts the
-//!             ranks of its rows.
+//!             x ≤ threshold go left. Each feature is sorted once per fit; every member
+//!             keeps per-feature sorted lists of its in-bag rows, split by stable
+//!             partitions, so no node ever sorts.
 //! histogram   each feature is cut once per fit into at most 256 quantile bins shared by all
 //!             members (every distinct value its own bin when there are at most 256); bin
 //!             b holds e_{b−1} < x ≤ e_b with the upper edge e_b the midpoint between the
@@ -53,6 +54,9 @@
 //! from stream m of [`MemberStreams`] seeded with [`feature_stream_seed`]`(seed)`, a
 //! SplitMix64 finaliser of `seed + FEATURE_STREAM_SALT`, so they never coincide with the
 //! resampling streams of the same seed. Results do not depend on the thread count.
+
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::time::{Duration, Instant};
 
 use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
@@ -550,6 +554,8 @@ impl TreeEnsemble {
 struct Columns {
     n_rows: usize,
     n_features: usize,
+    /// Rows sorted by value, per feature (only when exact splits are searched).
+    order: Vec<u32>,
     ranks: Vec<u32>,
     distinct: Vec<Vec<f64>>,
     codes: Vec<u8>,
@@ -568,6 +574,7 @@ fn midpoint(lo: f64, hi: f64) -> f64 {
 }
 
 struct FeatureColumn {
+    order: Vec<u32>,
     ranks: Vec<u32>,
     distinct: Vec<f64>,
     codes: Vec<u8>,
@@ -623,6 +630,7 @@ fn build_column<T: Real>(column: ArrayView1<'_, T>, bins: bool) -> FeatureColumn
         codes = ranks.iter().map(|&r| bin_of_rank[r as usize]).collect();
     }
     FeatureColumn {
+        order: order.into_iter().map(|(_, i)| i).collect(),
         ranks,
         distinct,
         codes,
@@ -631,7 +639,7 @@ fn build_column<T: Real>(column: ArrayView1<'_, T>, bins: bool) -> FeatureColumn
 }
 
 impl Columns {
-    fn build<T: Real>(x: &ArrayView2<'_, T>, bins: bool, pool: &Pool) -> Columns {
+    fn build<T: Real>(x: &ArrayView2<'_, T>, bins: bool, exact: bool, pool: &Pool) -> Columns {
         let (n_rows, n_features) = x.dim();
         let columns: Vec<FeatureColumn> = pool.run(|| {
             (0..n_features)
@@ -642,12 +650,16 @@ impl Columns {
         let mut out = Columns {
             n_rows,
             n_features,
+            order: Vec::with_capacity(if exact { n_rows * n_features } else { 0 }),
             ranks: Vec::with_capacity(n_rows * n_features),
             distinct: Vec::with_capacity(n_features),
             codes: Vec::with_capacity(if bins { n_rows * n_features } else { 0 }),
             edges: Vec::with_capacity(n_features),
         };
         for c in columns {
+            if exact {
+                out.order.extend_from_slice(&c.order);
+            }
             out.ranks.extend_from_slice(&c.ranks);
             out.codes.extend_from_slice(&c.codes);
             out.distinct.push(c.distinct);
@@ -714,12 +726,18 @@ struct Grower<'a> {
     regression: bool,
     stat_width: usize,
     min_leaf: f64,
-    // Per-position arrays, permuted as nodes are partitioned.
-    rows: Vec<u32>,
+    // Per in-bag row ("slot"): its row in x, weight and target; never permuted.
+    slot_row: Vec<u32>,
     weight: Vec<f64>,
     target: Vec<f64>,
+    /// The slots of each node's range `start..end`, in no particular order.
+    order: Vec<u32>,
+    /// Per feature, `rank << 32 | slot` sorted by rank within each node's range (kept
+    /// sorted by stable partitions, so exact scans never sort); empty for histograms only.
+    sorted: Vec<u64>,
     // Scratch, reused by every node.
-    keys: Vec<u64>,
+    goes_left: Vec<bool>,
+    buffer: Vec<u64>,
     left: Vec<f64>,
     one_feature: Vec<f64>,
     features: Vec<usize>,
@@ -739,6 +757,7 @@ struct Pending {
 }
 
 impl<'a> Grower<'a> {
+    /// Adds slot `p` to `stats`.
     #[inline]
     fn add(&self, stats: &mut [f64], p: usize) {
         let w = self.weight[p];
@@ -779,15 +798,17 @@ impl<'a> Grower<'a> {
 
     fn stats_of(&self, start: usize, end: usize) -> Vec<f64> {
         let mut s = vec![0.0; self.stat_width];
-        (start..end).for_each(|p| self.add(&mut s, p));
+        (start..end).for_each(|p| self.add(&mut s, self.order[p] as usize));
         s
     }
 
     fn is_pure(&self, start: usize, end: usize, stats: &[f64]) -> bool {
         if self.regression {
             let mean = stats[1] / stats[0];
-            let ss: f64 = (start..end)
-                .map(|p| {
+            let ss: f64 = self.order[start..end]
+                .iter()
+                .map(|&p| {
+                    let p = p as usize;
                     let d = self.target[p] - mean;
                     self.weight[p] * d * d
                 })
@@ -819,8 +840,9 @@ impl<'a> Grower<'a> {
     fn fill_histogram(&self, f: usize, start: usize, end: usize, h: &mut [f64]) {
         let s = self.stat_width;
         let codes = &self.columns.codes[f * self.columns.n_rows..(f + 1) * self.columns.n_rows];
-        for p in start..end {
-            let o = codes[self.rows[p] as usize] as usize * s;
+        for &slot in &self.order[start..end] {
+            let p = slot as usize;
+            let o = codes[self.slot_row[p] as usize] as usize * s;
             let w = self.weight[p];
             h[o] += w;
             if self.regression {
@@ -875,14 +897,10 @@ impl<'a> Grower<'a> {
 
     /// Best exact split of feature `f` over positions `start..end`.
     fn scan_exact(&mut self, f: usize, start: usize, end: usize, total: &[f64]) -> Option<Split> {
-        let mut keys = std::mem::take(&mut self.keys);
         let mut left = std::mem::take(&mut self.left);
-        keys.clear();
-        keys.extend(
-            (start..end).map(|p| (u64::from(self.columns.rank(f, self.rows[p])) << 32) | p as u64),
-        );
-        keys.sort_unstable();
         left.iter_mut().for_each(|v| *v = 0.0);
+        let n_in = self.slot_row.len();
+        let keys = &self.sorted[f * n_in + start..f * n_in + end];
         let mut best: Option<Split> = None;
         for i in 0..keys.len().saturating_sub(1) {
             self.add(&mut left, (keys[i] & 0xFFFF_FFFF) as usize);
@@ -907,7 +925,6 @@ impl<'a> Grower<'a> {
                 best = Some(candidate);
             }
         }
-        self.keys = keys;
         self.left = left;
         best
     }
@@ -981,22 +998,40 @@ impl<'a> Grower<'a> {
     /// position.
     fn partition(&mut self, start: usize, end: usize, split: &Split) -> usize {
         let columns = self.columns;
-        let goes_left = |row: u32| {
-            if split.by_bins {
+        for &slot in &self.order[start..end] {
+            let row = self.slot_row[slot as usize];
+            self.goes_left[slot as usize] = if split.by_bins {
                 u32::from(columns.code(split.feature, row)) <= split.cut
             } else {
                 columns.rank(split.feature, row) <= split.cut
-            }
-        };
+            };
+        }
         let (mut i, mut j) = (start, end);
         while i < j {
-            if goes_left(self.rows[i]) {
+            if self.goes_left[self.order[i] as usize] {
                 i += 1;
             } else {
                 j -= 1;
-                self.rows.swap(i, j);
-                self.weight.swap(i, j);
-                self.target.swap(i, j);
+                self.order.swap(i, j);
+            }
+        }
+        // Stable partitions keep every feature's list sorted within both children.
+        let n_in = self.slot_row.len();
+        if !self.sorted.is_empty() {
+            for f in 0..columns.n_features {
+                let list = &mut self.sorted[f * n_in + start..f * n_in + end];
+                self.buffer.clear();
+                let mut k = 0;
+                for q in 0..list.len() {
+                    let key = list[q];
+                    if self.goes_left[(key & 0xFFFF_FFFF) as usize] {
+                        list[k] = key;
+                        k += 1;
+                    } else {
+                        self.buffer.push(key);
+                    }
+                }
+                list[k..].copy_from_slice(&self.buffer);
             }
         }
         i
@@ -1017,8 +1052,9 @@ impl<'a> Grower<'a> {
         }
     }
 
-    fn grow(mut self) -> Tree {
-        let n = self.rows.len();
+    /// Grows the tree; `None` if `stop` was raised meanwhile (checked at every node).
+    fn grow(mut self, stop: &AtomicBool) -> Option<Tree> {
+        let n = self.slot_row.len();
         let root_stats = self.stats_of(0, n);
         self.tree.nodes.push(Node::PLACEHOLDER);
         let all_features = self.config.split_features.is_none();
@@ -1032,6 +1068,9 @@ impl<'a> Grower<'a> {
             histogram: root_histogram,
         }];
         while let Some(job) = stack.pop() {
+            if stop.load(Ordering::Relaxed) {
+                return None;
+            }
             let Pending {
                 node,
                 start,
@@ -1111,14 +1150,12 @@ impl<'a> Grower<'a> {
                 histogram: left_h,
             });
         }
-        self.tree
+        Some(self.tree)
     }
 }
 
-/// Members fit per parallel chunk between progress reports.
-fn chunk_members(threads: usize) -> usize {
-    threads.max(1)
-}
+/// How often the calling thread reports progress (and so checks for Ctrl-C) during a fit.
+const HEARTBEAT: Duration = Duration::from_millis(100);
 
 impl TreeConfig {
     /// The checked parameters.
@@ -1127,8 +1164,10 @@ impl TreeConfig {
     }
 
     /// Grows one tree per member on `x` (rows × features, any strides, f32 or f64) with the
-    /// in-bag counts as row weights. Members are fit in parallel in chunks; `monitor` hears
-    /// the number of finished members between chunks.
+    /// in-bag counts as row weights. Members are fit in parallel; from the calling thread,
+    /// `monitor` hears the number of finished members about every 100 ms (the same number
+    /// may repeat while long members grow) and once more at the end; an error from it stops
+    /// every grower within a few nodes.
     ///
     /// # Errors
     /// `x` empty, with non-finite values or more than 2^32 − 1 rows; `y` of the wrong length,
@@ -1211,25 +1250,51 @@ impl TreeConfig {
             }
         }
         let bins = p.splitter != Splitter::Exact;
-        let columns = Columns::build(&x, bins, pool);
-        let mut streams = MemberStreams::new(feature_stream_seed(p.seed));
-        let mut trees = Vec::with_capacity(members);
-        let chunk = chunk_members(pool.threads());
-        let mut done = 0;
-        while done < members {
-            let k = chunk.min(members - done);
-            let draws = streams.take(k);
-            let grown: Vec<Tree> = pool.run(|| {
-                draws
-                    .into_par_iter()
-                    .enumerate()
-                    .map(|(j, d)| self.grow_member(&columns, &target, in_bag, done + j, d))
-                    .collect()
+        let columns = Columns::build(&x, bins, p.splitter != Splitter::Histogram, pool);
+        let draws = MemberStreams::new(feature_stream_seed(p.seed)).take(members);
+        // The members grow on the pool in a worker thread while the calling thread reports
+        // the number finished every HEARTBEAT; an error from the monitor (Ctrl-C, a
+        // raising callback) raises `stop`, which every grower checks between nodes.
+        let stop = AtomicBool::new(false);
+        let finished = AtomicUsize::new(0);
+        let (grown, outcome) = std::thread::scope(|scope| {
+            let worker = scope.spawn(|| {
+                pool.run(|| {
+                    draws
+                        .into_par_iter()
+                        .enumerate()
+                        .map(|(m, d)| {
+                            let tree = self.grow_member(&columns, &target, in_bag, m, d, &stop);
+                            finished.fetch_add(1, Ordering::Relaxed);
+                            tree
+                        })
+                        .collect::<Vec<Option<Tree>>>()
+                })
             });
-            trees.extend(grown);
-            done += k;
-            monitor.progress(done, members)?;
-        }
+            let mut outcome = Ok(());
+            let mut last = Instant::now();
+            while !worker.is_finished() {
+                std::thread::sleep(Duration::from_millis(5));
+                if outcome.is_ok() && last.elapsed() >= HEARTBEAT {
+                    last = Instant::now();
+                    let done = finished.load(Ordering::Relaxed);
+                    if let Err(e) = monitor.progress(done, members) {
+                        stop.store(true, Ordering::Relaxed);
+                        outcome = Err(e);
+                    }
+                }
+            }
+            let grown = worker
+                .join()
+                .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
+            (grown, outcome)
+        });
+        outcome?;
+        let trees: Vec<Tree> = grown
+            .into_iter()
+            .collect::<Option<_>>()
+            .ok_or(Error::Interrupted)?;
+        monitor.progress(members, members)?;
         Ok(TreeEnsemble {
             task: p.task,
             n_features,
@@ -1244,7 +1309,11 @@ impl TreeConfig {
         in_bag: InBag<'_, C>,
         member: usize,
         draws: Draws,
-    ) -> Tree {
+        stop: &AtomicBool,
+    ) -> Option<Tree> {
+        if stop.load(Ordering::Relaxed) {
+            return None;
+        }
         let p = &self.params;
         let (mut rows, mut weight) = (Vec::new(), Vec::new());
         match in_bag {
@@ -1263,6 +1332,25 @@ impl TreeConfig {
             }
         }
         let target_pos = rows.iter().map(|&r| target[r as usize]).collect();
+        let n_in = rows.len();
+        let mut sorted = Vec::new();
+        if !columns.order.is_empty() {
+            // Each feature's global value order restricted to the in-bag rows: sorted
+            // lists in O(features · rows), no sort per member.
+            let mut slot_of_row = vec![u32::MAX; columns.n_rows];
+            rows.iter()
+                .enumerate()
+                .for_each(|(slot, &r)| slot_of_row[r as usize] = slot as u32);
+            sorted.reserve_exact(n_in * columns.n_features);
+            for f in 0..columns.n_features {
+                let order = &columns.order[f * columns.n_rows..(f + 1) * columns.n_rows];
+                sorted.extend(order.iter().filter_map(|&r| {
+                    let slot = slot_of_row[r as usize];
+                    (slot != u32::MAX)
+                        .then(|| (u64::from(columns.rank(f, r)) << 32) | u64::from(slot))
+                }));
+            }
+        }
         let stat_width = match p.task {
             Task::Regression => 2,
             Task::Classification { n_classes } => 1 + n_classes,
@@ -1273,10 +1361,13 @@ impl TreeConfig {
             regression: p.task == Task::Regression,
             stat_width,
             min_leaf: p.min_leaf as f64,
-            rows,
+            order: (0..n_in as u32).collect(),
+            slot_row: rows,
             weight,
             target: target_pos,
-            keys: Vec::new(),
+            sorted,
+            goes_left: vec![false; n_in],
+            buffer: Vec::new(),
             left: vec![0.0; stat_width],
             one_feature: Vec::new(),
             features: (0..columns.n_features).collect(),
@@ -1287,7 +1378,7 @@ impl TreeConfig {
                 values: Vec::new(),
             },
         };
-        grower.grow()
+        grower.grow(stop)
     }
 }
 
