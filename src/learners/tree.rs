@@ -758,7 +758,7 @@ struct Pending {
 
 impl<'a> Grower<'a> {
     /// Adds slot `p` to `stats`.
-    #[inline]
+    #[inline(always)]
     fn add(&self, stats: &mut [f64], p: usize) {
         let w = self.weight[p];
         stats[0] += w;
@@ -897,36 +897,61 @@ impl<'a> Grower<'a> {
 
     /// Best exact split of feature `f` over positions `start..end`.
     fn scan_exact(&mut self, f: usize, start: usize, end: usize, total: &[f64]) -> Option<Split> {
-        let mut left = std::mem::take(&mut self.left);
-        left.iter_mut().for_each(|v| *v = 0.0);
         let n_in = self.slot_row.len();
         let keys = &self.sorted[f * n_in + start..f * n_in + end];
-        let mut best: Option<Split> = None;
-        for i in 0..keys.len().saturating_sub(1) {
-            self.add(&mut left, (keys[i] & 0xFFFF_FFFF) as usize);
-            let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
-            if rank == next {
-                continue;
+        // (score, rank, next rank) of the best boundary so far; the threshold is computed
+        // once at the end. Later boundaries have higher thresholds, so within a feature
+        // only a clearly higher score replaces the best (the tie rule of `Split::beats`).
+        let mut best: Option<(f64, u32, u32)> = None;
+        let clearly_better = |score: f64, best: &Option<(f64, u32, u32)>| {
+            best.is_none_or(|(b, _, _)| score > b + SCORE_TIE * score.abs().max(b.abs()))
+        };
+        if self.regression {
+            let (w_total, s_total) = (total[0], total[1]);
+            let (mut wl, mut sl) = (0.0, 0.0);
+            for i in 0..keys.len().saturating_sub(1) {
+                let slot = (keys[i] & 0xFFFF_FFFF) as usize;
+                let w = self.weight[slot];
+                wl += w;
+                sl += w * self.target[slot];
+                let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+                let wr = w_total - wl;
+                if rank == next || wl < self.min_leaf || wr < self.min_leaf {
+                    continue;
+                }
+                let sr = s_total - sl;
+                let score = sl * sl / wl + sr * sr / wr;
+                if clearly_better(score, &best) {
+                    best = Some((score, rank, next));
+                }
             }
-            let (wl, wr) = (left[0], total[0] - left[0]);
-            if wl < self.min_leaf || wr < self.min_leaf {
-                continue;
+        } else {
+            let mut left = std::mem::take(&mut self.left);
+            left.iter_mut().for_each(|v| *v = 0.0);
+            for i in 0..keys.len().saturating_sub(1) {
+                self.add(&mut left, (keys[i] & 0xFFFF_FFFF) as usize);
+                let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+                let (wl, wr) = (left[0], total[0] - left[0]);
+                if rank == next || wl < self.min_leaf || wr < self.min_leaf {
+                    continue;
+                }
+                let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
+                if clearly_better(score, &best) {
+                    best = Some((score, rank, next));
+                }
             }
-            let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
+            self.left = left;
+        }
+        best.map(|(score, rank, next)| {
             let d = &self.columns.distinct[f];
-            let candidate = Split {
+            Split {
                 score,
                 feature: f,
                 by_bins: false,
                 cut: rank,
                 threshold: midpoint(d[rank as usize], d[next as usize]),
-            };
-            if candidate.beats(&best) {
-                best = Some(candidate);
             }
-        }
-        self.left = left;
-        best
+        })
     }
 
     /// Best split of a node; `histogram` is the node's full histogram when one is kept.
@@ -998,13 +1023,22 @@ impl<'a> Grower<'a> {
     /// position.
     fn partition(&mut self, start: usize, end: usize, split: &Split) -> usize {
         let columns = self.columns;
-        for &slot in &self.order[start..end] {
-            let row = self.slot_row[slot as usize];
-            self.goes_left[slot as usize] = if split.by_bins {
-                u32::from(columns.code(split.feature, row)) <= split.cut
-            } else {
-                columns.rank(split.feature, row) <= split.cut
-            };
+        let n_in = self.slot_row.len();
+        if !split.by_bins && !self.sorted.is_empty() {
+            // The split feature's sorted list: its first entries (rank ≤ cut) go left.
+            let f = split.feature;
+            for &key in &self.sorted[f * n_in + start..f * n_in + end] {
+                self.goes_left[(key & 0xFFFF_FFFF) as usize] = (key >> 32) as u32 <= split.cut;
+            }
+        } else {
+            for &slot in &self.order[start..end] {
+                let row = self.slot_row[slot as usize];
+                self.goes_left[slot as usize] = if split.by_bins {
+                    u32::from(columns.code(split.feature, row)) <= split.cut
+                } else {
+                    columns.rank(split.feature, row) <= split.cut
+                };
+            }
         }
         let (mut i, mut j) = (start, end);
         while i < j {
@@ -1015,23 +1049,23 @@ impl<'a> Grower<'a> {
                 self.order.swap(i, j);
             }
         }
-        // Stable partitions keep every feature's list sorted within both children.
-        let n_in = self.slot_row.len();
+        // Stable, branch-free partitions keep every feature's list sorted in both children.
         if !self.sorted.is_empty() {
+            let goes_left = &self.goes_left;
+            let buffer = &mut self.buffer;
+            buffer.resize(end - start, 0);
             for f in 0..columns.n_features {
                 let list = &mut self.sorted[f * n_in + start..f * n_in + end];
-                self.buffer.clear();
-                let mut k = 0;
+                let (mut k, mut r) = (0usize, 0usize);
                 for q in 0..list.len() {
                     let key = list[q];
-                    if self.goes_left[(key & 0xFFFF_FFFF) as usize] {
-                        list[k] = key;
-                        k += 1;
-                    } else {
-                        self.buffer.push(key);
-                    }
+                    let left = usize::from(goes_left[(key & 0xFFFF_FFFF) as usize]);
+                    list[k] = key;
+                    buffer[r] = key;
+                    k += left;
+                    r += 1 - left;
                 }
-                list[k..].copy_from_slice(&self.buffer);
+                list[k..].copy_from_slice(&buffer[..r]);
             }
         }
         i
