@@ -79,6 +79,8 @@ pub const FEATURE_STREAM_SALT: u64 = 0x7472_6565_5F66_6561;
 const LEAF: u32 = u32::MAX;
 /// Points per parallel prediction task.
 const POINT_CHUNK: usize = 512;
+/// Points walked down a tree in lockstep.
+const BATCH: usize = 8;
 
 /// The seed of the feature-sampling member streams: SplitMix64's finaliser (Steele, Lea &
 /// Flood 2014, "Fast splittable pseudorandom number generators", OOPSLA) applied to
@@ -277,19 +279,44 @@ impl Tree {
         self.nodes.len()
     }
 
-    /// The leaf values reached by `point` (`width` values).
+    /// The leaf numbers reached by points `first .. first + count` of `x` (count ≤
+    /// [`BATCH`]), walked in lockstep so the memory loads of the walks overlap.
+    ///
+    /// # Safety
+    /// `first + count ≤ x.nrows()` and every split feature of the tree is below `x.ncols()`.
     #[inline]
-    fn leaf_of<T: Real>(&self, point: impl Fn(usize) -> T, width: usize) -> &[f64] {
-        let mut i = 0usize;
+    unsafe fn leaves<T: Real>(
+        &self,
+        x: &ArrayView2<'_, T>,
+        first: usize,
+        count: usize,
+        out: &mut [u32; BATCH],
+    ) {
+        let mut at = [0u32; BATCH];
         loop {
-            let node = self.nodes[i];
-            if node.feature == LEAF {
-                let l = node.child as usize * width;
-                return &self.values[l..l + width];
+            let mut moving = false;
+            for k in 0..count {
+                let node = self.nodes[at[k] as usize];
+                if node.feature != LEAF {
+                    let v = unsafe { *x.uget((first + k, node.feature as usize)) }.to_f64();
+                    at[k] = node.child + u32::from(v > node.threshold);
+                    moving = true;
+                }
             }
-            let go_right = point(node.feature as usize).to_f64() > node.threshold;
-            i = node.child as usize + usize::from(go_right);
+            if !moving {
+                break;
+            }
         }
+        for k in 0..count {
+            out[k] = self.nodes[at[k] as usize].child;
+        }
+    }
+
+    /// The values of leaf `leaf`.
+    #[inline]
+    fn leaf_values(&self, leaf: u32, width: usize) -> &[f64] {
+        let l = leaf as usize * width;
+        &self.values[l..l + width]
     }
 }
 
@@ -437,15 +464,19 @@ impl TreeEnsemble {
                     row.par_chunks_mut(POINT_CHUNK * width)
                         .enumerate()
                         .for_each(|(c, block)| {
-                            for (k, slot) in block.chunks_mut(width).enumerate() {
-                                let p = c * POINT_CHUNK + k;
-                                if skip(m, p) {
-                                    slot.fill(f64::NAN);
-                                } else {
-                                    // SAFETY: p < n and every feature index < n_features
-                                    // (validated at fit / load, x checked above).
-                                    let leaf = tree.leaf_of(|f| unsafe { *x.uget((p, f)) }, width);
-                                    slot.copy_from_slice(leaf);
+                            let mut leaves = [0u32; BATCH];
+                            for (g, group) in block.chunks_mut(BATCH * width).enumerate() {
+                                let first = c * POINT_CHUNK + g * BATCH;
+                                let count = group.len() / width;
+                                // SAFETY: the group lies inside x, and every feature index
+                                // is below n_features (validated at fit / load, x checked).
+                                unsafe { tree.leaves(&x, first, count, &mut leaves) };
+                                for (k, slot) in group.chunks_mut(width).enumerate() {
+                                    if skip(m, first + k) {
+                                        slot.fill(f64::NAN);
+                                    } else {
+                                        slot.copy_from_slice(tree.leaf_values(leaves[k], width));
+                                    }
                                 }
                             }
                         });
@@ -521,13 +552,19 @@ impl TreeEnsemble {
             out.par_chunks_mut(POINT_CHUNK * width)
                 .enumerate()
                 .for_each(|(c, block)| {
-                    for (k, slot) in block.chunks_mut(width).enumerate() {
-                        let p = c * POINT_CHUNK + k;
-                        slot.fill(0.0);
+                    block.fill(0.0);
+                    let mut leaves = [0u32; BATCH];
+                    for (g, group) in block.chunks_mut(BATCH * width).enumerate() {
+                        let first = c * POINT_CHUNK + g * BATCH;
+                        let count = group.len() / width;
+                        // Members are added in member order for every point.
                         for tree in &self.trees {
                             // SAFETY: as in `fill_members`.
-                            let leaf = tree.leaf_of(|f| unsafe { *x.uget((p, f)) }, width);
-                            slot.iter_mut().zip(leaf).for_each(|(s, v)| *s += v);
+                            unsafe { tree.leaves(&x, first, count, &mut leaves) };
+                            for (k, slot) in group.chunks_mut(width).enumerate() {
+                                let values = tree.leaf_values(leaves[k], width);
+                                slot.iter_mut().zip(values).for_each(|(s, v)| *s += v);
+                            }
                         }
                     }
                     block.iter_mut().for_each(|s| *s *= scale);
