@@ -295,11 +295,11 @@ impl Tree {
         let mut at = [0u32; BATCH];
         loop {
             let mut moving = false;
-            for k in 0..count {
-                let node = self.nodes[at[k] as usize];
+            for (k, slot) in at.iter_mut().enumerate().take(count) {
+                let node = self.nodes[*slot as usize];
                 if node.feature != LEAF {
                     let v = unsafe { *x.uget((first + k, node.feature as usize)) }.to_f64();
-                    at[k] = node.child + u32::from(v > node.threshold);
+                    *slot = node.child + u32::from(v > node.threshold);
                     moving = true;
                 }
             }
@@ -307,8 +307,8 @@ impl Tree {
                 break;
             }
         }
-        for k in 0..count {
-            out[k] = self.nodes[at[k] as usize].child;
+        for (o, a) in out.iter_mut().zip(&at).take(count) {
+            *o = self.nodes[*a as usize].child;
         }
     }
 
