@@ -43,7 +43,8 @@
 //!             largest value of bin b and the smallest of bin b+1. A split "bins ≤ b" has
 //!             threshold e_b, b the last non-empty bin on the left. Per-node weight/target
 //!             histograms; with all features tried, the smaller child's histogram is built
-//!             and the larger one's is the parent's minus it (sibling subtraction).
+//!             and the larger one's is the parent's minus it (sibling subtraction). Nodes
+//!             with at most 128 in-bag rows sort their bin codes instead (same result).
 //! auto        histogram for nodes with more than AUTO_HISTOGRAM_ABOVE (2048) distinct
 //!             in-bag rows, exact below
 //! ```
@@ -79,6 +80,9 @@ pub const FEATURE_STREAM_SALT: u64 = 0x7472_6565_5F66_6561;
 const LEAF: u32 = u32::MAX;
 /// Points per parallel prediction task.
 const POINT_CHUNK: usize = 512;
+/// Binned nodes with at most this many distinct in-bag rows sort their bin codes instead
+/// of filling 256-bin histograms.
+const SPARSE_BINS_UP_TO: usize = 128;
 /// Points walked down a tree in lockstep.
 const BATCH: usize = 8;
 
@@ -773,6 +777,7 @@ struct Grower<'a> {
     /// sorted by stable partitions, so exact scans never sort); empty for histograms only.
     sorted: Vec<u64>,
     // Scratch, reused by every node.
+    keys: Vec<u64>,
     goes_left: Vec<bool>,
     buffer: Vec<u64>,
     left: Vec<f64>,
@@ -862,6 +867,48 @@ impl<'a> Grower<'a> {
             Splitter::Histogram => true,
             Splitter::Auto => rows > AUTO_HISTOGRAM_ABOVE,
         }
+    }
+
+    /// Whether a binned node is large enough for dense 256-bin histograms; smaller ones
+    /// sort their bin codes instead (same candidates, same thresholds).
+    fn dense_bins(&self, rows: usize) -> bool {
+        self.use_bins(rows) && rows > SPARSE_BINS_UP_TO
+    }
+
+    /// Best split of feature `f` over the bin codes of positions `start..end`, found by
+    /// sorting the codes: the same candidates as [`scan_histogram`](Self::scan_histogram).
+    fn scan_codes(&mut self, f: usize, start: usize, end: usize, total: &[f64]) -> Option<Split> {
+        let mut keys = std::mem::take(&mut self.keys);
+        let mut left = std::mem::take(&mut self.left);
+        keys.clear();
+        keys.extend(self.order[start..end].iter().map(|&slot| {
+            let code = self.columns.code(f, self.slot_row[slot as usize]);
+            (u64::from(code) << 32) | u64::from(slot)
+        }));
+        keys.sort_unstable();
+        left.iter_mut().for_each(|v| *v = 0.0);
+        let mut best: Option<(f64, u32)> = None;
+        for i in 0..keys.len().saturating_sub(1) {
+            self.add(&mut left, (keys[i] & 0xFFFF_FFFF) as usize);
+            let (code, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+            let (wl, wr) = (left[0], total[0] - left[0]);
+            if code == next || wl < self.min_leaf || wr < self.min_leaf {
+                continue;
+            }
+            let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
+            if best.is_none_or(|(b, _)| score > b + SCORE_TIE * score.abs().max(b.abs())) {
+                best = Some((score, code));
+            }
+        }
+        self.keys = keys;
+        self.left = left;
+        best.map(|(score, code)| Split {
+            score,
+            feature: f,
+            by_bins: true,
+            cut: code,
+            threshold: self.columns.edges[f][code as usize],
+        })
     }
 
     fn histogram_buffer(&mut self) -> Vec<f64> {
@@ -1001,10 +1048,13 @@ impl<'a> Grower<'a> {
     ) -> Option<Split> {
         let n_features = self.columns.n_features;
         let bins = self.use_bins(end - start);
+        let dense = self.dense_bins(end - start);
         let block = MAX_BINS * self.stat_width;
         let mut best: Option<Split> = None;
         let mut try_feature = |g: &mut Self, f: usize| -> bool {
-            let found = if bins {
+            let found = if bins && !dense {
+                g.scan_codes(f, start, end, stats)
+            } else if bins {
                 match histogram {
                     Some(h) => g.scan_histogram(f, &h[f * block..(f + 1) * block], stats),
                     None => {
@@ -1129,7 +1179,8 @@ impl<'a> Grower<'a> {
         let root_stats = self.stats_of(0, n);
         self.tree.nodes.push(Node::PLACEHOLDER);
         let all_features = self.config.split_features.is_none();
-        let root_histogram = (all_features && self.use_bins(n)).then(|| self.full_histogram(0, n));
+        let root_histogram =
+            (all_features && self.dense_bins(n)).then(|| self.full_histogram(0, n));
         let mut stack = vec![Pending {
             node: 0,
             start: 0,
@@ -1186,10 +1237,10 @@ impl<'a> Grower<'a> {
                 } else {
                     ((mid, end), (start, mid))
                 };
-                if self.use_bins(large.1 - large.0) {
+                if self.dense_bins(large.1 - large.0) {
                     let small_h = self.full_histogram(small.0, small.1);
                     parent.iter_mut().zip(&small_h).for_each(|(p, s)| *p -= s);
-                    let small_h = if self.use_bins(small.1 - small.0) {
+                    let small_h = if self.dense_bins(small.1 - small.0) {
                         Some(small_h)
                     } else {
                         self.spare_histograms.push(small_h);
@@ -1437,6 +1488,7 @@ impl TreeConfig {
             weight,
             target: target_pos,
             sorted,
+            keys: Vec::new(),
             goes_left: vec![false; n_in],
             buffer: Vec::new(),
             left: vec![0.0; stat_width],
