@@ -1009,6 +1009,34 @@ impl<'a> Grower<'a> {
                     best = Some((score, rank, next));
                 }
             }
+        } else if self.config.criterion == Criterion::Gini {
+            // Σ_k W_Lk² and Σ_k W_Rk² updated in O(1) per row: adding weight w to class k
+            // changes them by 2·w·W_Lk + w² and −2·w·W_Rk + w² (exact for integer weights).
+            let mut left = std::mem::take(&mut self.left);
+            left.iter_mut().for_each(|v| *v = 0.0);
+            let w_total = total[0];
+            let mut squares_left = 0.0;
+            let mut squares_right: f64 = total[1..].iter().map(|c| c * c).sum();
+            for i in 0..keys.len().saturating_sub(1) {
+                let slot = (keys[i] & 0xFFFF_FFFF) as usize;
+                let w = self.weight[slot];
+                let k = 1 + self.target[slot] as usize;
+                let right_k = total[k] - left[k];
+                squares_left += w * (2.0 * left[k] + w);
+                squares_right += w * (w - 2.0 * right_k);
+                left[k] += w;
+                left[0] += w;
+                let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+                let (wl, wr) = (left[0], w_total - left[0]);
+                if rank == next || wl < self.min_leaf || wr < self.min_leaf {
+                    continue;
+                }
+                let score = squares_left / wl + squares_right / wr;
+                if clearly_better(score, &best) {
+                    best = Some((score, rank, next));
+                }
+            }
+            self.left = left;
         } else {
             let mut left = std::mem::take(&mut self.left);
             left.iter_mut().for_each(|v| *v = 0.0);
