@@ -120,7 +120,8 @@ impl YValues {
     }
 }
 
-/// Bagged CART trees fit natively on in-bag counts used as row weights.
+/// Bagged CART trees (Breiman et al. 1984) fit natively on in-bag counts used as row
+/// weights, one tree per member; see `TreeEnsemble.fit`.
 #[pyclass(module = "bagwise._core", name = "TreeEnsemble", frozen)]
 pub struct PyTreeEnsemble {
     inner: TreeEnsemble,
@@ -151,6 +152,16 @@ impl PyTreeEnsemble {
 
 #[pymethods]
 impl PyTreeEnsemble {
+    /// Grows one tree per member.
+    ///
+    /// `x` float32/float64 (rows, features), any strides; `y` float64 targets
+    /// (task="regression") or int64 class codes 0..n_classes (task="classification");
+    /// `counts` (members, rows) of any unsigned integer dtype, a row's count being its
+    /// weight, or None with `members` for every row once. `min_leaf` is the least number of
+    /// in-bag draws (sum of counts) per leaf; `split_features` the features tried per node
+    /// (None: all); `criterion` "squared_error" / "gini" (default) / "entropy"; `splitter`
+    /// "exact", "histogram" or "auto"; `seed` seeds the feature-sampling streams;
+    /// `progress(done, total)` is called about every 0.1 s and may raise to stop.
     #[staticmethod]
     #[pyo3(signature = (x, y, counts, *, task, n_classes=None, max_depth=None, min_leaf=1,
         split_features=None, criterion=None, splitter="auto", seed=0, members=None,
@@ -243,6 +254,8 @@ impl PyTreeEnsemble {
         Ok(PyTreeEnsemble { inner })
     }
 
+    /// Every member's predictions: (members, points) for regression, (members, points,
+    /// n_classes) probabilities for classification.
     #[pyo3(signature = (x, threads=None))]
     fn member_predictions<'py>(
         &self,
@@ -257,6 +270,8 @@ impl PyTreeEnsemble {
         }))
     }
 
+    /// Member predictions on the training rows `x` only where the member did not see the
+    /// row (`counts[m, i] == 0`), NaN elsewhere; same shape as `member_predictions`.
     #[pyo3(signature = (x, counts, threads=None))]
     fn out_of_bag_predictions<'py>(
         &self,
@@ -276,6 +291,7 @@ impl PyTreeEnsemble {
         )))
     }
 
+    /// The mean over members: (points,) values or (points, n_classes) probabilities.
     #[pyo3(signature = (x, threads=None))]
     fn predict<'py>(
         &self,
@@ -325,10 +341,12 @@ impl PyTreeEnsemble {
         self.inner.node_counts()
     }
 
+    /// The fitted trees as bytes (postcard behind a versioned header).
     fn to_bytes<'py>(&self, py: Python<'py>) -> Bound<'py, PyBytes> {
         PyBytes::new(py, &self.inner.to_bytes())
     }
 
+    /// Reads `to_bytes` output; corrupt or foreign bytes raise ValueError.
     #[staticmethod]
     fn from_bytes(data: &[u8]) -> PyResult<Self> {
         TreeEnsemble::from_bytes(data)
