@@ -328,3 +328,17 @@ def test_ctrl_c_stops_a_long_fit_quickly():
     waited = time.perf_counter() - sent
     assert out.startswith("interrupted"), out
     assert waited < 1.0
+
+
+def test_trying_every_feature_at_random_equals_plain_bagging():
+    # Random subspaces (Breiman 2001): with split_features = n_features every feature is
+    # tried at every node, only in a random order, so the deterministic tie rule (lowest
+    # feature, then lowest threshold) gives the plain bagged trees; fewer features differ.
+    x, y = regression_data(1000, 13)
+    counts = bagwise.resample(1000, 3, seed=2).counts
+    for splitter in ("exact", "histogram"):
+        plain = fit_regression(x, y, counts, splitter=splitter)
+        every = fit_regression(x, y, counts, splitter=splitter, split_features=10, seed=4)
+        assert every.to_bytes() == plain.to_bytes()
+        few = fit_regression(x, y, counts, splitter=splitter, split_features=2, seed=4)
+        assert few.to_bytes() != plain.to_bytes()
