@@ -327,7 +327,7 @@ def test_ctrl_c_stops_a_long_fit_quickly():
     out, _ = proc.communicate(timeout=60)
     waited = time.perf_counter() - sent
     assert out.startswith("interrupted"), out
-    assert waited < 1.0
+    assert waited < 1.5  # "within about a second", the same bound as the resampling test
 
 
 def test_trying_every_feature_at_random_equals_plain_bagging():
