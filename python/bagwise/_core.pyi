@@ -22,6 +22,7 @@ __all__ = [
     "Resampler",
     "residual_correlation",
     "SizeCurveAccumulator",
+    "TreeEnsemble",
     "unpack_container",
 ]
 __version__: str
@@ -273,3 +274,48 @@ def replicate_spread_arrays(
     y: npt.NDArray[np.float64] | None = None,
     threads: int | None = None,
 ) -> tuple[dict[str, npt.NDArray[np.float64]], dict[str, float]]: ...
+
+@final
+class TreeEnsemble:
+    @staticmethod
+    def fit(
+        x: npt.NDArray[np.floating],
+        y: npt.NDArray[np.float64] | npt.NDArray[np.int64],
+        counts: npt.NDArray[np.unsignedinteger] | None,
+        *,
+        task: str,
+        n_classes: int | None = None,
+        max_depth: int | None = None,
+        min_leaf: int = 1,
+        split_features: int | None = None,
+        criterion: str | None = None,
+        splitter: str = "auto",
+        seed: int = 0,
+        members: int | None = None,
+        threads: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
+    ) -> TreeEnsemble: ...
+    def member_predictions(
+        self, x: npt.NDArray[np.floating], threads: int | None = None
+    ) -> npt.NDArray[np.float64]: ...
+    def out_of_bag_predictions(
+        self,
+        x: npt.NDArray[np.floating],
+        counts: npt.NDArray[np.unsignedinteger],
+        threads: int | None = None,
+    ) -> npt.NDArray[np.float64]: ...
+    def predict(
+        self, x: npt.NDArray[np.floating], threads: int | None = None
+    ) -> npt.NDArray[np.float64]: ...
+    @property
+    def members(self) -> int: ...
+    @property
+    def n_features(self) -> int: ...
+    @property
+    def n_classes(self) -> int | None: ...
+    @property
+    def node_counts(self) -> list[int]: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> TreeEnsemble: ...
+    def __reduce__(self) -> tuple[Callable[[bytes], TreeEnsemble], tuple[bytes]]: ...

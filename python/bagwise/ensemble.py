@@ -218,12 +218,20 @@ class _Bag(BaseEstimator):
         elif learner == "neighbors":
             options = {"neighbors": params["neighbors"]}
         else:
+            split = self.split_features
+            if isinstance(split, float):
+                # A fraction of the features, at least one (Breiman 2001 uses a count).
+                split = max(1, round(split * X.shape[1]))
             options = {
                 "max_depth": self.max_depth, "min_leaf": self.min_leaf,
-                "split_features": self.split_features,
+                "split_features": split,
                 "criterion": self.criterion if self._classification else "squared_error",
                 "splitter": self.splitter, "seed": params["seed"],
             }
+            if self._classification:
+                target = np.asarray(target).astype(np.int64)
+            else:
+                n_classes = None
         with progress_callback(self.progress, "fitting") as callback:
             return kind.fit(X, target, counts, task=task, n_classes=n_classes,
                             threads=params["threads"], progress=callback, **options)

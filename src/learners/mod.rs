@@ -3,10 +3,12 @@
 //! of the design is ever made, and predicts for all members in one parallel call.
 //!
 //! - [`linear`]: weighted least squares / ridge with intercept (regression);
-//! - [`neighbors`]: k nearest neighbours weighted by in-bag multiplicity.
+//! - [`neighbors`]: k nearest neighbours weighted by in-bag multiplicity;
+//! - [`tree`]: CART trees (exact and histogram split finders), counts as row weights.
 
 pub mod linear;
 pub mod neighbors;
+pub mod tree;
 
 use ndarray::ArrayView2;
 use serde::{Deserialize, Serialize};

@@ -21,6 +21,7 @@ mod out_of_bag;
 mod persistence;
 mod replicates;
 mod resampling;
+mod tree;
 mod uncertainty;
 
 /// Maps a core error to the Python exception a user expects.
@@ -148,5 +149,6 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     persistence::register(m)?;
     out_of_bag::register(m)?;
     replicates::register(m)?;
+    tree::register(m)?;
     Ok(())
 }
