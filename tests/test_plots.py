@@ -111,6 +111,9 @@ def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
     assert vertices[:, 1].max() == pytest.approx(float(np.max(curve.curve + curve.standard_error)))
 
     assert ax.get_xscale() == "log"
+    ax.figure.canvas.draw()
+    ticks = {t.get_text() for t in ax.get_xticklabels()}
+    assert {"1", "10"} <= ticks                       # plain numbers, not powers of ten
     assert ax.get_xlabel() == "members in the ensemble"
     assert "kg²" in ax.get_ylabel() and plain_words(ax.get_ylabel())
     # Greyscale: every series differs by line style or marker, not by colour alone.
@@ -128,7 +131,7 @@ def test_size_curve_stretches_the_axis_to_a_members_needed_beyond_the_ensemble()
                                   [needed, needed])
     law = line_labelled(ax, "law")
     assert law.get_xdata()[-1] >= needed
-    assert ax.get_ylabel() == "error (mean squared error)"
+    assert ax.get_ylabel() == "mean squared error"
 
 
 def test_size_curve_with_out_of_bag_curve_on_the_same_axes():
@@ -211,6 +214,23 @@ def test_decomposition_of_error_rates_shows_member_and_vote_error():
     vote = bagwise.aggregate(members)
     assert ax.patches[1].get_height() == pytest.approx(np.mean(vote != y), rel=1e-12)
     assert ax.texts[0].get_text() == f"vote gain {d.vote_gain:+.3g}"
+
+
+def test_decomposition_of_probabilities_uses_the_brier_score():
+    rng = np.random.default_rng(3)
+    y = rng.integers(0, 3, size=400)
+    logits = rng.normal(size=(15, 400, 3)) + 1.5 * np.eye(3)[y]
+    p = np.exp(logits) / np.exp(logits).sum(axis=2, keepdims=True)
+    d = bagwise.decompose(p, y)
+    ax = plots.plot_decomposition(d)
+    # Multi-class Brier score (Brier 1950) of the soft vote, straightforward numpy.
+    soft = p.mean(axis=0)
+    assert ax.patches[1].get_height() == pytest.approx(
+        ((soft - np.eye(3)[y]) ** 2).sum(axis=1).mean(), rel=1e-10)
+    assert ax.get_ylabel() == "Brier score"
+    scatter = plots.plot_ambiguity_by_point(d)
+    assert scatter.get_xlabel() == "mean member loss at the point (Brier score)"
+    assert len(scatter.collections[0].get_offsets()) == 400
 
 
 def test_ambiguity_by_point_scatter_and_reference_line():
@@ -388,6 +408,25 @@ def test_correlation_heatmap_is_the_reordered_matrix():
     assert ax.figure.axes[1].get_ylabel() == "correlation of the members' residuals"
     assert [t.get_text() for t in ax.get_xticklabels()] == [str(i) for i in order]
     assert plain_words(ax.get_xlabel()) and plain_words(ax.get_ylabel())
+
+
+@pytest.mark.parametrize("order", ["cluster", "given"])
+def test_correlation_heatmap_other_orders(order):
+    preds, group = blocks(seed=6)
+    result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
+    ax = plots.plot_correlation_matrix(result, order=order)
+    ordering = plots.member_order(result.matrix, order)
+    np.testing.assert_array_equal(np.sort(ordering), np.arange(12))
+    np.testing.assert_array_equal(ax.images[0].get_array(),
+                                  result.matrix[np.ix_(ordering, ordering)])
+    if order == "cluster":
+        # Average linkage on 1 - correlation (scipy.cluster.hierarchy) keeps groups together.
+        assert np.count_nonzero(np.diff(group[ordering])) == 1
+        assert ax.get_xlabel() == "member (its index), ordered by clusters"
+    else:
+        np.testing.assert_array_equal(ordering, np.arange(12))
+    with pytest.raises(ValueError, match="`order`"):
+        plots.plot_correlation_matrix(result, order="random")
 
 
 def test_correlation_heatmap_leaves_undefined_cells_blank():

@@ -69,14 +69,20 @@ def with_unit(text, unit):
     return f"{text}, {unit}" if unit.startswith("(") else f"{text} ({unit})"
 
 
-def loss_label(loss, unit, prefix="error"):
-    """Axis label of a loss: the loss named in words, with the squared unit for values."""
+def loss_label(loss, unit):
+    """A loss named in words, with the squared unit of the targets for a squared error."""
     if loss == "squared":
-        return f"{prefix} (mean squared error, {squared_unit(unit)})" if unit else \
-            f"{prefix} (mean squared error)"
+        return with_unit("mean squared error", squared_unit(unit))
     if loss == "brier":
-        return f"{prefix} (Brier score)"
-    return f"{prefix} rate (share misclassified)"
+        return "Brier score"
+    return "error rate (share misclassified)"
+
+
+def plain_log_ticks(axis):
+    """Label a logarithmic axis 1, 10, 100 rather than as powers of ten."""
+    from matplotlib.ticker import FuncFormatter
+
+    axis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:,.10g}"))
 
 
 def bins_iv(bins, n_points=None):

@@ -19,14 +19,6 @@ def _decomposition_iv(decomposition, unit):
     return c.unit_iv(unit)
 
 
-def _loss_words(loss, unit):
-    if loss == "squared":
-        return c.with_unit("mean squared error", c.squared_unit(unit))
-    if loss == "brier":
-        return "Brier score"
-    return "error rate (share misclassified)"
-
-
 def plot_decomposition(decomposition, *, ax=None, unit=None):
     """Mean member loss, ambiguity and ensemble loss as two bars of equal height.
 
@@ -91,7 +83,7 @@ def plot_decomposition(decomposition, *, ax=None, unit=None):
     top = max(d.member_loss, d.ensemble_loss)
     ax.set_ylim(0, top * 1.25 if top > 0 else 1)
     ax.set_title(f"{d.members:,} members, {d.n_points:,} points", fontsize="medium")
-    return c.finish(ax, xlabel="", ylabel=_loss_words(d.loss, unit))
+    return c.finish(ax, xlabel="", ylabel=c.loss_label(d.loss, unit))
 
 
 def plot_ambiguity_by_point(decomposition, *, ax=None, unit=None):

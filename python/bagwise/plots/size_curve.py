@@ -96,7 +96,7 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
     >>> curve = bagwise.size_curve(members, y, orders=10)
     >>> ax = plot_size_curve(curve, unit="kg")
     >>> ax.get_xlabel(), ax.get_ylabel()
-    ('members in the ensemble', 'error (mean squared error, kg²)')
+    ('members in the ensemble', 'mean squared error (kg²)')
     >>> plt.close(ax.figure)
     """
     tolerance, unit = _size_curve_iv(size_curve, out_of_bag, tolerance, unit)
@@ -143,5 +143,6 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
                 zorder=3)
 
     ax.set_xscale("log")
+    c.plain_log_ticks(ax.xaxis)
     ax.set_xlim(0.9, x_high * 1.1)
     return c.finish(ax, xlabel="members in the ensemble", ylabel=c.loss_label(size_curve.loss, unit))
