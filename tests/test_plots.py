@@ -147,6 +147,22 @@ def test_size_curve_with_out_of_bag_curve_on_the_same_axes():
     assert len(ax.get_legend().get_texts()) == 6          # five lines and the band
 
 
+def test_size_curve_of_probabilities_with_out_of_bag_brier_score():
+    rng = np.random.default_rng(8)
+    y = rng.integers(0, 3, size=300)
+    logits = rng.normal(size=(20, 300, 3)) + 1.2 * np.eye(3)[y]
+    p = np.exp(logits) / np.exp(logits).sum(axis=2, keepdims=True)
+    counts = bagwise.resample(300, 20, seed=8).counts
+    curve = bagwise.size_curve(p, y, orders=4)
+    oob = bagwise.out_of_bag(p, counts, y)                  # headline metric: error rate
+    ax = plots.plot_size_curve(curve, out_of_bag=oob)
+    np.testing.assert_array_equal(line_labelled(ax, "training points").get_ydata(),
+                                  oob.curve("brier_score"))
+    np.testing.assert_allclose(line_labelled(ax, "law").get_ydata(),
+                               curve.law(line_labelled(ax, "law").get_xdata()), rtol=1e-12)
+    assert ax.get_ylabel() == "Brier score"
+
+
 def test_size_curve_of_one_order_has_no_band():
     preds, y, _ = regression(members=10)
     with pytest.warns(UserWarning, match="one order"):
@@ -214,6 +230,30 @@ def test_decomposition_of_error_rates_shows_member_and_vote_error():
     vote = bagwise.aggregate(members)
     assert ax.patches[1].get_height() == pytest.approx(np.mean(vote != y), rel=1e-12)
     assert ax.texts[0].get_text() == f"vote gain {d.vote_gain:+.3g}"
+
+
+def test_scatters_thin_out_many_points_evenly(spread_case):
+    preds, y, _ = regression(n=600)
+    d = bagwise.decompose(preds, y)
+    ax = plots.plot_ambiguity_by_point(d, max_points=100)
+    offsets = ax.collections[0].get_offsets()
+    rows = np.round(np.linspace(0, 599, 100)).astype(int)       # every ~6th point
+    assert offsets.shape == (100, 2)
+    np.testing.assert_array_equal(offsets[:, 0], d.member_loss_per_point[rows])
+    np.testing.assert_array_equal(offsets[:, 1], d.ambiguity_per_point[rows])
+    assert "100 of 600 shown" in ax.collections[0].get_label()
+    # The reference line still spans every point, shown or not.
+    assert ax.lines[0].get_xdata()[-1] == d.member_loss_per_point.max()
+    assert len(plots.plot_ambiguity_by_point(d, max_points=None).collections[0]
+               .get_offsets()) == 600
+    keep = np.flatnonzero((spread_case.between > 0) & (spread_case.within > 0))
+    ax = plots.plot_between_within(spread_case, max_points=40)
+    picked = keep[np.round(np.linspace(0, keep.size - 1, 40)).astype(int)]
+    np.testing.assert_array_equal(ax.collections[0].get_offsets()[:, 0], spread_case.within[picked])
+    with pytest.raises(ValueError, match="`max_points`"):
+        plots.plot_between_within(spread_case, max_points=0)
+    with pytest.raises(TypeError, match="`max_points`"):
+        plots.plot_ambiguity_by_point(d, max_points=2.5)
 
 
 def test_decomposition_of_probabilities_uses_the_brier_score():

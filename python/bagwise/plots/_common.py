@@ -108,6 +108,24 @@ def equal_count_bins(key, bins):
     return np.array_split(order, bins)
 
 
+def max_points_iv(max_points):
+    if max_points is None:
+        return None
+    if isinstance(max_points, bool) or not isinstance(max_points, numbers.Integral):
+        raise TypeError(f"`max_points`: expected an integer or None, got {type(max_points).__name__}")
+    if max_points < 1:
+        raise ValueError(f"`max_points`: must be at least 1, got {max_points}")
+    return int(max_points)
+
+
+def thin(n_points, max_points):
+    """Indices of at most ``max_points`` of ``n_points`` points, evenly spaced by index
+    (every point when ``max_points`` is None or not smaller)."""
+    if max_points is None or n_points <= max_points:
+        return np.arange(n_points)
+    return np.unique(np.linspace(0, n_points - 1, max_points).round().astype(np.int64))
+
+
 def finish(ax, *, xlabel, ylabel, legend=True):
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)

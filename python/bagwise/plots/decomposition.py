@@ -86,7 +86,7 @@ def plot_decomposition(decomposition, *, ax=None, unit=None):
     return c.finish(ax, xlabel="", ylabel=c.loss_label(d.loss, unit))
 
 
-def plot_ambiguity_by_point(decomposition, *, ax=None, unit=None):
+def plot_ambiguity_by_point(decomposition, *, ax=None, unit=None, max_points=20_000):
     """Per-point ambiguity against per-point mean member loss.
 
     Each point is one observation. The reference line ``ambiguity = member loss`` is where
@@ -102,6 +102,9 @@ def plot_ambiguity_by_point(decomposition, *, ax=None, unit=None):
     ax : matplotlib Axes, optional
     unit : str, optional
         Unit of the targets (squared loss).
+    max_points : int or None
+        Draw at most this many points, evenly spaced by index (default 20,000; None: all),
+        so a figure of millions of points stays light; the legend says how many are shown.
 
     Returns
     -------
@@ -120,15 +123,19 @@ def plot_ambiguity_by_point(decomposition, *, ax=None, unit=None):
     >>> plt.close(ax.figure)
     """
     unit = _decomposition_iv(decomposition, unit)
+    max_points = c.max_points_iv(max_points)
     d = decomposition
     if not d.identity:
         raise ValueError("`decomposition`: error rates have no ambiguity (no identity holds for "
                          "a majority vote); use a squared or Brier loss")
     ax = c.axes(ax)
-    member, ambiguity = d.member_loss_per_point, d.ambiguity_per_point
+    shown = c.thin(d.n_points, max_points)
+    member, ambiguity = d.member_loss_per_point[shown], d.ambiguity_per_point[shown]
+    count = (f"{d.n_points:,} in all" if shown.size == d.n_points
+             else f"{shown.size:,} of {d.n_points:,} shown")
     ax.scatter(member, ambiguity, s=6, color=c.SLATE, alpha=0.5, linewidths=0,
-               label=f"one point ({d.n_points:,} in all)", rasterized=d.n_points > 5000)
-    top = float(np.max(member)) if member.size else 1.0
+               label=f"one point ({count})", rasterized=shown.size > 5000)
+    top = float(np.max(d.member_loss_per_point)) if d.n_points else 1.0
     top = top if top > 0 else 1.0
     ax.plot([0, top], [0, top], color=c.INK, linestyle="--", linewidth=1.2,
             label="ambiguity = member loss (all removed)")

@@ -270,7 +270,7 @@ def plot_rho(spread, *, bins=30, ax=None):
                     ylabel="number of points")
 
 
-def plot_between_within(spread, *, ax=None, unit=None):
+def plot_between_within(spread, *, ax=None, unit=None, max_points=20_000):
     """Between (training-data) against within (member) variance per point, log-log.
 
     Two reference lines: ``between = within`` (rho = 1/2) and ``between = within / M``
@@ -286,6 +286,8 @@ def plot_between_within(spread, *, ax=None, unit=None):
     ax : matplotlib Axes, optional
     unit : str, optional
         Unit of the predictions; the variances are in its square.
+    max_points : int or None
+        Draw at most this many points, evenly spaced by index (default 20,000; None: all).
 
     Returns
     -------
@@ -307,17 +309,22 @@ def plot_between_within(spread, *, ax=None, unit=None):
     """
     _spread_iv(spread)
     unit = c.unit_iv(unit)
+    max_points = c.max_points_iv(max_points)
     ax = c.axes(ax)
     keep = (spread.between > 0) & (spread.within > 0)
-    within, between = spread.within[keep], spread.between[keep]
     left_out = keep.size - int(keep.sum())
-    note = f"one point ({within.size:,})" + (f"; {left_out:,} with a zero part left out"
-                                             if left_out else "")
+    positive = np.flatnonzero(keep)
+    shown = positive[c.thin(positive.size, max_points)]
+    within, between = spread.within[shown], spread.between[shown]
+    count = (f"{within.size:,}" if shown.size == positive.size
+             else f"{shown.size:,} of {positive.size:,} shown")
+    note = f"one point ({count})" + (f"; {left_out:,} with a zero part left out"
+                                     if left_out else "")
     ax.scatter(within, between, s=8, color=c.SLATE, alpha=0.6, linewidths=0, label=note,
                rasterized=within.size > 5000)
-    if within.size:
-        low = min(float(within.min()), float(between.min()))
-        high = max(float(within.max()), float(between.max()))
+    if positive.size:
+        low = min(float(spread.within[keep].min()), float(spread.between[keep].min()))
+        high = max(float(spread.within[keep].max()), float(spread.between[keep].max()))
         grid = np.array([low / 2, high * 2])
         ax.plot(grid, grid, color=c.INK, linestyle="--", linewidth=1.2,
                 label="between = within (rho = 1/2)")
