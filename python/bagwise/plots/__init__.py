@@ -1,0 +1,46 @@
+"""Figures of the diagnostics, drawn with matplotlib (an optional extra).
+
+Install with ``pip install bagwise[plots]``. matplotlib is imported only when a function
+here is called, so ``import bagwise`` and ``import bagwise.plots`` work without it. Every
+function takes a result (and, where needed, the targets), draws on ``ax`` (a new figure
+when it is None) and returns the Axes, so figures compose with ``plt.subplots``.
+
+- `plot_size_curve`: error against ensemble size, with the finite-ensemble law, the
+  infinite-ensemble error, the members needed and the out-of-bag curve;
+- `plot_decomposition`, `plot_ambiguity_by_point`: what averaging removed;
+- `plot_error_vs_std_error`, `plot_interval_coverage`: standard errors checked against the
+  observed errors; `plot_rho`, `plot_between_within`: the between/within variance split;
+- `plot_correlation_matrix`: the members x members residual correlation, ordered;
+- `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier.
+"""
+
+from .classification import margins, plot_margins, plot_reliability, reliability
+from .correlation import member_order, plot_correlation_matrix
+from .decomposition import plot_ambiguity_by_point, plot_decomposition
+from .size_curve import plot_size_curve
+from .uncertainty import (
+    binned_coverage,
+    binned_errors,
+    plot_between_within,
+    plot_error_vs_std_error,
+    plot_interval_coverage,
+    plot_rho,
+)
+
+__all__ = [
+    "binned_coverage",
+    "binned_errors",
+    "margins",
+    "member_order",
+    "plot_ambiguity_by_point",
+    "plot_between_within",
+    "plot_correlation_matrix",
+    "plot_decomposition",
+    "plot_error_vs_std_error",
+    "plot_interval_coverage",
+    "plot_margins",
+    "plot_reliability",
+    "plot_rho",
+    "plot_size_curve",
+    "reliability",
+]

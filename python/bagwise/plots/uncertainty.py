@@ -1,0 +1,339 @@
+"""Checking standard errors against real errors; the between/within split of the variance."""
+
+from __future__ import annotations
+
+import math
+import numbers
+
+import numpy as np
+
+from ..uncertainty import PredictionVariance, Spread
+from . import _common as c
+
+__all__ = ["plot_between_within", "plot_error_vs_std_error", "plot_interval_coverage",
+           "plot_rho"]
+
+#: Mean absolute value of a centred normal variable over its standard deviation.
+HALF_NORMAL_MEAN = math.sqrt(2 / math.pi)
+
+
+def _variance_iv(prediction_variance, y, bins, unit):
+    if not isinstance(prediction_variance, PredictionVariance):
+        raise TypeError("`prediction_variance`: expected the PredictionVariance returned by "
+                        f"bagwise.prediction_variance, got {type(prediction_variance).__name__}")
+    n_points = len(prediction_variance.mean)
+    y = np.asarray(y)
+    if y.dtype.kind not in "fiu":
+        raise TypeError(f"`y`: expected numbers, got dtype {y.dtype}")
+    if y.shape != (n_points,):
+        raise ValueError(f"`y`: expected shape ({n_points},) (one target per point of "
+                         f"`prediction_variance`), got {y.shape}")
+    y = y.astype(np.float64, copy=False)
+    if not np.all(np.isfinite(y)):
+        raise ValueError("`y`: contains NaN or infinite values")
+    return y, c.bins_iv(bins, n_points), c.unit_iv(unit)
+
+
+def binned_errors(prediction_variance, y, bins=10):
+    """Per bin of predicted standard error: mean standard error, mean absolute error of the
+    ensemble mean, its standard error and the bin size, as four arrays (the numbers
+    `plot_error_vs_std_error` draws). Bins hold (nearly) equal numbers of points.
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> from bagwise.plots import binned_errors
+    >>> rng = np.random.default_rng(0)
+    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
+    >>> estimate = bagwise.prediction_variance(members, counts)
+    >>> mean_se, mean_error, spread, size = binned_errors(estimate, np.zeros(6), bins=3)
+    >>> size.tolist(), bool(np.all(np.diff(mean_se) > 0))
+    ([2, 2, 2], True)
+    """
+    y, bins, _ = _variance_iv(prediction_variance, y, bins, None)
+    se = prediction_variance.std_error
+    error = np.abs(y - prediction_variance.mean)
+    groups = c.equal_count_bins(se, bins)
+    mean_se = np.array([se[g].mean() for g in groups])
+    mean_error = np.array([error[g].mean() for g in groups])
+    spread = np.array([error[g].std(ddof=1) / math.sqrt(len(g)) if len(g) > 1 else math.nan
+                       for g in groups])
+    return mean_se, mean_error, spread, np.array([len(g) for g in groups])
+
+
+def plot_error_vs_std_error(prediction_variance, y, *, bins=10, ax=None, unit=None):
+    """Predicted standard error against the observed absolute error of the ensemble mean.
+
+    Points are ranked by their predicted standard error and cut into ``bins`` bins of
+    (nearly) equal size (quantile bins); each marker is one bin: its mean predicted
+    standard error across, the mean of ``|y - mean|`` up, with a bar of ± one standard
+    error of that mean. The ideal line is ``sqrt(2/pi) * standard error``: when the error
+    of the ensemble mean is normal with standard deviation sigma, the mean absolute error
+    is ``sqrt(2/pi) * sigma`` (about 0.80 sigma; the mean of a half-normal distribution).
+
+    The standard error measures only how the ensemble mean would move over training sets.
+    Markers above the line mean the observed error has parts it does not cover - noise in
+    the targets, the ensemble's bias - or that the standard errors are too small; markers
+    that rise with the line show that the standard errors rank the points correctly.
+
+    Parameters
+    ----------
+    prediction_variance : PredictionVariance
+        From `bagwise.prediction_variance` at the points of ``y``.
+    y : array of shape (n_points,)
+        Observed targets at those points.
+    bins : int
+        Number of bins (default 10).
+    ax : matplotlib Axes, optional
+    unit : str, optional
+        Unit of the targets, e.g. ``"kg"``.
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> import matplotlib.pyplot as plt
+    >>> from bagwise.plots import plot_error_vs_std_error
+    >>> rng = np.random.default_rng(0)
+    >>> x = rng.normal(size=200)
+    >>> counts = bagwise.resample(200, 1000, seed=0).counts
+    >>> members = counts @ np.outer(x, [1.0, 2.0, 3.0]) / 200    # three "points"
+    >>> estimate = bagwise.prediction_variance(members, counts)
+    >>> ax = plot_error_vs_std_error(estimate, np.zeros(3), bins=3)
+    >>> len(ax.containers[0].lines[0].get_xdata())
+    3
+    >>> plt.close(ax.figure)
+    """
+    y, bins, unit = _variance_iv(prediction_variance, y, bins, unit)
+    ax = c.axes(ax)
+    mean_se, mean_error, spread, _ = binned_errors(prediction_variance, y, bins)
+    ax.errorbar(mean_se, mean_error, yerr=np.nan_to_num(spread), color=c.INK, linestyle="none",
+                marker="o", markersize=5, capsize=3,
+                label=f"observed, {bins} bins of equal size")
+    top = max(float(np.max(mean_se)), float(np.max(mean_error) / HALF_NORMAL_MEAN), 0.0)
+    top = top * 1.1 if top > 0 else 1.0
+    ax.plot([0, top], [0, HALF_NORMAL_MEAN * top], color=c.SLATE, linestyle="--",
+            label="ideal: √(2/π) × standard error (normal errors)")
+    ax.set_xlim(-0.02 * top, top)
+    ax.set_ylim(0, None)
+    return c.finish(ax, xlabel=c.with_unit("predicted standard error", unit),
+                    ylabel=c.with_unit("mean absolute error of the ensemble mean", unit))
+
+
+def binned_coverage(prediction_variance, y, level=0.9, bins=10):
+    """Per bin of predicted standard error: mean standard error, share of ``y`` inside the
+    ``level`` interval and the bin size (the numbers `plot_interval_coverage` draws).
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> from bagwise.plots import binned_coverage
+    >>> rng = np.random.default_rng(0)
+    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
+    >>> estimate = bagwise.prediction_variance(members, counts)
+    >>> _, share, size = binned_coverage(estimate, estimate.mean, level=0.5, bins=2)
+    >>> share.tolist(), size.tolist()                  # targets at the mean: all inside
+    ([1.0, 1.0], [3, 3])
+    """
+    y, bins, _ = _variance_iv(prediction_variance, y, bins, None)
+    low, high = prediction_variance.interval(_level_iv(level))
+    inside = (y >= low) & (y <= high)
+    se = prediction_variance.std_error
+    groups = c.equal_count_bins(se, bins)
+    return (np.array([se[g].mean() for g in groups]), np.array([inside[g].mean() for g in groups]),
+            np.array([len(g) for g in groups]))
+
+
+def _level_iv(level):
+    if isinstance(level, bool) or not isinstance(level, numbers.Real):
+        raise TypeError(f"`level`: expected a number, got {type(level).__name__}")
+    if not 0 < level < 1:
+        raise ValueError(f"`level`: must lie in (0, 1), got {level}")
+    return float(level)
+
+
+def plot_interval_coverage(prediction_variance, y, *, level=0.9, bins=10, ax=None, unit=None):
+    """Share of the targets inside their ``level`` interval, by bin of standard error.
+
+    The interval is ``PredictionVariance.interval(level)``, the normal approximation
+    ``mean ± z * standard error``. Points are cut into ``bins`` bins of (nearly) equal
+    size by predicted standard error; each marker is one bin, with a bar of ± one binomial
+    standard error ``sqrt(p (1 - p) / n)``. The nominal level is the horizontal line;
+    bins below it hold points whose intervals are too narrow.
+
+    Parameters
+    ----------
+    prediction_variance : PredictionVariance
+    y : array of shape (n_points,)
+        Observed targets.
+    level : float
+        Nominal coverage of the interval, in (0, 1) (default 0.9).
+    bins : int
+        Number of bins (default 10).
+    ax : matplotlib Axes, optional
+    unit : str, optional
+        Unit of the targets.
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> import matplotlib.pyplot as plt
+    >>> from bagwise.plots import plot_interval_coverage
+    >>> rng = np.random.default_rng(0)
+    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
+    >>> estimate = bagwise.prediction_variance(members, counts)
+    >>> ax = plot_interval_coverage(estimate, np.zeros(6), level=0.9, bins=3)
+    >>> ax.get_ylabel()
+    'share of targets inside the 90% interval'
+    >>> plt.close(ax.figure)
+    """
+    y, bins, unit = _variance_iv(prediction_variance, y, bins, unit)
+    level = _level_iv(level)
+    ax = c.axes(ax)
+    mean_se, share, size = binned_coverage(prediction_variance, y, level, bins)
+    spread = np.sqrt(share * (1 - share) / size)
+    ax.errorbar(mean_se, share, yerr=spread, color=c.INK, linestyle="-", marker="o",
+                markersize=5, capsize=3, label=f"observed, {bins} bins of equal size")
+    ax.axhline(level, color=c.SLATE, linestyle="--", label=f"nominal level {level:.0%}")
+    low, high = prediction_variance.interval(level)
+    overall = float(np.mean((y >= low) & (y <= high)))
+    ax.axhline(overall, color=c.FAINT, linestyle=":", label=f"all points: {overall:.1%}")
+    ax.set_ylim(0, 1.02)
+    return c.finish(ax, xlabel=c.with_unit("predicted standard error", unit),
+                    ylabel=f"share of targets inside the {level:.0%} interval")
+
+
+def _spread_iv(spread):
+    if not isinstance(spread, Spread):
+        raise TypeError(f"`spread`: expected the Spread returned by bagwise.spread, got "
+                        f"{type(spread).__name__}")
+
+
+def plot_rho(spread, *, bins=30, ax=None):
+    """Histogram over points of rho(x), the share of a member's variance that comes from
+    the training data (``between / (between + within)``; see `bagwise.Spread`).
+
+    Near 1, members move together and more members barely help; near 0, the members'
+    own randomness dominates and averaging more of them removes most of the variance. The
+    pooled value ``mean_between / mean_total`` is the vertical line. Points whose total
+    variance is zero (rho undefined) are left out and counted in the legend.
+
+    Parameters
+    ----------
+    spread : Spread
+        From `bagwise.spread`.
+    bins : int
+        Number of equal-width bins on [0, 1] (default 30).
+    ax : matplotlib Axes, optional
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> import matplotlib.pyplot as plt
+    >>> from bagwise.plots import plot_rho
+    >>> rng = np.random.default_rng(0)
+    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> data = (counts @ rng.normal(size=100) / 100)[:, None]       # shared through the data
+    >>> members = data + rng.uniform(0.01, 0.2, size=50) * rng.normal(size=(1000, 50))
+    >>> ax = plot_rho(bagwise.spread(members, counts))
+    >>> int(sum(p.get_height() for p in ax.patches))
+    50
+    >>> plt.close(ax.figure)
+    """
+    _spread_iv(spread)
+    rho = spread.rho[np.isfinite(spread.rho)]
+    bins = c.bins_iv(bins)
+    ax = c.axes(ax)
+    left_out = spread.rho.size - rho.size
+    note = f"{rho.size:,} points" + (f" ({left_out:,} without variance left out)" if left_out else "")
+    ax.hist(rho, bins=np.linspace(0.0, 1.0, bins + 1), color=c.PALE, edgecolor=c.INK,
+            linewidth=0.6, label=note)
+    if math.isfinite(spread.pooled_rho):
+        ax.axvline(spread.pooled_rho, color=c.RUST, linestyle="--",
+                   label=f"pooled over points: {spread.pooled_rho:.2f}")
+    ax.set_xlim(0, 1)
+    return c.finish(ax, xlabel="share of member variance from the training data (rho)",
+                    ylabel="number of points")
+
+
+def plot_between_within(spread, *, ax=None, unit=None, max_points=20_000):
+    """Between (training-data) against within (member) variance per point, log-log.
+
+    Two reference lines: ``between = within`` (rho = 1/2) and ``between = within / M``
+    with ``M`` the members at hand: below that line the remaining member noise
+    ``within / M`` still exceeds the training-data variance at the point, so more members
+    would pay there. Points with a zero between or within variance cannot show on a
+    logarithmic axis; they are left out and counted in the legend.
+
+    Parameters
+    ----------
+    spread : Spread
+        From `bagwise.spread`.
+    ax : matplotlib Axes, optional
+    unit : str, optional
+        Unit of the predictions; the variances are in its square.
+    max_points : int or None
+        Draw at most this many points, evenly spaced by index (default 20,000; None: all).
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> import matplotlib.pyplot as plt
+    >>> from bagwise.plots import plot_between_within
+    >>> rng = np.random.default_rng(0)
+    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> data = (counts @ rng.normal(size=100) / 100)[:, None]       # shared through the data
+    >>> members = data + rng.uniform(0.01, 0.2, size=50) * rng.normal(size=(1000, 50))
+    >>> ax = plot_between_within(bagwise.spread(members, counts))
+    >>> len(ax.collections[0].get_offsets())
+    50
+    >>> plt.close(ax.figure)
+    """
+    _spread_iv(spread)
+    unit = c.unit_iv(unit)
+    max_points = c.max_points_iv(max_points)
+    ax = c.axes(ax)
+    keep = (spread.between > 0) & (spread.within > 0)
+    left_out = keep.size - int(keep.sum())
+    positive = np.flatnonzero(keep)
+    shown = positive[c.thin(positive.size, max_points)]
+    within, between = spread.within[shown], spread.between[shown]
+    count = (f"{within.size:,}" if shown.size == positive.size
+             else f"{shown.size:,} of {positive.size:,} shown")
+    note = f"one point ({count})" + (f"; {left_out:,} with a zero part left out"
+                                     if left_out else "")
+    ax.scatter(within, between, s=8, color=c.SLATE, alpha=0.6, linewidths=0, label=note,
+               rasterized=within.size > 5000)
+    if positive.size:
+        low = min(float(spread.within[keep].min()), float(spread.between[keep].min()))
+        high = max(float(spread.within[keep].max()), float(spread.between[keep].max()))
+        grid = np.array([low / 2, high * 2])
+        ax.plot(grid, grid, color=c.INK, linestyle="--", linewidth=1.2,
+                label="between = within (rho = 1/2)")
+        ax.plot(grid, grid / spread.members, color=c.RUST, linestyle="-.", linewidth=1.2,
+                label=f"between = within / {spread.members} (the members at hand)")
+        ax.set_xlim(grid[0], grid[1])
+        ax.set_ylim(grid[0] / spread.members, grid[1])
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    square = c.squared_unit(unit)
+    return c.finish(ax, xlabel=c.with_unit("within variance: across members", square),
+                    ylabel=c.with_unit("between variance: across training sets", square))

@@ -1,0 +1,670 @@
+"""Figures of the diagnostics: what each plot draws (line data, band vertices, markers,
+bar heights, scatter offsets, heatmap cells) checked against the result objects and against
+references written here with numpy, pandas, scipy and scikit-learn; axes reuse; bad input;
+the optional matplotlib dependency. Rendered headless with the Agg backend."""
+
+from __future__ import annotations
+
+import collections
+import math
+import subprocess
+import sys
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import pytest  # noqa: E402
+from matplotlib.collections import PolyCollection  # noqa: E402
+from scipy import stats  # noqa: E402
+
+import bagwise  # noqa: E402
+from bagwise import plots  # noqa: E402
+
+
+@pytest.fixture(autouse=True)
+def close_figures():
+    yield
+    plt.close("all")
+
+
+# -- simulated ensembles --------------------------------------------------------------------
+
+def regression(members=30, n=600, seed=0):
+    """Members fit on bootstrap draws: shared signal error, member noise, in-bag counts."""
+    rng = np.random.default_rng(seed)
+    y = rng.normal(size=n)
+    preds = y + 0.4 * rng.normal(size=n) + 0.1 + 0.8 * rng.normal(size=(members, n))
+    counts = bagwise.resample(n, members, seed=seed).counts
+    return preds, y, counts
+
+
+def labels(members=25, n=800, classes=3, seed=2, accuracy=0.55):
+    rng = np.random.default_rng(seed)
+    y = rng.integers(0, classes, size=n)
+    right = rng.random(size=(members, n)) < accuracy
+    noise = rng.integers(0, classes, size=(members, n))
+    return np.where(right, y, noise).astype(np.int64), y
+
+
+def linear_statistic(points=600, n_train=200, members=1000, seed=0):
+    """Members that are bootstrap means of scaled copies of one sample: the standard error
+    differs from point to point (it is proportional to the scale)."""
+    rng = np.random.default_rng(seed)
+    z = rng.normal(size=n_train)
+    scales = rng.uniform(0.2, 3.0, size=points)
+    counts = bagwise.resample(n_train, members, seed=seed).counts
+    preds = counts @ np.outer(z, scales) / n_train
+    return preds, counts
+
+
+def line_labelled(ax, start):
+    found = [line for line in ax.lines if line.get_label().startswith(start)]
+    assert len(found) == 1, [line.get_label() for line in ax.lines]
+    return found[0]
+
+
+def plain_words(text):
+    """Axis text in words: non-empty, no attribute names (underscores), not a bare symbol."""
+    return bool(text) and "_" not in text and len(text.split()) >= 2
+
+
+# -- size curve -----------------------------------------------------------------------------
+
+def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
+    preds, y, _ = regression()
+    curve = bagwise.size_curve(preds, y, orders=8, seed=1)
+    needed = curve.members_needed(0.05)
+    assert 1 < needed <= 100 * curve.members
+    ax = plots.plot_size_curve(curve, tolerance=0.05, unit="kg")
+
+    empirical = line_labelled(ax, "test points")
+    np.testing.assert_array_equal(empirical.get_xdata(), curve.sizes)
+    np.testing.assert_array_equal(empirical.get_ydata(), curve.curve)
+
+    law = line_labelled(ax, "law")
+    k = np.asarray(law.get_xdata())
+    assert k[0] == 1 and np.all(np.diff(k) > 0) and k[-1] >= curve.members
+    np.testing.assert_allclose(law.get_ydata(), curve.law(k), rtol=1e-12)
+    # The law is infinite_loss + W/k (size_curve's docstring), written out here:
+    np.testing.assert_allclose(law.get_ydata(), curve.infinite_loss + curve.spread / k, rtol=1e-12)
+
+    flat = line_labelled(ax, "infinite ensemble")
+    np.testing.assert_allclose(flat.get_ydata(), [curve.infinite_loss] * 2, rtol=1e-15)
+
+    marker = line_labelled(ax, f"{needed:,} members")
+    np.testing.assert_array_equal(marker.get_xdata(), [needed, needed])
+    assert ax.get_xlim()[1] > needed
+    (label,) = ax.texts
+    assert label.get_text() == f"{needed:,}" and label.xy[0] == needed
+
+    bands = [coll for coll in ax.collections if isinstance(coll, PolyCollection)]
+    assert len(bands) == 1
+    vertices = bands[0].get_paths()[0].vertices
+    for size, mean, se in zip(curve.sizes, curve.curve, curve.standard_error):
+        for edge in (mean - se, mean + se):
+            assert np.any(np.isclose(vertices[:, 0], size) & np.isclose(vertices[:, 1], edge,
+                                                                         rtol=1e-12))
+    assert vertices[:, 1].max() == pytest.approx(float(np.max(curve.curve + curve.standard_error)))
+
+    assert ax.get_xscale() == "log"
+    ax.figure.canvas.draw()
+    ticks = {t.get_text() for t in ax.get_xticklabels()}
+    assert {"1", "10"} <= ticks                       # plain numbers, not powers of ten
+    assert ax.get_xlabel() == "members in the ensemble"
+    assert "kg²" in ax.get_ylabel() and plain_words(ax.get_ylabel())
+    # Greyscale: every series differs by line style or marker, not by colour alone.
+    styles = [(str(line.get_linestyle()), str(line.get_marker())) for line in ax.lines]
+    assert len(set(styles)) == len(styles) == 4
+
+
+def test_size_curve_stretches_the_axis_to_a_members_needed_beyond_the_ensemble():
+    preds, y, _ = regression(members=12)
+    curve = bagwise.size_curve(preds, y, orders=5, seed=0)
+    needed = curve.members_needed(0.01)
+    assert needed > curve.members            # W/k against 1% of the infinite loss
+    ax = plots.plot_size_curve(curve)
+    np.testing.assert_array_equal(line_labelled(ax, f"{needed:,} members").get_xdata(),
+                                  [needed, needed])
+    law = line_labelled(ax, "law")
+    assert law.get_xdata()[-1] >= needed
+    assert ax.get_ylabel() == "mean squared error"
+
+
+def test_size_curve_with_out_of_bag_curve_on_the_same_axes():
+    preds, y, counts = regression()
+    curve = bagwise.size_curve(preds, y, orders=6, seed=2)
+    oob = bagwise.out_of_bag(preds, counts, y, metric="absolute_error")
+    ax = plots.plot_size_curve(curve, out_of_bag=oob)
+    line = line_labelled(ax, "training points: out-of-bag")
+    np.testing.assert_array_equal(line.get_xdata(), oob.curve_sizes)
+    # The squared error is drawn whatever the headline metric, to match the squared loss.
+    np.testing.assert_array_equal(line.get_ydata(), oob.curve("squared_error"))
+    assert len(ax.lines) == 5
+    assert len(ax.get_legend().get_texts()) == 6          # five lines and the band
+
+
+def test_size_curve_of_probabilities_with_out_of_bag_brier_score():
+    rng = np.random.default_rng(8)
+    y = rng.integers(0, 3, size=300)
+    logits = rng.normal(size=(20, 300, 3)) + 1.2 * np.eye(3)[y]
+    p = np.exp(logits) / np.exp(logits).sum(axis=2, keepdims=True)
+    counts = bagwise.resample(300, 20, seed=8).counts
+    curve = bagwise.size_curve(p, y, orders=4)
+    oob = bagwise.out_of_bag(p, counts, y)                  # headline metric: error rate
+    ax = plots.plot_size_curve(curve, out_of_bag=oob)
+    np.testing.assert_array_equal(line_labelled(ax, "training points").get_ydata(),
+                                  oob.curve("brier_score"))
+    np.testing.assert_allclose(line_labelled(ax, "law").get_ydata(),
+                               curve.law(line_labelled(ax, "law").get_xdata()), rtol=1e-12)
+    assert ax.get_ylabel() == "Brier score"
+
+
+def test_size_curve_of_one_order_has_no_band():
+    preds, y, _ = regression(members=10)
+    with pytest.warns(UserWarning, match="one order"):
+        curve = bagwise.size_curve(preds, y, orders=1)
+    ax = plots.plot_size_curve(curve)
+    assert not [coll for coll in ax.collections if isinstance(coll, PolyCollection)]
+    assert len(ax.lines) == 4
+
+
+def test_size_curve_of_error_rates_has_no_law():
+    members, y = labels()
+    curve = bagwise.size_curve(members, y, orders=4)
+    ax = plots.plot_size_curve(curve)
+    assert len(ax.lines) == 1
+    assert ax.get_ylabel() == "error rate (share misclassified)"
+
+
+def test_size_curve_bad_input():
+    preds, y, counts = regression()
+    curve = bagwise.size_curve(preds, y, orders=3)
+    with pytest.raises(TypeError, match="`size_curve`"):
+        plots.plot_size_curve(preds)
+    with pytest.raises(TypeError, match="`out_of_bag`"):
+        plots.plot_size_curve(curve, out_of_bag=curve)
+    with pytest.raises(ValueError, match="`tolerance`"):
+        plots.plot_size_curve(curve, tolerance=0)
+    with pytest.raises(TypeError, match="`unit`"):
+        plots.plot_size_curve(curve, unit=3)
+    with pytest.raises(TypeError, match="`ax`"):
+        plots.plot_size_curve(curve, ax="left")
+    member_labels, classes = labels(n=600)
+    oob = bagwise.out_of_bag(member_labels, counts[:25], classes)
+    with pytest.raises(ValueError, match="`out_of_bag`: is a classification result"):
+        plots.plot_size_curve(curve, out_of_bag=oob)
+
+
+# -- decomposition --------------------------------------------------------------------------
+
+def test_decomposition_bars_are_the_decomposition_numbers():
+    preds, y, _ = regression()
+    d = bagwise.decompose(preds, y)
+    ax = plots.plot_decomposition(d, unit="t/ha")
+    member, ensemble, ambiguity = ax.patches
+    assert member.get_height() == d.member_loss
+    assert ensemble.get_height() == d.ensemble_loss
+    assert ambiguity.get_height() == d.ambiguity
+    assert ambiguity.get_y() == d.ensemble_loss            # stacked on the ensemble loss
+    assert ensemble.get_x() == ambiguity.get_x() != member.get_x()
+    # Krogh & Vedelsby 1995, eq. 5-6: the stacked bar is as tall as the member bar.
+    assert ambiguity.get_y() + ambiguity.get_height() == pytest.approx(member.get_height(),
+                                                                       rel=1e-12)
+    assert ambiguity.get_hatch() and not ensemble.get_hatch()
+    assert ax.get_ylabel() == "mean squared error, (t/ha)²"
+    assert [t.get_text() for t in ax.texts] == [f"{d.relative_gain:.0%} removed"]
+    assert all(plain_words(t.get_text().replace("\n", " ")) for t in ax.get_xticklabels())
+
+
+def test_decomposition_of_error_rates_shows_member_and_vote_error():
+    members, y = labels()
+    d = bagwise.decompose(members, y)
+    ax = plots.plot_decomposition(d)
+    assert len(ax.patches) == 2
+    # Straightforward numpy: mean member error rate; majority vote from bagwise.aggregate.
+    assert ax.patches[0].get_height() == pytest.approx(np.mean(members != y), rel=1e-12)
+    vote = bagwise.aggregate(members)
+    assert ax.patches[1].get_height() == pytest.approx(np.mean(vote != y), rel=1e-12)
+    assert ax.texts[0].get_text() == f"vote gain {d.vote_gain:+.3g}"
+
+
+def test_scatters_thin_out_many_points_evenly(spread_case):
+    preds, y, _ = regression(n=600)
+    d = bagwise.decompose(preds, y)
+    ax = plots.plot_ambiguity_by_point(d, max_points=100)
+    offsets = ax.collections[0].get_offsets()
+    rows = np.round(np.linspace(0, 599, 100)).astype(int)       # every ~6th point
+    assert offsets.shape == (100, 2)
+    np.testing.assert_array_equal(offsets[:, 0], d.member_loss_per_point[rows])
+    np.testing.assert_array_equal(offsets[:, 1], d.ambiguity_per_point[rows])
+    assert "100 of 600 shown" in ax.collections[0].get_label()
+    # The reference line still spans every point, shown or not.
+    assert ax.lines[0].get_xdata()[-1] == d.member_loss_per_point.max()
+    assert len(plots.plot_ambiguity_by_point(d, max_points=None).collections[0]
+               .get_offsets()) == 600
+    keep = np.flatnonzero((spread_case.between > 0) & (spread_case.within > 0))
+    ax = plots.plot_between_within(spread_case, max_points=40)
+    picked = keep[np.round(np.linspace(0, keep.size - 1, 40)).astype(int)]
+    np.testing.assert_array_equal(ax.collections[0].get_offsets()[:, 0], spread_case.within[picked])
+    with pytest.raises(ValueError, match="`max_points`"):
+        plots.plot_between_within(spread_case, max_points=0)
+    with pytest.raises(TypeError, match="`max_points`"):
+        plots.plot_ambiguity_by_point(d, max_points=2.5)
+
+
+def test_decomposition_of_probabilities_uses_the_brier_score():
+    rng = np.random.default_rng(3)
+    y = rng.integers(0, 3, size=400)
+    logits = rng.normal(size=(15, 400, 3)) + 1.5 * np.eye(3)[y]
+    p = np.exp(logits) / np.exp(logits).sum(axis=2, keepdims=True)
+    d = bagwise.decompose(p, y)
+    ax = plots.plot_decomposition(d)
+    # Multi-class Brier score (Brier 1950) of the soft vote, straightforward numpy.
+    soft = p.mean(axis=0)
+    assert ax.patches[1].get_height() == pytest.approx(
+        ((soft - np.eye(3)[y]) ** 2).sum(axis=1).mean(), rel=1e-10)
+    assert ax.get_ylabel() == "Brier score"
+    scatter = plots.plot_ambiguity_by_point(d)
+    assert scatter.get_xlabel() == "mean member loss at the point (Brier score)"
+    assert len(scatter.collections[0].get_offsets()) == 400
+
+
+def test_ambiguity_by_point_scatter_and_reference_line():
+    preds, y, _ = regression()
+    d = bagwise.decompose(preds, y)
+    ax = plots.plot_ambiguity_by_point(d, unit="kg")
+    offsets = ax.collections[0].get_offsets()
+    assert offsets.shape == (d.n_points, 2)
+    # Straightforward numpy (Krogh & Vedelsby 1995 per point): member loss and ambiguity.
+    f = preds.mean(axis=0)
+    np.testing.assert_allclose(offsets[:, 0], ((preds - y) ** 2).mean(axis=0), rtol=1e-10)
+    np.testing.assert_allclose(offsets[:, 1], ((preds - f) ** 2).mean(axis=0), rtol=1e-10)
+    (reference,) = ax.lines
+    np.testing.assert_array_equal(reference.get_xdata(), reference.get_ydata())
+    assert reference.get_xdata()[-1] == pytest.approx(offsets[:, 0].max())
+    assert ax.get_xlabel() == "mean member loss at the point (squared error, kg²)"
+    assert ax.get_ylabel() == "ambiguity at the point (squared error, kg²)"
+    with pytest.raises(ValueError, match="error rates have no ambiguity"):
+        plots.plot_ambiguity_by_point(bagwise.decompose(*labels()))
+    with pytest.raises(TypeError, match="`decomposition`"):
+        plots.plot_decomposition(bagwise.size_curve(preds, y, orders=2))
+
+
+# -- uncertainty ----------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def variance_case():
+    preds, counts = linear_statistic()
+    estimate = bagwise.prediction_variance(preds, counts)
+    rng = np.random.default_rng(7)
+    # Targets whose error around the ensemble mean is normal with the predicted standard
+    # error: the binned points must then follow the ideal line and the nominal coverage.
+    y = estimate.mean + estimate.std_error * rng.normal(size=estimate.mean.size)
+    return estimate, y
+
+
+def test_error_vs_std_error_bins_against_pandas_qcut(variance_case):
+    estimate, y = variance_case
+    ax = plots.plot_error_vs_std_error(estimate, y, bins=10, unit="kg")
+    data = ax.containers[0].lines[0]
+    # Quantile bins: pandas.qcut on the (distinct) predicted standard errors.
+    frame = pd.DataFrame({"se": estimate.std_error, "error": np.abs(y - estimate.mean)})
+    frame["bin"] = pd.qcut(frame["se"], 10, labels=False)
+    grouped = frame.groupby("bin").agg(["mean", "sem", "size"])
+    np.testing.assert_allclose(data.get_xdata(), grouped[("se", "mean")], rtol=1e-12)
+    np.testing.assert_allclose(data.get_ydata(), grouped[("error", "mean")], rtol=1e-12)
+    assert set(grouped[("error", "size")]) == {60}
+    # The error bars are ± the standard error of each bin's mean (pandas sem, ddof 1).
+    segments = ax.containers[0].lines[2][0].get_segments()
+    np.testing.assert_allclose([s[1, 1] - s[0, 1] for s in segments],
+                               2 * grouped[("error", "sem")], rtol=1e-10)
+    ideal = line_labelled(ax, "ideal")
+    x, slope = np.asarray(ideal.get_xdata()), np.asarray(ideal.get_ydata())
+    # Mean of a half-normal variable with scale 1: scipy.stats.halfnorm.mean() = sqrt(2/pi).
+    np.testing.assert_allclose(slope[1] / x[1], stats.halfnorm.mean(), rtol=1e-12)
+    assert x[0] == slope[0] == 0 and x[1] >= data.get_xdata().max()
+    # Normal errors with the predicted standard deviation: each bin within 4 of its bars.
+    gap = np.abs(data.get_ydata() - stats.halfnorm.mean() * data.get_xdata())
+    assert np.all(gap < 4 * grouped[("error", "sem")].to_numpy())
+    assert ax.get_xlabel() == "predicted standard error (kg)"
+    assert ax.get_ylabel() == "mean absolute error of the ensemble mean (kg)"
+
+
+def test_interval_coverage_by_bin(variance_case):
+    estimate, y = variance_case
+    ax = plots.plot_interval_coverage(estimate, y, level=0.8, bins=6)
+    data = ax.containers[0].lines[0]
+    # Interval from scipy.stats.norm quantiles, bins from pandas.qcut.
+    z = stats.norm.ppf(0.9)
+    inside = np.abs(y - estimate.mean) <= z * estimate.std_error
+    frame = pd.DataFrame({"se": estimate.std_error, "inside": inside})
+    frame["bin"] = pd.qcut(frame["se"], 6, labels=False)
+    grouped = frame.groupby("bin").mean()
+    np.testing.assert_allclose(data.get_xdata(), grouped["se"], rtol=1e-12)
+    np.testing.assert_allclose(data.get_ydata(), grouped["inside"], rtol=1e-12)
+    np.testing.assert_array_equal(line_labelled(ax, "nominal").get_ydata(), [0.8, 0.8])
+    overall = line_labelled(ax, "all points")
+    assert overall.get_ydata()[0] == pytest.approx(inside.mean(), rel=1e-12)
+    # Normal errors: each bin within 4 binomial standard errors of the nominal level.
+    assert np.all(np.abs(grouped["inside"] - 0.8) < 4 * math.sqrt(0.8 * 0.2 / 100))
+    assert ax.get_ylabel() == "share of targets inside the 80% interval"
+
+
+def test_uncertainty_bad_input(variance_case):
+    estimate, y = variance_case
+    with pytest.raises(ValueError, match="`y`: expected shape"):
+        plots.plot_error_vs_std_error(estimate, y[:-1])
+    with pytest.raises(ValueError, match="`y`: contains NaN"):
+        plots.plot_error_vs_std_error(estimate, np.where(np.arange(y.size) == 3, np.nan, y))
+    with pytest.raises(ValueError, match="`bins`"):
+        plots.plot_interval_coverage(estimate, y, bins=y.size + 1)
+    with pytest.raises(TypeError, match="`bins`"):
+        plots.plot_interval_coverage(estimate, y, bins=2.5)
+    with pytest.raises(ValueError, match="`level`"):
+        plots.plot_interval_coverage(estimate, y, level=1.0)
+    with pytest.raises(TypeError, match="`prediction_variance`"):
+        plots.plot_error_vs_std_error(estimate.std_error, y)
+    with pytest.raises(TypeError, match="`spread`"):
+        plots.plot_rho(estimate)
+
+
+
+@pytest.fixture(scope="module")
+def spread_case():
+    rng = np.random.default_rng(4)
+    n_train, members = 150, 2000
+    z = rng.normal(size=n_train)
+    counts = bagwise.resample(n_train, members, seed=4).counts
+    # Point j: a bootstrap mean (shared through the data) plus member noise of scale s_j.
+    scales = rng.uniform(0.02, 0.3, size=200)
+    preds = (counts @ z / n_train)[:, None] + scales * rng.normal(size=(members, 200))
+    return bagwise.spread(preds, counts)
+
+
+def test_rho_histogram(spread_case):
+    ax = plots.plot_rho(spread_case, bins=20)
+    heights = [p.get_height() for p in ax.patches]
+    # Reference: numpy.histogram on the same bins.
+    expected, _ = np.histogram(spread_case.rho[np.isfinite(spread_case.rho)],
+                               bins=np.linspace(0, 1, 21))
+    np.testing.assert_array_equal(heights, expected)
+    np.testing.assert_array_equal(line_labelled(ax, "pooled").get_xdata(),
+                                  [spread_case.pooled_rho] * 2)
+    assert ax.get_ylabel() == "number of points" and plain_words(ax.get_xlabel())
+    with pytest.raises(TypeError, match="`bins`"):
+        plots.plot_rho(spread_case, bins="ten")
+
+
+def test_between_within_scatter(spread_case):
+    ax = plots.plot_between_within(spread_case, unit="kg")
+    keep = (spread_case.between > 0) & (spread_case.within > 0)
+    offsets = ax.collections[0].get_offsets()
+    assert offsets.shape == (int(keep.sum()), 2)
+    np.testing.assert_array_equal(offsets[:, 0], spread_case.within[keep])
+    np.testing.assert_array_equal(offsets[:, 1], spread_case.between[keep])
+    same = line_labelled(ax, "between = within (")
+    np.testing.assert_array_equal(same.get_xdata(), same.get_ydata())
+    less = line_labelled(ax, f"between = within / {spread_case.members}")
+    np.testing.assert_allclose(np.asarray(less.get_ydata()) * spread_case.members,
+                               less.get_xdata(), rtol=1e-15)
+    assert ax.get_xscale() == ax.get_yscale() == "log"
+    assert ax.get_xlabel() == "within variance: across members (kg²)"
+
+
+# -- correlation ----------------------------------------------------------------------------
+
+def blocks(seed=5, n=3000):
+    """Twelve members in two shuffled groups: a strongly and a weakly shared error."""
+    rng = np.random.default_rng(seed)
+    shared, strong, weak = rng.normal(size=(3, n))
+    group = rng.permutation(np.repeat([0, 1], 6))
+    noise = rng.normal(size=(12, n))
+    preds = shared + np.where(group[:, None] == 0, 1.5 * strong, 0.3 * weak) + noise
+    return preds, group
+
+
+def test_correlation_heatmap_is_the_reordered_matrix():
+    preds, group = blocks()
+    result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
+    ax = plots.plot_correlation_matrix(result)
+    order = plots.member_order(result.matrix)
+    np.testing.assert_array_equal(np.sort(order), np.arange(12))       # a permutation
+    shown = np.asarray(ax.images[0].get_array())
+    np.testing.assert_array_equal(shown, result.matrix[np.ix_(order, order)])
+    # The same cells as the matrix, only moved: sorted values agree.
+    np.testing.assert_array_equal(np.sort(shown, axis=None), np.sort(result.matrix, axis=None))
+    # Ordering by the leading eigenvector (numpy.linalg.eigh) puts each group together.
+    assert np.count_nonzero(np.diff(group[order])) == 1
+    leading = np.linalg.eigh(result.matrix)[1][:, -1]
+    loads = np.abs(leading)[order]
+    assert np.all(np.diff(loads) >= -1e-12)
+    # Straightforward numpy reference: correlations of the residuals (numpy.corrcoef).
+    np.testing.assert_allclose(shown, np.corrcoef(preds)[np.ix_(order, order)], atol=1e-12)
+    assert len(ax.figure.axes) == 2                                       # the colour bar
+    assert ax.figure.axes[1].get_ylabel() == "correlation of the members' residuals"
+    assert [t.get_text() for t in ax.get_xticklabels()] == [str(i) for i in order]
+    assert plain_words(ax.get_xlabel()) and plain_words(ax.get_ylabel())
+
+
+@pytest.mark.parametrize("order", ["cluster", "given"])
+def test_correlation_heatmap_other_orders(order):
+    preds, group = blocks(seed=6)
+    result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
+    ax = plots.plot_correlation_matrix(result, order=order)
+    ordering = plots.member_order(result.matrix, order)
+    np.testing.assert_array_equal(np.sort(ordering), np.arange(12))
+    np.testing.assert_array_equal(ax.images[0].get_array(),
+                                  result.matrix[np.ix_(ordering, ordering)])
+    if order == "cluster":
+        # Average linkage on 1 - correlation (scipy.cluster.hierarchy) keeps groups together.
+        assert np.count_nonzero(np.diff(group[ordering])) == 1
+        assert ax.get_xlabel() == "member (its index), ordered by clusters"
+    else:
+        np.testing.assert_array_equal(ordering, np.arange(12))
+    with pytest.raises(ValueError, match="`order`"):
+        plots.plot_correlation_matrix(result, order="random")
+
+
+def test_correlation_heatmap_leaves_undefined_cells_blank():
+    preds, _ = blocks()
+    preds[4] = 0.0                                   # a constant member: residuals constant
+    with pytest.warns(UserWarning, match="constant"):
+        result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
+    ax = plots.plot_correlation_matrix(result)
+    shown = ax.images[0].get_array()
+    order = plots.member_order(result.matrix)
+    np.testing.assert_array_equal(np.ma.getmaskarray(shown),
+                                  np.isnan(result.matrix[np.ix_(order, order)]))
+    assert np.ma.getmaskarray(shown).sum() == 2 * 12 - 1
+
+
+def test_correlation_heatmap_refuses_missing_matrix_and_too_many_members():
+    preds, _ = blocks()
+    y = np.zeros(preds.shape[1])
+    with pytest.raises(ValueError, match=r"matrix=True"):
+        plots.plot_correlation_matrix(bagwise.correlation(preds, y))
+    with pytest.raises(ValueError, match="more than `max_members` = 10"):
+        plots.plot_correlation_matrix(bagwise.correlation(preds, y, matrix=True), max_members=10)
+    with pytest.raises(TypeError, match="`correlation`"):
+        plots.plot_correlation_matrix(np.eye(3))
+    with pytest.raises(ValueError, match="`matrix`"):
+        plots.member_order(np.ones((2, 3)))
+
+
+def test_correlation_heatmap_hides_ticks_for_many_members():
+    rng = np.random.default_rng(0)
+    preds = rng.normal(size=(40, 500))
+    ax = plots.plot_correlation_matrix(bagwise.correlation(preds, np.zeros(500), matrix=True))
+    assert ax.get_xticks().size == 0 and ax.images[0].get_array().shape == (40, 40)
+
+
+# -- classification -------------------------------------------------------------------------
+
+def reliability_by_loops(p, y, bins):
+    """The reliability table written with a loop over bins (common practice: equal-width
+    confidence bins, confidence = largest probability)."""
+    out = []
+    predicted = p.argmax(axis=1)
+    confidence = p.max(axis=1)
+    for b in range(bins):
+        low, high = b / bins, (b + 1) / bins
+        inside = (confidence >= low) & ((confidence < high) if b < bins - 1 else (confidence <= high))
+        if inside.any():
+            out.append((confidence[inside].mean(), np.mean(predicted[inside] == y[inside]),
+                        inside.sum()))
+    return np.array(out).T
+
+
+def test_reliability_curve():
+    members, y = labels()
+    fractions = bagwise.vote_fractions(members)
+    ax = plots.plot_reliability(fractions, y, bins=8)
+    data = ax.containers[0].lines[0]
+    confidence, accuracy, count = reliability_by_loops(fractions, y, 8)
+    np.testing.assert_allclose(data.get_xdata(), confidence, rtol=1e-12)
+    np.testing.assert_allclose(data.get_ydata(), accuracy, rtol=1e-12)
+    assert count.sum() == y.size
+    diagonal = line_labelled(ax, "calibrated")
+    np.testing.assert_array_equal(diagonal.get_xdata(), diagonal.get_ydata())
+    assert ax.get_xlabel() == "probability of the predicted class (vote share)"
+    assert ax.get_ylabel() == "share of points predicted right"
+    # Overall accuracy of the argmax agrees with scikit-learn's accuracy_score.
+    from sklearn.metrics import accuracy_score
+
+    mean_accuracy = np.average(data.get_ydata(), weights=count)
+    assert mean_accuracy == pytest.approx(accuracy_score(y, fractions.argmax(axis=1)), rel=1e-12)
+
+
+def test_reliability_bad_input():
+    p = np.array([[0.6, 0.4], [0.2, 0.7]])
+    with pytest.raises(ValueError, match="sum to 1"):
+        plots.plot_reliability(p, np.array([0, 1]))
+    with pytest.raises(ValueError, match="oob.covered"):
+        plots.plot_reliability(np.array([[0.5, 0.5], [np.nan, np.nan]]), np.array([0, 1]))
+    with pytest.raises(ValueError, match="`y`: label 2"):
+        plots.plot_reliability(np.array([[0.5, 0.5], [0.1, 0.9]]), np.array([0, 2]))
+    with pytest.raises(TypeError, match="`y`"):
+        plots.plot_reliability(np.array([[0.5, 0.5], [0.1, 0.9]]), np.array([0.0, 1.0]))
+    with pytest.raises(TypeError, match="`probabilities`"):
+        plots.plot_reliability(np.array([[1, 0], [0, 1]]), np.array([0, 1]))
+
+
+def breiman_margins(members, y):
+    """Breiman (2001), Random Forests, section 2.1: av_k I(h_k = y) - max_{j != y} av_k
+    I(h_k = j), counted point by point."""
+    out = []
+    for j in range(members.shape[1]):
+        votes = collections.Counter(members[:, j].tolist())
+        others = [share for label, share in votes.items() if label != y[j]]
+        out.append((votes.get(y[j], 0) - max(others, default=0)) / members.shape[0])
+    return np.array(out)
+
+
+def test_margins_histogram_against_breiman_definition():
+    members, y = labels()
+    expected = breiman_margins(members, y)
+    np.testing.assert_allclose(plots.margins(members, y), expected, atol=1e-12)
+    np.testing.assert_allclose(plots.margins(bagwise.vote_fractions(members), y), expected,
+                               atol=1e-12)
+    ax = plots.plot_margins(members, y, bins=20)
+    counts, _ = np.histogram(plots.margins(members, y), bins=np.linspace(-1, 1, 21))
+    assert [p.get_height() for p in ax.patches] == counts.tolist()
+    assert sum(counts) == y.size
+    # Below zero exactly where the majority vote (bagwise.aggregate) is wrong, ties aside.
+    vote = bagwise.aggregate(members)
+    untied = expected != 0
+    np.testing.assert_array_equal((expected < 0)[untied], (vote != y)[untied])
+    zero = line_labelled(ax, "vote wrong")
+    np.testing.assert_array_equal(zero.get_xdata(), [0, 0])
+    assert f"{np.mean(expected < 0):.1%}" in zero.get_label()
+    assert plain_words(ax.get_xlabel()) and ax.get_ylabel() == "number of points"
+
+
+def test_margins_bad_input():
+    members, y = labels(n=50)
+    with pytest.raises(ValueError, match="`y`: expected shape"):
+        plots.plot_margins(members, y[:-1])
+    with pytest.raises(TypeError, match="`members_labels_or_vote_fractions`"):
+        plots.plot_margins(members.astype(str), y)
+    with pytest.raises(ValueError, match="`members_labels_or_vote_fractions`"):
+        plots.plot_margins(members[0], y)
+
+
+# -- every plot -----------------------------------------------------------------------------
+
+def every_plot(variance_case, spread_case):
+    preds, y, counts = regression(members=20, n=300)
+    member_labels, classes = labels(n=300)
+    estimate, target = variance_case
+    d = bagwise.decompose(preds, y)
+    return [
+        (plots.plot_size_curve, (bagwise.size_curve(preds, y, orders=3),)),
+        (plots.plot_decomposition, (d,)),
+        (plots.plot_ambiguity_by_point, (d,)),
+        (plots.plot_error_vs_std_error, (estimate, target)),
+        (plots.plot_interval_coverage, (estimate, target)),
+        (plots.plot_rho, (spread_case,)),
+        (plots.plot_between_within, (spread_case,)),
+        (plots.plot_correlation_matrix, (bagwise.correlation(preds, y, matrix=True),)),
+        (plots.plot_reliability, (bagwise.vote_fractions(member_labels), classes)),
+        (plots.plot_margins, (member_labels, classes)),
+    ]
+
+
+def test_every_plot_reuses_the_given_axes_and_labels_in_words(variance_case, spread_case):
+    for function, args in every_plot(variance_case, spread_case):
+        fig, (left, right) = plt.subplots(1, 2)
+        assert function(*args, ax=right) is right, function.__name__
+        assert not left.has_data()
+        assert plain_words(right.get_ylabel()), function.__name__
+        if function is not plots.plot_decomposition:        # categories instead of an x axis
+            assert plain_words(right.get_xlabel()), function.__name__
+        fig.canvas.draw()                                     # renders without a warning
+        plt.close(fig)
+        new = function(*args)
+        assert new.figure is not fig and len(new.figure.axes) >= 1
+        plt.close(new.figure)
+
+
+def test_plots_render_to_png(tmp_path, variance_case, spread_case):
+    for function, args in every_plot(variance_case, spread_case):
+        ax = function(*args)
+        path = tmp_path / f"{function.__name__}.png"
+        ax.figure.savefig(path)
+        assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+        plt.close(ax.figure)
+
+
+# -- the optional dependency ----------------------------------------------------------------
+
+def run_python(code):
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120, check=False)
+
+
+def test_import_bagwise_does_not_import_matplotlib():
+    result = run_python("import sys, bagwise, bagwise.plots; print('matplotlib' in sys.modules)")
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == "False"
+
+
+def test_missing_matplotlib_names_the_extra():
+    code = (
+        "import sys\n"
+        "sys.modules['matplotlib'] = None\n"
+        "import numpy as np, bagwise\n"
+        "from bagwise import plots\n"
+        "y = np.zeros(50)\n"
+        "d = bagwise.decompose(np.random.default_rng(0).normal(size=(5, 50)), y)\n"
+        "try:\n"
+        "    plots.plot_decomposition(d)\n"
+        "except ImportError as err:\n"
+        "    print(err)\n"
+    )
+    result = run_python(code)
+    assert result.returncode == 0, result.stderr
+    assert "pip install bagwise[plots]" in result.stdout
