@@ -191,6 +191,20 @@ def test_members_needed_reading():
                for line in report.readings())
 
 
+def test_rough_standard_errors_are_flagged():
+    # few members against many training rows: the Monte-Carlo correction dominates
+    # (Wager, Hastie & Efron 2014) and the reading says so
+    rng = np.random.default_rng(6)
+    counts = bagwise.resample(400, 20, seed=6).counts
+    members = rng.normal(size=(20, 50))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = bagwise.diagnose(members, rng.normal(size=50), counts=counts)
+    share = float(np.nanmedian(report.uncertainty.correction_share))
+    assert share > 0.5
+    assert any(f"rough: the bias correction is {share:.0%}" in line for line in report.readings())
+
+
 @pytest.mark.parametrize("change, error, match", [
     (dict(members=np.zeros((1, 10))), ValueError, "`members`: a diagnosis needs at least 2"),
     (dict(y=np.zeros(9)), ValueError, "`y`"),

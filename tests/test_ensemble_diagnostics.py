@@ -254,3 +254,23 @@ def test_spread_rho_agrees_with_replicate_spread():
     assert abs(np.mean(rhos) - across.correlation) <= tolerance, (
         np.mean(rhos), across.correlation, tolerance)
     assert 0.05 < across.correlation < 0.5                      # a real, non-trivial rho
+
+
+def test_native_classifier_out_of_bag_and_a_test_set_as_large_as_the_training_set():
+    X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)   # bundled open dataset
+    X = (X - X.mean(axis=0)) / X.std(axis=0)
+    bag = bagwise.ClassificationBag("neighbors", members=20, neighbors=5,
+                                    seed=0).fit(X[:280], y[:280])
+    oob = bag.out_of_bag()
+    raw = bag.out_of_bag_predictions()
+    direct = bagwise.out_of_bag(_fill_in_bag(raw, bag.in_bag_), bag.in_bag_, y[:280])
+    np.testing.assert_array_equal(oob.probabilities, direct.probabilities)
+    # The test set has as many rows as the training set: the bag never mistakes the test
+    # predictions for training-row predictions; its out-of-bag part is the training one.
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = bag.diagnose(X[280:560], y[280:560])
+    assert report.decomposition.n_points == 280
+    assert report.out_of_bag.error == oob.error
+    assert report.out_of_bag.error_rate == pytest.approx(
+        np.mean(oob.probabilities.argmax(axis=1) != y[:280]), abs=0)

@@ -21,7 +21,7 @@ from ._display import html_block, safe_html, text_block
 from ._validation import seed_value, threads_value
 from .decomposition import _members_array, _target, correlation, decompose, size_curve
 from .out_of_bag import out_of_bag
-from .uncertainty import prediction_variance, spread
+from .uncertainty import CORRECTION_WARNING_SHARE, prediction_variance, spread
 
 __all__ = ["Diagnosis", "diagnose"]
 
@@ -145,7 +145,8 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
     the standard errors and the spread need one number per member and point: for
     probabilities they use the probability of the last class (the positive class of a
     binary problem) against the indicator ``y == n_classes - 1``; for labels they are left
-    out (None).
+    out (None). Warnings of the parts (e.g. too few members for the bias correction of the
+    standard errors, points without an out-of-bag member) are passed on as they are.
 
     Examples
     --------
@@ -358,10 +359,9 @@ class Diagnosis:
                 lines.append("no ensemble size comes within 1% of the infinite-ensemble loss "
                              "(it is estimated at or below 0)")
             else:
-                have = "has" if needed <= d.members else "would need"
                 lines.append(f"{needed} members reach 1% of the infinite-ensemble loss "
-                             f"({self.size_curve.infinite_loss:.4g}); the ensemble {have} them "
-                             f"({d.members} members)")
+                             f"({self.size_curve.infinite_loss:.4g}); this ensemble has "
+                             f"{d.members}")
         if self.correlation is not None and not math.isnan(self.correlation.mean_correlation):
             lines.append(f"the members' errors correlate at {self.correlation.mean_correlation:.2f} "
                          "on average")
@@ -371,14 +371,24 @@ class Diagnosis:
                          f"{o.n_points - o.n_without_out_of_bag:,} training rows, an estimate of "
                          "the error on new data")
         if self.uncertainty is not None:
-            lines.append(f"a typical prediction is uncertain by ± "
-                         f"{np.median(self.uncertainty.std_error):.3g} (one standard error, "
-                         "infinitesimal jackknife)")
+            u = self.uncertainty
+            line = (f"a typical prediction is uncertain by ± {np.median(u.std_error):.3g} "
+                    "(one standard error, infinitesimal jackknife)")
+            share = self.summary()["uncertainty"]["median_correction_share"]
+            if share is not None and share > CORRECTION_WARNING_SHARE:
+                line += (f"; rough: the bias correction is {share:.0%} of the raw estimate at "
+                         "the median point, more members would steady it")
+            lines.append(line)
         if self.spread is not None:
             s = self.spread
             needed = s.members_needed(TOLERANCE)
-            lines.append(f"members share {s.pooled_rho:.0%} of their variance through the "
-                         f"training data (rho); {needed} members bring the rest within 1% of it")
+            if isinstance(needed, float) and math.isnan(needed):
+                lines.append("the members share none of their variance through the training "
+                             "data (between part 0), so no ensemble size is needed for it")
+            else:
+                lines.append(f"members share {s.pooled_rho:.0%} of their variance through the "
+                             f"training data (rho); {needed} members bring the rest within 1% "
+                             "of it")
         return lines
 
     # -- display --------------------------------------------------------------------------
