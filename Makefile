@@ -42,7 +42,9 @@ lint: install-test
 	$(VENV)/bin/ruff check python tests demo-data
 
 bench: install
-	$(PY) tests/bench/bench_resampling.py
+	@set -e; for script in tests/bench/bench_*.py; do \
+		echo "== $$script"; $(PY) $$script; \
+	done
 
 clean:
 	rm -rf $(VENV) target

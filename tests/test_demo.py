@@ -23,6 +23,45 @@ def test_demo_prints_the_report():
         assert check in out
 
 
+def _row(out, table_head, learner):
+    """The cells of ``learner``'s row in the table whose header starts with ``table_head``."""
+    lines = out.splitlines()
+    start = next(i for i, line in enumerate(lines)
+                 if line.split()[:len(table_head.split())] == table_head.split())
+    for line in lines[start + 2:]:
+        if line.strip().startswith(learner):
+            return line.strip()[len(learner):].split()
+    raise AssertionError(f"no row {learner!r}")
+
+
+def test_demo_bagging_section_reads_right():
+    out = subprocess.run([sys.executable, "-m", "bagwise", "demo", "--members", "60"],
+                         cwd=ROOT, capture_output=True, text=True, check=True).stdout
+    assert "2. Bagging a stable and an unstable learner" in out
+    linear = _row(out, "learner test loss", "linear")
+    tree = next(name for name in ("tree (native)", "tree (sklearn, wrapped)") if name in out)
+    bagged = _row(out, "learner test loss", tree)
+    for cells in (linear, bagged):
+        test_loss, member, ambiguity = (float(v) for v in cells[:3])
+        # Krogh & Vedelsby 1995: ensemble = mean member - ambiguity (printed to 4 decimals)
+        assert abs(test_loss - (member - ambiguity)) <= 2e-4
+        oob = float(cells[8])
+        # the out-of-bag error estimates the test error (Breiman 1996): same scale
+        assert 0.8 < oob / test_loss < 1.25, (oob, test_loss)
+    # common practice: bagging leaves least squares as it is and roughly halves a tree's error
+    assert 0.97 <= float(linear[5]) <= 1.03
+    assert float(bagged[5]) < 0.8
+    assert "linear: bagging does not help this learner" in out
+    assert f"{tree}: bagging helps this learner" in out
+    spread_linear = _row(out, "learner median SE", "linear")
+    spread_tree = _row(out, "learner median SE", tree)
+    for cells in (spread_linear, spread_tree):
+        assert float(cells[0]) > 0                      # a standard error was computed
+        assert 0 <= float(cells[5]) <= 1                 # rho
+    # trees decorrelate more than least squares (members share less through the data)
+    assert float(spread_tree[5]) < float(spread_linear[5])
+
+
 def test_demo_reports_a_missing_file():
     run = subprocess.run([sys.executable, "-m", "bagwise", "demo", "--data", "missing.csv"],
                          cwd=ROOT, capture_output=True, text=True)

@@ -15,6 +15,7 @@ from .decomposition import (
     size_curve_stream,
     vote_fractions,
 )
+from .diagnosis import Diagnosis, diagnose
 from .ensemble import ClassificationBag, RegressionBag
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
@@ -41,6 +42,8 @@ __all__ = [
     "decompose_stream",
     "Decomposition",
     "DecompositionStream",
+    "diagnose",
+    "Diagnosis",
     "load",
     "out_of_bag",
     "out_of_bag_stream",

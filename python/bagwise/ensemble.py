@@ -154,7 +154,7 @@ class _Bag(BaseEstimator):
 
     def _forget(self):
         for name in ("in_bag_", "n_features_in_", "feature_names_in_", "classes_", "members_",
-                     "seed_", "_model", "_train_X"):
+                     "seed_", "_model", "_train_X", "_train_y", "count_gram_"):
             self.__dict__.pop(name, None)
 
     def _fit(self, X, y, groups):
@@ -197,6 +197,7 @@ class _Bag(BaseEstimator):
         else:
             self.members_ = members
         self._train_X = X
+        self._train_y = codes if self._classification else np.asarray(y, dtype=np.float64)
 
     def _draw(self, n_rows, params, codes, groups):
         members = params["members"]
@@ -340,6 +341,173 @@ class _Bag(BaseEstimator):
             if len(rows):
                 out[m, rows] = self._member_predict(member, _safe_indexing(X, rows))
         return out
+
+    # -- diagnostics ----------------------------------------------------------------------
+    def _integer_counts(self, name):
+        check_is_fitted(self)
+        if self.in_bag_.dtype.kind == "f":
+            raise ValueError(
+                f"`scheme`: {name} needs integer in-bag counts; 'bayesian' gives continuous "
+                "weights"
+            )
+        return self.in_bag_
+
+    def _targets(self, y, n_points, name="y"):
+        """``y`` as the diagnostics read it: float64 values, or class codes (index into
+        ``classes_``) for classification."""
+        if y is None:
+            raise ValueError(f"`{name}`: give the targets")
+        y = column_or_1d(y)
+        if len(y) != n_points:
+            raise ValueError(f"`{name}`: has {len(y)} values for {n_points} points")
+        if not self._classification:
+            if y.dtype.kind not in "fiu":
+                raise TypeError(f"`{name}`: expected numbers, got dtype {y.dtype}")
+            return np.asarray(y, dtype=np.float64)
+        codes = np.searchsorted(self.classes_, y)
+        codes = np.minimum(codes, len(self.classes_) - 1)
+        unknown = self.classes_[codes] != y
+        if np.any(unknown):
+            label = y[np.argmax(unknown)]
+            label = label.item() if isinstance(label, np.generic) else label
+            raise ValueError(f"`{name}`: label {label!r} is not one of the "
+                             f"fitted classes {self.classes_.tolist()}")
+        return codes.astype(np.int64)
+
+    def _training_members(self, X=None, y=None):
+        """(out-of-bag member predictions with in-bag entries filled, training targets)."""
+        counts = self._integer_counts("the out-of-bag error")
+        predictions = self.out_of_bag_predictions(X)
+        in_bag = counts > 0
+        if self._classification:
+            fill = 1.0 / predictions.shape[2]   # any valid distribution: in-bag rows are unused
+            predictions = np.where(in_bag[:, :, None], fill, predictions)
+        else:
+            predictions = np.where(in_bag, 0.0, predictions)
+        if y is None:
+            if "_train_y" not in self.__dict__:
+                raise ValueError("`y`: give the training targets (a loaded ensemble does not "
+                                 "keep them)")
+            target = self._train_y
+        else:
+            target = self._targets(y, counts.shape[1])
+        return predictions, target
+
+    def out_of_bag(self, metric=None, *, X=None, y=None):
+        """The out-of-bag predictions and error on the training rows (Breiman 1996).
+
+        Each member predicts only its out-of-bag rows (see `out_of_bag_predictions`); the
+        result is `bagwise.out_of_bag` of those predictions, ``in_bag_`` and the training
+        targets. Classification passes the member probabilities and the targets as class
+        codes (indices into ``classes_``).
+
+        Parameters
+        ----------
+        metric : str, optional
+            Headline error, as in `bagwise.out_of_bag`.
+        X, y : array-like, optional
+            The training rows and targets; needed only after `bagwise.load`.
+
+        Returns
+        -------
+        OutOfBag
+        """
+        from .out_of_bag import out_of_bag
+
+        members, target = self._training_members(X, y)
+        return out_of_bag(members, self.in_bag_, target, metric=metric, threads=self.threads)
+
+    def _count_gram(self, jackknife=False):
+        """The `CountGram` of ``in_bag_``, built on first use and kept in ``count_gram_``."""
+        from .uncertainty import CountGram
+
+        counts = self._integer_counts("the prediction variance")
+        gram = self.__dict__.get("count_gram_")
+        if gram is None or (jackknife and not gram._gram.has_jackknife):
+            scheme = "subsample" if self.scheme == "subsample" else None
+            gram = CountGram(counts, scheme=scheme, jackknife=jackknife, threads=self.threads)
+            self.count_gram_ = gram
+        return gram
+
+    def _one_value(self, members):
+        # Classification: the probability of the last class in ``classes_`` (the positive
+        # class of a binary problem).
+        return members[:, :, -1] if self._classification else members
+
+    def prediction_variance(self, X, *, method="ij", corrected=True):
+        """Variance and standard error of the ensemble's prediction at new points.
+
+        `bagwise.prediction_variance` of `member_predictions` (for classification: the
+        probability of the last class in ``classes_``, the positive class of a binary
+        problem) and ``in_bag_``. The Gram matrix of the counts is built on the first call
+        (O(members² · n_rows)) and kept in ``count_gram_``, so later calls cost only the
+        quadratic forms; a loaded or unpickled ensemble rebuilds it when first needed.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_points, n_features)
+        method : {"ij", "jackknife"}
+        corrected : bool
+            As in `bagwise.prediction_variance`.
+
+        Returns
+        -------
+        PredictionVariance
+        """
+        if method not in ("ij", "jackknife"):
+            raise ValueError(f"`method`: expected 'ij' or 'jackknife', got {method!r}")
+        gram = self._count_gram(jackknife=method == "jackknife")
+        members = self._one_value(self.member_predictions(X))
+        return gram.prediction_variance(members, method=method, corrected=corrected,
+                                        threads=self.threads)
+
+    def spread(self, X):
+        """Between/within split of the members' variance at ``X`` (`bagwise.spread`; the
+        last-class probability for classification), reusing ``count_gram_``.
+
+        Returns
+        -------
+        Spread
+        """
+        gram = self._count_gram()
+        return gram.spread(self._one_value(self.member_predictions(X)), threads=self.threads)
+
+    def diagnose(self, X, y, reference=None, *, X_train=None, y_train=None):
+        """The full `bagwise.diagnose` report on a test set.
+
+        The members' predictions at ``X`` are diagnosed against ``y`` with the in-bag counts
+        (standard errors, between/within spread) and the out-of-bag predictions on the
+        training rows (out-of-bag error).
+
+        Parameters
+        ----------
+        X : array-like of shape (n_points, n_features)
+            Test rows.
+        y : array-like of shape (n_points,)
+            Test targets (class labels as in ``classes_`` for classification).
+        reference : array-like, optional
+            A single model's predictions at ``X`` (regression) or its class probabilities
+            ``(n_points, n_classes)`` in the order of ``classes_`` (classification).
+        X_train, y_train : array-like, optional
+            The training rows and targets, needed for the out-of-bag part only after
+            `bagwise.load`; without them that part is left out.
+
+        Returns
+        -------
+        Diagnosis
+        """
+        from .diagnosis import _diagnose
+
+        members = self.member_predictions(X)
+        target = self._targets(y, members.shape[1])
+        counts = self.in_bag_ if self.in_bag_.dtype.kind != "f" else None
+        train_members = train_y = None
+        if counts is not None and (X_train is not None or "_train_X" in self.__dict__):
+            if y_train is not None or "_train_y" in self.__dict__:
+                train_members, train_y = self._training_members(X_train, y_train)
+        return _diagnose(members, target, counts=counts, reference=reference,
+                         train_members=train_members, train_y=train_y, seed=0,
+                         threads=self.threads, members_are_training=False)
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""

@@ -1,0 +1,227 @@
+"""bagwise.diagnose: every bundled number is the standalone function's, the reference ratio
+against sklearn.metrics, the out-of-bag part through scikit-learn's bagging."""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+
+import numpy as np
+import pytest
+import sklearn.datasets
+import sklearn.ensemble
+import sklearn.metrics
+
+import bagwise
+
+
+def _regression_members(members=200, n_train=60, n_test=120, seed=0):
+    """Bagged means: member b predicts ``y + counts_b @ Z / n_train`` at every test point,
+    so the members vary through their resamples only (more members than training rows
+    keeps the Monte-Carlo correction of the variance estimates small)."""
+    rng = np.random.default_rng(seed)
+    counts = bagwise.resample(n_train, members, seed=seed).counts
+    y_test = rng.normal(size=n_test)
+    z = rng.normal(size=(n_train, n_test))
+    test = y_test + 0.3 + counts @ z / n_train
+    return test, y_test, counts
+
+
+def _close(a, b):
+    if a is None or b is None:
+        return a is b
+    if isinstance(a, float) and math.isnan(a):
+        return isinstance(b, float) and math.isnan(b)
+    return a == pytest.approx(b, rel=1e-12, abs=0)
+
+
+def test_every_number_equals_the_standalone_result():
+    members, y, counts = _regression_members()
+    report = bagwise.diagnose(members, y, counts=counts, seed=3)
+    d = bagwise.decompose(members, y)
+    for name in ("ensemble_loss", "member_loss", "ambiguity", "relative_gain"):
+        assert _close(getattr(report.decomposition, name), getattr(d, name)), name
+    c = bagwise.size_curve(members, y, seed=3)
+    np.testing.assert_array_equal(report.size_curve.curve, c.curve)
+    assert _close(report.size_curve.infinite_loss, c.infinite_loss)
+    assert _close(report.size_curve.spread, c.spread)
+    assert report.members_needed == c.members_needed(0.01)
+    r = bagwise.correlation(members, y)
+    assert _close(report.correlation.mean_correlation, r.mean_correlation)
+    assert _close(report.correlation.mean_variance, r.mean_variance)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        u = bagwise.prediction_variance(members, counts)
+        s = bagwise.spread(members, counts)
+    np.testing.assert_array_equal(report.uncertainty.std_error, u.std_error)
+    assert report.uncertainty.method == "ij" and report.uncertainty.corrected
+    assert _close(report.spread.mean_between, s.mean_between)
+    assert _close(report.spread.mean_within, s.mean_within)
+    assert _close(report.spread.pooled_rho, s.pooled_rho)
+    summary = report.summary()
+    assert summary["uncertainty"]["median_std_error"] == float(np.median(u.std_error))
+    assert summary["uncertainty"]["share_clipped"] == u.n_clipped / len(y)
+    assert summary["uncertainty"]["median_correction_share"] == pytest.approx(
+        float(np.nanmedian(u.correction_share)), rel=1e-15)
+    assert summary["spread"]["members_needed"] == s.members_needed(0.01)
+    assert summary["size_curve"]["members_needed"] == c.members_needed(0.01)
+    # test points differ from the training rows: no out-of-bag part
+    assert report.out_of_bag is None and "out_of_bag" not in summary
+
+
+def test_reference_ratio_against_sklearn_mean_squared_error():
+    members, y, counts = _regression_members(seed=1)
+    rng = np.random.default_rng(7)
+    reference = y + rng.normal(scale=1.0, size=len(y))
+    report = bagwise.diagnose(members, y, reference=reference)
+    # sklearn.metrics.mean_squared_error of the single model and of the ensemble mean
+    single = sklearn.metrics.mean_squared_error(y, reference)
+    ensemble = sklearn.metrics.mean_squared_error(y, members.mean(axis=0))
+    assert report.reference_loss == pytest.approx(single, rel=1e-12)
+    assert report.reference_ratio == pytest.approx(ensemble / single, rel=1e-12)
+    verdict = report.verdict()
+    expected = "helps" if ensemble / single < 0.97 else "does not help"
+    assert f"bagging {expected} this learner" in verdict
+    assert f"{ensemble / single:.0%}" in verdict
+    assert verdict in report.readings()
+
+
+def test_verdict_when_bagging_does_not_help():
+    members, y, _ = _regression_members(seed=2)
+    better = members.mean(axis=0) * 0.5 + y * 0.5                  # a closer single model
+    report = bagwise.diagnose(members, y, reference=better)
+    assert report.reference_ratio > 1
+    assert report.verdict().startswith("bagging does not help this learner")
+
+
+def test_out_of_bag_through_sklearn_bagging_regressor():
+    # sklearn.datasets.load_diabetes; sklearn.ensemble.BaggingRegressor(oob_score=True):
+    # counts rebuilt from estimators_samples_ with np.bincount.
+    X, y = sklearn.datasets.load_diabetes(return_X_y=True)
+    n = len(y)
+    bag = sklearn.ensemble.BaggingRegressor(n_estimators=40, oob_score=True,
+                                            random_state=0).fit(X, y)
+    counts = np.array([np.bincount(s, minlength=n) for s in bag.estimators_samples_])
+    train = np.array([est.predict(X[:, f])
+                      for est, f in zip(bag.estimators_, bag.estimators_features_)])
+    # 1. members given on the training rows themselves (counts.shape[1] == n_points)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = bagwise.diagnose(train, y, counts=counts)
+    np.testing.assert_allclose(report.out_of_bag.prediction, bag.oob_prediction_, rtol=1e-10)
+    # BaggingRegressor.oob_score_ is sklearn.metrics.r2_score of its OOB prediction
+    assert sklearn.metrics.r2_score(y, report.out_of_bag.prediction) == pytest.approx(
+        bag.oob_score_, rel=1e-10)
+    # 2. a separate test set with train_members / train_y
+    rng = np.random.default_rng(0)
+    X_test = X[rng.permutation(n)[:100]] + rng.normal(scale=0.01, size=(100, X.shape[1]))
+    y_test = rng.normal(size=100)
+    test = np.array([est.predict(X_test[:, f])
+                     for est, f in zip(bag.estimators_, bag.estimators_features_)])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        split = bagwise.diagnose(test, y_test, counts=counts, train_members=train, train_y=y)
+        oob = bagwise.out_of_bag(train, counts, y)
+    assert split.out_of_bag.error == pytest.approx(oob.error, rel=1e-12)
+    assert split.summary()["out_of_bag"]["error"] == pytest.approx(
+        sklearn.metrics.mean_squared_error(y, bag.oob_prediction_), rel=1e-10)
+    assert split.decomposition.n_points == 100
+
+
+def test_probabilities_use_the_last_class_and_labels_skip_uncertainty():
+    # sklearn.datasets.load_breast_cancer; sklearn.ensemble.BaggingClassifier
+    X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)
+    n = len(y)
+    bag = sklearn.ensemble.BaggingClassifier(n_estimators=30, random_state=1).fit(X, y)
+    counts = np.array([np.bincount(s, minlength=n) for s in bag.estimators_samples_])
+    probs = np.array([est.predict_proba(X[:, f])
+                      for est, f in zip(bag.estimators_, bag.estimators_features_)])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = bagwise.diagnose(probs, y, counts=counts, reference=probs[0])
+        u = bagwise.prediction_variance(probs[:, :, 1], counts)
+    np.testing.assert_array_equal(report.uncertainty.variance, u.variance)
+    r = bagwise.correlation(probs[:, :, 1], (y == 1).astype(float))
+    assert _close(report.correlation.mean_correlation, r.mean_correlation)
+    # multi-class Brier of a single member: sum_c (p_c - [y = c])**2 = 2 x
+    # sklearn.metrics.brier_score_loss for two classes
+    single = sklearn.metrics.brier_score_loss(y, probs[0][:, 1])
+    assert report.reference_loss == pytest.approx(2 * single, rel=1e-12)
+    # out-of-bag error rate = 1 - BaggingClassifier's soft-vote OOB accuracy (numpy here)
+    oob = bagwise.out_of_bag(probs, counts, y)
+    assert report.out_of_bag.error == oob.error
+    labels = probs.argmax(axis=2)
+    hard = bagwise.diagnose(labels, y, counts=counts)
+    assert hard.uncertainty is None and hard.spread is None and hard.correlation is None
+    # majority-vote error rate against sklearn.metrics.accuracy_score of the vote
+    vote = bagwise.aggregate(labels)
+    assert hard.decomposition.ensemble_loss == pytest.approx(
+        1 - sklearn.metrics.accuracy_score(y, vote), rel=1e-12)
+    assert hard.members_needed is None
+
+
+def test_summary_is_json_and_frame_and_display():
+    members, y, counts = _regression_members(seed=4)
+    report = bagwise.diagnose(members, y, counts=counts, reference=members[0])
+    text = json.dumps(report.summary(), allow_nan=False)
+    back = json.loads(text)
+    assert back["decomposition"]["ambiguity"] == pytest.approx(report.decomposition.ambiguity)
+    assert back["reference"]["ratio"] == pytest.approx(report.reference_ratio)
+    frame = report.to_frame()
+    assert list(frame.columns) == ["section", "quantity", "value"]
+    assert len(frame) == sum(len(v) for v in report.summary().values())
+    row = frame[(frame.section == "spread") & (frame.quantity == "rho")]
+    assert row.value.iloc[0] == pytest.approx(report.spread.pooled_rho)
+    shown = repr(report)
+    for title in ("Ambiguity decomposition", "Ensemble size", "Residual correlation",
+                  "Prediction uncertainty", "Between / within", "Single model", "Readings"):
+        assert title in shown
+    assert f"averaging removed {report.decomposition.relative_gain:.0%}" in shown
+    assert "<table" in report._repr_html_()
+    report.decomposition = None                  # a broken result still displays
+    assert report._repr_html_().startswith("<pre>")
+
+
+def test_members_needed_reading():
+    members, y, _ = _regression_members(seed=5)
+    report = bagwise.diagnose(members, y)
+    k = bagwise.size_curve(members, y).members_needed(0.01)
+    assert any(line.startswith(f"{k} members reach 1% of the infinite-ensemble loss")
+               for line in report.readings())
+
+
+def test_rough_standard_errors_are_flagged():
+    # few members against many training rows: the Monte-Carlo correction dominates
+    # (Wager, Hastie & Efron 2014) and the reading says so
+    rng = np.random.default_rng(6)
+    counts = bagwise.resample(400, 20, seed=6).counts
+    members = rng.normal(size=(20, 50))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = bagwise.diagnose(members, rng.normal(size=50), counts=counts)
+    share = float(np.nanmedian(report.uncertainty.correction_share))
+    assert share > 0.5
+    assert any(f"rough: the bias correction is {share:.0%}" in line for line in report.readings())
+
+
+@pytest.mark.parametrize("change, error, match", [
+    (dict(members=np.zeros((1, 10))), ValueError, "`members`: a diagnosis needs at least 2"),
+    (dict(y=np.zeros(9)), ValueError, "`y`"),
+    (dict(y=np.r_[np.zeros(9), np.nan]), ValueError, "`y`"),
+    (dict(counts=np.ones((3, 10), np.int64)), ValueError, "`counts`"),
+    (dict(counts=np.ones((4, 10))), TypeError, "`counts`"),
+    (dict(counts=-np.ones((4, 10), np.int64)), ValueError, "`counts`"),
+    (dict(reference=np.zeros(9)), ValueError, "`reference`"),
+    (dict(reference=np.full(10, np.inf)), ValueError, "`reference`"),
+    (dict(train_members=np.zeros((4, 12))), ValueError, "`train_y`"),
+    (dict(train_members=np.zeros((4, 12)), train_y=np.zeros(12)), ValueError, "`counts`"),
+    (dict(members=np.full((4, 10), np.nan)), ValueError, "`members`"),
+])
+def test_bad_input(change, error, match):
+    rng = np.random.default_rng(0)
+    args = dict(members=rng.normal(size=(4, 10)), y=rng.normal(size=10))
+    args.update(change)
+    members, y = args.pop("members"), args.pop("y")
+    with pytest.raises(error, match=match):
+        bagwise.diagnose(members, y, **args)
