@@ -14,6 +14,46 @@ use pyo3::prelude::*;
 use crate::error::Error;
 use crate::parallel::{Monitor, Pool, Threads};
 
+/// Calls `$body` with `$x` bound to the f32/f64 view of a [`FloatArray`].
+macro_rules! with_float {
+    ($array:expr, |$x:ident| $body:expr) => {
+        match &$array {
+            FloatArray::F32(a) => {
+                let $x = a.as_array();
+                $body
+            }
+            FloatArray::F64(a) => {
+                let $x = a.as_array();
+                $body
+            }
+        }
+    };
+}
+
+/// Calls `$body` with `$c` bound to the view of a [`CountArray`].
+macro_rules! with_counts {
+    ($array:expr, |$c:ident| $body:expr) => {
+        match &$array {
+            CountArray::U8(a) => {
+                let $c = a.as_array();
+                $body
+            }
+            CountArray::U16(a) => {
+                let $c = a.as_array();
+                $body
+            }
+            CountArray::U32(a) => {
+                let $c = a.as_array();
+                $body
+            }
+            CountArray::U64(a) => {
+                let $c = a.as_array();
+                $body
+            }
+        }
+    };
+}
+
 mod decomposition;
 mod linear;
 mod neighbors;
@@ -125,6 +165,43 @@ impl<'py, D: numpy::ndarray::Dimension> FloatArray<'py, D> {
             "`{argument}`: expected a float32 or float64 numpy array with {} dimensions",
             D::NDIM.map_or("the right number of".to_string(), |n| n.to_string())
         )))
+    }
+}
+
+/// In-bag counts of any unsigned integer dtype, read without a copy.
+pub(crate) enum CountArray<'py> {
+    U8(numpy::PyReadonlyArray2<'py, u8>),
+    U16(numpy::PyReadonlyArray2<'py, u16>),
+    U32(numpy::PyReadonlyArray2<'py, u32>),
+    U64(numpy::PyReadonlyArray2<'py, u64>),
+}
+
+impl<'py> CountArray<'py> {
+    /// `None` for a Python `None`, else the counts.
+    pub(crate) fn maybe(object: &Bound<'py, PyAny>) -> PyResult<Option<Self>> {
+        if object.is_none() {
+            Ok(None)
+        } else {
+            Self::extract(object).map(Some)
+        }
+    }
+
+    pub(crate) fn extract(object: &Bound<'py, PyAny>) -> PyResult<Self> {
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U8(a));
+        }
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U16(a));
+        }
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U32(a));
+        }
+        if let Ok(a) = object.extract() {
+            return Ok(CountArray::U64(a));
+        }
+        Err(PyTypeError::new_err(
+            "`counts`: expected a 2-D numpy array of dtype uint8, uint16, uint32 or uint64",
+        ))
     }
 }
 

@@ -1,90 +1,13 @@
 //! Bindings of [`crate::learners::tree`].
 
 use numpy::ndarray::Ix2;
-use numpy::{PyArrayMethods, PyReadonlyArray1, PyReadonlyArray2};
+use numpy::{PyArrayMethods, PyReadonlyArray1};
 use pyo3::exceptions::{PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
-use super::{positive, run_core, to_py_err, zeros, FloatArray};
+use super::{positive, run_core, to_py_err, zeros, CountArray, FloatArray};
 use crate::learners::tree::{Criterion, InBag, Splitter, Targets, Task, TreeEnsemble, TreeParams};
-
-/// In-bag counts of any unsigned integer dtype, read without a copy.
-enum CountArray<'py> {
-    U8(PyReadonlyArray2<'py, u8>),
-    U16(PyReadonlyArray2<'py, u16>),
-    U32(PyReadonlyArray2<'py, u32>),
-    U64(PyReadonlyArray2<'py, u64>),
-}
-
-impl<'py> CountArray<'py> {
-    /// `None` for a Python `None`, else the counts.
-    fn maybe(object: &Bound<'py, PyAny>) -> PyResult<Option<Self>> {
-        if object.is_none() {
-            Ok(None)
-        } else {
-            Self::extract(object).map(Some)
-        }
-    }
-
-    fn extract(object: &Bound<'py, PyAny>) -> PyResult<Self> {
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U8(a));
-        }
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U16(a));
-        }
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U32(a));
-        }
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U64(a));
-        }
-        Err(PyTypeError::new_err(
-            "`counts`: expected a 2-D numpy array of dtype uint8, uint16, uint32 or uint64",
-        ))
-    }
-}
-
-/// Calls `$body` with `$x` bound to the f32/f64 view of a [`FloatArray`].
-macro_rules! with_float {
-    ($array:expr, |$x:ident| $body:expr) => {
-        match &$array {
-            FloatArray::F32(a) => {
-                let $x = a.as_array();
-                $body
-            }
-            FloatArray::F64(a) => {
-                let $x = a.as_array();
-                $body
-            }
-        }
-    };
-}
-
-/// Calls `$body` with `$c` bound to the view of a [`CountArray`].
-macro_rules! with_counts {
-    ($array:expr, |$c:ident| $body:expr) => {
-        match &$array {
-            CountArray::U8(a) => {
-                let $c = a.as_array();
-                $body
-            }
-            CountArray::U16(a) => {
-                let $c = a.as_array();
-                $body
-            }
-            CountArray::U32(a) => {
-                let $c = a.as_array();
-                $body
-            }
-            CountArray::U64(a) => {
-                let $c = a.as_array();
-                $body
-            }
-        }
-    };
-}
 
 /// The training targets: float64 values for regression, int64 class codes otherwise.
 fn targets(y: &Bound<'_, PyAny>, task: Task) -> PyResult<YValues> {

@@ -1,64 +1,12 @@
 //! Bindings of [`crate::uncertainty`].
 
-use numpy::{IntoPyArray, PyReadonlyArray2};
-use pyo3::exceptions::{PyTypeError, PyValueError};
+use numpy::IntoPyArray;
+use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
-use super::{run_core, to_py_err, FloatArray};
+use super::{run_core, to_py_err, CountArray, FloatArray};
 use crate::uncertainty::{CountGram, DrawKind, GramCount, Method};
-
-/// In-bag counts of any unsigned width, read without a copy.
-enum CountArray<'py> {
-    U8(PyReadonlyArray2<'py, u8>),
-    U16(PyReadonlyArray2<'py, u16>),
-    U32(PyReadonlyArray2<'py, u32>),
-    U64(PyReadonlyArray2<'py, u64>),
-}
-
-impl<'py> CountArray<'py> {
-    fn extract(object: &Bound<'py, PyAny>) -> PyResult<Self> {
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U8(a));
-        }
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U16(a));
-        }
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U32(a));
-        }
-        if let Ok(a) = object.extract() {
-            return Ok(CountArray::U64(a));
-        }
-        Err(PyTypeError::new_err(
-            "`counts`: expected a 2-D numpy array of unsigned integers (members, n_train)",
-        ))
-    }
-}
-
-/// Runs `$body` with `$view` bound to the counts as an `ArrayView2` of their own dtype.
-macro_rules! with_counts {
-    ($counts:expr, $view:ident => $body:expr) => {
-        match $counts {
-            CountArray::U8(a) => {
-                let $view = a.as_array();
-                $body
-            }
-            CountArray::U16(a) => {
-                let $view = a.as_array();
-                $body
-            }
-            CountArray::U32(a) => {
-                let $view = a.as_array();
-                $body
-            }
-            CountArray::U64(a) => {
-                let $view = a.as_array();
-                $body
-            }
-        }
-    };
-}
 
 fn parse_kind(kind: Option<&str>, subsample_rows: Option<usize>) -> PyResult<Option<DrawKind>> {
     match (kind, subsample_rows) {
@@ -112,8 +60,9 @@ impl PyCountGram {
     ) -> PyResult<Self> {
         let kind = parse_kind(scheme, subsample_rows)?;
         let counts = CountArray::extract(counts)?;
-        let inner =
-            with_counts!(&counts, view => gram_new(py, view, kind, jackknife, threads, progress))?;
+        let inner = with_counts!(counts, |view| gram_new(
+            py, view, kind, jackknife, threads, progress
+        ))?;
         Ok(PyCountGram { inner })
     }
 
