@@ -492,3 +492,27 @@ def test_display_never_raises():
     assert frame["size"].tolist() == oob.curve_sizes.tolist()
     oob.curve_error = None    # broken on purpose: the HTML hook falls back to text
     assert oob._repr_html_().startswith("<pre>")
+
+
+def test_missing_in_bag_entries_are_ignored():
+    # Out-of-bag predictions with NaN where a member saw the row (the layout of
+    # RegressionBag.out_of_bag_predictions) give the same result as any filler there;
+    # a NaN at an out-of-bag entry is still an error naming `members`.
+    rng = np.random.default_rng(5)
+    counts = bagwise.resample(80, 30, seed=3).counts
+    members = rng.normal(size=(30, 80))
+    y = rng.normal(size=80)
+    marked = np.where(counts > 0, np.nan, members)
+    want = bagwise.out_of_bag(members, counts, y)
+    got = bagwise.out_of_bag(marked, counts, y)
+    np.testing.assert_array_equal(got.prediction, want.prediction)
+    assert got.error == want.error
+    probabilities = rng.dirichlet(np.ones(3), size=(30, 80))
+    labels = rng.integers(0, 3, size=80)
+    marked3 = np.where((counts > 0)[..., None], np.nan, probabilities)
+    np.testing.assert_array_equal(bagwise.out_of_bag(marked3, counts, labels).probabilities,
+                                  bagwise.out_of_bag(probabilities, counts, labels).probabilities)
+    bad = members.copy()
+    bad[np.nonzero(counts == 0)[0][0], np.nonzero(counts == 0)[1][0]] = np.nan
+    with pytest.raises(ValueError, match="`members`"):
+        bagwise.out_of_bag(bad, counts, y)

@@ -87,6 +87,18 @@ def _out_of_bag_iv(members, counts, y, metric, point_weights, threads, curve_siz
             f"{members.shape[:2]}"
         )
     n_members, n_points = members.shape[:2]
+    if members.dtype.kind == "f":
+        missing = ~np.isfinite(members)
+        if missing.any():
+            # Out-of-bag predictions often mark in-bag entries with NaN (as
+            # `RegressionBag.out_of_bag_predictions` does); those entries are never read, so
+            # they may be missing. A missing out-of-bag entry is still an error (core).
+            in_bag = counts != 0
+            seen = in_bag[..., None] if members.ndim == 3 else in_bag
+            if np.all(np.broadcast_to(seen, members.shape)[missing]):
+                # Fillers that pass the core's checks: 0, or uniform probabilities.
+                fill = 1.0 / members.shape[2] if members.ndim == 3 else 0.0
+                members = np.where(seen, fill, members).astype(members.dtype, copy=False)
     y = _array(y, "y")
     if y.ndim != 1 or y.shape[0] != n_points:
         raise ValueError(f"`y`: expected shape ({n_points},) to match `members`, got {y.shape}")
