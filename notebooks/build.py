@@ -117,7 +117,7 @@ DOES_BAGGING_HELP = [
               f"ensemble loss {d.ensemble_loss:.3f}  removed {d.relative_gain:.1%}")
     """),
     code("""
-    fig, ax = plt.subplots(figsize=(7, 3))
+    fig, ax = plt.subplots(figsize=(7, 3.4))
     rows = np.arange(len(learners))
     ensemble = [parts[n].ensemble_loss for n in learners]
     ambiguity = [parts[n].ambiguity for n in learners]
@@ -129,7 +129,7 @@ DOES_BAGGING_HELP = [
     ax.set_yticks(rows, learners)
     ax.set_xlabel("mean squared error on test vines (kg²)")
     ax.set_title("Mean member loss = ensemble loss + ambiguity")
-    ax.legend(loc="lower right", fontsize=8)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.25), ncol=3, fontsize=8)
     fig.tight_layout()
     """),
     md("""
@@ -306,7 +306,10 @@ STANDARD_ERRORS = [
     """),
     md("""
     Vines with a larger predicted standard error do move more between refits, and the
-    overall size agrees. The observed error against the real yield is much larger than the
+    overall size agrees. The range is compressed (the smallest standard errors are a
+    little too small, the largest a little too large) because each vine's estimate is
+    itself noisy, but over all test vines their size matches the refits.
+    The observed error against the real yield is much larger than the
     standard error everywhere: most of it is the vine's own variation, which no amount of
     training data removes.
 
@@ -341,9 +344,10 @@ STANDARD_ERRORS = [
     """),
     code("""
     fig, (left, right) = plt.subplots(1, 2, figsize=(9, 3.5))
-    left.plot(se.std_error, np.sqrt(refit_variance), ".", color="0.4", markersize=3)
-    top = float(np.quantile(np.sqrt(refit_variance), 0.99))
-    left.plot([0, top], [0, top], "k--", label="equal")
+    predicted = [se.std_error[bins == b].mean() for b in range(5)]
+    refit = [np.sqrt(refit_variance[bins == b].mean()) for b in range(5)]
+    left.plot(predicted, refit, "o-", color="0.3", label="fifths of the test vines")
+    left.plot([0, 0.5], [0, 0.5], "k--", label="ideal: equal")
     left.set_xlabel("predicted standard error (kg)")
     left.set_ylabel("spread across 4 refits (kg)")
     left.legend(fontsize=8)
