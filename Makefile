@@ -39,7 +39,7 @@ lint: install-test
 	cargo fmt --check
 	cargo clippy --quiet --all-targets -- -D warnings
 	cargo clippy --quiet --all-targets --features python -- -D warnings
-	$(VENV)/bin/ruff check python tests demo-data
+	$(VENV)/bin/ruff check python tests demo-data notebooks/build.py
 
 bench: install
 	@set -e; for script in tests/bench/bench_*.py; do \

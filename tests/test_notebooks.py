@@ -1,0 +1,210 @@
+"""The example notebooks: each runs top to bottom in a fresh python3 kernel (a temporary copy,
+so the committed outputs are untouched), prints no warning, and prints numbers that say
+what its text claims."""
+
+from __future__ import annotations
+
+import importlib.util
+import os
+import re
+import shutil
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+nbformat = pytest.importorskip("nbformat")
+nbclient = pytest.importorskip("nbclient")
+
+os.environ.setdefault("JUPYTER_PLATFORM_DIRS", "1")  # jupyter_core's path migration notice
+
+NOTEBOOKS = Path(__file__).resolve().parents[1] / "notebooks"
+# Guard against a hung kernel, not a benchmark: each notebook takes well under two minutes.
+NOTEBOOK_BUDGET_SECONDS = 300
+
+
+def _load_build():
+    spec = importlib.util.spec_from_file_location("notebooks_build", NOTEBOOKS / "build.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+BUILD = _load_build()
+NAMES = sorted(BUILD.NOTEBOOKS)
+
+
+def _execute(nb, cwd: Path):
+    """Run ``nb`` in place, cell by cell, within NOTEBOOK_BUDGET_SECONDS in total."""
+    client = nbclient.NotebookClient(nb, kernel_name="python3", timeout=NOTEBOOK_BUDGET_SECONDS,
+                                     record_timing=False,
+                                     resources={"metadata": {"path": str(cwd)}})
+    deadline = time.monotonic() + NOTEBOOK_BUDGET_SECONDS
+    with client.setup_kernel():
+        for index, cell in enumerate(nb.cells):
+            client.timeout = max(1, int(deadline - time.monotonic()))
+            client.execute_cell(cell, index)
+    return nb
+
+
+_RUNS: dict[str, object] = {}
+
+
+def _run(name: str, tmp_path_factory):
+    """Execute a copy of the committed notebook once per test session."""
+    if name not in _RUNS:
+        folder = tmp_path_factory.mktemp("notebook")
+        shutil.copy(NOTEBOOKS / name, folder / name)
+        nb = nbformat.read(folder / name, as_version=4)
+        _RUNS[name] = _execute(nb, folder)
+    return _RUNS[name]
+
+
+def _texts(nb, stream="stdout"):
+    out = []
+    for cell in nb.cells:
+        for output in cell.get("outputs", []):
+            if output.output_type == "stream" and output.name == stream:
+                out.append(output.text)
+            elif stream == "stdout" and "data" in output:
+                out.append(output.data.get("text/plain", ""))
+    return "\n".join(out)
+
+
+def _numbers(text: str, pattern: str) -> list[float]:
+    match = re.search(pattern, text)
+    assert match, f"no output matches {pattern!r}"
+    return [float(g) for g in match.groups()]
+
+
+def _images(nb) -> int:
+    return sum("image/png" in output.get("data", {}) for cell in nb.cells
+               for output in cell.get("outputs", []))
+
+
+def test_kernel_is_this_interpreter(tmp_path):
+    # The python3 kernel must run the interpreter (venv) that runs the tests, where bagwise
+    # is installed.
+    from nbformat.v4 import new_code_cell, new_notebook
+
+    nb = new_notebook(cells=[new_code_cell("import sys, bagwise\nprint(sys.executable)")])
+    _execute(nb, tmp_path)
+    printed = nb.cells[0].outputs[0].text.strip()
+    assert os.path.realpath(printed) == os.path.realpath(sys.executable)
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_committed_notebook_is_what_build_writes(name):
+    committed = nbformat.read(NOTEBOOKS / name, as_version=4)
+    built = BUILD.build(name)
+    assert [(c.cell_type, c.source) for c in committed.cells] == \
+        [(c.cell_type, c.source) for c in built.cells], "run `python notebooks/build.py`"
+    # Committed with outputs: every code cell was executed, in order.
+    counts = [c.execution_count for c in committed.cells if c.cell_type == "code"]
+    assert counts == list(range(1, len(counts) + 1))
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_notebook_runs_without_warnings(name, tmp_path_factory):
+    nb = _run(name, tmp_path_factory)
+    assert _texts(nb, "stderr") == "", "a cell wrote to stderr (a warning?)"
+    assert not any(o.output_type == "error" for c in nb.cells for o in c.get("outputs", []))
+
+
+def test_01_bagging_helps_trees_not_least_squares(tmp_path_factory):
+    nb = _run("01_does_bagging_help.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    # Breiman 1996 (Bagging predictors): bagging helps unstable learners such as trees and
+    # leaves stable ones such as least squares nearly unchanged.
+    single, bag, ratio = _numbers(text, r"tree: single ([\d.]+)  bagged ([\d.]+)  ratio ([\d.]+)")
+    assert ratio < 0.9
+    assert abs(ratio - bag / single) < 0.005
+    _, _, linear_ratio = _numbers(text, r"linear: single ([\d.]+)  bagged ([\d.]+)  ratio ([\d.]+)")
+    assert 0.98 < linear_ratio < 1.02
+    # Krogh & Vedelsby 1995, eq. 5-6: ensemble loss = member loss - ambiguity.
+    for name in ("tree", "linear", "neighbors"):
+        member, ambiguity, ensemble, removed = _numbers(
+            text, rf"{name}: member loss ([\d.]+)  ambiguity ([\d.]+)  ensemble loss ([\d.]+)  "
+                  r"removed ([\d.]+)%")
+        assert abs(member - ambiguity - ensemble) < 0.002
+        assert abs(removed / 100 - ambiguity / member) < 0.002
+    tree_removed = _numbers(text, r"tree: member loss .* removed ([\d.]+)%")[0]
+    linear_removed = _numbers(text, r"linear: member loss .* removed ([\d.]+)%")[0]
+    assert tree_removed > 30 > 2 > linear_removed
+    assert _images(nb) >= 1
+
+
+def test_02_size_curve_follows_the_law(tmp_path_factory):
+    nb = _run("02_how_many_members.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    # The order-averaged curve estimates loss(inf) + W/k at every k (Cochran 1977, Thm 2.2).
+    assert _numbers(text, r"largest gap between curve and law: ([\d.]+)%")[0] < 2
+    within_5 = _numbers(text, r"members within 5% of it: (\d+)")[0]
+    within_1 = _numbers(text, r"members within 1% of it: (\d+)")[0]
+    # W/k <= tol * loss(inf) gives k proportional to 1/tol: five times as many members.
+    assert 4 <= within_1 / within_5 <= 6
+    infinite, full = _numbers(text, r"infinite ensemble: ([\d.]+) \(200 members: ([\d.]+)\)")
+    assert infinite < full
+    # Breiman 1996: the out-of-bag error estimates the test error (here within 20%).
+    oob = _numbers(text, r"out-of-bag error: ([\d.]+)")[0]
+    test = _numbers(text, r"test error: ([\d.]+)")[0]
+    assert 0.8 < oob / test < 1.2
+    assert _images(nb) >= 1
+
+
+def test_03_standard_errors_match_refits(tmp_path_factory):
+    nb = _run("03_standard_errors.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    # Wager, Hastie & Efron 2014: the corrected IJ estimates the variance over training sets;
+    # four disjoint training sets of the bundled demo data give an independent estimate.
+    ratio = _numbers(text, r"refit / predicted: ([\d.]+)")[0]
+    assert 0.7 < ratio < 1.4
+    share = _numbers(text, r"median correction share\s+([\d.]+)%")[0]
+    assert share < 50
+    rows = re.findall(r"^\s+([1-5])\s+([\d.]+)\s+([\d.]+)\s+([\d.]+)$", text, flags=re.M)
+    assert len(rows) == 5
+    predicted = [float(r[1]) for r in rows]
+    refit = [float(r[2]) for r in rows]
+    assert predicted == sorted(predicted)
+    assert refit[-1] > refit[0]  # larger predicted standard errors move more between refits
+    model_only = _numbers(text, r"coverage of prediction ± 1.96 se: ([\d.]+)")[0]
+    with_noise = _numbers(text, r"coverage with out-of-bag noise added: ([\d.]+)")[0]
+    assert model_only < 0.7  # an interval for the model, not for the vine's yield
+    assert 0.92 < with_noise < 0.98  # nominal 95%
+    rho = _numbers(text, r"pooled rho: ([\d.]+)")[0]
+    assert 0 < rho < 1
+    assert _images(nb) >= 1
+
+
+def test_04_wrapped_pipeline_tunes_and_diagnoses(tmp_path_factory):
+    nb = _run("04_bag_your_own_estimator.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    errors = {int(k): float(v) for k, v in
+              re.findall(r"neighbours\s+(\d+): cross-validated error ([\d.]+)", text)}
+    assert sorted(errors) == [5, 10, 20]
+    best = _numbers(text, r"best neighbours: (\d+)")[0]
+    assert best == min(errors, key=errors.get)  # sklearn.model_selection.GridSearchCV
+    oob = _numbers(text, r"out-of-bag error: ([\d.]+)")[0]
+    cv = _numbers(text, r"\ncross-validated error: ([\d.]+)")[0]
+    assert cv == errors[best]
+    assert abs(oob / cv - 1) < 0.15  # Breiman 1996: out-of-bag error estimates the test error
+    removed = _numbers(text, r"share removed by averaging: ([\d.]+)")[0]
+    assert 0 < removed < 0.5
+
+
+def test_05_foreign_ensemble_matches_scikit_learn(tmp_path_factory):
+    nb = _run("05_ensemble_fitted_elsewhere.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    # sklearn.ensemble.BaggingRegressor.oob_prediction_ and oob_score_ on
+    # sklearn.datasets.load_diabetes.
+    assert _numbers(text, r"largest difference from oob_prediction_: ([\d.e+-]+)")[0] < 1e-9
+    ours, theirs = _numbers(text, r"out-of-bag R²: ([\d.]+) \(scikit-learn: ([\d.]+)\)")
+    assert ours == theirs
+    # BaggingRegressor.predict averages the members, so its loss is the ensemble loss.
+    loss, predicted = _numbers(text, r"ensemble loss ([\d.]+) \(from ensemble.predict: ([\d.]+)\)")
+    assert loss == predicted
+    within_5 = _numbers(text, r"members within 5% of an infinite ensemble: (\d+)")[0]
+    within_1 = _numbers(text, r"members within 1% of an infinite ensemble: (\d+)")[0]
+    assert within_5 <= within_1
+    assert _numbers(text, r"median correction share\s+([\d.]+)%")[0] < 50
