@@ -4,6 +4,7 @@ errors and exit status 2 for bad input."""
 
 from __future__ import annotations
 
+import io
 import json
 import subprocess
 import sys
@@ -167,3 +168,44 @@ def test_usage_errors_exit_with_status_2(tmp_path):
     result = run("report", "--members", tmp_path / "m.npy")
     assert result.returncode == 2
     assert "--targets" in result.stderr and "required" in result.stderr
+
+
+def test_warnings_of_the_diagnosis_are_one_line_each(tmp_path):
+    test, y_test, counts, _, _ = ensemble(members=12, n_train=60, n_test=40)
+    np.save(tmp_path / "m.npy", test)
+    np.save(tmp_path / "y.npy", y_test)
+    np.save(tmp_path / "c.npy", counts)
+    result = run("report", "--members", tmp_path / "m.npy", "--targets", tmp_path / "y.npy",
+                 "--counts", tmp_path / "c.npy", "--out", tmp_path / "r.html")
+    assert result.returncode == 0, result.stderr
+    lines = result.stderr.strip().splitlines()
+    # 12 members are too few for the bias correction of the standard errors (see
+    # bagwise.prediction_variance): the warning reaches the user as a plain line
+    assert lines and all(line.startswith("warning: ") for line in lines)
+    assert any("too few" in line for line in lines)
+    assert (tmp_path / "r.html").exists()
+
+
+class Terminal(io.StringIO):
+    def isatty(self):
+        return True
+
+
+@pytest.mark.parametrize(("stream", "quiet", "shown"), [(Terminal, False, True),
+                                                         (Terminal, True, False),
+                                                         (io.StringIO, False, False)])
+def test_progress_bar_on_a_terminal_only(monkeypatch, stream, quiet, shown):
+    from bagwise.__main__ import _steps
+
+    err = stream()
+    monkeypatch.setattr(sys, "stderr", err)
+    with _steps(3, quiet) as step:
+        step("reading")
+        assert ("reading:   0%" in err.getvalue()) is shown  # the step running, none done
+        step("diagnosing")
+        step("writing")
+        assert ("writing:  67%" in err.getvalue()) is shown
+    # the bar is cleared when the command ends, so the printed table starts on a clean line
+    assert err.getvalue().endswith("\r") is shown
+    if not shown:
+        assert err.getvalue() == ""

@@ -237,3 +237,18 @@ def test_display_of_a_broken_result_falls_back_and_never_raises():
         out = half._repr_html_()
         assert isinstance(out, str) and out, name
         Page(out)
+
+
+def test_probability_report_draws_the_last_class_figures():
+    rng = np.random.default_rng(0)
+    y = rng.integers(0, 3, size=120)
+    probabilities = rng.dirichlet([1.0, 1.0, 1.0], size=(50, 120))
+    counts = bagwise.resample(120, 50, seed=0).counts
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # 50 members: the standard errors warn, as they should
+        report = bagwise.diagnose(probabilities, y, counts=counts)
+    parsed = Page(report.to_html())
+    assert report.decomposition.loss == "brier"
+    assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
+    # decomposition (2), size curve (1), heatmap (1), standard errors (2), between/within (2)
+    assert len(parsed.images()) == 8

@@ -221,13 +221,20 @@ def _steps(total, quiet):
         if tqdm is not None:
             bar = tqdm(total=total, unit="step", file=sys.stderr, disable=None, leave=False)
 
+    started = []
+
     def step(description):
+        """Mark the step before as done and show ``description`` as the one running."""
         if bar is not None:
+            if started:
+                bar.update(1)
+            started.append(description)
             bar.set_description(description)
-            bar.update(1)
 
     try:
         yield step
+        if bar is not None and started:
+            bar.update(1)
     finally:
         if bar is not None:
             bar.close()

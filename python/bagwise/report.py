@@ -72,7 +72,7 @@ def format_number(value) -> str:
 
 def summary_rows(summary: dict) -> list[tuple[str, str, str]]:
     """``(section, quantity, value)`` rows of `Diagnosis.summary`, values formatted."""
-    return [(section, quantity.replace("_", " "), format_number(value))
+    return [(section.replace("_", " "), quantity.replace("_", " "), format_number(value))
             for section, numbers in summary.items() for quantity, value in numbers.items()]
 
 
