@@ -183,6 +183,7 @@ def test_warnings_of_the_diagnosis_are_one_line_each(tmp_path):
     # bagwise.prediction_variance): the warning reaches the user as a plain line
     assert lines and all(line.startswith("warning: ") for line in lines)
     assert any("too few" in line for line in lines)
+    assert len(set(lines)) == len(lines)  # each warning once
     assert (tmp_path / "r.html").exists()
 
 

@@ -28,8 +28,9 @@ What the files mean:
                              adds the out-of-bag error.
   --test-members/--test-targets
                              predictions and targets on held-out points: then the test set
-                             is diagnosed, and --members/--targets are the training rows
-                             (with --counts, for the out-of-bag error).
+                             is diagnosed, and --members/--targets are the training rows;
+                             --counts is then required (one column per training row) and
+                             gives the out-of-bag error as well.
   --reference                predictions of one model fit on all the training data, at the
                              diagnosed points: the report says whether bagging helps.
 
@@ -130,10 +131,9 @@ def _inputs(args):
     the option each of its argument names stands for."""
     members = _numeric(load_array(args.members, "--members"), "--members")
     targets = _numeric(load_array(args.targets, "--targets", csv=True), "--targets")
-    for array, option in ((members, "--members"),):
-        if array.ndim not in (2, 3):
-            raise CommandError(f"{option}: expected (members, points) or (members, points, "
-                               f"classes), got shape {array.shape}")
+    if members.ndim not in (2, 3):
+        raise CommandError(f"--members: expected (members, points) or (members, points, "
+                           f"classes), got shape {members.shape}")
     if targets.ndim != 1 or targets.shape[0] != members.shape[1]:
         raise CommandError(f"--targets: expected {members.shape[1]} values (one per point of "
                            f"--members {members.shape}), got shape {targets.shape}")
@@ -240,8 +240,15 @@ def _steps(total, quiet):
             bar.close()
 
 
+_shown: set[str] = set()
+
+
 def _warn_plainly(message, category, filename, lineno, file=None, line=None):
-    print(f"warning: {message}", file=sys.stderr)
+    """Show a warning of the diagnosis as one ``warning:`` line, each text once."""
+    text = "warning: " + " ".join(str(message).split())
+    if text not in _shown:
+        _shown.add(text)
+        print(text, file=sys.stderr)
 
 
 def report(args) -> int:
