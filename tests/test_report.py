@@ -252,3 +252,16 @@ def test_probability_report_draws_the_last_class_figures():
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
     # decomposition (2), size curve (1), heatmap (1), standard errors (2), between/within (2)
     assert len(parsed.images()) == 8
+
+
+def test_report_of_a_fitted_bag_has_every_figure():
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(300, 3))
+    y = X @ [1.0, -2.0, 0.5] + rng.normal(size=300)
+    bag = bagwise.RegressionBag("linear", members=400, seed=0).fit(X[:100], y[:100])
+    report = bag.diagnose(X[100:], y[100:])
+    parsed = Page(report.to_html())
+    # as `diagnose` on the same arrays: decomposition (2), size curve (1), standard errors
+    # (2), between/within (2); no heatmap for 400 members (more than 300)
+    assert len(parsed.images()) == 7
+    assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
