@@ -203,10 +203,14 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, th
             warnings.warn("`reference`: the single model's loss is 0, so the ratio is NaN",
                           RuntimeWarning, stacklevel=3)
             reference_ratio = math.nan
-    return Diagnosis(kind=kind, decomposition=decomposition, size_curve=curve,
-                     correlation=residuals, out_of_bag=oob, uncertainty=uncertainty,
-                     spread=between_within, reference_loss=reference_loss,
-                     reference_ratio=reference_ratio)
+    result = Diagnosis(kind=kind, decomposition=decomposition, size_curve=curve,
+                       correlation=residuals, out_of_bag=oob, uncertainty=uncertainty,
+                       spread=between_within, reference_loss=reference_loss,
+                       reference_ratio=reference_ratio)
+    if one is not None:
+        # kept (references, not copies) for the figures of `to_html`
+        result._points = (one, target)
+    return result
 
 
 def _number(value):
@@ -268,6 +272,9 @@ class Diagnosis:
         self.spread = spread
         self.reference_loss = reference_loss
         self.reference_ratio = reference_ratio
+        # (members, targets) as the correlation and standard errors used them, set by
+        # `diagnose`; the report draws the correlation heatmap and error figures from them
+        self._points = None
 
     # -- numbers --------------------------------------------------------------------------
     @property
@@ -392,20 +399,24 @@ class Diagnosis:
         return lines
 
     # -- display --------------------------------------------------------------------------
-    def _sections(self):
+    def _parts(self):
+        """``(attribute, title, rows, reading)`` of every section present."""
         titles = [("decomposition", "Ambiguity decomposition"), ("size_curve", "Ensemble size"),
                   ("correlation", "Residual correlation"), ("out_of_bag", "Out of bag"),
                   ("uncertainty", "Prediction uncertainty"), ("spread", "Between / within")]
-        sections = []
+        parts = []
         for attribute, title in titles:
             part = getattr(self, attribute)
             if part is not None:
-                sections.append((title, part._rows(), part._reading()))
+                parts.append((attribute, title, part._rows(), part._reading()))
         if self.reference_ratio is not None:
-            sections.append(("Single model", [
+            parts.append(("reference", "Single model", [
                 ("reference loss", f"{self.reference_loss:.6g}"),
                 ("ensemble / reference", f"{self.reference_ratio:.4g}")], self.verdict()))
-        return sections
+        return parts
+
+    def _sections(self):
+        return [(title, rows, reading) for _, title, rows, reading in self._parts()]
 
     def __repr__(self) -> str:
         d = self.decomposition
@@ -425,6 +436,48 @@ class Diagnosis:
                     f"<ul>{items}</ul></div>")
 
         return safe_html(self, render)
+
+    def to_html(self, path=None, *, title=None, unit=None) -> str:
+        """A self-contained HTML report: readings, key numbers, every section's table and
+        its figures, the cautions at its foot.
+
+        Figures are drawn with `bagwise.plots` and embedded as PNG data URIs; the page
+        fetches nothing (inline CSS, no scripts), so it reads offline. Without matplotlib
+        the report has the tables and a note on installing ``bagwise[plots]``. The
+        correlation heatmap is drawn for up to 300 members, the standard-error figures when
+        the diagnosis was made by `diagnose` with counts (it keeps references to the arrays).
+
+        Parameters
+        ----------
+        path : str or path-like, optional
+            Also write the report there (UTF-8).
+        title : str, optional
+            Heading and page title (default "bagwise diagnosis").
+        unit : str, optional
+            Unit of the targets for the figure labels, e.g. ``"kg"``.
+
+        Returns
+        -------
+        str
+            The HTML document.
+
+        Examples
+        --------
+        >>> import numpy as np, bagwise
+        >>> rng = np.random.default_rng(0)
+        >>> y = rng.normal(size=200)
+        >>> members = y + rng.normal(size=(20, 200))
+        >>> page = bagwise.diagnose(members, y).to_html()
+        >>> page.startswith("<!DOCTYPE html>"), "Cautions" in page
+        (True, True)
+        """
+        from .report import render
+
+        page = render(self, title=title, unit=unit)
+        if path is not None:
+            with open(path, "w", encoding="utf-8") as handle:
+                handle.write(page)
+        return page
 
     def to_frame(self):
         """Tidy long table of `summary`: one row per number, columns section, quantity,
