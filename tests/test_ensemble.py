@@ -26,6 +26,11 @@ from sklearn.utils.validation import check_is_fitted
 
 import bagwise
 
+# A process started in the background inherits an ignored SIGINT, and Python then installs
+# no KeyboardInterrupt handler; the children below restore it so the test sees Ctrl-C.
+RESTORE_CTRL_C = "import signal; signal.signal(signal.SIGINT, signal.default_int_handler)\n"
+
+
 
 @parametrize_with_checks([
     bagwise.RegressionBag("linear", members=3),
@@ -332,12 +337,15 @@ def test_ctrl_c_stops_a_long_native_fit_quickly():
             print(f"interrupted {time.perf_counter() - start:.3f} {hasattr(bag, 'in_bag_')}",
                   flush=True)
     """)
-    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    proc = subprocess.Popen([sys.executable, "-c", RESTORE_CTRL_C + code], stdout=subprocess.PIPE, text=True)
     assert proc.stdout.readline().strip() == "ready"
     time.sleep(1.5)
     sent = time.perf_counter()
     proc.send_signal(signal.SIGINT)
-    out, _ = proc.communicate(timeout=60)
+    try:
+        out, _ = proc.communicate(timeout=60)
+    finally:
+        proc.kill()
     waited = time.perf_counter() - sent
     assert out.startswith("interrupted") and out.strip().endswith("False"), out
     assert waited < 2.0, waited
@@ -356,12 +364,15 @@ def test_ctrl_c_stops_a_long_native_prediction_quickly():
         except KeyboardInterrupt:
             print(f"interrupted {time.perf_counter() - start:.3f}", flush=True)
     """)
-    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    proc = subprocess.Popen([sys.executable, "-c", RESTORE_CTRL_C + code], stdout=subprocess.PIPE, text=True)
     assert proc.stdout.readline().strip() == "ready"
     time.sleep(1.5)
     sent = time.perf_counter()
     proc.send_signal(signal.SIGINT)
-    out, _ = proc.communicate(timeout=60)
+    try:
+        out, _ = proc.communicate(timeout=60)
+    finally:
+        proc.kill()
     waited = time.perf_counter() - sent
     assert out.startswith("interrupted"), out
     assert waited < 2.0, waited
