@@ -205,6 +205,17 @@ impl<'py> CountArray<'py> {
     }
 }
 
+/// A zeroed C-contiguous array of any shape from `numpy.zeros` (allocation failure is a
+/// `MemoryError`).
+pub(crate) fn zeros_nd<'py, T: Element>(
+    py: Python<'py>,
+    shape: Vec<usize>,
+) -> PyResult<Bound<'py, numpy::PyArrayDyn<T>>> {
+    let numpy = py.import("numpy")?;
+    let array = numpy.call_method1("zeros", (shape, T::get_dtype(py)))?;
+    Ok(array.cast_into::<numpy::PyArrayDyn<T>>()?)
+}
+
 /// Converts a Python integer that must be positive into usize, naming the argument.
 pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
     usize::try_from(value)

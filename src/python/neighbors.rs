@@ -1,22 +1,14 @@
 //! Bindings of [`crate::learners::neighbors`].
 
 use numpy::ndarray::Axis;
-use numpy::{IntoPyArray, PyArrayDyn, PyArrayMethods, PyReadonlyArray1, PyReadonlyArrayDyn};
+use numpy::{IntoPyArray, PyArrayMethods, PyReadonlyArray1, PyReadonlyArrayDyn};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::linear::{decode, encode, read_bags, rows_of, view, View};
-use super::{run_core, to_py_err, FloatArray};
+use super::{run_core, to_py_err, zeros_nd, FloatArray};
 use crate::learners::neighbors::NeighborsEnsemble;
 use crate::learners::Task;
-
-/// A zeroed float64 array from `numpy.zeros` of any shape (allocation failure is numpy's
-/// `MemoryError`).
-fn zeros_nd<'py>(py: Python<'py>, shape: Vec<usize>) -> PyResult<Bound<'py, PyArrayDyn<f64>>> {
-    let numpy = py.import("numpy")?;
-    let array = numpy.call_method1("zeros", (shape, "float64"))?;
-    Ok(array.cast_into::<PyArrayDyn<f64>>()?)
-}
 
 /// Bagged k-nearest-neighbour members (regression or classification).
 #[pyclass(module = "bagwise._core", name = "NeighborsEnsemble", frozen)]
@@ -72,7 +64,7 @@ impl PyNeighborsEnsemble {
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let xv = view(&x);
-        let array = zeros_nd(py, self.shape(rows_of(&x)))?;
+        let array = zeros_nd::<f64>(py, self.shape(rows_of(&x)))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
         run_core(py, threads, None, |pool, monitor| match xv {
@@ -113,7 +105,7 @@ impl PyNeighborsEnsemble {
         let n = rows_of(&x);
         let bags = read_bags(counts, n)?;
         let xv = view(&x);
-        let array = zeros_nd(py, self.shape(n))?;
+        let array = zeros_nd::<f64>(py, self.shape(n))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
         run_core(py, threads, None, |pool, monitor| match xv {

@@ -1,12 +1,12 @@
 //! Bindings of [`crate::out_of_bag`].
 
 use numpy::ndarray::{Dimension, Ix2, Ix3};
-use numpy::{Element, PyArrayDyn, PyArrayMethods, PyReadonlyArray, PyReadonlyArray1};
+use numpy::{PyArrayMethods, PyReadonlyArray, PyReadonlyArray1};
 use pyo3::exceptions::{PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::PyDict;
 
-use super::{run_core, to_py_err, FloatArray};
+use super::{run_core, to_py_err, zeros_nd, FloatArray};
 use crate::out_of_bag::{
     default_curve_sizes, out_of_bag, ErrorSums, InBagCounts, Labels, MemberPredictions,
     OutOfBagPartial, PointOutputs, Probabilities, Task, Values,
@@ -59,17 +59,6 @@ macro_rules! int_array {
             IntArray::I64($a) => $body,
         }
     };
-}
-
-/// A zeroed C-contiguous array of any shape from `numpy.zeros` (allocation failure is a
-/// `MemoryError`).
-pub(crate) fn zeros_nd<'py, T: Element>(
-    py: Python<'py>,
-    shape: Vec<usize>,
-) -> PyResult<Bound<'py, PyArrayDyn<T>>> {
-    let numpy = py.import("numpy")?;
-    let array = numpy.call_method1("zeros", (shape, T::get_dtype(py)))?;
-    Ok(array.cast_into::<PyArrayDyn<T>>()?)
 }
 
 type Metric = fn(&ErrorSums) -> f64;

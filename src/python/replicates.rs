@@ -5,7 +5,7 @@ use numpy::{PyArrayMethods, PyReadonlyArray1, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use pyo3::types::PyDict;
 
-use super::out_of_bag::zeros_nd;
+use super::zeros_nd;
 use super::{run_core, FloatArray};
 use crate::replicates::{replicate_spread, SplitOutputs, SpreadOutputs};
 
