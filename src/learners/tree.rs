@@ -56,10 +56,11 @@
 //! SplitMix64 finaliser of `seed + FEATURE_STREAM_SALT`, so they never coincide with the
 //! resampling streams of the same seed. Results do not depend on the thread count.
 
+use std::ops::Range;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::time::{Duration, Instant};
 
-use ndarray::{ArrayView1, ArrayView2};
+use ndarray::{s, ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
@@ -78,13 +79,15 @@ pub const AUTO_HISTOGRAM_ABOVE: usize = 2048;
 pub const FEATURE_STREAM_SALT: u64 = 0x7472_6565_5F66_6561;
 /// Marks a leaf in [`Tree::feature`].
 const LEAF: u32 = u32::MAX;
-/// Points per parallel prediction task.
+/// Points whose rows one prediction step copies and walks through the trees together.
 const POINT_CHUNK: usize = 512;
 /// Binned nodes with at most this many distinct in-bag rows sort their bin codes instead
 /// of filling 256-bin histograms.
 const SPARSE_BINS_UP_TO: usize = 128;
-/// Points walked down a tree in lockstep.
+/// Walks of one tree interleaved by [`Tree::walk`].
 const BATCH: usize = 8;
+/// Node bytes of the members one prediction task walks together (about a core's L2 share).
+const TREE_GROUP_BYTES: usize = 256 * 1024;
 
 /// The seed of the feature-sampling member streams: SplitMix64's finaliser (Steele, Lea &
 /// Flood 2014, "Fast splittable pseudorandom number generators", OOPSLA) applied to
@@ -283,36 +286,64 @@ impl Tree {
         self.nodes.len()
     }
 
-    /// The leaf numbers reached by points `first .. first + count` of `x` (count ≤
-    /// [`BATCH`]), walked in lockstep so the memory loads of the walks overlap.
+    /// Walks the `rows.len() / n_features` points of `rows` (row-major, `n_features` values
+    /// each) to their leaves and calls `reached(point, leaf)` for each, in no fixed order.
+    /// [`BATCH`] walks are interleaved so their memory loads overlap, and a walk that ends
+    /// is replaced by the next point at once, so no step is spent on a finished walk while
+    /// a deep one goes on.
     ///
     /// # Safety
-    /// `first + count ≤ x.nrows()` and every split feature of the tree is below `x.ncols()`.
+    /// Every split feature of the tree is below `n_features` (validated at fit and load).
     #[inline]
-    unsafe fn leaves<T: Real>(
-        &self,
-        x: &ArrayView2<'_, T>,
-        first: usize,
-        count: usize,
-        out: &mut [u32; BATCH],
-    ) {
+    unsafe fn walk(&self, rows: &[f64], n_features: usize, mut reached: impl FnMut(usize, u32)) {
+        let count = rows.len() / n_features;
+        let nodes = self.nodes.as_slice();
+        // One step of the walk of the point whose row starts at `base`: Ok(next node) or
+        // Err(leaf number).
+        let step = |base: usize, at: u32| -> std::result::Result<u32, u32> {
+            // SAFETY: node indices are validated (children after parents, in range), the
+            // row lies inside `rows` and the feature is below n_features.
+            let node = unsafe { *nodes.get_unchecked(at as usize) };
+            if node.feature == LEAF {
+                return Err(node.child);
+            }
+            let v = unsafe { *rows.get_unchecked(base + node.feature as usize) };
+            Ok(node.child + u32::from(v > node.threshold))
+        };
+        let finish = |point: usize, mut at: u32, reached: &mut dyn FnMut(usize, u32)| loop {
+            match step(point * n_features, at) {
+                Ok(next) => at = next,
+                Err(leaf) => break reached(point, leaf),
+            }
+        };
+        if count < BATCH {
+            (0..count).for_each(|point| finish(point, 0, &mut reached));
+            return;
+        }
+        let mut points: [usize; BATCH] = std::array::from_fn(|k| k);
         let mut at = [0u32; BATCH];
-        loop {
-            let mut moving = false;
-            for (k, slot) in at.iter_mut().enumerate().take(count) {
-                let node = self.nodes[*slot as usize];
-                if node.feature != LEAF {
-                    let v = unsafe { *x.uget((first + k, node.feature as usize)) }.to_f64();
-                    *slot = node.child + u32::from(v > node.threshold);
-                    moving = true;
+        let mut next = BATCH;
+        // Every slot stays busy until the last point has been handed out.
+        'refill: loop {
+            for k in 0..BATCH {
+                match step(points[k] * n_features, at[k]) {
+                    Ok(node) => at[k] = node,
+                    Err(leaf) => {
+                        reached(points[k], leaf);
+                        if next == count {
+                            points[k] = usize::MAX;
+                            break 'refill;
+                        }
+                        (points[k], at[k]) = (next, 0);
+                        next += 1;
+                    }
                 }
             }
-            if !moving {
-                break;
-            }
         }
-        for (o, a) in out.iter_mut().zip(&at).take(count) {
-            *o = self.nodes[*a as usize].child;
+        for k in 0..BATCH {
+            if points[k] != usize::MAX {
+                finish(points[k], at[k], &mut reached);
+            }
         }
     }
 
@@ -446,8 +477,29 @@ impl TreeEnsemble {
         Ok(())
     }
 
+    /// Consecutive members whose nodes together fit in about [`TREE_GROUP_BYTES`] (at
+    /// least one member per group).
+    fn tree_groups(&self) -> Vec<Range<usize>> {
+        let mut groups = Vec::new();
+        let (mut start, mut bytes) = (0, 0);
+        for (m, tree) in self.trees.iter().enumerate() {
+            let size = std::mem::size_of_val(tree.nodes.as_slice());
+            if m > start && bytes + size > TREE_GROUP_BYTES {
+                groups.push(start..m);
+                (start, bytes) = (m, 0);
+            }
+            bytes += size;
+        }
+        groups.push(start..self.trees.len());
+        groups
+    }
+
     /// Writes every member's predictions for every point into `out`, laid out
     /// members × points × width (C order); `skip(m, p)` marks entries to leave as NaN.
+    ///
+    /// The work is tiled: a task walks a range of points through a group of members whose
+    /// nodes fit in a core's cache, block by block, so neither the nodes nor the points'
+    /// rows are fetched from memory once per member and point.
     fn fill_members<T: Real>(
         &self,
         x: ArrayView2<'_, T>,
@@ -460,30 +512,55 @@ impl TreeEnsemble {
         if n == 0 {
             return;
         }
+        let groups = self.tree_groups();
+        // Enough tasks to keep every thread busy, each covering whole batches of points.
+        let ranges = (4 * pool.threads()).div_ceil(groups.len()).max(1);
+        let span = n.div_ceil(ranges).next_multiple_of(BATCH);
+        let mut member_rows: Vec<Vec<&mut [f64]>> = out
+            .chunks_mut(n * width)
+            .map(|row| row.chunks_mut(span * width).collect())
+            .collect();
+        let mut tiles: Vec<(usize, usize, Vec<&mut [f64]>)> = Vec::new();
+        for group in &groups {
+            let mut parts: Vec<_> = member_rows[group.clone()]
+                .iter_mut()
+                .map(|row| std::mem::take(row).into_iter())
+                .collect();
+            for r in 0..n.div_ceil(span) {
+                let slices = parts
+                    .iter_mut()
+                    .map(|p| p.next().expect("one part per range"));
+                tiles.push((group.start, r * span, slices.collect()));
+            }
+        }
         pool.run(|| {
-            out.par_chunks_mut(n * width)
-                .zip(self.trees.par_iter())
-                .enumerate()
-                .for_each(|(m, (row, tree))| {
-                    row.par_chunks_mut(POINT_CHUNK * width)
-                        .enumerate()
-                        .for_each(|(c, block)| {
-                            let mut leaves = [0u32; BATCH];
-                            for (g, group) in block.chunks_mut(BATCH * width).enumerate() {
-                                let first = c * POINT_CHUNK + g * BATCH;
-                                let count = group.len() / width;
-                                // SAFETY: the group lies inside x, and every feature index
-                                // is below n_features (validated at fit / load, x checked).
-                                unsafe { tree.leaves(&x, first, count, &mut leaves) };
-                                for (k, slot) in group.chunks_mut(width).enumerate() {
-                                    if skip(m, first + k) {
-                                        slot.fill(f64::NAN);
-                                    } else {
-                                        slot.copy_from_slice(tree.leaf_values(leaves[k], width));
-                                    }
+            tiles
+                .into_par_iter()
+                .for_each(|(first_member, first_point, mut rows)| {
+                    let points = rows[0].len() / width;
+                    let n_features = self.n_features;
+                    let mut buffer = Vec::new();
+                    for block in (0..points).step_by(POINT_CHUNK) {
+                        let block_end = (block + POINT_CHUNK).min(points);
+                        let range = first_point + block..first_point + block_end;
+                        let block_rows = block_rows(&x, range, &mut buffer);
+                        for (j, row) in rows.iter_mut().enumerate() {
+                            let m = first_member + j;
+                            let tree = &self.trees[m];
+                            let reached = |point: usize, leaf: u32| {
+                                let slot =
+                                    &mut row[(block + point) * width..(block + point + 1) * width];
+                                if skip(m, first_point + block + point) {
+                                    slot.fill(f64::NAN);
+                                } else {
+                                    slot.copy_from_slice(tree.leaf_values(leaf, width));
                                 }
-                            }
-                        });
+                            };
+                            // SAFETY: every feature index is below n_features (validated at fit
+                            // and load; x has n_features columns).
+                            unsafe { tree.walk(block_rows, n_features, reached) };
+                        }
+                    }
                 });
         });
     }
@@ -552,26 +629,38 @@ impl TreeEnsemble {
         let width = self.width();
         self.check_out(out, x.nrows() * width)?;
         let scale = 1.0 / self.members() as f64;
+        let n = x.nrows();
+        if n == 0 {
+            return Ok(());
+        }
+        let groups = self.tree_groups();
+        let span = n.div_ceil(2 * pool.threads()).next_multiple_of(BATCH);
         pool.run(|| {
-            out.par_chunks_mut(POINT_CHUNK * width)
+            out.par_chunks_mut(span * width)
                 .enumerate()
-                .for_each(|(c, block)| {
-                    block.fill(0.0);
-                    let mut leaves = [0u32; BATCH];
-                    for (g, group) in block.chunks_mut(BATCH * width).enumerate() {
-                        let first = c * POINT_CHUNK + g * BATCH;
-                        let count = group.len() / width;
-                        // Members are added in member order for every point.
-                        for tree in &self.trees {
-                            // SAFETY: as in `fill_members`.
-                            unsafe { tree.leaves(&x, first, count, &mut leaves) };
-                            for (k, slot) in group.chunks_mut(width).enumerate() {
-                                let values = tree.leaf_values(leaves[k], width);
-                                slot.iter_mut().zip(values).for_each(|(s, v)| *s += v);
+                .for_each(|(r, part)| {
+                    part.fill(0.0);
+                    let mut buffer = Vec::new();
+                    let points = part.len() / width;
+                    // Groups and members in member order, so every point's sum has one order.
+                    for group in &groups {
+                        for block in (0..points).step_by(POINT_CHUNK) {
+                            let block_end = (block + POINT_CHUNK).min(points);
+                            let rows =
+                                block_rows(&x, r * span + block..r * span + block_end, &mut buffer);
+                            let sums = &mut part[block * width..block_end * width];
+                            for tree in &self.trees[group.clone()] {
+                                let add = |point: usize, leaf: u32| {
+                                    let slot = &mut sums[point * width..(point + 1) * width];
+                                    let values = tree.leaf_values(leaf, width);
+                                    slot.iter_mut().zip(values).for_each(|(s, v)| *s += v);
+                                };
+                                // SAFETY: as in `fill_members`.
+                                unsafe { tree.walk(rows, self.n_features, add) };
                             }
                         }
                     }
-                    block.iter_mut().for_each(|s| *s *= scale);
+                    part.iter_mut().for_each(|s| *s *= scale);
                 });
         });
         Ok(())
@@ -587,6 +676,18 @@ impl TreeEnsemble {
             ))
         }
     }
+}
+
+/// Rows `range` of `x` as contiguous row-major f64 in `buffer`, whatever the strides and
+/// dtype of `x`, so a tree walk reads a point's values with one index.
+fn block_rows<'b, T: Real>(
+    x: &ArrayView2<'_, T>,
+    range: Range<usize>,
+    buffer: &'b mut Vec<f64>,
+) -> &'b [f64] {
+    buffer.clear();
+    buffer.extend(x.slice(s![range, ..]).iter().map(|v| v.to_f64()));
+    buffer
 }
 
 /// The per-fit representation of `x`, shared by all members: dense ranks of every value
@@ -1601,6 +1702,97 @@ mod tests {
         e.member_predictions_into(x.view(), &mut out, &pool(2))
             .unwrap();
         out
+    }
+
+    /// The leaf values of one point by the plain walk from the root.
+    fn reference_walk<'t>(tree: &'t Tree, point: &[f64], width: usize) -> &'t [f64] {
+        let mut at = 0;
+        loop {
+            let node = tree.nodes[at];
+            if node.feature == LEAF {
+                return tree.leaf_values(node.child, width);
+            }
+            let right = point[node.feature as usize] > node.threshold;
+            at = node.child as usize + usize::from(right);
+        }
+    }
+
+    #[test]
+    fn tiled_walks_equal_the_plain_walk_for_any_layout_and_thread_count() {
+        let x = data(600, 4, 21, 0);
+        let y = signal(&x, 22);
+        // Depth-limited members are small, so many share one cache group; fully grown
+        // ones are large. Both must give the plain walk's values for every point count
+        // (below, at and above one interleaved batch) and layout.
+        for max_depth in [Some(3), None] {
+            let mut p = params(Task::Regression, Splitter::Exact);
+            p.max_depth = max_depth;
+            let mut counts = Array2::<u8>::zeros((40, 600));
+            let mut d = Draws::from_seed(3);
+            for m in 0..40 {
+                d.for_each_below(600, 600, |i| counts[(m, i)] += 1);
+            }
+            let e = fit_reg(p, &x, &y, &counts);
+            // One cache group of small trees; several of large ones.
+            let groups = e.tree_groups().len();
+            assert!(
+                if max_depth.is_some() {
+                    groups == 1
+                } else {
+                    groups >= 2
+                },
+                "{groups}"
+            );
+            for n_points in [1, 7, 8, 9, 513, 600] {
+                let points = x.slice(s![..n_points, ..]).to_owned();
+                let mut expected = Vec::new();
+                for tree in e.trees() {
+                    for row in points.outer_iter() {
+                        expected.extend_from_slice(reference_walk(
+                            tree,
+                            row.as_slice().unwrap(),
+                            1,
+                        ));
+                    }
+                }
+                let fortran = points.t().as_standard_layout().into_owned().reversed_axes();
+                assert!(n_points == 1 || !fortran.is_standard_layout());
+                let narrow = points.mapv(|v| v as f32);
+                let narrow_expected: Vec<f64> = {
+                    let wide = narrow.mapv(f64::from);
+                    e.trees()
+                        .iter()
+                        .flat_map(|t| {
+                            wide.outer_iter()
+                                .map(|r| reference_walk(t, r.as_slice().unwrap(), 1)[0])
+                                .collect::<Vec<_>>()
+                        })
+                        .collect()
+                };
+                for threads in [1, 3] {
+                    let mut out = vec![0.0; e.members() * n_points];
+                    e.member_predictions_into(points.view(), &mut out, &pool(threads))
+                        .unwrap();
+                    assert_eq!(out, expected, "{n_points} points, {threads} threads");
+                    out.fill(0.0);
+                    e.member_predictions_into(fortran.view(), &mut out, &pool(threads))
+                        .unwrap();
+                    assert_eq!(out, expected, "column-major x");
+                    out.fill(0.0);
+                    e.member_predictions_into(narrow.view(), &mut out, &pool(threads))
+                        .unwrap();
+                    assert_eq!(out, narrow_expected, "f32 x");
+                    // The mean adds members in member order for every point.
+                    let mut mean = vec![0.0; n_points];
+                    e.predict_into(points.view(), &mut mean, &pool(threads))
+                        .unwrap();
+                    for (i, m) in mean.iter().enumerate() {
+                        let sum = (0..e.members()).fold(0.0, |s, t| s + expected[t * n_points + i]);
+                        assert_eq!(*m, sum * (1.0 / e.members() as f64));
+                    }
+                }
+            }
+        }
     }
 
     #[test]

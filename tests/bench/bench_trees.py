@@ -60,22 +60,28 @@ else:
                                  n_classes=2, splitter=splitter, seed=0, threads=2)
 fit_seconds = time.perf_counter() - start
 
-start = time.perf_counter()
 if which == "sklearn":
     if task == "regression":
-        members_out = np.array([t.predict(xte) for t in model.estimators_])
+        predict = lambda: np.array([t.predict(xte) for t in model.estimators_])
     else:
-        members_out = np.array([t.predict_proba(xte) for t in model.estimators_])
+        predict = lambda: np.array([t.predict_proba(xte) for t in model.estimators_])
 else:
-    members_out = model.member_predictions(xte, threads=2)
-predict_seconds = time.perf_counter() - start
-
+    predict = lambda: model.member_predictions(xte, threads=2)
+# The first call, and the best of three more: a shared machine slows single calls by
+# up to 3x, and both contenders get the same treatment.
+calls = []
+for _ in range(4):
+    start = time.perf_counter()
+    members_out = predict()
+    calls.append(time.perf_counter() - start)
+first_call, predict_seconds = calls[0], min(calls[1:])
 mean = members_out.mean(axis=0)
 if task == "regression":
     score = float(np.mean((mean - yte) ** 2))
 else:
     score = float(np.mean(mean.argmax(axis=1) == yte))
-print(json.dumps({"fit": fit_seconds, "members": predict_seconds, "score": score,
+print(json.dumps({"fit": fit_seconds, "members": predict_seconds, "first_call": first_call,
+                  "score": score,
                   "peak_extra_mib": rss_mib() - before}))
 """
 
@@ -104,14 +110,16 @@ def main() -> None:
                   f"(splitter={args.splitter!r})")
             for name, r in (("sklearn", ref), ("bagwise", ours)):
                 print(f"  {name:<8} fit {r['fit']:8.2f} s   member predictions "
-                      f"{r['members']:7.3f} s   {metric} {r['score']:.4f}   "
+                      f"{r['members']:7.3f} s (first call {r['first_call']:7.3f} s)   "
+                      f"{metric} {r['score']:.4f}   "
                       f"peak extra {r['peak_extra_mib']:8.1f} MiB")
             if task == "regression":
                 quality = f"MSE ratio {ours['score'] / ref['score']:.3f} (target <= 1.02)"
             else:
                 quality = f"accuracy difference {ours['score'] - ref['score']:+.4f}"
             print(f"  fit speed-up {ref['fit'] / ours['fit']:.1f}x (target >= 5x), "
-                  f"member predictions {ref['members'] / ours['members']:.1f}x (target >= 3x), "
+                  f"member predictions {ref['members'] / ours['members']:.1f}x (target >= 3x; "
+                  f"first call {ref['first_call'] / ours['first_call']:.1f}x), "
                   f"{quality}, peak memory ratio "
                   f"{ours['peak_extra_mib'] / max(ref['peak_extra_mib'], 1e-9):.2f} (target <= 1)")
 
