@@ -514,7 +514,7 @@ impl TreeEnsemble {
         }
         let groups = self.tree_groups();
         // Enough tasks to keep every thread busy, each covering whole batches of points.
-        let ranges = (4 * pool.threads()).div_ceil(groups.len()).max(1);
+        let ranges = (16 * pool.threads()).div_ceil(groups.len()).max(1);
         let span = n.div_ceil(ranges).next_multiple_of(BATCH);
         let mut member_rows: Vec<Vec<&mut [f64]>> = out
             .chunks_mut(n * width)
