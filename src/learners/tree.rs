@@ -831,8 +831,11 @@ struct Split {
     score: f64,
     feature: usize,
     by_bins: bool,
+    /// Rows with bin code (by_bins) or value rank (exact) ≤ cut go left.
     cut: u32,
-    threshold: f64,
+    /// Exact splits: the rank of the next distinct in-node value (the threshold lies
+    /// between the two).
+    next: u32,
 }
 
 /// Scores within this relative distance are ties, so that the tie rule does not depend on
@@ -841,7 +844,8 @@ const SCORE_TIE: f64 = 1e-12;
 
 impl Split {
     /// The deterministic order: a clearly higher score wins; scores equal to within
-    /// [`SCORE_TIE`] (relative) fall back to the lower feature, then the lower threshold.
+    /// [`SCORE_TIE`] (relative) fall back to the lower feature, then the lower threshold
+    /// (within a feature and node, the lower cut).
     fn beats(&self, other: &Option<Split>) -> bool {
         match other {
             None => true,
@@ -852,10 +856,21 @@ impl Split {
                 } else if self.score < o.score - tolerance {
                     false
                 } else {
-                    self.feature < o.feature
-                        || (self.feature == o.feature && self.threshold < o.threshold)
+                    self.feature < o.feature || (self.feature == o.feature && self.cut < o.cut)
                 }
             }
+        }
+    }
+
+    /// The split's threshold, looked up only for the winning split of a node: the value
+    /// tables are large, and each lookup is likely a cache miss.
+    fn threshold(&self, columns: &Columns) -> f64 {
+        let f = self.feature;
+        if self.by_bins {
+            columns.edges[f][self.cut as usize]
+        } else {
+            let d = &columns.distinct[f];
+            midpoint(d[self.cut as usize], d[self.next as usize])
         }
     }
 }
@@ -1008,7 +1023,7 @@ impl<'a> Grower<'a> {
             feature: f,
             by_bins: true,
             cut: code,
-            threshold: self.columns.edges[f][code as usize],
+            next: code,
         })
     }
 
@@ -1070,7 +1085,7 @@ impl<'a> Grower<'a> {
                 feature: f,
                 by_bins: true,
                 cut: b as u32,
-                threshold: self.columns.edges[f][b],
+                next: b as u32,
             };
             if candidate.beats(&best) {
                 best = Some(candidate);
@@ -1084,8 +1099,8 @@ impl<'a> Grower<'a> {
     fn scan_exact(&mut self, f: usize, start: usize, end: usize, total: &[f64]) -> Option<Split> {
         let n_in = self.slot_row.len();
         let keys = &self.sorted[f * n_in + start..f * n_in + end];
-        // (score, rank, next rank) of the best boundary so far; the threshold is computed
-        // once at the end. Later boundaries have higher thresholds, so within a feature
+        // (score, rank, next rank) of the best boundary so far; the threshold is looked up
+        // only for the node's winning split. Later boundaries have higher thresholds, so within a feature
         // only a clearly higher score replaces the best (the tie rule of `Split::beats`).
         let mut best: Option<(f64, u32, u32)> = None;
         let clearly_better = |score: f64, best: &Option<(f64, u32, u32)>| {
@@ -1155,15 +1170,12 @@ impl<'a> Grower<'a> {
             }
             self.left = left;
         }
-        best.map(|(score, rank, next)| {
-            let d = &self.columns.distinct[f];
-            Split {
-                score,
-                feature: f,
-                by_bins: false,
-                cut: rank,
-                threshold: midpoint(d[rank as usize], d[next as usize]),
-            }
+        best.map(|(score, rank, next)| Split {
+            score,
+            feature: f,
+            by_bins: false,
+            cut: rank,
+            next,
         })
     }
 
@@ -1351,7 +1363,7 @@ impl<'a> Grower<'a> {
             let right_stats = self.stats_of(mid, end);
             let c = self.tree.nodes.len();
             self.tree.nodes[node] = Node {
-                threshold: split.threshold,
+                threshold: split.threshold(self.columns),
                 feature: split.feature as u32,
                 child: c as u32,
             };
