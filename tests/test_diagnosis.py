@@ -225,3 +225,18 @@ def test_bad_input(change, error, match):
     members, y = args.pop("members"), args.pop("y")
     with pytest.raises(error, match=match):
         bagwise.diagnose(members, y, **args)
+
+
+def test_bad_training_members_are_reported_under_their_own_names():
+    rng = np.random.default_rng(1)
+    counts = bagwise.resample(12, 4, seed=0).counts
+    train = rng.normal(size=(4, 12))
+    member, row = np.argwhere(counts == 0)[0]
+    train[member, row] = np.nan  # out-of-bag entries are used, so this one is an error
+    with pytest.raises(ValueError, match=r"^`train_members`: contains NaN"):
+        bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
+                         train_members=train, train_y=rng.normal(size=12))
+    with pytest.raises(ValueError, match=r"^`train_y`"):
+        bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
+                         train_members=rng.normal(size=(4, 12)),
+                         train_y=np.r_[np.zeros(11), np.inf])

@@ -61,3 +61,14 @@ def label_codes(labels: object, n_rows: int, name: str) -> tuple[np.ndarray, np.
     except TypeError as err:
         raise TypeError(f"`{name}`: labels must be mutually comparable ({err})") from None
     return codes.astype(np.int64, copy=False).reshape(-1), uniques
+
+
+def renamed_arguments(error: Exception, names: dict[str, str]) -> Exception:
+    """``error`` again, its leading backticked argument renamed by ``names`` (a call that
+    passes its own argument on under another name reports the caller's name)."""
+    message = str(error)
+    for inner, outer in names.items():
+        if message.startswith(f"`{inner}`"):
+            message = f"`{outer}`" + message[len(inner) + 2:]
+            break
+    return type(error)(message)

@@ -18,7 +18,7 @@ import warnings
 import numpy as np
 
 from ._display import html_block, safe_html, text_block
-from ._validation import seed_value, threads_value
+from ._validation import renamed_arguments, seed_value, threads_value
 from .decomposition import _members_array, _target, correlation, decompose, size_curve
 from .out_of_bag import out_of_bag
 from .uncertainty import CORRECTION_WARNING_SHARE, prediction_variance, spread
@@ -186,7 +186,11 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, th
     oob = None
     if counts is not None:
         if train_members is not None:
-            oob = out_of_bag(train_members, counts, train_y, threads=threads)
+            try:
+                oob = out_of_bag(train_members, counts, train_y, threads=threads)
+            except (ValueError, TypeError) as error:
+                names = {"members": "train_members", "y": "train_y"}
+                raise renamed_arguments(error, names) from None
         elif members_are_training is not False and counts.shape[1] == members.shape[1]:
             oob = out_of_bag(members, counts, y, threads=threads)
     uncertainty = between_within = None
