@@ -297,52 +297,50 @@ impl Tree {
     #[inline]
     unsafe fn walk(&self, rows: &[f64], n_features: usize, mut reached: impl FnMut(usize, u32)) {
         let count = rows.len() / n_features;
-        let nodes = self.nodes.as_slice();
-        // One step of the walk of the point whose row starts at `base`: Ok(next node) or
-        // Err(leaf number).
-        let step = |base: usize, at: u32| -> std::result::Result<u32, u32> {
-            // SAFETY: node indices are validated (children after parents, in range), the
-            // row lies inside `rows` and the feature is below n_features.
-            let node = unsafe { *nodes.get_unchecked(at as usize) };
-            if node.feature == LEAF {
-                return Err(node.child);
-            }
-            let v = unsafe { *rows.get_unchecked(base + node.feature as usize) };
-            Ok(node.child + u32::from(v > node.threshold))
-        };
-        let finish = |point: usize, mut at: u32, reached: &mut dyn FnMut(usize, u32)| loop {
-            match step(point * n_features, at) {
-                Ok(next) => at = next,
-                Err(leaf) => break reached(point, leaf),
+        let nodes = self.nodes.as_ptr();
+        let values = rows.as_ptr();
+        // SAFETY (every dereference below): node indices are validated at fit and load
+        // (children after their parent and in range), a point's row `base .. base +
+        // n_features` lies inside `rows`, and every split feature is below n_features.
+        let leaf_of = |base: usize, mut at: u32| -> u32 {
+            loop {
+                let node = unsafe { &*nodes.add(at as usize) };
+                if node.feature == LEAF {
+                    return node.child;
+                }
+                let v = unsafe { *values.add(base + node.feature as usize) };
+                at = node.child + u32::from(v > node.threshold);
             }
         };
         if count < BATCH {
-            (0..count).for_each(|point| finish(point, 0, &mut reached));
+            (0..count).for_each(|point| reached(point, leaf_of(point * n_features, 0)));
             return;
         }
         let mut points: [usize; BATCH] = std::array::from_fn(|k| k);
+        let mut bases: [usize; BATCH] = std::array::from_fn(|k| k * n_features);
         let mut at = [0u32; BATCH];
         let mut next = BATCH;
         // Every slot stays busy until the last point has been handed out.
         'refill: loop {
             for k in 0..BATCH {
-                match step(points[k] * n_features, at[k]) {
-                    Ok(node) => at[k] = node,
-                    Err(leaf) => {
-                        reached(points[k], leaf);
-                        if next == count {
-                            points[k] = usize::MAX;
-                            break 'refill;
-                        }
-                        (points[k], at[k]) = (next, 0);
-                        next += 1;
+                let node = unsafe { &*nodes.add(at[k] as usize) };
+                if node.feature != LEAF {
+                    let v = unsafe { *values.add(bases[k] + node.feature as usize) };
+                    at[k] = node.child + u32::from(v > node.threshold);
+                } else {
+                    reached(points[k], node.child);
+                    if next == count {
+                        points[k] = usize::MAX;
+                        break 'refill;
                     }
+                    (points[k], bases[k], at[k]) = (next, next * n_features, 0);
+                    next += 1;
                 }
             }
         }
         for k in 0..BATCH {
             if points[k] != usize::MAX {
-                finish(points[k], at[k], &mut reached);
+                reached(points[k], leaf_of(bases[k], at[k]));
             }
         }
     }
@@ -504,7 +502,7 @@ impl TreeEnsemble {
         &self,
         x: ArrayView2<'_, T>,
         out: &mut [f64],
-        skip: &(dyn Fn(usize, usize) -> bool + Sync),
+        skip: impl Fn(usize, usize) -> bool + Sync,
         pool: &Pool,
     ) {
         let width = self.width();
@@ -547,13 +545,13 @@ impl TreeEnsemble {
                         for (j, row) in rows.iter_mut().enumerate() {
                             let m = first_member + j;
                             let tree = &self.trees[m];
+                            let out = &mut row[block * width..block_end * width];
                             let reached = |point: usize, leaf: u32| {
-                                let slot =
-                                    &mut row[(block + point) * width..(block + point + 1) * width];
+                                let slot = &mut out[point * width..(point + 1) * width];
                                 if skip(m, first_point + block + point) {
                                     slot.fill(f64::NAN);
                                 } else {
-                                    slot.copy_from_slice(tree.leaf_values(leaf, width));
+                                    copy_values(slot, tree.leaf_values(leaf, width));
                                 }
                             };
                             // SAFETY: every feature index is below n_features (validated at fit
@@ -578,7 +576,7 @@ impl TreeEnsemble {
     ) -> Result<()> {
         self.check_points(&x)?;
         self.check_out(out, self.members() * x.nrows() * self.width())?;
-        self.fill_members(x, out, &|_, _| false, pool);
+        self.fill_members(x, out, |_, _| false, pool);
         Ok(())
     }
 
@@ -609,7 +607,7 @@ impl TreeEnsemble {
             ));
         }
         self.check_out(out, self.members() * x.nrows() * self.width())?;
-        self.fill_members(x, out, &|m, p| counts[(m, p)].as_u64() != 0, pool);
+        self.fill_members(x, out, |m, p| counts[(m, p)].as_u64() != 0, pool);
         Ok(())
     }
 
@@ -675,6 +673,17 @@ impl TreeEnsemble {
                 format!("holds {} values, expected {expected}", out.len()),
             ))
         }
+    }
+}
+
+/// `dst.copy_from_slice(src)` without a `memcpy` call for the one or two values of most
+/// leaves.
+#[inline(always)]
+fn copy_values(dst: &mut [f64], src: &[f64]) {
+    match (dst, src) {
+        ([d], [v]) => *d = *v,
+        ([d0, d1], [v0, v1]) => (*d0, *d1) = (*v0, *v1),
+        (dst, src) => dst.copy_from_slice(src),
     }
 }
 
