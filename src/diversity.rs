@@ -1043,6 +1043,31 @@ mod tests {
         ));
     }
 
+    struct StopAtOnce;
+
+    impl Monitor for StopAtOnce {
+        fn progress(&self, _done: usize, _total: usize) -> Result<()> {
+            Err(Error::Interrupted)
+        }
+    }
+
+    #[test]
+    fn an_interrupted_update_leaves_the_state_unchanged() {
+        let (m, n, k) = (3, 3 * BLOCK_POINTS, 2);
+        let labels = Array2::from_shape_fn((m, n), |(i, p)| ((i + p) % k) as i64);
+        let y = Array1::from_shape_fn(n, |p| (p % k) as i64);
+        let pool = Threads::Fixed(1).pool().unwrap();
+        let mut s = DiversityState::new(m, k).unwrap();
+        let r = s.update::<f64>(
+            Predictions::Labels(labels.view()),
+            y.view(),
+            &pool,
+            &StopAtOnce,
+        );
+        assert_eq!(r, Err(Error::Interrupted));
+        assert_eq!(s, DiversityState::new(m, k).unwrap());
+    }
+
     #[test]
     fn merge_overflow_is_an_error() {
         let (labels, y) = example();
