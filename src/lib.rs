@@ -4,6 +4,7 @@
 //!
 //! - [`resampling`]: which rows each member sees (bootstrap, subsampling, Bayesian weights,
 //!   strata, groups, moving blocks);
+//! - [`diversity`]: how differently classifier members err (Kuncheva & Whitaker 2003);
 //! - [`uncertainty`]: infinitesimal-jackknife and jackknife standard errors via count Grams;
 //! - [`random`]: one reproducible random stream per member;
 //! - [`numeric`]: the f32/f64 input trait and mergeable (Chan-style) moments;
@@ -15,6 +16,7 @@
 //! maturin turns on; `cargo test` builds and tests the core without linking Python.
 
 pub mod decomposition;
+pub mod diversity;
 pub mod error;
 pub mod learners;
 pub mod numeric;

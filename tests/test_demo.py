@@ -62,6 +62,20 @@ def test_demo_bagging_section_reads_right():
     assert float(spread_tree[5]) < float(spread_linear[5])
 
 
+def test_demo_diversity_section_reads_right():
+    out = subprocess.run([sys.executable, "-m", "bagwise", "demo", "--members", "60"],
+                         cwd=ROOT, capture_output=True, text=True, check=True).stdout
+    assert "3. Diversity of bagged classifiers" in out
+    shallow = _row(out, "learner member acc", "tree, depth 2")
+    deep = _row(out, "learner member acc", "tree, full depth")
+    for cells in (shallow, deep):
+        # Kuncheva & Whitaker 2003 (from memory): KW = (M-1)/(2M) * mean disagreement
+        assert cells[-1] == "yes"
+        assert 0 <= float(cells[2]) <= 1                   # disagreement is a share
+    # common practice: fully grown trees disagree more than stumps of depth 2
+    assert float(deep[2]) > float(shallow[2])
+
+
 def test_demo_reports_a_missing_file():
     run = subprocess.run([sys.executable, "-m", "bagwise", "demo", "--data", "missing.csv"],
                          cwd=ROOT, capture_output=True, text=True)

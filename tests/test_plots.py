@@ -668,3 +668,36 @@ def test_missing_matplotlib_names_the_extra():
     result = run_python(code)
     assert result.returncode == 0, result.stderr
     assert "pip install bagwise[plots]" in result.stdout
+
+
+# -- kappa-error diagram ------------------------------------------------------------------------
+
+def test_kappa_error_draws_one_point_per_pair():
+    from sklearn.metrics import cohen_kappa_score
+
+    members, y = labels(members=8, n=500, seed=11)
+    d = bagwise.diversity(members, y)
+    ax = plots.kappa_error(d)
+    offsets = ax.collections[0].get_offsets()
+    # Margineantu & Dietterich 1997 (from memory): x = the pair's kappa, y = its mean error;
+    # reference: sklearn.metrics.cohen_kappa_score and numpy error rates, pairs i < j in
+    # the order of numpy.triu_indices
+    error = (members != y).mean(axis=1)
+    expected = np.array([(cohen_kappa_score(members[i], members[j]), (error[i] + error[j]) / 2)
+                         for i, j in zip(*np.triu_indices(8, 1))])
+    assert offsets.shape == (28, 2)
+    np.testing.assert_allclose(np.asarray(offsets), expected, rtol=1e-12, atol=1e-14)
+    _, reused = plt.subplots()
+    assert plots.kappa_error(d, ax=reused) is reused
+
+
+def test_kappa_error_leaves_out_undefined_pairs_and_checks_its_input():
+    y = np.array([0, 0, 0, 1, 1])
+    members = np.array([[0, 0, 0, 0, 0], [0, 0, 0, 0, 0], [0, 1, 0, 1, 1]])
+    with pytest.warns(RuntimeWarning, match="Cohen's kappa is undefined .* for 1 of 3 pairs"):
+        d = bagwise.diversity(members, y)
+    ax = plots.kappa_error(d)
+    # members 0 and 1 always say class 0: chance agreement 1, kappa undefined (Cohen 1960)
+    assert len(ax.collections[0].get_offsets()) == 2
+    with pytest.raises(TypeError, match=r"^`diversity`"):
+        plots.kappa_error(object())

@@ -198,6 +198,9 @@ def _results():
             "ReplicateSpread": bagwise.replicate_spread(
                 shared + np.random.default_rng(1).normal(size=(10, 8, 30))),
             "Diagnosis": bagwise.diagnose(test, y_test, counts=counts),
+            "Diversity": bagwise.diversity(
+                np.random.default_rng(2).integers(0, 3, size=(6, 80)),
+                np.random.default_rng(3).integers(0, 3, size=80)),
         }
 
 

@@ -16,6 +16,7 @@ from .decomposition import (
     vote_fractions,
 )
 from .diagnosis import Diagnosis, diagnose
+from .diversity import Diversity, DiversityStream, diversity, diversity_stream
 from .ensemble import ClassificationBag, RegressionBag
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
@@ -44,6 +45,10 @@ __all__ = [
     "DecompositionStream",
     "diagnose",
     "Diagnosis",
+    "diversity",
+    "Diversity",
+    "diversity_stream",
+    "DiversityStream",
     "load",
     "out_of_bag",
     "out_of_bag_stream",

@@ -10,6 +10,7 @@ __all__ = [
     "CountGram",
     "crc32",
     "DecompositionAccumulator",
+    "DiversityAccumulator",
     "default_sizes",
     "LinearEnsemble",
     "majority_vote",
@@ -235,6 +236,24 @@ class SizeCurveAccumulator:
         threads: int | None = None,
     ) -> None: ...
     def finish(self) -> dict[str, Any]: ...
+# -- diversity ---------------------------------------------------------------------------
+
+@final
+class DiversityAccumulator:
+    def __new__(cls, members: int, n_classes: int) -> DiversityAccumulator: ...
+    def update(
+        self,
+        members: npt.NDArray[Any],
+        y: npt.NDArray[np.int64],
+        threads: int | None = None,
+    ) -> None: ...
+    def merge(self, other: DiversityAccumulator) -> None: ...
+    @property
+    def members(self) -> int: ...
+    @property
+    def n_points(self) -> int: ...
+    def finish(self) -> dict[str, Any]: ...
+
 # -- out of bag ---------------------------------------------------------------------------
 
 @final

@@ -696,6 +696,29 @@ class ClassificationBag(ClassifierMixin, _Bag):
         out[:, np.searchsorted(self.classes_, member.classes_)] = proba
         return out
 
+    def diversity(self, X, y):
+        """`bagwise.diversity` of the members' class predictions on a test set.
+
+        Each member's label at a point is its most probable class (ties: the first in
+        ``classes_``), compared with ``y``.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_points, n_features)
+            Test rows.
+        y : array-like of shape (n_points,)
+            Test labels, as in ``classes_``.
+
+        Returns
+        -------
+        Diversity
+        """
+        from .diversity import diversity
+
+        members = self.member_predictions(X)
+        target = self._targets(y, members.shape[1])
+        return diversity(members, target, n_classes=len(self.classes_), threads=self.threads)
+
     def predict_proba(self, X) -> np.ndarray:
         """Mean of the members' class probabilities, shape (n_points, n_classes)."""
         return self.member_predictions(X).mean(axis=0)

@@ -55,6 +55,7 @@ macro_rules! with_counts {
 }
 
 mod decomposition;
+mod diversity;
 mod linear;
 mod neighbors;
 mod out_of_bag;
@@ -230,6 +231,7 @@ pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     decomposition::register(m)?;
+    diversity::register(m)?;
     resampling::register(m)?;
     uncertainty::register(m)?;
     linear::register(m)?;

@@ -11,12 +11,14 @@ when it is None) and returns the Axes, so figures compose with ``plt.subplots``.
 - `plot_error_vs_std_error`, `plot_interval_coverage`: standard errors checked against the
   observed errors; `plot_rho`, `plot_between_within`: the between/within variance split;
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
-- `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier.
+- `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
+- `kappa_error`: the kappa-error diagram of the pairs of classifier members.
 """
 
 from .classification import margins, plot_margins, plot_reliability, reliability
 from .correlation import member_order, plot_correlation_matrix
 from .decomposition import plot_ambiguity_by_point, plot_decomposition
+from .diversity import kappa_error, kappa_error_points
 from .size_curve import plot_size_curve
 from .uncertainty import (
     binned_coverage,
@@ -30,6 +32,8 @@ from .uncertainty import (
 __all__ = [
     "binned_coverage",
     "binned_errors",
+    "kappa_error",
+    "kappa_error_points",
     "margins",
     "member_order",
     "plot_ambiguity_by_point",

@@ -1,0 +1,363 @@
+"""How differently the members of a classifier ensemble err (Kuncheva & Whitaker 2003).
+
+`diversity` computes the pairwise measures (Yule's Q, the correlation of the correct/wrong
+indicators, disagreement, double fault, Cohen's kappa between the members' labels), their
+means over pairs, the non-pairwise measures (entropy, Kohavi-Wolpert variance, interrater
+agreement, difficulty, generalised and coincident-failure diversity) and per-member
+redundancy. `diversity_stream` computes exactly the same result from chunks of points (e.g.
+slices of a memory-mapped ``.npy``): every measure is a function of integer counts that
+merge exactly, so the split into chunks and the thread count never change a digit.
+
+Members come as integer ``(members, n_points)`` class labels or float32/float64
+``(members, n_points, n_classes)`` probabilities; a member's label is then its most probable
+class (ties: the lowest class index, as in `bagwise.vote_fractions`).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+
+from . import _core
+from ._display import html_block, safe_html, text_block
+from ._validation import positive_int, threads_value
+
+__all__ = ["Diversity", "DiversityStream", "diversity", "diversity_stream"]
+
+_MAX_CLASSES = 1 << 20  # the core keeps members x n_classes counts
+_PAIRWISE = ("yule_q", "correlation", "disagreement", "double_fault", "kappa")
+_SCALARS = ("mean_yule_q", "mean_correlation", "mean_disagreement", "mean_double_fault",
+            "mean_kappa", "entropy", "kohavi_wolpert", "interrater_kappa", "difficulty",
+            "generalized_diversity", "coincident_failure")
+
+
+def _members_iv(members):
+    """(members array as int64 labels or f32/f64 probabilities, n_classes it implies)."""
+    array = members if isinstance(members, np.ndarray) else np.asarray(members)
+    kind = array.dtype.kind
+    if kind == "f":
+        if array.ndim == 2:
+            raise TypeError("`members`: diversity measures need class predictions - integer "
+                            "labels (members, n_points) or probabilities (members, n_points, "
+                            f"n_classes) - got float values of shape {array.shape}")
+        if array.ndim != 3:
+            raise ValueError("`members`: probabilities must have shape (members, n_points, "
+                             f"n_classes), got {array.shape}")
+        if array.dtype not in (np.float32, np.float64):
+            raise TypeError(f"`members`: probabilities must be float32 or float64, got {array.dtype}")
+        implied = array.shape[2]
+    elif kind in "iu":
+        if array.ndim != 2:
+            raise ValueError("`members`: integer labels must have shape (members, n_points), "
+                             f"got {array.shape}")
+        implied = None
+    else:
+        raise TypeError("`members`: expected integer class labels or float probabilities, got "
+                        f"dtype {array.dtype}")
+    if 0 in array.shape:
+        raise ValueError(f"`members`: is empty (shape {array.shape})")
+    if array.shape[0] < 2:
+        raise ValueError(f"`members`: diversity needs at least 2 members, got {array.shape[0]}")
+    if implied is None:
+        if array.dtype == np.uint64 and array.max() > np.iinfo(np.int64).max:
+            raise ValueError(f"`members`: labels are class indices; got {array.max()}")
+        array = array.astype(np.int64, copy=False)
+        if array.min() < 0:
+            raise ValueError(f"`members`: labels are class indices 0..n_classes-1; got {array.min()}")
+    return array, implied
+
+
+def _y_iv(y, n_points):
+    array = y if isinstance(y, np.ndarray) else np.asarray(y)
+    if array.dtype.kind not in "iu":
+        raise TypeError(f"`y`: class labels must be integers 0..n_classes-1, got dtype {array.dtype}")
+    if array.ndim != 1:
+        raise ValueError(f"`y`: expected a 1-D array, got shape {array.shape}")
+    if array.shape[0] != n_points:
+        raise ValueError(f"`y`: has {array.shape[0]} values but `members` has {n_points} points")
+    if array.dtype == np.uint64 and array.max() > np.iinfo(np.int64).max:
+        raise ValueError(f"`y`: labels are class indices; got {array.max()}")
+    array = array.astype(np.int64, copy=False)
+    if array.min() < 0:
+        raise ValueError(f"`y`: labels are class indices 0..n_classes-1; got {array.min()}")
+    return array
+
+
+def _n_classes_iv(n_classes, members, implied, y):
+    if n_classes is None:
+        if implied is not None:
+            return implied
+        n_classes = int(max(members.max(), y.max())) + 1
+    else:
+        n_classes = positive_int(n_classes, "n_classes")
+    if n_classes > _MAX_CLASSES:
+        raise ValueError(f"`n_classes`: at most {_MAX_CLASSES} classes are supported, got {n_classes}")
+    if implied is not None and implied != n_classes:
+        raise ValueError(f"`n_classes`: is {n_classes} but `members` has {implied} classes")
+    return n_classes
+
+
+def _fmt(value) -> str:
+    if isinstance(value, float) and math.isnan(value):
+        return "nan"
+    return f"{value:.4g}"
+
+
+def _number(value):
+    value = float(value)
+    return None if math.isnan(value) else value
+
+
+class DiversityStream:
+    """Diversity measures computed from chunks of points; see `diversity_stream`."""
+
+    def __init__(self, n_classes, threads=None):
+        self.n_classes = positive_int(n_classes, "n_classes")
+        if self.n_classes > _MAX_CLASSES:
+            raise ValueError(f"`n_classes`: at most {_MAX_CLASSES} classes are supported, got "
+                             f"{self.n_classes}")
+        self._threads = threads_value(threads)
+        self._core = None
+
+    def add(self, members, y) -> DiversityStream:
+        """Add every member's labels (or probabilities) at a chunk of points and its targets."""
+        members, implied = _members_iv(members)
+        y = _y_iv(y, members.shape[1])
+        _n_classes_iv(self.n_classes, members, implied, y)
+        if self._core is None:
+            self._core = _core.DiversityAccumulator(members.shape[0], self.n_classes)
+        elif members.shape[0] != self._core.members:
+            raise ValueError(f"`members`: this chunk has {members.shape[0]} members but earlier "
+                             f"chunks had {self._core.members}")
+        self._core.update(members, y, self._threads)
+        return self
+
+    def result(self) -> Diversity:
+        """The measures over all points added so far."""
+        if self._core is None:
+            raise ValueError("`members`: no points were added (call add first)")
+        return Diversity(**self._core.finish())
+
+
+def diversity_stream(*, n_classes, threads=None) -> DiversityStream:
+    """Start diversity measures fed by chunks of points.
+
+    Call ``.add(members_chunk, y_chunk)`` for consecutive chunks (any split of the points;
+    every chunk holds all members), then ``.result()``. The result equals `diversity` on all
+    points exactly: the measures are functions of integer counts, summed with overflow
+    checks.
+
+    Parameters
+    ----------
+    n_classes : int
+        Number of classes; labels are ``0..n_classes-1``.
+    threads : int, optional
+        Worker threads (default: all cores); results do not depend on it.
+
+    Returns
+    -------
+    DiversityStream
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> rng = np.random.default_rng(0)
+    >>> members, y = rng.integers(0, 3, size=(5, 1000)), rng.integers(0, 3, size=1000)
+    >>> stream = bagwise.diversity_stream(n_classes=3)
+    >>> for start in range(0, 1000, 300):
+    ...     _ = stream.add(members[:, start:start + 300], y[start:start + 300])
+    >>> stream.result().kappa.tolist() == bagwise.diversity(members, y).kappa.tolist()
+    True
+    """
+    return DiversityStream(n_classes, threads)
+
+
+def diversity(members, y, *, n_classes=None, threads=None) -> Diversity:
+    """Diversity measures of a classifier ensemble (Kuncheva & Whitaker 2003).
+
+    For every pair of members (i, j), with N11 the points both get right, N00 the points
+    both get wrong and N10, N01 the points only one gets right::
+
+        Yule's Q       (N11 N00 - N01 N10) / (N11 N00 + N01 N10)
+        correlation    (N11 N00 - N01 N10) / sqrt((N11+N10)(N01+N00)(N11+N01)(N10+N00))
+        disagreement   (N01 + N10) / n
+        double fault   N00 / n
+        kappa          Cohen's (1960) kappa between the two members' labels
+
+    With l the number of members right at a point, the non-pairwise measures describe how
+    l is spread over the points (see the `Diversity` attributes). Measures that are
+    undefined (a zero denominator) are NaN with a `RuntimeWarning`.
+
+    Parameters
+    ----------
+    members : array
+        Integer ``(members, n_points)`` class labels ``0..n_classes-1``, or float32/float64
+        ``(members, n_points, n_classes)`` probabilities (a member's label is its most
+        probable class, the lowest index among ties). At least 2 members; any strides.
+    y : integer array of shape (n_points,)
+        True classes ``0..n_classes-1``.
+    n_classes : int, optional
+        Number of classes (default: the probabilities' last axis, or the largest label + 1).
+    threads : int, optional
+        Worker threads (default: all cores); results do not depend on it.
+
+    Returns
+    -------
+    Diversity
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> members = np.array([[0, 1, 0, 0], [0, 0, 0, 1], [1, 1, 1, 1]])
+    >>> d = bagwise.diversity(members, np.array([0, 1, 0, 1]))
+    >>> d.accuracy
+    array([0.75, 0.75, 0.5 ])
+    >>> float(d.mean_disagreement), float(d.kohavi_wolpert)
+    (0.6666666666666666, 0.2222222222222222)
+    >>> d.redundant_pairs(top=1)
+    [(0, 1, 0.5)]
+    """
+    members, implied = _members_iv(members)
+    y = _y_iv(y, members.shape[1])
+    n_classes = _n_classes_iv(n_classes, members, implied, y)
+    return DiversityStream(n_classes, threads).add(members, y).result()
+
+
+class Diversity:
+    """Diversity of a classifier ensemble's members (Kuncheva & Whitaker 2003).
+
+    Frozen: attributes cannot be reassigned and the arrays are read-only.
+
+    Attributes
+    ----------
+    members, n_points : int
+        Shape of the predictions.
+    accuracy : ndarray of float64, shape (members,)
+        Share of the points each member gets right.
+    yule_q, correlation, disagreement, double_fault, kappa : ndarray of float64, shape (members, members)
+        The pairwise measures (symmetric). Diagonals: Q = correlation = kappa = 1,
+        disagreement 0, double fault the member's error rate. An undefined pair is NaN: Q
+        when ``N11 N00 + N01 N10 = 0``, the correlation when a member is always or never
+        right, kappa when both members always predict the same single class.
+    mean_yule_q, mean_correlation, mean_disagreement, mean_double_fault, mean_kappa : float
+        Means over the pairs i < j, undefined pairs left out (with a warning).
+    entropy : float
+        ``(1/n) sum_p min(l, M - l) / (M - ceil(M/2))``: 0 when the members always agree on
+        being right or wrong, 1 when they split as evenly as possible.
+    kohavi_wolpert : float
+        ``(1/(n M^2)) sum_p l (M - l)``; equals ``(M - 1)/(2M)`` times the mean disagreement.
+    interrater_kappa : float
+        ``1 - sum_p l (M - l) / (n M (M - 1) pbar (1 - pbar))`` with ``pbar`` the mean
+        accuracy (Fleiss' kappa of the right/wrong ratings); lower is more diverse. NaN when
+        ``pbar`` is 0 or 1.
+    difficulty : float
+        Variance over the points of ``l / M``; lower is more diverse.
+    generalized_diversity : float
+        ``1 - p(2)/p(1)``: 0 when the members always fail together, 1 when a failure of one
+        member never coincides with another's. NaN when no member ever fails.
+    coincident_failure : float
+        Coincident-failure diversity: 0 when failures always coincide (or there are none),
+        1 when every failure is a single member's.
+    correct_tally : ndarray of int64, shape (members + 1,)
+        Number of points where exactly ``l`` members are right, ``l = 0..members``.
+    redundancy : ndarray of float64, shape (members,)
+        Every member's mean disagreement with the others: the lower, the more it repeats
+        the rest of the ensemble.
+    """
+
+    def __init__(self, *, members, n_points, accuracy, correct_tally, redundancy,
+                 undefined_yule_q=0, undefined_correlation=0, undefined_kappa=0, **measures):
+        values = {"members": int(members), "n_points": int(n_points), "accuracy": accuracy,
+                  "correct_tally": correct_tally, "redundancy": redundancy}
+        for name in _PAIRWISE:
+            values[name] = measures[name]
+        for name in _SCALARS:
+            values[name] = float(measures[name])
+        for value in values.values():
+            if isinstance(value, np.ndarray):
+                value.setflags(write=False)
+        for name, value in values.items():
+            object.__setattr__(self, name, value)
+        pairs = self.members * (self.members - 1) // 2
+        for measure, count, why in (
+            ("Yule's Q", undefined_yule_q, "N11*N00 + N01*N10 = 0"),
+            ("the correlation", undefined_correlation, "a member always or never right"),
+            ("Cohen's kappa", undefined_kappa, "both members always give one same class"),
+        ):
+            if count:
+                warnings.warn(f"`members`: {measure} is undefined ({why}) for {count} of {pairs} "
+                              "pairs; those entries are NaN and left out of its mean",
+                              RuntimeWarning, stacklevel=4)
+        if math.isnan(self.interrater_kappa):
+            warnings.warn("`members`: the interrater agreement kappa is undefined (NaN) because the "
+                          "mean member accuracy is 0 or 1", RuntimeWarning, stacklevel=4)
+        if math.isnan(self.generalized_diversity):
+            warnings.warn("`members`: the generalized diversity is undefined (NaN) because no "
+                          "member ever fails", RuntimeWarning, stacklevel=4)
+
+    def __setattr__(self, name, value):
+        raise AttributeError(f"Diversity is frozen; cannot set {name!r}")
+
+    def __delattr__(self, name):
+        raise AttributeError(f"Diversity is frozen; cannot delete {name!r}")
+
+    def _pairs(self):
+        return np.triu_indices(self.members, k=1)
+
+    def redundant_pairs(self, top=10) -> list[tuple[int, int, float]]:
+        """The ``top`` most redundant pairs: ``(member_a, member_b, disagreement)`` with
+        ``member_a < member_b``, lowest disagreement first, ties by lower indices."""
+        top = positive_int(top, "top")
+        a, b = self._pairs()
+        values = self.disagreement[a, b]
+        order = np.argsort(values, kind="stable")[:top]  # pairs are listed in index order
+        return [(int(a[k]), int(b[k]), float(values[k])) for k in order]
+
+    def summary(self) -> dict:
+        """The scalar measures as plain ints and floats (NaN as None), ready for ``json.dumps``."""
+        out = {"members": self.members, "n_points": self.n_points,
+               "mean_accuracy": _number(np.mean(self.accuracy))}
+        out.update({name: _number(getattr(self, name)) for name in _SCALARS})
+        return out
+
+    def to_frame(self):
+        """One row per pair ``member_a < member_b`` with the pairwise measures."""
+        import pandas as pd
+
+        a, b = self._pairs()
+        columns = {"member_a": a.astype(np.int64), "member_b": b.astype(np.int64)}
+        columns.update({name: getattr(self, name)[a, b] for name in _PAIRWISE})
+        return pd.DataFrame(columns)
+
+    def _rows(self):
+        return [
+            ("members x points", f"{self.members:,} x {self.n_points:,}"),
+            ("mean accuracy", _fmt(float(np.mean(self.accuracy)))),
+            ("mean disagreement", _fmt(self.mean_disagreement)),
+            ("mean double fault", _fmt(self.mean_double_fault)),
+            ("mean Yule's Q", _fmt(self.mean_yule_q)),
+            ("mean correlation", _fmt(self.mean_correlation)),
+            ("mean Cohen's kappa", _fmt(self.mean_kappa)),
+            ("entropy", _fmt(self.entropy)),
+            ("Kohavi-Wolpert variance", _fmt(self.kohavi_wolpert)),
+            ("interrater kappa", _fmt(self.interrater_kappa)),
+            ("difficulty", _fmt(self.difficulty)),
+            ("generalized diversity", _fmt(self.generalized_diversity)),
+            ("coincident failure", _fmt(self.coincident_failure)),
+        ]
+
+    def _reading(self):
+        q = self.mean_yule_q
+        if math.isnan(q):
+            return "members never err in a way that tells them apart (Yule's Q undefined)"
+        word = "together" if q > 0.5 else "somewhat together" if q > 0 else "on different points"
+        return (f"members tend to err {word} (mean Q {q:.2f}); they disagree on "
+                f"{self.mean_disagreement:.1%} of the points per pair")
+
+    def __repr__(self) -> str:
+        return text_block("Diversity", self._rows(), self._reading())
+
+    def _repr_html_(self) -> str:
+        return safe_html(self, lambda: html_block("Diversity", self._rows(), self._reading()))
