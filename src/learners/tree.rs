@@ -713,6 +713,19 @@ struct Columns {
     edges: Vec<Vec<f64>>,
 }
 
+/// Hints the processor to bring `value`'s cache line in; a no-op off x86-64.
+#[inline(always)]
+fn prefetch(value: &f64) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        use std::arch::x86_64::{_mm_prefetch, _MM_HINT_T0};
+        // SAFETY: a prefetch never faults, and SSE is part of the x86-64 baseline.
+        unsafe { _mm_prefetch::<_MM_HINT_T0>((value as *const f64).cast::<i8>()) };
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = value;
+}
+
 /// The threshold between adjacent distinct values `lo < hi`.
 #[inline]
 fn midpoint(lo: f64, hi: f64) -> f64 {
@@ -1196,12 +1209,19 @@ impl<'a> Grower<'a> {
             }
             self.left = left;
         }
-        best.map(|(score, rank, next)| Split {
-            score,
-            feature: f,
-            by_bins: false,
-            cut: rank,
-            next,
+        best.map(|(score, rank, next)| {
+            // The threshold of this feature's best is read if it wins the node: start
+            // fetching the two values now, without waiting for them.
+            let d = &self.columns.distinct[f];
+            prefetch(&d[rank as usize]);
+            prefetch(&d[next as usize]);
+            Split {
+                score,
+                feature: f,
+                by_bins: false,
+                cut: rank,
+                next,
+            }
         })
     }
 
