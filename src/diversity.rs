@@ -28,7 +28,7 @@
 use ndarray::{ArrayView2, ArrayView3, Axis};
 use rayon::prelude::*;
 
-use crate::error::{Error, Result};
+use crate::error::{zeroed, Error, Result};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 
@@ -208,15 +208,19 @@ impl DiversityState {
         let cells = members.checked_mul(n_classes).ok_or_else(|| {
             Error::value("n_classes", format!("{n_classes} classes are too many"))
         })?;
+        // The large tables first, so an impossible size fails before anything is filled.
+        let both_correct = zeroed(square, "members")?;
+        let same_label = zeroed(square, "members")?;
+        let class_counts = zeroed(cells, "n_classes")?;
         Ok(DiversityState {
             members,
             n_classes,
             n_points: 0,
-            correct: vec![0; members],
-            both_correct: vec![0; square],
-            same_label: vec![0; square],
-            class_counts: vec![0; cells],
-            tally: vec![0; members + 1],
+            correct: zeroed(members, "members")?,
+            both_correct,
+            same_label,
+            class_counts,
+            tally: zeroed(members + 1, "members")?,
         })
     }
 
@@ -953,6 +957,19 @@ mod tests {
         )
         .unwrap();
         assert_eq!(s, state_of(&expected_labels, &y, 2, 1));
+    }
+
+    #[test]
+    fn an_impossible_state_size_is_an_error_not_an_abort() {
+        // 2^28 members need two 2^56-cell pair tables (2^59 bytes each): no allocator can
+        // give that, and the request must come back as an error.
+        match DiversityState::new(1 << 28, 2) {
+            Err(Error::OutOfMemory { argument, bytes }) => {
+                assert_eq!(argument, "members");
+                assert_eq!(bytes, (1usize << 56) * 8);
+            }
+            other => panic!("expected OutOfMemory, got {:?}", other.map(|s| s.members())),
+        }
     }
 
     #[test]

@@ -26,6 +26,12 @@ pub enum Error {
     /// A [`Monitor`](crate::parallel::Monitor) asked the work to stop (e.g. Ctrl-C).
     #[error("interrupted")]
     Interrupted,
+    /// Working memory sized by an argument could not be allocated (maps to `MemoryError`).
+    #[error("`{argument}`: needs {bytes} bytes of working memory, which could not be allocated")]
+    OutOfMemory {
+        argument: &'static str,
+        bytes: usize,
+    },
 }
 
 impl Error {
@@ -44,6 +50,17 @@ impl Error {
             message: message.into(),
         }
     }
+}
+
+/// A vector of `len` zeros, or [`Error::OutOfMemory`] naming `argument` (the input that
+/// sized it) instead of aborting the process when the allocation fails.
+pub fn zeroed<T: Clone + Default>(len: usize, argument: &'static str) -> Result<Vec<T>> {
+    let bytes = len.saturating_mul(std::mem::size_of::<T>());
+    let mut v = Vec::new();
+    v.try_reserve_exact(len)
+        .map_err(|_| Error::OutOfMemory { argument, bytes })?;
+    v.resize(len, T::default());
+    Ok(v)
 }
 
 /// Result alias of the core.

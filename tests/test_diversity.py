@@ -436,3 +436,10 @@ def test_html_display_never_raises():
     d = bagwise.diversity(labels, y)
     object.__setattr__(d, "accuracy", None)               # a broken object still renders
     assert d._repr_html_().startswith("<pre>")
+
+
+def test_a_state_too_large_to_allocate_is_a_memory_error():
+    # 2^28 members need two (2^28)^2-cell u64 pair tables: the allocation must fail as a
+    # MemoryError naming the argument, not abort the interpreter.
+    with pytest.raises(MemoryError, match=r"^`members`: needs \d+ bytes"):
+        bagwise._core.DiversityAccumulator(1 << 28, 2)

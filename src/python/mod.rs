@@ -7,7 +7,7 @@ use std::sync::Mutex;
 
 use numpy::{Element, PyArray2};
 use pyo3::exceptions::{
-    PyKeyboardInterrupt, PyOverflowError, PyRuntimeError, PyTypeError, PyValueError,
+    PyKeyboardInterrupt, PyMemoryError, PyOverflowError, PyRuntimeError, PyTypeError, PyValueError,
 };
 use pyo3::prelude::*;
 
@@ -72,6 +72,7 @@ pub(crate) fn to_py_err(error: Error) -> PyErr {
         Error::InvalidType { .. } => PyTypeError::new_err(error.to_string()),
         Error::CountOverflow { .. } => PyOverflowError::new_err(error.to_string()),
         Error::Interrupted => PyKeyboardInterrupt::new_err("interrupted"),
+        Error::OutOfMemory { .. } => PyMemoryError::new_err(error.to_string()),
     }
 }
 
