@@ -51,38 +51,22 @@ trait Code: Copy + Default + Eq + Send + Sync {
     fn index(self) -> usize;
 }
 
-impl Code for u8 {
-    #[inline]
-    fn of(class: usize) -> Self {
-        class as u8
-    }
-    #[inline]
-    fn index(self) -> usize {
-        self as usize
-    }
+macro_rules! impl_code {
+    ($($code:ty),*) => {$(
+        impl Code for $code {
+            #[inline]
+            fn of(class: usize) -> Self {
+                class as $code
+            }
+            #[inline]
+            fn index(self) -> usize {
+                self as usize
+            }
+        }
+    )*};
 }
 
-impl Code for u16 {
-    #[inline]
-    fn of(class: usize) -> Self {
-        class as u16
-    }
-    #[inline]
-    fn index(self) -> usize {
-        self as usize
-    }
-}
-
-impl Code for u32 {
-    #[inline]
-    fn of(class: usize) -> Self {
-        class as u32
-    }
-    #[inline]
-    fn index(self) -> usize {
-        self as usize
-    }
-}
+impl_code!(u8, u16, u32);
 
 /// Member predictions of one chunk of points.
 #[derive(Debug, Clone, Copy)]
