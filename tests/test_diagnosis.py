@@ -240,3 +240,30 @@ def test_bad_training_members_are_reported_under_their_own_names():
         bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
                          train_members=rng.normal(size=(4, 12)),
                          train_y=np.r_[np.zeros(11), np.inf])
+
+
+def test_class_members_get_the_diversity_section():
+    # The section is bagwise.diversity of the same members (tested against sklearn,
+    # statsmodels and numpy in tests/test_diversity.py); here: present, equal, reported.
+    rng = np.random.default_rng(3)
+    y = rng.integers(0, 3, size=300)
+    labels = np.where(rng.random((9, 300)) < 0.7, y, rng.integers(0, 3, size=(9, 300)))
+    report = bagwise.diagnose(labels, y)
+    alone = bagwise.diversity(labels, y)
+    assert report.diversity is not None
+    np.testing.assert_array_equal(report.diversity.disagreement, alone.disagreement)
+    section = report.summary()["diversity"]
+    assert section["mean_disagreement"] == alone.mean_disagreement
+    assert section["interrater_kappa"] == alone.interrater_kappa
+    (a, b, apart), = alone.redundant_pairs(top=1)
+    assert section["closest_pair"] == [a, b]
+    assert section["closest_pair_disagreement"] == apart
+    assert f"the most alike pair, members {a} and {b}, disagree on {apart:.1%}" in \
+        "\n".join(report.readings())
+    assert "Diversity" in repr(report)
+    # probabilities: a member's label is its most probable class
+    proba = np.eye(3)[labels] * 0.8 + 0.2 / 3
+    assert bagwise.diagnose(proba, y).diversity.mean_disagreement == alone.mean_disagreement
+    # values have no class predictions, so no diversity section
+    values = rng.normal(size=(5, 40))
+    assert bagwise.diagnose(values, rng.normal(size=40)).diversity is None

@@ -154,8 +154,10 @@ def test_label_report_has_the_figures_that_apply():
     members = np.where(rng.random((25, 300)) < 0.6, y, rng.integers(0, 3, size=(25, 300)))
     report = bagwise.diagnose(members, y)
     parsed = Page(report.to_html())
-    # decomposition bars (no ambiguity identity for error rates) and the size curve
-    assert len(parsed.images()) == 2
+    # decomposition bars (no ambiguity identity for error rates), the size curve and the
+    # kappa-error diagram of the member pairs
+    assert len(parsed.images()) == 3
+    assert "kappa-error diagram" in parsed.words
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
 
 
@@ -253,8 +255,9 @@ def test_probability_report_draws_the_last_class_figures():
     parsed = Page(report.to_html())
     assert report.decomposition.loss == "brier"
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
-    # decomposition (2), size curve (1), heatmap (1), standard errors (2), between/within (2)
-    assert len(parsed.images()) == 8
+    # decomposition (2), size curve (1), heatmap (1), standard errors (2), between/within (2),
+    # kappa-error diagram (1)
+    assert len(parsed.images()) == 9
 
 
 def test_report_of_a_fitted_bag_has_every_figure():

@@ -20,6 +20,7 @@ import numpy as np
 from ._display import html_block, safe_html, text_block
 from ._validation import renamed_arguments, seed_value, threads_value
 from .decomposition import _members_array, _target, correlation, decompose, size_curve
+from .diversity import diversity
 from .out_of_bag import out_of_bag
 from .uncertainty import CORRECTION_WARNING_SHARE, prediction_variance, spread
 
@@ -207,10 +208,11 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, th
             warnings.warn("`reference`: the single model's loss is 0, so the ratio is NaN",
                           RuntimeWarning, stacklevel=3)
             reference_ratio = math.nan
+    members_diversity = diversity(members, y, threads=threads) if kind != "values" else None
     result = Diagnosis(kind=kind, decomposition=decomposition, size_curve=curve,
                        correlation=residuals, out_of_bag=oob, uncertainty=uncertainty,
                        spread=between_within, reference_loss=reference_loss,
-                       reference_ratio=reference_ratio)
+                       reference_ratio=reference_ratio, diversity=members_diversity)
     if one is not None:
         # kept (references, not copies) for the figures of `to_html`
         result._points = (one, target)
@@ -258,6 +260,9 @@ class Diagnosis:
         the points; None without counts or for labels.
     spread : Spread or None
         `spread` (between/within split, rho); None without counts or for labels.
+    diversity : Diversity or None
+        `diversity` of the members' class predictions (Kuncheva & Whitaker 2003): how
+        differently they err, and which pairs are redundant; None for values.
     reference_loss : float or None
         Loss of the single model given as ``reference`` (same loss as the decomposition).
     reference_ratio : float or None
@@ -266,7 +271,7 @@ class Diagnosis:
     """
 
     def __init__(self, *, kind, decomposition, size_curve, correlation, out_of_bag,
-                 uncertainty, spread, reference_loss, reference_ratio):
+                 uncertainty, spread, reference_loss, reference_ratio, diversity=None):
         self.kind = kind
         self.decomposition = decomposition
         self.size_curve = size_curve
@@ -276,6 +281,7 @@ class Diagnosis:
         self.spread = spread
         self.reference_loss = reference_loss
         self.reference_ratio = reference_ratio
+        self.diversity = diversity
         # (members, targets) as the correlation and standard errors used them, set by
         # `diagnose`; the report draws the correlation heatmap and error figures from them
         self._points = None
@@ -347,6 +353,15 @@ class Diagnosis:
             out["spread"] = {"between": _number(s.mean_between), "within": _number(s.mean_within),
                              "rho": _number(s.pooled_rho),
                              "members_needed": _number(s.members_needed(TOLERANCE))}
+        if self.diversity is not None:
+            v = self.diversity
+            (a, b, apart), = v.redundant_pairs(top=1)
+            out["diversity"] = {"mean_disagreement": _number(v.mean_disagreement),
+                                "mean_double_fault": _number(v.mean_double_fault),
+                                "mean_yule_q": _number(v.mean_yule_q),
+                                "kohavi_wolpert": _number(v.kohavi_wolpert),
+                                "interrater_kappa": _number(v.interrater_kappa),
+                                "closest_pair": [a, b], "closest_pair_disagreement": _number(apart)}
         if self.reference_ratio is not None:
             out["reference"] = {"reference_loss": _number(self.reference_loss),
                                 "ratio": _number(self.reference_ratio)}
@@ -400,6 +415,12 @@ class Diagnosis:
                 lines.append(f"members share {s.pooled_rho:.0%} of their variance through the "
                              f"training data (rho); {needed} members bring the rest within 1% "
                              "of it")
+        if self.diversity is not None:
+            v = self.diversity
+            lines.append(v._reading())
+            (a, b, apart), = v.redundant_pairs(top=1)
+            lines.append(f"the most alike pair, members {a} and {b}, disagree on {apart:.1%} of "
+                         "the points" + ("; one of them adds nothing here" if apart == 0 else ""))
         return lines
 
     # -- display --------------------------------------------------------------------------
@@ -407,7 +428,8 @@ class Diagnosis:
         """``(attribute, title, rows, reading)`` of every section present."""
         titles = [("decomposition", "Ambiguity decomposition"), ("size_curve", "Ensemble size"),
                   ("correlation", "Residual correlation"), ("out_of_bag", "Out of bag"),
-                  ("uncertainty", "Prediction uncertainty"), ("spread", "Between / within")]
+                  ("uncertainty", "Prediction uncertainty"), ("spread", "Between / within"),
+                  ("diversity", "Diversity")]
         parts = []
         for attribute, title in titles:
             part = getattr(self, attribute)
