@@ -26,27 +26,9 @@ pub(super) fn read_bags(counts: &Bound<'_, PyAny>, n_rows: usize) -> PyResult<Ve
     ))
 }
 
-/// A borrowed f32 or f64 design that can cross into the GIL-free worker.
-#[derive(Clone, Copy)]
-pub(super) enum View<'a> {
-    F32(numpy::ndarray::ArrayView2<'a, f32>),
-    F64(numpy::ndarray::ArrayView2<'a, f64>),
-}
-
-/// The view of a float design, without a copy.
-pub(super) fn view<'a>(x: &'a FloatArray<'_, numpy::Ix2>) -> View<'a> {
-    match x {
-        FloatArray::F32(a) => View::F32(a.as_array()),
-        FloatArray::F64(a) => View::F64(a.as_array()),
-    }
-}
-
 /// Number of rows of a float design.
 pub(super) fn rows_of(x: &FloatArray<'_, numpy::Ix2>) -> usize {
-    match x {
-        FloatArray::F32(a) => a.as_array().nrows(),
-        FloatArray::F64(a) => a.as_array().nrows(),
-    }
+    with_float!(x, |a| a.nrows())
 }
 
 /// Decodes a postcard payload, naming `data` on failure.
@@ -121,14 +103,12 @@ impl PyLinearEnsemble {
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let n = rows_of(&x);
-        let xv = view(&x);
         let array = zeros::<f64>(py, [self.inner.members(), n])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, _| match xv {
-            View::F32(a) => self.inner.member_predictions_into(a, out, pool),
-            View::F64(a) => self.inner.member_predictions_into(a, out, pool),
-        })?;
+        with_float!(x, |a| run_core(py, threads, None, |pool, _| {
+            self.inner.member_predictions_into(a, out, pool)
+        }))?;
         Ok(array.into_any().unbind())
     }
 
@@ -161,14 +141,12 @@ impl PyLinearEnsemble {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let n = rows_of(&x);
         let b = read_bags(counts, n)?;
-        let xv = view(&x);
         let array = zeros::<f64>(py, [self.inner.members(), n])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, _| match xv {
-            View::F32(a) => self.inner.out_of_bag_into(a, &b, out, pool),
-            View::F64(a) => self.inner.out_of_bag_into(a, &b, out, pool),
-        })?;
+        with_float!(x, |a| run_core(py, threads, None, |pool, _| {
+            self.inner.out_of_bag_into(a, &b, out, pool)
+        }))?;
         Ok(array.into_any().unbind())
     }
 

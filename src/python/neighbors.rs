@@ -5,7 +5,7 @@ use numpy::{IntoPyArray, PyArrayMethods, PyReadonlyArray1, PyReadonlyArrayDyn};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
-use super::linear::{decode, encode, read_bags, rows_of, view, View};
+use super::linear::{decode, encode, read_bags, rows_of};
 use super::{run_core, to_py_err, zeros_nd, FloatArray};
 use crate::learners::neighbors::NeighborsEnsemble;
 use crate::learners::Task;
@@ -45,11 +45,9 @@ impl PyNeighborsEnsemble {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let bags = read_bags(counts, rows_of(&x))?;
         let y = y.as_array();
-        let xv = view(&x);
-        let inner = run_core(py, threads, progress, |_, monitor| match xv {
-            View::F32(a) => NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor),
-            View::F64(a) => NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor),
-        })?;
+        let inner = with_float!(x, |a| run_core(py, threads, progress, |_, monitor| {
+            NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor)
+        }))?;
         Ok(PyNeighborsEnsemble { inner })
     }
 
@@ -63,14 +61,12 @@ impl PyNeighborsEnsemble {
         threads: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
-        let xv = view(&x);
         let array = zeros_nd::<f64>(py, self.shape(rows_of(&x)))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, monitor| match xv {
-            View::F32(a) => self.inner.member_predictions_into(a, out, pool, monitor),
-            View::F64(a) => self.inner.member_predictions_into(a, out, pool, monitor),
-        })?;
+        with_float!(x, |a| run_core(py, threads, None, |pool, monitor| {
+            self.inner.member_predictions_into(a, out, pool, monitor)
+        }))?;
         Ok(array.into_any().unbind())
     }
 
@@ -104,14 +100,12 @@ impl PyNeighborsEnsemble {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let n = rows_of(&x);
         let bags = read_bags(counts, n)?;
-        let xv = view(&x);
         let array = zeros_nd::<f64>(py, self.shape(n))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, monitor| match xv {
-            View::F32(a) => self.inner.out_of_bag_into(a, &bags, out, pool, monitor),
-            View::F64(a) => self.inner.out_of_bag_into(a, &bags, out, pool, monitor),
-        })?;
+        with_float!(x, |a| run_core(py, threads, None, |pool, monitor| {
+            self.inner.out_of_bag_into(a, &bags, out, pool, monitor)
+        }))?;
         Ok(array.into_any().unbind())
     }
 
