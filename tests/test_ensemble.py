@@ -4,15 +4,13 @@ estimators, resampling options, progress and Ctrl-C."""
 from __future__ import annotations
 
 import pickle
-import signal
-import subprocess
 import sys
 import textwrap
-import time
 
 import numpy as np
 import pandas as pd
 import pytest
+from _interrupt import interrupt
 from sklearn.base import clone
 from sklearn.datasets import make_friedman1
 from sklearn.exceptions import NotFittedError
@@ -25,11 +23,6 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 from sklearn.utils.validation import check_is_fitted
 
 import bagwise
-
-# A process started in the background inherits an ignored SIGINT, and Python then installs
-# no KeyboardInterrupt handler; the children below restore it so the test sees Ctrl-C.
-RESTORE_CTRL_C = "import signal; signal.signal(signal.SIGINT, signal.default_int_handler)\n"
-
 
 
 @parametrize_with_checks([
@@ -337,16 +330,7 @@ def test_ctrl_c_stops_a_long_native_fit_quickly():
             print(f"interrupted {time.perf_counter() - start:.3f} {hasattr(bag, 'in_bag_')}",
                   flush=True)
     """)
-    proc = subprocess.Popen([sys.executable, "-c", RESTORE_CTRL_C + code], stdout=subprocess.PIPE, text=True)
-    assert proc.stdout.readline().strip() == "ready"
-    time.sleep(1.5)
-    sent = time.perf_counter()
-    proc.send_signal(signal.SIGINT)
-    try:
-        out, _ = proc.communicate(timeout=60)
-    finally:
-        proc.kill()
-    waited = time.perf_counter() - sent
+    out, waited = interrupt(code, after=1.5, timeout=60)
     assert out.startswith("interrupted") and out.strip().endswith("False"), out
     assert waited < 2.0, waited
 
@@ -364,15 +348,6 @@ def test_ctrl_c_stops_a_long_native_prediction_quickly():
         except KeyboardInterrupt:
             print(f"interrupted {time.perf_counter() - start:.3f}", flush=True)
     """)
-    proc = subprocess.Popen([sys.executable, "-c", RESTORE_CTRL_C + code], stdout=subprocess.PIPE, text=True)
-    assert proc.stdout.readline().strip() == "ready"
-    time.sleep(1.5)
-    sent = time.perf_counter()
-    proc.send_signal(signal.SIGINT)
-    try:
-        out, _ = proc.communicate(timeout=60)
-    finally:
-        proc.kill()
-    waited = time.perf_counter() - sent
+    out, waited = interrupt(code, after=1.5, timeout=60)
     assert out.startswith("interrupted"), out
     assert waited < 2.0, waited

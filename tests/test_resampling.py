@@ -5,22 +5,16 @@ from __future__ import annotations
 
 import os
 import pickle
-import signal
 import subprocess
 import sys
 import textwrap
-import time
 
 import numpy as np
 import pytest
 import scipy.stats
+from _interrupt import interrupt
 
 import bagwise
-
-# A process started in the background inherits an ignored SIGINT, and Python then installs
-# no KeyboardInterrupt handler; the children below restore it so the test sees Ctrl-C.
-RESTORE_CTRL_C = "import signal; signal.signal(signal.SIGINT, signal.default_int_handler)\n"
-
 
 
 def test_out_of_bag_share_matches_efron_tibshirani():
@@ -218,16 +212,7 @@ def test_ctrl_c_stops_a_long_draw_quickly():
         except KeyboardInterrupt:
             print(f"interrupted {time.perf_counter() - start:.3f}", flush=True)
     """)
-    proc = subprocess.Popen([sys.executable, "-c", RESTORE_CTRL_C + code], stdout=subprocess.PIPE, text=True)
-    assert proc.stdout.readline().strip() == "ready"
-    time.sleep(0.5)
-    sent = time.perf_counter()
-    proc.send_signal(signal.SIGINT)
-    try:
-        out, _ = proc.communicate(timeout=30)
-    finally:
-        proc.kill()
-    waited = time.perf_counter() - sent
+    out, waited = interrupt(code, after=0.5, timeout=30)
     assert out.startswith("interrupted"), out
     # About a second is the target; allow slack for a loaded machine (common practice).
     assert waited < 3.0

@@ -4,24 +4,17 @@ the literature, counts-as-weights equivalence, reproducibility, persistence and 
 from __future__ import annotations
 
 import pickle
-import signal
-import subprocess
 import sys
 import textwrap
-import time
 
 import numpy as np
 import pytest
+from _interrupt import interrupt
 from sklearn.datasets import load_breast_cancer, make_friedman1
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 
 import bagwise
 from bagwise._core import TreeEnsemble
-
-# A process started in the background inherits an ignored SIGINT, and Python then installs
-# no KeyboardInterrupt handler; the children below restore it so the test sees Ctrl-C.
-RESTORE_CTRL_C = "import signal; signal.signal(signal.SIGINT, signal.default_int_handler)\n"
-
 
 
 def regression_data(n, seed, noise=1.0):
@@ -325,16 +318,7 @@ def test_ctrl_c_stops_a_long_fit_quickly():
         except KeyboardInterrupt:
             print(f"interrupted {time.perf_counter() - start:.3f}", flush=True)
     """)
-    proc = subprocess.Popen([sys.executable, "-c", RESTORE_CTRL_C + code], stdout=subprocess.PIPE, text=True)
-    assert proc.stdout.readline().strip() == "ready"
-    time.sleep(0.5)
-    sent = time.perf_counter()
-    proc.send_signal(signal.SIGINT)
-    try:
-        out, _ = proc.communicate(timeout=60)
-    finally:
-        proc.kill()
-    waited = time.perf_counter() - sent
+    out, waited = interrupt(code, after=0.5, timeout=60)
     assert out.startswith("interrupted"), out
     assert waited < 1.5  # "within about a second", the same bound as the resampling test
 
