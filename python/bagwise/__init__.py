@@ -1,6 +1,7 @@
 """bagwise: fit bagged ensembles and diagnose them from their member predictions."""
 
 from ._core import __version__
+from ._warnings import BagwiseWarning
 from .decomposition import (
     Correlation,
     Decomposition,
@@ -34,6 +35,7 @@ from .uncertainty import (
 __all__ = [
     "__version__",
     "aggregate",
+    "BagwiseWarning",
     "ClassificationBag",
     "Correlation",
     "correlation",
