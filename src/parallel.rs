@@ -23,7 +23,7 @@ impl Threads {
         match threads {
             None => Ok(Threads::Global),
             Some(0) => Err(Error::value(
-                "threads",
+                "n_jobs",
                 "must be at least 1 (or None for all cores)",
             )),
             Some(k) => Ok(Threads::Fixed(k)),
@@ -33,7 +33,7 @@ impl Threads {
     /// Starts the pool (a no-op for the global one).
     ///
     /// # Errors
-    /// `threads` if the operating system refuses the threads.
+    /// `n_jobs` if the operating system refuses the threads.
     pub fn pool(self) -> Result<Pool> {
         match self {
             Threads::Global => Ok(Pool::Global),
@@ -41,7 +41,7 @@ impl Threads {
                 .num_threads(k)
                 .build()
                 .map(Pool::Owned)
-                .map_err(|e| Error::value("threads", format!("cannot start {k} threads: {e}"))),
+                .map_err(|e| Error::value("n_jobs", format!("cannot start {k} threads: {e}"))),
         }
     }
 }

@@ -407,7 +407,7 @@ def test_stream_rejects_changing_members():
         sc.update(t[:3, 50:], y[50:])
 
 
-# -- dtypes, layouts, threads ---------------------------------------------------------------
+# -- dtypes, layouts, n_jobs ---------------------------------------------------------------
 
 def test_float32_gives_the_float64_results_without_a_copy():
     t64, y = regression(members=20, n=5000)
@@ -456,20 +456,20 @@ def test_layouts_give_identical_results():
 
 def test_results_do_not_depend_on_thread_count():
     t, y = regression(members=13, n=20_000)
-    one, two = bagwise.decompose(t, y, threads=1), bagwise.decompose(t, y, threads=2)
+    one, two = bagwise.decompose(t, y, n_jobs=1), bagwise.decompose(t, y, n_jobs=2)
     np.testing.assert_array_equal(one.ambiguity_per_point, two.ambiguity_per_point)
     assert one.ensemble_loss == two.ensemble_loss and one.ambiguity == two.ambiguity
-    np.testing.assert_array_equal(bagwise.size_curve(t, y, threads=1).per_order,
-                                  bagwise.size_curve(t, y, threads=2).per_order)
-    c1 = bagwise.correlation(t, y, matrix=True, threads=1)
-    c2 = bagwise.correlation(t, y, matrix=True, threads=2)
+    np.testing.assert_array_equal(bagwise.size_curve(t, y, n_jobs=1).per_order,
+                                  bagwise.size_curve(t, y, n_jobs=2).per_order)
+    c1 = bagwise.correlation(t, y, matrix=True, n_jobs=1)
+    c2 = bagwise.correlation(t, y, matrix=True, n_jobs=2)
     assert c1.mean_correlation == c2.mean_correlation
     np.testing.assert_array_equal(c1.matrix, c2.matrix)
     lt, ly = labels(n=10_000)
-    d1, d2 = bagwise.decompose(lt, ly, threads=1), bagwise.decompose(lt, ly, threads=2)
+    d1, d2 = bagwise.decompose(lt, ly, n_jobs=1), bagwise.decompose(lt, ly, n_jobs=2)
     assert d1.ensemble_loss == d2.ensemble_loss and d1.member_loss == d2.member_loss
-    np.testing.assert_array_equal(bagwise.vote_fractions(lt, threads=1),
-                                  bagwise.vote_fractions(lt, threads=2))
+    np.testing.assert_array_equal(bagwise.vote_fractions(lt, n_jobs=1),
+                                  bagwise.vote_fractions(lt, n_jobs=2))
 
 
 # -- display --------------------------------------------------------------------------------
@@ -527,7 +527,7 @@ BAD = [
     (bagwise.decompose, (T, Y), {"weights": [1.5, -0.5, 0, 0]}, "weights", ValueError),
     (bagwise.decompose, (T, Y), {"weights": [0.5, 0.5]}, "weights", ValueError),
     (bagwise.decompose, (T, Y), {"weights": [np.nan, 1, 0, 0]}, "weights", ValueError),
-    (bagwise.decompose, (T, Y), {"threads": 0}, "threads", ValueError),
+    (bagwise.decompose, (T, Y), {"n_jobs": 0}, "n_jobs", ValueError),
     (bagwise.decompose, (_with(P, (0, 1, 1), 0.9), PY), {}, "members", ValueError),
     (bagwise.decompose, (_with(P, (0, 1), [1.2, -0.2, 0.0]), PY), {}, "members", ValueError),
     (bagwise.decompose, (P, _with(PY, 0, 3)), {}, "y", ValueError),

@@ -243,7 +243,7 @@ def test_hand_computed_example():
     np.testing.assert_array_equal(d.correct_tally, [0, 0, 4, 0])
 
 
-# -- streams, layouts, threads, probabilities -------------------------------------------------
+# -- streams, layouts, n_jobs, probabilities -------------------------------------------------
 
 def test_stream_over_chunks_and_memory_map_equals_in_memory(tmp_path):
     labels, y = random_labels(members=7, n=10_000, seed=3)
@@ -259,8 +259,8 @@ def test_stream_over_chunks_and_memory_map_equals_in_memory(tmp_path):
 
 def test_thread_count_does_not_change_the_result():
     labels, y = random_labels(members=13, n=9_000, classes=5, seed=4)
-    one = bagwise.diversity(labels, y, threads=1)
-    two = bagwise.diversity(labels, y, threads=2)
+    one = bagwise.diversity(labels, y, n_jobs=1)
+    two = bagwise.diversity(labels, y, n_jobs=2)
     assert_same(one, two)
 
 
@@ -371,7 +371,7 @@ def test_bad_members_name_the_argument(members, y, kwargs, error, match):
     (np.array([0, 1, 2, 3]), {"n_classes": 2}, ValueError, "class indices", "y"),
     (np.zeros(4, dtype=int), {"n_classes": 0}, ValueError, "at least 1", "n_classes"),
     (np.zeros(4, dtype=int), {"n_classes": 2.5}, TypeError, "integer", "n_classes"),
-    (np.zeros(4, dtype=int), {"threads": 0}, ValueError, "at least 1", "threads"),
+    (np.zeros(4, dtype=int), {"n_jobs": 0}, ValueError, "at least 1", "n_jobs"),
 ])
 def test_bad_targets_and_options_name_the_argument(y, kwargs, error, match, name):
     members = np.zeros((3, 4), dtype=int)

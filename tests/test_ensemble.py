@@ -108,7 +108,7 @@ def test_bagging_trees_cuts_friedman1_error():
         xtr, ytr, xte, yte = x[:200], y[:200], x[200:], y[200:]
         tree = DecisionTreeRegressor(random_state=seed).fit(xtr, ytr)
         bag = bagwise.RegressionBag(DecisionTreeRegressor(), members=50, seed=seed,
-                                    threads=2).fit(xtr, ytr)
+                                    n_jobs=2).fit(xtr, ytr)
         single.append(np.mean((tree.predict(xte) - yte) ** 2))
         bagged.append(np.mean((bag.predict(xte) - yte) ** 2))
     ratio = np.mean(bagged) / np.mean(single)
@@ -122,7 +122,7 @@ def test_wrapped_members_equal_a_manual_clone_and_fit_loop():
     # its in-bag counts (np.repeat), with its own random_state.
     x, y = _regression(150, seed=3)
     template = DecisionTreeRegressor(max_depth=4, max_features=2)
-    bag = bagwise.RegressionBag(template, members=6, seed=5, threads=2).fit(x, y)
+    bag = bagwise.RegressionBag(template, members=6, seed=5, n_jobs=2).fit(x, y)
     assert len(bag.members_) == 6 and bag.in_bag_.shape == (6, 150)
     states = [m.random_state for m in bag.members_]
     assert len(set(states)) == 6
@@ -133,7 +133,7 @@ def test_wrapped_members_equal_a_manual_clone_and_fit_loop():
         manual.append(member.predict(x))
     np.testing.assert_array_equal(bag.member_predictions(x), np.stack(manual))
     # Same seed, same members; another thread count changes nothing.
-    again = bagwise.RegressionBag(template, members=6, seed=5, threads=1).fit(x, y)
+    again = bagwise.RegressionBag(template, members=6, seed=5, n_jobs=1).fit(x, y)
     np.testing.assert_array_equal(again.member_predictions(x), bag.member_predictions(x))
     oob = bag.out_of_bag_predictions()
     assert np.array_equal(np.isnan(oob), bag.in_bag_ > 0)
@@ -232,7 +232,7 @@ def test_seed_none_is_recorded_and_reproducible():
         (bagwise.RegressionBag("linear", scheme="jackknife"), "`scheme`", ValueError),
         (bagwise.RegressionBag("linear", penalty=-1.0), "`penalty`", ValueError),
         (bagwise.RegressionBag("linear", split_features=1.5), "`split_features`", ValueError),
-        (bagwise.RegressionBag("linear", threads=0), "`threads`", ValueError),
+        (bagwise.RegressionBag("linear", n_jobs=0), "`n_jobs`", ValueError),
         (bagwise.RegressionBag("linear", seed=-1), "`seed`", ValueError),
         (bagwise.RegressionBag("linear", progress="yes"), "`progress`", TypeError),
         (bagwise.ClassificationBag("neighbors", criterion="mse"), "`criterion`", ValueError),
@@ -288,7 +288,7 @@ def test_progress_advances_per_member(learner):
     x, y = _regression(100)
     seen = []
     chosen = DecisionTreeRegressor() if learner == "wrapped" else learner
-    bagwise.RegressionBag(chosen, members=12, threads=2,
+    bagwise.RegressionBag(chosen, members=12, n_jobs=2,
                           progress=lambda done, total: seen.append((done, total))).fit(x, y)
     assert seen[-1] == (12, 12)
     assert all(total == 12 for _, total in seen)
@@ -301,7 +301,7 @@ def test_progress_advances_per_member(learner):
 def test_interrupt_leaves_the_estimator_unfitted(learner):
     x, y = _regression(100)
     chosen = DecisionTreeRegressor() if learner == "wrapped" else learner
-    bag = bagwise.RegressionBag(chosen, members=4, threads=1).fit(x, y)
+    bag = bagwise.RegressionBag(chosen, members=4, n_jobs=1).fit(x, y)
     check_is_fitted(bag)
 
     def stop(done, total):

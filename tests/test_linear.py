@@ -75,11 +75,11 @@ def test_bayesian_weights_are_accepted():
 def test_float32_and_strided_input_and_threads():
     x, y = _data(300, 5, seed=6)
     counts = bagwise.resample(300, 8, seed=3).counts
-    base = _core.LinearEnsemble.fit(x, y, counts, threads=1)
-    two = _core.LinearEnsemble.fit(x, y, counts, threads=2)
+    base = _core.LinearEnsemble.fit(x, y, counts, n_jobs=1)
+    two = _core.LinearEnsemble.fit(x, y, counts, n_jobs=2)
     np.testing.assert_array_equal(base.coefficients, two.coefficients)
-    np.testing.assert_array_equal(base.member_predictions(x, threads=1),
-                                  two.member_predictions(x, threads=2))
+    np.testing.assert_array_equal(base.member_predictions(x, n_jobs=1),
+                                  two.member_predictions(x, n_jobs=2))
     wide = np.zeros((300, 10))
     wide[:, ::2] = x
     strided = _core.LinearEnsemble.fit(wide[:, ::2], y, counts)
@@ -140,14 +140,14 @@ def test_rank_deficiency_is_a_clear_error_and_ridge_resolves_it():
         ({"penalty": -1.0}, "`penalty`", ValueError),
         ({"penalty": np.nan}, "`penalty`", ValueError),
         ({"task": "classification"}, "`task`", ValueError),
-        ({"threads": 0}, "`threads`", ValueError),
+        ({"n_jobs": 0}, "`n_jobs`", ValueError),
     ],
 )
 def test_bad_input(change, match, error):
     x, y = _data(40, 2)
     args = {"x": x, "y": y, "counts": np.ones((2, 40), dtype=np.uint8), "penalty": 0.0}
     args.update(change)
-    kwargs = {k: args.pop(k) for k in ("penalty", "task", "threads") if k in args}
+    kwargs = {k: args.pop(k) for k in ("penalty", "task", "n_jobs") if k in args}
     with pytest.raises(error, match=match):
         _core.LinearEnsemble.fit(args["x"], args["y"], args["counts"], **kwargs)
 

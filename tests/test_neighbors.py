@@ -89,10 +89,10 @@ def test_out_of_bag_predictions_equal_refits_without_the_row():
 def test_threads_float32_and_strides_do_not_change_results():
     x, y = _data(300, seed=4)
     counts = bagwise.resample(300, 6, seed=1).counts
-    fit = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", threads=1)
-    other = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", threads=2)
-    a = fit.member_predictions(x, threads=1)
-    np.testing.assert_array_equal(a, other.member_predictions(x, threads=2))
+    fit = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", n_jobs=1)
+    other = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", n_jobs=2)
+    a = fit.member_predictions(x, n_jobs=1)
+    np.testing.assert_array_equal(a, other.member_predictions(x, n_jobs=2))
     np.testing.assert_array_equal(a, fit.member_predictions(np.asfortranarray(x)))
     wide = np.zeros((300, 6))
     wide[:, ::2] = x

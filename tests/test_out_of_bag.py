@@ -1,6 +1,6 @@
 """Out-of-bag predictions, errors and curves: checks against straightforward numpy written
 here, sklearn.metrics, and scikit-learn's own bagging (BaggingRegressor / BaggingClassifier
-out-of-bag estimates); streaming over memory-mapped chunks; dtypes, threads, strides and
+out-of-bag estimates); streaming over memory-mapped chunks; dtypes, n_jobs, strides and
 bad input."""
 
 from __future__ import annotations
@@ -271,7 +271,7 @@ def test_classification_without_out_of_bag_member_gives_nan_rows():
     assert np.isnan(oob.prediction[0]) and np.isnan(oob.probabilities[0]).all()
 
 
-# -- dtypes, threads, strides -----------------------------------------------------------------
+# -- dtypes, n_jobs, strides -----------------------------------------------------------------
 
 COUNT_DTYPES = [np.uint8, np.uint16, np.uint32, np.uint64, np.int8, np.int16, np.int32, np.int64]
 
@@ -300,16 +300,16 @@ def test_label_dtypes_and_float32_members():
 
 def test_results_do_not_depend_on_threads():
     members, counts, y = regression_data(n=50_000, m=12, seed=12)
-    one = bagwise.out_of_bag(members, counts, y, threads=1)
-    two = bagwise.out_of_bag(members, counts, y, threads=2)
-    three = bagwise.out_of_bag(members, counts, y, threads=3)
+    one = bagwise.out_of_bag(members, counts, y, n_jobs=1)
+    two = bagwise.out_of_bag(members, counts, y, n_jobs=2)
+    three = bagwise.out_of_bag(members, counts, y, n_jobs=3)
     for other in (two, three):
         np.testing.assert_array_equal(other.prediction, one.prediction)
         np.testing.assert_array_equal(other.curve_error, one.curve_error)
         assert other.error == one.error
     probs, counts, y = probability_data(n=20_000, m=8, c=3, seed=12)
-    one = bagwise.out_of_bag(probs, counts, y, threads=1)
-    two = bagwise.out_of_bag(probs, counts, y, threads=2)
+    one = bagwise.out_of_bag(probs, counts, y, n_jobs=1)
+    two = bagwise.out_of_bag(probs, counts, y, n_jobs=2)
     np.testing.assert_array_equal(two.probabilities, one.probabilities)
     assert (two.brier_score, two.log_loss) == (one.brier_score, one.log_loss)
 
@@ -452,8 +452,8 @@ def test_bad_input_raises_naming_the_argument():
         bagwise.out_of_bag(members, counts, y, point_weights=np.ones(3))
     with pytest.raises(ValueError, match=r"^`curve_sizes`"):
         bagwise.out_of_bag(members, counts, y, curve_sizes=[0, 2])
-    with pytest.raises(ValueError, match=r"^`threads`|^`threads`: must be at least 1"):
-        bagwise.out_of_bag(members, counts, y, threads=0)
+    with pytest.raises(ValueError, match=r"^`n_jobs`|^`n_jobs`: must be at least 1"):
+        bagwise.out_of_bag(members, counts, y, n_jobs=0)
 
 
 def test_bad_classification_input():

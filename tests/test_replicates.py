@@ -135,8 +135,8 @@ def test_members_needed_meets_its_definition():
 def test_threads_and_float32():
     t = equicorrelated(5, 4, 3000, 1.0, 0.5, seed=4)
     y = np.zeros(3000)
-    a = bagwise.replicate_spread(t, y, threads=1)
-    b = bagwise.replicate_spread(t, y, threads=2)
+    a = bagwise.replicate_spread(t, y, n_jobs=1)
+    b = bagwise.replicate_spread(t, y, n_jobs=2)
     np.testing.assert_array_equal(a.between_per_point, b.between_per_point)
     assert (a.between, a.covariance) == (b.between, b.covariance)
     t32 = t.astype(np.float32)

@@ -146,16 +146,16 @@ def test_members_do_not_change_when_more_are_drawn():
 
 
 def test_results_do_not_depend_on_thread_count():
-    one = bagwise.resample(5000, 64, seed=13, threads=1).counts
-    two = bagwise.resample(5000, 64, seed=13, threads=2).counts
+    one = bagwise.resample(5000, 64, seed=13, n_jobs=1).counts
+    two = bagwise.resample(5000, 64, seed=13, n_jobs=2).counts
     np.testing.assert_array_equal(one, two)
     assert not np.array_equal(one, bagwise.resample(5000, 64, seed=14).counts)
 
 
-@pytest.mark.parametrize("threads", ["1", "2"])
-def test_rayon_num_threads_gives_identical_draws(threads, tmp_path):
+@pytest.mark.parametrize("n_jobs", ["1", "2"])
+def test_rayon_num_threads_gives_identical_draws(n_jobs, tmp_path):
     code = "import bagwise, sys; sys.stdout.buffer.write(bagwise.resample(3000, 40, seed=5).counts.tobytes())"
-    env = {**os.environ, "RAYON_NUM_THREADS": threads}
+    env = {**os.environ, "RAYON_NUM_THREADS": n_jobs}
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, check=True)
     here = bagwise.resample(3000, 40, seed=5).counts.tobytes()
     assert out.stdout == here
@@ -265,7 +265,7 @@ def test_resample_pickles_and_displays():
         ({"seed": -1}, "seed", ValueError),
         ({"seed": 2**64}, "seed", ValueError),
         ({"seed": 1.5}, "seed", TypeError),
-        ({"threads": 0}, "threads", ValueError),
+        ({"n_jobs": 0}, "n_jobs", ValueError),
         ({"progress": "yes"}, "progress", TypeError),
     ],
 )

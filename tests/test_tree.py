@@ -146,15 +146,15 @@ def test_reproducible_for_any_thread_count_and_member_count(splitter):
     x, y = regression_data(6000, 5)
     counts = bagwise.resample(6000, 6, seed=2).counts
     kw = {"splitter": splitter, "split_features": 3, "seed": 9}
-    one = fit_regression(x, y, counts, threads=1, **kw)
-    two = fit_regression(x, y, counts, threads=2, **kw)
+    one = fit_regression(x, y, counts, n_jobs=1, **kw)
+    two = fit_regression(x, y, counts, n_jobs=2, **kw)
     assert one.to_bytes() == two.to_bytes()
-    first = fit_regression(x, y, counts[:2], threads=2, **kw)
+    first = fit_regression(x, y, counts[:2], n_jobs=2, **kw)
     np.testing.assert_array_equal(first.member_predictions(x), one.member_predictions(x)[:2])
-    other_seed = fit_regression(x, y, counts, threads=2, **{**kw, "seed": 10})
+    other_seed = fit_regression(x, y, counts, n_jobs=2, **{**kw, "seed": 10})
     assert other_seed.to_bytes() != one.to_bytes()
-    np.testing.assert_array_equal(one.member_predictions(x, threads=1),
-                                  one.member_predictions(x, threads=2))
+    np.testing.assert_array_equal(one.member_predictions(x, n_jobs=1),
+                                  one.member_predictions(x, n_jobs=2))
 
 
 def test_float32_strided_and_fortran_input():
@@ -243,7 +243,7 @@ def test_progress_callback_and_interrupt():
     x, y = regression_data(2000, 11)
     counts = bagwise.resample(2000, 12, seed=1).counts
     calls = []
-    fit_regression(x, y, counts, threads=2, progress=lambda done, total: calls.append((done, total)))
+    fit_regression(x, y, counts, n_jobs=2, progress=lambda done, total: calls.append((done, total)))
     assert calls[-1] == (12, 12)
     assert all(b[0] >= a[0] for a, b in zip(calls, calls[1:]))
 
@@ -299,8 +299,8 @@ def test_bad_input_raises_value_error_naming_the_argument():
         model.predict(x[:, :5])
     with pytest.raises(ValueError, match="`x`"):
         model.member_predictions(bad_x)
-    with pytest.raises(ValueError, match="`threads`"):
-        model.predict(x, threads=0)
+    with pytest.raises(ValueError, match="`n_jobs`"):
+        model.predict(x, n_jobs=0)
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")

@@ -188,8 +188,8 @@ def test_dtypes_strides_and_threads_give_identical_results():
         f32 = bagwise.prediction_variance(members.astype(np.float32), counts,
                                           corrected=False).variance
         np.testing.assert_allclose(f32, base, rtol=1e-5)
-        one = bagwise.prediction_variance(members, counts, corrected=False, threads=1).variance
-        two = bagwise.prediction_variance(members, counts, corrected=False, threads=2).variance
+        one = bagwise.prediction_variance(members, counts, corrected=False, n_jobs=1).variance
+        two = bagwise.prediction_variance(members, counts, corrected=False, n_jobs=2).variance
         np.testing.assert_array_equal(one, two)
 
 

@@ -261,7 +261,7 @@ def report(args) -> int:
         try:
             with warnings.catch_warnings():
                 warnings.showwarning = _warn_plainly
-                diagnosis = _diagnose(seed=args.seed, threads=None, **kwargs)
+                diagnosis = _diagnose(seed=args.seed, n_jobs=None, **kwargs)
         except (ValueError, TypeError) as err:
             raise CommandError(_options(str(err), names)) from None
         step("drawing the report")

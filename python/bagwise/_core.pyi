@@ -47,18 +47,18 @@ class Resampler:
         self,
         seed: int,
         members: int,
-        threads: int | None = None,
+        n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.unsignedinteger]: ...
     def bayesian_weights(
         self,
         seed: int,
         members: int,
-        threads: int | None = None,
+        n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     def block_starts(
-        self, seed: int, members: int, threads: int | None = None
+        self, seed: int, members: int, n_jobs: int | None = None
     ) -> npt.NDArray[np.uint64]: ...
 
 # -- native learners ---------------------------------------------------------------------
@@ -77,15 +77,15 @@ class LinearEnsemble:
         task: str = "regression",
         n_classes: int = 0,
         penalty: float = 0.0,
-        threads: int | None = None,
+        n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> LinearEnsemble: ...
     def member_predictions(
-        self, x: _Design, threads: int | None = None
+        self, x: _Design, n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
-    def predict(self, x: _Design, threads: int | None = None) -> npt.NDArray[np.float64]: ...
+    def predict(self, x: _Design, n_jobs: int | None = None) -> npt.NDArray[np.float64]: ...
     def out_of_bag_predictions(
-        self, x: _Design, counts: _Counts, threads: int | None = None
+        self, x: _Design, counts: _Counts, n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     @property
     def members(self) -> int: ...
@@ -115,15 +115,15 @@ class NeighborsEnsemble:
         task: str,
         n_classes: int = 0,
         neighbors: int = 5,
-        threads: int | None = None,
+        n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> NeighborsEnsemble: ...
     def member_predictions(
-        self, x: _Design, threads: int | None = None
+        self, x: _Design, n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
-    def predict(self, x: _Design, threads: int | None = None) -> npt.NDArray[np.float64]: ...
+    def predict(self, x: _Design, n_jobs: int | None = None) -> npt.NDArray[np.float64]: ...
     def out_of_bag_predictions(
-        self, x: _Design, counts: _Counts, threads: int | None = None
+        self, x: _Design, counts: _Counts, n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     @property
     def members(self) -> int: ...
@@ -153,11 +153,11 @@ class CountGram:
         scheme: str | None = None,
         subsample_rows: int | None = None,
         jackknife: bool = False,
-        threads: int | None = None,
+        n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> CountGram: ...
     def variance(
-        self, members: npt.NDArray[np.floating], method: str, threads: int | None = None
+        self, members: npt.NDArray[np.floating], method: str, n_jobs: int | None = None
     ) -> tuple[
         npt.NDArray[np.float64],
         npt.NDArray[np.float64],
@@ -186,23 +186,23 @@ class CountGram:
 def mean_prediction(
     members: npt.NDArray[np.floating],
     weights: npt.NDArray[np.float64] | None = None,
-    threads: int | None = None,
+    n_jobs: int | None = None,
 ) -> npt.NDArray[np.float64]: ...
 def majority_vote(
     members: npt.NDArray[np.int64],
     n_classes: int,
     weights: npt.NDArray[np.float64] | None = None,
-    threads: int | None = None,
+    n_jobs: int | None = None,
 ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]: ...
 def residual_correlation(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64],
-    threads: int | None = None,
+    n_jobs: int | None = None,
 ) -> dict[str, Any]: ...
 def correlation_matrix(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64],
-    threads: int | None = None,
+    n_jobs: int | None = None,
 ) -> npt.NDArray[np.float64]: ...
 @final
 class DecompositionAccumulator:
@@ -214,7 +214,7 @@ class DecompositionAccumulator:
         members: npt.NDArray[Any],
         y: npt.NDArray[Any],
         n_classes: int | None = None,
-        threads: int | None = None,
+        n_jobs: int | None = None,
     ) -> tuple[
         npt.NDArray[np.float64], npt.NDArray[np.float64], npt.NDArray[np.float64]
     ]: ...
@@ -233,7 +233,7 @@ class SizeCurveAccumulator:
         members: npt.NDArray[Any],
         y: npt.NDArray[Any],
         n_classes: int | None = None,
-        threads: int | None = None,
+        n_jobs: int | None = None,
     ) -> None: ...
     def finish(self) -> dict[str, Any]: ...
 # -- diversity ---------------------------------------------------------------------------
@@ -245,7 +245,7 @@ class DiversityAccumulator:
         self,
         members: npt.NDArray[Any],
         y: npt.NDArray[np.int64],
-        threads: int | None = None,
+        n_jobs: int | None = None,
     ) -> None: ...
     def merge(self, other: DiversityAccumulator) -> None: ...
     @property
@@ -279,7 +279,7 @@ def out_of_bag_chunk(
     sizes: list[int],
     kind: str,
     n_classes: int | None = None,
-    threads: int | None = None,
+    n_jobs: int | None = None,
 ) -> tuple[
     OutOfBagState,
     tuple[npt.NDArray[np.float64], npt.NDArray[np.int64], npt.NDArray[np.float64] | None],
@@ -291,7 +291,7 @@ def default_sizes(members: int) -> list[int]: ...
 def replicate_spread_arrays(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64] | None = None,
-    threads: int | None = None,
+    n_jobs: int | None = None,
 ) -> tuple[dict[str, npt.NDArray[np.float64]], dict[str, float]]: ...
 
 @final
@@ -311,20 +311,20 @@ class TreeEnsemble:
         splitter: str = "auto",
         seed: int = 0,
         members: int | None = None,
-        threads: int | None = None,
+        n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> TreeEnsemble: ...
     def member_predictions(
-        self, x: npt.NDArray[np.floating], threads: int | None = None
+        self, x: npt.NDArray[np.floating], n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     def out_of_bag_predictions(
         self,
         x: npt.NDArray[np.floating],
         counts: npt.NDArray[np.unsignedinteger],
-        threads: int | None = None,
+        n_jobs: int | None = None,
     ) -> npt.NDArray[np.float64]: ...
     def predict(
-        self, x: npt.NDArray[np.floating], threads: int | None = None
+        self, x: npt.NDArray[np.floating], n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     @property
     def members(self) -> int: ...

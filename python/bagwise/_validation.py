@@ -30,11 +30,11 @@ def seed_value(seed: object) -> int:
     return seed
 
 
-def threads_value(threads: object) -> int | None:
-    """``None`` (all cores) or a positive thread count."""
-    if threads is None:
+def n_jobs_value(n_jobs: object) -> int | None:
+    """``None`` or ``-1`` (all cores), or a positive thread count."""
+    if n_jobs is None or (isinstance(n_jobs, int) and not isinstance(n_jobs, bool) and n_jobs == -1):
         return None
-    return positive_int(threads, "threads")
+    return positive_int(n_jobs, "n_jobs")
 
 
 def label_codes(labels: object, n_rows: int, name: str) -> tuple[np.ndarray, np.ndarray]:

@@ -27,7 +27,7 @@ import numpy as np
 
 from . import _core
 from ._display import html_block, safe_html, text_block
-from ._validation import positive_int, seed_value, threads_value
+from ._validation import positive_int, seed_value, n_jobs_value
 
 __all__ = [
     "Correlation",
@@ -170,7 +170,7 @@ def _fmt(value) -> str:
 
 # -- aggregation ----------------------------------------------------------------------------
 
-def _aggregate_iv(members, weights, n_classes, threads):
+def _aggregate_iv(members, weights, n_classes, n_jobs):
     kind, members = _members_array(members)
     weights = _weights(weights, members.shape[0])
     if kind == "labels":
@@ -180,10 +180,10 @@ def _aggregate_iv(members, weights, n_classes, threads):
         if kind == "probabilities" and n_classes != members.shape[2]:
             raise ValueError(f"`n_classes`: is {n_classes} but `members` has {members.shape[2]} "
                              "classes")
-    return kind, members, weights, n_classes, threads_value(threads)
+    return kind, members, weights, n_classes, n_jobs_value(n_jobs)
 
 
-def aggregate(members, *, weights=None, n_classes=None, threads=None) -> np.ndarray:
+def aggregate(members, *, weights=None, n_classes=None, n_jobs=None) -> np.ndarray:
     """Combine member predictions into the ensemble prediction.
 
     Parameters
@@ -195,7 +195,7 @@ def aggregate(members, *, weights=None, n_classes=None, threads=None) -> np.ndar
         Non-negative member weights summing to 1 (within 1e-6); equal weights by default.
     n_classes : int, optional
         Number of classes for labels (default: largest label + 1).
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
 
     Returns
@@ -214,13 +214,13 @@ def aggregate(members, *, weights=None, n_classes=None, threads=None) -> np.ndar
     >>> bagwise.aggregate(np.array([[2, 0], [1, 1], [1, 2], [2, 2]]))  # ties go to class 1
     array([1, 2])
     """
-    kind, members, weights, n_classes, threads = _aggregate_iv(members, weights, n_classes, threads)
+    kind, members, weights, n_classes, n_jobs = _aggregate_iv(members, weights, n_classes, n_jobs)
     if kind == "labels":
-        return _core.majority_vote(members, n_classes, weights, threads)[0]
-    return _core.mean_prediction(members, weights, threads)
+        return _core.majority_vote(members, n_classes, weights, n_jobs)[0]
+    return _core.mean_prediction(members, weights, n_jobs)
 
 
-def vote_fractions(members, *, n_classes=None, weights=None, threads=None) -> np.ndarray:
+def vote_fractions(members, *, n_classes=None, weights=None, n_jobs=None) -> np.ndarray:
     """Share of the (weighted) member votes each class gets at every point.
 
     The fractions estimate class probabilities from hard votes: row ``j`` is
@@ -234,7 +234,7 @@ def vote_fractions(members, *, n_classes=None, weights=None, threads=None) -> np
         Number of classes (default: largest label + 1).
     weights : array of shape (members,), optional
         Non-negative member weights summing to 1.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads.
 
     Returns
@@ -248,11 +248,11 @@ def vote_fractions(members, *, n_classes=None, weights=None, threads=None) -> np
     array([[0.75, 0.25, 0.  ],
            [0.  , 0.25, 0.75]])
     """
-    kind, members, weights, n_classes, threads = _aggregate_iv(members, weights, n_classes, threads)
+    kind, members, weights, n_classes, n_jobs = _aggregate_iv(members, weights, n_classes, n_jobs)
     if kind != "labels":
         raise TypeError("`members`: vote fractions need integer labels; for probabilities the "
                         "soft vote is `aggregate(members)`")
-    return _core.majority_vote(members, n_classes, weights, threads)[1]
+    return _core.majority_vote(members, n_classes, weights, n_jobs)[1]
 
 
 # -- decomposition --------------------------------------------------------------------------
@@ -260,11 +260,11 @@ def vote_fractions(members, *, n_classes=None, weights=None, threads=None) -> np
 class DecompositionStream:
     """A decomposition computed from chunks of points; see `decompose_stream`."""
 
-    def __init__(self, loss=None, weights=None, threads=None):
+    def __init__(self, loss=None, weights=None, n_jobs=None):
         self.loss = _loss_iv(loss)
         self._weights_arg = weights
         self._weights = None
-        self._threads = threads_value(threads)
+        self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
         self._kind = None
         self._parts: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
@@ -288,7 +288,7 @@ class DecompositionStream:
             n_classes = _n_classes(None, members, y)
         elif kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
-        self._parts.append(self._core.update(members, y, n_classes, self._threads))
+        self._parts.append(self._core.update(members, y, n_classes, self._n_jobs))
         return self
 
     def finish(self) -> Decomposition:
@@ -308,7 +308,7 @@ class DecompositionStream:
         )
 
 
-def decompose_stream(*, loss=None, weights=None, threads=None) -> DecompositionStream:
+def decompose_stream(*, loss=None, weights=None, n_jobs=None) -> DecompositionStream:
     """Start a decomposition fed by chunks of points.
 
     Call ``.update(members_chunk, y_chunk)`` for consecutive chunks (any split of the
@@ -319,7 +319,7 @@ def decompose_stream(*, loss=None, weights=None, threads=None) -> DecompositionS
 
     Parameters
     ----------
-    loss, weights, threads
+    loss, weights, n_jobs
         As in `decompose`.
 
     Returns
@@ -338,10 +338,10 @@ def decompose_stream(*, loss=None, weights=None, threads=None) -> DecompositionS
     >>> bool(np.isclose(d.ambiguity, bagwise.decompose(members, y).ambiguity, rtol=1e-12))
     True
     """
-    return DecompositionStream(loss=loss, weights=weights, threads=threads)
+    return DecompositionStream(loss=loss, weights=weights, n_jobs=n_jobs)
 
 
-def decompose(members, y, *, loss=None, weights=None, threads=None) -> Decomposition:
+def decompose(members, y, *, loss=None, weights=None, n_jobs=None) -> Decomposition:
     """Split the ensemble's loss into the mean member loss and the ambiguity.
 
     For a weighted average ``f = sum_b w_b t_b`` (weights summing to 1) the ambiguity
@@ -373,7 +373,7 @@ def decompose(members, y, *, loss=None, weights=None, threads=None) -> Decomposi
         Must fit the members' kind; by default the one that does.
     weights : array of shape (members,), optional
         Non-negative member weights summing to 1 (within 1e-6); equal by default.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
 
     Returns
@@ -392,7 +392,7 @@ def decompose(members, y, *, loss=None, weights=None, threads=None) -> Decomposi
     >>> round(d.relative_gain, 2)                        # combining removes ~98% of the loss
     0.98
     """
-    stream = decompose_stream(loss=loss, weights=weights, threads=threads)
+    stream = decompose_stream(loss=loss, weights=weights, n_jobs=n_jobs)
     return stream.update(members, y).finish()
 
 
@@ -517,12 +517,12 @@ def _sizes_iv(sizes, members):
 class SizeCurveStream:
     """The ensemble-size curve computed from chunks of points; see `size_curve_stream`."""
 
-    def __init__(self, loss=None, sizes=None, orders=20, seed=0, threads=None):
+    def __init__(self, loss=None, sizes=None, orders=20, seed=0, n_jobs=None):
         self.loss = _loss_iv(loss)
         self._sizes_arg = sizes
         self.orders = positive_int(orders, "orders")
         self.seed = seed_value(seed)
-        self._threads = threads_value(threads)
+        self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
         self._members = None
 
@@ -544,7 +544,7 @@ class SizeCurveStream:
         n_classes = _n_classes(None, members, y) if kind == "labels" else None
         if kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
-        self._core.update(members, y, n_classes, self._threads)
+        self._core.update(members, y, n_classes, self._n_jobs)
         return self
 
     def finish(self) -> SizeCurve:
@@ -555,7 +555,7 @@ class SizeCurveStream:
                          member_orders=self._core.orders(), **self._core.finish())
 
 
-def size_curve_stream(*, loss=None, sizes=None, orders=20, seed=0, threads=None) -> SizeCurveStream:
+def size_curve_stream(*, loss=None, sizes=None, orders=20, seed=0, n_jobs=None) -> SizeCurveStream:
     """Start an ensemble-size curve fed by chunks of points.
 
     ``.update(members_chunk, y_chunk)`` for consecutive chunks, then ``.finish()``; the
@@ -564,7 +564,7 @@ def size_curve_stream(*, loss=None, sizes=None, orders=20, seed=0, threads=None)
 
     Parameters
     ----------
-    loss, sizes, orders, seed, threads
+    loss, sizes, orders, seed, n_jobs
         As in `size_curve`.
 
     Returns
@@ -583,10 +583,10 @@ def size_curve_stream(*, loss=None, sizes=None, orders=20, seed=0, threads=None)
     >>> bool(np.allclose(stream.finish().curve, whole.curve, rtol=1e-12))
     True
     """
-    return SizeCurveStream(loss=loss, sizes=sizes, orders=orders, seed=seed, threads=threads)
+    return SizeCurveStream(loss=loss, sizes=sizes, orders=orders, seed=seed, n_jobs=n_jobs)
 
 
-def size_curve(members, y, *, sizes=None, orders=20, seed=0, loss=None, threads=None) -> SizeCurve:
+def size_curve(members, y, *, sizes=None, orders=20, seed=0, loss=None, n_jobs=None) -> SizeCurve:
     """Loss of the ensemble of the first k members, for k on a grid, over random orders.
 
     For each of ``orders`` random member orders (order ``o`` uses member stream ``o`` drawn
@@ -621,7 +621,7 @@ def size_curve(members, y, *, sizes=None, orders=20, seed=0, loss=None, threads=
         Seed of the orders (``None``: a fresh one, kept in ``SizeCurve.seed``).
     loss : {"squared", "brier", "error_rate"}, optional
         Must fit the members' kind.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads; results do not depend on it.
 
     Returns
@@ -640,7 +640,7 @@ def size_curve(members, y, *, sizes=None, orders=20, seed=0, loss=None, threads=
     >>> curve.members_needed(0.1)                        # W/k <= 10% of loss(inf)
     40
     """
-    stream = size_curve_stream(loss=loss, sizes=sizes, orders=orders, seed=seed, threads=threads)
+    stream = size_curve_stream(loss=loss, sizes=sizes, orders=orders, seed=seed, n_jobs=n_jobs)
     return stream.update(members, y).finish()
 
 
@@ -782,17 +782,17 @@ class SizeCurve:
 
 # -- residual correlation -------------------------------------------------------------------
 
-def _correlation_iv(members, y, matrix, threads):
+def _correlation_iv(members, y, matrix, n_jobs):
     kind, members = _members_array(members)
     if kind != "values":
         raise TypeError("`members`: residual correlation needs float (members, n_points) values; "
                         "for probabilities pass one class, members[:, :, c], with y == c")
     if not isinstance(matrix, (bool, np.bool_)):
         raise TypeError(f"`matrix`: expected a bool, got {type(matrix).__name__}")
-    return members, _target(y, kind, members.shape[1]), bool(matrix), threads_value(threads)
+    return members, _target(y, kind, members.shape[1]), bool(matrix), n_jobs_value(n_jobs)
 
 
-def correlation(members, y, *, matrix=False, threads=None) -> Correlation:
+def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
     """Spread and pairwise correlation of the members' residuals ``r_b = t_b - y``.
 
     The mean pairwise correlation is computed in O(members * n_points) without forming the
@@ -811,7 +811,7 @@ def correlation(members, y, *, matrix=False, threads=None) -> Correlation:
     matrix : bool
         Also compute the full members x members correlation matrix (blocked, parallel Gram
         computation; O(members**2 * n_points) work).
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads; results do not depend on it.
 
     Returns
@@ -827,9 +827,9 @@ def correlation(members, y, *, matrix=False, threads=None) -> Correlation:
     >>> round(bagwise.correlation(members, np.zeros(4000)).mean_correlation, 1)
     0.5
     """
-    members, y, matrix, threads = _correlation_iv(members, y, matrix, threads)
-    result = _core.residual_correlation(members, y, threads)
-    full = _core.correlation_matrix(members, y, threads) if matrix else None
+    members, y, matrix, n_jobs = _correlation_iv(members, y, matrix, n_jobs)
+    result = _core.residual_correlation(members, y, n_jobs)
+    full = _core.correlation_matrix(members, y, n_jobs) if matrix else None
     return Correlation(members=members.shape[0], n_points=members.shape[1], matrix=full, **result)
 
 

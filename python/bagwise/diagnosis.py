@@ -18,7 +18,7 @@ import warnings
 import numpy as np
 
 from ._display import html_block, safe_html, text_block
-from ._validation import renamed_arguments, seed_value, threads_value
+from ._validation import renamed_arguments, seed_value, n_jobs_value
 from .decomposition import _members_array, _target, correlation, decompose, size_curve
 from .diversity import diversity
 from .out_of_bag import out_of_bag
@@ -43,7 +43,7 @@ def _array(value, name):
         raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
 
 
-def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, threads):
+def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_jobs):
     kind, members = _members_array(members)
     n_members, n_points = members.shape[:2]
     if n_members < 2:
@@ -88,7 +88,7 @@ def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, th
             if not np.all(np.isfinite(reference)):
                 raise ValueError("`reference`: contains NaN or infinite values")
     return (kind, members, y, counts, reference, train_members, train_y, seed_value(seed),
-            threads_value(threads))
+            n_jobs_value(n_jobs))
 
 
 def _reference_loss(kind, reference, y):
@@ -103,7 +103,7 @@ def _reference_loss(kind, reference, y):
 
 
 def diagnose(members, y, *, counts=None, reference=None, train_members=None, train_y=None,
-             seed=0, threads=None) -> Diagnosis:
+             seed=0, n_jobs=None) -> Diagnosis:
     """Everything bagwise can say about an ensemble from its member predictions, in one call.
 
     Parameters
@@ -132,7 +132,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
         training targets) and the out-of-bag error is computed from them.
     seed : int
         Seed of the random member orders of the size curve.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads; results do not depend on it.
 
     Returns
@@ -164,18 +164,18 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
     ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
     """
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
-                     train_y=train_y, seed=seed, threads=threads, members_are_training=None)
+                     train_y=train_y, seed=seed, n_jobs=n_jobs, members_are_training=None)
 
 
-def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, threads,
+def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,
               members_are_training):
     """`diagnose`; ``members_are_training=False`` never reads ``members`` as training-row
     predictions (None: when ``counts`` has ``n_points`` columns)."""
     (kind, members, y, counts, reference, train_members, train_y, seed,
-     threads) = _diagnose_iv(members, y, counts, reference, train_members, train_y, seed,
-                             threads)
-    decomposition = decompose(members, y, threads=threads)
-    curve = size_curve(members, y, seed=seed, threads=threads)
+     n_jobs) = _diagnose_iv(members, y, counts, reference, train_members, train_y, seed,
+                             n_jobs)
+    decomposition = decompose(members, y, n_jobs=n_jobs)
+    curve = size_curve(members, y, seed=seed, n_jobs=n_jobs)
     if kind == "labels":
         one, target = None, None
     elif kind == "probabilities":
@@ -183,22 +183,22 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, th
         one, target = members[:, :, last], (y == last).astype(np.float64)
     else:
         one, target = members, y
-    residuals = correlation(one, target, threads=threads) if one is not None else None
+    residuals = correlation(one, target, n_jobs=n_jobs) if one is not None else None
     oob = None
     if counts is not None:
         if train_members is not None:
             try:
-                oob = out_of_bag(train_members, counts, train_y, threads=threads)
+                oob = out_of_bag(train_members, counts, train_y, n_jobs=n_jobs)
             except (ValueError, TypeError) as error:
                 names = {"members": "train_members", "y": "train_y"}
                 raise renamed_arguments(error, names) from None
         elif members_are_training is not False and counts.shape[1] == members.shape[1]:
-            oob = out_of_bag(members, counts, y, threads=threads)
+            oob = out_of_bag(members, counts, y, n_jobs=n_jobs)
     uncertainty = between_within = None
     if counts is not None and one is not None:
         uncertainty = prediction_variance(one, counts, method="ij", corrected=True,
-                                          threads=threads)
-        between_within = spread(one, counts, threads=threads)
+                                          n_jobs=n_jobs)
+        between_within = spread(one, counts, n_jobs=n_jobs)
     reference_loss = reference_ratio = None
     if reference is not None:
         reference_loss = _reference_loss(kind, reference, y)
@@ -208,7 +208,7 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, th
             warnings.warn("`reference`: the single model's loss is 0, so the ratio is NaN",
                           RuntimeWarning, stacklevel=3)
             reference_ratio = math.nan
-    members_diversity = diversity(members, y, threads=threads) if kind != "values" else None
+    members_diversity = diversity(members, y, n_jobs=n_jobs) if kind != "values" else None
     result = Diagnosis(kind=kind, decomposition=decomposition, size_curve=curve,
                        correlation=residuals, out_of_bag=oob, uncertainty=uncertainty,
                        spread=between_within, reference_loss=reference_loss,

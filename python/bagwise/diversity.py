@@ -22,7 +22,7 @@ import numpy as np
 
 from . import _core
 from ._display import html_block, safe_html, text_block
-from ._validation import positive_int, threads_value
+from ._validation import positive_int, n_jobs_value
 
 __all__ = ["Diversity", "DiversityStream", "diversity", "diversity_stream"]
 
@@ -113,12 +113,12 @@ def _number(value):
 class DiversityStream:
     """Diversity measures computed from chunks of points; see `diversity_stream`."""
 
-    def __init__(self, n_classes, threads=None):
+    def __init__(self, n_classes, n_jobs=None):
         self.n_classes = positive_int(n_classes, "n_classes")
         if self.n_classes > _MAX_CLASSES:
             raise ValueError(f"`n_classes`: at most {_MAX_CLASSES} classes are supported, got "
                              f"{self.n_classes}")
-        self._threads = threads_value(threads)
+        self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
 
     def add(self, members, y) -> DiversityStream:
@@ -131,7 +131,7 @@ class DiversityStream:
         elif members.shape[0] != self._core.members:
             raise ValueError(f"`members`: this chunk has {members.shape[0]} members but earlier "
                              f"chunks had {self._core.members}")
-        self._core.update(members, y, self._threads)
+        self._core.update(members, y, self._n_jobs)
         return self
 
     def result(self) -> Diversity:
@@ -141,7 +141,7 @@ class DiversityStream:
         return Diversity(**self._core.finish())
 
 
-def diversity_stream(*, n_classes, threads=None) -> DiversityStream:
+def diversity_stream(*, n_classes, n_jobs=None) -> DiversityStream:
     """Start diversity measures fed by chunks of points.
 
     Call ``.add(members_chunk, y_chunk)`` for consecutive chunks (any split of the points;
@@ -153,7 +153,7 @@ def diversity_stream(*, n_classes, threads=None) -> DiversityStream:
     ----------
     n_classes : int
         Number of classes; labels are ``0..n_classes-1``.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
 
     Returns
@@ -171,10 +171,10 @@ def diversity_stream(*, n_classes, threads=None) -> DiversityStream:
     >>> stream.result().kappa.tolist() == bagwise.diversity(members, y).kappa.tolist()
     True
     """
-    return DiversityStream(n_classes, threads)
+    return DiversityStream(n_classes, n_jobs)
 
 
-def diversity(members, y, *, n_classes=None, threads=None) -> Diversity:
+def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     """Diversity measures of a classifier ensemble (Kuncheva & Whitaker 2003).
 
     For every pair of members (i, j), with N11 the points both get right, N00 the points
@@ -200,7 +200,7 @@ def diversity(members, y, *, n_classes=None, threads=None) -> Diversity:
         True classes ``0..n_classes-1``.
     n_classes : int, optional
         Number of classes (default: the probabilities' last axis, or the largest label + 1).
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
 
     Returns
@@ -222,7 +222,7 @@ def diversity(members, y, *, n_classes=None, threads=None) -> Diversity:
     members, implied = _members_iv(members)
     y = _y_iv(y, members.shape[1])
     n_classes = _n_classes_iv(n_classes, members, implied, y)
-    return DiversityStream(n_classes, threads).add(members, y).result()
+    return DiversityStream(n_classes, n_jobs).add(members, y).result()
 
 
 class Diversity:

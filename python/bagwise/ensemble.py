@@ -24,7 +24,7 @@ from sklearn.utils.validation import (
 
 from . import _core
 from ._progress import progress_callback
-from ._validation import positive_int, seed_value, threads_value
+from ._validation import positive_int, seed_value, n_jobs_value
 from .resampling import resample
 
 __all__ = ["ClassificationBag", "RegressionBag"]
@@ -103,7 +103,7 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
     return {
         "learner": learner, "members": members, "fraction": float(fraction),
         "neighbors": neighbors, "penalty": float(penalty), "seed": seed_value(est.seed),
-        "threads": threads_value(est.threads),
+        "n_jobs": n_jobs_value(est.n_jobs),
     }
 
 
@@ -207,7 +207,7 @@ class _Bag(BaseEstimator):
             return np.ones((members, n_rows), dtype=np.uint8)
         strata = codes if self._classification and self.stratify else None
         draw = resample(n_rows, members, scheme=self.scheme, fraction=params["fraction"],
-                        strata=strata, groups=groups, seed=params["seed"], threads=params["threads"])
+                        strata=strata, groups=groups, seed=params["seed"], n_jobs=params["n_jobs"])
         return draw.weights if self.scheme == "bayesian" else draw.counts
 
     def _fit_native(self, X, target, counts, params, n_classes):
@@ -235,7 +235,7 @@ class _Bag(BaseEstimator):
                 n_classes = None
         with progress_callback(self.progress, "fitting") as callback:
             return kind.fit(X, target, counts, task=task, n_classes=n_classes,
-                            threads=params["threads"], progress=callback, **options)
+                            n_jobs=params["n_jobs"], progress=callback, **options)
 
     def _fit_wrapped(self, X, y, counts, params):
         from joblib import Parallel, delayed
@@ -255,7 +255,7 @@ class _Bag(BaseEstimator):
             states = [int(c.generate_state(1)[0] & 0x7FFFFFFF) for c in children]
         else:
             states = [None] * members
-        n_jobs = -1 if params["threads"] is None else params["threads"]
+        n_jobs = -1 if params["n_jobs"] is None else params["n_jobs"]
         tasks = (delayed(_fit_member)(template, X, y, counts[m], self.use_sample_weight, states[m])
                  for m in range(members))
         fitted = []
@@ -298,7 +298,7 @@ class _Bag(BaseEstimator):
         """
         X = self._check_X(X)
         if self._native:
-            return self._model.member_predictions(X, self.threads)
+            return self._model.member_predictions(X, self.n_jobs)
         return np.stack([self._member_predict(member, X) for member in self.members_])
 
     def out_of_bag_predictions(self, X=None) -> np.ndarray:
@@ -333,7 +333,7 @@ class _Bag(BaseEstimator):
                 f"`X`: has {_num_samples(X)} rows but the ensemble was fit on {self.in_bag_.shape[1]}"
             )
         if self._native:
-            return self._model.out_of_bag_predictions(X, self.in_bag_, self.threads)
+            return self._model.out_of_bag_predictions(X, self.in_bag_, self.n_jobs)
         shape = (self.in_bag_.shape[1],) + ((len(self.classes_),) if self._classification else ())
         out = np.full((len(self.members_),) + shape, np.nan)
         for m, member in enumerate(self.members_):
@@ -415,7 +415,7 @@ class _Bag(BaseEstimator):
         from .out_of_bag import out_of_bag
 
         members, target = self._training_members(X, y)
-        return out_of_bag(members, self.in_bag_, target, metric=metric, threads=self.threads)
+        return out_of_bag(members, self.in_bag_, target, metric=metric, n_jobs=self.n_jobs)
 
     def _count_gram(self, jackknife=False):
         """The `CountGram` of ``in_bag_``, built on first use and kept in ``count_gram_``."""
@@ -425,7 +425,7 @@ class _Bag(BaseEstimator):
         gram = self.__dict__.get("count_gram_")
         if gram is None or (jackknife and not gram._gram.has_jackknife):
             scheme = "subsample" if self.scheme == "subsample" else None
-            gram = CountGram(counts, scheme=scheme, jackknife=jackknife, threads=self.threads)
+            gram = CountGram(counts, scheme=scheme, jackknife=jackknife, n_jobs=self.n_jobs)
             self.count_gram_ = gram
         return gram
 
@@ -459,7 +459,7 @@ class _Bag(BaseEstimator):
         gram = self._count_gram(jackknife=method == "jackknife")
         members = self._one_value(self.member_predictions(X))
         return gram.prediction_variance(members, method=method, corrected=corrected,
-                                        threads=self.threads)
+                                        n_jobs=self.n_jobs)
 
     def spread(self, X):
         """Between/within split of the members' variance at ``X`` (`bagwise.spread`; the
@@ -470,7 +470,7 @@ class _Bag(BaseEstimator):
         Spread
         """
         gram = self._count_gram()
-        return gram.spread(self._one_value(self.member_predictions(X)), threads=self.threads)
+        return gram.spread(self._one_value(self.member_predictions(X)), n_jobs=self.n_jobs)
 
     def diagnose(self, X, y, reference=None, *, X_train=None, y_train=None):
         """The full `bagwise.diagnose` report on a test set.
@@ -507,7 +507,7 @@ class _Bag(BaseEstimator):
                 train_members, train_y = self._training_members(X_train, y_train)
         return _diagnose(members, target, counts=counts, reference=reference,
                          train_members=train_members, train_y=train_y, seed=0,
-                         threads=self.threads, members_are_training=False)
+                         n_jobs=self.n_jobs, members_are_training=False)
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""
@@ -552,9 +552,9 @@ _PARAMETERS_DOC = """
     seed : int or None
         Seed of the resampling (and of member randomness); ``None`` draws a fresh one,
         kept in ``seed_``.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores). Native results do not depend on it; wrapped
-        members run on joblib threads.
+        members run on joblib n_jobs.
     progress : bool or callable
         ``True`` shows a tqdm bar advancing per fitted member; a callable receives
         ``(done, total)``.
@@ -613,7 +613,7 @@ class RegressionBag(RegressorMixin, _Bag):
 
     def __init__(self, learner="tree", members=100, *, scheme="bootstrap", fraction=1.0,
                  max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
-                 seed=0, threads=None, progress=False, splitter="auto", use_sample_weight=False):
+                 seed=0, n_jobs=None, progress=False, splitter="auto", use_sample_weight=False):
         self.learner = learner
         self.members = members
         self.scheme = scheme
@@ -624,7 +624,7 @@ class RegressionBag(RegressorMixin, _Bag):
         self.neighbors = neighbors
         self.penalty = penalty
         self.seed = seed
-        self.threads = threads
+        self.n_jobs = n_jobs
         self.progress = progress
         self.splitter = splitter
         self.use_sample_weight = use_sample_weight
@@ -669,7 +669,7 @@ class ClassificationBag(ClassifierMixin, _Bag):
 
     def __init__(self, learner="tree", members=100, *, scheme="bootstrap", fraction=1.0,
                  max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
-                 seed=0, threads=None, progress=False, stratify=False, criterion="gini",
+                 seed=0, n_jobs=None, progress=False, stratify=False, criterion="gini",
                  splitter="auto", use_sample_weight=False):
         self.learner = learner
         self.members = members
@@ -681,7 +681,7 @@ class ClassificationBag(ClassifierMixin, _Bag):
         self.neighbors = neighbors
         self.penalty = penalty
         self.seed = seed
-        self.threads = threads
+        self.n_jobs = n_jobs
         self.progress = progress
         self.stratify = stratify
         self.criterion = criterion
@@ -717,7 +717,7 @@ class ClassificationBag(ClassifierMixin, _Bag):
 
         members = self.member_predictions(X)
         target = self._targets(y, members.shape[1])
-        return diversity(members, target, n_classes=len(self.classes_), threads=self.threads)
+        return diversity(members, target, n_classes=len(self.classes_), n_jobs=self.n_jobs)
 
     def predict_proba(self, X) -> np.ndarray:
         """Mean of the members' class probabilities, shape (n_points, n_classes)."""

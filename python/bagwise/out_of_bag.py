@@ -10,7 +10,7 @@ import numpy as np
 
 from . import _core
 from ._display import html_block, safe_html, text_block
-from ._validation import threads_value
+from ._validation import n_jobs_value
 
 __all__ = ["OutOfBag", "OutOfBagStream", "out_of_bag", "out_of_bag_stream"]
 
@@ -66,7 +66,7 @@ def _curve_sizes(curve_sizes, n_members):
     return sizes
 
 
-def _out_of_bag_iv(members, counts, y, metric, point_weights, threads, curve_sizes):
+def _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_sizes):
     """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core."""
     from .resampling import Resample
 
@@ -133,10 +133,10 @@ def _out_of_bag_iv(members, counts, y, metric, point_weights, threads, curve_siz
             raise TypeError(f"`point_weights`: expected numbers, got dtype {point_weights.dtype}")
         point_weights = np.ascontiguousarray(point_weights, dtype=np.float64)
     sizes = _curve_sizes(curve_sizes, n_members)
-    return members, counts, y, kind, n_classes, metric, point_weights, threads_value(threads), sizes
+    return members, counts, y, kind, n_classes, metric, point_weights, n_jobs_value(n_jobs), sizes
 
 
-def out_of_bag(members, counts, y, *, metric=None, point_weights=None, threads=None,
+def out_of_bag(members, counts, y, *, metric=None, point_weights=None, n_jobs=None,
                curve_sizes=None) -> OutOfBag:
     """Out-of-bag predictions and error of a bagged ensemble, and its error curve.
 
@@ -164,7 +164,7 @@ def out_of_bag(members, counts, y, *, metric=None, point_weights=None, threads=N
         classification. All of them are computed either way.
     point_weights : array-like, shape (n_points,), optional
         Non-negative weights of the points in the error means (default: all 1).
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
     curve_sizes : sequence of int, optional
         Ensemble sizes k at which the error of the first k members is evaluated (default:
@@ -199,14 +199,14 @@ def out_of_bag(members, counts, y, *, metric=None, point_weights=None, threads=N
     >>> oob.curve_sizes[:4].tolist(), int(oob.curve_sizes[-1])
     ([1, 2, 3, 4], 100)
     """
-    (members, counts, y, kind, n_classes, metric, point_weights, threads,
-     sizes) = _out_of_bag_iv(members, counts, y, metric, point_weights, threads, curve_sizes)
+    (members, counts, y, kind, n_classes, metric, point_weights, n_jobs,
+     sizes) = _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_sizes)
     state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
-        members, counts, y, point_weights, sizes, kind, n_classes, threads)
+        members, counts, y, point_weights, sizes, kind, n_classes, n_jobs)
     return OutOfBag._build(state, kind, metric, prediction, n_oob, probabilities)
 
 
-def out_of_bag_stream(*, metric=None, threads=None, curve_sizes=None) -> OutOfBagStream:
+def out_of_bag_stream(*, metric=None, n_jobs=None, curve_sizes=None) -> OutOfBagStream:
     """Out-of-bag evaluation over chunks of points that need not fit in memory together.
 
     Feed consecutive chunks of points (all members each time) with
@@ -234,16 +234,16 @@ def out_of_bag_stream(*, metric=None, threads=None, curve_sizes=None) -> OutOfBa
         raise ValueError(
             f"`metric`: expected one of {REGRESSION_METRICS + CLASSIFICATION_METRICS}, got {metric!r}"
         )
-    return OutOfBagStream(metric, threads_value(threads), curve_sizes)
+    return OutOfBagStream(metric, n_jobs_value(n_jobs), curve_sizes)
 
 
 class OutOfBagStream:
     """Accumulates an out-of-bag evaluation chunk of points by chunk (see
     :func:`out_of_bag_stream`)."""
 
-    def __init__(self, metric, threads, curve_sizes):
+    def __init__(self, metric, n_jobs, curve_sizes):
         self._metric = metric
-        self._threads = threads
+        self._n_jobs = n_jobs
         self._curve_sizes = curve_sizes
         self._kind = None
         self._state = None
@@ -256,9 +256,9 @@ class OutOfBagStream:
             kind = _members_kind(_array(members_chunk, "members_chunk"))
             if kind != self._kind:
                 raise ValueError(f"`members_chunk`: holds {kind} but earlier chunks held {self._kind}")
-        (members, counts, y, kind, n_classes, metric, point_weights, threads,
+        (members, counts, y, kind, n_classes, metric, point_weights, n_jobs,
          sizes) = _out_of_bag_iv(members_chunk, counts_chunk, y_chunk, self._metric,
-                                 point_weights_chunk, self._threads, self._curve_sizes)
+                                 point_weights_chunk, self._n_jobs, self._curve_sizes)
         if self._state is not None:
             if members.shape[0] != self._state.members:
                 raise ValueError(
@@ -271,7 +271,7 @@ class OutOfBagStream:
                     f"{self._parts[0][2].shape[1]}"
                 )
         state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
-                                             n_classes, threads)
+                                             n_classes, n_jobs)
         self._state = state if self._state is None else self._state.merge(state)
         self._kind, self._metric = kind, metric
         self._parts.append(part)

@@ -11,12 +11,12 @@ import numpy as np
 
 from . import _core
 from ._display import html_block, safe_html, text_block
-from ._validation import threads_value
+from ._validation import n_jobs_value
 
 __all__ = ["ReplicateSpread", "replicate_spread"]
 
 
-def _replicate_spread_iv(members, y, threads):
+def _replicate_spread_iv(members, y, n_jobs):
     if not isinstance(members, np.ndarray):
         members = np.asarray(members)
     if not members.dtype.isnative:   # e.g. big-endian data from a file: one converted copy
@@ -42,10 +42,10 @@ def _replicate_spread_iv(members, y, threads):
         if y.shape != (members.shape[2],):
             raise ValueError(f"`y`: expected shape ({members.shape[2]},) to match `members`, got {y.shape}")
         y = np.ascontiguousarray(y, dtype=np.float64)
-    return members, y, threads_value(threads)
+    return members, y, n_jobs_value(n_jobs)
 
 
-def replicate_spread(members, y=None, *, threads=None) -> ReplicateSpread:
+def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
     """How much of the members' variance averaging removes, from ensembles refitted on
     independent training sets.
 
@@ -82,7 +82,7 @@ def replicate_spread(members, y=None, *, threads=None) -> ReplicateSpread:
         fitted on training set ``r``. At least 2 replicates. Read without a copy.
     y : array-like, shape (n_points,), optional
         Targets, for the bias-variance-covariance split.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
 
     Returns
@@ -101,8 +101,8 @@ def replicate_spread(members, y=None, *, threads=None) -> ReplicateSpread:
     >>> spread.members_needed(0.1)    # (1 - rho) / (tolerance * rho) = 0.64 / 0.036
     18
     """
-    members, y, threads = _replicate_spread_iv(members, y, threads)
-    per_point, means = _core.replicate_spread_arrays(members, y, threads)
+    members, y, n_jobs = _replicate_spread_iv(members, y, n_jobs)
+    per_point, means = _core.replicate_spread_arrays(members, y, n_jobs)
     return ReplicateSpread(members.shape, per_point, means, y is not None)
 
 

@@ -10,7 +10,7 @@ import numpy as np
 from . import _core
 from ._display import html_block, safe_html, text_block
 from ._progress import ProgressArg, progress_callback
-from ._validation import label_codes, positive_int, seed_value, threads_value
+from ._validation import label_codes, positive_int, seed_value, n_jobs_value
 
 __all__ = ["Resample", "resample"]
 
@@ -18,7 +18,7 @@ SchemeName = Literal["bootstrap", "subsample", "bayesian"]
 _SCHEMES = ("bootstrap", "subsample", "bayesian")
 
 
-def _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length, seed, threads):
+def _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length, seed, n_jobs):
     n_rows = positive_int(n_rows, "n_rows")
     members = positive_int(members, "members")
     if scheme not in _SCHEMES:
@@ -40,7 +40,7 @@ def _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length
         if block_length > n_rows:
             raise ValueError(f"`block_length`: must be at most n_rows ({n_rows}), got {block_length}")
     return (n_rows, members, scheme, fraction, strata_codes, group_codes, block_length,
-            seed_value(seed), threads_value(threads))
+            seed_value(seed), n_jobs_value(n_jobs))
 
 
 def resample(
@@ -53,7 +53,7 @@ def resample(
     groups=None,
     block_length: int | None = None,
     seed: int | None = 0,
-    threads: int | None = None,
+    n_jobs: int | None = None,
     progress: ProgressArg = False,
 ) -> Resample:
     """Draw the training rows of every ensemble member.
@@ -83,9 +83,9 @@ def resample(
         consecutive rows, drawn with replacement until the draw size is reached.
     seed : int or None
         Seed of the member streams. Member ``m`` always uses stream ``m``, so results do not
-        depend on ``threads`` and the first members do not change when ``members`` grows.
+        depend on ``n_jobs`` and the first members do not change when ``members`` grows.
         ``None`` draws a fresh seed, kept in ``Resample.seed``.
-    threads : int, optional
+    n_jobs : int, optional
         Worker threads (default: all cores).
     progress : bool or callable
         ``True`` shows a tqdm bar; a callable receives ``(done, total)`` members.
@@ -106,8 +106,8 @@ def resample(
     0.37
     """
     (n_rows, members, scheme, fraction, strata_codes, group_codes, block_length, seed,
-     threads) = _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length,
-                             seed, threads)
+     n_jobs) = _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length,
+                             seed, n_jobs)
     plan = _core.Resampler(
         n_rows,
         scheme,
@@ -118,9 +118,9 @@ def resample(
     )
     with progress_callback(progress, "resampling") as callback:
         if scheme == "bayesian":
-            counts, weights = None, plan.bayesian_weights(seed, members, threads, callback)
+            counts, weights = None, plan.bayesian_weights(seed, members, n_jobs, callback)
         else:
-            counts, weights = plan.counts(seed, members, threads, callback), None
+            counts, weights = plan.counts(seed, members, n_jobs, callback), None
     if strata_codes is not None:
         design, labels = "strata", strata_codes
     elif group_codes is not None:

@@ -19,7 +19,7 @@ import numpy as np
 
 from . import _core
 from ._display import html_block, safe_html, text_block
-from ._validation import threads_value
+from ._validation import n_jobs_value
 
 __all__ = ["CountGram", "PredictionVariance", "Spread", "count_gram", "prediction_variance",
            "spread"]
@@ -81,10 +81,10 @@ class CountGram:
         in every member, ``s < n_train``, are a subsample; anything else a bootstrap.
     jackknife : bool
         Also build the out-of-bag Gram needed by ``method="jackknife"``.
-    threads : int, optional
+    n_jobs : int, optional
     """
 
-    def __init__(self, counts, *, scheme=None, jackknife=False, threads=None):
+    def __init__(self, counts, *, scheme=None, jackknife=False, n_jobs=None):
         counts = _counts_iv(counts)
         subsample_rows = None
         if scheme == "subsample":
@@ -94,7 +94,7 @@ class CountGram:
                                  "of rows in every member")
             subsample_rows = int(sums[0])
         self._gram = _core.CountGram(counts, scheme=scheme, subsample_rows=subsample_rows,
-                                     jackknife=jackknife, threads=threads_value(threads))
+                                     jackknife=jackknife, n_jobs=n_jobs_value(n_jobs))
 
     @classmethod
     def _wrap(cls, gram):
@@ -119,7 +119,7 @@ class CountGram:
         """G = N Nᵀ, shape (members, members)."""
         return self._gram.gram
 
-    def prediction_variance(self, members, *, method="ij", corrected=True, threads=None):
+    def prediction_variance(self, members, *, method="ij", corrected=True, n_jobs=None):
         """Variance of the ensemble mean at each point; see :func:`prediction_variance`."""
         if method not in ("ij", "jackknife"):
             raise ValueError(f"`method`: expected 'ij' or 'jackknife', got {method!r}")
@@ -127,17 +127,17 @@ class CountGram:
         if method == "jackknife" and not self._gram.has_jackknife:
             raise ValueError("`method`: this CountGram was built without jackknife=True")
         raw, correction, within, mean = self._gram.variance(members, method,
-                                                            threads_value(threads))
+                                                            n_jobs_value(n_jobs))
         return PredictionVariance._from_parts(
             method=method, corrected=corrected, raw=raw, correction=correction, mean=mean,
             within=within, members=self.members, n_train=self.n_train, scheme=self.scheme,
             rows_never_out_of_bag=(self._gram.rows_never_out_of_bag
                                    if method == "jackknife" else 0))
 
-    def spread(self, members, *, threads=None):
+    def spread(self, members, *, n_jobs=None):
         """Between/within split of the member variance; see :func:`spread`."""
         estimate = self.prediction_variance(members, method="ij", corrected=True,
-                                            threads=threads)
+                                            n_jobs=n_jobs)
         return Spread._from_estimate(estimate)
 
     def __reduce__(self):
@@ -152,7 +152,7 @@ def _restore_gram(data: bytes) -> CountGram:
     return CountGram._wrap(_core.CountGram.from_bytes(data))
 
 
-def count_gram(counts, *, scheme=None, jackknife=False, threads=None) -> CountGram:
+def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGram:
     """Build the :class:`CountGram` of ``counts`` once, for repeated use on new points.
 
     Examples
@@ -165,7 +165,7 @@ def count_gram(counts, *, scheme=None, jackknife=False, threads=None) -> CountGr
     >>> bool(np.all(np.diag(gram.gram) == (counts.astype(np.int64) ** 2).sum(axis=1)))
     True
     """
-    return CountGram(counts, scheme=scheme, jackknife=jackknife, threads=threads)
+    return CountGram(counts, scheme=scheme, jackknife=jackknife, n_jobs=n_jobs)
 
 
 class PredictionVariance:
@@ -272,7 +272,7 @@ class PredictionVariance:
 
 
 def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=None,
-                        threads=None) -> PredictionVariance:
+                        n_jobs=None) -> PredictionVariance:
     """Variance of the bagged prediction at every point, from one fitted ensemble.
 
     Parameters
@@ -293,7 +293,7 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
         s(n−s)/(n B²) Σ_b (t_b − t̄)² times that scale (derived in the Rust docs).
     scheme : {"bootstrap", "subsample"} or None
         None detects the scheme from the counts.
-    threads : int, optional
+    n_jobs : int, optional
 
     Returns
     -------
@@ -311,8 +311,8 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
     >>> bool(abs(result.variance[0] / ideal - 1) < 0.1)
     True
     """
-    gram = CountGram(counts, scheme=scheme, jackknife=(method == "jackknife"), threads=threads)
-    return gram.prediction_variance(members, method=method, corrected=corrected, threads=threads)
+    gram = CountGram(counts, scheme=scheme, jackknife=(method == "jackknife"), n_jobs=n_jobs)
+    return gram.prediction_variance(members, method=method, corrected=corrected, n_jobs=n_jobs)
 
 
 class Spread:
@@ -393,10 +393,10 @@ class Spread:
                              "within": self.within, "total": self.total, "rho": self.rho})
 
 
-def spread(members, counts, *, scheme=None, threads=None) -> Spread:
+def spread(members, counts, *, scheme=None, n_jobs=None) -> Spread:
     """Split each point's member variance into between (training data) and within parts.
 
     See :class:`Spread`. ``members`` (members, n_points) and ``counts`` (members, n_train)
     as in :func:`prediction_variance`.
     """
-    return CountGram(counts, scheme=scheme, threads=threads).spread(members, threads=threads)
+    return CountGram(counts, scheme=scheme, n_jobs=n_jobs).spread(members, n_jobs=n_jobs)

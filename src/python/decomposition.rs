@@ -49,12 +49,12 @@ fn member_weights(
 /// Weighted mean of `(members, n_points)` values, or soft vote of `(members, n_points,
 /// n_classes)` probabilities.
 #[pyfunction]
-#[pyo3(signature = (members, weights=None, threads=None))]
+#[pyo3(signature = (members, weights=None, n_jobs=None))]
 fn mean_prediction(
     py: Python<'_>,
     members: &Bound<'_, PyAny>,
     weights: Option<PyReadonlyArray1<'_, f64>>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
 ) -> PyResult<Py<PyAny>> {
     let ndim = members.getattr("ndim")?.extract::<usize>().unwrap_or(0);
     macro_rules! run {
@@ -65,7 +65,7 @@ fn mean_prediction(
             let out = zeros::<f64>(py, [n, c])?;
             // SAFETY: the array was just created here and is not shared with Python yet.
             let slice = unsafe { out.as_slice_mut() }.expect("a new array is contiguous");
-            run_core(py, threads, None, |pool, monitor| {
+            run_core(py, n_jobs, None, |pool, monitor| {
                 core::mean_cells(view, $probabilities, &w, slice, pool, monitor)
             })?;
             Ok(if $probabilities {
@@ -89,13 +89,13 @@ fn mean_prediction(
 
 /// Majority vote (lowest class index wins ties) and vote fractions of integer labels.
 #[pyfunction]
-#[pyo3(signature = (members, n_classes, weights=None, threads=None))]
+#[pyo3(signature = (members, n_classes, weights=None, n_jobs=None))]
 fn majority_vote<'py>(
     py: Python<'py>,
     members: PyReadonlyArray2<'py, i64>,
     n_classes: usize,
     weights: Option<PyReadonlyArray1<'py, f64>>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
 ) -> PyResult<(Py<PyAny>, Py<PyAny>)> {
     let view = members.as_array();
     let (m, n) = view.dim();
@@ -105,7 +105,7 @@ fn majority_vote<'py>(
     // SAFETY: both arrays were just created here and are not shared with Python yet.
     let (l, f) = unsafe { (labels.as_slice_mut(), fractions.as_slice_mut()) };
     let (l, f) = (l.expect("contiguous"), f.expect("contiguous"));
-    run_core(py, threads, None, |pool, monitor| {
+    run_core(py, n_jobs, None, |pool, monitor| {
         core::majority_vote(view, n_classes, &w, l, f, pool, monitor)
     })?;
     Ok((labels.into_any().unbind(), fractions.into_any().unbind()))
@@ -140,14 +140,14 @@ impl PyDecompositionAccumulator {
     }
 
     /// Adds a chunk; returns its per-point (ensemble, member, gain) losses.
-    #[pyo3(signature = (members, y, n_classes=None, threads=None))]
+    #[pyo3(signature = (members, y, n_classes=None, n_jobs=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
         members: &Bound<'py, PyAny>,
         y: &Bound<'py, PyAny>,
         n_classes: Option<usize>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
         let loss = self.inner.lock().expect("state lock").loss();
         let n_points = match members.getattr("shape")?.extract::<Vec<usize>>()?.get(1) {
@@ -174,7 +174,7 @@ impl PyDecompositionAccumulator {
                 let y = y.extract::<PyReadonlyArray1<'py, f64>>()?;
                 let y = y.as_array();
                 with_view!(FloatArray::<Ix2>::extract(members, "members")?, |v| {
-                    run_core(py, threads, None, |pool, mon| {
+                    run_core(py, n_jobs, None, |pool, mon| {
                         state
                             .lock()
                             .expect("state lock")
@@ -186,7 +186,7 @@ impl PyDecompositionAccumulator {
                 let y = y.extract::<PyReadonlyArray1<'py, i64>>()?;
                 let y = y.as_array();
                 with_view!(FloatArray::<Ix3>::extract(members, "members")?, |v| {
-                    run_core(py, threads, None, |pool, mon| {
+                    run_core(py, n_jobs, None, |pool, mon| {
                         state
                             .lock()
                             .expect("state lock")
@@ -199,7 +199,7 @@ impl PyDecompositionAccumulator {
                 let members = members.extract::<PyReadonlyArray2<'py, i64>>()?;
                 let (view, y) = (members.as_array(), y.as_array());
                 let k = n_classes.unwrap_or_else(|| core::classes_in(view, Some(y)));
-                run_core(py, threads, None, |pool, mon| {
+                run_core(py, n_jobs, None, |pool, mon| {
                     state
                         .lock()
                         .expect("state lock")
@@ -269,20 +269,20 @@ impl PySizeCurveAccumulator {
     }
 
     /// Adds a chunk of points.
-    #[pyo3(signature = (members, y, n_classes=None, threads=None))]
+    #[pyo3(signature = (members, y, n_classes=None, n_jobs=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
         members: &Bound<'py, PyAny>,
         y: &Bound<'py, PyAny>,
         n_classes: Option<usize>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<()> {
         let state = &self.inner;
         if let Ok(y) = y.extract::<PyReadonlyArray1<'py, f64>>() {
             let y = y.as_array();
             return with_view!(FloatArray::<Ix2>::extract(members, "members")?, |v| {
-                run_core(py, threads, None, |pool, mon| {
+                run_core(py, n_jobs, None, |pool, mon| {
                     state
                         .lock()
                         .expect("state lock")
@@ -295,7 +295,7 @@ impl PySizeCurveAccumulator {
         if let Ok(labels) = members.extract::<PyReadonlyArray2<'py, i64>>() {
             let view = labels.as_array();
             let k = n_classes.unwrap_or_else(|| core::classes_in(view, Some(y)));
-            return run_core(py, threads, None, |pool, mon| {
+            return run_core(py, n_jobs, None, |pool, mon| {
                 state
                     .lock()
                     .expect("state lock")
@@ -303,7 +303,7 @@ impl PySizeCurveAccumulator {
             });
         }
         with_view!(FloatArray::<Ix3>::extract(members, "members")?, |v| {
-            run_core(py, threads, None, |pool, mon| {
+            run_core(py, n_jobs, None, |pool, mon| {
                 state
                     .lock()
                     .expect("state lock")
@@ -344,16 +344,16 @@ impl PySizeCurveAccumulator {
 
 /// Residual variances and mean pairwise covariance / correlation without the M × M matrix.
 #[pyfunction]
-#[pyo3(signature = (members, y, threads=None))]
+#[pyo3(signature = (members, y, n_jobs=None))]
 fn residual_correlation<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: PyReadonlyArray1<'py, f64>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
 ) -> PyResult<Bound<'py, PyDict>> {
     let y = y.as_array();
     let result = with_view!(FloatArray::<Ix2>::extract(members, "members")?, |v| {
-        run_core(py, threads, None, |pool, mon| {
+        run_core(py, n_jobs, None, |pool, mon| {
             core::residual_correlation(v, y, pool, mon)
         })
     })?;
@@ -371,12 +371,12 @@ fn residual_correlation<'py>(
 
 /// The full (members, members) residual correlation matrix.
 #[pyfunction]
-#[pyo3(signature = (members, y, threads=None))]
+#[pyo3(signature = (members, y, n_jobs=None))]
 fn correlation_matrix<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: PyReadonlyArray1<'py, f64>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
 ) -> PyResult<Py<PyAny>> {
     let y = y.as_array();
     let m = members
@@ -389,7 +389,7 @@ fn correlation_matrix<'py>(
     // SAFETY: the array was just created here and is not shared with Python yet.
     let slice = unsafe { out.as_slice_mut() }.expect("a new array is contiguous");
     with_view!(FloatArray::<Ix2>::extract(members, "members")?, |v| {
-        run_core(py, threads, None, |pool, mon| {
+        run_core(py, n_jobs, None, |pool, mon| {
             core::correlation_matrix(v, y, slice, pool, mon)
         })
     })?;

@@ -56,7 +56,7 @@ pub struct PyLinearEnsemble {
 #[pymethods]
 impl PyLinearEnsemble {
     #[staticmethod]
-    #[pyo3(signature = (x, y, counts, *, task="regression", n_classes=0, penalty=0.0, threads=None, progress=None))]
+    #[pyo3(signature = (x, y, counts, *, task="regression", n_classes=0, penalty=0.0, n_jobs=None, progress=None))]
     #[allow(clippy::too_many_arguments)]
     fn fit(
         py: Python<'_>,
@@ -66,7 +66,7 @@ impl PyLinearEnsemble {
         task: &str,
         n_classes: usize,
         penalty: f64,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
         if task != "regression" || n_classes != 0 {
@@ -79,13 +79,13 @@ impl PyLinearEnsemble {
         let inner = match &x {
             FloatArray::F32(a) => {
                 let (a, b) = (a.as_array(), read_bags(counts, a.as_array().nrows())?);
-                run_core(py, threads, progress, |pool, monitor| {
+                run_core(py, n_jobs, progress, |pool, monitor| {
                     LinearEnsemble::fit(a, y, &b, penalty, pool, monitor)
                 })
             }
             FloatArray::F64(a) => {
                 let (a, b) = (a.as_array(), read_bags(counts, a.as_array().nrows())?);
-                run_core(py, threads, progress, |pool, monitor| {
+                run_core(py, n_jobs, progress, |pool, monitor| {
                     LinearEnsemble::fit(a, y, &b, penalty, pool, monitor)
                 })
             }
@@ -94,33 +94,33 @@ impl PyLinearEnsemble {
     }
 
     /// (members, n_points) float64.
-    #[pyo3(signature = (x, threads=None))]
+    #[pyo3(signature = (x, n_jobs=None))]
     fn member_predictions(
         &self,
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let n = rows_of(&x);
         let array = zeros::<f64>(py, [self.inner.members(), n])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        with_float!(x, |a| run_core(py, threads, None, |pool, _| {
+        with_float!(x, |a| run_core(py, n_jobs, None, |pool, _| {
             self.inner.member_predictions_into(a, out, pool)
         }))?;
         Ok(array.into_any().unbind())
     }
 
     /// The ensemble mean, (n_points,) float64.
-    #[pyo3(signature = (x, threads=None))]
+    #[pyo3(signature = (x, n_jobs=None))]
     fn predict(
         &self,
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
-        let all = self.member_predictions(py, x, threads)?;
+        let all = self.member_predictions(py, x, n_jobs)?;
         let all = all.bind(py).extract::<PyReadonlyArray2<'_, f64>>()?;
         let mean = all
             .as_array()
@@ -130,13 +130,13 @@ impl PyLinearEnsemble {
     }
 
     /// (members, n_rows) float64, NaN where the member saw the row.
-    #[pyo3(signature = (x, counts, threads=None))]
+    #[pyo3(signature = (x, counts, n_jobs=None))]
     fn out_of_bag_predictions(
         &self,
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
         counts: &Bound<'_, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let n = rows_of(&x);
@@ -144,7 +144,7 @@ impl PyLinearEnsemble {
         let array = zeros::<f64>(py, [self.inner.members(), n])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        with_float!(x, |a| run_core(py, threads, None, |pool, _| {
+        with_float!(x, |a| run_core(py, n_jobs, None, |pool, _| {
             self.inner.out_of_bag_into(a, &b, out, pool)
         }))?;
         Ok(array.into_any().unbind())

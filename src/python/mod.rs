@@ -98,15 +98,15 @@ impl Monitor for PythonMonitor {
     }
 }
 
-/// Runs `work` with the GIL released on a pool of `threads`, reporting progress to
+/// Runs `work` with the GIL released on a pool of `n_jobs`, reporting progress to
 /// `progress`; maps core errors and panics to Python exceptions.
 pub(crate) fn run_core<T: Send>(
     py: Python<'_>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
     progress: Option<Py<PyAny>>,
     work: impl FnOnce(&Pool, &dyn Monitor) -> crate::Result<T> + Send,
 ) -> PyResult<T> {
-    let pool = Threads::from_option(threads)
+    let pool = Threads::from_option(n_jobs)
         .and_then(Threads::pool)
         .map_err(to_py_err)?;
     let monitor = PythonMonitor {

@@ -28,7 +28,7 @@ impl PyNeighborsEnsemble {
 #[pymethods]
 impl PyNeighborsEnsemble {
     #[staticmethod]
-    #[pyo3(signature = (x, y, counts, *, task, n_classes=0, neighbors=5, threads=None, progress=None))]
+    #[pyo3(signature = (x, y, counts, *, task, n_classes=0, neighbors=5, n_jobs=None, progress=None))]
     #[allow(clippy::too_many_arguments)]
     fn fit(
         py: Python<'_>,
@@ -38,14 +38,14 @@ impl PyNeighborsEnsemble {
         task: &str,
         n_classes: usize,
         neighbors: usize,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
         let task = Task::parse(task, n_classes).map_err(to_py_err)?;
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let bags = read_bags(counts, rows_of(&x))?;
         let y = y.as_array();
-        let inner = with_float!(x, |a| run_core(py, threads, progress, |_, monitor| {
+        let inner = with_float!(x, |a| run_core(py, n_jobs, progress, |_, monitor| {
             NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor)
         }))?;
         Ok(PyNeighborsEnsemble { inner })
@@ -53,32 +53,32 @@ impl PyNeighborsEnsemble {
 
     /// (members, n_points) for regression, (members, n_points, n_classes) for
     /// classification, float64.
-    #[pyo3(signature = (x, threads=None))]
+    #[pyo3(signature = (x, n_jobs=None))]
     fn member_predictions(
         &self,
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let array = zeros_nd::<f64>(py, self.shape(rows_of(&x)))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        with_float!(x, |a| run_core(py, threads, None, |pool, monitor| {
+        with_float!(x, |a| run_core(py, n_jobs, None, |pool, monitor| {
             self.inner.member_predictions_into(a, out, pool, monitor)
         }))?;
         Ok(array.into_any().unbind())
     }
 
     /// The ensemble mean over members: (n_points,) or (n_points, n_classes).
-    #[pyo3(signature = (x, threads=None))]
+    #[pyo3(signature = (x, n_jobs=None))]
     fn predict(
         &self,
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
-        let all = self.member_predictions(py, x, threads)?;
+        let all = self.member_predictions(py, x, n_jobs)?;
         let all = all.bind(py).extract::<PyReadonlyArrayDyn<'_, f64>>()?;
         let mean = all
             .as_array()
@@ -89,13 +89,13 @@ impl PyNeighborsEnsemble {
 
     /// Shaped as `member_predictions` on the training rows, NaN where the member saw the
     /// row; only out-of-bag rows are computed.
-    #[pyo3(signature = (x, counts, threads=None))]
+    #[pyo3(signature = (x, counts, n_jobs=None))]
     fn out_of_bag_predictions(
         &self,
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
         counts: &Bound<'_, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let n = rows_of(&x);
@@ -103,7 +103,7 @@ impl PyNeighborsEnsemble {
         let array = zeros_nd::<f64>(py, self.shape(n))?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        with_float!(x, |a| run_core(py, threads, None, |pool, monitor| {
+        with_float!(x, |a| run_core(py, n_jobs, None, |pool, monitor| {
             self.inner.out_of_bag_into(a, &bags, out, pool, monitor)
         }))?;
         Ok(array.into_any().unbind())

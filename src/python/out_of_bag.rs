@@ -139,7 +139,7 @@ impl PyOutOfBagState {
 ///
 /// `kind` is "regression", "labels" (needs `n_classes`) or "probabilities".
 #[pyfunction]
-#[pyo3(signature = (members, counts, y, weights, sizes, kind, n_classes=None, threads=None))]
+#[pyo3(signature = (members, counts, y, weights, sizes, kind, n_classes=None, n_jobs=None))]
 #[allow(clippy::too_many_arguments)]
 fn out_of_bag_chunk<'py>(
     py: Python<'py>,
@@ -150,7 +150,7 @@ fn out_of_bag_chunk<'py>(
     sizes: Vec<usize>,
     kind: &str,
     n_classes: Option<usize>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
 ) -> PyResult<(PyOutOfBagState, ChunkArrays)> {
     let counts = IntArray::<Ix2>::extract(counts, "counts")?;
     let counts: Box<dyn InBagCounts + '_> = int_array!(&counts, a => Box::new(a.as_array()));
@@ -206,7 +206,7 @@ fn out_of_bag_chunk<'py>(
     };
     let (y, weights) = (y.as_array(), weights.as_ref().map(|w| w.as_array()));
     let (predictions, counts) = (&*predictions, &*counts);
-    let state = run_core(py, threads, None, |pool, monitor| {
+    let state = run_core(py, n_jobs, None, |pool, monitor| {
         let out = PointOutputs {
             prediction: prediction_out,
             n_out_of_bag: n_oob_out,

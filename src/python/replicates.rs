@@ -11,12 +11,12 @@ use crate::replicates::{replicate_spread, SplitOutputs, SpreadOutputs};
 
 /// Per-point arrays and means over points of the replicate spread (see the core module).
 #[pyfunction]
-#[pyo3(signature = (members, y=None, threads=None))]
+#[pyo3(signature = (members, y=None, n_jobs=None))]
 fn replicate_spread_arrays<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: Option<PyReadonlyArray1<'py, f64>>,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
 ) -> PyResult<(Bound<'py, PyDict>, Bound<'py, PyDict>)> {
     let members = FloatArray::<Ix3>::extract(members, "members")?;
     let n = match &members {
@@ -54,13 +54,13 @@ fn replicate_spread_arrays<'py>(
     let summary = match &members {
         FloatArray::F32(a) => {
             let view = a.as_array();
-            run_core(py, threads, None, |pool, monitor| {
+            run_core(py, n_jobs, None, |pool, monitor| {
                 replicate_spread(view, y_view, out, pool, monitor)
             })
         }
         FloatArray::F64(a) => {
             let view = a.as_array();
-            run_core(py, threads, None, |pool, monitor| {
+            run_core(py, n_jobs, None, |pool, monitor| {
                 replicate_spread(view, y_view, out, pool, monitor)
             })
         }

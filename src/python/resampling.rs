@@ -81,13 +81,13 @@ impl PyResampler {
         self.inner.max_possible_count()
     }
 
-    #[pyo3(signature = (seed, members, threads=None, progress=None))]
+    #[pyo3(signature = (seed, members, n_jobs=None, progress=None))]
     fn counts(
         &self,
         py: Python<'_>,
         seed: u64,
         members: i64,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Py<PyAny>> {
         let n_rows = self.inner.n_rows();
@@ -101,7 +101,7 @@ impl PyResampler {
                 let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
                 run_core(
                     py,
-                    threads,
+                    n_jobs,
                     progress.as_ref().map(|p| p.clone_ref(py)),
                     |pool, monitor| self.inner.fill_counts(seed, out, pool, monitor),
                 )
@@ -123,35 +123,35 @@ impl PyResampler {
         outcome
     }
 
-    #[pyo3(signature = (seed, members, threads=None, progress=None))]
+    #[pyo3(signature = (seed, members, n_jobs=None, progress=None))]
     fn bayesian_weights(
         &self,
         py: Python<'_>,
         seed: u64,
         members: i64,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Py<PyAny>> {
         let members = positive(members, "members")?;
         let array = zeros::<f64>(py, [members, self.inner.n_rows()])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, progress, |pool, monitor| {
+        run_core(py, n_jobs, progress, |pool, monitor| {
             self.inner.fill_bayesian_weights(seed, out, pool, monitor)
         })?;
         Ok(array.into_any().unbind())
     }
 
-    #[pyo3(signature = (seed, members, threads=None))]
+    #[pyo3(signature = (seed, members, n_jobs=None))]
     fn block_starts(
         &self,
         py: Python<'_>,
         seed: u64,
         members: i64,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         let members = positive(members, "members")?;
-        let starts = run_core(py, threads, None, |pool, _| {
+        let starts = run_core(py, n_jobs, None, |pool, _| {
             self.inner.block_starts(seed, members, pool)
         })?;
         Ok(starts.into_pyarray(py).into_any().unbind())

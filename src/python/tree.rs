@@ -56,14 +56,14 @@ impl PyTreeEnsemble {
         &self,
         py: Python<'py>,
         n_points: usize,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         fill: impl FnOnce(&mut [f64], &crate::parallel::Pool) -> crate::Result<()> + Send,
     ) -> PyResult<Bound<'py, PyAny>> {
         let (members, width) = (self.inner.members(), self.inner.width());
         let array = zeros::<f64>(py, [members, n_points * width])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        run_core(py, threads, None, |pool, _| fill(out, pool))?;
+        run_core(py, n_jobs, None, |pool, _| fill(out, pool))?;
         match self.inner.task() {
             Task::Regression => Ok(array.into_any()),
             Task::Classification { .. } => {
@@ -88,7 +88,7 @@ impl PyTreeEnsemble {
     #[staticmethod]
     #[pyo3(signature = (x, y, counts, *, task, n_classes=None, max_depth=None, min_leaf=1,
         split_features=None, criterion=None, splitter="auto", seed=0, members=None,
-        threads=None, progress=None))]
+        n_jobs=None, progress=None))]
     #[allow(clippy::too_many_arguments)]
     fn fit(
         py: Python<'_>,
@@ -104,7 +104,7 @@ impl PyTreeEnsemble {
         splitter: &str,
         seed: u64,
         members: Option<i64>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
         let task = match (task, n_classes) {
@@ -153,13 +153,13 @@ impl PyTreeEnsemble {
                 let in_bag: InBag<'_, u8> = InBag::AllRows {
                     members: positive(m, "members")?,
                 };
-                with_float!(x, |xv| run_core(py, threads, progress, |pool, monitor| {
+                with_float!(x, |xv| run_core(py, n_jobs, progress, |pool, monitor| {
                     config.fit(xv, y.view(), in_bag, pool, monitor)
                 }))?
             }
             (Some(counts), None) => with_counts!(counts, |c| with_float!(x, |xv| run_core(
                 py,
-                threads,
+                n_jobs,
                 progress,
                 |pool, monitor| config.fit(xv, y.view(), InBag::Counts(c), pool, monitor)
             )))?,
@@ -179,29 +179,29 @@ impl PyTreeEnsemble {
 
     /// Every member's predictions: (members, points) for regression, (members, points,
     /// n_classes) probabilities for classification.
-    #[pyo3(signature = (x, threads=None))]
+    #[pyo3(signature = (x, n_jobs=None))]
     fn member_predictions<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Bound<'py, PyAny>> {
         let x = FloatArray::<Ix2>::extract(x, "x")?;
         let n = with_float!(x, |xv| xv.nrows());
-        with_float!(x, |xv| self.member_array(py, n, threads, |out, pool| {
+        with_float!(x, |xv| self.member_array(py, n, n_jobs, |out, pool| {
             self.inner.member_predictions_into(xv, out, pool)
         }))
     }
 
     /// Member predictions on the training rows `x` only where the member did not see the
     /// row (`counts[m, i] == 0`), NaN elsewhere; same shape as `member_predictions`.
-    #[pyo3(signature = (x, counts, threads=None))]
+    #[pyo3(signature = (x, counts, n_jobs=None))]
     fn out_of_bag_predictions<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         counts: &Bound<'py, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Bound<'py, PyAny>> {
         let x = FloatArray::<Ix2>::extract(x, "x")?;
         let counts = CountArray::extract(counts)?;
@@ -209,18 +209,18 @@ impl PyTreeEnsemble {
         with_counts!(counts, |c| with_float!(x, |xv| self.member_array(
             py,
             n,
-            threads,
+            n_jobs,
             |out, pool| self.inner.out_of_bag_predictions_into(xv, c, out, pool)
         )))
     }
 
     /// The mean over members: (points,) values or (points, n_classes) probabilities.
-    #[pyo3(signature = (x, threads=None))]
+    #[pyo3(signature = (x, n_jobs=None))]
     fn predict<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<Bound<'py, PyAny>> {
         let x = FloatArray::<Ix2>::extract(x, "x")?;
         let n = with_float!(x, |xv| xv.nrows());
@@ -228,7 +228,7 @@ impl PyTreeEnsemble {
         let array = zeros::<f64>(py, [n, width])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-        with_float!(x, |xv| run_core(py, threads, None, |pool, _| {
+        with_float!(x, |xv| run_core(py, n_jobs, None, |pool, _| {
             self.inner.predict_into(xv, out, pool)
         }))?;
         match self.inner.task() {

@@ -27,10 +27,10 @@ fn gram_new<C: GramCount>(
     counts: numpy::ndarray::ArrayView2<'_, C>,
     kind: Option<DrawKind>,
     jackknife: bool,
-    threads: Option<usize>,
+    n_jobs: Option<usize>,
     progress: Option<Py<PyAny>>,
 ) -> PyResult<CountGram> {
-    run_core(py, threads, progress, |pool, monitor| {
+    run_core(py, n_jobs, progress, |pool, monitor| {
         let mut gram = CountGram::new(counts, kind, pool, monitor)?;
         if jackknife {
             gram.add_out_of_bag_gram(counts, pool, monitor)?;
@@ -48,45 +48,45 @@ pub struct PyCountGram {
 #[pymethods]
 impl PyCountGram {
     #[new]
-    #[pyo3(signature = (counts, *, scheme=None, subsample_rows=None, jackknife=false, threads=None, progress=None))]
+    #[pyo3(signature = (counts, *, scheme=None, subsample_rows=None, jackknife=false, n_jobs=None, progress=None))]
     fn new(
         py: Python<'_>,
         counts: &Bound<'_, PyAny>,
         scheme: Option<&str>,
         subsample_rows: Option<usize>,
         jackknife: bool,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
         let kind = parse_kind(scheme, subsample_rows)?;
         let counts = CountArray::extract(counts)?;
         let inner = with_counts!(counts, |view| gram_new(
-            py, view, kind, jackknife, threads, progress
+            py, view, kind, jackknife, n_jobs, progress
         ))?;
         Ok(PyCountGram { inner })
     }
 
     /// (raw, correction, within, mean) per point for `members` (members, n_points).
-    #[pyo3(signature = (members, method, threads=None))]
+    #[pyo3(signature = (members, method, n_jobs=None))]
     #[allow(clippy::type_complexity)]
     fn variance(
         &self,
         py: Python<'_>,
         members: &Bound<'_, PyAny>,
         method: &str,
-        threads: Option<usize>,
+        n_jobs: Option<usize>,
     ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
         let method = Method::parse(method).map_err(to_py_err)?;
         let estimate = match FloatArray::<numpy::Ix2>::extract(members, "members")? {
             FloatArray::F32(a) => {
                 let view = a.as_array();
-                run_core(py, threads, None, |pool, _| {
+                run_core(py, n_jobs, None, |pool, _| {
                     self.inner.variance(view, method, pool)
                 })?
             }
             FloatArray::F64(a) => {
                 let view = a.as_array();
-                run_core(py, threads, None, |pool, _| {
+                run_core(py, n_jobs, None, |pool, _| {
                     self.inner.variance(view, method, pool)
                 })?
             }

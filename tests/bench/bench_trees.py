@@ -55,10 +55,10 @@ else:
     counts = bagwise.resample(n, members, seed=0).counts
     if task == "regression":
         model = TreeEnsemble.fit(xtr, ytr, counts, task="regression", splitter=splitter,
-                                 seed=0, threads=2)
+                                 seed=0, n_jobs=2)
     else:
         model = TreeEnsemble.fit(xtr, ytr.astype(np.int64), counts, task="classification",
-                                 n_classes=2, splitter=splitter, seed=0, threads=2)
+                                 n_classes=2, splitter=splitter, seed=0, n_jobs=2)
 fit_seconds = time.perf_counter() - start
 
 if which == "sklearn":
@@ -67,7 +67,7 @@ if which == "sklearn":
     else:
         predict = lambda: np.array([t.predict_proba(xte) for t in model.estimators_])
 else:
-    predict = lambda: model.member_predictions(xte, threads=2)
+    predict = lambda: model.member_predictions(xte, n_jobs=2)
 # The first call, and the best of three more, each after the previous result is released:
 # a shared machine slows single calls by up to 3x, and on a virtual machine the first touch
 # of memory the process has never used (here the (members, points, classes) result) can
