@@ -162,7 +162,7 @@ def _figures(diagnosis, unit) -> dict[str, list[str]]:
                     "coverage of the 90% intervals by bin of standard error")]
     v = getattr(diagnosis, "diversity", None)
     if v is not None and v.members <= HEATMAP_MEMBERS:
-        figures["diversity"] = [_figure(lambda ax: plots.kappa_error(v, ax=ax),
+        figures["diversity"] = [_figure(lambda ax: plots.plot_kappa_error(v, ax=ax),
                                         "kappa-error diagram: one point per pair of members; "
                                         "high kappa means the pair is redundant")]
     s = diagnosis.spread
