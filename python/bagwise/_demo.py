@@ -123,7 +123,7 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
         loss_rows.append([name, f"{d.ensemble_loss:.4f}", f"{d.member_loss:.4f}",
                           f"{d.ambiguity:.4f}", f"{d.relative_gain:.1%}",
                           f"{report.reference_loss:.4f}", f"{report.reference_ratio:.3f}",
-                          f"{c.infinite_loss:.4f}", str(report.members_needed),
+                          f"{c.infinite_loss:.4f}", str(report.members_needed()["size_curve"]),
                           f"{o.error:.4f}", f"{seconds:.1f}"])
         spread_rows.append([name, f"{np.median(u.std_error):.4f}", f"{share:.0%}",
                             f"{u.n_clipped:,}", f"{s.mean_between:.4f}", f"{s.mean_within:.4f}",
