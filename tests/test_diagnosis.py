@@ -67,6 +67,9 @@ def test_every_number_equals_the_standalone_result():
         float(np.nanmedian(u.correction_share)), rel=1e-15)
     assert summary["spread"]["members_needed"] == s.members_needed(0.01)
     assert summary["size_curve"]["members_needed"] == c.members_needed(0.01)
+    assert summary["size_curve"]["mean_within"] == c.spread           # the law's W
+    assert summary["size_curve"]["ensemble_loss"] == c.full_loss == d.ensemble_loss
+    assert summary["size_curve"]["loss_one_member"] == c.curve[0]
     # test points differ from the training rows: no out-of-bag part
     assert report.out_of_bag is None and "out_of_bag" not in summary
 

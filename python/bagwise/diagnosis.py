@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import dataclasses
 import html
+import textwrap
 from typing import Any
 
 import numpy as np
@@ -270,7 +271,9 @@ def _with_section_fields(cls):
     for section in SECTIONS:
         annotations[section.key] = "Any"
         setattr(cls, section.key, None)
-        docs.append(f"    {section.key} : result or None\n        {section.doc}\n")
+        text = textwrap.fill(section.doc, width=80, initial_indent=" " * 8,
+                             subsequent_indent=" " * 8)
+        docs.append(f"    {section.key} : {section.result_type} or None\n{text}\n")
     annotations["_inputs"] = "Inputs | None"
     cls._inputs = dataclasses.field(default=None, repr=False)
     cls.__annotations__ = annotations

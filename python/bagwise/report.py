@@ -66,8 +66,9 @@ def format_number(value) -> str:
 
 
 def summary_rows(summary: dict) -> list[tuple[str, str, str]]:
-    """``(section, quantity, value)`` rows of `Diagnosis.summary`, values formatted."""
-    return [(section.replace("_", " "), quantity.replace("_", " "), format_number(value))
+    """``(section, quantity, value)`` rows of `Diagnosis.summary`, values formatted; the
+    keys as they are (glossary names, the same as in the JSON summary)."""
+    return [(section, quantity, format_number(value))
             for section, numbers in summary.items() for quantity, value in numbers.items()]
 
 
@@ -75,7 +76,7 @@ def _summary_table(summary: dict) -> str:
     rows, last = [], None
     for section, quantity, value in summary_rows(summary):
         first = section != last
-        label = html.escape(section.replace("_", " ")) if first else ""
+        label = html.escape(section) if first else ""
         rows.append(f"<tr class='{'first' if first else 'rest'}'><th>{label}</th>"
                     f"<td>{html.escape(quantity)}</td><td class='value'>{html.escape(value)}</td></tr>")
         last = section

@@ -66,14 +66,15 @@ class Section:
     """One family's part of a `Diagnosis`.
 
     A subclass sets ``key`` (the `Diagnosis` attribute and `Diagnosis.summary` key),
-    ``title`` (the heading of its block) and ``doc`` (its entry in the `Diagnosis`
-    Attributes), and overrides `compute` and whichever of the other hooks apply. Each hook
+    ``title`` (the heading of its block), ``result_type`` and ``doc`` (its entry in the
+    `Diagnosis` Attributes), and overrides `compute` and whichever of the other hooks apply. Each hook
     gets the section's own result and the whole diagnosis (to read the inputs or another
     section's result object, never that object's attributes).
     """
 
     key: str = ""
     title: str = ""
+    result_type: str = "Result"
     doc: str = ""
 
     def compute(self, inputs: Inputs, done: Mapping[str, Any]):

@@ -13,6 +13,7 @@ HEATMAP_MEMBERS = 300
 class CorrelationSection(Section):
     key = "correlation"
     title = "Residual correlation"
+    result_type = "Correlation"
     doc = ("`correlation` of the residuals (values; last-class probabilities); None for "
            "labels.")
 

@@ -8,6 +8,7 @@ from ._base import Figure, Section, number
 class DecompositionSection(Section):
     key = "decomposition"
     title = "Ambiguity decomposition"
+    result_type = "Decomposition"
     doc = ("`decompose` of the members at the points: ensemble loss, mean member loss, "
            "ambiguity (Krogh & Vedelsby 1995) and relative gain.")
 

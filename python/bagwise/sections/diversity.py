@@ -12,6 +12,7 @@ DIAGRAM_MEMBERS = 300
 class DiversitySection(Section):
     key = "diversity"
     title = "Diversity"
+    result_type = "Diversity"
     doc = ("`diversity` of the members' class predictions (Kuncheva & Whitaker 2003): how "
            "differently they err, and which pairs are redundant; None for values.")
 

@@ -9,6 +9,7 @@ from ._base import Section, number
 class OutOfBagSection(Section):
     key = "out_of_bag"
     title = "Out of bag"
+    result_type = "OutOfBag"
     doc = "`out_of_bag` on the training rows; None without counts and training predictions."
 
     def compute(self, inputs, done):

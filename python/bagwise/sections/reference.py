@@ -74,8 +74,9 @@ def reference_loss(kind, reference, y):
 class ReferenceSection(Section):
     key = "reference"
     title = "Single model"
-    doc = ("`Reference`: the loss of the single model given as ``reference`` and the "
-           "ensemble's loss over it; None without ``reference``.")
+    result_type = "Reference"
+    doc = ("The loss of the single model given as ``reference`` and the ensemble's loss "
+           "over it; None without ``reference``.")
 
     def compute(self, inputs, done):
         if inputs.reference is None:

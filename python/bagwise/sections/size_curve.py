@@ -8,6 +8,7 @@ from ._base import TOLERANCE, Figure, Needed, Section, is_nan, number, quiet
 class SizeCurveSection(Section):
     key = "size_curve"
     title = "Ensemble size"
+    result_type = "SizeCurve"
     doc = ("`size_curve` of the members: loss of the first-k-member ensemble, the spread "
            "``W``, the infinite-ensemble loss and ``members_needed``.")
 
@@ -22,10 +23,12 @@ class SizeCurveSection(Section):
         return result.spread is not None
 
     def summary(self, result, diagnosis):
-        out = {"full_loss": number(result.full_loss),
+        # the law's W is the mean across-member variance, the glossary's mean_within
+        out = {"ensemble_loss": number(result.full_loss),
                "loss_one_member": number(result.curve[0]) if result.sizes[0] == 1 else None}
         if self._has_law(result):
-            out.update(spread=number(result.spread), infinite_loss=number(result.infinite_loss),
+            out.update(mean_within=number(result.spread),
+                       infinite_loss=number(result.infinite_loss),
                        members_needed=number(quiet(lambda: result.members_needed(TOLERANCE))))
         return out
 
@@ -42,9 +45,9 @@ class SizeCurveSection(Section):
     def needed(self, result, tolerance):
         if not self._has_law(result):
             return []
-        return [Needed("the expected loss of k members: its excess W/k over the "
-                       "infinite-ensemble loss", result.members_needed(tolerance),
-                       f"size curve: W/k <= {tolerance:g} x infinite loss")]
+        return [Needed("expected loss: its excess W/k over the infinite-ensemble loss",
+                       result.members_needed(tolerance),
+                       f"size curve: W/k <= {tolerance * 100:g}% of the infinite loss")]
 
     def figures(self, result, diagnosis, unit):
         from .. import plots

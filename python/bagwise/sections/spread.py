@@ -9,6 +9,7 @@ from ._base import TOLERANCE, Figure, Needed, Section, is_nan, number, quiet
 class SpreadSection(Section):
     key = "spread"
     title = "Between / within"
+    result_type = "Spread"
     doc = "`spread` (between/within split, rho); None without counts or for labels."
 
     def compute(self, inputs, done):
@@ -34,10 +35,9 @@ class SpreadSection(Section):
                 f"{TOLERANCE:.0%} of it"]
 
     def needed(self, result, tolerance):
-        return [Needed("the variance of the ensemble's prediction: its member part "
-                       "mean_within/M against the training-data part mean_between",
+        return [Needed("variance of the prediction: its member part within/M",
                        result.members_needed(tolerance),
-                       f"between/within split: mean_within/M <= {tolerance:g} x mean_between")]
+                       f"between/within: mean_within/M <= {tolerance * 100:g}% of mean_between")]
 
     def figures(self, result, diagnosis, unit):
         from .. import plots

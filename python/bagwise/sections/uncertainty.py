@@ -19,6 +19,7 @@ def _median_correction_share(result):
 class UncertaintySection(Section):
     key = "uncertainty"
     title = "Prediction uncertainty"
+    result_type = "PredictionVariance"
     doc = ("`prediction_variance` (infinitesimal jackknife, bias-corrected) of the ensemble "
            "at the points; None without counts or for labels.")
 
