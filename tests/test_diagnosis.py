@@ -117,7 +117,7 @@ def test_out_of_bag_through_sklearn_bagging_regressor():
     # BaggingRegressor.oob_score_ is sklearn.metrics.r2_score of its OOB prediction
     assert sklearn.metrics.r2_score(y, report.out_of_bag.prediction) == pytest.approx(
         bag.oob_score_, rel=1e-10)
-    # 2. a separate test set with train_members / train_y
+    # 2. a separate test set with train_members / y_train
     rng = np.random.default_rng(0)
     X_test = X[rng.permutation(n)[:100]] + rng.normal(scale=0.01, size=(100, X.shape[1]))
     y_test = rng.normal(size=100)
@@ -125,7 +125,7 @@ def test_out_of_bag_through_sklearn_bagging_regressor():
                      for est, f in zip(bag.estimators_, bag.estimators_features_)])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        split = bagwise.diagnose(test, y_test, counts=counts, train_members=train, train_y=y)
+        split = bagwise.diagnose(test, y_test, counts=counts, train_members=train, y_train=y)
         oob = bagwise.out_of_bag(train, counts, y)
     assert split.out_of_bag.error == pytest.approx(oob.error, rel=1e-12)
     assert split.summary()["out_of_bag"]["error"] == pytest.approx(
@@ -219,8 +219,8 @@ def test_rough_standard_errors_are_flagged():
     (dict(counts=-np.ones((4, 10), np.int64)), ValueError, "`counts`"),
     (dict(reference=np.zeros(9)), ValueError, "`reference`"),
     (dict(reference=np.full(10, np.inf)), ValueError, "`reference`"),
-    (dict(train_members=np.zeros((4, 12))), ValueError, "`train_y`"),
-    (dict(train_members=np.zeros((4, 12)), train_y=np.zeros(12)), ValueError, "`counts`"),
+    (dict(train_members=np.zeros((4, 12))), ValueError, "`y_train`"),
+    (dict(train_members=np.zeros((4, 12)), y_train=np.zeros(12)), ValueError, "`counts`"),
     (dict(members=np.full((4, 10), np.nan)), ValueError, "`members`"),
 ])
 def test_bad_input(change, error, match):
@@ -240,11 +240,11 @@ def test_bad_training_members_are_reported_under_their_own_names():
     train[member, row] = np.nan  # out-of-bag entries are used, so this one is an error
     with pytest.raises(ValueError, match=r"^`train_members`: contains NaN"):
         bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
-                         train_members=train, train_y=rng.normal(size=12))
-    with pytest.raises(ValueError, match=r"^`train_y`"):
+                         train_members=train, y_train=rng.normal(size=12))
+    with pytest.raises(ValueError, match=r"^`y_train`"):
         bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
                          train_members=rng.normal(size=(4, 12)),
-                         train_y=np.r_[np.zeros(11), np.inf])
+                         y_train=np.r_[np.zeros(11), np.inf])
 
 
 def test_class_members_get_the_diversity_section():

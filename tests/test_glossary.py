@@ -125,7 +125,7 @@ def _results():
             bagwise.replicate_spread(rng.normal(size=(10, 1, 30)) + rng.normal(size=(10, 8, 30))),
             bagwise.diversity(labels, labels_y),
             bagwise.diagnose(test, y_test, counts=counts, train_members=train,
-                             train_y=y_train, reference=y_test + 0.5),
+                             y_train=y_train, reference=y_test + 0.5),
             bagwise.diagnose(labels, labels_y),
         ]
 
@@ -211,7 +211,7 @@ def test_the_glossary_parses():
     names = glossary_names()
     # a few rows of each table, as DEVELOPERS.md writes them
     assert {"members", "n_members", "counts", "ensemble_loss", "std_error", "rng",
-            "n_jobs", "members_needed", "mean_<q>", "plot_<name>", "train_y",
+            "n_jobs", "members_needed", "mean_<q>", "plot_<name>", "y_train",
             "pooled_rho"} <= names
     assert "meaning" not in names and "name" not in names  # the header row is no name
 

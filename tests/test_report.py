@@ -74,7 +74,7 @@ def ensemble(members=200, n_train=80, n_test=150, seed=0):
 @pytest.fixture(scope="module")
 def diagnosis():
     test, y_test, counts, train, y_train = ensemble()
-    return bagwise.diagnose(test, y_test, counts=counts, train_members=train, train_y=y_train,
+    return bagwise.diagnose(test, y_test, counts=counts, train_members=train, y_train=y_train,
                             reference=y_test + 0.5)
 
 

@@ -37,7 +37,7 @@ What the files mean:
 Exit status 0 on success, 2 on any error (one line on stderr starting with "error:").
 """
 
-_DIAGNOSE_NAMES = {"members", "y", "counts", "reference", "train_members", "train_y"}
+_DIAGNOSE_NAMES = {"members", "y", "counts", "reference", "train_members", "y_train"}
 
 
 class CommandError(Exception):
@@ -164,7 +164,7 @@ def _inputs(args):
         kwargs = dict(members=test, y=test_y, counts=counts, train_members=members,
                       train_y=targets, members_are_training=False)
         names = {"members": "--test-members", "y": "--test-targets",
-                 "train_members": "--members", "train_y": "--targets"}
+                 "train_members": "--members", "y_train": "--targets"}
         points = test.shape[1]
     else:
         kwargs = dict(members=members, y=targets, counts=counts, train_members=None,

@@ -42,7 +42,7 @@ def _array(value, name):
         raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
 
 
-def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_jobs):
+def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_jobs):
     kind, members = _members_array(members)
     n_members, n_points = members.shape[:2]
     if n_members < 2:
@@ -57,8 +57,8 @@ def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_
         if counts.ndim != 2 or counts.shape[0] != n_members:
             raise ValueError(f"`counts`: expected shape ({n_members}, n_train) (one row per "
                              f"member), got {counts.shape}")
-    if (train_members is None) != (train_y is None):
-        raise ValueError("`train_y`: give `train_members` and `train_y` together")
+    if (train_members is None) != (y_train is None):
+        raise ValueError("`y_train`: give `train_members` and `y_train` together")
     if train_members is not None:
         if counts is None:
             raise ValueError("`counts`: `train_members` needs the in-bag counts they were fit with")
@@ -86,11 +86,11 @@ def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_
             reference = reference.astype(np.float64, copy=False)
             if not np.all(np.isfinite(reference)):
                 raise ValueError("`reference`: contains NaN or infinite values")
-    return (kind, members, y, counts, reference, train_members, train_y, seed_value(seed),
+    return (kind, members, y, counts, reference, train_members, y_train, seed_value(seed),
             n_jobs_value(n_jobs))
 
 
-def diagnose(members, y, *, counts=None, reference=None, train_members=None, train_y=None,
+def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_train=None,
              seed=0, n_jobs=None) -> Diagnosis:
     """Everything bagwise can say about an ensemble from its member predictions, in one call.
 
@@ -111,7 +111,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
         Predictions at the points of one model of the same kind fit on all the training
         data: values ``(n_points,)``, probabilities ``(n_points, n_classes)`` or labels
         ``(n_points,)``. Reported as ``reference_loss`` and ``reference_ratio``.
-    train_members, train_y : arrays, optional
+    train_members, y_train : arrays, optional
         The members' predictions on the training rows, ``(members, n_train[, n_classes])``
         as ``members``, and the training targets; with ``counts`` they give the out-of-bag
         error. Entries of a member on its in-bag rows are not used, but must be valid
@@ -153,20 +153,21 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
     ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
     """
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
-                     train_y=train_y, seed=seed, n_jobs=n_jobs, members_are_training=None)
+                     train_y=y_train, seed=seed, n_jobs=n_jobs, members_are_training=None)
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,
               members_are_training):
-    """`diagnose`; ``members_are_training=False`` never reads ``members`` as training-row
-    predictions (None: when ``counts`` has ``n_points`` columns). Each warning of the
+    """`diagnose` (``train_y`` is its ``y_train``); ``members_are_training=False`` never
+    reads ``members`` as training-row predictions (None: when ``counts`` has ``n_points``
+    columns). Each warning of the
     sections is given once, at the caller's line."""
     with once_per_call():
         (kind, members, y, counts, reference, train_members, train_y, seed,
          n_jobs) = _diagnose_iv(members, y, counts, reference, train_members, train_y, seed,
                                 n_jobs)
         inputs = Inputs(kind=kind, members=members, y=y, counts=counts,
-                        train_members=train_members, train_y=train_y, reference=reference,
+                        train_members=train_members, y_train=train_y, reference=reference,
                         seed=seed, n_jobs=n_jobs, members_are_training=members_are_training)
         done: dict[str, Any] = {}
         for section in SECTIONS:

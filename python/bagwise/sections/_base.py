@@ -26,7 +26,7 @@ class Inputs:
     y: np.ndarray
     counts: np.ndarray | None = None
     train_members: np.ndarray | None = None
-    train_y: np.ndarray | None = None
+    y_train: np.ndarray | None = None
     reference: np.ndarray | None = None
     seed: Any = 0
     n_jobs: int | None = None

@@ -20,10 +20,10 @@ class OutOfBagSection(Section):
             return None
         if inputs.train_members is not None:
             try:
-                return out_of_bag(inputs.train_members, inputs.counts, inputs.train_y,
+                return out_of_bag(inputs.train_members, inputs.counts, inputs.y_train,
                                   n_jobs=inputs.n_jobs)
             except (ValueError, TypeError) as error:
-                names = {"members": "train_members", "y": "train_y"}
+                names = {"members": "train_members", "y": "y_train"}
                 raise renamed_arguments(error, names) from None
         if (inputs.members_are_training is not False
                 and inputs.counts.shape[1] == inputs.members.shape[1]):
