@@ -3,6 +3,7 @@ against sklearn.metrics, the out-of-bag part through scikit-learn's bagging."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import warnings
@@ -46,7 +47,7 @@ def test_every_number_equals_the_standalone_result():
     np.testing.assert_array_equal(report.size_curve.curve, c.curve)
     assert _close(report.size_curve.infinite_loss, c.infinite_loss)
     assert _close(report.size_curve.spread, c.spread)
-    assert report.members_needed == c.members_needed(0.01)
+    assert report.members_needed()["size_curve"] == c.members_needed(0.01)
     r = bagwise.correlation(members, y)
     assert _close(report.correlation.mean_correlation, r.mean_correlation)
     assert _close(report.correlation.mean_variance, r.mean_variance)
@@ -66,6 +67,9 @@ def test_every_number_equals_the_standalone_result():
         float(np.nanmedian(u.correction_share)), rel=1e-15)
     assert summary["spread"]["members_needed"] == s.members_needed(0.01)
     assert summary["size_curve"]["members_needed"] == c.members_needed(0.01)
+    assert summary["size_curve"]["mean_within"] == c.spread           # the law's W
+    assert summary["size_curve"]["ensemble_loss"] == c.full_loss == d.ensemble_loss
+    assert summary["size_curve"]["loss_one_member"] == c.curve[0]
     # test points differ from the training rows: no out-of-bag part
     assert report.out_of_bag is None and "out_of_bag" not in summary
 
@@ -113,7 +117,7 @@ def test_out_of_bag_through_sklearn_bagging_regressor():
     # BaggingRegressor.oob_score_ is sklearn.metrics.r2_score of its OOB prediction
     assert sklearn.metrics.r2_score(y, report.out_of_bag.prediction) == pytest.approx(
         bag.oob_score_, rel=1e-10)
-    # 2. a separate test set with train_members / train_y
+    # 2. a separate test set with train_members / y_train
     rng = np.random.default_rng(0)
     X_test = X[rng.permutation(n)[:100]] + rng.normal(scale=0.01, size=(100, X.shape[1]))
     y_test = rng.normal(size=100)
@@ -121,7 +125,7 @@ def test_out_of_bag_through_sklearn_bagging_regressor():
                      for est, f in zip(bag.estimators_, bag.estimators_features_)])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        split = bagwise.diagnose(test, y_test, counts=counts, train_members=train, train_y=y)
+        split = bagwise.diagnose(test, y_test, counts=counts, train_members=train, y_train=y)
         oob = bagwise.out_of_bag(train, counts, y)
     assert split.out_of_bag.error == pytest.approx(oob.error, rel=1e-12)
     assert split.summary()["out_of_bag"]["error"] == pytest.approx(
@@ -158,7 +162,8 @@ def test_probabilities_use_the_last_class_and_labels_skip_uncertainty():
     vote = bagwise.aggregate(labels)
     assert hard.decomposition.ensemble_loss == pytest.approx(
         1 - sklearn.metrics.accuracy_score(y, vote), rel=1e-12)
-    assert hard.members_needed is None
+    # error rates follow no size law: no members-needed figure from the size curve
+    assert "size_curve" not in hard.members_needed()
 
 
 def test_summary_is_json_and_frame_and_display():
@@ -167,11 +172,11 @@ def test_summary_is_json_and_frame_and_display():
     text = json.dumps(report.summary(), allow_nan=False)
     back = json.loads(text)
     assert back["decomposition"]["ambiguity"] == pytest.approx(report.decomposition.ambiguity)
-    assert back["reference"]["ratio"] == pytest.approx(report.reference_ratio)
+    assert back["reference"]["reference_ratio"] == pytest.approx(report.reference_ratio)
     frame = report.to_frame()
     assert list(frame.columns) == ["section", "quantity", "value"]
     assert len(frame) == sum(len(v) for v in report.summary().values())
-    row = frame[(frame.section == "spread") & (frame.quantity == "rho")]
+    row = frame[(frame.section == "spread") & (frame.quantity == "pooled_rho")]
     assert row.value.iloc[0] == pytest.approx(report.spread.pooled_rho)
     shown = repr(report)
     for title in ("Ambiguity decomposition", "Ensemble size", "Residual correlation",
@@ -179,8 +184,8 @@ def test_summary_is_json_and_frame_and_display():
         assert title in shown
     assert f"averaging removed {report.decomposition.relative_gain:.0%}" in shown
     assert "<table" in report._repr_html_()
-    report.decomposition = None                  # a broken result still displays
-    assert report._repr_html_().startswith("<pre>")
+    broken = dataclasses.replace(report, decomposition=object())  # a broken result still displays
+    assert broken._repr_html_().startswith("<pre>")
 
 
 def test_members_needed_reading():
@@ -214,8 +219,8 @@ def test_rough_standard_errors_are_flagged():
     (dict(counts=-np.ones((4, 10), np.int64)), ValueError, "`counts`"),
     (dict(reference=np.zeros(9)), ValueError, "`reference`"),
     (dict(reference=np.full(10, np.inf)), ValueError, "`reference`"),
-    (dict(train_members=np.zeros((4, 12))), ValueError, "`train_y`"),
-    (dict(train_members=np.zeros((4, 12)), train_y=np.zeros(12)), ValueError, "`counts`"),
+    (dict(train_members=np.zeros((4, 12))), ValueError, "`y_train`"),
+    (dict(train_members=np.zeros((4, 12)), y_train=np.zeros(12)), ValueError, "`counts`"),
     (dict(members=np.full((4, 10), np.nan)), ValueError, "`members`"),
 ])
 def test_bad_input(change, error, match):
@@ -235,11 +240,11 @@ def test_bad_training_members_are_reported_under_their_own_names():
     train[member, row] = np.nan  # out-of-bag entries are used, so this one is an error
     with pytest.raises(ValueError, match=r"^`train_members`: contains NaN"):
         bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
-                         train_members=train, train_y=rng.normal(size=12))
-    with pytest.raises(ValueError, match=r"^`train_y`"):
+                         train_members=train, y_train=rng.normal(size=12))
+    with pytest.raises(ValueError, match=r"^`y_train`"):
         bagwise.diagnose(rng.normal(size=(4, 10)), rng.normal(size=10), counts=counts,
                          train_members=rng.normal(size=(4, 12)),
-                         train_y=np.r_[np.zeros(11), np.inf])
+                         y_train=np.r_[np.zeros(11), np.inf])
 
 
 def test_class_members_get_the_diversity_section():
@@ -267,3 +272,102 @@ def test_class_members_get_the_diversity_section():
     # values have no class predictions, so no diversity section
     values = rng.normal(size=(5, 40))
     assert bagwise.diagnose(values, rng.normal(size=40)).diversity is None
+
+
+def test_each_warning_once_per_call_at_the_callers_line():
+    # few members against many training rows: the bias correction of the standard errors
+    # is rough, which both the standard errors and the between/within split compute
+    rng = np.random.default_rng(6)
+    counts = bagwise.resample(400, 20, seed=6).counts
+    members, y = rng.normal(size=(20, 50)), rng.normal(size=50)
+    with warnings.catch_warnings(record=True) as records:
+        warnings.simplefilter("always")
+        bagwise.diagnose(members, y, counts=counts)
+    messages = [(r.category, str(r.message)) for r in records]
+    assert any("correction" in text for _, text in messages)
+    assert len(messages) == len(set(messages)), messages          # each condition once
+    assert all(r.filename == __file__ for r in records), [r.filename for r in records]
+    # the diagnosis's own warning: a reference with loss 0
+    with warnings.catch_warnings(record=True) as records:
+        warnings.simplefilter("always")
+        report = bagwise.diagnose(members, y, reference=y)
+    assert [(r.category, r.filename) for r in records] == [(bagwise.BagwiseWarning, __file__)]
+    assert "`reference`" in str(records[0].message) and math.isnan(report.reference_ratio)
+    assert report.verdict() == "no verdict: the single model's loss is 0"
+
+
+def test_members_needed_is_one_table_of_every_figure():
+    members, y, counts = _regression_members(seed=4)
+    report = bagwise.diagnose(members, y, counts=counts, seed=2)
+    table = report.members_needed()
+    # the size curve bounds the expected loss, the between/within split the variance of
+    # the ensemble's prediction: two rows, each the standalone result's own figure
+    assert table.sections == ("size_curve", "spread")
+    curve = bagwise.size_curve(members, y, seed=2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        split = bagwise.spread(members, counts)
+    assert table["size_curve"] == curve.members_needed(0.01)
+    assert table["spread"] == split.members_needed(0.01)
+    assert report.members_needed(0.05)["size_curve"] == curve.members_needed(0.05)
+    assert report.members_needed(0.05)["spread"] == split.members_needed(0.05)
+    frame = table.to_frame()
+    assert list(frame.columns) == ["section", "bounded", "members_needed", "basis"]
+    assert frame.members_needed.tolist() == list(table.members_needed)
+    assert all(frame.bounded.str.len() > 0) and all(frame.basis.str.len() > 0)
+    shown = repr(report)
+    assert "Members needed (within 1%)" in shown
+    for bounded, basis in zip(table.bounded, table.basis):
+        assert bounded in shown and basis in shown
+    assert "Members needed" in report._repr_html_()
+    assert "Members needed" in repr(table) and "<table" in table._repr_html_()
+    with pytest.raises(KeyError, match="out_of_bag"):
+        table["out_of_bag"]
+    with pytest.raises(ValueError, match="`tolerance`"):
+        report.members_needed(0)
+
+
+def test_diagnosis_has_one_attribute_per_registered_section():
+    from bagwise.sections import SECTIONS
+
+    keys = [section.key for section in SECTIONS]
+    assert len(set(keys)) == len(keys)
+    fields = [f.name for f in dataclasses.fields(bagwise.Diagnosis) if not f.name.startswith("_")]
+    assert fields == ["kind", "n_members", "n_points", *keys]
+    for section in SECTIONS:
+        assert f"{section.key} : " in bagwise.Diagnosis.__doc__
+    members, y, counts = _regression_members(seed=4)
+    report = bagwise.diagnose(members, y, counts=counts, reference=members[0])
+    present = [key for key in keys if getattr(report, key) is not None]
+    assert list(report.summary()) == ["ensemble", *present]
+    assert [key for key, *_ in report._parts()] == present
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        report.kind = "labels"
+
+
+def test_a_registered_section_reaches_every_output(monkeypatch):
+    # Diagnosis, its summary, readings and report read the registry, nothing else: a
+    # section swapped in the registry shows up everywhere
+    from bagwise import sections
+    from bagwise.sections import Figure
+    from bagwise.sections.spread import SpreadSection
+
+    class Louder(SpreadSection):
+        def readings(self, result, diagnosis):
+            return ["an extra finding"]
+
+        def summary(self, result, diagnosis):
+            return {"extra": 1}
+
+        def figures(self, result, diagnosis, unit):
+            return [Figure("an extra figure", lambda ax: ax.plot([0, 1], [0, 1])[0].axes)]
+
+    registry = list(sections.SECTIONS)
+    registry[[s.key for s in registry].index("spread")] = Louder()
+    monkeypatch.setattr(bagwise.diagnosis, "SECTIONS", registry)
+    members, y, counts = _regression_members(seed=4)
+    report = bagwise.diagnose(members, y, counts=counts)
+    assert report.summary()["spread"] == {"extra": 1}
+    assert "an extra finding" in report.readings()
+    page = report.to_html()
+    assert "an extra figure" in page and "an extra finding" in page

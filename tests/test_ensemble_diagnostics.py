@@ -215,7 +215,7 @@ def test_linear_diagnose_numbers_match_the_function():
         direct = bagwise.diagnose(bag.member_predictions(X[300:]), y[300:], counts=bag.in_bag_,
                                   train_members=_fill_in_bag(bag.out_of_bag_predictions(),
                                                              bag.in_bag_),
-                                  train_y=y[:300])
+                                  y_train=y[:300])
     assert report.summary() == direct.summary()
 
 

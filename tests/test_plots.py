@@ -672,12 +672,12 @@ def test_missing_matplotlib_names_the_extra():
 
 # -- kappa-error diagram ------------------------------------------------------------------------
 
-def test_kappa_error_draws_one_point_per_pair():
+def test_plot_kappa_error_draws_one_point_per_pair():
     from sklearn.metrics import cohen_kappa_score
 
     members, y = labels(members=8, n=500, seed=11)
     d = bagwise.diversity(members, y)
-    ax = plots.kappa_error(d)
+    ax = plots.plot_kappa_error(d)
     offsets = ax.collections[0].get_offsets()
     # Margineantu & Dietterich 1997 (from memory): x = the pair's kappa, y = its mean error;
     # reference: sklearn.metrics.cohen_kappa_score and numpy error rates, pairs i < j in
@@ -688,16 +688,34 @@ def test_kappa_error_draws_one_point_per_pair():
     assert offsets.shape == (28, 2)
     np.testing.assert_allclose(np.asarray(offsets), expected, rtol=1e-12, atol=1e-14)
     _, reused = plt.subplots()
-    assert plots.kappa_error(d, ax=reused) is reused
+    assert plots.plot_kappa_error(d, ax=reused) is reused
 
 
-def test_kappa_error_leaves_out_undefined_pairs_and_checks_its_input():
+def test_plot_kappa_error_leaves_out_undefined_pairs_and_checks_its_input():
     y = np.array([0, 0, 0, 1, 1])
     members = np.array([[0, 0, 0, 0, 0], [0, 0, 0, 0, 0], [0, 1, 0, 1, 1]])
     with pytest.warns(RuntimeWarning, match="Cohen's kappa is undefined .* for 1 of 3 pairs"):
         d = bagwise.diversity(members, y)
-    ax = plots.kappa_error(d)
+    ax = plots.plot_kappa_error(d)
     # members 0 and 1 always say class 0: chance agreement 1, kappa undefined (Cohen 1960)
     assert len(ax.collections[0].get_offsets()) == 2
     with pytest.raises(TypeError, match=r"^`diversity`"):
-        plots.kappa_error(object())
+        plots.plot_kappa_error(object())
+
+
+def test_every_figure_is_plot_name_with_a_keyword_ax():
+    # the shape of every figure (DEVELOPERS.md): plot_<name>(result, *, ax=None) -> Axes;
+    # a function that draws on an `ax` carries the prefix, and nothing else does
+    import inspect
+
+    drawing = set()
+    for name in plots.__all__:
+        parameters = inspect.signature(getattr(plots, name)).parameters
+        if "ax" in parameters:
+            drawing.add(name)
+            assert parameters["ax"].kind is inspect.Parameter.KEYWORD_ONLY, name
+            assert parameters["ax"].default is None, name
+            first = next(iter(parameters.values()))
+            assert first.kind is inspect.Parameter.POSITIONAL_OR_KEYWORD, name
+    assert drawing == {name for name in plots.__all__ if name.startswith("plot_")}
+    assert "plot_kappa_error" in drawing

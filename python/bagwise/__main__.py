@@ -37,7 +37,7 @@ What the files mean:
 Exit status 0 on success, 2 on any error (one line on stderr starting with "error:").
 """
 
-_DIAGNOSE_NAMES = {"members", "y", "counts", "reference", "train_members", "train_y"}
+_DIAGNOSE_NAMES = {"members", "y", "counts", "reference", "train_members", "y_train"}
 
 
 class CommandError(Exception):
@@ -164,7 +164,7 @@ def _inputs(args):
         kwargs = dict(members=test, y=test_y, counts=counts, train_members=members,
                       train_y=targets, members_are_training=False)
         names = {"members": "--test-members", "y": "--test-targets",
-                 "train_members": "--members", "train_y": "--targets"}
+                 "train_members": "--members", "y_train": "--targets"}
         points = test.shape[1]
     else:
         kwargs = dict(members=members, y=targets, counts=counts, train_members=None,
@@ -193,7 +193,8 @@ def _options(message, names):
 # -- printing -------------------------------------------------------------------------------
 
 def summary_table(diagnosis) -> str:
-    """The key numbers of `Diagnosis.summary` and the readings, as plain text."""
+    """The key numbers of `Diagnosis.summary` (section by section), the members-needed
+    table and the readings, as plain text."""
     from .report import summary_rows
 
     rows = summary_rows(diagnosis.summary())
@@ -203,10 +204,12 @@ def summary_table(diagnosis) -> str:
         label = section if section != last else ""
         lines.append(f"  {label:<{widths[0]}}  {quantity:<{widths[1]}}  {value}".rstrip())
         last = section
-    d = diagnosis.decomposition
-    head = f"bagwise diagnosis ({diagnosis.kind}: {d.members:,} members x {d.n_points:,} points)"
+    head = (f"bagwise diagnosis ({diagnosis.kind}: {diagnosis.n_members:,} members x "
+            f"{diagnosis.n_points:,} points)")
+    needed = diagnosis._quiet_needed()
+    table = ["", needed._text()] if len(needed) else []
     readings = [f"  - {line}" for line in diagnosis.readings()]
-    return "\n".join([head, *lines, "", "Readings", *readings])
+    return "\n".join([head, *lines, *table, "", "Readings", *readings])
 
 
 @contextlib.contextmanager

@@ -114,22 +114,24 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
         single = RegressionBag(learner, members=1, scheme="none", seed=seed).fit(X[train], y[train])
         with warnings.catch_warnings():
             # the report itself shows the correction share and the clipped points
-            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.simplefilter("ignore")
             report = bag.diagnose(X[test], y[test], reference=single.predict(X[test]))
         seconds = time.perf_counter() - start
-        d, c, u, s, o = (report.decomposition, report.size_curve, report.uncertainty,
-                         report.spread, report.out_of_bag)
-        share = report.summary()["uncertainty"]["median_correction_share"]
-        loss_rows.append([name, f"{d.ensemble_loss:.4f}", f"{d.member_loss:.4f}",
-                          f"{d.ambiguity:.4f}", f"{d.relative_gain:.1%}",
-                          f"{report.reference_loss:.4f}", f"{report.reference_ratio:.3f}",
-                          f"{c.infinite_loss:.4f}", str(report.members_needed),
-                          f"{o.error:.4f}", f"{seconds:.1f}"])
-        spread_rows.append([name, f"{np.median(u.std_error):.4f}", f"{share:.0%}",
-                            f"{u.n_clipped:,}", f"{s.mean_between:.4f}", f"{s.mean_within:.4f}",
-                            f"{s.pooled_rho:.3f}", str(s.members_needed(0.01))])
-        readings.append(f"  {name}: {report.verdict()}; out-of-bag error {o.error:.4f} vs "
-                        f"test error {d.ensemble_loss:.4f}")
+        # the numbers through the diagnosis's summary, whose keys the sections fix
+        numbers = report.summary()
+        d, r, c, u, s, o = (numbers[key] for key in ("decomposition", "reference", "size_curve",
+                                                     "uncertainty", "spread", "out_of_bag"))
+        loss_rows.append([name, f"{d['ensemble_loss']:.4f}", f"{d['member_loss']:.4f}",
+                          f"{d['ambiguity']:.4f}", f"{d['relative_gain']:.1%}",
+                          f"{r['reference_loss']:.4f}", f"{r['reference_ratio']:.3f}",
+                          f"{c['infinite_loss']:.4f}", str(c["members_needed"]),
+                          f"{o['error']:.4f}", f"{seconds:.1f}"])
+        spread_rows.append([name, f"{u['median_std_error']:.4f}",
+                            f"{u['median_correction_share']:.0%}", f"{u['share_clipped']:.1%}",
+                            f"{s['mean_between']:.4f}", f"{s['mean_within']:.4f}",
+                            f"{s['pooled_rho']:.3f}", str(s["members_needed"])])
+        readings.append(f"  {name}: {report.verdict()}; out-of-bag error {o['error']:.4f} vs "
+                        f"test error {d['ensemble_loss']:.4f}")
     lines.append(_table(["learner", "test loss", "member", "ambiguity", "gain", "single",
                          "ratio", "loss(inf)", "k for 1%", "OOB loss", "s"], loss_rows))
     lines.append("  squared error in kg^2 on the test vines; test loss = member - ambiguity "

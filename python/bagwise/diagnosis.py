@@ -8,30 +8,29 @@ ensemble's predictions and the between/within split of the member variance
 (`prediction_variance`, `spread`) when the in-bag counts are known, and the comparison with
 a single model fit on all the data when its predictions are given. Every number in the
 report is exactly what the standalone function returns for the same arrays.
+
+Each of these is a section of `bagwise.sections` (computed, summarised, read and drawn by
+its own module); `Diagnosis` holds one attribute per registered section.
 """
 
 from __future__ import annotations
 
-import math
-import warnings
+import dataclasses
+import html
+import textwrap
+from typing import Any
 
 import numpy as np
 
 from ._display import html_block, safe_html, text_block
-from ._validation import renamed_arguments, seed_value, n_jobs_value
-from .decomposition import _members_array, _target, correlation, decompose, size_curve
-from .diversity import diversity
-from .out_of_bag import out_of_bag
-from .uncertainty import CORRECTION_WARNING_SHARE, prediction_variance, spread
+from ._results import Result, check_tolerance
+from ._validation import n_jobs_value, seed_value
+from ._warnings import once_per_call
+from .decomposition import _members_array, _target
+from .sections import SECTIONS, TOLERANCE, Inputs
+from .sections._base import quiet
 
-__all__ = ["Diagnosis", "diagnose"]
-
-#: Ratios of ensemble to single-model loss below this read as "bagging helps"; from 0.97 up
-#: the ensemble is within 3% of one model (common practice: a gain of a few per cent is
-#: within the noise of one train/test split).
-HELPS_BELOW = 0.97
-#: Relative tolerance of the ``members_needed`` figures in the report.
-TOLERANCE = 0.01
+__all__ = ["Diagnosis", "MembersNeeded", "diagnose"]
 
 
 def _array(value, name):
@@ -43,7 +42,7 @@ def _array(value, name):
         raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
 
 
-def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_jobs):
+def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_jobs):
     kind, members = _members_array(members)
     n_members, n_points = members.shape[:2]
     if n_members < 2:
@@ -58,8 +57,8 @@ def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_
         if counts.ndim != 2 or counts.shape[0] != n_members:
             raise ValueError(f"`counts`: expected shape ({n_members}, n_train) (one row per "
                              f"member), got {counts.shape}")
-    if (train_members is None) != (train_y is None):
-        raise ValueError("`train_y`: give `train_members` and `train_y` together")
+    if (train_members is None) != (y_train is None):
+        raise ValueError("`y_train`: give `train_members` and `y_train` together")
     if train_members is not None:
         if counts is None:
             raise ValueError("`counts`: `train_members` needs the in-bag counts they were fit with")
@@ -87,22 +86,11 @@ def _diagnose_iv(members, y, counts, reference, train_members, train_y, seed, n_
             reference = reference.astype(np.float64, copy=False)
             if not np.all(np.isfinite(reference)):
                 raise ValueError("`reference`: contains NaN or infinite values")
-    return (kind, members, y, counts, reference, train_members, train_y, seed_value(seed),
+    return (kind, members, y, counts, reference, train_members, y_train, seed_value(seed),
             n_jobs_value(n_jobs))
 
 
-def _reference_loss(kind, reference, y):
-    """The single model's loss, in the loss the decomposition uses for ``kind``."""
-    if kind == "values":
-        return float(np.mean((reference - y) ** 2))
-    if kind == "probabilities":
-        onehot = np.zeros_like(reference)
-        onehot[np.arange(len(y)), y] = 1.0
-        return float(np.mean(np.sum((reference - onehot) ** 2, axis=1)))
-    return float(np.mean(reference != y))
-
-
-def diagnose(members, y, *, counts=None, reference=None, train_members=None, train_y=None,
+def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_train=None,
              seed=0, n_jobs=None) -> Diagnosis:
     """Everything bagwise can say about an ensemble from its member predictions, in one call.
 
@@ -123,7 +111,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
         Predictions at the points of one model of the same kind fit on all the training
         data: values ``(n_points,)``, probabilities ``(n_points, n_classes)`` or labels
         ``(n_points,)``. Reported as ``reference_loss`` and ``reference_ratio``.
-    train_members, train_y : arrays, optional
+    train_members, y_train : arrays, optional
         The members' predictions on the training rows, ``(members, n_train[, n_classes])``
         as ``members``, and the training targets; with ``counts`` they give the out-of-bag
         error. Entries of a member on its in-bag rows are not used, but must be valid
@@ -146,8 +134,9 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
     the standard errors and the spread need one number per member and point: for
     probabilities they use the probability of the last class (the positive class of a
     binary problem) against the indicator ``y == n_classes - 1``; for labels they are left
-    out (None). Warnings of the parts (e.g. too few members for the bias correction of the
-    standard errors, points without an out-of-bag member) are passed on as they are.
+    out (None). Each warning of the sections (e.g. too few members for the bias correction
+    of the standard errors, points without an out-of-bag member) is given once per call,
+    attributed to the line that called `diagnose`.
 
     Examples
     --------
@@ -164,308 +153,250 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, tra
     ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
     """
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
-                     train_y=train_y, seed=seed, n_jobs=n_jobs, members_are_training=None)
+                     train_y=y_train, seed=seed, n_jobs=n_jobs, members_are_training=None)
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,
               members_are_training):
-    """`diagnose`; ``members_are_training=False`` never reads ``members`` as training-row
-    predictions (None: when ``counts`` has ``n_points`` columns)."""
-    (kind, members, y, counts, reference, train_members, train_y, seed,
-     n_jobs) = _diagnose_iv(members, y, counts, reference, train_members, train_y, seed,
-                             n_jobs)
-    decomposition = decompose(members, y, n_jobs=n_jobs)
-    curve = size_curve(members, y, seed=seed, n_jobs=n_jobs)
-    if kind == "labels":
-        one, target = None, None
-    elif kind == "probabilities":
-        last = members.shape[2] - 1
-        one, target = members[:, :, last], (y == last).astype(np.float64)
-    else:
-        one, target = members, y
-    residuals = correlation(one, target, n_jobs=n_jobs) if one is not None else None
-    oob = None
-    if counts is not None:
-        if train_members is not None:
-            try:
-                oob = out_of_bag(train_members, counts, train_y, n_jobs=n_jobs)
-            except (ValueError, TypeError) as error:
-                names = {"members": "train_members", "y": "train_y"}
-                raise renamed_arguments(error, names) from None
-        elif members_are_training is not False and counts.shape[1] == members.shape[1]:
-            oob = out_of_bag(members, counts, y, n_jobs=n_jobs)
-    uncertainty = between_within = None
-    if counts is not None and one is not None:
-        uncertainty = prediction_variance(one, counts, method="ij", corrected=True,
-                                          n_jobs=n_jobs)
-        between_within = spread(one, counts, n_jobs=n_jobs)
-    reference_loss = reference_ratio = None
-    if reference is not None:
-        reference_loss = _reference_loss(kind, reference, y)
-        if reference_loss > 0:
-            reference_ratio = decomposition.ensemble_loss / reference_loss
-        else:
-            warnings.warn("`reference`: the single model's loss is 0, so the ratio is NaN",
-                          RuntimeWarning, stacklevel=3)
-            reference_ratio = math.nan
-    members_diversity = diversity(members, y, n_jobs=n_jobs) if kind != "values" else None
-    result = Diagnosis(kind=kind, decomposition=decomposition, size_curve=curve,
-                       correlation=residuals, out_of_bag=oob, uncertainty=uncertainty,
-                       spread=between_within, reference_loss=reference_loss,
-                       reference_ratio=reference_ratio, diversity=members_diversity)
-    if one is not None:
-        # kept (references, not copies) for the figures of `to_html`
-        result._points = (one, target)
-    return result
+    """`diagnose` (``train_y`` is its ``y_train``); ``members_are_training=False`` never
+    reads ``members`` as training-row predictions (None: when ``counts`` has ``n_points``
+    columns). Each warning of the
+    sections is given once, at the caller's line."""
+    with once_per_call():
+        (kind, members, y, counts, reference, train_members, train_y, seed,
+         n_jobs) = _diagnose_iv(members, y, counts, reference, train_members, train_y, seed,
+                                n_jobs)
+        inputs = Inputs(kind=kind, members=members, y=y, counts=counts,
+                        train_members=train_members, y_train=train_y, reference=reference,
+                        seed=seed, n_jobs=n_jobs, members_are_training=members_are_training)
+        done: dict[str, Any] = {}
+        for section in SECTIONS:
+            done[section.key] = section.compute(inputs, done)
+    return Diagnosis(kind=kind, n_members=members.shape[0], n_points=members.shape[1],
+                     _inputs=inputs, **done)
 
 
-def _number(value):
-    """A JSON-friendly number: Python int/float, NaN as None."""
-    if value is None:
-        return None
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    value = float(value)
-    return None if math.isnan(value) or math.isinf(value) else value
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class MembersNeeded(Result):
+    """Every "members needed" figure of a diagnosis, side by side.
+
+    The figures differ because each bounds a different quantity: the size curve bounds the
+    ensemble's expected loss, the between/within split the variance of its prediction.
+
+    Attributes
+    ----------
+    tolerance : float
+        The relative tolerance every figure was computed at.
+    sections : tuple of str
+        The section that gives each row (a `Diagnosis` attribute).
+    bounded : tuple of str
+        What each row bounds, in words.
+    members_needed : tuple of int or float
+        The smallest ensemble size that brings it within ``tolerance`` of its
+        infinite-ensemble limit (NaN where it cannot be estimated).
+    basis : tuple of str
+        The inequality each figure solves, and which result it reads.
+    """
+
+    tolerance: float
+    sections: tuple
+    bounded: tuple
+    members_needed: tuple
+    basis: tuple
+
+    _title = "Members needed"
+
+    def __len__(self) -> int:
+        return len(self.sections)
+
+    def __getitem__(self, section: str):
+        """The members needed by the row of ``section`` (KeyError when it gives none)."""
+        if section not in self.sections:
+            raise KeyError(f"`section`: no members-needed figure for {section!r} (there are: "
+                           f"{', '.join(self.sections) or 'none'})")
+        return self.members_needed[self.sections.index(section)]
+
+    def __contains__(self, section) -> bool:
+        return section in self.sections
+
+    def _rows(self):
+        return [(bounded, f"{_count(members)}  ({basis})")
+                for bounded, members, basis in zip(self.bounded, self.members_needed,
+                                                   self.basis)]
+
+    def _reading(self):
+        return (f"each row is the smallest ensemble within {self.tolerance:.0%} of its own "
+                "infinite-ensemble limit; they differ because they bound different things")
+
+    def _text(self) -> str:
+        """The three-column table of the text report."""
+        header = ("what is bounded", "members", "basis")
+        rows = [header] + [(bounded, _count(members), basis) for bounded, members, basis
+                           in zip(self.bounded, self.members_needed, self.basis)]
+        widths = [max(len(row[i]) for row in rows) for i in range(2)]
+        lines = [f"Members needed (within {self.tolerance:.0%})"]
+        lines += [f"  {a:<{widths[0]}}  {b:>{widths[1]}}  {c}" for a, b, c in rows]
+        return "\n".join(lines)
+
+    def _html(self) -> str:
+        """The same table in HTML."""
+        cells = "".join(
+            f"<tr><td>{html.escape(bounded)}</td><td style='text-align:right'>"
+            f"{html.escape(_count(members))}</td><td>{html.escape(basis)}</td></tr>"
+            for bounded, members, basis in zip(self.bounded, self.members_needed, self.basis))
+        return (f"<div class='bagwise-result'><strong>Members needed (within "
+                f"{self.tolerance:.0%})</strong><table style='border-collapse:collapse'>"
+                "<tr><th style='text-align:left'>what is bounded</th><th>members</th>"
+                f"<th style='text-align:left'>basis</th></tr>{cells}</table></div>")
+
+    def to_frame(self):
+        """One row per figure: ``section``, ``bounded``, ``members_needed``, ``basis``."""
+        import pandas as pd
+
+        return pd.DataFrame({"section": list(self.sections), "bounded": list(self.bounded),
+                             "members_needed": list(self.members_needed),
+                             "basis": list(self.basis)})
 
 
-def _quiet(call):
-    """Call without the warnings a standalone result already gave when it was built."""
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        return call()
+def _count(value) -> str:
+    if isinstance(value, float) and value != value:
+        return "nan"
+    return f"{value:,}"
 
 
-class Diagnosis:
+def _with_section_fields(cls):
+    """Make ``cls`` a frozen dataclass with one field per registered section (None when
+    the section does not apply), documented from the section's ``doc``."""
+    annotations = dict(cls.__dict__.get("__annotations__", {}))
+    docs = []
+    for section in SECTIONS:
+        annotations[section.key] = "Any"
+        setattr(cls, section.key, None)
+        text = textwrap.fill(section.doc, width=80, initial_indent=" " * 8,
+                             subsequent_indent=" " * 8)
+        docs.append(f"    {section.key} : {section.result_type} or None\n{text}\n")
+    annotations["_inputs"] = "Inputs | None"
+    cls._inputs = dataclasses.field(default=None, repr=False)
+    cls.__annotations__ = annotations
+    cls.__doc__ = cls.__doc__.rstrip() + "\n" + "".join(docs)
+    return dataclasses.dataclass(frozen=True, repr=False, eq=False)(cls)
+
+
+@_with_section_fields
+class Diagnosis(Result):
     """The bundled diagnostics of a bagged ensemble at a set of points.
+
+    One attribute per section of `bagwise.sections.SECTIONS`; a section that does not
+    apply to the members' kind or to the inputs given is None.
 
     Attributes
     ----------
     kind : str
         ``"values"``, ``"probabilities"`` or ``"labels"``: what the members predict.
-    decomposition : Decomposition
-        `decompose` of the members at the points: ensemble loss, mean member loss,
-        ambiguity (Krogh & Vedelsby 1995) and relative gain.
-    size_curve : SizeCurve
-        `size_curve` of the members: loss of the first-k-member ensemble, the spread ``W``,
-        the infinite-ensemble loss and ``members_needed``.
-    correlation : Correlation or None
-        `correlation` of the residuals (values; last-class probabilities); None for labels.
-    out_of_bag : OutOfBag or None
-        `out_of_bag` on the training rows; None without counts and training predictions.
-    uncertainty : PredictionVariance or None
-        `prediction_variance` (infinitesimal jackknife, bias-corrected) of the ensemble at
-        the points; None without counts or for labels.
-    spread : Spread or None
-        `spread` (between/within split, rho); None without counts or for labels.
-    diversity : Diversity or None
-        `diversity` of the members' class predictions (Kuncheva & Whitaker 2003): how
-        differently they err, and which pairs are redundant; None for values.
-    reference_loss : float or None
-        Loss of the single model given as ``reference`` (same loss as the decomposition).
-    reference_ratio : float or None
-        ``decomposition.ensemble_loss / reference_loss``: below 1 the ensemble beats one
-        model; NaN (with a warning) when the reference loss is 0.
+    n_members, n_points : int
+        Members, and points they were diagnosed at.
     """
 
-    def __init__(self, *, kind, decomposition, size_curve, correlation, out_of_bag,
-                 uncertainty, spread, reference_loss, reference_ratio, diversity=None):
-        self.kind = kind
-        self.decomposition = decomposition
-        self.size_curve = size_curve
-        self.correlation = correlation
-        self.out_of_bag = out_of_bag
-        self.uncertainty = uncertainty
-        self.spread = spread
-        self.reference_loss = reference_loss
-        self.reference_ratio = reference_ratio
-        self.diversity = diversity
-        # (members, targets) as the correlation and standard errors used them, set by
-        # `diagnose`; the report draws the correlation heatmap and error figures from them
-        self._points = None
+    kind: str
+    n_members: int
+    n_points: int
+
+    _title = "Diagnosis"
+
+    def _present(self):
+        """``(section, result)`` of every section that applies."""
+        return [(section, getattr(self, section.key)) for section in SECTIONS
+                if getattr(self, section.key) is not None]
 
     # -- numbers --------------------------------------------------------------------------
     @property
-    def members_needed(self):
-        """Members for the size-curve excess ``W/k`` to fall to 1% of the infinite-ensemble
-        loss (None for error rates; NaN when it cannot)."""
-        if self.size_curve.spread is None:
-            return None
-        return _quiet(lambda: self.size_curve.members_needed(TOLERANCE))
+    def reference_loss(self) -> float | None:
+        """``reference.reference_loss`` (None without ``reference``)."""
+        return None if self.reference is None else self.reference.reference_loss
+
+    @property
+    def reference_ratio(self) -> float | None:
+        """``reference.reference_ratio`` (None without ``reference``)."""
+        return None if self.reference is None else self.reference.reference_ratio
 
     def verdict(self) -> str | None:
         """One line: does bagging help this learner (None without ``reference``)."""
-        ratio = self.reference_ratio
-        if ratio is None:
-            return None
-        if math.isnan(ratio):
-            return "no verdict: the single model's loss is 0"
-        if ratio < HELPS_BELOW:
-            return (f"bagging helps this learner: the ensemble's loss is {ratio:.0%} of a "
-                    "single model's")
-        return (f"bagging does not help this learner: the ensemble's loss is {ratio:.0%} of a "
-                "single model's")
+        return None if self.reference is None else self.reference.verdict()
+
+    def members_needed(self, tolerance: float = TOLERANCE) -> MembersNeeded:
+        """Every "members needed" figure of the sections, as one small table.
+
+        Each row says what it bounds, the smallest ensemble that brings it within
+        ``tolerance`` (relative) of its infinite-ensemble limit, and the inequality it
+        solves; NaN with one `BagwiseWarning` where a figure cannot be estimated.
+        """
+        tolerance = check_tolerance(tolerance)
+        keys, bounded, members, basis = [], [], [], []
+        with once_per_call():
+            for section, result in self._present():
+                for row in section.needed(result, tolerance):
+                    keys.append(section.key)
+                    bounded.append(row.bounded)
+                    members.append(row.members_needed)
+                    basis.append(row.basis)
+        return MembersNeeded(tolerance=tolerance, sections=tuple(keys), bounded=tuple(bounded),
+                             members_needed=tuple(members), basis=tuple(basis))
 
     def summary(self) -> dict:
         """The key numbers by section, as plain ints, floats and strings (NaN as None), ready
         for ``json.dumps``."""
-        d = self.decomposition
-        out = {
-            "ensemble": {"kind": self.kind, "members": d.members, "points": d.n_points,
-                         "loss": d.loss},
-            "decomposition": {
-                "ensemble_loss": _number(d.ensemble_loss),
-                "member_loss": _number(d.member_loss),
-                "ambiguity": _number(d.ambiguity),
-                "vote_gain": _number(d.vote_gain),
-                "relative_gain": _number(d.relative_gain),
-            },
-        }
-        c = self.size_curve
-        curve = {"full_loss": _number(c.full_loss), "loss_one_member": _number(c.curve[0])
-                 if c.sizes[0] == 1 else None}
-        if c.spread is not None:
-            curve.update(spread=_number(c.spread), infinite_loss=_number(c.infinite_loss),
-                         members_needed=_number(self.members_needed))
-        out["size_curve"] = curve
-        if self.correlation is not None:
-            r = self.correlation
-            out["correlation"] = {"mean_residual_variance": _number(r.mean_variance),
-                                  "mean_correlation": _number(r.mean_correlation)}
-        if self.out_of_bag is not None:
-            o = self.out_of_bag
-            out["out_of_bag"] = {"metric": o.metric, "error": _number(o.error),
-                                 "points": o.n_points,
-                                 "points_without_out_of_bag": o.n_without_out_of_bag}
-        if self.uncertainty is not None:
-            u = self.uncertainty
-            share = u.correction_share
-            out["uncertainty"] = {
-                "median_std_error": _number(np.median(u.std_error)),
-                "share_clipped": _number(u.n_clipped / len(u.variance)),
-                "median_correction_share": _number(np.nanmedian(share))
-                if np.isfinite(share).any() else None,
-            }
-        if self.spread is not None:
-            s = self.spread
-            out["spread"] = {"between": _number(s.mean_between), "within": _number(s.mean_within),
-                             "rho": _number(s.pooled_rho),
-                             "members_needed": _number(s.members_needed(TOLERANCE))}
-        if self.diversity is not None:
-            v = self.diversity
-            (a, b, apart), = v.redundant_pairs(top=1)
-            out["diversity"] = {"mean_disagreement": _number(v.mean_disagreement),
-                                "mean_double_fault": _number(v.mean_double_fault),
-                                "mean_yule_q": _number(v.mean_yule_q),
-                                "kohavi_wolpert": _number(v.kohavi_wolpert),
-                                "interrater_kappa": _number(v.interrater_kappa),
-                                "closest_pair": [a, b], "closest_pair_disagreement": _number(apart)}
-        if self.reference_ratio is not None:
-            out["reference"] = {"reference_loss": _number(self.reference_loss),
-                                "ratio": _number(self.reference_ratio)}
+        ensemble = {"kind": self.kind, "n_members": self.n_members, "n_points": self.n_points}
+        present = self._present()
+        for section, result in present:
+            ensemble.update(section.ensemble(result))
+        out = {"ensemble": ensemble}
+        for section, result in present:
+            out[section.key] = section.summary(result, self)
         return out
 
     def readings(self) -> list[str]:
         """One line in plain words per finding."""
-        d, lines = self.decomposition, []
-        if d.identity:
-            lines.append(f"averaging removed {d.relative_gain:.0%} of the mean member loss "
-                         f"({d.member_loss:.4g} -> {d.ensemble_loss:.4g})")
-        else:
-            lines.append(f"the majority vote errs on {d.ensemble_loss:.1%} of the points, the "
-                         f"average member on {d.member_loss:.1%}")
-        verdict = self.verdict()
-        if verdict:
-            lines.append(verdict)
-        needed = self.members_needed
-        if needed is not None:
-            if isinstance(needed, float) and math.isnan(needed):
-                lines.append("no ensemble size comes within 1% of the infinite-ensemble loss "
-                             "(it is estimated at or below 0)")
-            else:
-                lines.append(f"{needed} members reach 1% of the infinite-ensemble loss "
-                             f"({self.size_curve.infinite_loss:.4g}); this ensemble has "
-                             f"{d.members}")
-        if self.correlation is not None and not math.isnan(self.correlation.mean_correlation):
-            lines.append(f"the members' errors correlate at {self.correlation.mean_correlation:.2f} "
-                         "on average")
-        if self.out_of_bag is not None:
-            o = self.out_of_bag
-            lines.append(f"out-of-bag {o.metric.replace('_', ' ')} {o.error:.4g} on the "
-                         f"{o.n_points - o.n_without_out_of_bag:,} training rows, an estimate of "
-                         "the error on new data")
-        if self.uncertainty is not None:
-            u = self.uncertainty
-            line = (f"a typical prediction is uncertain by ± {np.median(u.std_error):.3g} "
-                    "(one standard error, infinitesimal jackknife)")
-            share = self.summary()["uncertainty"]["median_correction_share"]
-            if share is not None and share > CORRECTION_WARNING_SHARE:
-                line += (f"; rough: the bias correction is {share:.0%} of the raw estimate at "
-                         "the median point, more members would steady it")
-            lines.append(line)
-        if self.spread is not None:
-            s = self.spread
-            needed = s.members_needed(TOLERANCE)
-            if isinstance(needed, float) and math.isnan(needed):
-                lines.append("the members share none of their variance through the training "
-                             "data (between part 0), so no ensemble size is needed for it")
-            else:
-                lines.append(f"members share {s.pooled_rho:.0%} of their variance through the "
-                             f"training data (rho); {needed} members bring the rest within 1% "
-                             "of it")
-        if self.diversity is not None:
-            v = self.diversity
-            lines.append(v._reading())
-            (a, b, apart), = v.redundant_pairs(top=1)
-            lines.append(f"the most alike pair, members {a} and {b}, disagree on {apart:.1%} of "
-                         "the points" + ("; one of them adds nothing here" if apart == 0 else ""))
-        return lines
+        return [line for section, result in self._present()
+                for line in section.readings(result, self)]
 
     # -- display --------------------------------------------------------------------------
     def _parts(self):
-        """``(attribute, title, rows, reading)`` of every section present."""
-        titles = [("decomposition", "Ambiguity decomposition"), ("size_curve", "Ensemble size"),
-                  ("correlation", "Residual correlation"), ("out_of_bag", "Out of bag"),
-                  ("uncertainty", "Prediction uncertainty"), ("spread", "Between / within"),
-                  ("diversity", "Diversity")]
-        parts = []
-        for attribute, title in titles:
-            part = getattr(self, attribute)
-            if part is not None:
-                parts.append((attribute, title, part._rows(), part._reading()))
-        if self.reference_ratio is not None:
-            parts.append(("reference", "Single model", [
-                ("reference loss", f"{self.reference_loss:.6g}"),
-                ("ensemble / reference", f"{self.reference_ratio:.4g}")], self.verdict()))
-        return parts
+        """``(key, title, rows, note)`` of every section present."""
+        return [(section.key, section.title, section.rows(result, self),
+                 section.note(result, self)) for section, result in self._present()]
 
-    def _sections(self):
-        return [(title, rows, reading) for _, title, rows, reading in self._parts()]
+    def _head(self) -> str:
+        return (f"Diagnosis ({self.kind}: {self.n_members:,} members x {self.n_points:,} "
+                "points)")
+
+    def _quiet_needed(self) -> MembersNeeded:
+        """The members-needed table without warnings (`diagnose` has given them)."""
+        return quiet(self.members_needed)
 
     def __repr__(self) -> str:
-        d = self.decomposition
-        head = f"Diagnosis ({self.kind}: {d.members:,} members x {d.n_points:,} points)"
-        blocks = [text_block(title, rows, reading) for title, rows, reading in self._sections()]
+        blocks = [text_block(title, rows, note) for _, title, rows, note in self._parts()]
+        needed = self._quiet_needed()
+        if len(needed):
+            blocks.append(needed._text())
         readings = "\n".join(f"  - {line}" for line in self.readings())
-        return "\n\n".join([head, *blocks, "Readings\n" + readings])
+        return "\n\n".join([self._head(), *blocks, "Readings\n" + readings])
 
     def _repr_html_(self) -> str:
         def render():
-            d = self.decomposition
-            blocks = "".join(html_block(title, rows, reading)
-                             for title, rows, reading in self._sections())
-            items = "".join(f"<li>{_escape(line)}</li>" for line in self.readings())
-            return (f"<div class='bagwise-diagnosis'><h4>Diagnosis ({_escape(self.kind)}: "
-                    f"{d.members:,} members x {d.n_points:,} points)</h4>{blocks}"
-                    f"<ul>{items}</ul></div>")
+            blocks = "".join(html_block(title, rows, note)
+                             for _, title, rows, note in self._parts())
+            needed = self._quiet_needed()
+            if len(needed):
+                blocks += needed._html()
+            items = "".join(f"<li>{html.escape(line)}</li>" for line in self.readings())
+            return (f"<div class='bagwise-diagnosis'><h4>{html.escape(self._head())}</h4>"
+                    f"{blocks}<ul>{items}</ul></div>")
 
         return safe_html(self, render)
 
     def to_html(self, path=None, *, title=None, unit=None) -> str:
-        """A self-contained HTML report: readings, key numbers, every section's table and
-        its figures, the cautions at its foot.
+        """A self-contained HTML report: readings, key numbers, the members-needed table,
+        every section's table and its figures, the cautions at its foot.
 
         Figures are drawn with `bagwise.plots` and embedded as PNG data URIs; the page
         fetches nothing (inline CSS, no scripts), so it reads offline. Without matplotlib
@@ -513,9 +444,3 @@ class Diagnosis:
         rows = [(section, quantity, value) for section, numbers in self.summary().items()
                 for quantity, value in numbers.items()]
         return pd.DataFrame(rows, columns=["section", "quantity", "value"])
-
-
-def _escape(text: str) -> str:
-    import html
-
-    return html.escape(text)

@@ -31,11 +31,6 @@ CAUTIONS = (
     "themselves noisy for small ensembles and small data sets."
 )
 
-#: The members x members correlation heatmap is drawn up to this many members.
-HEATMAP_MEMBERS = 300
-#: Bins of the standard-error figures (fewer when there are fewer points).
-BINS = 10
-
 _NO_PLOTS = ("Figures need matplotlib, an optional dependency: install it with "
              "<code>pip install bagwise[plots]</code>.")
 
@@ -71,8 +66,9 @@ def format_number(value) -> str:
 
 
 def summary_rows(summary: dict) -> list[tuple[str, str, str]]:
-    """``(section, quantity, value)`` rows of `Diagnosis.summary`, values formatted."""
-    return [(section.replace("_", " "), quantity.replace("_", " "), format_number(value))
+    """``(section, quantity, value)`` rows of `Diagnosis.summary`, values formatted; the
+    keys as they are (glossary names, the same as in the JSON summary)."""
+    return [(section, quantity, format_number(value))
             for section, numbers in summary.items() for quantity, value in numbers.items()]
 
 
@@ -80,7 +76,7 @@ def _summary_table(summary: dict) -> str:
     rows, last = [], None
     for section, quantity, value in summary_rows(summary):
         first = section != last
-        label = html.escape(section.replace("_", " ")) if first else ""
+        label = html.escape(section) if first else ""
         rows.append(f"<tr class='{'first' if first else 'rest'}'><th>{label}</th>"
                     f"<td>{html.escape(quantity)}</td><td class='value'>{html.escape(value)}</td></tr>")
         last = section
@@ -122,64 +118,16 @@ def _have_matplotlib() -> bool:
 
 
 def _figures(diagnosis, unit) -> dict[str, list[str]]:
-    """Figures by section attribute of the diagnosis."""
-    from . import plots
-    from .decomposition import correlation
-
-    figures: dict[str, list[str]] = {}
-    d = diagnosis.decomposition
-    figures["decomposition"] = [_figure(lambda ax: plots.plot_decomposition(d, ax=ax, unit=unit),
-                                        "what averaging removed: mean member loss, ambiguity "
-                                        "and ensemble loss")]
-    if d.identity:
-        figures["decomposition"].append(_figure(
-            lambda ax: plots.plot_ambiguity_by_point(d, ax=ax, unit=unit),
-            "per-point ambiguity against per-point member loss"))
-    oob = diagnosis.out_of_bag
-    caption = "error against ensemble size" + (", with the out-of-bag curve" if oob else "")
-    figures["size_curve"] = [_figure(
-        lambda ax: plots.plot_size_curve(diagnosis.size_curve, out_of_bag=oob, ax=ax, unit=unit),
-        caption)]
-    points = getattr(diagnosis, "_points", None)
-    if diagnosis.correlation is not None and points is not None and d.members <= HEATMAP_MEMBERS:
-        one, target = points
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            full = correlation(one, target, matrix=True)
-        figures["correlation"] = [_figure(lambda ax: plots.plot_correlation_matrix(full, ax=ax),
-                                          "residual correlation between members, ordered so "
-                                          "groups show as blocks", figsize=(6.0, 5.0))]
-    u = diagnosis.uncertainty
-    if u is not None and points is not None:
-        target = points[1]
-        bins = max(1, min(BINS, len(target)))
-        figures["uncertainty"] = [
-            _figure(lambda ax: plots.plot_error_vs_std_error(u, target, bins=bins, ax=ax,
-                                                             unit=unit),
-                    "predicted standard error against the observed error"),
-            _figure(lambda ax: plots.plot_interval_coverage(u, target, bins=bins, ax=ax,
-                                                            unit=unit),
-                    "coverage of the 90% intervals by bin of standard error")]
-    v = getattr(diagnosis, "diversity", None)
-    if v is not None and v.members <= HEATMAP_MEMBERS:
-        figures["diversity"] = [_figure(lambda ax: plots.kappa_error(v, ax=ax),
-                                        "kappa-error diagram: one point per pair of members; "
-                                        "high kappa means the pair is redundant")]
-    s = diagnosis.spread
-    if s is not None:
-        figures["spread"] = [
-            _figure(lambda ax: plots.plot_rho(s, ax=ax),
-                    "rho: share of a member's variance that comes from the training data"),
-            _figure(lambda ax: plots.plot_between_within(s, ax=ax, unit=unit),
-                    "between (training data) against within (member) variance per point")]
-    return figures
+    """The figures each section supplies, drawn, by section key."""
+    return {section.key: [_figure(figure.draw, figure.caption, figure.figsize)
+                          for figure in section.figures(result, diagnosis, unit)]
+            for section, result in diagnosis._present()}
 
 
 # -- the document ---------------------------------------------------------------------------
 
 def render(diagnosis, *, title=None, unit=None, figures=True) -> str:
     """The HTML report of ``diagnosis`` (see `Diagnosis.to_html`)."""
-    d = diagnosis.decomposition
     title = title or "bagwise diagnosis"
     if not isinstance(title, str):
         raise TypeError(f"`title`: expected a string, got {type(title).__name__}")
@@ -190,19 +138,24 @@ def render(diagnosis, *, title=None, unit=None, figures=True) -> str:
             drawn = _figures(diagnosis, unit)
         else:
             note = f"<p class='note'>{_NO_PLOTS}</p>"
-    sections = [f"<section>{html_block(heading, rows, reading)}"
-                f"{''.join(drawn.get(attribute, []))}</section>"
-                for attribute, heading, rows, reading in diagnosis._parts()]
+    sections = [f"<section>{html_block(heading, rows, note)}"
+                f"{''.join(drawn.get(key, []))}</section>"
+                for key, heading, rows, note in diagnosis._parts()]
     readings = "".join(f"<li>{html.escape(line)}</li>" for line in diagnosis.readings())
-    head = (f"{html.escape(diagnosis.kind)}: {d.members:,} members x {d.n_points:,} points, "
-            f"loss {html.escape(d.loss)}")
+    ensemble = diagnosis.summary()["ensemble"]
+    head = (f"{html.escape(diagnosis.kind)}: {diagnosis.n_members:,} members x "
+            f"{diagnosis.n_points:,} points"
+            + (f", loss {html.escape(str(ensemble['loss']))}" if "loss" in ensemble else ""))
+    needed = diagnosis._quiet_needed()
+    needed_block = (f"<h2>Members needed</h2><p>{html.escape(needed._reading())}.</p>"
+                    f"{needed._html()}" if len(needed) else "")
     return (
         "<!DOCTYPE html>\n<html lang='en'><head><meta charset='utf-8'>"
         f"<meta name='viewport' content='width=device-width, initial-scale=1'>"
         f"<title>{html.escape(title)}</title><style>{_STYLE}</style></head><body>"
         f"<h1>{html.escape(title)}</h1><p>{head}</p>"
         f"<h2>Readings</h2><ul>{readings}</ul>"
-        f"<h2>Key numbers</h2>{_summary_table(diagnosis.summary())}"
+        f"<h2>Key numbers</h2>{_summary_table(diagnosis.summary())}{needed_block}"
         f"<h2>Sections</h2>{note}{''.join(sections)}"
         f"<footer><h2>Cautions</h2><p>{html.escape(CAUTIONS)}</p>"
         f"<p>bagwise {html.escape(__version__)}</p></footer>"

@@ -2,8 +2,10 @@
 
 Install with ``pip install bagwise[plots]``. matplotlib is imported only when a function
 here is called, so ``import bagwise`` and ``import bagwise.plots`` work without it. Every
-function takes a result (and, where needed, the targets), draws on ``ax`` (a new figure
-when it is None) and returns the Axes, so figures compose with ``plt.subplots``.
+figure is ``plot_<name>(result, *, ax=None, ...) -> Axes``: it takes a result (and, where
+needed, the targets) positionally, everything else by keyword, draws on ``ax`` (a new
+figure when it is None) and returns the Axes, so figures compose with ``plt.subplots``.
+The functions without the prefix compute the numbers a figure shows.
 
 - `plot_size_curve`: error against ensemble size, with the finite-ensemble law, the
   infinite-ensemble error, the members needed and the out-of-bag curve;
@@ -12,13 +14,13 @@ when it is None) and returns the Axes, so figures compose with ``plt.subplots``.
   observed errors; `plot_rho`, `plot_between_within`: the between/within variance split;
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
 - `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
-- `kappa_error`: the kappa-error diagram of the pairs of classifier members.
+- `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members.
 """
 
 from .classification import margins, plot_margins, plot_reliability, reliability
 from .correlation import member_order, plot_correlation_matrix
 from .decomposition import plot_ambiguity_by_point, plot_decomposition
-from .diversity import kappa_error, kappa_error_points
+from .diversity import kappa_error_points, plot_kappa_error
 from .size_curve import plot_size_curve
 from .uncertainty import (
     binned_coverage,
@@ -32,7 +34,6 @@ from .uncertainty import (
 __all__ = [
     "binned_coverage",
     "binned_errors",
-    "kappa_error",
     "kappa_error_points",
     "margins",
     "member_order",
@@ -42,6 +43,7 @@ __all__ = [
     "plot_decomposition",
     "plot_error_vs_std_error",
     "plot_interval_coverage",
+    "plot_kappa_error",
     "plot_margins",
     "plot_reliability",
     "plot_rho",

@@ -7,7 +7,7 @@ import numpy as np
 from ..diversity import Diversity
 from . import _common as c
 
-__all__ = ["kappa_error", "kappa_error_points"]
+__all__ = ["kappa_error_points", "plot_kappa_error"]
 
 
 def kappa_error_points(diversity) -> tuple[np.ndarray, np.ndarray]:
@@ -41,7 +41,7 @@ def kappa_error_points(diversity) -> tuple[np.ndarray, np.ndarray]:
     return diversity.kappa[a, b].copy(), (error[a] + error[b]) / 2
 
 
-def kappa_error(diversity, ax=None):
+def plot_kappa_error(diversity, *, ax=None):
     """Kappa-error diagram: every pair of members as a point, x = the pair's Cohen's kappa
     (agreement beyond chance; lower is more diverse), y = the pair's mean error rate
     (Margineantu & Dietterich 1997, from memory). A good ensemble has its cloud low
@@ -62,11 +62,11 @@ def kappa_error(diversity, ax=None):
     --------
     >>> import numpy as np, bagwise
     >>> import matplotlib.pyplot as plt
-    >>> from bagwise.plots import kappa_error
+    >>> from bagwise.plots import plot_kappa_error
     >>> rng = np.random.default_rng(0)
     >>> y = rng.integers(0, 3, size=400)
     >>> members = np.where(rng.random((6, 400)) < 0.7, y, rng.integers(0, 3, (6, 400)))
-    >>> ax = kappa_error(bagwise.diversity(members, y))
+    >>> ax = plot_kappa_error(bagwise.diversity(members, y))
     >>> len(ax.collections[0].get_offsets())    # 6 members: 15 pairs
     15
     >>> plt.close(ax.figure)

@@ -1,0 +1,138 @@
+"""What every section of a `Diagnosis` supplies, and the inputs it is computed from."""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+from collections.abc import Callable, Mapping
+from typing import Any
+
+import numpy as np
+
+#: Relative tolerance of the "members needed" figures in the report.
+TOLERANCE = 0.01
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Inputs:
+    """The checked arguments of `diagnose` (the arrays are references, not copies).
+
+    ``members_are_training`` False never reads ``members`` as predictions on the training
+    rows; None reads them so when ``counts`` has one column per point.
+    """
+
+    kind: str
+    members: np.ndarray
+    y: np.ndarray
+    counts: np.ndarray | None = None
+    train_members: np.ndarray | None = None
+    y_train: np.ndarray | None = None
+    reference: np.ndarray | None = None
+    seed: Any = 0
+    n_jobs: int | None = None
+    members_are_training: bool | None = None
+
+    @functools.cached_property
+    def one_value(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """``(members, targets)`` with one number per member and point: the values, the
+        probability of the last class against ``y == n_classes - 1``, None for labels."""
+        if self.kind == "labels":
+            return None
+        if self.kind == "probabilities":
+            last = self.members.shape[2] - 1
+            return self.members[:, :, last], (self.y == last).astype(np.float64)
+        return self.members, self.y
+
+
+@dataclasses.dataclass(frozen=True)
+class Figure:
+    """One figure of a section: ``draw(ax)`` draws it on a matplotlib Axes."""
+
+    caption: str
+    draw: Callable[[Any], Any]
+    figsize: tuple[float, float] = (6.4, 4.0)
+
+
+@dataclasses.dataclass(frozen=True)
+class Needed:
+    """One "members needed" figure: what it bounds, the members, and the basis."""
+
+    bounded: str
+    members_needed: int | float
+    basis: str
+
+
+class Section:
+    """One family's part of a `Diagnosis`.
+
+    A subclass sets ``key`` (the `Diagnosis` attribute and `Diagnosis.summary` key),
+    ``title`` (the heading of its block), ``result_type`` and ``doc`` (its entry in the
+    `Diagnosis` Attributes), and overrides `compute` and whichever of the other hooks apply. Each hook
+    gets the section's own result and the whole diagnosis (to read the inputs or another
+    section's result object, never that object's attributes).
+    """
+
+    key: str = ""
+    title: str = ""
+    result_type: str = "Result"
+    doc: str = ""
+
+    def compute(self, inputs: Inputs, done: Mapping[str, Any]):
+        """The section's result from the inputs (``done``: the results of the sections
+        registered before it, by key), or None when it does not apply."""
+        raise NotImplementedError
+
+    def rows(self, result, diagnosis) -> list[tuple[str, str]]:
+        """``(label, value)`` rows of the section's text block."""
+        return result._rows()
+
+    def note(self, result, diagnosis) -> str:
+        """The one line under the section's block."""
+        return result._reading()
+
+    def readings(self, result, diagnosis) -> list[str]:
+        """Findings in plain words for the diagnosis's readings."""
+        return []
+
+    def summary(self, result, diagnosis) -> dict:
+        """The key numbers, JSON-ready (see `number`)."""
+        return {}
+
+    def ensemble(self, result) -> dict:
+        """Entries the section adds to the ``"ensemble"`` part of the summary."""
+        return {}
+
+    def needed(self, result, tolerance: float) -> list[Needed]:
+        """The "members needed" figures the section can give at ``tolerance``."""
+        return []
+
+    def figures(self, result, diagnosis, unit) -> list[Figure]:
+        """The section's figures in the HTML report."""
+        return []
+
+
+def number(value):
+    """A JSON-friendly number: Python int/float/bool, NaN and infinities as None."""
+    import math
+
+    if value is None:
+        return None
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    value = float(value)
+    return None if math.isnan(value) or math.isinf(value) else value
+
+
+def quiet(call):
+    """Call without the warnings the result already gave when `diagnose` built it."""
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return call()
+
+
+def is_nan(value) -> bool:
+    return isinstance(value, float) and value != value
