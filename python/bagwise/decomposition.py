@@ -28,8 +28,8 @@ from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
 from .aggregation import aggregate, vote_fractions  # noqa: F401
-from .correlation import correlation  # noqa: F401
-from .size_curve import size_curve  # noqa: F401
+from .correlation import Correlation, correlation  # noqa: F401
+from .size_curve import SizeCurve, size_curve  # noqa: F401
 
 __all__ = ["Decomposition", "DecompositionStream", "decompose", "decompose_stream"]
 
