@@ -29,6 +29,7 @@ use ndarray::{ArrayView2, ArrayView3, Axis};
 use rayon::prelude::*;
 
 use crate::error::{zeroed, Error, Result};
+use crate::members::{for_chunks, no_slots, vote, Chunks};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 
@@ -40,8 +41,8 @@ pub const BLOCK_POINTS: usize = 4096;
 /// the tile, j > i).
 const TILE_MEMBERS: usize = 4;
 
-/// Largest number of classes: the state keeps members × n_classes counts.
-pub const MAX_CLASSES: usize = 1 << 20;
+/// Largest number of classes (the shared cap; the state keeps members × n_classes counts).
+pub use crate::members::MAX_CLASSES;
 
 /// An unsigned label code of a block (u8, u16 or u32, chosen by the number of classes).
 trait Code: Copy + Default + Eq + Send + Sync {
@@ -317,22 +318,26 @@ impl DiversityState {
         monitor: &dyn Monitor,
     ) -> Result<()> {
         let (m, n) = predictions.dim();
-        let mut block = Block::<C> {
-            points: 0,
-            codes: vec![C::default(); m * BLOCK_POINTS.min(n)],
-            correct: vec![0; m * BLOCK_POINTS.min(n)],
+        let k = self.n_classes;
+        // One block in flight at a time: a block holds members × BLOCK_POINTS codes, and the
+        // pair counts of each block are added (in parallel over pairs) before the next.
+        let chunks = Chunks {
+            n_points: n,
+            chunk_points: BLOCK_POINTS,
+            per_round: 1,
         };
-        let mut targets = vec![0usize; BLOCK_POINTS.min(n)];
-        let mut start = 0;
-        while start < n {
-            let end = (start + BLOCK_POINTS).min(n);
-            let b = end - start;
-            for (t, &label) in targets.iter_mut().zip(y.slice(ndarray::s![start..end])) {
-                *t = class_of(label, self.n_classes, "y")?;
-            }
-            block.points = b;
-            let k = self.n_classes;
-            let targets = &targets[..b];
+        let work = |points: std::ops::Range<usize>, _: &mut ()| -> Result<Block<C>> {
+            let (start, b) = (points.start, points.len());
+            let targets = y
+                .slice(ndarray::s![points])
+                .iter()
+                .map(|&label| class_of(label, k, "y"))
+                .collect::<Result<Vec<usize>>>()?;
+            let mut block = Block::<C> {
+                points: b,
+                codes: vec![C::default(); m * b],
+                correct: vec![0; m * b],
+            };
             pool.run(|| {
                 block
                     .codes
@@ -341,14 +346,13 @@ impl DiversityState {
                     .take(m)
                     .enumerate()
                     .try_for_each(|(i, (codes, correct))| {
-                        encode_member(predictions, i, start, k, targets, codes, correct)
+                        encode_member(predictions, i, start, k, &targets, codes, correct)
                     })
             })?;
-            self.add_block(&block, pool)?;
-            monitor.progress(end, n)?;
-            start = end;
-        }
-        Ok(())
+            Ok(block)
+        };
+        let merge = |block: Block<C>| self.add_block(&block, pool);
+        for_chunks(chunks, &mut no_slots(chunks), pool, monitor, work, merge)
     }
 
     /// Adds the counts of one encoded block.
@@ -687,19 +691,12 @@ fn encode_member<C: Code, T: Real>(
     Ok(())
 }
 
-/// Index of the largest probability, the lowest among ties.
+/// The member's label from its probabilities: the shared [`vote`] (lowest class among ties).
 fn argmax<T: Real>(row: ndarray::ArrayView1<'_, T>) -> Result<usize> {
-    let mut best = (0, f64::NEG_INFINITY);
-    for (c, &p) in row.iter().enumerate() {
-        let p = p.to_f64();
-        if p.is_nan() {
-            return Err(Error::value("members", "probabilities contain NaN"));
-        }
-        if p > best.1 {
-            best = (c, p);
-        }
+    if row.iter().any(|p| p.to_f64().is_nan()) {
+        return Err(Error::value("members", "probabilities contain NaN"));
     }
-    Ok(best.0)
+    Ok(vote(row.iter().map(|p| p.to_f64())))
 }
 
 /// (both correct, same label) counts of two members over a block.

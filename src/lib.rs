@@ -2,6 +2,11 @@
 //!
 //! The core is pure Rust (no Python types) and is organised by family:
 //!
+//! - [`members`]: the one model of member predictions (values, probabilities, labels),
+//!   the task, the vote and its tie rule, shared tolerances and caps, the chunk driver and
+//!   mergeable stream states;
+//! - [`aggregation`], [`decomposition`], [`size_curve`], [`correlation`]: combining members,
+//!   the ambiguity decomposition, the ensemble-size curve, residual correlation;
 //! - [`resampling`]: which rows each member sees (bootstrap, subsampling, Bayesian weights,
 //!   strata, groups, moving blocks);
 //! - [`diversity`]: how differently classifier members err (Kuncheva & Whitaker 2003);
@@ -15,10 +20,13 @@
 //! The pyo3 bindings live in the `python` module behind the `python` cargo feature, which
 //! maturin turns on; `cargo test` builds and tests the core without linking Python.
 
+pub mod aggregation;
+pub mod correlation;
 pub mod decomposition;
 pub mod diversity;
 pub mod error;
 pub mod learners;
+pub mod members;
 pub mod numeric;
 pub mod out_of_bag;
 pub mod parallel;
@@ -26,6 +34,7 @@ pub mod persistence;
 pub mod random;
 pub mod replicates;
 pub mod resampling;
+pub mod size_curve;
 pub mod uncertainty;
 
 #[cfg(feature = "python")]

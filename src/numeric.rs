@@ -33,7 +33,7 @@ impl Real for f64 {
 ///   mean = mean_a + δ · n_b / n
 ///   M2   = M2_a + M2_b + δ² · n_a · n_b / n
 /// ```
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, serde::Serialize, serde::Deserialize)]
 pub struct Moments {
     count: u64,
     mean: f64,

@@ -34,20 +34,16 @@
 //! chunk by chunk merge to the in-memory result up to ~1e-15 relative.
 
 use ndarray::{s, ArrayView1, ArrayView2, ArrayView3};
-use rayon::prelude::*;
 
 use crate::error::{Error, Result};
+use crate::members::{for_chunks, vote, Chunks};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 
 /// Probabilities below this are raised to it before taking the logarithm.
 pub const LOG_LOSS_FLOOR: f64 = 1e-15;
 
-/// Largest deviation of a member's class probabilities from summing to one.
-pub const PROBABILITY_TOLERANCE: f64 = 1e-6;
-
-/// Largest number of classes (vote buffers are points × classes).
-pub const MAX_CLASSES: usize = 1 << 16;
+pub use crate::members::{Task, MAX_CLASSES, PROBABILITY_TOLERANCE};
 
 /// A compensated running sum (Neumaier 1974, "Rundungsfehleranalyse einiger Verfahren zur
 /// Summation endlicher Summen", ZAMM 54): the error of every addition is kept in `carry`,
@@ -359,25 +355,6 @@ impl<C: CountValue> InBagCounts for ArrayView2<'_, C> {
     }
 }
 
-/// What the members predict.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Task {
-    /// One real value per point.
-    Regression,
-    /// A class (label or probabilities) among `n_classes`.
-    Classification { n_classes: usize },
-}
-
-impl Task {
-    /// Values accumulated per point: 1 for regression, one per class otherwise.
-    pub fn width(self) -> usize {
-        match self {
-            Task::Regression => 1,
-            Task::Classification { n_classes } => n_classes,
-        }
-    }
-}
-
 /// Member predictions on the training points, added into running per-point sums.
 pub trait MemberPredictions: Sync {
     /// (members, points).
@@ -385,7 +362,7 @@ pub trait MemberPredictions: Sync {
     /// Regression or classification with its number of classes.
     fn task(&self) -> Task;
     /// Adds member `member`'s prediction for points `start..start + mask.len()`, times
-    /// `mask` (1.0 out of bag, 0.0 in bag), into `sums` (points × [`Task::width`],
+    /// `mask` (1.0 out of bag, 0.0 in bag), into `sums` (points × [`Task::outputs`],
     /// row-major).
     ///
     /// A NaN or infinite prediction makes its point's sum non-finite (also when in bag,
@@ -821,7 +798,7 @@ pub fn out_of_bag(
 ) -> Result<OutOfBagPartial> {
     let (m, n) = members.dim();
     let task = members.task();
-    let width = task.width();
+    let width = task.outputs();
     if m == 0 || n == 0 {
         return Err(Error::value(
             "members",
@@ -870,7 +847,7 @@ pub fn out_of_bag(
     state.points = n as u64;
 
     let block = block_points(width);
-    let mut jobs: Vec<Block<'_>> = Vec::with_capacity(n.div_ceil(block));
+    let mut jobs: Vec<Option<Block<'_>>> = Vec::with_capacity(n.div_ceil(block));
     let mut probabilities = out.probabilities;
     for (i, (prediction, n_oob)) in out
         .prediction
@@ -885,37 +862,29 @@ pub fn out_of_bag(
             rows * width
         });
         probabilities = tail;
-        jobs.push(Block {
+        jobs.push(Some(Block {
             start: i * block,
             prediction,
             n_oob,
             probabilities: head,
-        });
+        }));
     }
-    let per_round = 8 * pool.threads().max(1);
-    let total = jobs.len();
-    let mut done = 0;
-    let mut jobs = jobs.into_iter();
-    loop {
-        let round: Vec<Block<'_>> = jobs.by_ref().take(per_round).collect();
-        if round.is_empty() {
-            break;
+    let chunks = Chunks {
+        n_points: n,
+        chunk_points: block,
+        per_round: 8 * pool.threads().max(1),
+    };
+    let work = |_: std::ops::Range<usize>, job: &mut Option<Block<'_>>| match job.take() {
+        Some(job) => job.run(members, counts, y, weights, sizes),
+        None => Err(Error::value("members", "a block of points was run twice")),
+    };
+    let merge = |sums: Vec<ErrorSums>| {
+        for (a, b) in state.curve.iter_mut().zip(&sums) {
+            a.merge(b);
         }
-        let k = round.len();
-        let results: Vec<Result<Vec<ErrorSums>>> = pool.run(|| {
-            round
-                .into_par_iter()
-                .map(|job| job.run(members, counts, y, weights, sizes))
-                .collect()
-        });
-        for result in results {
-            for (a, b) in state.curve.iter_mut().zip(&result?) {
-                a.merge(b);
-            }
-        }
-        done += k;
-        monitor.progress(done, total)?;
-    }
+        Ok(())
+    };
+    for_chunks(chunks, &mut jobs, pool, monitor, work, merge)?;
     Ok(state)
 }
 
@@ -938,7 +907,7 @@ impl Block<'_> {
     ) -> Result<Vec<ErrorSums>> {
         let rows = self.prediction.len();
         let task = members.task();
-        let width = task.width();
+        let width = task.outputs();
         let y = y.slice(s![self.start..self.start + rows]);
         let weights = weights.map(|w| w.slice_move(s![self.start..self.start + rows]));
         check_targets(task, y, self.start)?;
@@ -1051,7 +1020,7 @@ impl Block<'_> {
                         out.fill(f64::NAN);
                     } else {
                         out.iter_mut().zip(point).for_each(|(o, &s)| *o = s / count);
-                        self.prediction[j] = vote(point) as f64;
+                        self.prediction[j] = vote(point.iter().copied()) as f64;
                     }
                 }
             }
@@ -1078,18 +1047,6 @@ fn check_targets(task: Task, y: ArrayView1<'_, f64>, start: usize) -> Result<()>
             }),
     };
     bad.map_or(Ok(()), |message| Err(Error::value("y", message)))
-}
-
-/// Index of the largest value, the lowest index among ties.
-#[inline]
-fn vote(values: &[f64]) -> usize {
-    let mut best = 0;
-    for (c, &v) in values.iter().enumerate().skip(1) {
-        if v > values[best] {
-            best = c;
-        }
-    }
-    best
 }
 
 /// Points per lane group of the error sums; per-lane partial sums are independent, so the
@@ -1183,7 +1140,11 @@ fn evaluate_classes(
             let p = (point[truth] / count).max(LOG_LOSS_FLOOR);
             covered += 1;
             part[0] += w[j];
-            part[1] += if vote(point) != truth { w[j] } else { 0.0 };
+            part[1] += if vote(point.iter().copied()) != truth {
+                w[j]
+            } else {
+                0.0
+            };
             part[2] += w[j] * brier;
             part[3] -= w[j] * p.ln();
         }
@@ -1221,7 +1182,7 @@ mod tests {
         let (_, n) = members.dim();
         let width = match members.task() {
             Task::Regression => 0,
-            t => t.width(),
+            t => t.outputs(),
         };
         let mut prediction = vec![0.0; n];
         let mut n_oob = vec![0; n];

@@ -2,20 +2,9 @@
 
 from ._core import __version__
 from ._warnings import BagwiseWarning
-from .decomposition import (
-    Correlation,
-    Decomposition,
-    DecompositionStream,
-    SizeCurve,
-    SizeCurveStream,
-    aggregate,
-    correlation,
-    decompose,
-    decompose_stream,
-    size_curve,
-    size_curve_stream,
-    vote_fractions,
-)
+from .aggregation import aggregate, vote_fractions
+from .correlation import Correlation, correlation
+from .decomposition import Decomposition, DecompositionStream, decompose, decompose_stream
 from .diagnosis import Diagnosis, diagnose
 from .diversity import Diversity, DiversityStream, diversity, diversity_stream
 from .ensemble import ClassificationBag, RegressionBag
@@ -23,6 +12,7 @@ from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
 from .replicates import ReplicateSpread, replicate_spread
 from .resampling import Resample, resample
+from .size_curve import SizeCurve, SizeCurveStream, size_curve, size_curve_stream
 from .uncertainty import (
     CountGram,
     PredictionVariance,

@@ -7,9 +7,11 @@ import numpy.typing as npt
 __all__ = [
     "__version__",
     "correlation_matrix",
+    "CorrelationSummary",
     "CountGram",
     "crc32",
     "DecompositionAccumulator",
+    "DecompositionMeans",
     "DiversityAccumulator",
     "default_sizes",
     "LinearEnsemble",
@@ -23,6 +25,7 @@ __all__ = [
     "Resampler",
     "residual_correlation",
     "SizeCurveAccumulator",
+    "SizeCurveTable",
     "TreeEnsemble",
     "unpack_container",
 ]
@@ -181,33 +184,39 @@ class CountGram:
     def to_bytes(self) -> bytes: ...
     @staticmethod
     def from_bytes(data: bytes) -> CountGram: ...
-# -- decomposition -------------------------------------------------------------------------
+# -- aggregation ---------------------------------------------------------------------------
 
 def mean_prediction(
     members: npt.NDArray[np.floating],
-    weights: npt.NDArray[np.float64] | None = None,
+    member_weights: npt.NDArray[np.float64] | None = None,
     n_jobs: int | None = None,
 ) -> npt.NDArray[np.float64]: ...
 def majority_vote(
     members: npt.NDArray[np.int64],
     n_classes: int,
-    weights: npt.NDArray[np.float64] | None = None,
+    member_weights: npt.NDArray[np.float64] | None = None,
     n_jobs: int | None = None,
 ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]: ...
-def residual_correlation(
-    members: npt.NDArray[np.floating],
-    y: npt.NDArray[np.float64],
-    n_jobs: int | None = None,
-) -> dict[str, Any]: ...
-def correlation_matrix(
-    members: npt.NDArray[np.floating],
-    y: npt.NDArray[np.float64],
-    n_jobs: int | None = None,
-) -> npt.NDArray[np.float64]: ...
+
+# -- decomposition -------------------------------------------------------------------------
+
+@final
+class DecompositionMeans:
+    """Means over the points of a decomposition's per-point losses."""
+
+    @property
+    def n_points(self) -> int: ...
+    @property
+    def ensemble_loss(self) -> float: ...
+    @property
+    def member_loss(self) -> float: ...
+    @property
+    def gain(self) -> float: ...
+
 @final
 class DecompositionAccumulator:
     def __new__(
-        cls, loss: str, weights: npt.NDArray[np.float64] | None = None
+        cls, loss: str, member_weights: npt.NDArray[np.float64] | None = None
     ) -> DecompositionAccumulator: ...
     def update(
         self,
@@ -218,14 +227,42 @@ class DecompositionAccumulator:
     ) -> tuple[
         npt.NDArray[np.float64], npt.NDArray[np.float64], npt.NDArray[np.float64]
     ]: ...
+    def merge(self, other: DecompositionAccumulator) -> None: ...
     @property
-    def members(self) -> int | None: ...
-    def moments(self) -> dict[str, Any]: ...
+    def n_members(self) -> int | None: ...
+    def result(self) -> DecompositionMeans: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> DecompositionAccumulator: ...
+    def __reduce__(self) -> tuple[Any, tuple[bytes]]: ...
+
+# -- size curve ----------------------------------------------------------------------------
+
+@final
+class SizeCurveTable:
+    """The finished size curve."""
+
+    @property
+    def sizes(self) -> npt.NDArray[np.int64]: ...
+    @property
+    def curve(self) -> npt.NDArray[np.float64]: ...
+    @property
+    def std_error(self) -> npt.NDArray[np.float64]: ...
+    @property
+    def per_order(self) -> npt.NDArray[np.float64]: ...
+    @property
+    def ensemble_loss(self) -> float: ...
+    @property
+    def mean_within(self) -> float: ...
+    @property
+    def n_points(self) -> int: ...
+    @property
+    def n_members(self) -> int: ...
 
 @final
 class SizeCurveAccumulator:
     def __new__(
-        cls, loss: str, members: int, sizes: list[int], orders: int, seed: int
+        cls, loss: str, n_members: int, sizes: list[int], orders: int, seed: int
     ) -> SizeCurveAccumulator: ...
     def orders(self) -> npt.NDArray[np.int64]: ...
     def update(
@@ -235,7 +272,41 @@ class SizeCurveAccumulator:
         n_classes: int | None = None,
         n_jobs: int | None = None,
     ) -> None: ...
-    def finish(self) -> dict[str, Any]: ...
+    def merge(self, other: SizeCurveAccumulator) -> None: ...
+    def result(self) -> SizeCurveTable: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> SizeCurveAccumulator: ...
+    def __reduce__(self) -> tuple[Any, tuple[bytes]]: ...
+
+# -- correlation ---------------------------------------------------------------------------
+
+@final
+class CorrelationSummary:
+    """Residual variances and their mean pairwise covariance and correlation."""
+
+    @property
+    def residual_variance(self) -> npt.NDArray[np.float64]: ...
+    @property
+    def mean_residual_variance(self) -> float: ...
+    @property
+    def mean_residual_covariance(self) -> float: ...
+    @property
+    def mean_residual_correlation(self) -> float: ...
+    @property
+    def constant_members(self) -> npt.NDArray[np.int64]: ...
+
+def residual_correlation(
+    members: npt.NDArray[np.floating],
+    y: npt.NDArray[np.float64],
+    n_jobs: int | None = None,
+) -> CorrelationSummary: ...
+def correlation_matrix(
+    members: npt.NDArray[np.floating],
+    y: npt.NDArray[np.float64],
+    n_jobs: int | None = None,
+) -> npt.NDArray[np.float64]: ...
+
 # -- diversity ---------------------------------------------------------------------------
 
 @final

@@ -40,3 +40,12 @@ def safe_html(obj: object, render) -> str:
         except Exception:  # noqa: BLE001
             text = f"<{type(obj).__name__}>"
         return f"<pre>{html.escape(text)}</pre>"
+
+
+def fmt(value) -> str:
+    """A number for a result's text block: 6 significant digits, ``nan``, ``-`` for None."""
+    if value is None:
+        return "-"
+    if isinstance(value, float) and value != value:
+        return "nan"
+    return f"{value:.6g}"

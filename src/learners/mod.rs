@@ -15,40 +15,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 
-/// What an ensemble predicts.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-pub enum Task {
-    /// A real target; members predict one value per point.
-    Regression,
-    /// Class codes `0..n_classes`; members predict class fractions per point.
-    Classification { n_classes: usize },
-}
-
-impl Task {
-    /// Parses the user-facing name; `n_classes` is used for classification only.
-    ///
-    /// # Errors
-    /// `task` for an unknown name, `n_classes` below 1 for classification.
-    pub fn parse(name: &str, n_classes: usize) -> Result<Self> {
-        match name {
-            "regression" => Ok(Task::Regression),
-            "classification" if n_classes >= 1 => Ok(Task::Classification { n_classes }),
-            "classification" => Err(Error::value("n_classes", "must be at least 1")),
-            other => Err(Error::value(
-                "task",
-                format!("expected 'regression' or 'classification', got {other:?}"),
-            )),
-        }
-    }
-
-    /// Values per point in a member's prediction: 1, or the number of classes.
-    pub fn outputs(self) -> usize {
-        match self {
-            Task::Regression => 1,
-            Task::Classification { n_classes } => n_classes,
-        }
-    }
-}
+pub use crate::members::Task;
 
 /// A row-weight element: in-bag counts (unsigned integers) or continuous weights (f64).
 pub trait Weight: Copy + Send + Sync + 'static {

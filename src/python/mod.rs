@@ -54,14 +54,18 @@ macro_rules! with_counts {
     };
 }
 
+mod aggregation;
+mod correlation;
 mod decomposition;
 mod diversity;
 mod linear;
+mod members;
 mod neighbors;
 mod out_of_bag;
 mod persistence;
 mod replicates;
 mod resampling;
+mod size_curve;
 mod tree;
 mod uncertainty;
 
@@ -231,7 +235,10 @@ pub(crate) fn positive(value: i64, argument: &'static str) -> PyResult<usize> {
 #[pymodule]
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    aggregation::register(m)?;
     decomposition::register(m)?;
+    size_curve::register(m)?;
+    correlation::register(m)?;
     diversity::register(m)?;
     resampling::register(m)?;
     uncertainty::register(m)?;

@@ -186,7 +186,7 @@ fn out_of_bag_chunk<'py>(
     let (_, n) = predictions.dim();
     let width = match predictions.task() {
         Task::Regression => None,
-        task => Some(task.width()),
+        task => Some(task.outputs()),
     };
     let prediction = zeros_nd::<f64>(py, vec![n])?;
     let n_oob = zeros_nd::<i64>(py, vec![n])?;

@@ -1,0 +1,106 @@
+"""Combining member predictions into the ensemble's prediction.
+
+`aggregate` gives the (weighted) mean of values, the soft vote of probabilities or the
+majority vote of labels; `vote_fractions` the share of the votes each class gets. Members
+are read by the shared reader (`bagwise._members`): float values ``(n_members,
+n_points)``, float probabilities ``(n_members, n_points, n_classes)`` or integer labels
+``(n_members, n_points)``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import _core
+from ._members import member_weights as _member_weights
+from ._members import members_array, n_classes_of
+from ._validation import n_jobs_value, positive_int
+
+__all__ = ["aggregate", "vote_fractions"]
+
+
+def _aggregate_iv(members, member_weights, n_classes, n_jobs):
+    kind, members = members_array(members)
+    member_weights = _member_weights(member_weights, members.shape[0])
+    if kind == "labels":
+        n_classes = n_classes_of(n_classes, members)
+    elif n_classes is not None:
+        positive_int(n_classes, "n_classes")
+        if kind == "probabilities" and n_classes != members.shape[2]:
+            raise ValueError(f"`n_classes`: is {n_classes} but `members` has {members.shape[2]} "
+                             "classes")
+    return kind, members, member_weights, n_classes, n_jobs_value(n_jobs)
+
+
+def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> np.ndarray:
+    """Combine member predictions into the ensemble prediction.
+
+    Parameters
+    ----------
+    members : array
+        Float ``(n_members, n_points)`` values, float ``(n_members, n_points, n_classes)``
+        probabilities, or integer ``(n_members, n_points)`` class labels.
+    member_weights : array of shape (n_members,), optional
+        Non-negative member weights summing to 1 (within 1e-6); equal weights by default.
+    n_classes : int, optional
+        Number of classes for labels (default: largest label + 1).
+    n_jobs : int, optional
+        Worker threads (default: all cores); results do not depend on it.
+
+    Returns
+    -------
+    ndarray
+        Values: the weighted mean, float64 ``(n_points,)``. Probabilities: the soft vote
+        (mean probabilities), float64 ``(n_points, n_classes)``. Labels: the (weighted)
+        majority vote, int64 ``(n_points,)``; among tied classes the lowest class index wins
+        (weighted totals are compared as float sums).
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> bagwise.aggregate(np.array([[1.0, 2.0], [3.0, 6.0]]))
+    array([2., 4.])
+    >>> bagwise.aggregate(np.array([[2, 0], [1, 1], [1, 2], [2, 2]]))  # ties go to class 1
+    array([1, 2])
+    """
+    kind, members, member_weights, n_classes, n_jobs = _aggregate_iv(
+        members, member_weights, n_classes, n_jobs)
+    if kind == "labels":
+        return _core.majority_vote(members, n_classes, member_weights, n_jobs)[0]
+    return _core.mean_prediction(members, member_weights, n_jobs)
+
+
+def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None) -> np.ndarray:
+    """Share of the (weighted) member votes each class gets at every point.
+
+    The fractions estimate class probabilities from hard votes: row ``j`` is
+    ``sum_b w_b [t_bj == c] / sum_b w_b`` for ``c = 0..n_classes-1``.
+
+    Parameters
+    ----------
+    members : integer array of shape (n_members, n_points)
+        Class labels ``0..n_classes-1``.
+    n_classes : int, optional
+        Number of classes (default: largest label + 1).
+    member_weights : array of shape (n_members,), optional
+        Non-negative member weights summing to 1.
+    n_jobs : int, optional
+        Worker threads.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_points, n_classes)
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> bagwise.vote_fractions(np.array([[0, 1], [0, 2], [1, 2], [0, 2]]), n_classes=3)
+    array([[0.75, 0.25, 0.  ],
+           [0.  , 0.25, 0.75]])
+    """
+    kind, members, member_weights, n_classes, n_jobs = _aggregate_iv(
+        members, member_weights, n_classes, n_jobs)
+    if kind != "labels":
+        raise TypeError("`members`: vote fractions need integer labels; for probabilities the "
+                        "soft vote is `aggregate(members)`")
+    return _core.majority_vote(members, n_classes, member_weights, n_jobs)[1]

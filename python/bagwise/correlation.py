@@ -1,0 +1,156 @@
+"""Spread and correlation of the members' residuals ``r_b = t_b - y``.
+
+`correlation` gives every member's residual variance, their mean pairwise covariance and
+correlation (without the members x members matrix), and the matrix itself when asked.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from . import _core
+from ._display import fmt as _fmt
+from ._members import members_array, targets
+from ._results import Result
+from ._validation import n_jobs_value
+from ._warnings import warn
+
+__all__ = ["Correlation", "correlation"]
+
+
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class Correlation(Result):
+    """Spread and correlation of the member residuals.
+
+    Attributes
+    ----------
+    n_members, n_points : int
+        Shape of the predictions.
+    residual_variance : ndarray of float64, shape (n_members,)
+        Variance (ddof 1) across points of every member's residual.
+    mean_residual_variance : float
+        Mean of ``residual_variance``.
+    mean_residual_covariance : float
+        Mean over pairs ``a != b`` of the residual covariance (NaN, with a warning, for one
+        member).
+    mean_residual_correlation : float
+        Mean over pairs of members with non-constant residuals of the residual correlation.
+        NaN (with a warning) when fewer than two members have non-constant residuals.
+    constant_members : ndarray of int64
+        Members whose residuals are constant across points; their correlations are NaN and
+        they are left out of ``mean_residual_correlation`` (with a warning).
+    residual_correlation : ndarray of float64, shape (n_members, n_members) or None
+        The full correlation matrix when asked for (NaN rows/columns for constant members).
+    """
+
+    _title = "Correlation"
+
+    n_members: int
+    n_points: int
+    residual_variance: np.ndarray
+    mean_residual_variance: float
+    mean_residual_covariance: float
+    mean_residual_correlation: float
+    constant_members: np.ndarray
+    residual_correlation: np.ndarray | None
+
+    def _rows(self):
+        return [
+            ("members x points", f"{self.n_members:,} x {self.n_points:,}"),
+            ("mean residual variance", _fmt(self.mean_residual_variance)),
+            ("mean residual covariance", _fmt(self.mean_residual_covariance)),
+            ("mean residual correlation", _fmt(self.mean_residual_correlation)),
+            ("constant members", str(self.constant_members.size)),
+        ]
+
+    def _reading(self):
+        rho = self.mean_residual_correlation
+        if math.isnan(rho):
+            return "no correlation: fewer than two members with varying residuals"
+        strength = "strongly" if rho > 0.7 else "moderately" if rho > 0.3 else "weakly"
+        return (f"members' errors are {strength} correlated; averaging removes less of the "
+                "error the closer this is to 1")
+
+    def to_frame(self):
+        """One row per member: its residual variance and whether it is constant."""
+        import pandas as pd
+
+        constant = np.zeros(self.n_members, dtype=bool)
+        constant[self.constant_members] = True
+        return pd.DataFrame({"member": np.arange(self.n_members),
+                             "residual_variance": self.residual_variance, "constant": constant})
+
+
+def _correlation(n_points, summary, matrix) -> Correlation:
+    """The one place a `Correlation` is built: from the core's typed summary, with the
+    warnings of its edge cases."""
+    residual_variance = summary.residual_variance
+    n_members = residual_variance.shape[0]
+    constant = np.asarray(summary.constant_members, dtype=np.int64)
+    if n_members == 1:
+        warn("`members`: a single member has no pairs; the mean residual covariance and "
+             "correlation are NaN")
+    elif constant.size:
+        warn(f"`members`: {constant.size} member(s) have constant residuals, so their "
+             "correlations are undefined (NaN) and left out of the mean residual correlation")
+    return Correlation(
+        n_members=n_members, n_points=n_points, residual_variance=residual_variance,
+        mean_residual_variance=float(summary.mean_residual_variance),
+        mean_residual_covariance=float(summary.mean_residual_covariance),
+        mean_residual_correlation=float(summary.mean_residual_correlation),
+        constant_members=constant, residual_correlation=matrix,
+    )
+
+
+def _correlation_iv(members, y, matrix, n_jobs):
+    kind, members = members_array(members)
+    if kind != "values":
+        raise TypeError("`members`: residual correlation needs float (members, n_points) values; "
+                        "for probabilities pass one class, members[:, :, c], with y == c")
+    if not isinstance(matrix, (bool, np.bool_)):
+        raise TypeError(f"`matrix`: expected a bool, got {type(matrix).__name__}")
+    return members, targets(y, kind, members.shape[1]), bool(matrix), n_jobs_value(n_jobs)
+
+
+def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
+    """Spread and pairwise correlation of the members' residuals ``r_b = t_b - y``.
+
+    The mean pairwise correlation is computed in O(members * n_points) without forming the
+    members x members matrix, from the variance of a sum,
+    ``Var(sum_b z_b) = sum_b Var z_b + sum_{a != b} Cov(z_a, z_b)``: with standardised
+    residuals ``z_b`` the off-diagonal correlations sum to ``Var(sum_b z_b) - M``, so their
+    mean is that over ``M (M - 1)``. The same identity on the centred residuals gives the mean
+    pairwise covariance. Variances and covariances use ddof 1.
+
+    Parameters
+    ----------
+    members : float array of shape (n_members, n_points)
+        Value predictions.
+    y : array of shape (n_points,)
+        Targets.
+    matrix : bool
+        Also compute ``residual_correlation``, the full members x members matrix (blocked, parallel Gram
+        computation; O(members**2 * n_points) work).
+    n_jobs : int, optional
+        Worker threads; results do not depend on it.
+
+    Returns
+    -------
+    Correlation
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> rng = np.random.default_rng(3)
+    >>> shared = rng.normal(size=4000)
+    >>> members = shared + rng.normal(size=(10, 4000))   # correlation 1/2 by construction
+    >>> round(bagwise.correlation(members, np.zeros(4000)).mean_residual_correlation, 1)
+    0.5
+    """
+    members, y, matrix, n_jobs = _correlation_iv(members, y, matrix, n_jobs)
+    summary = _core.residual_correlation(members, y, n_jobs)
+    full = _core.correlation_matrix(members, y, n_jobs) if matrix else None
+    return _correlation(members.shape[1], summary, full)
