@@ -176,7 +176,7 @@ HOW_MANY_MEMBERS = [
     X_train, X_test, y_train, y_test = train_test_split(X, y, test_size=1000, random_state=0)
     model = bagwise.RegressionBag("tree", members=200, seed=0).fit(X_train, y_train)
     test_members = model.member_predictions(X_test)       # (200 members, 1000 test vines)
-    curve = bagwise.size_curve(test_members, y_test, orders=20, seed=0)
+    curve = bagwise.size_curve(test_members, y_test, orders=20, rng=0)
     curve
     """),
     md("""
@@ -186,7 +186,7 @@ HOW_MANY_MEMBERS = [
     """),
     code("""
     table = curve.to_frame()
-    table["gap / standard error"] = (table["loss"] - table["law"]) / table["standard_error"]
+    table["gap / standard error"] = (table["loss"] - table["law"]) / table["std_error"]
     print(table.iloc[::3].round(4).to_string(index=False))
     worst_gap = float(np.max(np.abs(table["loss"] - table["law"]) / table["law"]))
     print(f"largest gap between curve and law: {worst_gap:.2%} of the law")
@@ -194,7 +194,7 @@ HOW_MANY_MEMBERS = [
     code("""
     within_1 = curve.members_needed(0.01)
     within_5 = curve.members_needed(0.05)
-    print(f"loss of an infinite ensemble: {curve.infinite_loss:.4f} (200 members: {curve.full_loss:.4f})")
+    print(f"loss of an infinite ensemble: {curve.infinite_loss:.4f} (200 members: {curve.ensemble_loss:.4f})")
     print(f"members within 5% of it: {within_5}")
     print(f"members within 1% of it: {within_1}")
     """),
@@ -213,13 +213,13 @@ HOW_MANY_MEMBERS = [
     code("""
     oob = bagwise.out_of_bag(model.member_predictions(X_train), model.in_bag_, y_train)
     print(f"out-of-bag error: {oob.error:.4f}")
-    print(f"test error: {curve.full_loss:.4f}")
+    print(f"test error: {curve.ensemble_loss:.4f}")
     oob
     """),
     code("""
     fig, ax = plt.subplots(figsize=(7, 4))
-    ax.fill_between(curve.sizes, curve.curve - 2 * curve.standard_error,
-                    curve.curve + 2 * curve.standard_error, color="0.85",
+    ax.fill_between(curve.sizes, curve.curve - 2 * curve.std_error,
+                    curve.curve + 2 * curve.std_error, color="0.85",
                     label="test curve ± 2 standard errors")
     ax.plot(curve.sizes, curve.curve, "o", color="k", markersize=4, label="test curve")
     k = np.arange(1, 2001)
@@ -510,7 +510,7 @@ FITTED_ELSEWHERE = [
     parts
     """),
     code("""
-    curve = bagwise.size_curve(test_members, y_test, seed=0)
+    curve = bagwise.size_curve(test_members, y_test, rng=0)
     print(f"members within 5% of an infinite ensemble: {curve.members_needed(0.05)}")
     print(f"members within 1% of an infinite ensemble: {curve.members_needed(0.01)}")
     curve

@@ -51,7 +51,7 @@ def test_round_trip_with_a_test_set(files):
                  "--json", path / "summary.json", "--seed", 4)
     assert result.returncode == 0, result.stderr
     expected = bagwise.diagnose(test, y_test, counts=counts, train_members=train,
-                                y_train=y_train, seed=4)
+                                y_train=y_train, rng=4)
     summary = expected.summary()
     assert format_number(summary["decomposition"]["ensemble_loss"]) in result.stdout
     assert format_number(summary["out_of_bag"]["error"]) in result.stdout

@@ -39,18 +39,18 @@ def _close(a, b):
 
 def test_every_number_equals_the_standalone_result():
     members, y, counts = _regression_members()
-    report = bagwise.diagnose(members, y, counts=counts, seed=3)
+    report = bagwise.diagnose(members, y, counts=counts, rng=3)
     d = bagwise.decompose(members, y)
     for name in ("ensemble_loss", "member_loss", "ambiguity", "relative_gain"):
         assert _close(getattr(report.decomposition, name), getattr(d, name)), name
-    c = bagwise.size_curve(members, y, seed=3)
+    c = bagwise.size_curve(members, y, rng=3)
     np.testing.assert_array_equal(report.size_curve.curve, c.curve)
     assert _close(report.size_curve.infinite_loss, c.infinite_loss)
-    assert _close(report.size_curve.spread, c.spread)
+    assert _close(report.size_curve.mean_within, c.mean_within)
     assert report.members_needed()["size_curve"] == c.members_needed(0.01)
     r = bagwise.correlation(members, y)
-    assert _close(report.correlation.mean_correlation, r.mean_correlation)
-    assert _close(report.correlation.mean_variance, r.mean_variance)
+    assert _close(report.correlation.mean_residual_correlation, r.mean_residual_correlation)
+    assert _close(report.correlation.mean_residual_variance, r.mean_residual_variance)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         u = bagwise.prediction_variance(members, counts)
@@ -67,8 +67,8 @@ def test_every_number_equals_the_standalone_result():
         float(np.nanmedian(u.correction_share)), rel=1e-15)
     assert summary["spread"]["members_needed"] == s.members_needed(0.01)
     assert summary["size_curve"]["members_needed"] == c.members_needed(0.01)
-    assert summary["size_curve"]["mean_within"] == c.spread           # the law's W
-    assert summary["size_curve"]["ensemble_loss"] == c.full_loss == d.ensemble_loss
+    assert summary["size_curve"]["mean_within"] == c.mean_within           # the law's W
+    assert summary["size_curve"]["ensemble_loss"] == c.ensemble_loss == d.ensemble_loss
     assert summary["size_curve"]["loss_one_member"] == c.curve[0]
     # test points differ from the training rows: no out-of-bag part
     assert report.out_of_bag is None and "out_of_bag" not in summary
@@ -147,7 +147,7 @@ def test_probabilities_use_the_last_class_and_labels_skip_uncertainty():
         u = bagwise.prediction_variance(probs[:, :, 1], counts)
     np.testing.assert_array_equal(report.uncertainty.variance, u.variance)
     r = bagwise.correlation(probs[:, :, 1], (y == 1).astype(float))
-    assert _close(report.correlation.mean_correlation, r.mean_correlation)
+    assert _close(report.correlation.mean_residual_correlation, r.mean_residual_correlation)
     # multi-class Brier of a single member: sum_c (p_c - [y = c])**2 = 2 x
     # sklearn.metrics.brier_score_loss for two classes
     single = sklearn.metrics.brier_score_loss(y, probs[0][:, 1])
@@ -298,12 +298,12 @@ def test_each_warning_once_per_call_at_the_callers_line():
 
 def test_members_needed_is_one_table_of_every_figure():
     members, y, counts = _regression_members(seed=4)
-    report = bagwise.diagnose(members, y, counts=counts, seed=2)
+    report = bagwise.diagnose(members, y, counts=counts, rng=2)
     table = report.members_needed()
     # the size curve bounds the expected loss, the between/within split the variance of
     # the ensemble's prediction: two rows, each the standalone result's own figure
     assert table.sections == ("size_curve", "spread")
-    curve = bagwise.size_curve(members, y, seed=2)
+    curve = bagwise.size_curve(members, y, rng=2)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         split = bagwise.spread(members, counts)

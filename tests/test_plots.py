@@ -76,7 +76,7 @@ def plain_words(text):
 
 def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
     preds, y, _ = regression()
-    curve = bagwise.size_curve(preds, y, orders=8, seed=1)
+    curve = bagwise.size_curve(preds, y, orders=8, rng=1)
     needed = curve.members_needed(0.05)
     assert 1 < needed <= 100 * curve.members
     ax = plots.plot_size_curve(curve, tolerance=0.05, unit="kg")
@@ -90,7 +90,7 @@ def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
     assert k[0] == 1 and np.all(np.diff(k) > 0) and k[-1] >= curve.members
     np.testing.assert_allclose(law.get_ydata(), curve.law(k), rtol=1e-12)
     # The law is infinite_loss + W/k (size_curve's docstring), written out here:
-    np.testing.assert_allclose(law.get_ydata(), curve.infinite_loss + curve.spread / k, rtol=1e-12)
+    np.testing.assert_allclose(law.get_ydata(), curve.infinite_loss + curve.mean_within / k, rtol=1e-12)
 
     flat = line_labelled(ax, "infinite ensemble")
     np.testing.assert_allclose(flat.get_ydata(), [curve.infinite_loss] * 2, rtol=1e-15)
@@ -104,11 +104,11 @@ def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
     bands = [coll for coll in ax.collections if isinstance(coll, PolyCollection)]
     assert len(bands) == 1
     vertices = bands[0].get_paths()[0].vertices
-    for size, mean, se in zip(curve.sizes, curve.curve, curve.standard_error):
+    for size, mean, se in zip(curve.sizes, curve.curve, curve.std_error):
         for edge in (mean - se, mean + se):
             assert np.any(np.isclose(vertices[:, 0], size) & np.isclose(vertices[:, 1], edge,
                                                                          rtol=1e-12))
-    assert vertices[:, 1].max() == pytest.approx(float(np.max(curve.curve + curve.standard_error)))
+    assert vertices[:, 1].max() == pytest.approx(float(np.max(curve.curve + curve.std_error)))
 
     assert ax.get_xscale() == "log"
     ax.figure.canvas.draw()
@@ -123,7 +123,7 @@ def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
 
 def test_size_curve_stretches_the_axis_to_a_members_needed_beyond_the_ensemble():
     preds, y, _ = regression(members=12)
-    curve = bagwise.size_curve(preds, y, orders=5, seed=0)
+    curve = bagwise.size_curve(preds, y, orders=5, rng=0)
     needed = curve.members_needed(0.01)
     assert needed > curve.members            # W/k against 1% of the infinite loss
     ax = plots.plot_size_curve(curve)
@@ -136,7 +136,7 @@ def test_size_curve_stretches_the_axis_to_a_members_needed_beyond_the_ensemble()
 
 def test_size_curve_with_out_of_bag_curve_on_the_same_axes():
     preds, y, counts = regression()
-    curve = bagwise.size_curve(preds, y, orders=6, seed=2)
+    curve = bagwise.size_curve(preds, y, orders=6, rng=2)
     oob = bagwise.out_of_bag(preds, counts, y, metric="absolute_error")
     ax = plots.plot_size_curve(curve, out_of_bag=oob)
     line = line_labelled(ax, "training points: out-of-bag")
@@ -431,15 +431,15 @@ def test_correlation_heatmap_is_the_reordered_matrix():
     preds, group = blocks()
     result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
     ax = plots.plot_correlation_matrix(result)
-    order = plots.member_order(result.matrix)
+    order = plots.member_order(result.residual_correlation)
     np.testing.assert_array_equal(np.sort(order), np.arange(12))       # a permutation
     shown = np.asarray(ax.images[0].get_array())
-    np.testing.assert_array_equal(shown, result.matrix[np.ix_(order, order)])
+    np.testing.assert_array_equal(shown, result.residual_correlation[np.ix_(order, order)])
     # The same cells as the matrix, only moved: sorted values agree.
-    np.testing.assert_array_equal(np.sort(shown, axis=None), np.sort(result.matrix, axis=None))
+    np.testing.assert_array_equal(np.sort(shown, axis=None), np.sort(result.residual_correlation, axis=None))
     # Ordering by the leading eigenvector (numpy.linalg.eigh) puts each group together.
     assert np.count_nonzero(np.diff(group[order])) == 1
-    leading = np.linalg.eigh(result.matrix)[1][:, -1]
+    leading = np.linalg.eigh(result.residual_correlation)[1][:, -1]
     loads = np.abs(leading)[order]
     assert np.all(np.diff(loads) >= -1e-12)
     # Straightforward numpy reference: correlations of the residuals (numpy.corrcoef).
@@ -455,10 +455,10 @@ def test_correlation_heatmap_other_orders(order):
     preds, group = blocks(seed=6)
     result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
     ax = plots.plot_correlation_matrix(result, order=order)
-    ordering = plots.member_order(result.matrix, order)
+    ordering = plots.member_order(result.residual_correlation, order)
     np.testing.assert_array_equal(np.sort(ordering), np.arange(12))
     np.testing.assert_array_equal(ax.images[0].get_array(),
-                                  result.matrix[np.ix_(ordering, ordering)])
+                                  result.residual_correlation[np.ix_(ordering, ordering)])
     if order == "cluster":
         # Average linkage on 1 - correlation (scipy.cluster.hierarchy) keeps groups together.
         assert np.count_nonzero(np.diff(group[ordering])) == 1
@@ -476,9 +476,9 @@ def test_correlation_heatmap_leaves_undefined_cells_blank():
         result = bagwise.correlation(preds, np.zeros(preds.shape[1]), matrix=True)
     ax = plots.plot_correlation_matrix(result)
     shown = ax.images[0].get_array()
-    order = plots.member_order(result.matrix)
+    order = plots.member_order(result.residual_correlation)
     np.testing.assert_array_equal(np.ma.getmaskarray(shown),
-                                  np.isnan(result.matrix[np.ix_(order, order)]))
+                                  np.isnan(result.residual_correlation[np.ix_(order, order)]))
     assert np.ma.getmaskarray(shown).sum() == 2 * 12 - 1
 
 

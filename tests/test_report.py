@@ -255,7 +255,7 @@ def test_probability_report_draws_the_last_class_figures():
         warnings.simplefilter("ignore")  # 50 members: the standard errors warn, as they should
         report = bagwise.diagnose(probabilities, y, counts=counts)
     parsed = Page(report.to_html())
-    assert report.decomposition.loss == "brier"
+    assert report.decomposition.loss == "brier_score"
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
     # decomposition (2), size curve (1), heatmap (1), standard errors (2), between/within (2),
     # kappa-error diagram (1)

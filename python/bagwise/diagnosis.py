@@ -23,10 +23,10 @@ from typing import Any
 import numpy as np
 
 from ._display import html_block, safe_html, text_block
+from ._members import members_array, targets
 from ._results import Result, check_tolerance
-from ._validation import n_jobs_value, seed_value
+from ._validation import n_jobs_value, rng_seed
 from ._warnings import once_per_call
-from .decomposition import _members_array, _target
 from .sections import SECTIONS, TOLERANCE, Inputs
 from .sections._base import quiet
 
@@ -43,11 +43,11 @@ def _array(value, name):
 
 
 def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_jobs):
-    kind, members = _members_array(members)
+    kind, members = members_array(members)
     n_members, n_points = members.shape[:2]
     if n_members < 2:
         raise ValueError(f"`members`: a diagnosis needs at least 2 members, got {n_members}")
-    y = _target(y, kind, n_points)
+    y = targets(y, kind, n_points)
     if kind == "probabilities" and y.max() >= members.shape[2]:
         raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
     if counts is not None:
@@ -66,7 +66,7 @@ def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_
         if train_members.shape[:1] != (n_members,) or train_members.shape[1:2] != counts.shape[1:]:
             raise ValueError(f"`train_members`: expected ({n_members}, {counts.shape[1]}, ...) to "
                              f"match `counts`, got {train_members.shape}")
-        train_kind, _ = _members_array(train_members, "train_members")
+        train_kind, _ = members_array(train_members, "train_members")
         if train_kind != kind:
             raise ValueError(f"`train_members`: holds {train_kind} but `members` holds {kind}")
     if reference is not None:
@@ -86,12 +86,12 @@ def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_
             reference = reference.astype(np.float64, copy=False)
             if not np.all(np.isfinite(reference)):
                 raise ValueError("`reference`: contains NaN or infinite values")
-    return (kind, members, y, counts, reference, train_members, y_train, seed_value(seed),
+    return (kind, members, y, counts, reference, train_members, y_train, rng_seed(seed),
             n_jobs_value(n_jobs))
 
 
 def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_train=None,
-             seed=0, n_jobs=None) -> Diagnosis:
+             rng=0, n_jobs=None) -> Diagnosis:
     """Everything bagwise can say about an ensemble from its member predictions, in one call.
 
     Parameters
@@ -118,8 +118,8 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
         numbers. When they are not given and ``counts`` has ``n_points`` columns,
         ``members`` themselves are taken to be the training-row predictions (so ``y`` the
         training targets) and the out-of-bag error is computed from them.
-    seed : int
-        Seed of the random member orders of the size curve.
+    rng : int, numpy.random.Generator or None
+        Seed of the random member orders of the size curve (SPEC 7).
     n_jobs : int, optional
         Worker threads; results do not depend on it.
 
@@ -153,7 +153,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
     """
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
-                     train_y=y_train, seed=seed, n_jobs=n_jobs, members_are_training=None)
+                     train_y=y_train, seed=rng, n_jobs=n_jobs, members_are_training=None)
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,

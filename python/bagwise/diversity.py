@@ -22,7 +22,7 @@ import numpy as np
 
 from . import _core
 from ._display import html_block, safe_html, text_block
-from ._validation import positive_int, n_jobs_value
+from ._validation import n_jobs_value, positive_int
 
 __all__ = ["Diversity", "DiversityStream", "diversity", "diversity_stream"]
 

@@ -24,7 +24,7 @@ from sklearn.utils.validation import (
 
 from . import _core
 from ._progress import progress_callback
-from ._validation import positive_int, seed_value, n_jobs_value
+from ._validation import n_jobs_value, positive_int, seed_value
 from .resampling import resample
 
 __all__ = ["ClassificationBag", "RegressionBag"]

@@ -10,7 +10,7 @@ import numpy as np
 from . import _core
 from ._display import html_block, safe_html, text_block
 from ._progress import ProgressArg, progress_callback
-from ._validation import label_codes, positive_int, seed_value, n_jobs_value
+from ._validation import label_codes, n_jobs_value, positive_int, seed_value
 
 __all__ = ["Resample", "resample"]
 

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import numbers
 
 import numpy as np
 
@@ -18,24 +17,10 @@ from . import _core
 from ._display import fmt as _fmt
 from ._members import loss_for, loss_option, members_array, n_classes_of, targets
 from ._results import Result, check_tolerance, members_for, not_estimable
-from ._validation import n_jobs_value, positive_int, seed_value
+from ._validation import n_jobs_value, positive_int, rng_seed
 from ._warnings import warn
 
 __all__ = ["SizeCurve", "SizeCurveStream", "size_curve", "size_curve_stream"]
-
-
-def _seed_of(rng) -> int:
-    """The integer seed of ``rng=`` (SPEC 7): an int as it is, a Generator's
-    ``int(rng.integers(2**63))``, ``None`` a fresh one."""
-    if isinstance(rng, np.random.Generator):
-        return int(rng.integers(2**63))
-    if rng is not None and (isinstance(rng, bool) or not isinstance(rng, numbers.Integral)):
-        raise TypeError(f"`rng`: expected an int, a numpy Generator or None, got "
-                        f"{type(rng).__name__}")
-    try:
-        return seed_value(rng)
-    except ValueError as err:
-        raise ValueError(str(err).replace("`seed`", "`rng`", 1)) from None
 
 
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)
@@ -215,7 +200,7 @@ class SizeCurveStream:
         self.loss = loss_option(loss)
         self._sizes_arg = sizes
         self.orders = positive_int(orders, "orders")
-        self.seed = _seed_of(rng)
+        self.seed = rng_seed(rng)
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
         self._n_members = None

@@ -71,9 +71,9 @@ def with_unit(text, unit):
 
 def loss_label(loss, unit):
     """A loss named in words, with the squared unit of the targets for a squared error."""
-    if loss == "squared":
+    if loss == "squared_error":
         return with_unit("mean squared error", squared_unit(unit))
-    if loss == "brier":
+    if loss == "brier_score":
         return "Brier score"
     return "error rate (share misclassified)"
 

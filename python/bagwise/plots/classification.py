@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..decomposition import vote_fractions
+from ..aggregation import vote_fractions
 from . import _common as c
 
 __all__ = ["margins", "plot_margins", "plot_reliability", "reliability"]

@@ -6,7 +6,7 @@ import numbers
 
 import numpy as np
 
-from ..decomposition import Correlation
+from ..correlation import Correlation
 from . import _common as c
 
 __all__ = ["member_order", "plot_correlation_matrix"]
@@ -35,7 +35,7 @@ def member_order(matrix, order="eigenvector") -> np.ndarray:
     Parameters
     ----------
     matrix : array of shape (members, members)
-        A symmetric correlation matrix, e.g. ``Correlation.matrix``.
+        A symmetric correlation matrix, e.g. ``Correlation.residual_correlation``.
     order : {"eigenvector", "cluster", "given"}
 
     Returns
@@ -87,11 +87,11 @@ def _correlation_iv(correlation, max_members):
                         f"got {type(correlation).__name__}")
     if isinstance(max_members, bool) or not isinstance(max_members, numbers.Integral):
         raise TypeError(f"`max_members`: expected an integer, got {type(max_members).__name__}")
-    if correlation.matrix is None:
+    if correlation.residual_correlation is None:
         raise ValueError("`correlation`: holds no matrix; compute it with "
                          "bagwise.correlation(members, y, matrix=True)")
-    if correlation.members > max_members:
-        raise ValueError(f"`correlation`: {correlation.members:,} members are more than "
+    if correlation.n_members > max_members:
+        raise ValueError(f"`correlation`: {correlation.n_members:,} members are more than "
                          f"`max_members` = {max_members:,}; a heatmap that large shows no single "
                          "member - plot a subset (correlation of members[:300]) or raise "
                          "max_members")
@@ -134,9 +134,9 @@ def plot_correlation_matrix(correlation, *, ax=None, max_members=300, order="eig
     >>> plt.close(ax.figure)
     """
     _correlation_iv(correlation, max_members)
-    ordering = member_order(correlation.matrix, order)
+    ordering = member_order(correlation.residual_correlation, order)
     ax = c.axes(ax)
-    shown = correlation.matrix[np.ix_(ordering, ordering)]
+    shown = correlation.residual_correlation[np.ix_(ordering, ordering)]
     c.pyplot()
     import matplotlib
 
@@ -146,7 +146,7 @@ def plot_correlation_matrix(correlation, *, ax=None, max_members=300, order="eig
     image = ax.imshow(np.ma.masked_invalid(shown), cmap=colours, vmin=low, vmax=1.0,
                       interpolation="nearest", origin="upper")
     ax.figure.colorbar(image, ax=ax, label="correlation of the members' residuals")
-    members = correlation.members
+    members = correlation.n_members
     if members <= _TICKS_UP_TO:
         ax.set_xticks(np.arange(members), [str(i) for i in ordering], fontsize="x-small")
         ax.set_yticks(np.arange(members), [str(i) for i in ordering], fontsize="x-small")
@@ -155,7 +155,7 @@ def plot_correlation_matrix(correlation, *, ax=None, max_members=300, order="eig
         ax.set_xticks([])
         ax.set_yticks([])
         words = "member"
-    ax.set_title(f"mean pairwise correlation {correlation.mean_correlation:.2f}",
+    ax.set_title(f"mean pairwise correlation {correlation.mean_residual_correlation:.2f}",
                  fontsize="medium")
     how = {"eigenvector": "ordered by shared error", "cluster": "ordered by clusters",
            "given": "in their own order"}[order]

@@ -82,7 +82,7 @@ def plot_decomposition(decomposition, *, ax=None, unit=None):
     ax.set_xlim(-0.6, 1.6)
     top = max(d.member_loss, d.ensemble_loss)
     ax.set_ylim(0, top * 1.25 if top > 0 else 1)
-    ax.set_title(f"{d.members:,} members, {d.n_points:,} points", fontsize="medium")
+    ax.set_title(f"{d.n_members:,} members, {d.n_points:,} points", fontsize="medium")
     return c.finish(ax, xlabel="", ylabel=c.loss_label(d.loss, unit))
 
 
@@ -141,7 +141,7 @@ def plot_ambiguity_by_point(decomposition, *, ax=None, unit=None, max_points=20_
             label="ambiguity = member loss (all removed)")
     ax.set_xlim(0, top * 1.05)
     ax.set_ylim(0, top * 1.05)
-    if d.loss == "squared":
+    if d.loss == "squared_error":
         words = "squared error" + (f", {c.squared_unit(unit)}" if unit else "")
     else:
         words = "Brier score"

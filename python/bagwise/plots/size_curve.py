@@ -8,14 +8,12 @@ import warnings
 
 import numpy as np
 
-from ..decomposition import SizeCurve
 from ..out_of_bag import OutOfBag
+from ..size_curve import SizeCurve
 from . import _common as c
 
 __all__ = ["plot_size_curve"]
 
-#: The out-of-bag metric that measures the same loss as a size curve.
-_OUT_OF_BAG_METRIC = {"squared": "squared_error", "brier": "brier_score", "error_rate": "error_rate"}
 #: The x axis is stretched to show members_needed up to this many times the members at hand.
 _MAX_EXTRAPOLATION = 100
 _LAW_POINTS = 200
@@ -29,7 +27,7 @@ def _size_curve_iv(size_curve, out_of_bag, tolerance, unit):
         if not isinstance(out_of_bag, OutOfBag):
             raise TypeError("`out_of_bag`: expected the OutOfBag returned by bagwise.out_of_bag, "
                             f"got {type(out_of_bag).__name__}")
-        metric = _OUT_OF_BAG_METRIC[size_curve.loss]
+        metric = size_curve.loss  # both use the glossary's loss spellings
         if metric not in out_of_bag._curve:
             raise ValueError(f"`out_of_bag`: is a {out_of_bag.task} result, which has no {metric} "
                              f"to compare with a {size_curve.loss} size curve")
@@ -42,7 +40,7 @@ def _size_curve_iv(size_curve, out_of_bag, tolerance, unit):
 
 def _needed(size_curve, tolerance):
     """members_needed, or None where the law gives no answer (the plot then leaves it out)."""
-    if size_curve.spread is None or not math.isfinite(size_curve.spread):
+    if size_curve.mean_within is None or not math.isfinite(size_curve.mean_within):
         return None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)   # NaN cases: nothing to mark
@@ -102,12 +100,12 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
     tolerance, unit = _size_curve_iv(size_curve, out_of_bag, tolerance, unit)
     ax = c.axes(ax)
     sizes = size_curve.sizes.astype(np.float64)
-    curve, error = size_curve.curve, size_curve.standard_error
+    curve, error = size_curve.curve, size_curve.std_error
     x_high = float(sizes.max())
     if out_of_bag is not None:
         x_high = max(x_high, float(out_of_bag.curve_sizes.max()))
     needed = _needed(size_curve, tolerance)
-    if needed is not None and needed <= _MAX_EXTRAPOLATION * size_curve.members:
+    if needed is not None and needed <= _MAX_EXTRAPOLATION * size_curve.n_members:
         x_high = max(x_high, needed * 1.25)
 
     if np.all(np.isfinite(error)):
@@ -116,7 +114,7 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
     ax.plot(sizes, curve, color=c.INK, linestyle="-", marker="o", markersize=4,
             label=f"test points: first k members ({size_curve.orders} random orders)", zorder=3)
 
-    if size_curve.spread is not None and math.isfinite(size_curve.spread):
+    if size_curve.mean_within is not None and math.isfinite(size_curve.mean_within):
         grid = np.geomspace(1.0, x_high, _LAW_POINTS)
         ax.plot(grid, size_curve.law(grid), color=c.SLATE, linestyle="--", linewidth=1.5,
                 label="law: infinite-ensemble error + W/k", zorder=2)
@@ -136,7 +134,7 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
             ax.plot([], [], linestyle="none", label=text)
 
     if out_of_bag is not None:
-        metric = _OUT_OF_BAG_METRIC[size_curve.loss]
+        metric = size_curve.loss  # both use the glossary's loss spellings
         ax.plot(out_of_bag.curve_sizes.astype(np.float64), out_of_bag.curve(metric),
                 color=c.RUST, linestyle=(0, (1, 1)), marker="s", markersize=4,
                 markerfacecolor="white", label="training points: out-of-bag, first k members",

@@ -18,27 +18,27 @@ class CorrelationSection(Section):
            "labels.")
 
     def compute(self, inputs, done):
-        from ..decomposition import correlation
+        from ..correlation import correlation
 
         if inputs.one_value is None:
             return None
         return correlation(*inputs.one_value, n_jobs=inputs.n_jobs)
 
     def summary(self, result, diagnosis):
-        return {"mean_residual_variance": number(result.mean_variance),
-                "mean_residual_correlation": number(result.mean_correlation)}
+        return {"mean_residual_variance": number(result.mean_residual_variance),
+                "mean_residual_correlation": number(result.mean_residual_correlation)}
 
     def readings(self, result, diagnosis):
-        if math.isnan(result.mean_correlation):
+        if math.isnan(result.mean_residual_correlation):
             return []
-        return [f"the members' errors correlate at {result.mean_correlation:.2f} on average"]
+        return [f"the members' errors correlate at {result.mean_residual_correlation:.2f} on average"]
 
     def figures(self, result, diagnosis, unit):
         from .. import plots
-        from ..decomposition import correlation
+        from ..correlation import correlation
 
         inputs = diagnosis._inputs
-        if inputs is None or inputs.one_value is None or result.members > HEATMAP_MEMBERS:
+        if inputs is None or inputs.one_value is None or result.n_members > HEATMAP_MEMBERS:
             return []
         full = quiet(lambda: correlation(*inputs.one_value, matrix=True))
         return [Figure("residual correlation between members, ordered so groups show as "

@@ -13,21 +13,21 @@ class SizeCurveSection(Section):
            "``W``, the infinite-ensemble loss and ``members_needed``.")
 
     def compute(self, inputs, done):
-        from ..decomposition import size_curve
+        from ..size_curve import size_curve
 
-        return size_curve(inputs.members, inputs.y, seed=inputs.seed, n_jobs=inputs.n_jobs)
+        return size_curve(inputs.members, inputs.y, rng=inputs.seed, n_jobs=inputs.n_jobs)
 
     @staticmethod
     def _has_law(result):
         # error rates follow no size law, so they give no members needed
-        return result.spread is not None
+        return result.mean_within is not None
 
     def summary(self, result, diagnosis):
         # the law's W is the mean across-member variance, the glossary's mean_within
-        out = {"ensemble_loss": number(result.full_loss),
+        out = {"ensemble_loss": number(result.ensemble_loss),
                "loss_one_member": number(result.curve[0]) if result.sizes[0] == 1 else None}
         if self._has_law(result):
-            out.update(mean_within=number(result.spread),
+            out.update(mean_within=number(result.mean_within),
                        infinite_loss=number(result.infinite_loss),
                        members_needed=number(quiet(lambda: result.members_needed(TOLERANCE))))
         return out
@@ -40,7 +40,7 @@ class SizeCurveSection(Section):
             return [f"no ensemble size comes within {TOLERANCE:.0%} of the infinite-ensemble "
                     "loss (it is estimated at or below 0)"]
         return [f"{needed} members reach {TOLERANCE:.0%} of the infinite-ensemble loss "
-                f"({result.infinite_loss:.4g}); this ensemble has {result.members}"]
+                f"({result.infinite_loss:.4g}); this ensemble has {result.n_members}"]
 
     def needed(self, result, tolerance):
         if not self._has_law(result):
