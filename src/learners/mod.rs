@@ -10,7 +10,7 @@ pub mod linear;
 pub mod neighbors;
 pub mod tree;
 
-use ndarray::ArrayView2;
+use ndarray::{ArrayView1, ArrayView2};
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
@@ -46,6 +46,25 @@ impl Task {
         match self {
             Task::Regression => 1,
             Task::Classification { n_classes } => n_classes,
+        }
+    }
+}
+
+/// Training targets.
+#[derive(Debug, Clone, Copy)]
+pub enum Targets<'a> {
+    /// Real values, one per row.
+    Regression(ArrayView1<'a, f64>),
+    /// Class codes `0..n_classes`, one per row.
+    Classes(ArrayView1<'a, usize>),
+}
+
+impl Targets<'_> {
+    /// The targets as f64: the values, or the class codes as whole numbers.
+    pub fn to_f64(&self) -> Vec<f64> {
+        match self {
+            Targets::Regression(v) => v.to_vec(),
+            Targets::Classes(v) => v.iter().map(|&c| c as f64).collect(),
         }
     }
 }

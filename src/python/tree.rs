@@ -7,10 +7,11 @@ use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::{positive, run_core, to_py_err, zeros, CountArray, FloatArray};
-use crate::learners::tree::{Criterion, InBag, Splitter, Targets, Task, TreeEnsemble, TreeParams};
+use crate::learners::tree::{Criterion, InBag, Splitter, Targets, TreeEnsemble, TreeParams};
+use crate::learners::Task;
 
 /// The training targets: float64 values for regression, int64 class codes otherwise.
-fn targets(y: &Bound<'_, PyAny>, task: Task) -> PyResult<YValues> {
+pub(super) fn targets(y: &Bound<'_, PyAny>, task: Task) -> PyResult<YValues> {
     match task {
         Task::Regression => y
             .extract::<PyReadonlyArray1<'_, f64>>()
@@ -29,13 +30,13 @@ fn targets(y: &Bound<'_, PyAny>, task: Task) -> PyResult<YValues> {
     }
 }
 
-enum YValues {
+pub(super) enum YValues {
     Real(Vec<f64>),
     Codes(Vec<usize>),
 }
 
 impl YValues {
-    fn view(&self) -> Targets<'_> {
+    pub(super) fn view(&self) -> Targets<'_> {
         match self {
             YValues::Real(v) => Targets::Regression(v.as_slice().into()),
             YValues::Codes(v) => Targets::Classes(v.as_slice().into()),
@@ -59,7 +60,7 @@ impl PyTreeEnsemble {
         n_jobs: Option<usize>,
         fill: impl FnOnce(&mut [f64], &crate::parallel::Pool) -> crate::Result<()> + Send,
     ) -> PyResult<Bound<'py, PyAny>> {
-        let (members, width) = (self.inner.members(), self.inner.width());
+        let (members, width) = (self.inner.members(), self.inner.outputs());
         let array = zeros::<f64>(py, [members, n_points * width])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
@@ -224,7 +225,7 @@ impl PyTreeEnsemble {
     ) -> PyResult<Bound<'py, PyAny>> {
         let x = FloatArray::<Ix2>::extract(x, "x")?;
         let n = with_float!(x, |xv| xv.nrows());
-        let width = self.inner.width();
+        let width = self.inner.outputs();
         let array = zeros::<f64>(py, [n, width])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
