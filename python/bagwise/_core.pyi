@@ -75,7 +75,7 @@ class LinearEnsemble:
         counts: _Counts,
         *,
         task: str = "regression",
-        n_classes: int = 0,
+        n_classes: int | None = None,
         penalty: float = 0.0,
         n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
@@ -109,11 +109,11 @@ class NeighborsEnsemble:
     @staticmethod
     def fit(
         x: _Design,
-        y: npt.NDArray[np.float64],
+        y: npt.NDArray[np.float64] | npt.NDArray[np.int64],
         counts: _Counts,
         *,
         task: str,
-        n_classes: int = 0,
+        n_classes: int | None = None,
         neighbors: int = 5,
         n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,

@@ -56,7 +56,7 @@ pub struct PyLinearEnsemble {
 #[pymethods]
 impl PyLinearEnsemble {
     #[staticmethod]
-    #[pyo3(signature = (x, y, counts, *, task="regression", n_classes=0, penalty=0.0, n_jobs=None, progress=None))]
+    #[pyo3(signature = (x, y, counts, *, task="regression", n_classes=None, penalty=0.0, n_jobs=None, progress=None))]
     #[allow(clippy::too_many_arguments)]
     fn fit(
         py: Python<'_>,
@@ -64,12 +64,12 @@ impl PyLinearEnsemble {
         y: PyReadonlyArray1<'_, f64>,
         counts: &Bound<'_, PyAny>,
         task: &str,
-        n_classes: usize,
+        n_classes: Option<usize>,
         penalty: f64,
         n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
-        if task != "regression" || n_classes != 0 {
+        if task != "regression" || n_classes.is_some() {
             return Err(PyValueError::new_err(
                 "`task`: the linear learner is for regression only",
             ));

@@ -1,11 +1,12 @@
 //! Bindings of [`crate::learners::neighbors`].
 
 use numpy::ndarray::Axis;
-use numpy::{IntoPyArray, PyArrayMethods, PyReadonlyArray1, PyReadonlyArrayDyn};
+use numpy::{IntoPyArray, PyArrayMethods, PyReadonlyArrayDyn};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::linear::{decode, encode, read_bags, rows_of};
+use super::tree::targets;
 use super::{run_core, to_py_err, zeros_nd, FloatArray};
 use crate::learners::neighbors::NeighborsEnsemble;
 use crate::learners::Task;
@@ -28,25 +29,27 @@ impl PyNeighborsEnsemble {
 #[pymethods]
 impl PyNeighborsEnsemble {
     #[staticmethod]
-    #[pyo3(signature = (x, y, counts, *, task, n_classes=0, neighbors=5, n_jobs=None, progress=None))]
+    #[pyo3(signature = (x, y, counts, *, task, n_classes=None, neighbors=5, n_jobs=None, progress=None))]
     #[allow(clippy::too_many_arguments)]
     fn fit(
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
-        y: PyReadonlyArray1<'_, f64>,
+        y: &Bound<'_, PyAny>,
         counts: &Bound<'_, PyAny>,
         task: &str,
-        n_classes: usize,
-        neighbors: usize,
+        n_classes: Option<usize>,
+        neighbors: i64,
         n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
-        let task = Task::parse(task, n_classes).map_err(to_py_err)?;
+        let task = Task::parse(task, n_classes.unwrap_or(0)).map_err(to_py_err)?;
         let x = FloatArray::<numpy::Ix2>::extract(x, "x")?;
         let bags = read_bags(counts, rows_of(&x))?;
-        let y = y.as_array();
+        let y = targets(y, task)?.view().to_f64();
+        // A negative count is below 1 too: the core names `neighbors` for both.
+        let neighbors = usize::try_from(neighbors).unwrap_or(0);
         let inner = with_float!(x, |a| run_core(py, n_jobs, progress, |_, monitor| {
-            NeighborsEnsemble::fit(a, y, bags, task, neighbors, monitor)
+            NeighborsEnsemble::fit(a, y.as_slice().into(), bags, task, neighbors, monitor)
         }))?;
         Ok(PyNeighborsEnsemble { inner })
     }
