@@ -26,7 +26,7 @@ def test_members_equal_weighted_sklearn_fits(penalty):
     x, y = _data()
     counts = bagwise.resample(len(y), 6, seed=4).counts
     fit = _core.LinearEnsemble.fit(x, y, counts, penalty=penalty)
-    assert fit.members == 6 and fit.n_features == 4 and fit.n_classes == 0
+    assert fit.n_members == 6 and fit.n_features == 4 and fit.n_classes is None
     for m in range(6):
         ref = (Ridge(alpha=penalty) if penalty else LinearRegression()).fit(
             x, y, sample_weight=counts[m].astype(float))

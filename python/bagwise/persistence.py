@@ -162,7 +162,7 @@ def load(path):
     except (KeyError, TypeError, AttributeError) as err:
         raise ValueError(f"{where}: inconsistent contents (bad metadata: {err!r})") from None
     consistent = (
-        model.members == in_bag.shape[0]
+        model.n_members == in_bag.shape[0]
         and model.n_features == n_features
         and in_bag.ndim == 2
         and (classes is None) == (not cls._classification)

@@ -56,6 +56,7 @@ macro_rules! with_counts {
 
 mod decomposition;
 mod diversity;
+mod learners;
 mod linear;
 mod neighbors;
 mod out_of_bag;

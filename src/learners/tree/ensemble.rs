@@ -8,9 +8,9 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
-use crate::learners::Task;
+use crate::learners::{FittedMembers, Task};
 use crate::numeric::Real;
-use crate::parallel::Pool;
+use crate::parallel::{Monitor, Pool};
 use crate::resampling::Count;
 
 /// Marks a leaf in [`Tree::feature`].
@@ -446,6 +446,64 @@ impl TreeEnsemble {
                 format!("holds {} values, expected {expected}", out.len()),
             ))
         }
+    }
+}
+
+impl FittedMembers for TreeEnsemble {
+    fn n_members(&self) -> usize {
+        self.members()
+    }
+
+    fn task(&self) -> Task {
+        self.task
+    }
+
+    fn n_features(&self) -> usize {
+        self.n_features
+    }
+
+    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
+        self.check_points(&x)
+    }
+
+    fn member_predictions_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+        _monitor: &dyn Monitor,
+    ) -> Result<()> {
+        TreeEnsemble::member_predictions_into(self, x, out, pool)
+    }
+
+    fn out_of_bag_into<T: Real, C: Count>(
+        &self,
+        x: ArrayView2<'_, T>,
+        counts: ArrayView2<'_, C>,
+        out: &mut [f64],
+        pool: &Pool,
+        _monitor: &dyn Monitor,
+    ) -> Result<()> {
+        self.out_of_bag_predictions_into(x, counts, out, pool)
+    }
+
+    /// The trees' own sum (scaled by 1 / members), walked group by group.
+    fn predict_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+        _monitor: &dyn Monitor,
+    ) -> Result<()> {
+        TreeEnsemble::predict_into(self, x, out, pool)
+    }
+
+    fn to_bytes(&self) -> Vec<u8> {
+        TreeEnsemble::to_bytes(self)
+    }
+
+    fn from_bytes(data: &[u8]) -> Result<Self> {
+        TreeEnsemble::from_bytes(data)
     }
 }
 

@@ -10,7 +10,7 @@ use rayon::prelude::*;
 use super::columns::{midpoint, prefetch, Columns};
 use super::ensemble::{Node, Tree, TreeEnsemble, LEAF};
 use super::parameters::{
-    feature_stream_seed, Criterion, Splitter, TreeConfig, TreeParams, AUTO_HISTOGRAM_ABOVE,
+    feature_stream_seed, CheckedTreeParams, Criterion, Splitter, TreeParams, AUTO_HISTOGRAM_ABOVE,
 };
 use super::MAX_BINS;
 use crate::error::{Error, Result};
@@ -31,6 +31,29 @@ pub enum InBag<'a, C: Count> {
     Counts(ArrayView2<'a, C>),
     /// Every member sees every row once.
     AllRows { members: usize },
+}
+
+impl<'a, C: Count> InBag<'a, C> {
+    /// The in-bag rows of a fit's options: the counts, or every row once for `n_members`
+    /// members when there are none.
+    ///
+    /// # Errors
+    /// `n_members` missing without counts, given with them, or zero.
+    pub fn from_options(
+        counts: Option<ArrayView2<'a, C>>,
+        n_members: Option<usize>,
+    ) -> Result<Self> {
+        match (counts, n_members) {
+            (Some(counts), None) => Ok(InBag::Counts(counts)),
+            (None, Some(0)) => Err(Error::value("n_members", "must be at least 1")),
+            (None, Some(members)) => Ok(InBag::AllRows { members }),
+            (None, None) => Err(Error::value("n_members", "required when `counts` is None")),
+            (Some(_), Some(_)) => Err(Error::value(
+                "n_members",
+                "give either `counts` or `n_members`, not both",
+            )),
+        }
+    }
 }
 
 /// A candidate split: rows with `rank ≤ cut` (exact) or `code ≤ cut` (histogram) go left.
@@ -664,7 +687,7 @@ impl<'a> Grower<'a> {
 /// How often the calling thread reports progress (and so checks for Ctrl-C) during a fit.
 pub(super) const HEARTBEAT: Duration = Duration::from_millis(100);
 
-impl TreeConfig {
+impl CheckedTreeParams {
     /// The checked parameters.
     pub fn params(&self) -> &TreeParams {
         &self.params

@@ -1,7 +1,7 @@
 //! Bagged CART trees (Breiman, Friedman, Olshen & Stone 1984, "Classification and
 //! Regression Trees") grown on in-bag counts used as integer row weights.
 //!
-//! A [`TreeParams`] is checked once into a [`TreeConfig`]; [`TreeConfig::fit`] grows one
+//! A [`TreeParams`] is checked once into a [`CheckedTreeParams`]; [`CheckedTreeParams::fit`] grows one
 //! tree per member on a shared, once-per-fit representation of `x` and returns a
 //! [`TreeEnsemble`] of compact flat node arrays.
 //!
@@ -65,7 +65,7 @@ pub use crate::learners::Targets;
 pub use ensemble::{Node, Tree, TreeEnsemble};
 pub use growing::InBag;
 pub use parameters::{
-    feature_stream_seed, Criterion, Splitter, TreeConfig, TreeParams, AUTO_HISTOGRAM_ABOVE,
+    feature_stream_seed, CheckedTreeParams, Criterion, Splitter, TreeParams, AUTO_HISTOGRAM_ABOVE,
     FEATURE_STREAM_SALT, MAX_BINS,
 };
 

@@ -1,5 +1,5 @@
 //! Tree parameters: the criterion, the split finder and [`TreeParams`], checked once
-//! into a [`TreeConfig`].
+//! into a [`CheckedTreeParams`].
 
 use crate::error::{Error, Result};
 use crate::learners::Task;
@@ -36,6 +36,19 @@ pub enum Criterion {
 }
 
 impl Criterion {
+    /// The criterion named `name`, or the task's default when `None`: squared error for
+    /// regression, Gini for classification.
+    ///
+    /// # Errors
+    /// As [`Criterion::parse`].
+    pub fn parse_or_default(name: Option<&str>, task: Task) -> Result<Self> {
+        match (name, task) {
+            (Some(name), _) => Criterion::parse(name),
+            (None, Task::Regression) => Ok(Criterion::SquaredError),
+            (None, Task::Classification { .. }) => Ok(Criterion::Gini),
+        }
+    }
+
     /// Parses the user-facing name: "squared_error", "gini" or "entropy".
     pub fn parse(name: &str) -> Result<Self> {
         match name {
@@ -76,7 +89,7 @@ impl Splitter {
     }
 }
 
-/// Unchecked tree parameters; [`TreeParams::check`] turns them into a [`TreeConfig`].
+/// Unchecked tree parameters; [`TreeParams::check`] turns them into a [`CheckedTreeParams`].
 #[derive(Debug, Clone, PartialEq)]
 pub struct TreeParams {
     pub task: Task,
@@ -94,7 +107,7 @@ pub struct TreeParams {
 
 /// Checked tree parameters.
 #[derive(Debug, Clone, PartialEq)]
-pub struct TreeConfig {
+pub struct CheckedTreeParams {
     pub(super) params: TreeParams,
 }
 
@@ -104,7 +117,7 @@ impl TreeParams {
     /// # Errors
     /// `max_depth` or `min_leaf` or `split_features` below 1; `n_classes` below 1;
     /// `criterion` not matching the task.
-    pub fn check(self) -> Result<TreeConfig> {
+    pub fn check(self) -> Result<CheckedTreeParams> {
         if self.max_depth == Some(0) {
             return Err(Error::value("max_depth", "must be at least 1 (or None)"));
         }
@@ -136,7 +149,7 @@ impl TreeParams {
                 ))
             }
         }
-        Ok(TreeConfig { params: self })
+        Ok(CheckedTreeParams { params: self })
     }
 }
 
@@ -170,7 +183,7 @@ mod tests {
         p.split_features = Some(3);
         let config = p.check().unwrap();
         let all: InBag<'_, u8> = InBag::AllRows { members: 1 };
-        let fit = |c: &TreeConfig, x: &Array2<f64>, y: &Array1<f64>, b: InBag<'_, u8>| {
+        let fit = |c: &CheckedTreeParams, x: &Array2<f64>, y: &Array1<f64>, b: InBag<'_, u8>| {
             c.fit(
                 x.view(),
                 Targets::Regression(y.view()),
