@@ -57,10 +57,12 @@ def _seed_of(random_state) -> int:
     return seed
 
 
-def _number(value, name: str, kind: type = numbers.Real):
-    """``value`` unchanged if it is a number of ``kind`` (not a bool); the core checks its
-    range and names ``name``."""
-    if value is not None and (isinstance(value, bool) or not isinstance(value, kind)):
+def _number(value, name: str, kind: type = numbers.Real, *, optional: bool = False):
+    """``value`` unchanged if it is a number of ``kind`` (not a bool; ``None`` when
+    ``optional``); the core checks its range and names ``name``."""
+    if value is None and optional:
+        return value
+    if isinstance(value, bool) or not isinstance(value, kind):
         expected = "an integer" if kind is numbers.Integral else "a number"
         raise TypeError(f"`{name}`: expected {expected}, got {type(value).__name__}")
     return value
@@ -97,7 +99,7 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
         raise TypeError(f"`fraction`: expected a number, got {type(fraction).__name__}")
     if est.scheme == "none" and fraction != 1:
         raise ValueError("`fraction`: scheme='none' gives every member all rows; leave fraction at 1.0")
-    _number(est.max_depth, "max_depth", numbers.Integral)
+    _number(est.max_depth, "max_depth", numbers.Integral, optional=True)
     _number(est.min_leaf, "min_leaf", numbers.Integral)
     split = est.split_features
     if split is not None:
