@@ -70,6 +70,21 @@ impl Task {
         }
     }
 
+    /// The task of a fit's options: `task` by name, `n_classes` given for classification
+    /// only.
+    ///
+    /// # Errors
+    /// As [`Task::parse`]; `n_classes` given for regression or missing for classification.
+    pub fn from_options(name: &str, n_classes: Option<usize>) -> Result<Self> {
+        match (name, n_classes) {
+            ("regression", Some(_)) => Err(Error::value("n_classes", "only for classification")),
+            ("classification", None) => {
+                Err(Error::value("n_classes", "required for classification"))
+            }
+            (name, n_classes) => Task::parse(name, n_classes.unwrap_or(0)),
+        }
+    }
+
     /// Values per point in a member's prediction: 1, or the number of classes.
     pub fn outputs(self) -> usize {
         match self {

@@ -1,5 +1,5 @@
 """Diagnostics of fitted bags: out_of_bag, prediction_variance, spread and diagnose on
-RegressionBag / ClassificationBag, and what bagging gains for stable and unstable learners."""
+BagRegressor / BagClassifier, and what bagging gains for stable and unstable learners."""
 
 from __future__ import annotations
 
@@ -32,7 +32,7 @@ def _fill_in_bag(predictions, counts):
 
 def test_out_of_bag_equals_the_function_on_the_same_arrays():
     X, y = _linear_data(300)
-    bag = bagwise.RegressionBag("linear", members=30, seed=2).fit(X, y)
+    bag = bagwise.BagRegressor("linear", n_members=30, random_state=2).fit(X, y)
     oob = bag.out_of_bag()
     raw = bag.out_of_bag_predictions()
     direct = bagwise.out_of_bag(_fill_in_bag(raw, bag.in_bag_), bag.in_bag_, y)
@@ -47,8 +47,8 @@ def test_out_of_bag_equals_the_function_on_the_same_arrays():
 def test_classification_out_of_bag_uses_probabilities_and_class_codes():
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)   # bundled open dataset
     labels = np.where(y == 1, "benign", "malignant")
-    bag = bagwise.ClassificationBag(DecisionTreeClassifier(max_depth=4), members=25,
-                                    seed=1).fit(X, labels)
+    bag = bagwise.BagClassifier(DecisionTreeClassifier(max_depth=4), n_members=25,
+                                    random_state=1).fit(X, labels)
     oob = bag.out_of_bag(metric="brier_score")
     codes = np.searchsorted(bag.classes_, labels)
     raw = bag.out_of_bag_predictions()
@@ -60,8 +60,8 @@ def test_classification_out_of_bag_uses_probabilities_and_class_codes():
 
 def test_prediction_variance_and_spread_reuse_the_count_gram():
     X, y = _linear_data(400)
-    bag = bagwise.RegressionBag(DecisionTreeRegressor(max_depth=4), members=60,
-                                seed=0).fit(X[:300], y[:300])
+    bag = bagwise.BagRegressor(DecisionTreeRegressor(max_depth=4), n_members=60,
+                                random_state=0).fit(X[:300], y[:300])
     X_new = X[300:]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -94,7 +94,7 @@ def test_prediction_variance_and_spread_reuse_the_count_gram():
 
 def test_native_bag_after_save_and_load_rebuilds_the_gram(tmp_path):
     X, y = _linear_data(300)
-    bag = bagwise.RegressionBag("linear", members=40, seed=3).fit(X[:200], y[:200])
+    bag = bagwise.BagRegressor("linear", n_members=40, random_state=3).fit(X[:200], y[:200])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         before = bag.prediction_variance(X[200:])
@@ -117,8 +117,8 @@ def test_native_bag_after_save_and_load_rebuilds_the_gram(tmp_path):
 
 def test_classification_prediction_variance_is_the_last_class():
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)   # bundled open dataset
-    bag = bagwise.ClassificationBag(DecisionTreeClassifier(max_depth=3), members=30,
-                                    seed=0).fit(X[:400], y[:400])
+    bag = bagwise.BagClassifier(DecisionTreeClassifier(max_depth=3), n_members=30,
+                                    random_state=0).fit(X[:400], y[:400])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         got = bag.prediction_variance(X[400:])
@@ -128,7 +128,7 @@ def test_classification_prediction_variance_is_the_last_class():
 
 def test_bayesian_counts_have_no_out_of_bag_or_variance():
     X, y = _linear_data(100)
-    bag = bagwise.RegressionBag("linear", members=10, scheme="bayesian").fit(X, y)
+    bag = bagwise.BagRegressor("linear", n_members=10, scheme="bayesian").fit(X, y)
     with pytest.raises(ValueError, match="`scheme`"):
         bag.out_of_bag()
     with pytest.raises(ValueError, match="`scheme`"):
@@ -140,8 +140,8 @@ def test_bayesian_counts_have_no_out_of_bag_or_variance():
 def test_diagnose_labels_and_unknown_classes():
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)   # bundled open dataset
     labels = np.where(y == 1, "benign", "malignant")
-    bag = bagwise.ClassificationBag(DecisionTreeClassifier(max_depth=3), members=20,
-                                    seed=0).fit(X[:400], labels[:400])
+    bag = bagwise.BagClassifier(DecisionTreeClassifier(max_depth=3), n_members=20,
+                                    random_state=0).fit(X[:400], labels[:400])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = bag.diagnose(X[400:], labels[400:])
@@ -160,7 +160,7 @@ def test_stable_learner_gains_nothing():
     # nothing; the bagged / single loss ratio stays near 1 on data with a linear truth.
     X, y = _linear_data(1200, seed=4)
     X_train, y_train, X_test, y_test = X[:200], y[:200], X[200:], y[200:]
-    bag = bagwise.RegressionBag("linear", members=50, seed=0).fit(X_train, y_train)
+    bag = bagwise.BagRegressor("linear", n_members=50, random_state=0).fit(X_train, y_train)
     single = LinearRegression().fit(X_train, y_train).predict(X_test)   # sklearn.linear_model
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -178,8 +178,8 @@ def test_bagged_trees_on_friedman1():
     for seed in range(3):
         X, y = sklearn.datasets.make_friedman1(n_samples=1200, noise=1.0, random_state=seed)
         X_train, y_train, X_test, y_test = X[:200], y[:200], X[200:], y[200:]
-        bag = bagwise.RegressionBag(DecisionTreeRegressor(), members=50,
-                                    seed=seed).fit(X_train, y_train)
+        bag = bagwise.BagRegressor(DecisionTreeRegressor(), n_members=50,
+                                    random_state=seed).fit(X_train, y_train)
         single = DecisionTreeRegressor(random_state=seed).fit(X_train, y_train).predict(X_test)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -195,7 +195,7 @@ def test_out_of_bag_error_matches_cross_validation_on_breast_cancer():
     # (Breiman 1996), so it should agree with 5-fold cross-validation
     # (sklearn.model_selection.cross_val_score) of the same bag within 0.03.
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)
-    model = bagwise.ClassificationBag(DecisionTreeClassifier(), members=50, seed=0)
+    model = bagwise.BagClassifier(DecisionTreeClassifier(), n_members=50, random_state=0)
     oob_error = model.fit(X, y).out_of_bag().error_rate
     folds = StratifiedKFold(5, shuffle=True, random_state=0)
     cv_error = 1 - cross_val_score(model, X, y, cv=folds).mean()
@@ -208,7 +208,7 @@ def test_out_of_bag_error_matches_cross_validation_on_breast_cancer():
 
 def test_linear_diagnose_numbers_match_the_function():
     X, y = _linear_data(400, seed=5)
-    bag = bagwise.RegressionBag("linear", members=30, seed=1).fit(X[:300], y[:300])
+    bag = bagwise.BagRegressor("linear", n_members=30, random_state=1).fit(X[:300], y[:300])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = bag.diagnose(X[300:], y[300:])
@@ -233,8 +233,8 @@ def test_spread_rho_agrees_with_replicate_spread():
     predictions, rhos, within = [], [], []
     for r in range(replicates):
         x, y = sklearn.datasets.make_friedman1(n_samples=n, noise=1.0, random_state=r)
-        bag = bagwise.RegressionBag(DecisionTreeRegressor(max_depth=3), members=members,
-                                    seed=r).fit(x, y)
+        bag = bagwise.BagRegressor(DecisionTreeRegressor(max_depth=3), n_members=members,
+                                    random_state=r).fit(x, y)
         predictions.append(bag.member_predictions(x_test))
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
@@ -259,8 +259,8 @@ def test_spread_rho_agrees_with_replicate_spread():
 def test_native_classifier_out_of_bag_and_a_test_set_as_large_as_the_training_set():
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)   # bundled open dataset
     X = (X - X.mean(axis=0)) / X.std(axis=0)
-    bag = bagwise.ClassificationBag("neighbors", members=20, neighbors=5,
-                                    seed=0).fit(X[:280], y[:280])
+    bag = bagwise.BagClassifier("neighbors", n_members=20, neighbors=5,
+                                    random_state=0).fit(X[:280], y[:280])
     oob = bag.out_of_bag()
     raw = bag.out_of_bag_predictions()
     direct = bagwise.out_of_bag(_fill_in_bag(raw, bag.in_bag_), bag.in_bag_, y[:280])

@@ -26,7 +26,7 @@ def test_members_equal_weighted_sklearn_fits(penalty):
     x, y = _data()
     counts = bagwise.resample(len(y), 6, seed=4).counts
     fit = _core.LinearEnsemble.fit(x, y, counts, penalty=penalty)
-    assert fit.members == 6 and fit.n_features == 4 and fit.n_classes == 0
+    assert fit.n_members == 6 and fit.n_features == 4 and fit.n_classes is None
     for m in range(6):
         ref = (Ridge(alpha=penalty) if penalty else LinearRegression()).fit(
             x, y, sample_weight=counts[m].astype(float))
@@ -174,8 +174,8 @@ def test_stable_learners_gain_nothing_from_bagging():
         y = x @ beta + rng.normal(size=300)
         xt = rng.normal(size=(2000, 5))
         yt = xt @ beta + rng.normal(size=2000)
-        single = bagwise.RegressionBag("linear", members=1, scheme="none").fit(x, y)
-        bagged = bagwise.RegressionBag("linear", members=50, seed=seed).fit(x, y)
+        single = bagwise.BagRegressor("linear", n_members=1, scheme="none").fit(x, y)
+        bagged = bagwise.BagRegressor("linear", n_members=50, random_state=seed).fit(x, y)
         mse = [np.mean((m.predict(xt) - yt) ** 2) for m in (bagged, single)]
         ratios.append(mse[0] / mse[1])
     assert np.mean(ratios) >= 0.97, ratios

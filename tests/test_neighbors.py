@@ -44,7 +44,7 @@ def test_classification_members_equal_sklearn_on_repeated_rows():
     x, y = _data(200, classes=3, seed=1)
     xt = _data(50, seed=8)[0]
     counts = bagwise.resample(200, 4, scheme="subsample", fraction=0.5, seed=6).counts
-    fit = _core.NeighborsEnsemble.fit(x, y.astype(float), counts, task="classification",
+    fit = _core.NeighborsEnsemble.fit(x, y.astype(np.int64), counts, task="classification",
                                       n_classes=3, neighbors=6)
     got = fit.member_predictions(xt)
     assert got.shape == (4, 50, 3) and fit.n_classes == 3
@@ -104,10 +104,10 @@ def test_threads_float32_and_strides_do_not_change_results():
 
 
 def test_estimators_use_the_native_learner():
-    # RegressionBag(learner="neighbors") members against sklearn KNeighborsRegressor on
+    # BagRegressor(learner="neighbors") members against sklearn KNeighborsRegressor on
     # the materialised resample of in_bag_.
     x, y = _data(120, seed=5)
-    bag = bagwise.RegressionBag("neighbors", members=3, neighbors=4, seed=2).fit(x, y)
+    bag = bagwise.BagRegressor("neighbors", n_members=3, neighbors=4, random_state=2).fit(x, y)
     got = bag.member_predictions(x[:20])
     for m in range(3):
         rows = np.repeat(np.arange(120), bag.in_bag_[m])
@@ -122,7 +122,8 @@ def test_estimators_use_the_native_learner():
         ({"neighbors": 41}, "`neighbors`: member 0 has 40", ValueError),
         ({"task": "ranking"}, "`task`", ValueError),
         ({"task": "classification", "n_classes": 0}, "`n_classes`", ValueError),
-        ({"task": "classification", "n_classes": 1}, "`y`: class codes", ValueError),
+        ({"task": "classification", "n_classes": 1, "y": np.arange(40) % 2}, "`y`: class codes",
+         ValueError),
         ({"counts": np.full((1, 40), 0.5)}, "`counts`: nearest neighbours need whole", ValueError),
         ({"counts": np.ones((1, 40), dtype=np.int32)}, "`counts`", TypeError),
         ({"y": np.full(40, np.nan)}, "`y`", ValueError),
@@ -140,8 +141,8 @@ def test_bad_input(kwargs, match, error):
 def test_estimator_rejects_bayesian_weights_for_neighbours():
     x, y = _data(30)
     with pytest.raises(ValueError, match="`scheme`: 'bayesian'"):
-        bagwise.RegressionBag("neighbors", members=2, scheme="bayesian").fit(x, y)
+        bagwise.BagRegressor("neighbors", n_members=2, scheme="bayesian").fit(x, y)
     # A subsample too small for k draws is named by the neighbours parameter.
     with pytest.raises(ValueError, match="`neighbors`"):
-        bagwise.RegressionBag("neighbors", members=2, scheme="subsample", fraction=0.1,
+        bagwise.BagRegressor("neighbors", n_members=2, scheme="subsample", fraction=0.1,
                               neighbors=5).fit(x, y)

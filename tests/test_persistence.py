@@ -33,11 +33,11 @@ def _fitted():
     labels = np.where(x[:, 0] > 0, "up", "down")
     frame = pd.DataFrame(x, columns=["north", "east", "depth"])
     return {
-        "linear": (bagwise.RegressionBag("linear", members=5, penalty=0.5, seed=3).fit(x, y), x),
-        "neighbors": (bagwise.RegressionBag("neighbors", members=4, neighbors=3).fit(x, y), x),
-        "classes": (bagwise.ClassificationBag("neighbors", members=4, stratify=True).fit(frame, labels),
+        "linear": (bagwise.BagRegressor("linear", n_members=5, penalty=0.5, random_state=3).fit(x, y), x),
+        "neighbors": (bagwise.BagRegressor("neighbors", n_members=4, neighbors=3).fit(x, y), x),
+        "classes": (bagwise.BagClassifier("neighbors", n_members=4, stratify=True).fit(frame, labels),
                     frame),
-        "int_classes": (bagwise.ClassificationBag("neighbors", members=3, scheme="subsample",
+        "int_classes": (bagwise.BagClassifier("neighbors", n_members=3, scheme="subsample",
                                                   fraction=0.7).fit(x, (x[:, 1] > 0) * 3 + 1), x),
     }
 
@@ -81,7 +81,7 @@ def test_header_layout(tmp_path):
     assert struct.unpack("<I", data[-4:])[0] == zlib.crc32(data[:-4])
     kind, text, payload = _core.unpack_container(data)
     meta = json.loads(text)
-    assert kind == "linear" and meta["estimator"] == "RegressionBag"
+    assert kind == "linear" and meta["estimator"] == "BagRegressor"
     assert meta["params"]["penalty"] == 0.5 and meta["n_features_in"] == 3
 
 
@@ -147,12 +147,32 @@ def test_valid_checksum_with_bad_contents_is_still_rejected(tmp_path):
 def test_wrapped_estimators_can_only_be_pickled(tmp_path):
     rng = np.random.default_rng(0)
     x, y = rng.normal(size=(40, 2)), rng.normal(size=40)
-    bag = bagwise.RegressionBag(DecisionTreeRegressor(), members=3).fit(x, y)
+    bag = bagwise.BagRegressor(DecisionTreeRegressor(), n_members=3).fit(x, y)
     with pytest.raises(TypeError, match="pickle"):
         bag.save(tmp_path / "x.bagwise")
     assert not (tmp_path / "x.bagwise").exists()
     with pytest.raises(TypeError, match="`estimator`"):
         bagwise.save(DecisionTreeRegressor().fit(x, y), tmp_path / "y.bagwise")
-    unfitted = bagwise.RegressionBag("linear")
+    unfitted = bagwise.BagRegressor("linear")
     with pytest.raises(Exception, match="not fitted"):
         unfitted.save(tmp_path / "z.bagwise")
+
+
+def test_files_with_the_former_estimator_and_parameter_names_still_load(tmp_path):
+    # Files written before the estimators took the glossary names (RegressionBag,
+    # members=, seed=) load as the same ensemble.
+    bag, x = _fitted()["linear"]
+    path = tmp_path / "new.bagwise"
+    bag.save(path)
+    kind, text, payload = _core.unpack_container(path.read_bytes())
+    meta = json.loads(text)
+    assert meta["estimator"] == "BagRegressor"
+    meta["estimator"] = "RegressionBag"
+    params = meta["params"]
+    params["members"], params["seed"] = params.pop("n_members"), params.pop("random_state")
+    old = tmp_path / "old.bagwise"
+    old.write_bytes(_core.pack_container(kind, json.dumps(meta), payload))
+    back = bagwise.load(old)
+    assert type(back) is bagwise.BagRegressor and back.get_params() == bag.get_params()
+    assert back.seed_ == bag.seed_ == 3
+    np.testing.assert_array_equal(back.member_predictions(x), bag.member_predictions(x))

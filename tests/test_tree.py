@@ -25,7 +25,7 @@ def regression_data(n, seed, noise=1.0):
 def fit_regression(x, y, counts, **kw):
     kw.setdefault("splitter", "exact")
     if counts is None:
-        kw.setdefault("members", 1)
+        kw.setdefault("n_members", 1)
     return TreeEnsemble.fit(x, y, counts, task="regression", **kw)
 
 
@@ -57,7 +57,7 @@ def test_counts_as_weights_equal_materialised_rows(splitter, task):
         rows = np.repeat(np.arange(800), counts[m])
         if splitter == "histogram":
             assert all(len(np.unique(x[rows, f])) == 30 for f in range(4))
-        one = TreeEnsemble.fit(x[rows], y[rows], None, members=1, splitter=splitter, min_leaf=4,
+        one = TreeEnsemble.fit(x[rows], y[rows], None, n_members=1, splitter=splitter, min_leaf=4,
                                **extra)
         np.testing.assert_allclose(weighted.member_predictions(test)[m],
                                    one.member_predictions(test)[0], rtol=1e-10, atol=1e-12)
@@ -84,7 +84,7 @@ def test_single_classification_tree_matches_sklearn(criterion):
     x, y = regression_data(4000, 2)
     x = x.astype(np.float32)
     labels = np.digitize(y, np.quantile(y, [0.4, 0.75])).astype(np.int64)
-    ours = TreeEnsemble.fit(x[:2000], labels[:2000], None, members=1, task="classification",
+    ours = TreeEnsemble.fit(x[:2000], labels[:2000], None, n_members=1, task="classification",
                             n_classes=3, criterion=criterion, splitter="exact", max_depth=5,
                             min_leaf=8)
     ref = DecisionTreeClassifier(criterion=criterion, max_depth=5, min_samples_leaf=8,
@@ -121,7 +121,7 @@ def test_bagged_trees_beat_one_tree_on_breast_cancer():
         order = np.random.default_rng(seed).permutation(len(y))
         tr, te = order[:380], order[380:]
         kw = {"task": "classification", "n_classes": 2, "splitter": "exact"}
-        single = TreeEnsemble.fit(x[tr], y[tr], None, members=1, **kw)
+        single = TreeEnsemble.fit(x[tr], y[tr], None, n_members=1, **kw)
         counts = bagwise.resample(len(tr), 50, seed=seed).counts
         bagged = TreeEnsemble.fit(x[tr], y[tr], counts, seed=seed, **kw)
         acc = [float(np.mean(m.predict(x[te]).argmax(axis=1) == y[te])) for m in (single, bagged)]
@@ -206,7 +206,7 @@ def test_classification_shapes_and_probabilities():
     assert members.shape == (7, len(y), 2)
     np.testing.assert_allclose(members.sum(axis=2), 1.0, rtol=1e-12)
     np.testing.assert_allclose(model.predict(x), members.mean(axis=0), rtol=1e-12)
-    assert model.n_classes == 2 and model.members == 7 and model.n_features == 30
+    assert model.n_classes == 2 and model.n_members == 7 and model.n_features == 30
     assert len(model.node_counts) == 7 and all(1 < c < 2**5 for c in model.node_counts)
     assert "7 members" in repr(model)
 
@@ -285,8 +285,8 @@ def test_bad_input_raises_value_error_naming_the_argument():
     raises("splitter", splitter="fast")
     raises("criterion", criterion="gini")
     raises("task", task="ranking")
-    raises("members", counts=None)
-    raises("members", members=3)
+    raises("n_members", counts=None)
+    raises("n_members", n_members=3)
     raises("n_classes", task="classification", y=labels)
     raises("y", task="classification", y=labels + 1, n_classes=2)
     raises("y", task="classification", y=labels - 1, n_classes=2)

@@ -7,7 +7,7 @@ from .correlation import Correlation, correlation
 from .decomposition import Decomposition, DecompositionStream, decompose, decompose_stream
 from .diagnosis import Diagnosis, diagnose
 from .diversity import Diversity, DiversityStream, diversity, diversity_stream
-from .ensemble import ClassificationBag, RegressionBag
+from .ensemble import BagClassifier, BagRegressor
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
 from .replicates import ReplicateSpread, replicate_spread
@@ -26,7 +26,8 @@ __all__ = [
     "__version__",
     "aggregate",
     "BagwiseWarning",
-    "ClassificationBag",
+    "BagClassifier",
+    "BagRegressor",
     "Correlation",
     "correlation",
     "count_gram",
@@ -48,7 +49,6 @@ __all__ = [
     "OutOfBagStream",
     "prediction_variance",
     "PredictionVariance",
-    "RegressionBag",
     "replicate_spread",
     "ReplicateSpread",
     "Resample",

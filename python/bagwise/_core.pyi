@@ -78,7 +78,7 @@ class LinearEnsemble:
         counts: _Counts,
         *,
         task: str = "regression",
-        n_classes: int = 0,
+        n_classes: int | None = None,
         penalty: float = 0.0,
         n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
@@ -91,11 +91,11 @@ class LinearEnsemble:
         self, x: _Design, counts: _Counts, n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     @property
-    def members(self) -> int: ...
+    def n_members(self) -> int: ...
     @property
     def n_features(self) -> int: ...
     @property
-    def n_classes(self) -> int: ...
+    def n_classes(self) -> int | None: ...
     @property
     def penalty(self) -> float: ...
     @property
@@ -112,11 +112,11 @@ class NeighborsEnsemble:
     @staticmethod
     def fit(
         x: _Design,
-        y: npt.NDArray[np.float64],
+        y: npt.NDArray[np.float64] | npt.NDArray[np.int64],
         counts: _Counts,
         *,
         task: str,
-        n_classes: int = 0,
+        n_classes: int | None = None,
         neighbors: int = 5,
         n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
@@ -129,11 +129,11 @@ class NeighborsEnsemble:
         self, x: _Design, counts: _Counts, n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     @property
-    def members(self) -> int: ...
+    def n_members(self) -> int: ...
     @property
     def n_features(self) -> int: ...
     @property
-    def n_classes(self) -> int: ...
+    def n_classes(self) -> int | None: ...
     @property
     def neighbors(self) -> int: ...
     def to_bytes(self) -> bytes: ...
@@ -381,7 +381,7 @@ class TreeEnsemble:
         criterion: str | None = None,
         splitter: str = "auto",
         seed: int = 0,
-        members: int | None = None,
+        n_members: int | None = None,
         n_jobs: int | None = None,
         progress: Callable[[int, int], object] | None = None,
     ) -> TreeEnsemble: ...
@@ -398,7 +398,7 @@ class TreeEnsemble:
         self, x: npt.NDArray[np.floating], n_jobs: int | None = None
     ) -> npt.NDArray[np.float64]: ...
     @property
-    def members(self) -> int: ...
+    def n_members(self) -> int: ...
     @property
     def n_features(self) -> int: ...
     @property

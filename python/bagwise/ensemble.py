@@ -1,4 +1,4 @@
-"""Bagged ensembles in one line: `RegressionBag` and `ClassificationBag`.
+"""Bagged ensembles in one line: `BagRegressor` and `BagClassifier`.
 
 Members are native Rust learners (``"linear"``, ``"neighbors"``, and ``"tree"`` when the
 build has it) fit in one parallel call with the in-bag counts as row weights, or clones of
@@ -7,8 +7,9 @@ any scikit-learn-compatible estimator fit on the resampled rows.
 
 from __future__ import annotations
 
-import math
 import numbers
+import secrets
+import warnings
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, clone
@@ -22,41 +23,75 @@ from sklearn.utils.validation import (
     validate_data,
 )
 
-from . import _core
+from . import persistence
+from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
-from ._validation import n_jobs_value, positive_int, seed_value
+from ._validation import n_jobs_value, positive_int
 from .resampling import resample
 
-__all__ = ["ClassificationBag", "RegressionBag"]
+__all__ = ["BagClassifier", "BagRegressor"]
 
-# Native learner name -> pyclass name in bagwise._core.
-_NATIVE = {"tree": "TreeEnsemble", "linear": "LinearEnsemble", "neighbors": "NeighborsEnsemble"}
 _SCHEMES = ("bootstrap", "subsample", "bayesian", "none")
 _CRITERIA = ("gini", "entropy")
 _SPLITTERS = ("auto", "exact", "histogram")
+# Warnings scikit-learn raises per member when the feature names of ``X`` and of the
+# training rows disagree; the bag has already said so once for all of its members.
+_MEMBER_FEATURE_NAMES = r"X (does not have valid|has) feature names"
+
+
+def _seed_of(random_state) -> int:
+    """The 64-bit seed of the members: an int as is (the same members for the same int),
+    ``None`` a fresh one from the operating system, a `numpy.random.RandomState` one draw
+    from it (scikit-learn's convention for ``random_state``)."""
+    if isinstance(random_state, np.random.RandomState):
+        high, low = random_state.randint(0, 2**32, size=2, dtype=np.uint64)
+        return int(high) << 32 | int(low)
+    if random_state is None:
+        return secrets.randbits(64)
+    if isinstance(random_state, bool) or not isinstance(random_state, numbers.Integral):
+        raise TypeError("`random_state`: expected a non-negative integer, a "
+                        f"numpy.random.RandomState or None, got {type(random_state).__name__}")
+    seed = int(random_state)
+    if not 0 <= seed < 2**64:
+        raise ValueError(f"`random_state`: must lie in [0, 2**64), got {seed}")
+    return seed
+
+
+def _number(value, name: str, kind: type = numbers.Real, *, optional: bool = False):
+    """``value`` unchanged if it is a number of ``kind`` (not a bool; ``None`` when
+    ``optional``); the core checks its range and names ``name``."""
+    if value is None and optional:
+        return value
+    if isinstance(value, bool) or not isinstance(value, kind):
+        expected = "an integer" if kind is numbers.Integral else "a number"
+        raise TypeError(f"`{name}`: expected {expected}, got {type(value).__name__}")
+    return value
 
 
 def _bag_iv(est: _Bag, classification: bool) -> dict:
-    """Check the constructor parameters of a bag; return them normalised."""
+    """Check the estimator's own parameters and convert the learner's; the core checks
+    the learner parameters' values (``max_depth``, ``min_leaf``, ``split_features``,
+    ``neighbors``, ``penalty``) once, naming each."""
     learner = est.learner
     if isinstance(learner, str):
-        if learner not in _NATIVE:
+        entry = LEARNERS.get(learner)
+        if entry is None:
             raise ValueError(
-                f"`learner`: expected one of {tuple(_NATIVE)} or an estimator object, got {learner!r}"
+                f"`learner`: expected one of {tuple(LEARNERS)} or an estimator object, got {learner!r}"
             )
-        if learner == "tree" and not hasattr(_core, _NATIVE["tree"]):
-            raise ValueError("`learner`: the native tree learner is not built in this version")
-        if learner == "linear" and classification:
-            raise ValueError("`learner`: 'linear' is least squares, for RegressionBag only")
+        if not entry.available:
+            raise ValueError(f"`learner`: the native {learner} learner is not built in this version")
+        if classification and not entry.classification:
+            raise ValueError(f"`learner`: {learner!r} is least squares, for BagRegressor only")
     else:
         needed = ("fit", "predict_proba") if classification else ("fit", "predict")
         missing = [m for m in needed if not callable(getattr(learner, m, None))]
         if missing:
             raise TypeError(
-                f"`learner`: expected 'tree', 'linear', 'neighbors' or an estimator with "
+                f"`learner`: expected one of {tuple(LEARNERS)} or an estimator with "
                 f"{' and '.join(needed)}; {type(learner).__name__} lacks {', '.join(missing)}"
             )
-    members = positive_int(est.members, "members")
+    n_members = positive_int(est.n_members, "n_members")
     if est.scheme not in _SCHEMES:
         raise ValueError(f"`scheme`: expected one of {_SCHEMES}, got {est.scheme!r}")
     fraction = est.fraction
@@ -64,27 +99,22 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
         raise TypeError(f"`fraction`: expected a number, got {type(fraction).__name__}")
     if est.scheme == "none" and fraction != 1:
         raise ValueError("`fraction`: scheme='none' gives every member all rows; leave fraction at 1.0")
-    if est.max_depth is not None:
-        positive_int(est.max_depth, "max_depth")
-    positive_int(est.min_leaf, "min_leaf")
+    _number(est.max_depth, "max_depth", numbers.Integral, optional=True)
+    _number(est.min_leaf, "min_leaf", numbers.Integral)
     split = est.split_features
     if split is not None:
         if isinstance(split, bool) or not isinstance(split, numbers.Real):
             raise TypeError(f"`split_features`: expected None, an int or a fraction, got {split!r}")
-        if isinstance(split, numbers.Integral):
-            positive_int(split, "split_features")
-        elif not 0 < split <= 1:
+        if not isinstance(split, numbers.Integral) and not 0 < split <= 1:
+            # A fraction is converted here, into a count of features.
             raise ValueError(f"`split_features`: a fraction must lie in (0, 1], got {split}")
-    neighbors = positive_int(est.neighbors, "neighbors")
-    penalty = est.penalty
-    if isinstance(penalty, bool) or not isinstance(penalty, numbers.Real):
-        raise TypeError(f"`penalty`: expected a number, got {type(penalty).__name__}")
-    if not (math.isfinite(penalty) and penalty >= 0):
-        raise ValueError(f"`penalty`: must be a finite number >= 0, got {penalty}")
+    _number(est.neighbors, "neighbors", numbers.Integral)
+    _number(est.penalty, "penalty")
     if not isinstance(est.use_sample_weight, bool):
         raise TypeError("`use_sample_weight`: expected True or False")
     if est.scheme == "bayesian":
-        weighted = learner == "linear" or (not isinstance(learner, str) and est.use_sample_weight)
+        weighted = (LEARNERS[learner].weighted if isinstance(learner, str)
+                    else est.use_sample_weight)
         if not weighted:
             raise ValueError(
                 "`scheme`: 'bayesian' weights are continuous, so they cannot be used as row "
@@ -101,9 +131,8 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
     if est.progress is not None and not isinstance(est.progress, bool) and not callable(est.progress):
         raise TypeError(f"`progress`: expected a bool or a callable, got {type(est.progress).__name__}")
     return {
-        "learner": learner, "members": members, "fraction": float(fraction),
-        "neighbors": neighbors, "penalty": float(penalty), "seed": seed_value(est.seed),
-        "n_jobs": n_jobs_value(est.n_jobs),
+        "learner": learner, "n_members": n_members, "fraction": float(fraction),
+        "seed": _seed_of(est.random_state), "n_jobs": n_jobs_value(est.n_jobs),
     }
 
 
@@ -121,7 +150,7 @@ def _fit_member(template, X, y, counts, use_sample_weight, random_state):
 
 
 class _Bag(BaseEstimator):
-    """Shared machinery of `RegressionBag` and `ClassificationBag`."""
+    """Shared machinery of `BagRegressor` and `BagClassifier`."""
 
     _classification = False
 
@@ -181,8 +210,10 @@ class _Bag(BaseEstimator):
             classes, codes = None, None
         counts = self._draw(n_rows, params, codes, groups)
         if native:
-            target = codes.astype(np.float64) if self._classification else np.asarray(y, np.float64)
-            model = self._fit_native(X, target, counts, params, 0 if classes is None else len(classes))
+            # Classification passes the class codes (int64, indices into ``classes_``),
+            # converted from the labels here once.
+            target = codes.astype(np.int64) if self._classification else np.asarray(y, np.float64)
+            model = self._fit_native(X, target, counts, params, None if classes is None else len(classes))
             members = None
         else:
             model = None
@@ -200,48 +231,29 @@ class _Bag(BaseEstimator):
         self._train_y = codes if self._classification else np.asarray(y, dtype=np.float64)
 
     def _draw(self, n_rows, params, codes, groups):
-        members = params["members"]
+        n_members = params["n_members"]
         if self.scheme == "none":
             if groups is not None:
                 raise ValueError("`groups`: scheme='none' gives every member all rows; groups have no effect")
-            return np.ones((members, n_rows), dtype=np.uint8)
+            return np.ones((n_members, n_rows), dtype=np.uint8)
         strata = codes if self._classification and self.stratify else None
-        draw = resample(n_rows, members, scheme=self.scheme, fraction=params["fraction"],
+        draw = resample(n_rows, n_members, scheme=self.scheme, fraction=params["fraction"],
                         strata=strata, groups=groups, seed=params["seed"], n_jobs=params["n_jobs"])
         return draw.weights if self.scheme == "bayesian" else draw.counts
 
     def _fit_native(self, X, target, counts, params, n_classes):
-        learner = params["learner"]
-        kind = getattr(_core, _NATIVE[learner])
+        learner = LEARNERS[params["learner"]]
         task = "classification" if self._classification else "regression"
-        if learner == "linear":
-            options = {"penalty": params["penalty"]}
-        elif learner == "neighbors":
-            options = {"neighbors": params["neighbors"]}
-        else:
-            split = self.split_features
-            if isinstance(split, float):
-                # A fraction of the features, at least one (Breiman 2001 uses a count).
-                split = max(1, round(split * X.shape[1]))
-            options = {
-                "max_depth": self.max_depth, "min_leaf": self.min_leaf,
-                "split_features": split,
-                "criterion": self.criterion if self._classification else "squared_error",
-                "splitter": self.splitter, "seed": params["seed"],
-            }
-            if self._classification:
-                target = np.asarray(target).astype(np.int64)
-            else:
-                n_classes = None
+        options = learner.options(self, X, self._classification, params["seed"])
         with progress_callback(self.progress, "fitting") as callback:
-            return kind.fit(X, target, counts, task=task, n_classes=n_classes,
-                            n_jobs=params["n_jobs"], progress=callback, **options)
+            return learner.core().fit(X, target, counts, task=task, n_classes=n_classes,
+                                      n_jobs=params["n_jobs"], progress=callback, **options)
 
     def _fit_wrapped(self, X, y, counts, params):
         from joblib import Parallel, delayed
 
         template = params["learner"]
-        members = params["members"]
+        members = params["n_members"]
         if self.use_sample_weight:
             import inspect
 
@@ -299,7 +311,10 @@ class _Bag(BaseEstimator):
         X = self._check_X(X)
         if self._native:
             return self._model.member_predictions(X, self.n_jobs)
-        return np.stack([self._member_predict(member, X) for member in self.members_])
+        with warnings.catch_warnings():
+            # `_check_X` has warned once if the feature names disagree; not once per member.
+            warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
+            return np.stack([self._member_predict(member, X) for member in self.members_])
 
     def out_of_bag_predictions(self, X=None) -> np.ndarray:
         """Each member's predictions on the training rows, NaN where it saw the row.
@@ -336,10 +351,12 @@ class _Bag(BaseEstimator):
             return self._model.out_of_bag_predictions(X, self.in_bag_, self.n_jobs)
         shape = (self.in_bag_.shape[1],) + ((len(self.classes_),) if self._classification else ())
         out = np.full((len(self.members_),) + shape, np.nan)
-        for m, member in enumerate(self.members_):
-            rows = np.flatnonzero(self.in_bag_[m] == 0)
-            if len(rows):
-                out[m, rows] = self._member_predict(member, _safe_indexing(X, rows))
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
+            for m, member in enumerate(self.members_):
+                rows = np.flatnonzero(self.in_bag_[m] == 0)
+                if len(rows):
+                    out[m, rows] = self._member_predict(member, _safe_indexing(X, rows))
         return out
 
     # -- diagnostics ----------------------------------------------------------------------
@@ -511,9 +528,7 @@ class _Bag(BaseEstimator):
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""
-        from .persistence import save
-
-        save(self, path)
+        persistence.save(self, path)
 
 
 _PARAMETERS_DOC = """
@@ -526,11 +541,11 @@ _PARAMETERS_DOC = """
         regression only), ``"neighbors"`` (k nearest neighbours, a row drawn c times
         counting c times). Any other object with ``fit`` and ``predict`` (``predict_proba``
         for classification) is cloned per member with `sklearn.base.clone`.
-    members : int
+    n_members : int
         Number of members.
     scheme : {"bootstrap", "subsample", "bayesian", "none"}
         How members resample the rows (see `bagwise.resample`); ``"none"`` gives every
-        member all rows once (a single model is ``members=1, scheme="none"``).
+        member all rows once (a single model is ``n_members=1, scheme="none"``).
         ``"bayesian"`` weights are continuous: only ``learner="linear"`` and wrapped
         estimators with ``use_sample_weight=True`` accept them.
     fraction : float
@@ -549,9 +564,11 @@ _PARAMETERS_DOC = """
         ``sum_i c_i (y_i - b - x_i'β)^2 + λ ||β||^2`` on the original feature scale
         (intercept unpenalised; as sklearn.linear_model.Ridge with sample_weight=c).
         0 is weighted least squares, which raises ``ValueError`` on rank deficiency.
-    seed : int or None
-        Seed of the resampling (and of member randomness); ``None`` draws a fresh one,
-        kept in ``seed_``.
+    random_state : int, numpy.random.RandomState or None
+        Seed of the resampling (and of member randomness): an int seeds the member
+        streams directly (the same int, the same members); ``None`` draws a fresh seed and
+        a ``RandomState`` one seed from itself (scikit-learn's convention); the seed used
+        is kept in ``seed_``.
     n_jobs : int, optional
         Worker threads (default: all cores). Native results do not depend on it; wrapped
         members run on joblib n_jobs.
@@ -566,7 +583,7 @@ _PARAMETERS_DOC = """
 _ATTRIBUTES_DOC = """
     Attributes
     ----------
-    in_bag_ : ndarray of shape (members, n_rows)
+    in_bag_ : ndarray of shape (n_members, n_rows)
         In-bag count of every training row in every member (unsigned integers; float64
         weights for ``scheme="bayesian"``).
     n_features_in_ : int
@@ -576,7 +593,8 @@ _ATTRIBUTES_DOC = """
     members_ : list of estimators
         The fitted clones (wrapped estimators only; native members live in Rust).
     seed_ : int
-        The seed used (also when ``seed=None``).
+        The integer seed the members were drawn with (also when ``random_state`` is
+        None or a ``RandomState``).
 
     Notes
     -----
@@ -590,7 +608,8 @@ _ATTRIBUTES_DOC = """
 """
 
 
-class RegressionBag(RegressorMixin, _Bag):
+@register_estimator
+class BagRegressor(RegressorMixin, _Bag):
     __doc__ = (
         """A bagged regression ensemble: members fit on resamples, predictions averaged.
 """
@@ -603,7 +622,7 @@ class RegressionBag(RegressorMixin, _Bag):
     >>> rng = np.random.default_rng(0)
     >>> X = rng.normal(size=(200, 3))
     >>> y = X @ [1.0, -2.0, 0.5] + rng.normal(scale=0.1, size=200)
-    >>> bag = bagwise.RegressionBag("linear", members=20, seed=1).fit(X, y)
+    >>> bag = bagwise.BagRegressor("linear", n_members=20, random_state=1).fit(X, y)
     >>> bag.member_predictions(X[:5]).shape
     (20, 5)
     >>> round(bag.score(X, y), 3)
@@ -611,11 +630,11 @@ class RegressionBag(RegressorMixin, _Bag):
     """
     )
 
-    def __init__(self, learner="tree", members=100, *, scheme="bootstrap", fraction=1.0,
+    def __init__(self, learner="tree", n_members=100, *, scheme="bootstrap", fraction=1.0,
                  max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
-                 seed=0, n_jobs=None, progress=False, splitter="auto", use_sample_weight=False):
+                 random_state=0, n_jobs=None, progress=False, splitter="auto", use_sample_weight=False):
         self.learner = learner
-        self.members = members
+        self.n_members = n_members
         self.scheme = scheme
         self.fraction = fraction
         self.max_depth = max_depth
@@ -623,7 +642,7 @@ class RegressionBag(RegressorMixin, _Bag):
         self.split_features = split_features
         self.neighbors = neighbors
         self.penalty = penalty
-        self.seed = seed
+        self.random_state = random_state
         self.n_jobs = n_jobs
         self.progress = progress
         self.splitter = splitter
@@ -637,7 +656,8 @@ class RegressionBag(RegressorMixin, _Bag):
         return self.member_predictions(X).mean(axis=0)
 
 
-class ClassificationBag(ClassifierMixin, _Bag):
+@register_estimator
+class BagClassifier(ClassifierMixin, _Bag):
     __doc__ = (
         """A bagged classification ensemble: members' class probabilities averaged.
 """
@@ -657,7 +677,7 @@ class ClassificationBag(ClassifierMixin, _Bag):
     >>> rng = np.random.default_rng(0)
     >>> X = rng.normal(size=(300, 2))
     >>> y = np.where(X[:, 0] + X[:, 1] > 0, "yes", "no")
-    >>> bag = bagwise.ClassificationBag("neighbors", members=10, neighbors=7).fit(X, y)
+    >>> bag = bagwise.BagClassifier("neighbors", n_members=10, neighbors=7).fit(X, y)
     >>> bag.classes_
     array(['no', 'yes'], dtype='<U3')
     >>> bag.member_predictions(X[:4]).shape
@@ -667,12 +687,12 @@ class ClassificationBag(ClassifierMixin, _Bag):
     """
     )
 
-    def __init__(self, learner="tree", members=100, *, scheme="bootstrap", fraction=1.0,
+    def __init__(self, learner="tree", n_members=100, *, scheme="bootstrap", fraction=1.0,
                  max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
-                 seed=0, n_jobs=None, progress=False, stratify=False, criterion="gini",
+                 random_state=0, n_jobs=None, progress=False, stratify=False, criterion="gini",
                  splitter="auto", use_sample_weight=False):
         self.learner = learner
-        self.members = members
+        self.n_members = n_members
         self.scheme = scheme
         self.fraction = fraction
         self.max_depth = max_depth
@@ -680,7 +700,7 @@ class ClassificationBag(ClassifierMixin, _Bag):
         self.split_features = split_features
         self.neighbors = neighbors
         self.penalty = penalty
-        self.seed = seed
+        self.random_state = random_state
         self.n_jobs = n_jobs
         self.progress = progress
         self.stratify = stratify

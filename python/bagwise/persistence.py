@@ -16,13 +16,14 @@ import os
 
 import numpy as np
 
-from . import _core
+from . import _core, _learners
 
 __all__ = ["load", "save"]
 
 _FORMAT = "bagwise-ensemble"
-_KINDS = {"LinearEnsemble": "linear", "NeighborsEnsemble": "neighbors", "TreeEnsemble": "tree"}
 _CLASS_KINDS = "biufUO"
+# Parameters as files written before the estimators' glossary names spelled them.
+_FORMER_PARAMETERS = {"members": "n_members", "seed": "random_state"}
 
 
 def _array_to_json(array: np.ndarray) -> dict:
@@ -50,11 +51,11 @@ def _classes_to_json(classes: np.ndarray) -> dict:
 
 
 def save(estimator, path) -> None:
-    """Write a fitted native `RegressionBag` / `ClassificationBag` to ``path``.
+    """Write a fitted native `BagRegressor` / `BagClassifier` to ``path``.
 
     Parameters
     ----------
-    estimator : RegressionBag or ClassificationBag
+    estimator : BagRegressor or BagClassifier
         Fitted with a native learner (``"linear"``, ``"neighbors"``, ``"tree"``).
     path : str or os.PathLike
         The file to write (overwritten).
@@ -75,7 +76,7 @@ def save(estimator, path) -> None:
     >>> import numpy as np, bagwise, tempfile, os
     >>> rng = np.random.default_rng(0)
     >>> X, y = rng.normal(size=(50, 2)), rng.normal(size=50)
-    >>> bag = bagwise.RegressionBag("linear", members=5).fit(X, y)
+    >>> bag = bagwise.BagRegressor("linear", n_members=5).fit(X, y)
     >>> path = os.path.join(tempfile.mkdtemp(), "bag.bagwise")
     >>> bagwise.save(bag, path)
     >>> back = bagwise.load(path)
@@ -84,10 +85,8 @@ def save(estimator, path) -> None:
     """
     from sklearn.utils.validation import check_is_fitted
 
-    from .ensemble import ClassificationBag, RegressionBag
-
-    if not isinstance(estimator, (RegressionBag, ClassificationBag)):
-        raise TypeError(f"`estimator`: expected a RegressionBag or ClassificationBag, got "
+    if not isinstance(estimator, _learners.estimator_classes()):
+        raise TypeError(f"`estimator`: expected a BagRegressor or BagClassifier, got "
                         f"{type(estimator).__name__}")
     check_is_fitted(estimator)
     if "_model" not in estimator.__dict__:
@@ -100,7 +99,7 @@ def save(estimator, path) -> None:
     params = estimator.get_params(deep=False)
     if callable(params.get("progress")):
         params["progress"] = False
-    params["seed"] = estimator.seed_
+    params["random_state"] = estimator.seed_
     for key, value in params.items():
         if isinstance(value, (bool, str)) or value is None:
             continue
@@ -120,7 +119,7 @@ def save(estimator, path) -> None:
                     if hasattr(estimator, "classes_") else None),
         "in_bag": _array_to_json(estimator.in_bag_),
     }
-    data = _core.pack_container(_KINDS[type(model).__name__], json.dumps(metadata),
+    data = _core.pack_container(_learners.learner_of_model(model).tag, json.dumps(metadata),
                                 model.to_bytes())
     with open(os.fspath(path), "wb") as handle:
         handle.write(data)
@@ -135,8 +134,6 @@ def load(path):
         When the file is not a bagwise file, has another format version, fails its
         checksum (corrupted or truncated) or holds inconsistent contents.
     """
-    from .ensemble import ClassificationBag, RegressionBag
-
     with open(os.fspath(path), "rb") as handle:
         data = handle.read()
     where = f"`path`: {os.fspath(path)!s}"
@@ -148,14 +145,13 @@ def load(path):
         meta = json.loads(text)
         if meta.get("format") != _FORMAT:
             raise ValueError("the metadata is not that of a bagwise ensemble")
-        cls = {"RegressionBag": RegressionBag, "ClassificationBag": ClassificationBag}[meta["estimator"]]
-        names = {v: k for k, v in _KINDS.items()}
-        if kind not in names:
-            raise ValueError(f"unknown learner kind {kind!r}")
-        if not hasattr(_core, names[kind]):
+        cls = _learners.estimator_class(meta["estimator"])
+        learner = _learners.learner_of_tag(kind)
+        if not learner.available:
             raise ValueError(f"the file holds a {kind!r} ensemble, which this build does not have")
-        model = getattr(_core, names[kind]).from_bytes(payload)
-        estimator = cls(**meta["params"])
+        model = learner.core().from_bytes(payload)
+        params = {_FORMER_PARAMETERS.get(k, k): v for k, v in meta["params"].items()}
+        estimator = cls(**params)
         in_bag = _array_from_json(meta["in_bag"])
         classes = meta["classes"]
         if classes is not None:
@@ -166,10 +162,10 @@ def load(path):
     except (KeyError, TypeError, AttributeError) as err:
         raise ValueError(f"{where}: inconsistent contents (bad metadata: {err!r})") from None
     consistent = (
-        model.members == in_bag.shape[0]
+        model.n_members == in_bag.shape[0]
         and model.n_features == n_features
         and in_bag.ndim == 2
-        and (classes is None) == (cls is RegressionBag)
+        and (classes is None) == (not cls._classification)
         and (classes is None or model.n_classes == len(classes))
     )
     if not consistent:
@@ -177,7 +173,7 @@ def load(path):
     estimator._model = model
     estimator.in_bag_ = in_bag
     estimator.n_features_in_ = n_features
-    estimator.seed_ = meta["params"]["seed"]
+    estimator.seed_ = params["random_state"]
     if meta["feature_names_in"] is not None:
         estimator.feature_names_in_ = np.asarray(meta["feature_names_in"], dtype=object)
     if classes is not None:

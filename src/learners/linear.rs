@@ -22,10 +22,11 @@ use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::{check_design, member_chunk, Bag};
+use super::{check_design, count_bags, member_chunk, Bag, FittedMembers, Targets, Task};
 use crate::error::{Error, Result};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
+use crate::resampling::Count;
 
 /// Smallest accepted ratio of a Cholesky pivot to its diagonal entry (a reciprocal
 /// condition estimate of the scaled Gram matrix).
@@ -199,12 +200,7 @@ impl LinearEnsemble {
         if y.iter().any(|v| !v.is_finite()) {
             return Err(Error::value("y", "contains NaN or infinite values"));
         }
-        if !penalty.is_finite() || penalty < 0.0 {
-            return Err(Error::value(
-                "penalty",
-                format!("must be a finite number >= 0, got {penalty}"),
-            ));
-        }
+        check_penalty(penalty)?;
         if bags.is_empty() {
             return Err(Error::value("counts", "needs at least one member"));
         }
@@ -282,21 +278,6 @@ impl LinearEnsemble {
         } else {
             Err(Error::value("data", "is not a consistent linear ensemble"))
         }
-    }
-
-    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
-        check_design(x, "x")?;
-        if x.ncols() != self.n_features {
-            return Err(Error::value(
-                "x",
-                format!(
-                    "has {} columns but the ensemble was fit on {} features",
-                    x.ncols(),
-                    self.n_features
-                ),
-            ));
-        }
-        Ok(())
     }
 
     #[inline]
@@ -384,6 +365,161 @@ impl LinearEnsemble {
                 })
         });
         Ok(())
+    }
+}
+
+/// Unchecked parameters of the linear learner; [`LinearParams::check`] turns them into
+/// [`CheckedLinearParams`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct LinearParams {
+    /// Only [`Task::Regression`]: least squares has no class fractions.
+    pub task: Task,
+    /// The ridge penalty λ ≥ 0 (0: weighted least squares).
+    pub penalty: f64,
+}
+
+/// Checked parameters of the linear learner.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CheckedLinearParams {
+    params: LinearParams,
+}
+
+impl LinearParams {
+    /// The parameters of a fit's options; `task` must be "regression" (and `n_classes`
+    /// absent).
+    ///
+    /// # Errors
+    /// `task` naming anything else.
+    pub fn from_options(task: &str, n_classes: Option<usize>, penalty: f64) -> Result<Self> {
+        if task != "regression" || n_classes.is_some() {
+            return Err(Error::value(
+                "task",
+                "the linear learner is for regression only",
+            ));
+        }
+        Ok(LinearParams {
+            task: Task::Regression,
+            penalty,
+        })
+    }
+
+    /// Checks the parameters that do not depend on the data.
+    ///
+    /// # Errors
+    /// `task` other than regression; `penalty` negative or not finite.
+    pub fn check(self) -> Result<CheckedLinearParams> {
+        if self.task != Task::Regression {
+            return Err(Error::value(
+                "task",
+                "the linear learner is for regression only",
+            ));
+        }
+        check_penalty(self.penalty)?;
+        Ok(CheckedLinearParams { params: self })
+    }
+}
+
+impl CheckedLinearParams {
+    /// The task (regression).
+    pub fn task(&self) -> Task {
+        self.params.task
+    }
+
+    /// Fits one member per bag (see [`LinearEnsemble::fit`]).
+    ///
+    /// # Errors
+    /// As [`LinearEnsemble::fit`]; `y` holding class codes.
+    pub fn fit<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        y: Targets<'_>,
+        bags: &[Bag],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<LinearEnsemble> {
+        match y {
+            Targets::Regression(y) => {
+                LinearEnsemble::fit(x, y, bags, self.params.penalty, pool, monitor)
+            }
+            Targets::Classes(_) => Err(Error::value("y", "does not match the task")),
+        }
+    }
+}
+
+/// The one check of the ridge penalty.
+fn check_penalty(penalty: f64) -> Result<()> {
+    if !penalty.is_finite() || penalty < 0.0 {
+        return Err(Error::value(
+            "penalty",
+            format!("must be a finite number >= 0, got {penalty}"),
+        ));
+    }
+    Ok(())
+}
+
+impl FittedMembers for LinearEnsemble {
+    fn n_members(&self) -> usize {
+        self.members()
+    }
+
+    fn task(&self) -> Task {
+        Task::Regression
+    }
+
+    fn n_features(&self) -> usize {
+        self.n_features
+    }
+
+    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
+        check_design(x, "x")?;
+        if x.ncols() != self.n_features {
+            return Err(Error::value(
+                "x",
+                format!(
+                    "has {} columns but the ensemble was fit on {} features",
+                    x.ncols(),
+                    self.n_features
+                ),
+            ));
+        }
+        Ok(())
+    }
+
+    fn member_predictions_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+        _monitor: &dyn Monitor,
+    ) -> Result<()> {
+        LinearEnsemble::member_predictions_into(self, x, out, pool)
+    }
+
+    fn out_of_bag_into<T: Real, C: Count>(
+        &self,
+        x: ArrayView2<'_, T>,
+        counts: ArrayView2<'_, C>,
+        out: &mut [f64],
+        pool: &Pool,
+        _monitor: &dyn Monitor,
+    ) -> Result<()> {
+        let bags = count_bags(counts, x.nrows())?;
+        LinearEnsemble::out_of_bag_into(self, x, &bags, out, pool)
+    }
+
+    fn to_bytes(&self) -> Vec<u8> {
+        postcard::to_allocvec(self).expect("serialising to memory cannot fail")
+    }
+
+    fn from_bytes(data: &[u8]) -> Result<Self> {
+        let ensemble: LinearEnsemble = postcard::from_bytes(data).map_err(|e| {
+            Error::value(
+                "data",
+                format!("is not a valid linear ensemble encoding ({e})"),
+            )
+        })?;
+        ensemble.validate()?;
+        Ok(ensemble)
     }
 }
 

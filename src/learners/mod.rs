@@ -5,17 +5,159 @@
 //! - [`linear`]: weighted least squares / ridge with intercept (regression);
 //! - [`neighbors`]: k nearest neighbours weighted by in-bag multiplicity;
 //! - [`tree`]: CART trees (exact and histogram split finders), counts as row weights.
+//!
+//! Every learner keeps one contract: its parameters are checked once, turning a
+//! `*Params` into a `Checked*Params` whose `fit` gives the fitted ensemble (linfa's
+//! "param guard"), and every fitted ensemble implements [`FittedMembers`], so the
+//! bindings treat the three alike.
 
 pub mod linear;
 pub mod neighbors;
 pub mod tree;
 
-use ndarray::ArrayView2;
+use ndarray::{ArrayView1, ArrayView2};
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
+use crate::numeric::Real;
+use crate::parallel::{Monitor, Pool};
+use crate::resampling::Count;
 
 pub use crate::members::Task;
+
+/// Training targets.
+#[derive(Debug, Clone, Copy)]
+pub enum Targets<'a> {
+    /// Real values, one per row.
+    Regression(ArrayView1<'a, f64>),
+    /// Class codes `0..n_classes`, one per row.
+    Classes(ArrayView1<'a, usize>),
+}
+
+impl Targets<'_> {
+    /// The targets as f64: the values, or the class codes as whole numbers.
+    pub fn to_f64(&self) -> Vec<f64> {
+        match self {
+            Targets::Regression(v) => v.to_vec(),
+            Targets::Classes(v) => v.iter().map(|&c| c as f64).collect(),
+        }
+    }
+}
+
+/// The contract of a fitted native ensemble, whatever its learner: sizes, the check of
+/// new points, member predictions and out-of-bag predictions written into a buffer the
+/// caller provides (members × points × outputs, C order), the ensemble mean, and
+/// serialisation.
+pub trait FittedMembers: Sized {
+    /// Number of members.
+    fn n_members(&self) -> usize;
+
+    /// What the members predict.
+    fn task(&self) -> Task;
+
+    /// Number of input features.
+    fn n_features(&self) -> usize;
+
+    /// Values per point in a member's prediction (1, or the number of classes).
+    fn outputs(&self) -> usize {
+        self.task().outputs()
+    }
+
+    /// Checks points `x` before prediction.
+    ///
+    /// # Errors
+    /// `x` with the wrong number of features or non-finite values.
+    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()>;
+
+    /// Every member's prediction at every point of `x`, written into `out` (members ×
+    /// points × outputs): regression values or class fractions.
+    ///
+    /// # Errors
+    /// As [`check_x`](FittedMembers::check_x); `out` of the wrong length;
+    /// [`Error::Interrupted`] from the monitor.
+    fn member_predictions_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()>;
+
+    /// Member m's prediction at training row i where `counts[m, i] = 0` (the member never
+    /// saw the row), NaN elsewhere; `out` as in
+    /// [`member_predictions_into`](FittedMembers::member_predictions_into).
+    ///
+    /// # Errors
+    /// As `member_predictions_into`; `counts` whose shape is not members × rows of `x`.
+    fn out_of_bag_into<T: Real, C: Count>(
+        &self,
+        x: ArrayView2<'_, T>,
+        counts: ArrayView2<'_, C>,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()>;
+
+    /// The ensemble prediction at every point into `out` (points × outputs): the members'
+    /// values (or class fractions) summed in member order and divided by the number of
+    /// members.
+    ///
+    /// # Errors
+    /// As [`member_predictions_into`](FittedMembers::member_predictions_into).
+    fn predict_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        self.check_x(x)?;
+        let width = x.nrows() * self.outputs();
+        check_out(out, width)?;
+        let mut members = vec![0.0; self.n_members() * width];
+        self.member_predictions_into(x, &mut members, pool, monitor)?;
+        out.fill(0.0);
+        for member in members.chunks_exact(width.max(1)) {
+            out.iter_mut().zip(member).for_each(|(sum, v)| *sum += v);
+        }
+        let n_members = self.n_members() as f64;
+        out.iter_mut().for_each(|sum| *sum /= n_members);
+        Ok(())
+    }
+
+    /// The fitted state as bytes.
+    fn to_bytes(&self) -> Vec<u8>;
+
+    /// Reads [`to_bytes`](FittedMembers::to_bytes) output, checking every index so that
+    /// corrupt bytes are an error and never a crash at prediction time.
+    ///
+    /// # Errors
+    /// `data` when the bytes do not decode or the decoded ensemble is not well formed.
+    fn from_bytes(data: &[u8]) -> Result<Self>;
+}
+
+/// Checks that an output buffer holds `expected` values.
+///
+/// # Errors
+/// `out` of another length.
+pub fn check_out(out: &[f64], expected: usize) -> Result<()> {
+    if out.len() == expected {
+        Ok(())
+    } else {
+        Err(Error::value(
+            "out",
+            format!("holds {} values, expected {expected}", out.len()),
+        ))
+    }
+}
+
+/// Reads members × rows in-bag counts into one [`Bag`] per member (see [`bags`]).
+///
+/// # Errors
+/// As [`bags`].
+pub fn count_bags<C: Count>(counts: ArrayView2<'_, C>, n_rows: usize) -> Result<Vec<Bag>> {
+    bags(counts.mapv(|c| c.as_u64()).view(), n_rows)
+}
 
 /// A row-weight element: in-bag counts (unsigned integers) or continuous weights (f64).
 pub trait Weight: Copy + Send + Sync + 'static {

@@ -18,10 +18,11 @@ use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::{check_design, Bag, Task};
+use super::{check_design, count_bags, Bag, FittedMembers, Targets, Task};
 use crate::error::{Error, Result};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
+use crate::resampling::Count;
 
 /// Points per parallel prediction task.
 const POINT_CHUNK: usize = 64;
@@ -189,21 +190,6 @@ impl NeighborsEnsemble {
                 "is not a consistent neighbours ensemble",
             ))
         }
-    }
-
-    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
-        check_design(x, "x")?;
-        if x.ncols() != self.n_features {
-            return Err(Error::value(
-                "x",
-                format!(
-                    "has {} columns but the ensemble was fit on {} features",
-                    x.ncols(),
-                    self.n_features
-                ),
-            ));
-        }
-        Ok(())
     }
 
     /// Squared distances from `q` to every training row, into `out`.
@@ -380,6 +366,122 @@ impl NeighborsEnsemble {
             monitor.progress(start, n)?;
         }
         Ok(())
+    }
+}
+
+/// Unchecked parameters of the neighbours learner; [`NeighborsParams::check`] turns them
+/// into [`CheckedNeighborsParams`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NeighborsParams {
+    pub task: Task,
+    /// k: in-bag draws averaged per prediction.
+    pub neighbors: usize,
+}
+
+/// Checked parameters of the neighbours learner.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CheckedNeighborsParams {
+    params: NeighborsParams,
+}
+
+impl NeighborsParams {
+    /// Checks the parameters that do not depend on the data.
+    ///
+    /// # Errors
+    /// `neighbors` below 1; `n_classes` below 1.
+    pub fn check(self) -> Result<CheckedNeighborsParams> {
+        if self.neighbors == 0 {
+            return Err(Error::value("neighbors", "must be at least 1"));
+        }
+        if self.task == (Task::Classification { n_classes: 0 }) {
+            return Err(Error::value("n_classes", "must be at least 1"));
+        }
+        Ok(CheckedNeighborsParams { params: self })
+    }
+}
+
+impl CheckedNeighborsParams {
+    /// Stores the training rows (see [`NeighborsEnsemble::fit`]); class codes are kept as
+    /// whole numbers.
+    ///
+    /// # Errors
+    /// As [`NeighborsEnsemble::fit`].
+    pub fn fit<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        y: Targets<'_>,
+        bags: Vec<Bag>,
+        monitor: &dyn Monitor,
+    ) -> Result<NeighborsEnsemble> {
+        let NeighborsParams { task, neighbors } = self.params;
+        let y = y.to_f64();
+        NeighborsEnsemble::fit(x, y.as_slice().into(), bags, task, neighbors, monitor)
+    }
+}
+
+impl FittedMembers for NeighborsEnsemble {
+    fn n_members(&self) -> usize {
+        self.members()
+    }
+
+    fn task(&self) -> Task {
+        self.task
+    }
+
+    fn n_features(&self) -> usize {
+        self.n_features
+    }
+
+    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
+        check_design(x, "x")?;
+        if x.ncols() != self.n_features {
+            return Err(Error::value(
+                "x",
+                format!(
+                    "has {} columns but the ensemble was fit on {} features",
+                    x.ncols(),
+                    self.n_features
+                ),
+            ));
+        }
+        Ok(())
+    }
+
+    fn member_predictions_into<T: Real>(
+        &self,
+        x: ArrayView2<'_, T>,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        NeighborsEnsemble::member_predictions_into(self, x, out, pool, monitor)
+    }
+
+    fn out_of_bag_into<T: Real, C: Count>(
+        &self,
+        x: ArrayView2<'_, T>,
+        counts: ArrayView2<'_, C>,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        let bags = count_bags(counts, x.nrows())?;
+        NeighborsEnsemble::out_of_bag_into(self, x, &bags, out, pool, monitor)
+    }
+
+    fn to_bytes(&self) -> Vec<u8> {
+        postcard::to_allocvec(self).expect("serialising to memory cannot fail")
+    }
+
+    fn from_bytes(data: &[u8]) -> Result<Self> {
+        let ensemble: NeighborsEnsemble = postcard::from_bytes(data).map_err(|e| {
+            Error::value(
+                "data",
+                format!("is not a valid neighbours ensemble encoding ({e})"),
+            )
+        })?;
+        ensemble.validate()?;
+        Ok(ensemble)
     }
 }
 

@@ -58,6 +58,7 @@ mod aggregation;
 mod correlation;
 mod decomposition;
 mod diversity;
+mod learners;
 mod linear;
 mod members;
 mod neighbors;

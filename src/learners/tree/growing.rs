@@ -1,0 +1,1072 @@
+//! Growing the member trees: the split search (exact, histogram, sparse bins) and the
+//! parallel fit of all members.
+
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::time::{Duration, Instant};
+
+use ndarray::ArrayView2;
+use rayon::prelude::*;
+
+use super::columns::{midpoint, prefetch, Columns};
+use super::ensemble::{Node, Tree, TreeEnsemble, LEAF};
+use super::parameters::{
+    feature_stream_seed, CheckedTreeParams, Criterion, Splitter, TreeParams, AUTO_HISTOGRAM_ABOVE,
+};
+use super::MAX_BINS;
+use crate::error::{Error, Result};
+use crate::learners::{Targets, Task};
+use crate::numeric::Real;
+use crate::parallel::{Monitor, Pool};
+use crate::random::{Draws, MemberStreams};
+use crate::resampling::Count;
+
+/// Binned nodes with at most this many distinct in-bag rows sort their bin codes instead
+/// of filling 256-bin histograms.
+pub(super) const SPARSE_BINS_UP_TO: usize = 128;
+
+/// Which rows each member sees.
+#[derive(Debug, Clone, Copy)]
+pub enum InBag<'a, C: Count> {
+    /// In-bag counts, members × rows (any strides); a count is the row's weight.
+    Counts(ArrayView2<'a, C>),
+    /// Every member sees every row once.
+    AllRows { members: usize },
+}
+
+impl<'a, C: Count> InBag<'a, C> {
+    /// The in-bag rows of a fit's options: the counts, or every row once for `n_members`
+    /// members when there are none.
+    ///
+    /// # Errors
+    /// `n_members` missing without counts, given with them, or zero.
+    pub fn from_options(
+        counts: Option<ArrayView2<'a, C>>,
+        n_members: Option<usize>,
+    ) -> Result<Self> {
+        match (counts, n_members) {
+            (Some(counts), None) => Ok(InBag::Counts(counts)),
+            (None, Some(0)) => Err(Error::value("n_members", "must be at least 1")),
+            (None, Some(members)) => Ok(InBag::AllRows { members }),
+            (None, None) => Err(Error::value("n_members", "required when `counts` is None")),
+            (Some(_), Some(_)) => Err(Error::value(
+                "n_members",
+                "give either `counts` or `n_members`, not both",
+            )),
+        }
+    }
+}
+
+/// A candidate split: rows with `rank ≤ cut` (exact) or `code ≤ cut` (histogram) go left.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Split {
+    pub(super) score: f64,
+    pub(super) feature: usize,
+    pub(super) by_bins: bool,
+    /// Rows with bin code (by_bins) or value rank (exact) ≤ cut go left.
+    pub(super) cut: u32,
+    /// Exact splits: the rank of the next distinct in-node value (the threshold lies
+    /// between the two).
+    pub(super) next: u32,
+}
+
+/// Scores within this relative distance are ties, so that the tie rule does not depend on
+/// the rounding of sums accumulated in a different order (e.g. weighted vs repeated rows).
+pub(super) const SCORE_TIE: f64 = 1e-12;
+
+impl Split {
+    /// The deterministic order: a clearly higher score wins; scores equal to within
+    /// [`SCORE_TIE`] (relative) fall back to the lower feature, then the lower threshold
+    /// (within a feature and node, the lower cut).
+    pub(super) fn beats(&self, other: &Option<Split>) -> bool {
+        match other {
+            None => true,
+            Some(o) => {
+                let tolerance = SCORE_TIE * self.score.abs().max(o.score.abs());
+                if self.score > o.score + tolerance {
+                    true
+                } else if self.score < o.score - tolerance {
+                    false
+                } else {
+                    self.feature < o.feature || (self.feature == o.feature && self.cut < o.cut)
+                }
+            }
+        }
+    }
+
+    /// The split's threshold, looked up only for the winning split of a node: the value
+    /// tables are large, and each lookup is likely a cache miss.
+    pub(super) fn threshold(&self, columns: &Columns) -> f64 {
+        let f = self.feature;
+        if self.by_bins {
+            columns.edges[f][self.cut as usize]
+        } else {
+            let d = &columns.distinct[f];
+            midpoint(d[self.cut as usize], d[self.next as usize])
+        }
+    }
+}
+
+/// Node statistics are `S = 1 + width'` floats: `[W, S]` for regression, `[W, W_0, …]`
+/// for classification.
+pub(super) struct Grower<'a> {
+    pub(super) columns: &'a Columns,
+    pub(super) config: &'a TreeParams,
+    pub(super) regression: bool,
+    pub(super) stat_width: usize,
+    pub(super) min_leaf: f64,
+    // Per in-bag row ("slot"): its row in x, weight and target; never permuted.
+    pub(super) slot_row: Vec<u32>,
+    pub(super) weight: Vec<f64>,
+    pub(super) target: Vec<f64>,
+    /// The slots of each node's range `start..end`, in no particular order.
+    pub(super) order: Vec<u32>,
+    /// Per feature, `rank << 32 | slot` sorted by rank within each node's range (kept
+    /// sorted by stable partitions, so exact scans never sort); empty for histograms only.
+    pub(super) sorted: Vec<u64>,
+    // Scratch, reused by every node.
+    pub(super) keys: Vec<u64>,
+    pub(super) goes_left: Vec<bool>,
+    pub(super) buffer: Vec<u64>,
+    pub(super) left: Vec<f64>,
+    pub(super) one_feature: Vec<f64>,
+    pub(super) features: Vec<usize>,
+    pub(super) spare_histograms: Vec<Vec<f64>>,
+    pub(super) draws: Draws,
+    // Output.
+    pub(super) tree: Tree,
+}
+
+pub(super) struct Pending {
+    pub(super) node: usize,
+    pub(super) start: usize,
+    pub(super) end: usize,
+    pub(super) depth: usize,
+    pub(super) stats: Vec<f64>,
+    pub(super) histogram: Option<Vec<f64>>,
+}
+
+impl<'a> Grower<'a> {
+    /// Adds slot `p` to `stats`.
+    #[inline(always)]
+    pub(super) fn add(&self, stats: &mut [f64], p: usize) {
+        let w = self.weight[p];
+        stats[0] += w;
+        if self.regression {
+            stats[1] += w * self.target[p];
+        } else {
+            stats[1 + self.target[p] as usize] += w;
+        }
+    }
+
+    /// The proxy of the side with statistics `s`, or of `total − s` when `minus` is given.
+    #[inline]
+    pub(super) fn proxy(&self, s: &[f64], minus: Option<&[f64]>) -> f64 {
+        let get = |k: usize| minus.map_or(s[k], |m| s[k] - m[k]);
+        let w = get(0);
+        if w <= 0.0 {
+            return 0.0;
+        }
+        match self.config.criterion {
+            Criterion::SquaredError => {
+                let t = get(1);
+                t * t / w
+            }
+            Criterion::Gini => (1..self.stat_width).map(|k| get(k) * get(k)).sum::<f64>() / w,
+            Criterion::Entropy => (1..self.stat_width)
+                .map(|k| {
+                    let c = get(k);
+                    if c > 0.0 {
+                        c * (c / w).ln()
+                    } else {
+                        0.0
+                    }
+                })
+                .sum(),
+        }
+    }
+
+    pub(super) fn stats_of(&self, start: usize, end: usize) -> Vec<f64> {
+        let mut s = vec![0.0; self.stat_width];
+        (start..end).for_each(|p| self.add(&mut s, self.order[p] as usize));
+        s
+    }
+
+    pub(super) fn is_pure(&self, start: usize, end: usize, stats: &[f64]) -> bool {
+        if self.regression {
+            let mean = stats[1] / stats[0];
+            let ss: f64 = self.order[start..end]
+                .iter()
+                .map(|&p| {
+                    let p = p as usize;
+                    let d = self.target[p] - mean;
+                    self.weight[p] * d * d
+                })
+                .sum();
+            ss / stats[0] <= f64::EPSILON
+        } else {
+            stats[1..].iter().any(|&c| c == stats[0])
+        }
+    }
+
+    pub(super) fn use_bins(&self, rows: usize) -> bool {
+        match self.config.splitter {
+            Splitter::Exact => false,
+            Splitter::Histogram => true,
+            Splitter::Auto => rows > AUTO_HISTOGRAM_ABOVE,
+        }
+    }
+
+    /// Whether a binned node is large enough for dense 256-bin histograms; smaller ones
+    /// sort their bin codes instead (same candidates, same thresholds).
+    pub(super) fn dense_bins(&self, rows: usize) -> bool {
+        self.use_bins(rows) && rows > SPARSE_BINS_UP_TO
+    }
+
+    /// Best split of feature `f` over the bin codes of positions `start..end`, found by
+    /// sorting the codes: the same candidates as [`scan_histogram`](Self::scan_histogram).
+    pub(super) fn scan_codes(
+        &mut self,
+        f: usize,
+        start: usize,
+        end: usize,
+        total: &[f64],
+    ) -> Option<Split> {
+        let mut keys = std::mem::take(&mut self.keys);
+        let mut left = std::mem::take(&mut self.left);
+        keys.clear();
+        keys.extend(self.order[start..end].iter().map(|&slot| {
+            let code = self.columns.code(f, self.slot_row[slot as usize]);
+            (u64::from(code) << 32) | u64::from(slot)
+        }));
+        keys.sort_unstable();
+        left.iter_mut().for_each(|v| *v = 0.0);
+        let mut best: Option<(f64, u32)> = None;
+        for i in 0..keys.len().saturating_sub(1) {
+            self.add(&mut left, (keys[i] & 0xFFFF_FFFF) as usize);
+            let (code, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+            let (wl, wr) = (left[0], total[0] - left[0]);
+            if code == next || wl < self.min_leaf || wr < self.min_leaf {
+                continue;
+            }
+            let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
+            if best.is_none_or(|(b, _)| score > b + SCORE_TIE * score.abs().max(b.abs())) {
+                best = Some((score, code));
+            }
+        }
+        self.keys = keys;
+        self.left = left;
+        best.map(|(score, code)| Split {
+            score,
+            feature: f,
+            by_bins: true,
+            cut: code,
+            next: code,
+        })
+    }
+
+    pub(super) fn histogram_buffer(&mut self) -> Vec<f64> {
+        let len = self.columns.n_features * MAX_BINS * self.stat_width;
+        let mut h = self.spare_histograms.pop().unwrap_or_default();
+        h.clear();
+        h.resize(len, 0.0);
+        h
+    }
+
+    /// Accumulates feature `f`'s histogram of positions `start..end` into `h`
+    /// (`MAX_BINS · stat_width` floats, zero on entry).
+    pub(super) fn fill_histogram(&self, f: usize, start: usize, end: usize, h: &mut [f64]) {
+        let s = self.stat_width;
+        let codes = &self.columns.codes[f * self.columns.n_rows..(f + 1) * self.columns.n_rows];
+        for &slot in &self.order[start..end] {
+            let p = slot as usize;
+            let o = codes[self.slot_row[p] as usize] as usize * s;
+            let w = self.weight[p];
+            h[o] += w;
+            if self.regression {
+                h[o + 1] += w * self.target[p];
+            } else {
+                h[o + 1 + self.target[p] as usize] += w;
+            }
+        }
+    }
+
+    pub(super) fn full_histogram(&mut self, start: usize, end: usize) -> Vec<f64> {
+        let mut h = self.histogram_buffer();
+        let block = MAX_BINS * self.stat_width;
+        for (f, hf) in h.chunks_mut(block).enumerate() {
+            self.fill_histogram(f, start, end, hf);
+        }
+        h
+    }
+
+    /// Best split of feature `f` from its histogram `h`.
+    pub(super) fn scan_histogram(&mut self, f: usize, h: &[f64], total: &[f64]) -> Option<Split> {
+        let s = self.stat_width;
+        let mut left = std::mem::take(&mut self.left);
+        left.iter_mut().for_each(|v| *v = 0.0);
+        let mut best: Option<Split> = None;
+        let bins = self.columns.n_bins(f);
+        for b in 0..bins.saturating_sub(1) {
+            let bin = &h[b * s..(b + 1) * s];
+            left.iter_mut().zip(bin).for_each(|(l, v)| *l += v);
+            if bin[0] <= 0.0 {
+                continue;
+            }
+            let (wl, wr) = (left[0], total[0] - left[0]);
+            if wl < self.min_leaf || wr < self.min_leaf {
+                continue;
+            }
+            let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
+            let candidate = Split {
+                score,
+                feature: f,
+                by_bins: true,
+                cut: b as u32,
+                next: b as u32,
+            };
+            if candidate.beats(&best) {
+                best = Some(candidate);
+            }
+        }
+        self.left = left;
+        best
+    }
+
+    /// Best exact split of feature `f` over positions `start..end`.
+    pub(super) fn scan_exact(
+        &mut self,
+        f: usize,
+        start: usize,
+        end: usize,
+        total: &[f64],
+    ) -> Option<Split> {
+        let n_in = self.slot_row.len();
+        let keys = &self.sorted[f * n_in + start..f * n_in + end];
+        // (score, rank, next rank) of the best boundary so far; the threshold is looked up
+        // only for the node's winning split. Later boundaries have higher thresholds, so
+        // within a feature only a clearly higher score replaces the best (the tie rule of
+        // `Split::beats`).
+        let mut best: Option<(f64, u32, u32)> = None;
+        let clearly_better = |score: f64, best: &Option<(f64, u32, u32)>| {
+            best.is_none_or(|(b, _, _)| score > b + SCORE_TIE * score.abs().max(b.abs()))
+        };
+        // Scores here are a/wl + c/wr with every term ≥ 0, so a boundary can beat the best b
+        // only if a·wr + c·wl > b·wl·wr; the products are exact to a few ulps, so testing
+        // that with a 1e-9 margin first skips both divisions for nearly every row without
+        // changing which boundary wins.
+        let may_beat = |a: f64, c: f64, wl: f64, wr: f64, best: &Option<(f64, u32, u32)>| {
+            best.is_none_or(|(b, _, _)| {
+                a < 0.0 || c < 0.0 || a * wr + c * wl > b * (wl * wr) * (1.0 - 1e-9)
+            })
+        };
+        if self.regression {
+            let (w_total, s_total) = (total[0], total[1]);
+            let (mut wl, mut sl) = (0.0, 0.0);
+            for i in 0..keys.len().saturating_sub(1) {
+                let slot = (keys[i] & 0xFFFF_FFFF) as usize;
+                let w = self.weight[slot];
+                wl += w;
+                sl += w * self.target[slot];
+                let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+                let wr = w_total - wl;
+                if rank == next || wl < self.min_leaf || wr < self.min_leaf {
+                    continue;
+                }
+                let sr = s_total - sl;
+                let (a, c) = (sl * sl, sr * sr);
+                if !may_beat(a, c, wl, wr, &best) {
+                    continue;
+                }
+                let score = a / wl + c / wr;
+                if clearly_better(score, &best) {
+                    best = Some((score, rank, next));
+                }
+            }
+        } else if self.config.criterion == Criterion::Gini {
+            // Σ_k W_Lk² and Σ_k W_Rk² updated in O(1) per row: adding weight w to class k
+            // changes them by 2·w·W_Lk + w² and −2·w·W_Rk + w² (exact for integer weights).
+            let mut left = std::mem::take(&mut self.left);
+            left.iter_mut().for_each(|v| *v = 0.0);
+            let w_total = total[0];
+            let mut squares_left = 0.0;
+            let mut squares_right: f64 = total[1..].iter().map(|c| c * c).sum();
+            for i in 0..keys.len().saturating_sub(1) {
+                let slot = (keys[i] & 0xFFFF_FFFF) as usize;
+                let w = self.weight[slot];
+                let k = 1 + self.target[slot] as usize;
+                let right_k = total[k] - left[k];
+                squares_left += w * (2.0 * left[k] + w);
+                squares_right += w * (w - 2.0 * right_k);
+                left[k] += w;
+                left[0] += w;
+                let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+                let (wl, wr) = (left[0], w_total - left[0]);
+                if rank == next || wl < self.min_leaf || wr < self.min_leaf {
+                    continue;
+                }
+                if !may_beat(squares_left, squares_right, wl, wr, &best) {
+                    continue;
+                }
+                let score = squares_left / wl + squares_right / wr;
+                if clearly_better(score, &best) {
+                    best = Some((score, rank, next));
+                }
+            }
+            self.left = left;
+        } else {
+            let mut left = std::mem::take(&mut self.left);
+            left.iter_mut().for_each(|v| *v = 0.0);
+            for i in 0..keys.len().saturating_sub(1) {
+                self.add(&mut left, (keys[i] & 0xFFFF_FFFF) as usize);
+                let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
+                let (wl, wr) = (left[0], total[0] - left[0]);
+                if rank == next || wl < self.min_leaf || wr < self.min_leaf {
+                    continue;
+                }
+                let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
+                if clearly_better(score, &best) {
+                    best = Some((score, rank, next));
+                }
+            }
+            self.left = left;
+        }
+        best.map(|(score, rank, next)| {
+            // The threshold of this feature's best is read if it wins the node: start
+            // fetching the two values now, without waiting for them.
+            let d = &self.columns.distinct[f];
+            prefetch(&d[rank as usize]);
+            prefetch(&d[next as usize]);
+            Split {
+                score,
+                feature: f,
+                by_bins: false,
+                cut: rank,
+                next,
+            }
+        })
+    }
+
+    /// Best split of a node; `histogram` is the node's full histogram when one is kept.
+    pub(super) fn best_split(
+        &mut self,
+        start: usize,
+        end: usize,
+        stats: &[f64],
+        histogram: Option<&[f64]>,
+    ) -> Option<Split> {
+        let n_features = self.columns.n_features;
+        let bins = self.use_bins(end - start);
+        let dense = self.dense_bins(end - start);
+        let block = MAX_BINS * self.stat_width;
+        let mut best: Option<Split> = None;
+        let mut try_feature = |g: &mut Self, f: usize| -> bool {
+            let found = if bins && !dense {
+                g.scan_codes(f, start, end, stats)
+            } else if bins {
+                match histogram {
+                    Some(h) => g.scan_histogram(f, &h[f * block..(f + 1) * block], stats),
+                    None => {
+                        let mut one = std::mem::take(&mut g.one_feature);
+                        one.clear();
+                        one.resize(block, 0.0);
+                        g.fill_histogram(f, start, end, &mut one);
+                        let found = g.scan_histogram(f, &one, stats);
+                        g.one_feature = one;
+                        found
+                    }
+                }
+            } else {
+                g.scan_exact(f, start, end, stats)
+            };
+            match found {
+                Some(s) => {
+                    if s.beats(&best) {
+                        best = Some(s);
+                    }
+                    true
+                }
+                None => false,
+            }
+        };
+        match self.config.split_features {
+            None => {
+                for f in 0..n_features {
+                    try_feature(self, f);
+                }
+            }
+            Some(k) => {
+                // Partial Fisher–Yates over the feature list: features in a random order
+                // until k of them offered a valid split.
+                let mut useful = 0;
+                for i in 0..n_features {
+                    let j = i + self.draws.below(n_features - i);
+                    self.features.swap(i, j);
+                    let f = self.features[i];
+                    if try_feature(self, f) {
+                        useful += 1;
+                        if useful == k {
+                            break;
+                        }
+                    }
+                }
+            }
+        }
+        best
+    }
+
+    /// Moves the positions of `start..end` that go left to the front; returns the split
+    /// position.
+    pub(super) fn partition(&mut self, start: usize, end: usize, split: &Split) -> usize {
+        let columns = self.columns;
+        let n_in = self.slot_row.len();
+        if !split.by_bins && !self.sorted.is_empty() {
+            // The split feature's sorted list: its first entries (rank ≤ cut) go left.
+            let f = split.feature;
+            for &key in &self.sorted[f * n_in + start..f * n_in + end] {
+                self.goes_left[(key & 0xFFFF_FFFF) as usize] = (key >> 32) as u32 <= split.cut;
+            }
+        } else {
+            for &slot in &self.order[start..end] {
+                let row = self.slot_row[slot as usize];
+                self.goes_left[slot as usize] = if split.by_bins {
+                    u32::from(columns.code(split.feature, row)) <= split.cut
+                } else {
+                    columns.rank(split.feature, row) <= split.cut
+                };
+            }
+        }
+        let (mut i, mut j) = (start, end);
+        while i < j {
+            if self.goes_left[self.order[i] as usize] {
+                i += 1;
+            } else {
+                j -= 1;
+                self.order.swap(i, j);
+            }
+        }
+        // Stable, branch-free partitions keep every feature's list sorted in both children.
+        if !self.sorted.is_empty() {
+            let goes_left = &self.goes_left;
+            let buffer = &mut self.buffer;
+            buffer.resize(end - start, 0);
+            for f in 0..columns.n_features {
+                let list = &mut self.sorted[f * n_in + start..f * n_in + end];
+                let (mut k, mut r) = (0usize, 0usize);
+                for q in 0..list.len() {
+                    let key = list[q];
+                    let left = usize::from(goes_left[(key & 0xFFFF_FFFF) as usize]);
+                    list[k] = key;
+                    buffer[r] = key;
+                    k += left;
+                    r += 1 - left;
+                }
+                list[k..].copy_from_slice(&buffer[..r]);
+            }
+        }
+        i
+    }
+
+    pub(super) fn make_leaf(&mut self, node: usize, stats: &[f64]) {
+        let width = self.config.task.outputs();
+        self.tree.nodes[node] = Node {
+            threshold: 0.0,
+            feature: LEAF,
+            child: (self.tree.values.len() / width) as u32,
+        };
+        if self.regression {
+            self.tree.values.push(stats[1] / stats[0]);
+        } else {
+            let values = stats[1..].iter().map(|c| c / stats[0]);
+            self.tree.values.extend(values);
+        }
+    }
+
+    /// Grows the tree; `None` if `stop` was raised meanwhile (checked at every node).
+    pub(super) fn grow(mut self, stop: &AtomicBool) -> Option<Tree> {
+        let n = self.slot_row.len();
+        let root_stats = self.stats_of(0, n);
+        self.tree.nodes.push(Node::PLACEHOLDER);
+        let all_features = self.config.split_features.is_none();
+        let root_histogram =
+            (all_features && self.dense_bins(n)).then(|| self.full_histogram(0, n));
+        let mut stack = vec![Pending {
+            node: 0,
+            start: 0,
+            end: n,
+            depth: 0,
+            stats: root_stats,
+            histogram: root_histogram,
+        }];
+        while let Some(job) = stack.pop() {
+            if stop.load(Ordering::Relaxed) {
+                return None;
+            }
+            let Pending {
+                node,
+                start,
+                end,
+                depth,
+                stats,
+                histogram,
+            } = job;
+            let stop = self.config.max_depth.is_some_and(|d| depth >= d)
+                || stats[0] < 2.0 * self.min_leaf
+                || end - start < 2
+                || self.is_pure(start, end, &stats);
+            let split = if stop {
+                None
+            } else {
+                self.best_split(start, end, &stats, histogram.as_deref())
+            };
+            let Some(split) = split else {
+                self.make_leaf(node, &stats);
+                if let Some(h) = histogram {
+                    self.spare_histograms.push(h);
+                }
+                continue;
+            };
+            let mid = self.partition(start, end, &split);
+            let left_stats = self.stats_of(start, mid);
+            let right_stats = self.stats_of(mid, end);
+            let c = self.tree.nodes.len();
+            self.tree.nodes[node] = Node {
+                threshold: split.threshold(self.columns),
+                feature: split.feature as u32,
+                child: c as u32,
+            };
+            self.tree.nodes.extend([Node::PLACEHOLDER; 2]);
+            // Sibling subtraction: the smaller child's histogram is built, the larger
+            // one's is the parent's minus it.
+            let (mut left_h, mut right_h) = (None, None);
+            if let Some(mut parent) = histogram {
+                let left_smaller = mid - start <= end - mid;
+                let (small, large) = if left_smaller {
+                    ((start, mid), (mid, end))
+                } else {
+                    ((mid, end), (start, mid))
+                };
+                if self.dense_bins(large.1 - large.0) {
+                    let small_h = self.full_histogram(small.0, small.1);
+                    parent.iter_mut().zip(&small_h).for_each(|(p, s)| *p -= s);
+                    let small_h = if self.dense_bins(small.1 - small.0) {
+                        Some(small_h)
+                    } else {
+                        self.spare_histograms.push(small_h);
+                        None
+                    };
+                    if left_smaller {
+                        (left_h, right_h) = (small_h, Some(parent));
+                    } else {
+                        (left_h, right_h) = (Some(parent), small_h);
+                    }
+                } else {
+                    self.spare_histograms.push(parent);
+                }
+            }
+            stack.push(Pending {
+                node: c + 1,
+                start: mid,
+                end,
+                depth: depth + 1,
+                stats: right_stats,
+                histogram: right_h,
+            });
+            stack.push(Pending {
+                node: c,
+                start,
+                end: mid,
+                depth: depth + 1,
+                stats: left_stats,
+                histogram: left_h,
+            });
+        }
+        Some(self.tree)
+    }
+}
+
+/// How often the calling thread reports progress (and so checks for Ctrl-C) during a fit.
+pub(super) const HEARTBEAT: Duration = Duration::from_millis(100);
+
+impl CheckedTreeParams {
+    /// The checked parameters.
+    pub fn params(&self) -> &TreeParams {
+        &self.params
+    }
+
+    /// Grows one tree per member on `x` (rows × features, any strides, f32 or f64) with the
+    /// in-bag counts as row weights. Members are fit in parallel; from the calling thread,
+    /// `monitor` hears the number of finished members about every 100 ms (the same number
+    /// may repeat while long members grow) and once more at the end; an error from it stops
+    /// every grower within a few nodes.
+    ///
+    /// # Errors
+    /// `x` empty, with non-finite values or more than 2^32 − 1 rows; `y` of the wrong length,
+    /// non-finite, or with class codes ≥ `n_classes`, or not matching the task; `counts` of
+    /// the wrong shape or with a member that has no in-bag row; `members` zero;
+    /// `split_features` above the number of features; [`Error::Interrupted`].
+    pub fn fit<T: Real, C: Count>(
+        &self,
+        x: ArrayView2<'_, T>,
+        y: Targets<'_>,
+        in_bag: InBag<'_, C>,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<TreeEnsemble> {
+        let p = &self.params;
+        let (n_rows, n_features) = x.dim();
+        if n_rows == 0 || n_features == 0 {
+            return Err(Error::value("x", format!("is empty (shape {:?})", x.dim())));
+        }
+        if n_rows >= u32::MAX as usize {
+            return Err(Error::value("x", "has 2^32 - 1 rows or more"));
+        }
+        if x.iter().any(|v| !v.to_f64().is_finite()) {
+            return Err(Error::value("x", "contains NaN or infinite values"));
+        }
+        if let Some(k) = p.split_features {
+            if k > n_features {
+                return Err(Error::value(
+                    "split_features",
+                    format!("is {k} but x has only {n_features} features"),
+                ));
+            }
+        }
+        let target: Vec<f64> = match (p.task, y) {
+            (Task::Regression, Targets::Regression(v)) => {
+                if v.iter().any(|t| !t.is_finite()) {
+                    return Err(Error::value("y", "contains NaN or infinite values"));
+                }
+                v.to_vec()
+            }
+            (Task::Classification { n_classes }, Targets::Classes(v)) => {
+                if let Some(bad) = v.iter().find(|&&c| c >= n_classes) {
+                    return Err(Error::value(
+                        "y",
+                        format!("class code {bad} is not below n_classes = {n_classes}"),
+                    ));
+                }
+                v.iter().map(|&c| c as f64).collect()
+            }
+            _ => return Err(Error::value("y", "does not match the task")),
+        };
+        if target.len() != n_rows {
+            return Err(Error::value(
+                "y",
+                format!("has {} values but x has {n_rows} rows", target.len()),
+            ));
+        }
+        let members = match in_bag {
+            InBag::AllRows { members } => members,
+            InBag::Counts(c) => c.nrows(),
+        };
+        if members == 0 {
+            return Err(Error::value("members", "must be at least 1"));
+        }
+        if let InBag::Counts(c) = in_bag {
+            if c.ncols() != n_rows {
+                return Err(Error::value(
+                    "counts",
+                    format!("has {} columns but x has {n_rows} rows", c.ncols()),
+                ));
+            }
+            if let Some(m) = c
+                .outer_iter()
+                .position(|row| row.iter().all(|v| v.as_u64() == 0))
+            {
+                return Err(Error::value(
+                    "counts",
+                    format!("member {m} has no in-bag row (all counts zero)"),
+                ));
+            }
+        }
+        let bins = p.splitter != Splitter::Exact;
+        let columns = Columns::build(&x, bins, p.splitter != Splitter::Histogram, pool);
+        let draws = MemberStreams::new(feature_stream_seed(p.seed)).take(members);
+        // The members grow on the pool in a worker thread while the calling thread reports
+        // the number finished every HEARTBEAT; an error from the monitor (Ctrl-C, a
+        // raising callback) raises `stop`, which every grower checks between nodes.
+        let stop = AtomicBool::new(false);
+        let finished = AtomicUsize::new(0);
+        let (grown, outcome) = std::thread::scope(|scope| {
+            let worker = scope.spawn(|| {
+                pool.run(|| {
+                    draws
+                        .into_par_iter()
+                        .enumerate()
+                        .map(|(m, d)| {
+                            let tree = self.grow_member(&columns, &target, in_bag, m, d, &stop);
+                            finished.fetch_add(1, Ordering::Relaxed);
+                            tree
+                        })
+                        .collect::<Vec<Option<Tree>>>()
+                })
+            });
+            let mut outcome = Ok(());
+            let mut last = Instant::now();
+            while !worker.is_finished() {
+                std::thread::sleep(Duration::from_millis(5));
+                if outcome.is_ok() && last.elapsed() >= HEARTBEAT {
+                    last = Instant::now();
+                    let done = finished.load(Ordering::Relaxed);
+                    if let Err(e) = monitor.progress(done, members) {
+                        stop.store(true, Ordering::Relaxed);
+                        outcome = Err(e);
+                    }
+                }
+            }
+            let grown = worker
+                .join()
+                .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
+            (grown, outcome)
+        });
+        outcome?;
+        let trees: Vec<Tree> = grown
+            .into_iter()
+            .collect::<Option<_>>()
+            .ok_or(Error::Interrupted)?;
+        monitor.progress(members, members)?;
+        Ok(TreeEnsemble {
+            task: p.task,
+            n_features,
+            trees,
+        })
+    }
+
+    pub(super) fn grow_member<C: Count>(
+        &self,
+        columns: &Columns,
+        target: &[f64],
+        in_bag: InBag<'_, C>,
+        member: usize,
+        draws: Draws,
+        stop: &AtomicBool,
+    ) -> Option<Tree> {
+        if stop.load(Ordering::Relaxed) {
+            return None;
+        }
+        let p = &self.params;
+        let (mut rows, mut weight) = (Vec::new(), Vec::new());
+        match in_bag {
+            InBag::AllRows { .. } => {
+                rows.extend(0..columns.n_rows as u32);
+                weight.resize(columns.n_rows, 1.0);
+            }
+            InBag::Counts(c) => {
+                for (i, v) in c.row(member).iter().enumerate() {
+                    let v = v.as_u64();
+                    if v > 0 {
+                        rows.push(i as u32);
+                        weight.push(v as f64);
+                    }
+                }
+            }
+        }
+        let target_pos = rows.iter().map(|&r| target[r as usize]).collect();
+        let n_in = rows.len();
+        let mut sorted = Vec::new();
+        if !columns.order.is_empty() {
+            // Each feature's global value order restricted to the in-bag rows: sorted
+            // lists in O(features · rows), no sort per member.
+            let mut slot_of_row = vec![u32::MAX; columns.n_rows];
+            rows.iter()
+                .enumerate()
+                .for_each(|(slot, &r)| slot_of_row[r as usize] = slot as u32);
+            sorted.reserve_exact(n_in * columns.n_features);
+            for f in 0..columns.n_features {
+                let order = &columns.order[f * columns.n_rows..(f + 1) * columns.n_rows];
+                sorted.extend(order.iter().filter_map(|&r| {
+                    let slot = slot_of_row[r as usize];
+                    (slot != u32::MAX)
+                        .then(|| (u64::from(columns.rank(f, r)) << 32) | u64::from(slot))
+                }));
+            }
+        }
+        let stat_width = match p.task {
+            Task::Regression => 2,
+            Task::Classification { n_classes } => 1 + n_classes,
+        };
+        let grower = Grower {
+            columns,
+            config: p,
+            regression: p.task == Task::Regression,
+            stat_width,
+            min_leaf: p.min_leaf as f64,
+            order: (0..n_in as u32).collect(),
+            slot_row: rows,
+            weight,
+            target: target_pos,
+            sorted,
+            keys: Vec::new(),
+            goes_left: vec![false; n_in],
+            buffer: Vec::new(),
+            left: vec![0.0; stat_width],
+            one_feature: Vec::new(),
+            features: (0..columns.n_features).collect(),
+            spare_histograms: Vec::new(),
+            draws,
+            tree: Tree {
+                nodes: Vec::new(),
+                values: Vec::new(),
+            },
+        };
+        grower.grow(stop)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::test_support::*;
+    use super::*;
+    use crate::parallel::Silent;
+    use ndarray::{Array1, Array2};
+
+    #[test]
+    fn a_stump_splits_at_the_midpoint() {
+        // Hand-computed: y steps from 1 to 5 between x = 2 and x = 3, so the best depth-1
+        // split is at (2 + 3)/2 with leaf means 1 and 5.
+        let x = Array2::from_shape_vec((4, 1), vec![1.0, 2.0, 3.0, 4.0]).unwrap();
+        let y = Array1::from(vec![1.0, 1.0, 5.0, 5.0]);
+        for splitter in [Splitter::Exact, Splitter::Histogram] {
+            let mut p = params(Task::Regression, splitter);
+            p.max_depth = Some(1);
+            let e = fit_reg(p, &x, &y, &Array2::ones((1, 4)));
+            assert_eq!(e.trees()[0].nodes[0].threshold, 2.5);
+            assert_eq!(e.trees()[0].node_count(), 3);
+            let probe = Array2::from_shape_vec((3, 1), vec![2.5, 2.6, -9.0]).unwrap();
+            assert_eq!(members(&e, &probe), vec![1.0, 5.0, 1.0]);
+        }
+    }
+
+    #[test]
+    fn weighted_classes_give_weighted_fractions() {
+        // One row drawn 3 times and one drawn once in a leaf: fractions 3/4 and 1/4.
+        let x = Array2::from_shape_vec((3, 1), vec![0.0, 0.0, 1.0]).unwrap();
+        let y = Array1::from(vec![0usize, 1, 1]);
+        let counts = Array2::from_shape_vec((1, 3), vec![3u8, 1, 2]).unwrap();
+        let mut p = params(Task::Classification { n_classes: 2 }, Splitter::Exact);
+        p.min_leaf = 1;
+        let e = p
+            .check()
+            .unwrap()
+            .fit(
+                x.view(),
+                Targets::Classes(y.view()),
+                InBag::Counts(counts.view()),
+                &pool(1),
+                &Silent,
+            )
+            .unwrap();
+        let probe = Array2::from_shape_vec((2, 1), vec![0.0, 1.0]).unwrap();
+        assert_eq!(members(&e, &probe), vec![0.75, 0.25, 0.0, 1.0]);
+    }
+
+    /// The tree grown with counts as weights equals the tree grown on the materialised
+    /// resampled rows (every row repeated `count` times, weight 1).
+    fn check_materialised(task: Task, splitter: Splitter, levels: usize) {
+        let x = data(600, 4, 3, levels);
+        let y = signal(&x, 4);
+        let mut d = Draws::from_seed(9);
+        let mut counts = Array2::<u8>::zeros((1, 600));
+        d.for_each_below(600, 600, |i| counts[(0, i)] += 1);
+        let picked: Vec<usize> = (0..600)
+            .flat_map(|i| std::iter::repeat_n(i, counts[(0, i)] as usize))
+            .collect();
+        let xr = x.select(ndarray::Axis(0), &picked);
+        let mut p = params(task, splitter);
+        p.min_leaf = 3;
+        let config = p.check().unwrap();
+        let fit = |x: &Array2<f64>, y: &Array1<f64>, c: &Array2<u8>| {
+            let classes: Array1<usize> = y.mapv(|v| (v * 2.0).max(0.0) as usize % 3);
+            let t = match task {
+                Task::Regression => Targets::Regression(y.view()),
+                Task::Classification { .. } => Targets::Classes(classes.view()),
+            };
+            let e = config
+                .fit(x.view(), t, InBag::Counts(c.view()), &pool(2), &Silent)
+                .unwrap();
+            members(&e, &data(500, 4, 77, levels.max(1) * 3))
+        };
+        let weighted = fit(&x, &y, &counts);
+        let yr = y.select(ndarray::Axis(0), &picked);
+        let materialised = fit(&xr, &yr, &Array2::ones((1, picked.len())));
+        for (a, b) in weighted.iter().zip(&materialised) {
+            assert!((a - b).abs() <= 1e-9 * (1.0 + b.abs()), "{a} vs {b}");
+        }
+    }
+
+    #[test]
+    fn counts_as_weights_equal_materialised_rows() {
+        // Exact: continuous features. Histogram: 40 distinct values per feature, every one
+        // of them drawn, so both fits cut the same bins (one per value).
+        let classes = Task::Classification { n_classes: 3 };
+        check_materialised(Task::Regression, Splitter::Exact, 0);
+        check_materialised(classes, Splitter::Exact, 0);
+        check_materialised(Task::Regression, Splitter::Histogram, 40);
+        check_materialised(classes, Splitter::Histogram, 40);
+    }
+
+    #[test]
+    fn results_do_not_depend_on_threads_and_members_are_prefix_stable() {
+        let x = data(3000, 5, 5, 0);
+        let y = signal(&x, 6);
+        let mut counts = Array2::<u8>::zeros((6, 3000));
+        let mut d = Draws::from_seed(2);
+        for m in 0..6 {
+            d.for_each_below(3000, 3000, |i| counts[(m, i)] += 1);
+        }
+        for splitter in [Splitter::Auto, Splitter::Exact, Splitter::Histogram] {
+            let mut p = params(Task::Regression, splitter);
+            p.split_features = Some(2);
+            let config = p.check().unwrap();
+            let fit = |c: ndarray::ArrayView2<'_, u8>, threads: usize| {
+                config
+                    .fit(
+                        x.view(),
+                        Targets::Regression(y.view()),
+                        InBag::Counts(c),
+                        &pool(threads),
+                        &Silent,
+                    )
+                    .unwrap()
+            };
+            let one = fit(counts.view(), 1);
+            let two = fit(counts.view(), 2);
+            assert_eq!(one, two);
+            let first = fit(counts.slice(ndarray::s![..2, ..]), 2);
+            assert_eq!(first.trees(), &one.trees()[..2]);
+            assert_ne!(one.trees()[0], one.trees()[1]);
+        }
+    }
+
+    #[test]
+    fn f32_input_fits_the_same_trees_as_f64() {
+        let x = data(500, 3, 8, 0).mapv(|v| v as f32);
+        let x64 = x.mapv(f64::from);
+        let y = signal(&x64, 1);
+        let config = params(Task::Regression, Splitter::Auto).check().unwrap();
+        let ones: InBag<'_, u8> = InBag::AllRows { members: 1 };
+        let a = config
+            .fit(
+                x.view(),
+                Targets::Regression(y.view()),
+                ones,
+                &pool(1),
+                &Silent,
+            )
+            .unwrap();
+        let b = config
+            .fit(
+                x64.view(),
+                Targets::Regression(y.view()),
+                ones,
+                &pool(1),
+                &Silent,
+            )
+            .unwrap();
+        assert_eq!(a, b);
+        // Fully grown on distinct rows: the training targets are reproduced.
+        let mut out = vec![0.0; 500];
+        a.predict_into(x.view(), &mut out, &pool(1)).unwrap();
+        assert!(out.iter().zip(&y).all(|(p, t)| (p - t).abs() < 1e-12));
+    }
+}

@@ -1,0 +1,165 @@
+//! What the bindings of the native learners share: reading targets and in-bag counts, and
+//! the methods every learner class exposes alike through [`FittedMembers`] (member
+//! predictions, out-of-bag predictions, the mean, bytes).
+
+use numpy::ndarray::Ix2;
+use numpy::{PyArrayMethods, PyReadonlyArray1, PyReadonlyArray2};
+use pyo3::exceptions::{PyTypeError, PyValueError};
+use pyo3::prelude::*;
+use pyo3::types::PyBytes;
+
+use super::{run_core, to_py_err, zeros_nd, CountArray, FloatArray};
+use crate::learners::{bags, Bag, FittedMembers, Targets, Task};
+
+/// The training targets: float64 values for regression, int64 class codes otherwise.
+pub(super) enum YValues {
+    Real(Vec<f64>),
+    Codes(Vec<usize>),
+}
+
+impl YValues {
+    /// Reads `y` for `task`.
+    pub(super) fn read(y: &Bound<'_, PyAny>, task: Task) -> PyResult<Self> {
+        match task {
+            Task::Regression => y
+                .extract::<PyReadonlyArray1<'_, f64>>()
+                .map(|a| YValues::Real(a.as_array().to_vec()))
+                .map_err(|_| {
+                    PyTypeError::new_err("`y`: expected a 1-D float64 array for regression")
+                }),
+            Task::Classification { .. } => {
+                let a = y.extract::<PyReadonlyArray1<'_, i64>>().map_err(|_| {
+                    PyTypeError::new_err("`y`: expected a 1-D int64 array of class codes")
+                })?;
+                let codes: Result<Vec<usize>, _> =
+                    a.as_array().iter().map(|&c| usize::try_from(c)).collect();
+                codes
+                    .map(YValues::Codes)
+                    .map_err(|_| PyValueError::new_err("`y`: class codes must be non-negative"))
+            }
+        }
+    }
+
+    /// The core's view of the targets.
+    pub(super) fn view(&self) -> Targets<'_> {
+        match self {
+            YValues::Real(v) => Targets::Regression(v.as_slice().into()),
+            YValues::Codes(v) => Targets::Classes(v.as_slice().into()),
+        }
+    }
+}
+
+/// Reads members × rows in-bag counts (any unsigned integer dtype) or float64 weights.
+pub(super) fn read_bags(counts: &Bound<'_, PyAny>, n_rows: usize) -> PyResult<Vec<Bag>> {
+    macro_rules! try_as {
+        ($($t:ty),*) => {$(
+            if let Ok(a) = counts.extract::<PyReadonlyArray2<'_, $t>>() {
+                return bags(a.as_array(), n_rows).map_err(to_py_err);
+            }
+        )*};
+    }
+    try_as!(u8, u16, u32, u64, f64);
+    Err(PyTypeError::new_err(
+        "`counts`: expected a 2-D array of unsigned integer counts or float64 weights",
+    ))
+}
+
+/// A Python integer option for the core: a negative value becomes 0, which the core's
+/// parameter check rejects, naming the argument.
+pub(super) fn count(value: i64) -> usize {
+    usize::try_from(value).unwrap_or(0)
+}
+
+/// Number of rows of a float design.
+pub(super) fn rows_of(x: &FloatArray<'_, Ix2>) -> usize {
+    with_float!(x, |a| a.nrows())
+}
+
+/// `[members,] points[, n_classes]`.
+fn shape<E: FittedMembers>(model: &E, members: bool, n_points: usize) -> Vec<usize> {
+    let mut shape = if members {
+        vec![model.n_members(), n_points]
+    } else {
+        vec![n_points]
+    };
+    if let Task::Classification { n_classes } = model.task() {
+        shape.push(n_classes);
+    }
+    shape
+}
+
+/// `member_predictions`: (members, points) values or (members, points, n_classes)
+/// class fractions, written by the core straight into the numpy array.
+pub(super) fn member_predictions<'py, E: FittedMembers + Sync>(
+    py: Python<'py>,
+    model: &E,
+    x: &Bound<'py, PyAny>,
+    n_jobs: Option<usize>,
+) -> PyResult<Bound<'py, PyAny>> {
+    let x = FloatArray::<Ix2>::extract(x, "x")?;
+    let array = zeros_nd::<f64>(py, shape(model, true, rows_of(&x)))?;
+    // SAFETY: the array was just created here and is not shared with Python yet.
+    let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
+    with_float!(x, |a| run_core(py, n_jobs, None, |pool, monitor| {
+        model.member_predictions_into(a, out, pool, monitor)
+    }))?;
+    Ok(array.into_any())
+}
+
+/// `out_of_bag_predictions`: as `member_predictions` on the training rows, NaN where the
+/// member saw the row.
+pub(super) fn out_of_bag_predictions<'py, E: FittedMembers + Sync>(
+    py: Python<'py>,
+    model: &E,
+    x: &Bound<'py, PyAny>,
+    counts: &Bound<'py, PyAny>,
+    n_jobs: Option<usize>,
+) -> PyResult<Bound<'py, PyAny>> {
+    let x = FloatArray::<Ix2>::extract(x, "x")?;
+    let counts = CountArray::extract(counts)?;
+    let array = zeros_nd::<f64>(py, shape(model, true, rows_of(&x)))?;
+    // SAFETY: the array was just created here and is not shared with Python yet.
+    let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
+    with_counts!(counts, |c| with_float!(x, |a| run_core(
+        py,
+        n_jobs,
+        None,
+        |pool, monitor| model.out_of_bag_into(a, c, out, pool, monitor)
+    )))?;
+    Ok(array.into_any())
+}
+
+/// `predict`: the mean over members, (points,) values or (points, n_classes).
+pub(super) fn predict<'py, E: FittedMembers + Sync>(
+    py: Python<'py>,
+    model: &E,
+    x: &Bound<'py, PyAny>,
+    n_jobs: Option<usize>,
+) -> PyResult<Bound<'py, PyAny>> {
+    let x = FloatArray::<Ix2>::extract(x, "x")?;
+    let array = zeros_nd::<f64>(py, shape(model, false, rows_of(&x)))?;
+    // SAFETY: the array was just created here and is not shared with Python yet.
+    let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
+    with_float!(x, |a| run_core(py, n_jobs, None, |pool, monitor| {
+        model.predict_into(a, out, pool, monitor)
+    }))?;
+    Ok(array.into_any())
+}
+
+/// `to_bytes`.
+pub(super) fn to_bytes<'py, E: FittedMembers>(py: Python<'py>, model: &E) -> Bound<'py, PyBytes> {
+    PyBytes::new(py, &model.to_bytes())
+}
+
+/// `from_bytes`: corrupt or foreign bytes raise ValueError.
+pub(super) fn from_bytes<E: FittedMembers>(data: &[u8]) -> PyResult<E> {
+    E::from_bytes(data).map_err(to_py_err)
+}
+
+/// `n_classes`: None for regression.
+pub(super) fn n_classes<E: FittedMembers>(model: &E) -> Option<usize> {
+    match model.task() {
+        Task::Regression => None,
+        Task::Classification { n_classes } => Some(n_classes),
+    }
+}
