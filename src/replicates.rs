@@ -389,8 +389,14 @@ mod tests {
     fn run(members: ArrayView3<'_, f64>, y: Option<&[f64]>, pool: &Pool) -> Result<Out> {
         let n = members.dim().2;
         let mut buffer = vec![0.0; Row::count(y.is_some()) * n];
-        let summary = replicate_spread(members, y.map(ArrayView1::from), &mut buffer, pool, &Silent)?;
-        let row = |r: Row| buffer.get(r.index() * n..(r.index() + 1) * n).unwrap_or_default().to_vec();
+        let summary =
+            replicate_spread(members, y.map(ArrayView1::from), &mut buffer, pool, &Silent)?;
+        let row = |r: Row| {
+            buffer
+                .get(r.index() * n..(r.index() + 1) * n)
+                .unwrap_or_default()
+                .to_vec()
+        };
         Ok(Out {
             within: row(Row::Within),
             between: row(Row::Between),

@@ -234,7 +234,9 @@ impl CountGram {
             if s == 0 || s >= n_rows {
                 return Err(Error::value(
                     "counts",
-                    format!("a subsample must draw between 1 and n_rows − 1 rows, got {s} of {n_rows}"),
+                    format!(
+                        "a subsample must draw between 1 and n_rows − 1 rows, got {s} of {n_rows}"
+                    ),
                 ));
             }
         }

@@ -110,8 +110,8 @@ def test_ueda_nakano_split_adds_up_exactly():
     total = spread.bias**2 + spread.member_variance / M \
         + (1 - 1 / M) * spread.covariance
     np.testing.assert_allclose(total, expected, rtol=1e-12)
-    assert spread.mean_bias_squared + spread.mean_member_variance / M + (1 - 1 / M) * spread.mean_covariance == \
-        pytest.approx(expected.mean(), rel=1e-12)
+    assert spread.mean_bias_squared + spread.mean_member_variance / M \
+        + (1 - 1 / M) * spread.mean_covariance == pytest.approx(expected.mean(), rel=1e-12)
     assert spread.mean_expected_squared_error == pytest.approx(expected.mean(), rel=1e-12)
 
 

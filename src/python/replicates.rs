@@ -30,9 +30,11 @@ fn replicate_spread<'py>(
     // SAFETY: the array was just created here and is not shared with Python yet.
     let out = unsafe { rows.as_slice_mut() }.expect("a new array is contiguous");
     let y = y.as_ref().map(|y| y.as_array());
-    let summary = with_float!(members, |view| run_core(py, n_jobs, None, |pool, monitor| {
-        spread_core(view, y, out, pool, monitor)
-    }))?;
+    let summary = with_float!(members, |view| {
+        run_core(py, n_jobs, None, |pool, monitor| {
+            spread_core(view, y, out, pool, monitor)
+        })
+    })?;
     let rows = rows.unbind();
     Ok(PyReplicateSpreadParts { rows, summary })
 }

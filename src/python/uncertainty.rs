@@ -78,9 +78,11 @@ impl PyCountGram {
     ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
         let method = Method::parse(method).map_err(to_py_err)?;
         let members = FloatArray::<numpy::Ix2>::extract(members, "members")?;
-        let estimate = with_float!(members, |view| run_core(py, n_jobs, None, |pool, _| {
-            self.inner.variance(view, method, pool)
-        }))?;
+        let estimate = with_float!(members, |view| {
+            run_core(py, n_jobs, None, |pool, _| {
+                self.inner.variance(view, method, pool)
+            })
+        })?;
         let arr = |a: numpy::ndarray::Array1<f64>| a.into_pyarray(py).into_any().unbind();
         Ok((
             arr(estimate.raw),
