@@ -11,6 +11,7 @@
 //!   MSW   = Σ_r Σ_m (t_{r,m} − f_r)² / (R(M − 1))           pooled within-replicate variance
 //!   MSB   = M · Σ_r (f_r − f̄)² / (R − 1)                    f̄ = (1/R) Σ_r f_r
 //!   within  = MSW                      E = σ²(1 − ρ)
+//!   variance = MSB / M                observed variance of the M-member ensemble mean
 //!   between = (MSB − MSW) / M          E = ρσ², unbiased, may be negative from noise
 //!   σ² = between + within,   ρ = between⁺ / (between⁺ + within),  between⁺ = max(between, 0)
 //! Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, 2nd ed.,
@@ -24,10 +25,10 @@
 //!
 //! ```text
 //!   bias_i   = (1/M) Σ_m (E_r[t_{r,m}] − y_i) = f̄ − y_i
-//!   var_i    = (1/M) Σ_m Var_r(t_{r,m})
+//!   member_variance_i = (1/M) Σ_m Var_r(t_{r,m})
 //!   covar_i  = 1/(M(M − 1)) Σ_{m ≠ m'} Cov_r(t_{r,m}, t_{r,m'})
 //!            = (M² Var_r(f_r) − Σ_m Var_r(t_{r,m})) / (M(M − 1))
-//!   E_r[(f_r − y_i)²] = bias_i² + var_i / M + (1 − 1/M) covar_i
+//!   E_r[(f_r − y_i)²] = bias_i² + member_variance_i / M + (1 − 1/M) covar_i
 //! ```
 
 use ndarray::{s, ArrayView1, ArrayView3};
@@ -38,40 +39,92 @@ use crate::numeric::{Moments, Real};
 use crate::out_of_bag::Sum;
 use crate::parallel::{Monitor, Pool};
 
-/// Per-point outputs of [`replicate_spread`], written in place (each of length points).
-pub struct SpreadOutputs<'a> {
-    /// Pooled within-replicate member variance (ddof 1).
-    pub within: &'a mut [f64],
-    /// Unbiased between-replicate variance of the true ensemble mean (may be negative).
-    pub between: &'a mut [f64],
-    /// Observed variance of the replicate ensemble means, MSB / M (ddof 1).
-    pub ensemble_variance: &'a mut [f64],
-    /// With targets only (else empty): bias, variance, covariance and the replicates' mean
-    /// squared error of the ensemble mean.
-    pub split: Option<SplitOutputs<'a>>,
+/// The per-point rows of [`replicate_spread`]'s output buffer, in order: the first
+/// [`Row::WITHOUT_Y`] always, all [`Row::WITH_Y`] with targets.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Row {
+    /// Pooled within-replicate member variance (ddof 1), (1 − ρ)σ².
+    Within,
+    /// Unbiased between-replicate variance of the infinite ensemble's mean, ρσ² (may be
+    /// negative).
+    Between,
+    /// Observed variance of the replicate ensemble means f_r, MSB / M (ddof 1).
+    Variance,
+    /// With targets: bias f̄ − y (signed).
+    Bias,
+    /// With targets: mean over members of a member's variance over replicates (ddof 0).
+    MemberVariance,
+    /// With targets: mean pairwise member covariance over replicates (ddof 0).
+    Covariance,
+    /// With targets: mean over replicates of (f_r − y)².
+    ExpectedSquaredError,
 }
 
-/// Per-point Ueda–Nakano terms.
-pub struct SplitOutputs<'a> {
-    pub bias: &'a mut [f64],
-    pub variance: &'a mut [f64],
-    pub covariance: &'a mut [f64],
-    pub expected_squared_error: &'a mut [f64],
+impl Row {
+    /// Rows without targets.
+    pub const WITHOUT_Y: usize = 3;
+    /// Rows with targets.
+    pub const WITH_Y: usize = 7;
+
+    /// Rows of the output buffer for `with_y`.
+    pub const fn count(with_y: bool) -> usize {
+        if with_y {
+            Self::WITH_Y
+        } else {
+            Self::WITHOUT_Y
+        }
+    }
+
+    /// Position of this row in the buffer.
+    pub const fn index(self) -> usize {
+        self as usize
+    }
+}
+
+/// Per-point outputs, each of length points (slices of the one output buffer).
+struct SpreadOutputs<'a> {
+    within: &'a mut [f64],
+    between: &'a mut [f64],
+    variance: &'a mut [f64],
+    split: Option<[&'a mut [f64]; 4]>,
+}
+
+impl<'a> SpreadOutputs<'a> {
+    /// Splits a rows × points buffer (row-major, rows in [`Row`] order) into the outputs.
+    fn split(out: &'a mut [f64], points: usize, with_y: bool) -> Result<Self> {
+        if out.len() != Row::count(with_y) * points {
+            return Err(Error::value(
+                "members",
+                "output buffer does not match the input shape",
+            ));
+        }
+        let mut rows = out.chunks_mut(points.max(1));
+        let mut next = || rows.next().unwrap_or_default();
+        let (within, between, variance) = (next(), next(), next());
+        let split = with_y.then(|| [next(), next(), next(), next()]);
+        Ok(SpreadOutputs {
+            within,
+            between,
+            variance,
+            split,
+        })
+    }
 }
 
 /// Means over points of the per-point quantities (NaN where undefined, e.g. one member).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct SpreadSummary {
-    pub within: f64,
-    pub between: f64,
-    pub ensemble_variance: f64,
+    pub mean_within: f64,
+    pub mean_between: f64,
+    /// Mean over points of the observed variance of the replicate ensemble means.
+    pub mean_variance: f64,
     /// Points whose between-replicate estimate is below zero.
-    pub negative_between: u64,
+    pub n_negative_between: u64,
     /// Mean of bias_i² (NaN without targets).
-    pub bias_squared: f64,
-    pub variance: f64,
-    pub covariance: f64,
-    pub expected_squared_error: f64,
+    pub mean_bias_squared: f64,
+    pub mean_member_variance: f64,
+    pub mean_covariance: f64,
+    pub mean_expected_squared_error: f64,
 }
 
 const BLOCK_POINTS: usize = 512;
@@ -79,13 +132,17 @@ const BLOCK_POINTS: usize = 512;
 /// Within- and between-replicate variances per point and averaged over points, and with
 /// `y` the bias–variance–covariance split (see the module documentation).
 ///
+/// `out` is a rows × points buffer (row-major) with [`Row::count`]`(y.is_some())` rows in
+/// [`Row`] order; each row receives one per-point quantity.
+///
 /// # Errors
-/// `members` for fewer than 2 replicates, no member or point, or NaN/inf predictions; `y`
-/// for a wrong length or non-finite targets; [`Error::Interrupted`].
+/// `members` for fewer than 2 replicates, no member or point, NaN/inf predictions or an
+/// `out` of the wrong length; `y` for a wrong length or non-finite targets;
+/// [`Error::Interrupted`].
 pub fn replicate_spread<T: Real>(
     members: ArrayView3<'_, T>,
     y: Option<ArrayView1<'_, f64>>,
-    out: SpreadOutputs<'_>,
+    out: &mut [f64],
     pool: &Pool,
     monitor: &dyn Monitor,
 ) -> Result<SpreadSummary> {
@@ -116,43 +173,15 @@ pub fn replicate_spread<T: Real>(
             ));
         }
     }
-    let split_ok = match (&out.split, &y) {
-        (Some(s), Some(_)) => [
-            s.bias.len(),
-            s.variance.len(),
-            s.covariance.len(),
-            s.expected_squared_error.len(),
-        ]
-        .iter()
-        .all(|&len| len == n),
-        (None, None) => true,
-        _ => false,
-    };
-    if out.within.len() != n
-        || out.between.len() != n
-        || out.ensemble_variance.len() != n
-        || !split_ok
-    {
-        return Err(Error::value(
-            "members",
-            "output buffers do not match the input shape",
-        ));
-    }
+    let out = SpreadOutputs::split(out, n, y.is_some())?;
 
-    let mut split = out.split.map(|s| {
-        [
-            s.bias.chunks_mut(BLOCK_POINTS),
-            s.variance.chunks_mut(BLOCK_POINTS),
-            s.covariance.chunks_mut(BLOCK_POINTS),
-            s.expected_squared_error.chunks_mut(BLOCK_POINTS),
-        ]
-    });
+    let mut split = out.split.map(|s| s.map(|row| row.chunks_mut(BLOCK_POINTS)));
     let mut jobs = Vec::with_capacity(n.div_ceil(BLOCK_POINTS));
     for (i, ((within, between), ensemble)) in out
         .within
         .chunks_mut(BLOCK_POINTS)
         .zip(out.between.chunks_mut(BLOCK_POINTS))
-        .zip(out.ensemble_variance.chunks_mut(BLOCK_POINTS))
+        .zip(out.variance.chunks_mut(BLOCK_POINTS))
         .enumerate()
     {
         let parts = split.as_mut().map(|[a, b, c, d]| {
@@ -204,14 +233,14 @@ pub fn replicate_spread<T: Real>(
         }
     };
     Ok(SpreadSummary {
-        within: sums.within.value() / nf,
-        between: sums.between.value() / nf,
-        ensemble_variance: sums.ensemble.value() / nf,
-        negative_between: sums.negative,
-        bias_squared: with_y(&sums.bias_squared),
-        variance: with_y(&sums.variance),
-        covariance: with_y(&sums.covariance),
-        expected_squared_error: with_y(&sums.expected),
+        mean_within: sums.within.value() / nf,
+        mean_between: sums.between.value() / nf,
+        mean_variance: sums.ensemble.value() / nf,
+        n_negative_between: sums.negative,
+        mean_bias_squared: with_y(&sums.bias_squared),
+        mean_member_variance: with_y(&sums.variance),
+        mean_covariance: with_y(&sums.covariance),
+        mean_expected_squared_error: with_y(&sums.expected),
     })
 }
 
@@ -359,32 +388,25 @@ mod tests {
 
     fn run(members: ArrayView3<'_, f64>, y: Option<&[f64]>, pool: &Pool) -> Result<Out> {
         let n = members.dim().2;
-        let (mut within, mut between, mut ensemble) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-        let k = if y.is_some() { n } else { 0 };
-        let mut split = [vec![0.0; k], vec![0.0; k], vec![0.0; k], vec![0.0; k]];
-        let [a, b, c, d] = &mut split;
-        let summary = replicate_spread(
-            members,
-            y.map(ArrayView1::from),
-            SpreadOutputs {
-                within: &mut within,
-                between: &mut between,
-                ensemble_variance: &mut ensemble,
-                split: y.map(|_| SplitOutputs {
-                    bias: a,
-                    variance: b,
-                    covariance: c,
-                    expected_squared_error: d,
-                }),
-            },
-            pool,
-            &Silent,
-        )?;
+        let mut buffer = vec![0.0; Row::count(y.is_some()) * n];
+        let summary =
+            replicate_spread(members, y.map(ArrayView1::from), &mut buffer, pool, &Silent)?;
+        let row = |r: Row| {
+            buffer
+                .get(r.index() * n..(r.index() + 1) * n)
+                .unwrap_or_default()
+                .to_vec()
+        };
         Ok(Out {
-            within,
-            between,
-            ensemble,
-            split,
+            within: row(Row::Within),
+            between: row(Row::Between),
+            ensemble: row(Row::Variance),
+            split: [
+                row(Row::Bias),
+                row(Row::MemberVariance),
+                row(Row::Covariance),
+                row(Row::ExpectedSquaredError),
+            ],
             summary,
         })
     }
@@ -407,8 +429,8 @@ mod tests {
         assert_relative_eq!(var[0], 4.0);
         assert_relative_eq!(cov[0], 4.0);
         assert_relative_eq!(err[0], 5.0);
-        assert_relative_eq!(out.summary.expected_squared_error, 5.0);
-        assert_eq!(out.summary.negative_between, 0);
+        assert_relative_eq!(out.summary.mean_expected_squared_error, 5.0);
+        assert_eq!(out.summary.n_negative_between, 0);
     }
 
     #[test]
@@ -429,7 +451,7 @@ mod tests {
             let sum = bias[j] * bias[j] + var[j] / mf + (1.0 - 1.0 / mf) * cov[j];
             assert_relative_eq!(sum, err[j], max_relative = 1e-12, epsilon = 1e-14);
         }
-        assert!(a.summary.negative_between > 0);
+        assert!(a.summary.n_negative_between > 0);
     }
 
     #[test]
@@ -452,13 +474,21 @@ mod tests {
             })
         ));
         let t = Array3::<f64>::zeros((2, 3, 2));
+        let mut short = vec![0.0; Row::WITHOUT_Y * 2 - 1];
+        assert!(matches!(
+            replicate_spread(t.view(), None, &mut short, &Pool::Global, &Silent),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
         assert!(matches!(
             run(t.view(), Some(&[1.0]), &Pool::Global),
             Err(Error::InvalidValue { argument: "y", .. })
         ));
         let t = Array3::from_shape_fn((3, 1, 2), |(a, _, c)| (a + c) as f64);
         let out = run(t.view(), Some(&[0.0, 0.0]), &Pool::Global).unwrap();
-        assert!(out.summary.within.is_nan() && out.summary.between.is_nan());
-        assert!(out.summary.covariance.is_nan());
+        assert!(out.summary.mean_within.is_nan() && out.summary.mean_between.is_nan());
+        assert!(out.summary.mean_covariance.is_nan());
     }
 }

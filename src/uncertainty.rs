@@ -56,8 +56,8 @@ pub enum DrawKind {
 /// of prediction points.
 #[derive(Debug, Clone, PartialEq)]
 pub struct CountGram {
-    members: usize,
-    n_train: usize,
+    n_members: usize,
+    n_rows: usize,
     kind: DrawKind,
     /// G = N Nᵀ, exact integers stored as f64.
     gram: Array2<f64>,
@@ -184,7 +184,7 @@ fn symmetric_by_tiles(
 }
 
 impl CountGram {
-    /// Builds G = N Nᵀ from in-bag counts (members × n_train, any strides).
+    /// Builds G = N Nᵀ from in-bag counts (n_members × n_rows, any strides).
     ///
     /// # Errors
     /// `counts` with fewer than two members, no rows, or a member that draws no row;
@@ -195,17 +195,17 @@ impl CountGram {
         pool: &Pool,
         monitor: &dyn Monitor,
     ) -> Result<Self> {
-        let (members, n_train) = counts.dim();
-        if members < 2 {
+        let (n_members, n_rows) = counts.dim();
+        if n_members < 2 {
             return Err(Error::value(
                 "counts",
-                format!("needs at least 2 members (rows), got {members}"),
+                format!("needs at least 2 members (rows), got {n_members}"),
             ));
         }
-        if n_train < 2 {
+        if n_rows < 2 {
             return Err(Error::value(
                 "counts",
-                format!("needs at least 2 training rows (columns), got {n_train}"),
+                format!("needs at least 2 training rows (columns), got {n_rows}"),
             ));
         }
         // Contiguous member rows in the counts' own dtype (a copy only for strided input).
@@ -231,18 +231,20 @@ impl CountGram {
             None => detect_kind(rows, &sums),
         };
         if let DrawKind::Subsample { rows: s } = kind {
-            if s == 0 || s >= n_train {
+            if s == 0 || s >= n_rows {
                 return Err(Error::value(
                     "counts",
-                    format!("a subsample must draw between 1 and n_train − 1 rows, got {s} of {n_train}"),
+                    format!(
+                        "a subsample must draw between 1 and n_rows − 1 rows, got {s} of {n_rows}"
+                    ),
                 ));
             }
         }
         let slice = rows.as_slice().expect("standard layout");
-        let row = |m: usize| &slice[m * n_train..(m + 1) * n_train];
-        let gram = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc| {
-            for start in (0..n_train).step_by(COLUMN_BLOCK) {
-                let end = (start + COLUMN_BLOCK).min(n_train);
+        let row = |m: usize| &slice[m * n_rows..(m + 1) * n_rows];
+        let gram = symmetric_by_tiles(n_members, pool, monitor, |ra, rb, acc| {
+            for start in (0..n_rows).step_by(COLUMN_BLOCK) {
+                let end = (start + COLUMN_BLOCK).min(n_rows);
                 for a in ra.clone() {
                     let xa = &row(a)[start..end];
                     for b in rb.start.max(a)..rb.end {
@@ -253,8 +255,8 @@ impl CountGram {
             }
         })?;
         Ok(CountGram {
-            members,
-            n_train,
+            n_members,
+            n_rows,
             kind,
             gram,
             out_of_bag_gram: None,
@@ -277,7 +279,7 @@ impl CountGram {
         pool: &Pool,
         monitor: &dyn Monitor,
     ) -> Result<()> {
-        if counts.dim() != (self.members, self.n_train) {
+        if counts.dim() != (self.n_members, self.n_rows) {
             return Err(Error::value(
                 "counts",
                 "shape differs from the counts the Gram was built from",
@@ -330,13 +332,13 @@ impl CountGram {
     }
 
     /// Number of members B.
-    pub fn members(&self) -> usize {
-        self.members
+    pub fn n_members(&self) -> usize {
+        self.n_members
     }
 
     /// Number of training rows n.
-    pub fn n_train(&self) -> usize {
-        self.n_train
+    pub fn n_rows(&self) -> usize {
+        self.n_rows
     }
 
     /// How the rows were drawn (detected from the counts unless given).
@@ -364,7 +366,7 @@ impl CountGram {
         match self.kind {
             DrawKind::Bootstrap => 1.0,
             DrawKind::Subsample { rows: s } => {
-                let n = self.n_train as f64;
+                let n = self.n_rows as f64;
                 (n - 1.0) / n * (n / (n - s as f64)).powi(2)
             }
         }
@@ -373,11 +375,11 @@ impl CountGram {
     /// Multiplier of Σ_b t̃_b² in the IJ bias correction: n/B² for the bootstrap
     /// (Wager, Hastie & Efron 2014), s(n − s)/(n B²) for subsamples (see module docs).
     fn ij_correction_factor(&self) -> f64 {
-        let b2 = (self.members as f64).powi(2);
+        let b2 = (self.n_members as f64).powi(2);
         match self.kind {
-            DrawKind::Bootstrap => self.n_train as f64 / b2,
+            DrawKind::Bootstrap => self.n_rows as f64 / b2,
             DrawKind::Subsample { rows: s } => {
-                let (n, s) = (self.n_train as f64, s as f64);
+                let (n, s) = (self.n_rows as f64, s as f64);
                 s * (n - s) / (n * b2)
             }
         }
@@ -397,12 +399,12 @@ impl CountGram {
         pool: &Pool,
     ) -> Result<VarianceEstimate> {
         let (b_count, n_points) = predictions.dim();
-        if b_count != self.members {
+        if b_count != self.n_members {
             return Err(Error::value(
                 "members",
                 format!(
                     "has {b_count} members (rows) but the counts have {}",
-                    self.members
+                    self.n_members
                 ),
             ));
         }
@@ -473,7 +475,7 @@ impl CountGram {
             }
         }
         let b2 = (b_count as f64).powi(2);
-        let n = self.n_train as f64;
+        let n = self.n_rows as f64;
         let (raw, correction) = match method {
             Method::InfinitesimalJackknife => {
                 let scale = self.ij_scale();
@@ -498,11 +500,13 @@ impl CountGram {
 }
 
 /// The stored form of a [`CountGram`] (postcard bytes), versioned for forward checks.
+/// Postcard encodes fields by position, never by name: the bytes are pinned by the test
+/// `stored_bytes_are_pinned`.
 #[derive(Serialize, Deserialize)]
 struct StoredGram {
     version: u32,
-    members: u64,
-    n_train: u64,
+    n_members: u64,
+    n_rows: u64,
     kind: DrawKind,
     gram: Vec<f64>,
     out_of_bag_gram: Option<Vec<f64>>,
@@ -516,8 +520,8 @@ impl CountGram {
     pub fn to_bytes(&self) -> Vec<u8> {
         let stored = StoredGram {
             version: STORED_VERSION,
-            members: self.members as u64,
-            n_train: self.n_train as u64,
+            n_members: self.n_members as u64,
+            n_rows: self.n_rows as u64,
             kind: self.kind,
             gram: self.gram.iter().copied().collect(),
             out_of_bag_gram: self
@@ -542,13 +546,13 @@ impl CountGram {
                 stored.version
             )));
         }
-        let b = usize::try_from(stored.members).map_err(|_| bad("member count"))?;
+        let b = usize::try_from(stored.n_members).map_err(|_| bad("member count"))?;
         let square = |v: Vec<f64>| {
             Array2::from_shape_vec((b, b), v).map_err(|_| bad("matrix size does not match"))
         };
         Ok(CountGram {
-            members: b,
-            n_train: stored.n_train as usize,
+            n_members: b,
+            n_rows: stored.n_rows as usize,
             kind: stored.kind,
             gram: square(stored.gram)?,
             out_of_bag_gram: stored.out_of_bag_gram.map(square).transpose()?,
@@ -558,7 +562,7 @@ impl CountGram {
 }
 
 /// Infers the draw kind: counts of 0/1 with the same number of rows in every member and
-/// fewer than n_train rows is a subsample; anything else is a bootstrap.
+/// fewer than n_rows rows is a subsample; anything else is a bootstrap.
 fn detect_kind<C: Count>(rows: ArrayView2<'_, C>, sums: &[u64]) -> DrawKind {
     let n = rows.ncols() as u64;
     let binary = rows.iter().all(|c| c.as_u64() <= 1);
@@ -771,6 +775,22 @@ mod tests {
         assert_eq!(CountGram::from_bytes(&bytes).unwrap(), gram);
         assert!(CountGram::from_bytes(&bytes[..bytes.len() / 2]).is_err());
         assert!(CountGram::from_bytes(b"not a gram").is_err());
+    }
+
+    #[test]
+    fn stored_bytes_are_pinned() {
+        // G = [[5, 2], [2, 5]] for the counts below; postcard: varint version, n_members,
+        // n_rows, the draw-kind variant, the length-prefixed little-endian matrix, no H,
+        // rows never out of bag.
+        let counts = ndarray::array![[1u8, 2, 0], [0, 1, 2]];
+        let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+        let mut expected = vec![1u8, 2, 3, 0, 4];
+        for v in [5.0f64, 2.0, 2.0, 5.0] {
+            expected.extend_from_slice(&v.to_le_bytes());
+        }
+        expected.extend_from_slice(&[0, 0]);
+        assert_eq!(gram.to_bytes(), expected);
+        assert_eq!((gram.n_members(), gram.n_rows()), (2, 3));
     }
 
     #[test]

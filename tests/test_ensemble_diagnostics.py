@@ -237,23 +237,23 @@ def test_spread_rho_agrees_with_replicate_spread():
                                     random_state=r).fit(x, y)
         predictions.append(bag.member_predictions(x_test))
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.simplefilter("ignore", bagwise.BagwiseWarning)
             s = bag.spread(x_test)
         rhos.append(s.pooled_rho)
         within.append(s.mean_within)
     predictions = np.array(predictions)
     across = bagwise.replicate_spread(predictions)
     # the within parts are the same pooled across-member variance (ddof 1)
-    assert across.within == pytest.approx(np.mean(within), rel=1e-10)
+    assert across.mean_within == pytest.approx(np.mean(within), rel=1e-10)
     leave_one_out = np.array([bagwise.replicate_spread(np.delete(predictions, i, axis=0))
-                              .correlation for i in range(replicates)])
+                              .pooled_rho for i in range(replicates)])
     se_across = np.sqrt((replicates - 1) / replicates
                         * np.sum((leave_one_out - leave_one_out.mean()) ** 2))
     se_inside = np.std(rhos, ddof=1) / np.sqrt(replicates)
     tolerance = 3 * np.hypot(se_across, se_inside)
-    assert abs(np.mean(rhos) - across.correlation) <= tolerance, (
-        np.mean(rhos), across.correlation, tolerance)
-    assert 0.05 < across.correlation < 0.5                      # a real, non-trivial rho
+    assert abs(np.mean(rhos) - across.pooled_rho) <= tolerance, (
+        np.mean(rhos), across.pooled_rho, tolerance)
+    assert 0.05 < across.pooled_rho < 0.5                      # a real, non-trivial rho
 
 
 def test_native_classifier_out_of_bag_and_a_test_set_as_large_as_the_training_set():

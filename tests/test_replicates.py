@@ -46,17 +46,17 @@ def test_equicorrelated_members_recover_sigma_rho_and_ensemble_variance():
     var_msb = 2 * (M * between_true + within_true) ** 2 / (R - 1) / n
     se_within = math.sqrt(var_msw)
     se_between = math.sqrt(var_msb + var_msw) / M
-    assert abs(spread.within - within_true) < 5 * se_within
-    assert abs(spread.between - between_true) < 5 * se_between
-    assert abs(spread.total_variance - sigma2) < 5 * (se_within + se_between)
+    assert abs(spread.mean_within - within_true) < 5 * se_within
+    assert abs(spread.mean_between - between_true) < 5 * se_between
+    assert abs(spread.mean_total - sigma2) < 5 * (se_within + se_between)
     # rho = b / (b + w): delta-method bound from the two errors above
     se_rho = (se_between + rho * (se_between + se_within)) / sigma2
-    assert abs(spread.correlation - rho) < 5 * se_rho
+    assert abs(spread.pooled_rho - rho) < 5 * se_rho
     for k in (1, 10, 100):
         truth = rho * sigma2 + (1 - rho) * sigma2 / k
-        assert abs(spread.predicted_variance(k) - truth) < 5 * (se_between + se_within / k), k
+        assert abs(spread.mean_predicted_variance(k) - truth) < 5 * (se_between + se_within / k), k
     # the observed variance of the 10-member ensemble mean over training sets
-    assert abs(spread.ensemble_variance - (between_true + within_true / M)) < 5 * math.sqrt(var_msb) / M
+    assert abs(spread.mean_variance - (between_true + within_true / M)) < 5 * math.sqrt(var_msb) / M
 
 
 def test_anova_matches_numpy_and_scipy_f_oneway():
@@ -64,27 +64,27 @@ def test_anova_matches_numpy_and_scipy_f_oneway():
     t = rng.normal(size=(6, 5, 300)) + rng.normal(scale=0.5, size=(6, 1, 300))
     spread = bagwise.replicate_spread(t)
     msw, between, msb = anova_reference(t)          # straightforward numpy
-    np.testing.assert_allclose(spread.within_per_point, msw, rtol=1e-12)
-    np.testing.assert_allclose(spread.between_per_point, between, rtol=1e-10, atol=1e-14)
-    np.testing.assert_allclose(spread.ensemble_variance_per_point, msb / 5, rtol=1e-12)
+    np.testing.assert_allclose(spread.within, msw, rtol=1e-12)
+    np.testing.assert_allclose(spread.between, between, rtol=1e-10, atol=1e-14)
+    np.testing.assert_allclose(spread.variance, msb / 5, rtol=1e-12)
     # scipy.stats.f_oneway: F = MSB / MSW per point, replicates as the groups
     f = scipy.stats.f_oneway(*[t[r] for r in range(6)], axis=0).statistic
-    np.testing.assert_allclose((5 * spread.between_per_point + spread.within_per_point)
-                               / spread.within_per_point, f, rtol=1e-10)
+    np.testing.assert_allclose((5 * spread.between + spread.within)
+                               / spread.within, f, rtol=1e-10)
     assert spread.n_negative_between == int((between < 0).sum())
     assert spread.n_negative_between > 0        # some noise points, kept unbiased (not clipped)
-    assert spread.within == pytest.approx(msw.mean(), rel=1e-12)
-    assert spread.between == pytest.approx(between.mean(), rel=1e-10)
+    assert spread.mean_within == pytest.approx(msw.mean(), rel=1e-12)
+    assert spread.mean_between == pytest.approx(between.mean(), rel=1e-10)
     plus = np.maximum(between, 0)
-    np.testing.assert_allclose(spread.correlation_per_point, plus / (plus + msw), rtol=1e-10)
-    assert spread.correlation == pytest.approx(max(between.mean(), 0) / (max(between.mean(), 0)
+    np.testing.assert_allclose(spread.rho, plus / (plus + msw), rtol=1e-10)
+    assert spread.pooled_rho == pytest.approx(max(between.mean(), 0) / (max(between.mean(), 0)
                                                                         + msw.mean()), rel=1e-10)
     # eq. 15.1 at the ensemble's own size equals the observed variance where between >= 0
     # (between + within / M = MSB / M, an identity of the estimator)
     ok = between >= 0
-    np.testing.assert_allclose(spread.predicted_variance(5, per_point=True)[ok], (msb / 5)[ok],
+    np.testing.assert_allclose(spread.predicted_variance(5)[ok], (msb / 5)[ok],
                                rtol=1e-10)
-    assert spread.predicted_variance([1, 5], per_point=True).shape == (300, 2)
+    assert spread.predicted_variance([1, 5]).shape == (300, 2)
     assert isinstance(spread.to_frame().shape, tuple)
 
 
@@ -103,29 +103,29 @@ def test_ueda_nakano_split_adds_up_exactly():
     var = np.einsum("imm->im", cov).mean(axis=1)
     covar = (cov.sum(axis=(1, 2)) - np.einsum("imm->i", cov)) / (M * (M - 1))
     bias = t.mean(axis=(0, 1)) - y
-    np.testing.assert_allclose(spread.bias_per_point, bias, rtol=1e-12, atol=1e-14)
-    np.testing.assert_allclose(spread.variance_per_point, var, rtol=1e-12)
-    np.testing.assert_allclose(spread.covariance_per_point, covar, rtol=1e-10, atol=1e-13)
-    np.testing.assert_allclose(spread.expected_squared_error_per_point, expected, rtol=1e-12)
-    total = spread.bias_per_point**2 + spread.variance_per_point / M \
-        + (1 - 1 / M) * spread.covariance_per_point
+    np.testing.assert_allclose(spread.bias, bias, rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(spread.member_variance, var, rtol=1e-12)
+    np.testing.assert_allclose(spread.covariance, covar, rtol=1e-10, atol=1e-13)
+    np.testing.assert_allclose(spread.expected_squared_error, expected, rtol=1e-12)
+    total = spread.bias**2 + spread.member_variance / M \
+        + (1 - 1 / M) * spread.covariance
     np.testing.assert_allclose(total, expected, rtol=1e-12)
-    assert spread.bias_squared + spread.variance / M + (1 - 1 / M) * spread.covariance == \
-        pytest.approx(expected.mean(), rel=1e-12)
-    assert spread.expected_squared_error == pytest.approx(expected.mean(), rel=1e-12)
+    assert spread.mean_bias_squared + spread.mean_member_variance / M \
+        + (1 - 1 / M) * spread.mean_covariance == pytest.approx(expected.mean(), rel=1e-12)
+    assert spread.mean_expected_squared_error == pytest.approx(expected.mean(), rel=1e-12)
 
 
 def test_members_needed_meets_its_definition():
     t = equicorrelated(30, 8, 200, 1.0, 0.2, seed=3)
     spread = bagwise.replicate_spread(t)
-    b, w = max(spread.between, 0), spread.within
+    b, w = max(spread.mean_between, 0), spread.mean_within
     for tol in (0.5, 0.1, 0.01):
         m = spread.members_needed(tol)
         # smallest M with (1 - rho) s^2 / M <= tol * rho s^2 (definition in the docstring)
         assert w / m <= tol * b and (m == 1 or w / (m - 1) > tol * b)
-    per_point = spread.members_needed(0.1, per_point=True)
+    per_point = spread.members_needed_at_points(0.1)
     assert per_point.shape == (200,)
-    assert np.isinf(per_point[spread.between_per_point <= 0]).all()
+    assert np.isinf(per_point[spread.between <= 0]).all()
     with pytest.raises(ValueError, match="`tolerance`"):
         spread.members_needed(0)
     with pytest.raises(ValueError, match="`n_members`"):
@@ -137,17 +137,17 @@ def test_threads_and_float32():
     y = np.zeros(3000)
     a = bagwise.replicate_spread(t, y, n_jobs=1)
     b = bagwise.replicate_spread(t, y, n_jobs=2)
-    np.testing.assert_array_equal(a.between_per_point, b.between_per_point)
-    assert (a.between, a.covariance) == (b.between, b.covariance)
+    np.testing.assert_array_equal(a.between, b.between)
+    assert (a.mean_between, a.mean_covariance) == (b.mean_between, b.mean_covariance)
     t32 = t.astype(np.float32)
     c = bagwise.replicate_spread(t32, y)
     d = bagwise.replicate_spread(t32.astype(np.float64), y)   # same values, widened by us
-    assert c.between == d.between and c.within == d.within
+    assert c.mean_between == d.mean_between and c.mean_within == d.mean_within
     big = bagwise.replicate_spread(t.astype(">f8"), y)
-    assert big.between == a.between
+    assert big.mean_between == a.mean_between
     strided = bagwise.replicate_spread(t[:, :, ::3])
     copy = bagwise.replicate_spread(np.ascontiguousarray(t[:, :, ::3]))
-    np.testing.assert_array_equal(strided.within_per_point, copy.within_per_point)
+    np.testing.assert_array_equal(strided.within, copy.within)
 
 
 def test_bad_input_and_undefined_cases():
@@ -169,14 +169,80 @@ def test_bad_input_and_undefined_cases():
     with pytest.raises(ValueError, match=r"^`y`"):
         bagwise.replicate_spread(t, np.full(20, np.inf))
     # one member per replicate: rho undefined -> NaN with a warning (documented)
-    with pytest.warns(RuntimeWarning, match="one member per replicate"):
+    with pytest.warns(bagwise.BagwiseWarning, match="one member per replicate"):
         one = bagwise.replicate_spread(t[:, :1])
-    assert math.isnan(one.correlation) and math.isnan(one.within)
+    assert math.isnan(one.pooled_rho) and math.isnan(one.mean_within)
     # constant predictions at a point: rho undefined there -> NaN with a warning
     flat = t.copy()
     flat[:, :, 4] = 1.5
-    with pytest.warns(RuntimeWarning, match="1 of 20 points have constant predictions"):
+    with pytest.warns(bagwise.BagwiseWarning, match="1 of 20 points have constant predictions"):
         spread = bagwise.replicate_spread(flat)
-    assert np.isnan(spread.correlation_per_point[4])
-    assert np.isfinite(np.delete(spread.correlation_per_point, 4)).all()
+    assert np.isnan(spread.rho[4])
+    assert np.isfinite(np.delete(spread.rho, 4)).all()
     assert "ReplicateSpread" in repr(spread) and "<table" in spread._repr_html_()
+
+
+def _same_means_in_every_replicate(n_points=6):
+    """Every replicate holds the same members, so the replicate means agree exactly:
+    MSB = 0 and between = -within / M < 0 at every point (the ANOVA of the module docs)."""
+    base = np.random.default_rng(6).normal(size=(1, 4, n_points))
+    return np.repeat(base, 3, axis=0)
+
+
+def test_members_needed_is_nan_with_one_warning_when_there_is_no_floor():
+    spread = bagwise.replicate_spread(_same_means_in_every_replicate())
+    assert spread.mean_between < 0 and spread.pooled_rho == 0
+    with pytest.warns(bagwise.BagwiseWarning, match="not positive") as caught:
+        assert math.isnan(spread.members_needed())
+    assert len(caught) == 1
+    # the warning points at the caller's line, not inside bagwise
+    assert caught[0].filename == __file__
+    # one member per replicate: undefined, also NaN with one warning saying why
+    with pytest.warns(bagwise.BagwiseWarning):
+        one = bagwise.replicate_spread(np.random.default_rng(7).normal(size=(3, 1, 5)))
+    with pytest.warns(bagwise.BagwiseWarning, match="one member per replicate") as caught:
+        assert math.isnan(one.members_needed(0.1))
+    assert len(caught) == 1
+
+
+def test_members_needed_has_one_signature_and_checks_its_tolerance():
+    import inspect
+
+    t = equicorrelated(10, 5, 50, 1.0, 0.4, seed=8)
+    spread = bagwise.replicate_spread(t)
+    assert str(inspect.signature(spread.members_needed)) == "(tolerance: 'float' = 0.01) -> 'int | float'"
+    assert spread.members_needed() == spread.members_needed(0.01)
+    for bad in (0, 1, 1.5, -0.1):
+        with pytest.raises(ValueError, match="`tolerance`"):
+            spread.members_needed(bad)
+    with pytest.raises(TypeError, match="`tolerance`"):
+        spread.members_needed("small")
+
+
+def test_result_is_frozen_and_follows_the_glossary():
+    import dataclasses
+
+    t = equicorrelated(6, 5, 40, 1.0, 0.5, seed=9)
+    y = np.zeros(40)
+    spread = bagwise.replicate_spread(t, y)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        spread.mean_between = 0.0
+    # per-point arrays carry the plain name, their means mean_<name> (DEVELOPERS glossary)
+    for name in ("between", "within", "total", "rho", "variance", "member_variance"):
+        assert getattr(spread, name).shape == (40,), name
+    for name in ("between", "within", "variance", "member_variance", "covariance",
+                 "expected_squared_error"):
+        assert getattr(spread, f"mean_{name}") == pytest.approx(getattr(spread, name).mean(),
+                                                                  rel=1e-12), name
+    assert spread.mean_total == spread.mean_between + spread.mean_within
+    assert spread.mean_bias_squared == pytest.approx(np.mean(spread.bias**2), rel=1e-12)
+    np.testing.assert_array_equal(spread.total, spread.between + spread.within)
+    # between > 0 here, so pooled_rho is exactly mean_between / mean_total
+    assert spread.mean_between > 0
+    assert spread.pooled_rho == spread.mean_between / spread.mean_total
+    frame = spread.to_frame()
+    assert list(frame.columns) == ["point", "between", "within", "total", "rho", "variance", "bias",
+                                   "member_variance", "covariance", "expected_squared_error"]
+    np.testing.assert_array_equal(frame["variance"], spread.variance)
+    assert spread.bias is not None and bagwise.replicate_spread(t).bias is None
+    assert "pooled rho" in repr(spread) and "<table" in spread._repr_html_()

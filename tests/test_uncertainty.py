@@ -3,6 +3,7 @@ truth over independent training sets, and bad input."""
 
 from __future__ import annotations
 
+import math
 import pickle
 import warnings
 
@@ -53,7 +54,7 @@ def test_ij_and_jackknife_equal_their_defining_sums(ensemble):
     b, n = counts.shape
     ij, jk, spread = direct_sums(members, counts)
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)   # small B: correction warnings
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)   # small B: correction warnings
         raw_ij = bagwise.prediction_variance(members, counts, corrected=False)
         raw_jk = bagwise.prediction_variance(members, counts, method="jackknife",
                                              corrected=False)
@@ -115,7 +116,7 @@ def test_monte_carlo_truth_over_independent_training_sets():
         counts = np.stack([np.bincount(s, minlength=n) for s in bag.estimators_samples_])
         members = np.stack([t.predict(x_test) for t in bag.estimators_])
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.simplefilter("ignore", bagwise.BagwiseWarning)
             estimate = bagwise.prediction_variance(members, counts.astype(np.uint8))
         predictions.append(members.mean(axis=0))
         estimates.append(estimate)
@@ -161,13 +162,13 @@ def test_count_gram_is_reusable_and_pickles():
     np.testing.assert_array_equal(gram.gram, counts.astype(np.int64) @ counts.T.astype(np.int64))
     members = np.random.default_rng(0).normal(size=(40, 5)) + counts[:, :5]
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
         a = gram.prediction_variance(members)
         back = pickle.loads(pickle.dumps(gram))
         b = back.prediction_variance(members, method="jackknife")
         c = bagwise.prediction_variance(members, counts, method="jackknife")
     np.testing.assert_array_equal(b.variance, c.variance)
-    assert a.members == 40 and back.n_train == 80
+    assert a.n_members == 40 and back.n_rows == 80
 
 
 def test_dtypes_strides_and_threads_give_identical_results():
@@ -175,7 +176,7 @@ def test_dtypes_strides_and_threads_give_identical_results():
     rng = np.random.default_rng(3)
     members = rng.normal(size=(64, 40)) + counts[:, :40]
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
         base = bagwise.prediction_variance(members, counts, corrected=False).variance
         for variant in (counts.astype(np.uint16), counts.astype(np.int32), counts.astype(np.int64),
                         np.asfortranarray(counts)):
@@ -196,7 +197,7 @@ def test_dtypes_strides_and_threads_give_identical_results():
 def test_small_ensembles_warn_and_clip():
     counts = bagwise.resample(500, 10, seed=0).counts
     members = np.random.default_rng(0).normal(size=(10, 50))   # unrelated to the counts
-    with pytest.warns(RuntimeWarning) as caught:
+    with pytest.warns(bagwise.BagwiseWarning) as caught:
         result = bagwise.prediction_variance(members, counts)
     messages = [str(w.message) for w in caught]
     assert any("too few" in m for m in messages)
@@ -210,7 +211,7 @@ def test_interval_is_normal_approximation():
     counts = bagwise.resample(50, 200, seed=0).counts
     members = counts[:, :3].astype(float)
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
         result = bagwise.prediction_variance(members, counts)
     lower, upper = result.interval(0.95)
     # scipy.stats.norm.ppf(0.975) = 1.959963984540054
@@ -249,3 +250,46 @@ def test_bad_options_name_the_argument():
         bagwise.prediction_variance(np.zeros((5, 2)), counts, scheme="subsample")
     with pytest.raises(ValueError, match="`data`"):
         bagwise._core.CountGram.from_bytes(b"garbage")
+
+
+def test_spread_members_needed_is_nan_with_one_warning_without_a_floor():
+    # members that do not vary: between = within = 0, no floor to come near
+    counts = bagwise.resample(30, 20, seed=1).counts
+    result = bagwise.spread(np.ones((20, 4)), counts)
+    assert result.mean_between == 0
+    with pytest.warns(bagwise.BagwiseWarning, match="not positive") as caught:
+        assert math.isnan(result.members_needed())
+    assert len(caught) == 1
+    assert caught[0].filename == __file__          # attributed to the caller's line
+    with pytest.raises(ValueError, match="`tolerance`"):
+        result.members_needed(0)
+    # the display never warns
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert "nan" in repr(result)
+
+
+def test_results_are_frozen_and_share_members_needed():
+    import dataclasses
+    import inspect
+
+    counts = bagwise.resample(100, 200, seed=2).counts
+    members = (counts @ np.random.default_rng(3).normal(size=(100, 5)) / 100
+               + 0.05 * np.random.default_rng(4).normal(size=(200, 5)))
+    result = bagwise.spread(members, counts)
+    estimate = bagwise.prediction_variance(members, counts)
+    for frozen in (result, estimate):
+        with pytest.raises(dataclasses.FrozenInstanceError):
+            frozen.n_members = 3
+    assert result.n_members == estimate.n_members == 200 and estimate.n_rows == 100
+    replicate = bagwise.replicate_spread(np.random.default_rng(5).normal(size=(3, 4, 5)))
+    assert inspect.signature(result.members_needed) == inspect.signature(replicate.members_needed)
+    assert result.members_needed() == result.members_needed(0.01)
+    # the between part is the corrected IJ variance of the same call
+    np.testing.assert_array_equal(result.between, estimate.variance)
+    assert result.pooled_rho == result.mean_between / result.mean_total
+    # ESL eq. 15.1 from the means over points
+    assert result.mean_predicted_variance(7) == result.mean_between + result.mean_within / 7
+    assert result.predicted_variance([1, 7]).shape == (5, 2)
+    with pytest.raises(ValueError, match="`n_members`"):
+        result.predicted_variance(0)

@@ -3,15 +3,16 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
-import numbers
-import warnings
+from typing import ClassVar
 
 import numpy as np
 
 from . import _core
-from ._display import html_block, safe_html, text_block
+from ._results import Result, check_tolerance, members_for
 from ._validation import n_jobs_value
+from ._warnings import warn
 
 __all__ = ["ReplicateSpread", "replicate_spread"]
 
@@ -25,7 +26,7 @@ def _replicate_spread_iv(members, y, n_jobs):
         raise TypeError(f"`members`: expected float32 or float64 predictions, got dtype {members.dtype}")
     if members.ndim != 3:
         raise ValueError(
-            "`members`: expected shape (replicates, members, n_points), got "
+            "`members`: expected shape (n_replicates, n_members, n_points), got "
             f"{members.ndim} dimensions {members.shape}"
         )
     if members.size == 0:
@@ -58,9 +59,11 @@ def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
       ``MSW = within``: the unbiased variance, over training sets, of the mean of
       infinitely many members, estimating ``rho * sigma**2``. Noise can make it negative;
       it is kept as is and the negative points are counted;
-    - ``sigma**2 = between + within`` (the variance of one member) and
+    - ``total = between + within`` (``sigma**2``, the variance of one member) and
       ``rho = max(between, 0) / (max(between, 0) + within)`` (clipped at 0 so that rho
-      lies in [0, 1]; this clipping is used only in ``rho`` and what is derived from it).
+      lies in [0, 1]; this clipping is used only in ``rho`` and what is derived from it);
+    - ``variance``: the observed variance over replicates of the ``M``-member ensemble
+      mean ``f_r`` (ddof 1), ``MSB / M``.
 
     The variance of an ensemble of ``M`` members is then
     ``Var(f_M) = rho sigma**2 + (1 - rho) sigma**2 / M`` (Hastie, Tibshirani & Friedman
@@ -68,16 +71,16 @@ def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
     :meth:`ReplicateSpread.predicted_variance`.
 
     With targets ``y`` the expected squared error of the ensemble mean over training sets
-    is split as ``bias**2 + variance / M + (1 - 1/M) covariance`` (Ueda & Nakano 1996),
-    where member ``m`` of every replicate is treated as the same member refitted:
-    ``bias = mean_m E_r[t_rm] - y``, ``variance = mean_m Var_r(t_rm)`` and
+    is split as ``bias**2 + member_variance / M + (1 - 1/M) covariance`` (Ueda & Nakano
+    1996), where member ``m`` of every replicate is treated as the same member refitted:
+    ``bias = mean_m E_r[t_rm] - y``, ``member_variance = mean_m Var_r(t_rm)`` and
     ``covariance`` the mean of ``Cov_r(t_rm, t_rm')`` over pairs ``m != m'``. These
     moments over replicates use ddof 0, so the three terms add up exactly to the mean over
     replicates of ``(f_r - y)**2``.
 
     Parameters
     ----------
-    members : ndarray of float32 or float64, shape (replicates, members, n_points)
+    members : ndarray of float32 or float64, shape (n_replicates, n_members, n_points)
         ``members[r, m, i]``: prediction at point ``i`` of member ``m`` of the ensemble
         fitted on training set ``r``. At least 2 replicates. Read without a copy.
     y : array-like, shape (n_points,), optional
@@ -96,18 +99,18 @@ def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
     >>> shared = rng.normal(scale=0.6, size=(40, 1, 300))    # training-set effect
     >>> members = shared + rng.normal(scale=0.8, size=(40, 25, 300))
     >>> spread = bagwise.replicate_spread(members)
-    >>> round(spread.between, 2), round(spread.within, 2)   # 0.36 and 0.64 expected
+    >>> round(spread.mean_between, 2), round(spread.mean_within, 2)   # 0.36 and 0.64 expected
     (0.36, 0.64)
-    >>> spread.members_needed(0.1)    # (1 - rho) / (tolerance * rho) = 0.64 / 0.036
+    >>> spread.members_needed(0.1)    # mean_within / (tolerance * mean_between) = 0.64 / 0.036
     18
     """
     members, y, n_jobs = _replicate_spread_iv(members, y, n_jobs)
-    per_point, means = _core.replicate_spread_arrays(members, y, n_jobs)
-    return ReplicateSpread(members.shape, per_point, means, y is not None)
+    return ReplicateSpread._from_parts(members.shape, _core.replicate_spread(members, y, n_jobs))
 
 
 def _ceil_members(within, between_plus, tolerance):
-    """Smallest M >= 1 with within / M <= tolerance * between_plus (inf when none)."""
+    """Smallest M >= 1 with within / M <= tolerance * between_plus at one point (inf when
+    between_plus is 0 and within is not, NaN when undefined)."""
     if not (within >= 0 and between_plus >= 0):
         return math.nan
     if within == 0:
@@ -122,161 +125,209 @@ def _ceil_members(within, between_plus, tolerance):
     return m
 
 
-class ReplicateSpread:
+def _n_members_iv(n_members) -> np.ndarray:
+    m = np.asarray(n_members)
+    if m.dtype.kind not in "iu" or np.any(m < 1):
+        raise ValueError(f"`n_members`: expected integers >= 1, got {n_members!r}")
+    return m.astype(np.float64)
+
+
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class ReplicateSpread(Result):
     """Within- and between-replicate spread of ensembles fitted on independent training sets.
 
-    Scalars are means over points; ``*_per_point`` arrays have shape (n_points,).
+    Per-point arrays (shape ``(n_points,)``) carry the plain name, their means over points
+    ``mean_<name>``.
 
     Attributes
     ----------
-    replicates, members, n_points : int
+    n_replicates, n_members, n_points : int
         Shape of the input.
-    within : float
-        Pooled within-replicate member variance (ddof 1), ``(1 - rho) sigma**2``.
-    between : float
-        Unbiased between-replicate variance of the true ensemble mean, ``rho sigma**2``
+    between : ndarray
+        Unbiased between-replicate variance of the infinite ensemble's mean, ``rho sigma**2``
         (may be negative from noise).
-    total_variance : float
+    within : ndarray
+        Pooled within-replicate member variance (ddof 1), ``(1 - rho) sigma**2``.
+    total : ndarray
         ``sigma**2 = between + within``, the variance of one member over training sets.
-    correlation : float
-        ``rho = max(between, 0) / (max(between, 0) + within)`` from the means; NaN for one
-        member or constant predictions.
+    rho : ndarray
+        ``max(between, 0) / (max(between, 0) + within)``; NaN for one member or constant
+        predictions.
+    variance : ndarray
+        Observed variance over replicates of the ``n_members``-member ensemble mean
+        (ddof 1), equal to ``between + within / n_members``.
+    mean_between, mean_within, mean_total, mean_variance : float
+        Means over points (``mean_total = mean_between + mean_within``).
+    pooled_rho : float
+        ``mean_between / mean_total`` with ``mean_between`` clipped at zero (as in ``rho``):
+        ``max(mean_between, 0) / (max(mean_between, 0) + mean_within)``; NaN for one member
+        or constant predictions.
     n_negative_between : int
         Points whose between estimate is negative.
-    ensemble_variance : float
-        Observed variance over replicates of the M-member ensemble mean (ddof 1), equal to
-        ``between + within / M``.
-    within_per_point, between_per_point, total_variance_per_point, correlation_per_point, \
-ensemble_variance_per_point : ndarray
-        The same per point (``correlation_per_point`` clipped per point).
-    bias_squared, variance, covariance, expected_squared_error : float or None
-        With ``y``: means over points of the squared bias, member variance, pairwise member
-        covariance and expected squared error of the ensemble mean (Ueda & Nakano 1996);
-        ``expected_squared_error = bias_squared + variance / M + (1 - 1/M) covariance``.
+    bias, member_variance, covariance, expected_squared_error : ndarray or None
+        With ``y``, per point: the signed bias of the ensemble mean, the mean over members
+        of a member's variance over replicates, the mean pairwise member covariance and
+        the expected squared error of the ensemble mean (Ueda & Nakano 1996);
+        ``expected_squared_error = bias**2 + member_variance / M + (1 - 1/M) covariance``.
         ``None`` without ``y``.
-    bias_per_point, variance_per_point, covariance_per_point, \
-expected_squared_error_per_point : ndarray or None
-        The same per point (``bias_per_point`` is signed).
+    mean_bias_squared, mean_member_variance, mean_covariance, mean_expected_squared_error \
+: float or None
+        Their means over points (``mean_bias_squared`` is the mean of ``bias**2``); ``None``
+        without ``y``.
     """
 
-    def __init__(self, shape, per_point, means, with_y):
-        self.replicates, self.members, self.n_points = (int(v) for v in shape)
-        self.within = float(means["within"])
-        self.between = float(means["between"])
-        self.total_variance = self.within + self.between
-        self.ensemble_variance = float(means["ensemble_variance"])
-        self.n_negative_between = int(means["negative_between"])
-        self.within_per_point = per_point["within"]
-        self.between_per_point = per_point["between"]
-        self.total_variance_per_point = self.within_per_point + self.between_per_point
-        self.ensemble_variance_per_point = per_point["ensemble_variance"]
+    _title: ClassVar[str] = "ReplicateSpread"
+
+    n_replicates: int
+    n_members: int
+    n_points: int
+    between: np.ndarray
+    within: np.ndarray
+    total: np.ndarray
+    rho: np.ndarray
+    variance: np.ndarray
+    mean_between: float
+    mean_within: float
+    mean_total: float
+    mean_variance: float
+    pooled_rho: float
+    n_negative_between: int
+    bias: np.ndarray | None = None
+    member_variance: np.ndarray | None = None
+    covariance: np.ndarray | None = None
+    expected_squared_error: np.ndarray | None = None
+    mean_bias_squared: float | None = None
+    mean_member_variance: float | None = None
+    mean_covariance: float | None = None
+    mean_expected_squared_error: float | None = None
+
+    @classmethod
+    def _from_parts(cls, shape, parts) -> ReplicateSpread:
+        """The one place a ReplicateSpread is built: from the core's typed parts."""
+        n_replicates, n_members, n_points = (int(v) for v in shape)
+        within, between = parts.within, parts.between
+        mean_within, mean_between = float(parts.mean_within), float(parts.mean_between)
         with np.errstate(invalid="ignore", divide="ignore"):
-            plus = np.maximum(self.between_per_point, 0.0)
-            self.correlation_per_point = plus / (plus + self.within_per_point)
-        b = max(self.between, 0.0) if not math.isnan(self.between) else math.nan
-        denominator = b + self.within
-        self.correlation = b / denominator if denominator > 0 else math.nan
-        self._warn()
-        for name in ("bias", "variance", "covariance", "expected_squared_error"):
-            setattr(self, f"{name}_per_point", per_point[name] if with_y else None)
-        self.bias_squared = float(means["bias_squared"]) if with_y else None
-        self.variance = float(means["variance"]) if with_y else None
-        self.covariance = float(means["covariance"]) if with_y else None
-        self.expected_squared_error = float(means["expected_squared_error"]) if with_y else None
+            plus = np.maximum(between, 0.0)
+            rho = plus / (plus + within)
+        b = max(mean_between, 0.0) if not math.isnan(mean_between) else math.nan
+        denominator = b + mean_within
+        with_y = parts.bias is not None
+        split = {}
+        if with_y:
+            split = dict(
+                bias=parts.bias, member_variance=parts.member_variance,
+                covariance=parts.covariance, expected_squared_error=parts.expected_squared_error,
+                mean_bias_squared=float(parts.mean_bias_squared),
+                mean_member_variance=float(parts.mean_member_variance),
+                mean_covariance=float(parts.mean_covariance),
+                mean_expected_squared_error=float(parts.mean_expected_squared_error))
+        result = cls(
+            n_replicates=n_replicates, n_members=n_members, n_points=n_points,
+            between=between, within=within, total=within + between, rho=rho,
+            variance=parts.variance, mean_between=mean_between, mean_within=mean_within,
+            mean_total=mean_within + mean_between, mean_variance=float(parts.mean_variance),
+            pooled_rho=b / denominator if denominator > 0 else math.nan,
+            n_negative_between=int(parts.n_negative_between), **split)
+        result._warn()
+        return result
 
     def _warn(self):
-        if self.members == 1:
-            warnings.warn(
-                "`members`: one member per replicate - the within-replicate variance, the "
-                "between-replicate variance and rho are undefined (NaN)",
-                RuntimeWarning, stacklevel=3,
-            )
+        if self.n_members == 1:
+            warn("`members`: one member per replicate - the within-replicate variance, the "
+                 "between-replicate variance and rho are undefined (NaN)")
             return
-        undefined = int(np.isnan(self.correlation_per_point).sum())
+        undefined = int(np.isnan(self.rho).sum())
         if undefined:
-            warnings.warn(
-                f"`members`: {undefined} of {self.n_points} points have constant predictions; "
-                "their rho is undefined (NaN)",
-                RuntimeWarning, stacklevel=3,
-            )
+            warn(f"`members`: {undefined} of {self.n_points} points have constant predictions; "
+                 "their rho is undefined (NaN)")
 
-    def predicted_variance(self, n_members, per_point: bool = False):
+    def predicted_variance(self, n_members):
         """``Var(f_M) = rho s**2 + (1 - rho) s**2 / M`` (Hastie, Tibshirani & Friedman 2009,
-        eq. 15.1) for ensembles of ``n_members`` members, with ``s**2 = max(between, 0) +
-        within``; equivalently ``max(between, 0) + within / M``.
+        eq. 15.1) at each point for ensembles of ``n_members`` members, with ``s**2 =
+        max(between, 0) + within``; equivalently ``max(between, 0) + within / M``.
 
-        ``n_members`` may be an int or an array of ints; ``per_point=True`` gives one value
-        per point.
+        ``n_members`` may be an int (shape ``(n_points,)``) or an array of ints (shape
+        ``(n_points, len(n_members))``).
         """
-        m = np.asarray(n_members)
-        if m.dtype.kind not in "iu" or np.any(m < 1):
-            raise ValueError(f"`n_members`: expected integers >= 1, got {n_members!r}")
-        m = m.astype(np.float64)
-        if per_point:
-            plus = np.maximum(self.between_per_point, 0.0)
-            if m.ndim == 0:
-                return plus + self.within_per_point / m
-            return plus[:, None] + self.within_per_point[:, None] / np.ravel(m)[None, :]
-        value = max(self.between, 0.0) + self.within / m
+        m = _n_members_iv(n_members)
+        plus = np.maximum(self.between, 0.0)
+        if m.ndim == 0:
+            return plus + self.within / m
+        return plus[:, None] + self.within[:, None] / np.ravel(m)[None, :]
+
+    def mean_predicted_variance(self, n_members):
+        """eq. 15.1 from the means over points: ``max(mean_between, 0) + mean_within / M``
+        for ensembles of ``n_members`` members (an int gives a float, an array an array)."""
+        m = _n_members_iv(n_members)
+        value = max(self.mean_between, 0.0) + self.mean_within / m
         return float(value) if value.ndim == 0 else value
 
-    def members_needed(self, tolerance: float, per_point: bool = False):
-        """Smallest ``M`` with ``(1 - rho) s**2 / M <= tolerance * rho s**2``: the part of
-        the variance that more members could still remove is at most ``tolerance`` times
-        the part no number of members removes. ``math.inf`` when ``rho = 0`` (averaging
-        removes everything eventually but never reaches a positive floor), NaN when
-        undefined.
+    def members_needed(self, tolerance: float = 0.01) -> int | float:
+        """The smallest ``M`` for which the variance of the ``M``-member ensemble's mean,
+        ``rho s**2 + (1 - rho) s**2 / M`` (Hastie, Tibshirani & Friedman 2009, eq. 15.1), is
+        within ``tolerance`` (relative) of its limit ``rho s**2``, from the means over points:
+        ``mean_within / M <= tolerance * max(mean_between, 0)``.
+
+        NaN with one `BagwiseWarning` when the limit is not positive (the members look
+        uncorrelated: averaging removes all of their variance, no floor to come near) or
+        undefined (one member per replicate).
         """
-        if isinstance(tolerance, bool) or not isinstance(tolerance, numbers.Real) or not (
-            math.isfinite(tolerance) and tolerance > 0
-        ):
-            raise ValueError(f"`tolerance`: expected a positive finite number, got {tolerance!r}")
-        if per_point:
-            return np.array([
-                _ceil_members(w, max(b, 0.0), tolerance)
-                for w, b in zip(self.within_per_point.tolist(), self.between_per_point.tolist())
-            ], dtype=np.float64)
-        return _ceil_members(self.within, max(self.between, 0.0), tolerance)
+        tolerance = check_tolerance(tolerance)
+        if self.n_members == 1:
+            why = "one member per replicate: the within and between variances are undefined"
+        else:
+            why = ("the between-replicate variance (the limit) is not positive: averaging "
+                   "removes all of the members' variance, there is no floor to come near")
+        return members_for(self.mean_within, max(self.mean_between, 0.0), tolerance, why)
+
+    def members_needed_at_points(self, tolerance: float = 0.01) -> np.ndarray:
+        """The criterion of :meth:`members_needed` at each point: the smallest ``M`` with
+        ``within / M <= tolerance * max(between, 0)``, as floats; ``inf`` where ``between
+        <= 0`` (averaging removes everything eventually but never reaches a positive floor),
+        NaN where undefined. No warning: the per-point edge cases are these values."""
+        tolerance = check_tolerance(tolerance)
+        return np.array([
+            _ceil_members(w, max(b, 0.0), tolerance)
+            for w, b in zip(self.within.tolist(), self.between.tolist())
+        ], dtype=np.float64)
 
     def _rows(self):
         rows = [
-            ("replicates x members x points", f"{self.replicates:,} x {self.members:,} x {self.n_points:,}"),
-            ("within (1 - rho) s^2", f"{self.within:.6g}"),
-            ("between rho s^2", f"{self.between:.6g}"),
-            ("member variance s^2", f"{self.total_variance:.6g}"),
-            ("rho", f"{self.correlation:.4f}"),
+            ("replicates x members x points",
+             f"{self.n_replicates:,} x {self.n_members:,} x {self.n_points:,}"),
+            ("mean within (1 - rho) s^2", f"{self.mean_within:.6g}"),
+            ("mean between rho s^2", f"{self.mean_between:.6g}"),
+            ("mean total s^2", f"{self.mean_total:.6g}"),
+            ("pooled rho", f"{self.pooled_rho:.4f}"),
             ("points with between < 0", f"{self.n_negative_between:,}"),
-            (f"Var(f_{self.members})", f"{self.ensemble_variance:.6g}"),
+            (f"mean variance of f_{self.n_members}", f"{self.mean_variance:.6g}"),
         ]
-        if self.bias_squared is not None:
+        if self.mean_bias_squared is not None:
             rows += [
-                ("bias^2", f"{self.bias_squared:.6g}"),
-                ("variance", f"{self.variance:.6g}"),
-                ("covariance", f"{self.covariance:.6g}"),
-                ("expected squared error", f"{self.expected_squared_error:.6g}"),
+                ("mean bias^2", f"{self.mean_bias_squared:.6g}"),
+                ("mean member variance", f"{self.mean_member_variance:.6g}"),
+                ("mean covariance", f"{self.mean_covariance:.6g}"),
+                ("mean expected squared error", f"{self.mean_expected_squared_error:.6g}"),
             ]
         return rows
 
     def _reading(self):
-        if math.isnan(self.correlation):
+        if math.isnan(self.pooled_rho):
             return "rho is undefined"
-        if self.correlation == 0:
+        if self.pooled_rho == 0:
             return "members look uncorrelated: averaging removes all of their variance"
-        floor = self.correlation * (max(self.between, 0.0) + self.within)
-        return (f"averaging can at best bring the variance from {self.total_variance:.4g} down "
-                f"to {floor:.4g} (rho = {self.correlation:.3f})")
-
-    def __repr__(self):
-        return text_block("ReplicateSpread", self._rows(), self._reading())
-
-    def _repr_html_(self):
-        return safe_html(self, lambda: html_block("ReplicateSpread", self._rows(), self._reading()))
+        floor = self.pooled_rho * (max(self.mean_between, 0.0) + self.mean_within)
+        return (f"averaging can at best bring the variance from {self.mean_total:.4g} down "
+                f"to {floor:.4g} (pooled rho = {self.pooled_rho:.3f})")
 
     def to_frame(self):
-        """One row per point with every ``*_per_point`` quantity."""
+        """One row per point: ``point`` and every per-point array."""
         import pandas as pd
 
-        names = ["within", "between", "total_variance", "correlation", "ensemble_variance"]
-        if self.bias_squared is not None:
-            names += ["bias", "variance", "covariance", "expected_squared_error"]
-        return pd.DataFrame({name: getattr(self, f"{name}_per_point") for name in names})
+        names = ["between", "within", "total", "rho", "variance"]
+        if self.bias is not None:
+            names += ["bias", "member_variance", "covariance", "expected_squared_error"]
+        return pd.DataFrame({"point": np.arange(self.n_points),
+                             **{name: getattr(self, name) for name in names}})
+

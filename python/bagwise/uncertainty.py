@@ -11,15 +11,18 @@ reused for any number of new points.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
 from statistics import NormalDist
+from typing import ClassVar
 
 import numpy as np
 
 from . import _core
-from ._display import html_block, safe_html, text_block
+from ._results import Result, check_tolerance, members_for
 from ._validation import n_jobs_value
+from ._warnings import warn
 
 __all__ = ["CountGram", "PredictionVariance", "Spread", "count_gram", "prediction_variance",
            "spread"]
@@ -34,7 +37,7 @@ def _counts_iv(counts) -> np.ndarray:
     if counts.dtype == np.bool_ or counts.dtype.kind not in "iu":
         raise TypeError(f"`counts`: expected integer in-bag counts, got dtype {counts.dtype}")
     if counts.ndim != 2:
-        raise ValueError(f"`counts`: expected shape (members, n_train), got {counts.shape}")
+        raise ValueError(f"`counts`: expected shape (n_members, n_rows), got {counts.shape}")
     if counts.shape[0] < 2:
         raise ValueError(f"`counts`: needs at least 2 members, got {counts.shape[0]}")
     if counts.shape[1] < 2:
@@ -56,7 +59,7 @@ def _members_iv(members, n_members: int) -> np.ndarray:
     if members.ndim == 1:
         members = members[:, None]
     if members.ndim != 2:
-        raise ValueError(f"`members`: expected shape (members, n_points), got {members.shape}")
+        raise ValueError(f"`members`: expected shape (n_members, n_points), got {members.shape}")
     if members.shape[0] != n_members:
         raise ValueError(f"`members`: has {members.shape[0]} members (rows) but `counts` has "
                          f"{n_members}")
@@ -71,14 +74,14 @@ class CountGram:
     G = N Nᵀ (members × members, exact integer arithmetic on the counts' own dtype) gives the
     infinitesimal jackknife as the quadratic form t̃ᵀ G t̃ / B²; the weighted Gram of the
     out-of-bag indicators gives the jackknife-after-bootstrap. Building costs
-    O(B² · n_train); each point afterwards costs O(B²).
+    O(B² · n_rows); each point afterwards costs O(B²).
 
     Parameters
     ----------
-    counts : array of non-negative integers, shape (members, n_train)
+    counts : array of non-negative integers, shape (n_members, n_rows)
     scheme : {"bootstrap", "subsample"} or None
         How rows were drawn. None detects it: 0/1 counts with the same number of rows ``s``
-        in every member, ``s < n_train``, are a subsample; anything else a bootstrap.
+        in every member, ``s < n_rows``, are a subsample; anything else a bootstrap.
     jackknife : bool
         Also build the out-of-bag Gram needed by ``method="jackknife"``.
     n_jobs : int, optional
@@ -103,48 +106,54 @@ class CountGram:
         return self
 
     @property
-    def members(self) -> int:
-        return self._gram.members
+    def n_members(self) -> int:
+        """Members (rows of the counts)."""
+        return self._gram.n_members
 
     @property
-    def n_train(self) -> int:
-        return self._gram.n_train
+    def n_rows(self) -> int:
+        """Training rows (columns of the counts)."""
+        return self._gram.n_rows
 
     @property
     def scheme(self) -> str:
+        """``"bootstrap"`` or ``"subsample"``."""
         return self._gram.scheme
 
     @property
     def gram(self) -> np.ndarray:
-        """G = N Nᵀ, shape (members, members)."""
+        """G = N Nᵀ, shape (n_members, n_members)."""
         return self._gram.gram
 
     def prediction_variance(self, members, *, method="ij", corrected=True, n_jobs=None):
         """Variance of the ensemble mean at each point; see :func:`prediction_variance`."""
         if method not in ("ij", "jackknife"):
             raise ValueError(f"`method`: expected 'ij' or 'jackknife', got {method!r}")
-        members = _members_iv(members, self.members)
+        return self._estimate(members, method, corrected, n_jobs)[0]
+
+    def spread(self, members, *, n_jobs=None):
+        """Between/within split of the member variance; see :func:`spread`."""
+        return Spread._from_parts(*self._estimate(members, "ij", True, n_jobs))
+
+    def _estimate(self, members, method, corrected, n_jobs):
+        """The PredictionVariance of ``members`` and their across-member variance."""
+        members = _members_iv(members, self.n_members)
         if method == "jackknife" and not self._gram.has_jackknife:
             raise ValueError("`method`: this CountGram was built without jackknife=True")
         raw, correction, within, mean = self._gram.variance(members, method,
                                                             n_jobs_value(n_jobs))
-        return PredictionVariance._from_parts(
+        estimate = PredictionVariance._from_parts(
             method=method, corrected=corrected, raw=raw, correction=correction, mean=mean,
-            within=within, members=self.members, n_train=self.n_train, scheme=self.scheme,
+            n_members=self.n_members, n_rows=self.n_rows, scheme=self.scheme,
             rows_never_out_of_bag=(self._gram.rows_never_out_of_bag
                                    if method == "jackknife" else 0))
-
-    def spread(self, members, *, n_jobs=None):
-        """Between/within split of the member variance; see :func:`spread`."""
-        estimate = self.prediction_variance(members, method="ij", corrected=True,
-                                            n_jobs=n_jobs)
-        return Spread._from_estimate(estimate)
+        return estimate, within
 
     def __reduce__(self):
         return (_restore_gram, (self._gram.to_bytes(),))
 
     def __repr__(self):
-        return (f"CountGram(members={self.members}, n_train={self.n_train}, "
+        return (f"CountGram(n_members={self.n_members}, n_rows={self.n_rows}, "
                 f"scheme={self.scheme!r}, jackknife={self._gram.has_jackknife})")
 
 
@@ -168,7 +177,8 @@ def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGra
     return CountGram(counts, scheme=scheme, jackknife=jackknife, n_jobs=n_jobs)
 
 
-class PredictionVariance:
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class PredictionVariance(Result):
     """Variance and standard error of a bagged prediction at each point.
 
     Attributes
@@ -178,7 +188,8 @@ class PredictionVariance:
     corrected : bool
         Whether the Monte-Carlo bias correction was subtracted.
     variance : ndarray, shape (n_points,)
-        The estimate; corrected values below zero are clipped to zero (see ``n_clipped``).
+        The variance of the ensemble's mean prediction over training sets; corrected values
+        below zero are clipped to zero (see ``n_clipped``).
     std_error : ndarray, shape (n_points,)
         ``sqrt(variance)``.
     raw_variance, correction : ndarray, shape (n_points,)
@@ -187,7 +198,8 @@ class PredictionVariance:
         ``correction / raw_variance``: near 1 means too few members for a stable estimate.
     mean : ndarray, shape (n_points,)
         The ensemble mean prediction the standard errors belong to.
-    members, n_train : int
+    n_members, n_rows : int
+        Members and training rows of the in-bag counts.
     scheme : str
         ``"bootstrap"`` or ``"subsample"`` (which fixes the scale; see the module notes).
     n_clipped : int
@@ -197,33 +209,45 @@ class PredictionVariance:
         them, so they are left out of the jackknife sum.
     """
 
+    _title: ClassVar[str] = "PredictionVariance"
+
+    method: str
+    corrected: bool
+    variance: np.ndarray
+    std_error: np.ndarray
+    raw_variance: np.ndarray
+    correction: np.ndarray
+    correction_share: np.ndarray
+    mean: np.ndarray
+    n_members: int
+    n_rows: int
+    scheme: str
+    n_clipped: int
+    rows_never_out_of_bag: int
+
     @classmethod
-    def _from_parts(cls, *, method, corrected, raw, correction, mean, within, members, n_train,
-                    scheme, rows_never_out_of_bag):
-        self = cls.__new__(cls)
-        self.method, self.corrected, self.members, self.n_train = method, corrected, members, n_train
-        self.scheme = scheme
-        self.raw_variance, self.correction, self.mean = raw, correction, mean
-        self._within = within
+    def _from_parts(cls, *, method, corrected, raw, correction, mean, n_members, n_rows,
+                    scheme, rows_never_out_of_bag) -> PredictionVariance:
+        """The one place a PredictionVariance is built: from the core's estimate."""
         with np.errstate(divide="ignore", invalid="ignore"):
-            self.correction_share = np.where(raw > 0, correction / raw, np.nan)
+            correction_share = np.where(raw > 0, correction / raw, np.nan)
         value = raw - correction if corrected else raw.copy()
         negative = value < 0
-        self.n_clipped = int(negative.sum())
-        self.variance = np.where(negative, 0.0, value)
-        self.std_error = np.sqrt(self.variance)
-        self.rows_never_out_of_bag = rows_never_out_of_bag
-        share = float(np.nanmedian(self.correction_share)) if np.isfinite(
-            self.correction_share).any() else math.nan
+        n_clipped = int(negative.sum())
+        variance = np.where(negative, 0.0, value)
+        share = (float(np.nanmedian(correction_share)) if np.isfinite(correction_share).any()
+                 else math.nan)
         if corrected and share > CORRECTION_WARNING_SHARE:
-            warnings.warn(
-                f"the Monte-Carlo correction is {share:.0%} of the raw variance at the median "
-                f"point: {members} members are too few for a stable estimate; use more members",
-                RuntimeWarning, stacklevel=3)
-        if corrected and self.n_clipped:
-            warnings.warn(f"{self.n_clipped} of {len(value)} corrected variances were negative "
-                          "and were clipped to zero", RuntimeWarning, stacklevel=3)
-        return self
+            warn(f"the Monte-Carlo correction is {share:.0%} of the raw variance at the median "
+                 f"point: {n_members} members are too few for a stable estimate; use more members")
+        if corrected and n_clipped:
+            warn(f"{n_clipped} of {len(value)} corrected variances were negative and were "
+                 "clipped to zero")
+        return cls(method=method, corrected=corrected, variance=variance,
+                   std_error=np.sqrt(variance), raw_variance=raw, correction=correction,
+                   correction_share=correction_share, mean=mean, n_members=n_members,
+                   n_rows=n_rows, scheme=scheme, n_clipped=n_clipped,
+                   rows_never_out_of_bag=rows_never_out_of_bag)
 
     def interval(self, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
         """Normal-approximation interval ``mean ± z · std_error`` at ``level``.
@@ -240,7 +264,7 @@ class PredictionVariance:
         name = {"ij": "infinitesimal jackknife", "jackknife": "jackknife-after-bootstrap"}
         rows = [
             ("method", name[self.method] + (" (bias-corrected)" if self.corrected else "")),
-            ("members x training rows", f"{self.members:,} x {self.n_train:,}"),
+            ("members x training rows", f"{self.n_members:,} x {self.n_rows:,}"),
             ("points", f"{len(self.variance):,}"),
             ("median standard error", f"{np.median(self.std_error):.4g}"),
             ("median correction share", f"{np.nanmedian(self.correction_share):.1%}"
@@ -254,13 +278,6 @@ class PredictionVariance:
     def _reading(self):
         return (f"a typical prediction is uncertain by ± {np.median(self.std_error):.3g} "
                 "(one standard error)")
-
-    def __repr__(self):
-        return text_block("PredictionVariance", self._rows(), self._reading())
-
-    def _repr_html_(self):
-        return safe_html(self, lambda: html_block("PredictionVariance", self._rows(),
-                                                  self._reading()))
 
     def to_frame(self):
         """One row per point: mean, variance, std_error, raw_variance, correction."""
@@ -277,9 +294,9 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
 
     Parameters
     ----------
-    members : array, shape (members, n_points)
+    members : array, shape (n_members, n_points)
         Each member's prediction at the points (or the probability of one class).
-    counts : array of non-negative integers, shape (members, n_train)
+    counts : array of non-negative integers, shape (n_members, n_rows)
         The in-bag counts the members were fit with (any integer dtype; kept as is).
     method : {"ij", "jackknife"}
         ``"ij"``: infinitesimal jackknife V_IJ = Σ_i Cov_b(N_bi, t_b)² (Efron 2014).
@@ -315,7 +332,8 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
     return gram.prediction_variance(members, method=method, corrected=corrected, n_jobs=n_jobs)
 
 
-class Spread:
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class Spread(Result):
     """Each point's member variance split into between (training data) and within (members).
 
     ``within(x)`` is the across-member variance of the predictions (ddof 1), the part more
@@ -328,62 +346,87 @@ class Spread:
     Attributes
     ----------
     between, within, total, rho : ndarray, shape (n_points,)
+        Per point; ``between`` is never negative (clipped at zero, see ``n_clipped``).
     mean_between, mean_within, mean_total : float
-        Means over points.
+        Means over points (``mean_total = mean_between + mean_within``).
     pooled_rho : float
         ``mean_between / mean_total``.
-    members : int
+    n_members : int
+        Members of the ensemble.
     n_clipped : int
         Points whose corrected between-variance was negative and clipped to zero.
     """
 
-    @classmethod
-    def _from_estimate(cls, estimate: PredictionVariance):
-        self = cls.__new__(cls)
-        self.between = estimate.variance
-        self.within = estimate._within
-        self.total = self.between + self.within
-        with np.errstate(divide="ignore", invalid="ignore"):
-            self.rho = np.where(self.total > 0, self.between / self.total, np.nan)
-        self.mean_between = float(self.between.mean())
-        self.mean_within = float(self.within.mean())
-        self.mean_total = self.mean_between + self.mean_within
-        self.pooled_rho = self.mean_between / self.mean_total if self.mean_total > 0 else math.nan
-        self.members = estimate.members
-        self.n_clipped = estimate.n_clipped
-        return self
+    _title: ClassVar[str] = "Spread"
 
-    def predicted_variance(self, members: int) -> np.ndarray:
-        """Var(f_M) = between + within / M at each point for an ensemble of ``members``."""
-        if members < 1:
-            raise ValueError(f"`members`: must be at least 1, got {members}")
-        return self.between + self.within / members
+    between: np.ndarray
+    within: np.ndarray
+    total: np.ndarray
+    rho: np.ndarray
+    mean_between: float
+    mean_within: float
+    mean_total: float
+    pooled_rho: float
+    n_members: int
+    n_clipped: int
+
+    @classmethod
+    def _from_parts(cls, estimate: PredictionVariance, within: np.ndarray) -> Spread:
+        """The one place a Spread is built: the corrected IJ ``estimate`` is the between
+        part, ``within`` the across-member variance of the same call."""
+        between = estimate.variance
+        total = between + within
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rho = np.where(total > 0, between / total, np.nan)
+        mean_between = float(between.mean())
+        mean_within = float(within.mean())
+        mean_total = mean_between + mean_within
+        return cls(between=between, within=within, total=total, rho=rho,
+                   mean_between=mean_between, mean_within=mean_within, mean_total=mean_total,
+                   pooled_rho=mean_between / mean_total if mean_total > 0 else math.nan,
+                   n_members=estimate.n_members, n_clipped=estimate.n_clipped)
+
+    def predicted_variance(self, n_members) -> np.ndarray:
+        """Var(f_M) = ρσ² + (1 − ρ)σ²/M = between + within / M at each point (Hastie,
+        Tibshirani & Friedman 2009, eq. 15.1) for an ensemble of ``n_members`` members (an
+        array of sizes gives shape ``(n_points, len(n_members))``)."""
+        m = _n_members_iv(n_members)
+        if m.ndim == 0:
+            return self.between + self.within / m
+        return self.between[:, None] + self.within[:, None] / np.ravel(m)[None, :]
+
+    def mean_predicted_variance(self, n_members):
+        """eq. 15.1 from the means over points: ``mean_between + mean_within / M`` for
+        ensembles of ``n_members`` members (an int gives a float, an array an array)."""
+        value = self.mean_between + self.mean_within / _n_members_iv(n_members)
+        return float(value) if value.ndim == 0 else value
 
     def members_needed(self, tolerance: float = 0.01) -> int | float:
-        """Smallest M with mean_within / M ≤ tolerance · mean_between (``nan`` if between
-        is zero: more members cannot make the remaining part small relative to it)."""
-        if not tolerance > 0:
-            raise ValueError(f"`tolerance`: must be positive, got {tolerance}")
-        if self.mean_between <= 0:
-            return math.nan
-        return max(1, math.ceil(self.mean_within / (tolerance * self.mean_between)))
+        """The smallest M for which the variance of the M-member ensemble's mean,
+        ρσ² + (1 − ρ)σ²/M (Hastie, Tibshirani & Friedman 2009, eq. 15.1), is within
+        ``tolerance`` (relative) of its limit ρσ², from the means over points:
+        ``mean_within / M <= tolerance * mean_between``.
+
+        NaN with one `BagwiseWarning` when ``mean_between`` is not positive (no floor that
+        more members could come near).
+        """
+        tolerance = check_tolerance(tolerance)
+        return members_for(self.mean_within, self.mean_between, tolerance,
+                           "the between variance (the limit) is not positive: more members "
+                           "cannot make the remaining part small relative to it")
 
     def _rows(self):
-        return [("members", str(self.members)),
+        needed = _quiet(lambda: self.members_needed(0.01))
+        return [("members", str(self.n_members)),
                 ("between (training data)", f"{self.mean_between:.4g}"),
                 ("within (members)", f"{self.mean_within:.4g}"),
                 ("rho", f"{self.pooled_rho:.3f}"),
-                ("members for 1% of between", str(self.members_needed(0.01)))]
+                ("members for 1% of between", str(needed))]
 
     def _reading(self):
+        needed = _quiet(lambda: self.members_needed(0.01))
         return (f"members share {self.pooled_rho:.0%} of their variance through the training "
-                f"data; {self.members_needed(0.01)} members bring the rest within 1% of it")
-
-    def __repr__(self):
-        return text_block("Spread", self._rows(), self._reading())
-
-    def _repr_html_(self):
-        return safe_html(self, lambda: html_block("Spread", self._rows(), self._reading()))
+                f"data; {needed} members bring the rest within 1% of it")
 
     def to_frame(self):
         """One row per point: between, within, total, rho."""
@@ -393,10 +436,24 @@ class Spread:
                              "within": self.within, "total": self.total, "rho": self.rho})
 
 
+def _quiet(compute):
+    """``compute()`` with its warnings silenced: a display never warns."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return compute()
+
+
+def _n_members_iv(n_members) -> np.ndarray:
+    m = np.asarray(n_members)
+    if m.dtype.kind not in "iu" or np.any(m < 1):
+        raise ValueError(f"`n_members`: expected integers >= 1, got {n_members!r}")
+    return m.astype(np.float64)
+
+
 def spread(members, counts, *, scheme=None, n_jobs=None) -> Spread:
     """Split each point's member variance into between (training data) and within parts.
 
-    See :class:`Spread`. ``members`` (members, n_points) and ``counts`` (members, n_train)
+    See :class:`Spread`. ``members`` (n_members, n_points) and ``counts`` (n_members, n_rows)
     as in :func:`prediction_variance`.
     """
     return CountGram(counts, scheme=scheme, n_jobs=n_jobs).spread(members, n_jobs=n_jobs)

@@ -1,86 +1,131 @@
 //! Bindings of [`crate::replicates`].
 
 use numpy::ndarray::Ix3;
-use numpy::{PyArrayMethods, PyReadonlyArray1, PyUntypedArrayMethods};
+use numpy::{PyArray2, PyArrayMethods, PyReadonlyArray1, PyUntypedArrayMethods};
 use pyo3::prelude::*;
-use pyo3::types::PyDict;
 
-use super::zeros_nd;
-use super::{run_core, FloatArray};
-use crate::replicates::{replicate_spread, SplitOutputs, SpreadOutputs};
+use super::{run_core, zeros, FloatArray};
+use crate::replicates::{replicate_spread as spread_core, Row, SpreadSummary};
+
+/// The per-point arrays (rows of one numpy buffer) and means over points of the replicate
+/// spread, as typed getters.
+#[pyclass(module = "bagwise._core", name = "ReplicateSpreadParts", frozen)]
+pub struct PyReplicateSpreadParts {
+    rows: Py<PyArray2<f64>>,
+    summary: SpreadSummary,
+}
 
 /// Per-point arrays and means over points of the replicate spread (see the core module).
 #[pyfunction]
 #[pyo3(signature = (members, y=None, n_jobs=None))]
-fn replicate_spread_arrays<'py>(
+fn replicate_spread<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: Option<PyReadonlyArray1<'py, f64>>,
     n_jobs: Option<usize>,
-) -> PyResult<(Bound<'py, PyDict>, Bound<'py, PyDict>)> {
+) -> PyResult<PyReplicateSpreadParts> {
     let members = FloatArray::<Ix3>::extract(members, "members")?;
-    let n = match &members {
-        FloatArray::F32(a) => a.shape()[2],
-        FloatArray::F64(a) => a.shape()[2],
-    };
-    let names = ["within", "between", "ensemble_variance"];
-    let split_names = ["bias", "variance", "covariance", "expected_squared_error"];
-    let count = names.len() + if y.is_some() { split_names.len() } else { 0 };
-    let arrays = (0..count)
-        .map(|_| zeros_nd::<f64>(py, vec![n]))
-        .collect::<PyResult<Vec<_>>>()?;
-    // SAFETY: the arrays were just created here and are not shared with Python yet.
-    let mut slices: Vec<&mut [f64]> = arrays
-        .iter()
-        .map(|a| unsafe { a.as_slice_mut() }.expect("a new array is contiguous"))
-        .collect();
-    let split = (slices.len() == 7).then(|| {
-        let mut rest = slices.split_off(3).into_iter();
-        SplitOutputs {
-            bias: rest.next().expect("7 arrays"),
-            variance: rest.next().expect("7 arrays"),
-            covariance: rest.next().expect("7 arrays"),
-            expected_squared_error: rest.next().expect("7 arrays"),
-        }
-    });
-    let mut first = slices.into_iter();
-    let out = SpreadOutputs {
-        within: first.next().expect("3 arrays"),
-        between: first.next().expect("3 arrays"),
-        ensemble_variance: first.next().expect("3 arrays"),
-        split,
-    };
-    let y_view = y.as_ref().map(|y| y.as_array());
-    let summary = match &members {
-        FloatArray::F32(a) => {
-            let view = a.as_array();
-            run_core(py, n_jobs, None, |pool, monitor| {
-                replicate_spread(view, y_view, out, pool, monitor)
-            })
-        }
-        FloatArray::F64(a) => {
-            let view = a.as_array();
-            run_core(py, n_jobs, None, |pool, monitor| {
-                replicate_spread(view, y_view, out, pool, monitor)
-            })
-        }
-    }?;
-    let per_point = PyDict::new(py);
-    for (name, array) in names.iter().chain(&split_names).zip(arrays) {
-        per_point.set_item(name, array)?;
+    let points = with_float!(members, |view| view.dim().2);
+    let rows = zeros::<f64>(py, [Row::count(y.is_some()), points])?;
+    // SAFETY: the array was just created here and is not shared with Python yet.
+    let out = unsafe { rows.as_slice_mut() }.expect("a new array is contiguous");
+    let y = y.as_ref().map(|y| y.as_array());
+    let summary = with_float!(members, |view| {
+        run_core(py, n_jobs, None, |pool, monitor| {
+            spread_core(view, y, out, pool, monitor)
+        })
+    })?;
+    let rows = rows.unbind();
+    Ok(PyReplicateSpreadParts { rows, summary })
+}
+
+impl PyReplicateSpreadParts {
+    /// Row `row` of the buffer as a numpy view.
+    fn row<'py>(&self, py: Python<'py>, row: Row) -> PyResult<Bound<'py, PyAny>> {
+        self.rows.bind(py).as_any().get_item(row.index())
     }
-    let means = PyDict::new(py);
-    means.set_item("within", summary.within)?;
-    means.set_item("between", summary.between)?;
-    means.set_item("ensemble_variance", summary.ensemble_variance)?;
-    means.set_item("negative_between", summary.negative_between)?;
-    means.set_item("bias_squared", summary.bias_squared)?;
-    means.set_item("variance", summary.variance)?;
-    means.set_item("covariance", summary.covariance)?;
-    means.set_item("expected_squared_error", summary.expected_squared_error)?;
-    Ok((per_point, means))
+
+    /// Whether the buffer holds the rows that need targets.
+    fn has_y(&self, py: Python<'_>) -> bool {
+        self.rows.bind(py).shape()[0] == Row::WITH_Y
+    }
+
+    /// A row that exists only with targets.
+    fn split_row<'py>(&self, py: Python<'py>, row: Row) -> PyResult<Option<Bound<'py, PyAny>>> {
+        self.has_y(py).then(|| self.row(py, row)).transpose()
+    }
+
+    /// A mean that exists only with targets.
+    fn with_y(&self, py: Python<'_>, value: f64) -> Option<f64> {
+        self.has_y(py).then_some(value)
+    }
+}
+
+#[pymethods]
+impl PyReplicateSpreadParts {
+    #[getter]
+    fn within<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
+        self.row(py, Row::Within)
+    }
+    #[getter]
+    fn between<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
+        self.row(py, Row::Between)
+    }
+    #[getter]
+    fn variance<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
+        self.row(py, Row::Variance)
+    }
+    #[getter]
+    fn bias<'py>(&self, py: Python<'py>) -> PyResult<Option<Bound<'py, PyAny>>> {
+        self.split_row(py, Row::Bias)
+    }
+    #[getter]
+    fn member_variance<'py>(&self, py: Python<'py>) -> PyResult<Option<Bound<'py, PyAny>>> {
+        self.split_row(py, Row::MemberVariance)
+    }
+    #[getter]
+    fn covariance<'py>(&self, py: Python<'py>) -> PyResult<Option<Bound<'py, PyAny>>> {
+        self.split_row(py, Row::Covariance)
+    }
+    #[getter]
+    fn expected_squared_error<'py>(&self, py: Python<'py>) -> PyResult<Option<Bound<'py, PyAny>>> {
+        self.split_row(py, Row::ExpectedSquaredError)
+    }
+    #[getter]
+    fn mean_within(&self) -> f64 {
+        self.summary.mean_within
+    }
+    #[getter]
+    fn mean_between(&self) -> f64 {
+        self.summary.mean_between
+    }
+    #[getter]
+    fn mean_variance(&self) -> f64 {
+        self.summary.mean_variance
+    }
+    #[getter]
+    fn n_negative_between(&self) -> u64 {
+        self.summary.n_negative_between
+    }
+    #[getter]
+    fn mean_bias_squared(&self, py: Python<'_>) -> Option<f64> {
+        self.with_y(py, self.summary.mean_bias_squared)
+    }
+    #[getter]
+    fn mean_member_variance(&self, py: Python<'_>) -> Option<f64> {
+        self.with_y(py, self.summary.mean_member_variance)
+    }
+    #[getter]
+    fn mean_covariance(&self, py: Python<'_>) -> Option<f64> {
+        self.with_y(py, self.summary.mean_covariance)
+    }
+    #[getter]
+    fn mean_expected_squared_error(&self, py: Python<'_>) -> Option<f64> {
+        self.with_y(py, self.summary.mean_expected_squared_error)
+    }
 }
 
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
-    m.add_function(wrap_pyfunction!(replicate_spread_arrays, m)?)
+    m.add_class::<PyReplicateSpreadParts>()?;
+    m.add_function(wrap_pyfunction!(replicate_spread, m)?)
 }

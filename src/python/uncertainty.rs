@@ -66,7 +66,7 @@ impl PyCountGram {
         Ok(PyCountGram { inner })
     }
 
-    /// (raw, correction, within, mean) per point for `members` (members, n_points).
+    /// (raw, correction, within, mean) per point for `members` (n_members, n_points).
     #[pyo3(signature = (members, method, n_jobs=None))]
     #[allow(clippy::type_complexity)]
     fn variance(
@@ -77,20 +77,12 @@ impl PyCountGram {
         n_jobs: Option<usize>,
     ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
         let method = Method::parse(method).map_err(to_py_err)?;
-        let estimate = match FloatArray::<numpy::Ix2>::extract(members, "members")? {
-            FloatArray::F32(a) => {
-                let view = a.as_array();
-                run_core(py, n_jobs, None, |pool, _| {
-                    self.inner.variance(view, method, pool)
-                })?
-            }
-            FloatArray::F64(a) => {
-                let view = a.as_array();
-                run_core(py, n_jobs, None, |pool, _| {
-                    self.inner.variance(view, method, pool)
-                })?
-            }
-        };
+        let members = FloatArray::<numpy::Ix2>::extract(members, "members")?;
+        let estimate = with_float!(members, |view| {
+            run_core(py, n_jobs, None, |pool, _| {
+                self.inner.variance(view, method, pool)
+            })
+        })?;
         let arr = |a: numpy::ndarray::Array1<f64>| a.into_pyarray(py).into_any().unbind();
         Ok((
             arr(estimate.raw),
@@ -100,14 +92,16 @@ impl PyCountGram {
         ))
     }
 
+    /// Members B (rows of the counts).
     #[getter]
-    fn members(&self) -> usize {
-        self.inner.members()
+    fn n_members(&self) -> usize {
+        self.inner.n_members()
     }
 
+    /// Training rows n (columns of the counts).
     #[getter]
-    fn n_train(&self) -> usize {
-        self.inner.n_train()
+    fn n_rows(&self) -> usize {
+        self.inner.n_rows()
     }
 
     /// 'bootstrap' or 'subsample'.
@@ -138,7 +132,7 @@ impl PyCountGram {
         self.inner.rows_never_out_of_bag()
     }
 
-    /// G = N Nᵀ as a (members, members) float64 array (exact integers).
+    /// G = N Nᵀ as a (n_members, n_members) float64 array (exact integers).
     #[getter]
     fn gram(&self, py: Python<'_>) -> Py<PyAny> {
         self.inner
