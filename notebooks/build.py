@@ -80,9 +80,9 @@ DOES_BAGGING_HELP = [
     """),
     code("""
     learners = ["tree", "linear", "neighbors"]
-    single = {name: bagwise.RegressionBag(name, members=1, scheme="none").fit(X_train, y_train)
+    single = {name: bagwise.BagRegressor(name, n_members=1, scheme="none").fit(X_train, y_train)
               for name in learners}
-    bagged = {name: bagwise.RegressionBag(name, members=100, seed=0).fit(X_train, y_train)
+    bagged = {name: bagwise.BagRegressor(name, n_members=100, random_state=0).fit(X_train, y_train)
               for name in learners}
 
     def test_error(model):
@@ -174,7 +174,7 @@ HOW_MANY_MEMBERS = [
     VINEYARDS,
     code("""
     X_train, X_test, y_train, y_test = train_test_split(X, y, test_size=1000, random_state=0)
-    model = bagwise.RegressionBag("tree", members=200, seed=0).fit(X_train, y_train)
+    model = bagwise.BagRegressor("tree", n_members=200, random_state=0).fit(X_train, y_train)
     test_members = model.member_predictions(X_test)       # (200 members, 1000 test vines)
     curve = bagwise.size_curve(test_members, y_test, orders=20, rng=0)
     curve
@@ -271,7 +271,7 @@ STANDARD_ERRORS = [
     X_test, y_test = X[test], y[test]
 
     def fit(rows, seed):
-        return bagwise.RegressionBag("tree", members=4000, min_leaf=10, seed=seed).fit(X[rows], y[rows])
+        return bagwise.BagRegressor("tree", n_members=4000, min_leaf=10, random_state=seed).fit(X[rows], y[rows])
 
     model = fit(training_sets[0], seed=0)
     test_members = model.member_predictions(X_test)
@@ -364,7 +364,7 @@ OWN_ESTIMATOR = [
     md("""
     # Bagging your own scikit-learn estimator
 
-    `bagwise.RegressionBag` accepts any scikit-learn regressor, including a whole
+    `bagwise.BagRegressor` accepts any scikit-learn regressor, including a whole
     `Pipeline`: every member is a clone fit on its own resample, and the bag is itself a
     scikit-learn estimator, so it works inside `cross_val_score` and `GridSearchCV`. Its
     diagnostics come from the same two things as for the native learners: the members'
@@ -382,7 +382,7 @@ OWN_ESTIMATOR = [
 
     X_train, X_test, y_train, y_test = train_test_split(X, y, test_size=1000, random_state=0)
     pipeline = make_pipeline(StandardScaler(), KNeighborsRegressor(n_neighbors=10))
-    bag = bagwise.RegressionBag(pipeline, members=50, seed=0)
+    bag = bagwise.BagRegressor(pipeline, n_members=50, random_state=0)
     folds = KFold(5, shuffle=True, random_state=0)
     """),
     md("""

@@ -299,7 +299,7 @@ def test_classification_bag_diversity_equals_the_function_on_its_member_labels()
     # bundled open dataset: sklearn.datasets.load_breast_cancer
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)
     X_train, X_test, y_train, y_test = train_test_split(X, y, test_size=0.3, random_state=0)
-    bag = bagwise.ClassificationBag(learner="tree", members=15, seed=0).fit(X_train, y_train)
+    bag = bagwise.BagClassifier(learner="tree", n_members=15, random_state=0).fit(X_train, y_train)
     d = bag.diversity(X_test, y_test)
     # member labels: argmax of every member's class probabilities (numpy.argmax)
     labels = np.argmax(bag.member_predictions(X_test), axis=2)

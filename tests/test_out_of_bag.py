@@ -496,7 +496,7 @@ def test_display_never_raises():
 
 def test_missing_in_bag_entries_are_ignored():
     # Out-of-bag predictions with NaN where a member saw the row (the layout of
-    # RegressionBag.out_of_bag_predictions) give the same result as any filler there;
+    # BagRegressor.out_of_bag_predictions) give the same result as any filler there;
     # a NaN at an out-of-bag entry is still an error naming `members`.
     rng = np.random.default_rng(5)
     counts = bagwise.resample(80, 30, seed=3).counts

@@ -408,8 +408,8 @@ def test_between_within_scatter(spread_case):
     np.testing.assert_array_equal(offsets[:, 1], spread_case.between[keep])
     same = line_labelled(ax, "between = within (")
     np.testing.assert_array_equal(same.get_xdata(), same.get_ydata())
-    less = line_labelled(ax, f"between = within / {spread_case.members}")
-    np.testing.assert_allclose(np.asarray(less.get_ydata()) * spread_case.members,
+    less = line_labelled(ax, f"between = within / {spread_case.n_members}")
+    np.testing.assert_allclose(np.asarray(less.get_ydata()) * spread_case.n_members,
                                less.get_xdata(), rtol=1e-15)
     assert ax.get_xscale() == ax.get_yscale() == "log"
     assert ax.get_xlabel() == "within variance: across members (kg²)"

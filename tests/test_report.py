@@ -266,7 +266,7 @@ def test_report_of_a_fitted_bag_has_every_figure():
     rng = np.random.default_rng(0)
     X = rng.normal(size=(300, 3))
     y = X @ [1.0, -2.0, 0.5] + rng.normal(size=300)
-    bag = bagwise.RegressionBag("linear", members=400, seed=0).fit(X[:100], y[:100])
+    bag = bagwise.BagRegressor("linear", n_members=400, random_state=0).fit(X[:100], y[:100])
     report = bag.diagnose(X[100:], y[100:])
     parsed = Page(report.to_html())
     # as `diagnose` on the same arrays: decomposition (2), size curve (1), standard errors

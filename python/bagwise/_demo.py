@@ -9,7 +9,7 @@ import numpy as np
 
 from . import __version__, _core
 from .datasets import feature_matrix, find_vineyards_csv, load_vineyards
-from .ensemble import RegressionBag
+from .ensemble import BagRegressor
 from .resampling import resample
 
 
@@ -110,8 +110,8 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
     loss_rows, spread_rows, readings = [], [], []
     for name, learner in (("linear", "linear"), (tree_name, tree)):
         start = time.perf_counter()
-        bag = RegressionBag(learner, members=members, seed=seed).fit(X[train], y[train])
-        single = RegressionBag(learner, members=1, scheme="none", seed=seed).fit(X[train], y[train])
+        bag = BagRegressor(learner, n_members=members, random_state=seed).fit(X[train], y[train])
+        single = BagRegressor(learner, n_members=1, scheme="none", random_state=seed).fit(X[train], y[train])
         with warnings.catch_warnings():
             # the report itself shows the correction share and the clipped points
             warnings.simplefilter("ignore")
@@ -152,7 +152,7 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
 
 def diversity_section(data: dict[str, np.ndarray], members: int, seed: int) -> str:
     """Bag trees that grade vines premium or not and print how differently they err."""
-    from .ensemble import ClassificationBag
+    from .ensemble import BagClassifier
 
     X, _ = feature_matrix(data)
     y = data["premium_grade"].astype(np.int64)
@@ -162,7 +162,7 @@ def diversity_section(data: dict[str, np.ndarray], members: int, seed: int) -> s
              f"{members} members (seed {seed})"]
     rows = []
     for name, depth in (("tree, depth 2", 2), ("tree, full depth", None)):
-        bag = ClassificationBag("tree", members=members, max_depth=depth, seed=seed)
+        bag = BagClassifier("tree", n_members=members, max_depth=depth, random_state=seed)
         bag.fit(X[train], y[train])
         d = bag.diversity(X[test], y[test])
         vote = float(bag.score(X[test], y[test]))

@@ -144,7 +144,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     >>> rng = np.random.default_rng(0)
     >>> X = rng.normal(size=(300, 3))
     >>> y = X @ [1.0, -2.0, 0.5] + rng.normal(size=300)
-    >>> bag = bagwise.RegressionBag("linear", members=400, seed=0).fit(X[:100], y[:100])
+    >>> bag = bagwise.BagRegressor("linear", n_members=400, random_state=0).fit(X[:100], y[:100])
     >>> report = bagwise.diagnose(bag.member_predictions(X[100:]), y[100:],
     ...                           counts=bag.in_bag_)
     >>> report.decomposition.ensemble_loss < report.decomposition.member_loss

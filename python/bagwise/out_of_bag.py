@@ -91,7 +91,7 @@ def _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_size
         missing = ~np.isfinite(members)
         if missing.any():
             # Out-of-bag predictions often mark in-bag entries with NaN (as
-            # `RegressionBag.out_of_bag_predictions` does); those entries are never read, so
+            # `BagRegressor.out_of_bag_predictions` does); those entries are never read, so
             # they may be missing. A missing out-of-bag entry is still an error (core).
             in_bag = counts != 0
             seen = in_bag[..., None] if members.ndim == 3 else in_bag

@@ -328,10 +328,10 @@ def plot_between_within(spread, *, ax=None, unit=None, max_points=20_000):
         grid = np.array([low / 2, high * 2])
         ax.plot(grid, grid, color=c.INK, linestyle="--", linewidth=1.2,
                 label="between = within (rho = 1/2)")
-        ax.plot(grid, grid / spread.members, color=c.RUST, linestyle="-.", linewidth=1.2,
-                label=f"between = within / {spread.members} (the members at hand)")
+        ax.plot(grid, grid / spread.n_members, color=c.RUST, linestyle="-.", linewidth=1.2,
+                label=f"between = within / {spread.n_members} (the members at hand)")
         ax.set_xlim(grid[0], grid[1])
-        ax.set_ylim(grid[0] / spread.members, grid[1])
+        ax.set_ylim(grid[0] / spread.n_members, grid[1])
     ax.set_xscale("log")
     ax.set_yscale("log")
     square = c.squared_unit(unit)
