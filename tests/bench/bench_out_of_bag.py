@@ -59,7 +59,7 @@ def main():
     y = rng.normal(size=n)
     members64 = rng.standard_normal((m, n))
     members64 += y
-    counts = bagwise.resample(n, m, seed=0).counts
+    counts = bagwise.resample(n, m, rng=0).counts
     print(f"members ({m}, {n}), counts {counts.dtype}; best of {args.repeat}")
     sizes = bagwise.out_of_bag(members64[:, :1000], counts[:, :1000], y[:1000]).curve_sizes.tolist()
 
