@@ -809,7 +809,6 @@ impl DiversityState {
     }
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1190,7 +1189,10 @@ mod stored_tests {
     #[test]
     fn bytes_round_trip_exactly() {
         let state = state();
-        assert_eq!(DiversityState::from_bytes(&state.to_bytes()).unwrap(), state);
+        assert_eq!(
+            DiversityState::from_bytes(&state.to_bytes()).unwrap(),
+            state
+        );
     }
 
     #[test]

@@ -1238,15 +1238,17 @@ impl OutOfBagPartial {
     /// (NaN when no point is covered; the formulas are in the module documentation)
     /// ```
     pub fn losses(&self) -> LossCurves {
-        let per = |f: fn(&ErrorSums) -> f64| Some(self.curve.iter().map(f).collect());
-        let regression = matches!(self.task, Task::Regression);
+        let of = |f: fn(&ErrorSums) -> f64, of_task: bool| {
+            of_task.then(|| self.curve.iter().map(f).collect())
+        };
+        let r = matches!(self.task, Task::Regression);
         LossCurves {
             n_covered: self.curve.iter().map(|e| e.covered).collect(),
-            squared_error: if regression { per(ErrorSums::squared_error) } else { None },
-            absolute_error: if regression { per(ErrorSums::absolute_error) } else { None },
-            error_rate: if regression { None } else { per(ErrorSums::error_rate) },
-            brier_score: if regression { None } else { per(ErrorSums::brier_score) },
-            log_loss: if regression { None } else { per(ErrorSums::log_loss) },
+            squared_error: of(ErrorSums::squared_error, r),
+            absolute_error: of(ErrorSums::absolute_error, r),
+            error_rate: of(ErrorSums::error_rate, !r),
+            brier_score: of(ErrorSums::brier_score, !r),
+            log_loss: of(ErrorSums::log_loss, !r),
         }
     }
 
@@ -1296,7 +1298,11 @@ impl OutOfBagPartial {
             0 => Task::Regression,
             n_classes => Task::Classification { n_classes },
         };
-        let sizes = stored.sizes.into_iter().map(size).collect::<Result<Vec<_>>>()?;
+        let sizes = stored
+            .sizes
+            .into_iter()
+            .map(size)
+            .collect::<Result<Vec<_>>>()?;
         let mut state =
             OutOfBagPartial::new(task, size(stored.members)?, &sizes).map_err(|_| bad("sizes"))?;
         if stored.curve.len() != sizes.len() {
@@ -1321,7 +1327,6 @@ impl OutOfBagPartial {
         Ok(state)
     }
 }
-
 
 #[cfg(test)]
 mod tests {
@@ -1790,7 +1795,17 @@ mod stored_tests {
         };
         let (values, counts) = (Values(t.view()), c.view());
         let y = ArrayView1::from(&y);
-        out_of_bag(&values, &counts, y, None, &[1, 2, 4], out, &Pool::Global, &Silent).unwrap()
+        out_of_bag(
+            &values,
+            &counts,
+            y,
+            None,
+            &[1, 2, 4],
+            out,
+            &Pool::Global,
+            &Silent,
+        )
+        .unwrap()
     }
 
     #[test]
@@ -1799,7 +1814,10 @@ mod stored_tests {
         let back = OutOfBagPartial::from_bytes(&state.to_bytes()).unwrap();
         assert_eq!(back, state);
         let labels = OutOfBagPartial::new(Task::Classification { n_classes: 3 }, 2, &[2]).unwrap();
-        assert_eq!(OutOfBagPartial::from_bytes(&labels.to_bytes()).unwrap(), labels);
+        assert_eq!(
+            OutOfBagPartial::from_bytes(&labels.to_bytes()).unwrap(),
+            labels
+        );
     }
 
     #[test]
@@ -1816,7 +1834,10 @@ mod stored_tests {
         let state = regression_state();
         let losses = state.losses();
         let sums = state.curve();
-        assert_eq!(losses.n_covered, sums.iter().map(|e| e.covered).collect::<Vec<_>>());
+        assert_eq!(
+            losses.n_covered,
+            sums.iter().map(|e| e.covered).collect::<Vec<_>>()
+        );
         let squared: Vec<f64> = sums.iter().map(ErrorSums::squared_error).collect();
         assert_eq!(losses.squared_error, Some(squared));
         assert!(losses.error_rate.is_none() && losses.log_loss.is_none());

@@ -363,7 +363,8 @@ def test_loss_curve_rejects_a_loss_of_the_other_task():
 def test_accepts_a_resample_result_as_counts():
     members, _, y = regression_data(n=300, m=30, seed=15)
     draw = bagwise.resample(300, 30, rng=15)
-    assert bagwise.out_of_bag(members, draw, y).ensemble_loss == bagwise.out_of_bag(members, draw.counts, y).ensemble_loss
+    assert (bagwise.out_of_bag(members, draw, y).ensemble_loss
+            == bagwise.out_of_bag(members, draw.counts, y).ensemble_loss)
 
 
 # -- streaming over memory-mapped chunks ------------------------------------------------------

@@ -1,12 +1,13 @@
 """How differently the members of a classifier ensemble err (Kuncheva & Whitaker 2003).
 
 `diversity` computes the pairwise measures (Yule's Q, the correlation of the correct/wrong
-indicators (`correct_correlation`), disagreement, double fault, Cohen's kappa between the members' labels), their
-means over pairs, the non-pairwise measures (entropy, Kohavi-Wolpert variance, interrater
-agreement, difficulty, generalised and coincident-failure diversity) and per-member
-redundancy. `diversity_stream` computes exactly the same result from chunks of points (e.g.
-slices of a memory-mapped ``.npy``): every measure is a function of integer counts that
-merge exactly, so the split into chunks and the thread count never change a digit.
+indicators `correct_correlation`, disagreement, double fault, Cohen's kappa between the
+members' labels), their means over pairs, the non-pairwise measures (entropy,
+Kohavi-Wolpert variance, interrater agreement, difficulty, generalised and
+coincident-failure diversity) and per-member redundancy. `diversity_stream` computes exactly
+the same result from chunks of points (e.g. slices of a memory-mapped ``.npy``): every
+measure is a function of integer counts that merge exactly, so the split into chunks and
+the thread count never change a digit.
 
 Members come as integer ``(n_members, n_points)`` class labels or float32/float64
 ``(n_members, n_points, n_classes)`` probabilities; a member's label is then its most probable
@@ -22,7 +23,7 @@ import numpy as np
 
 from . import _core
 from ._results import Result
-from ._validation import positive_int, n_jobs_value
+from ._validation import n_jobs_value, positive_int
 from ._warnings import warn
 
 __all__ = ["Diversity", "DiversityStream", "diversity", "diversity_stream"]
@@ -267,12 +268,13 @@ class Diversity(Result):
         Shape of the predictions.
     accuracy : ndarray of float64, shape (n_members,)
         Share of the points each member gets right.
-    yule_q, correct_correlation, disagreement, double_fault, kappa : ndarray of float64, shape (n_members, n_members)
-        The pairwise measures (symmetric); ``correct_correlation`` is the correlation of
-        two members' right/wrong indicators. Diagonals: Q = correct correlation = kappa =
-        1, disagreement 0, double fault the member's error rate. An undefined pair is NaN:
-        Q when ``N11 N00 + N01 N10 = 0``, the correct correlation when a member is always
-        or never right, kappa when both members always predict the same single class.
+    yule_q, correct_correlation, disagreement, double_fault, kappa : ndarray of float64
+        Shape (n_members, n_members). The pairwise measures (symmetric);
+        ``correct_correlation`` is the correlation of two members' right/wrong indicators.
+        Diagonals: Q = correct correlation = kappa = 1, disagreement 0, double fault the
+        member's error rate. An undefined pair is NaN: Q when ``N11 N00 + N01 N10 = 0``, the
+        correct correlation when a member is always or never right, kappa when both members
+        always predict the same single class.
     mean_yule_q, mean_correct_correlation, mean_disagreement, mean_double_fault, mean_kappa : float
         Means over the pairs i < j, undefined pairs left out (with a warning).
     entropy : float

@@ -12,7 +12,7 @@ import numpy as np
 from . import _core
 from ._progress import ProgressArg, progress_callback
 from ._results import Result
-from ._validation import label_codes, positive_int, rng_seed, n_jobs_value
+from ._validation import label_codes, n_jobs_value, positive_int, rng_seed
 
 __all__ = ["Resample", "resample"]
 

@@ -106,7 +106,9 @@ impl PyDiversityAccumulator {
         slf: &Bound<'py, Self>,
     ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
         let py = slf.py();
-        let from_bytes = py.get_type::<PyDiversityAccumulator>().getattr("from_bytes")?;
+        let from_bytes = py
+            .get_type::<PyDiversityAccumulator>()
+            .getattr("from_bytes")?;
         Ok((from_bytes, (slf.get().to_bytes(py),)))
     }
 }

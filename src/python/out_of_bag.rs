@@ -182,10 +182,16 @@ enum Members<'py> {
 
 impl<'py> Members<'py> {
     /// `kind` is "regression", "labels" (needs `n_classes`) or "probabilities".
-    fn extract(members: &Bound<'py, PyAny>, kind: &str, n_classes: Option<usize>) -> PyResult<Self> {
+    fn extract(
+        members: &Bound<'py, PyAny>,
+        kind: &str,
+        n_classes: Option<usize>,
+    ) -> PyResult<Self> {
         Ok(match (kind, n_classes) {
             ("regression", _) => Members::Values(FloatArray::extract(members, "members")?),
-            ("probabilities", _) => Members::Probabilities(FloatArray::extract(members, "members")?),
+            ("probabilities", _) => {
+                Members::Probabilities(FloatArray::extract(members, "members")?)
+            }
             ("labels", Some(c)) => Members::Labels(IntArray::extract(members, "members")?, c),
             ("labels", None) => {
                 return Err(PyValueError::new_err(
@@ -250,7 +256,11 @@ impl<'py> Outputs<'py> {
 
     fn into_arrays(self) -> ChunkArrays<'py> {
         let probabilities = self.probabilities.map(Bound::into_any);
-        (self.prediction.into_any(), self.n_out_of_bag.into_any(), probabilities)
+        (
+            self.prediction.into_any(),
+            self.n_out_of_bag.into_any(),
+            probabilities,
+        )
     }
 }
 
@@ -276,7 +286,11 @@ fn out_of_bag_chunk<'py>(
     let members = Members::extract(members, kind, n_classes)?;
     let predictions = members.view()?;
     let outputs = Outputs::new(py, predictions.task(), predictions.dim().1)?;
-    let (y, weights, out) = (y.as_array(), point_weights.as_ref().map(|w| w.as_array()), outputs.slices());
+    let (y, weights, out) = (
+        y.as_array(),
+        point_weights.as_ref().map(|w| w.as_array()),
+        outputs.slices(),
+    );
     let (predictions, counts) = (&*predictions, &*counts);
     let inner = run_core(py, n_jobs, None, |pool, monitor| {
         out_of_bag(predictions, counts, y, weights, &sizes, out, pool, monitor)
