@@ -27,6 +27,7 @@
 
 use ndarray::{ArrayView2, ArrayView3, Axis};
 use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
 
 use crate::error::{zeroed, Error, Result};
 use crate::members::{for_chunks, no_slots, vote, Chunks};
@@ -723,6 +724,88 @@ fn pair_counts<C: Code>(ci: &[u8], cj: &[u8], li: &[C], lj: &[C]) -> (u64, u64) 
     (both, same)
 }
 
+/// The stored form of a [`DiversityState`] (postcard bytes), versioned.
+#[derive(Serialize, Deserialize)]
+struct StoredState {
+    version: u32,
+    members: u64,
+    n_classes: u64,
+    n_points: u64,
+    correct: Vec<u64>,
+    both_correct: Vec<u64>,
+    same_label: Vec<u64>,
+    class_counts: Vec<u64>,
+    tally: Vec<u64>,
+}
+
+const STORED_STATE_VERSION: u32 = 1;
+
+impl DiversityState {
+    /// Serialises the counts to compact bytes (for pickling).
+    pub fn to_bytes(&self) -> Vec<u8> {
+        let stored = StoredState {
+            version: STORED_STATE_VERSION,
+            members: self.members as u64,
+            n_classes: self.n_classes as u64,
+            n_points: self.n_points,
+            correct: self.correct.clone(),
+            both_correct: self.both_correct.clone(),
+            same_label: self.same_label.clone(),
+            class_counts: self.class_counts.clone(),
+            tally: self.tally.clone(),
+        };
+        postcard::to_allocvec(&stored).expect("serialising plain data cannot fail")
+    }
+
+    /// Restores from [`to_bytes`](DiversityState::to_bytes) output.
+    ///
+    /// # Errors
+    /// `data` if the bytes are truncated, corrupt, inconsistent or from another version.
+    pub fn from_bytes(data: &[u8]) -> Result<Self> {
+        let bad = |why: &str| Error::value("data", format!("not a stored diversity state: {why}"));
+        let stored: StoredState = postcard::from_bytes(data).map_err(|e| bad(&e.to_string()))?;
+        if stored.version != STORED_STATE_VERSION {
+            return Err(bad(&format!(
+                "version {} is not {STORED_STATE_VERSION}",
+                stored.version
+            )));
+        }
+        let size = |v: u64| usize::try_from(v).map_err(|_| bad("size out of range"));
+        let (members, n_classes) = (size(stored.members)?, size(stored.n_classes)?);
+        let lengths_match = members.checked_mul(members) == Some(stored.both_correct.len())
+            && stored.same_label.len() == stored.both_correct.len()
+            && stored.correct.len() == members
+            && members.checked_mul(n_classes) == Some(stored.class_counts.len())
+            && stored.tally.len() == members + 1;
+        if members < 2 || n_classes == 0 || n_classes > MAX_CLASSES || !lengths_match {
+            return Err(bad("table sizes do not match the members and classes"));
+        }
+        // The measures subtract counts from one another; corrupt counts must not underflow.
+        let n = stored.n_points;
+        let pairs_fit = (0..members).all(|i| {
+            (i + 1..members).all(|j| {
+                let (ai, aj) = (stored.correct[i], stored.correct[j]);
+                let both = stored.both_correct[i * members + j];
+                both <= ai.min(aj) && ai + aj - both <= n && stored.same_label[i * members + j] <= n
+            })
+        });
+        let tally_fits = stored.tally.iter().try_fold(0u64, |t, &c| t.checked_add(c)) == Some(n);
+        if stored.correct.iter().any(|&a| a > n) || !pairs_fit || !tally_fits {
+            return Err(bad("counts are inconsistent"));
+        }
+        Ok(DiversityState {
+            members,
+            n_classes,
+            n_points: stored.n_points,
+            correct: stored.correct,
+            both_correct: stored.both_correct,
+            same_label: stored.same_label,
+            class_counts: stored.class_counts,
+            tally: stored.tally,
+        })
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1082,5 +1165,45 @@ mod tests {
         assert_eq!(200u8.index(), 200);
         assert_eq!(<u16 as Code>::of(60_000).index(), 60_000);
         assert_eq!(<u32 as Code>::of(1_000_000).index(), 1_000_000);
+    }
+}
+
+#[cfg(test)]
+mod stored_tests {
+    use super::*;
+    use crate::parallel::Silent;
+    use ndarray::array;
+
+    fn state() -> DiversityState {
+        let labels = array![[0i64, 1, 0, 0], [0, 0, 0, 1], [1, 1, 1, 1]];
+        let y = array![0i64, 1, 0, 1];
+        let mut state = DiversityState::new(3, 2).unwrap();
+        let p = Predictions::<f64>::Labels(labels.view());
+        state.update(p, y.view(), &Pool::Global, &Silent).unwrap();
+        state
+    }
+
+    #[test]
+    fn bytes_round_trip_exactly() {
+        let state = state();
+        assert_eq!(
+            DiversityState::from_bytes(&state.to_bytes()).unwrap(),
+            state
+        );
+    }
+
+    #[test]
+    fn corrupt_bytes_name_data() {
+        let bytes = state().to_bytes();
+        let mut inconsistent = state();
+        inconsistent.correct[0] = 99; // more points right than points
+        for bad in [
+            bytes[..bytes.len() - 1].to_vec(),
+            vec![9, 0, 0],
+            inconsistent.to_bytes(),
+        ] {
+            let err = DiversityState::from_bytes(&bad).unwrap_err();
+            assert!(err.to_string().starts_with("`data`"), "{err}");
+        }
     }
 }

@@ -34,6 +34,7 @@
 //! chunk by chunk merge to the in-memory result up to ~1e-15 relative.
 
 use ndarray::{s, ArrayView1, ArrayView2, ArrayView3};
+use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::members::{for_chunks, vote, Chunks};
@@ -1157,6 +1158,137 @@ fn evaluate_classes(
     e
 }
 
+/// The losses of an [`OutOfBagPartial`] at every curve size, one array per loss of its task
+/// (the other task's losses are `None`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct LossCurves {
+    /// Points with at least one OOB member among the first k members, per curve size.
+    pub n_covered: Vec<u64>,
+    /// Regression: weighted mean squared error per curve size.
+    pub squared_error: Option<Vec<f64>>,
+    /// Regression: weighted mean absolute error per curve size.
+    pub absolute_error: Option<Vec<f64>>,
+    /// Classification: weighted share misclassified per curve size.
+    pub error_rate: Option<Vec<f64>>,
+    /// Classification: multi-class Brier score per curve size.
+    pub brier_score: Option<Vec<f64>>,
+    /// Classification: log loss per curve size.
+    pub log_loss: Option<Vec<f64>>,
+}
+
+/// The stored form of an [`OutOfBagPartial`] (postcard bytes), versioned.
+#[derive(Serialize, Deserialize)]
+struct StoredPartial {
+    version: u32,
+    /// 0 for regression, else the number of classes.
+    n_classes: u64,
+    members: u64,
+    sizes: Vec<u64>,
+    points: u64,
+    /// Per curve size: covered, then (total, carry) of the six sums in field order.
+    curve: Vec<(u64, [(f64, f64); 6])>,
+}
+
+const STORED_PARTIAL_VERSION: u32 = 1;
+
+impl OutOfBagPartial {
+    /// The losses of the task at every curve size.
+    ///
+    /// ```text
+    /// loss(k) = Σ w_i e_i(k) / Σ w_i over the points covered by the first k members
+    /// (NaN when no point is covered; the formulas are in the module documentation)
+    /// ```
+    pub fn losses(&self) -> LossCurves {
+        let of = |f: fn(&ErrorSums) -> f64, of_task: bool| {
+            of_task.then(|| self.curve.iter().map(f).collect())
+        };
+        let r = matches!(self.task, Task::Regression);
+        LossCurves {
+            n_covered: self.curve.iter().map(|e| e.covered).collect(),
+            squared_error: of(ErrorSums::squared_error, r),
+            absolute_error: of(ErrorSums::absolute_error, r),
+            error_rate: of(ErrorSums::error_rate, !r),
+            brier_score: of(ErrorSums::brier_score, !r),
+            log_loss: of(ErrorSums::log_loss, !r),
+        }
+    }
+
+    /// Serialises to compact bytes (for pickling).
+    pub fn to_bytes(&self) -> Vec<u8> {
+        let pair = |s: &Sum| (s.total, s.carry);
+        let stored = StoredPartial {
+            version: STORED_PARTIAL_VERSION,
+            n_classes: match self.task {
+                Task::Regression => 0,
+                Task::Classification { n_classes } => n_classes as u64,
+            },
+            members: self.members as u64,
+            sizes: self.sizes.iter().map(|&k| k as u64).collect(),
+            points: self.points,
+            curve: self
+                .curve
+                .iter()
+                .map(|e| {
+                    let sums = [&e.weight, &e.squared, &e.absolute, &e.wrong, &e.brier];
+                    let mut out = [(0.0, 0.0); 6];
+                    for (o, s) in out.iter_mut().zip(sums.into_iter().chain([&e.log_loss])) {
+                        *o = pair(s);
+                    }
+                    (e.covered, out)
+                })
+                .collect(),
+        };
+        postcard::to_allocvec(&stored).expect("serialising plain data cannot fail")
+    }
+
+    /// Restores from [`to_bytes`](OutOfBagPartial::to_bytes) output.
+    ///
+    /// # Errors
+    /// `data` if the bytes are truncated, corrupt, inconsistent or from another version.
+    pub fn from_bytes(data: &[u8]) -> Result<Self> {
+        let bad = |why: &str| Error::value("data", format!("not a stored out-of-bag state: {why}"));
+        let stored: StoredPartial = postcard::from_bytes(data).map_err(|e| bad(&e.to_string()))?;
+        if stored.version != STORED_PARTIAL_VERSION {
+            return Err(bad(&format!(
+                "version {} is not {STORED_PARTIAL_VERSION}",
+                stored.version
+            )));
+        }
+        let size = |v: u64| usize::try_from(v).map_err(|_| bad("size out of range"));
+        let task = match size(stored.n_classes)? {
+            0 => Task::Regression,
+            n_classes => Task::Classification { n_classes },
+        };
+        let sizes = stored
+            .sizes
+            .into_iter()
+            .map(size)
+            .collect::<Result<Vec<_>>>()?;
+        let mut state =
+            OutOfBagPartial::new(task, size(stored.members)?, &sizes).map_err(|_| bad("sizes"))?;
+        if stored.curve.len() != sizes.len() {
+            return Err(bad("curve length does not match the sizes"));
+        }
+        let sum = |(total, carry): (f64, f64)| Sum { total, carry };
+        for (e, (covered, s)) in state.curve.iter_mut().zip(stored.curve) {
+            if covered > stored.points {
+                return Err(bad("more covered points than points"));
+            }
+            *e = ErrorSums {
+                covered,
+                weight: sum(s[0]),
+                squared: sum(s[1]),
+                absolute: sum(s[2]),
+                wrong: sum(s[3]),
+                brier: sum(s[4]),
+                log_loss: sum(s[5]),
+            };
+        }
+        state.points = stored.points;
+        Ok(state)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1603,5 +1735,72 @@ mod tests {
         let mut backward = Sum::default();
         values.iter().rev().for_each(|&v| backward.add(v));
         assert_eq!(forward.value(), backward.value());
+    }
+}
+
+#[cfg(test)]
+mod stored_tests {
+    use super::*;
+    use crate::parallel::Silent;
+    use ndarray::Array2;
+
+    fn regression_state() -> OutOfBagPartial {
+        let t = Array2::from_shape_fn((4, 9), |(i, j)| (i * 3 + j) as f64 * 0.5);
+        let c = Array2::from_shape_fn((4, 9), |(i, j)| ((i + j) % 3) as u8);
+        let y: Vec<f64> = (0..9).map(|j| j as f64).collect();
+        let (mut prediction, mut n_oob) = (vec![0.0; 9], vec![0; 9]);
+        let out = PointOutputs {
+            prediction: &mut prediction,
+            n_out_of_bag: &mut n_oob,
+            probabilities: &mut [],
+        };
+        let (values, counts) = (Values(t.view()), c.view());
+        let y = ArrayView1::from(&y);
+        out_of_bag(
+            &values,
+            &counts,
+            y,
+            None,
+            &[1, 2, 4],
+            out,
+            &Pool::Global,
+            &Silent,
+        )
+        .unwrap()
+    }
+
+    #[test]
+    fn bytes_round_trip_exactly() {
+        let state = regression_state();
+        let back = OutOfBagPartial::from_bytes(&state.to_bytes()).unwrap();
+        assert_eq!(back, state);
+        let labels = OutOfBagPartial::new(Task::Classification { n_classes: 3 }, 2, &[2]).unwrap();
+        assert_eq!(
+            OutOfBagPartial::from_bytes(&labels.to_bytes()).unwrap(),
+            labels
+        );
+    }
+
+    #[test]
+    fn corrupt_bytes_name_data() {
+        let bytes = regression_state().to_bytes();
+        for bad in [&bytes[..bytes.len() - 1], &[7u8, 0, 0][..], &[][..]] {
+            let err = OutOfBagPartial::from_bytes(bad).unwrap_err();
+            assert!(err.to_string().starts_with("`data`"), "{err}");
+        }
+    }
+
+    #[test]
+    fn losses_are_the_task_losses_at_every_size() {
+        let state = regression_state();
+        let losses = state.losses();
+        let sums = state.curve();
+        assert_eq!(
+            losses.n_covered,
+            sums.iter().map(|e| e.covered).collect::<Vec<_>>()
+        );
+        let squared: Vec<f64> = sums.iter().map(ErrorSums::squared_error).collect();
+        assert_eq!(losses.squared_error, Some(squared));
+        assert!(losses.error_rate.is_none() && losses.log_loss.is_none());
     }
 }

@@ -19,8 +19,8 @@ from statsmodels.stats.inter_rater import fleiss_kappa
 
 import bagwise
 
-PAIRWISE = ("yule_q", "correlation", "disagreement", "double_fault", "kappa")
-SCALARS = ("mean_yule_q", "mean_correlation", "mean_disagreement", "mean_double_fault",
+PAIRWISE = ("yule_q", "correct_correlation", "disagreement", "double_fault", "kappa")
+SCALARS = ("mean_yule_q", "mean_correct_correlation", "mean_disagreement", "mean_double_fault",
            "mean_kappa", "entropy", "kohavi_wolpert", "interrater_kappa", "difficulty",
            "generalized_diversity", "coincident_failure")
 
@@ -74,10 +74,10 @@ def reference_pairwise(labels, y, n_classes):
         shares = onehot.mean(axis=1)                                # M x K
         theta2 = shares @ shares.T
         kappa = (theta1 - theta2) / (1 - theta2)
-    out = {"yule_q": q, "correlation": rho, "disagreement": (n01 + n10) / n,
+    out = {"yule_q": q, "correct_correlation": rho, "disagreement": (n01 + n10) / n,
            "double_fault": n00 / n, "kappa": kappa}
     error = 1 - (labels == y).mean(axis=1)
-    for name, diagonal in (("yule_q", 1.0), ("correlation", 1.0), ("kappa", 1.0),
+    for name, diagonal in (("yule_q", 1.0), ("correct_correlation", 1.0), ("kappa", 1.0),
                            ("disagreement", 0.0), ("double_fault", error)):
         np.fill_diagonal(out[name], diagonal)
     return out
@@ -113,7 +113,7 @@ def assert_same(a, b):
     for name in SCALARS:
         x, y = getattr(a, name), getattr(b, name)
         assert x == y or (math.isnan(x) and math.isnan(y)), name
-    assert (a.members, a.n_points) == (b.members, b.n_points)
+    assert (a.n_members, a.n_points) == (b.n_members, b.n_points)
 
 
 CASES = [pytest.param(lambda s=s: random_labels(seed=s) + (3,), id=f"random-seed{s}")
@@ -133,7 +133,7 @@ def test_pair_tables_equal_numpy_counts(case):
     got_n00 = np.rint(d.double_fault * n).astype(np.int64)
     got_n11 = n - got_n00 - np.rint(d.disagreement * n).astype(np.int64)
     got_n10 = np.rint(d.accuracy * n).astype(np.int64)[:, None] - got_n11
-    off = ~np.eye(d.members, dtype=bool)
+    off = ~np.eye(d.n_members, dtype=bool)
     np.testing.assert_array_equal(got_n00[off], n00[off])
     np.testing.assert_array_equal(got_n11[off], n11[off])
     np.testing.assert_array_equal(got_n10[off], n10[off])
@@ -151,10 +151,10 @@ def test_pairwise_measures_equal_numpy_definitions(case):
         # Kuncheva & Whitaker 2003 (from memory), straightforward numpy above
         np.testing.assert_allclose(getattr(d, name), ref[name], rtol=1e-12, atol=1e-14,
                                    err_msg=name)
-        upper = ref[name][np.triu_indices(d.members, 1)]
+        upper = ref[name][np.triu_indices(d.n_members, 1)]
         assert getattr(d, f"mean_{name}") == pytest.approx(np.nanmean(upper), rel=1e-12, abs=1e-15)
     # redundancy: a member's mean disagreement with the others (common practice)
-    np.testing.assert_allclose(d.redundancy, ref["disagreement"].sum(axis=1) / (d.members - 1),
+    np.testing.assert_allclose(d.redundancy, ref["disagreement"].sum(axis=1) / (d.n_members - 1),
                                rtol=1e-12)
 
 
@@ -162,8 +162,8 @@ def test_pairwise_measures_equal_numpy_definitions(case):
 def test_kappa_equals_sklearn_cohen_kappa_for_every_pair(case):
     labels, y, k = case()
     d = bagwise.diversity(labels, y, n_classes=k)
-    for i in range(d.members):
-        for j in range(i + 1, d.members):
+    for i in range(d.n_members):
+        for j in range(i + 1, d.n_members):
             # reference: sklearn.metrics.cohen_kappa_score (Cohen 1960)
             expected = cohen_kappa_score(labels[i], labels[j])
             assert d.kappa[i, j] == pytest.approx(expected, rel=1e-12, abs=1e-14)
@@ -171,13 +171,13 @@ def test_kappa_equals_sklearn_cohen_kappa_for_every_pair(case):
 
 
 @pytest.mark.parametrize("case", CASES)
-def test_correlation_is_the_phi_coefficient_of_the_correct_vectors(case):
+def test_correct_correlation_is_the_phi_coefficient_of_the_correct_vectors(case):
     labels, y, k = case()
     d = bagwise.diversity(labels, y, n_classes=k)
     # reference: numpy.corrcoef of the 0/1 correct vectors (Pearson's r of two binary
     # variables is the phi coefficient of their 2x2 table)
     expected = np.corrcoef((labels == y).astype(np.float64))
-    np.testing.assert_allclose(d.correlation, expected, rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(d.correct_correlation, expected, rtol=1e-12, atol=1e-14)
 
 
 # -- non-pairwise measures ------------------------------------------------------------------
@@ -192,14 +192,14 @@ def test_non_pairwise_measures_equal_numpy_definitions(case):
         # Kuncheva & Whitaker 2003 (from memory), straightforward numpy above
         assert getattr(d, name) == pytest.approx(ref[name], rel=1e-12, abs=1e-15), name
     np.testing.assert_array_equal(d.correct_tally, ref["correct_tally"])
-    assert d.correct_tally.dtype == np.int64 and d.correct_tally.shape == (d.members + 1,)
+    assert d.correct_tally.dtype == np.int64 and d.correct_tally.shape == (d.n_members + 1,)
 
 
 @pytest.mark.parametrize("case", CASES)
 def test_interrater_kappa_equals_statsmodels_fleiss_kappa(case):
     labels, y, k = case()
     d = bagwise.diversity(labels, y, n_classes=k)
-    m = d.members
+    m = d.n_members
     correct = (labels == y).sum(axis=0)
     table = np.column_stack([correct, m - correct])
     # Fleiss' kappa with the two categories right/wrong and M raters per point:
@@ -217,7 +217,7 @@ def test_interrater_kappa_equals_statsmodels_fleiss_kappa(case):
 def test_identities_between_measures(case):
     labels, y, k = case()
     d = bagwise.diversity(labels, y, n_classes=k)
-    m = d.members
+    m = d.n_members
     pbar = float(np.mean(d.accuracy))
     # Kuncheva & Whitaker 2003 (from memory). At a point with l members right, l (M - l)
     # pairs i < j have one member right and one wrong, so
@@ -237,7 +237,7 @@ def test_hand_computed_example():
     # pair (0, 1): N11 = 2, N10 = N01 = 1, N00 = 0 -> Q = -1, rho = -1/3; labels agree at
     # 2 of 4 points, chance agreement (3*3 + 1*1)/16 -> kappa = (1/2 - 5/8)/(3/8) = -1/3
     assert d.yule_q[0, 1] == -1.0
-    assert d.correlation[0, 1] == pytest.approx(-1 / 3, rel=1e-15)
+    assert d.correct_correlation[0, 1] == pytest.approx(-1 / 3, rel=1e-15)
     assert d.kappa[0, 1] == pytest.approx(-1 / 3, rel=1e-15)
     assert d.double_fault[2, 2] == 0.5
     np.testing.assert_array_equal(d.correct_tally, [0, 0, 4, 0])
@@ -252,9 +252,44 @@ def test_stream_over_chunks_and_memory_map_equals_in_memory(tmp_path):
     mapped = np.load(tmp_path / "members.npy", mmap_mode="r")
     stream = bagwise.diversity_stream(n_classes=3)
     for start, stop in [(0, 1), (1, 4096), (4096, 4097), (4097, 10_000)]:
-        assert stream.add(mapped[:, start:stop], y[start:stop]) is stream
+        assert stream.update(mapped[:, start:stop], y[start:stop]) is stream
     # common practice: integer counts merge exactly, so chunked = in memory to the last bit
     assert_same(stream.result(), whole)
+
+
+def test_stream_merge_of_two_halves_equals_the_whole_and_pickles():
+    labels, y = random_labels(members=6, n=2_000, seed=10)
+    whole = bagwise.diversity(labels, y, n_classes=3)
+    first = bagwise.diversity_stream(n_classes=3).update(labels[:, :700], y[:700])
+    second = bagwise.diversity_stream(n_classes=3).update(labels[:, 700:], y[700:])
+    second = pickle.loads(pickle.dumps(second))
+    assert first.merge(second) is first
+    # common practice: integer counts add exactly, so the merge equals the whole bit for bit
+    assert_same(first.result(), whole)
+    resumed = pickle.loads(pickle.dumps(bagwise.diversity_stream(n_classes=3).update(
+        labels[:, :700], y[:700])))
+    assert_same(resumed.update(labels[:, 700:], y[700:]).result(), whole)
+    assert_same(bagwise.diversity_stream(n_classes=3).merge(first).result(), whole)
+    assert first.merge(bagwise.diversity_stream(n_classes=3)) is first
+    assert "6 members" in repr(first)
+    with pytest.raises(ValueError, match=r"^`other`: has 2 classes"):
+        first.merge(bagwise.diversity_stream(n_classes=2))
+    with pytest.raises(ValueError, match=r"^`other`: has 3 members"):
+        first.merge(bagwise.diversity_stream(n_classes=3).update(labels[:3], y))
+    with pytest.raises(TypeError, match=r"^`other`"):
+        first.merge(None)
+
+
+def test_core_state_rejects_corrupt_bytes():
+    labels, y = random_labels(members=4, n=100, seed=11)
+    state = bagwise._core.DiversityAccumulator(4, 3)
+    state.update(labels, y)
+    data = state.to_bytes()
+    assert bagwise._core.DiversityAccumulator.from_bytes(data).n_points == 100
+    with pytest.raises(ValueError, match=r"^`data`"):
+        bagwise._core.DiversityAccumulator.from_bytes(data[:-2])
+    with pytest.raises(ValueError, match=r"^`data`"):
+        bagwise._core.DiversityAccumulator.from_bytes(b"\x09" + data[1:])
 
 
 def test_thread_count_does_not_change_the_result():
@@ -304,7 +339,7 @@ def test_classification_bag_diversity_equals_the_function_on_its_member_labels()
     # member labels: argmax of every member's class probabilities (numpy.argmax)
     labels = np.argmax(bag.member_predictions(X_test), axis=2)
     assert_same(d, bagwise.diversity(labels, y_test, n_classes=2))
-    assert d.members == 15 and d.n_points == y_test.size
+    assert d.n_members == 15 and d.n_points == y_test.size
 
 
 # -- undefined measures and bad input ---------------------------------------------------------
@@ -312,7 +347,7 @@ def test_classification_bag_diversity_equals_the_function_on_its_member_labels()
 def test_members_always_right_give_nan_with_warnings():
     y = np.array([0, 1, 2, 1, 0])
     members = np.stack([y, y])
-    with pytest.warns(RuntimeWarning) as record:
+    with pytest.warns(bagwise.BagwiseWarning) as record:
         d = bagwise.diversity(members, y)
     messages = " | ".join(str(w.message) for w in record)
     for measure in ("Yule's Q", "correlation", "interrater agreement kappa",
@@ -321,7 +356,7 @@ def test_members_always_right_give_nan_with_warnings():
     assert len(record) == 4
     # N11 N00 + N01 N10 = 5*0 + 0*0 = 0: Q undefined by its definition (Kuncheva & Whitaker 2003)
     assert math.isnan(d.yule_q[0, 1]) and math.isnan(d.mean_yule_q)
-    assert math.isnan(d.correlation[0, 1]) and math.isnan(d.interrater_kappa)
+    assert math.isnan(d.correct_correlation[0, 1]) and math.isnan(d.interrater_kappa)
     assert math.isnan(d.generalized_diversity)
     # identical labels: Cohen's kappa is 1 (reference: sklearn.metrics.cohen_kappa_score)
     assert d.kappa[0, 1] == pytest.approx(cohen_kappa_score(y, y))
@@ -334,12 +369,12 @@ def test_undefined_pairs_are_left_out_of_the_mean():
     y = rng.integers(0, 2, size=200)
     members = np.where(rng.random(size=(4, 200)) < 0.7, y, 1 - y)
     members[3] = y                                       # member 3 is always right
-    with pytest.warns(RuntimeWarning) as record:
+    with pytest.warns(bagwise.BagwiseWarning) as record:
         d = bagwise.diversity(members, y)
     messages = sorted(str(w.message) for w in record)
     assert len(messages) == 2
     assert "Yule's Q is undefined" in messages[0] and "for 3 of 6 pairs" in messages[0]
-    assert "the correlation is undefined" in messages[1] and "for 3 of 6 pairs" in messages[1]
+    assert "the correct correlation is undefined" in messages[1] and "for 3 of 6 pairs" in messages[1]
     ref = reference_pairwise(members, y, 2)["yule_q"]
     upper = ref[np.triu_indices(4, 1)]
     assert np.isnan(upper).sum() == 3
@@ -389,12 +424,12 @@ def test_stream_checks_its_chunks():
     stream = bagwise.diversity_stream(n_classes=2)
     with pytest.raises(ValueError, match=r"^`members`: no points"):
         stream.result()
-    stream.add(np.zeros((3, 4), dtype=int), np.zeros(4, dtype=int))
+    stream.update(np.zeros((3, 4), dtype=int), np.zeros(4, dtype=int))
     with pytest.raises(ValueError, match=r"^`members`: this chunk has 2 members"):
-        stream.add(np.zeros((2, 4), dtype=int), np.zeros(4, dtype=int))
+        stream.update(np.zeros((2, 4), dtype=int), np.zeros(4, dtype=int))
     with pytest.raises(ValueError, match=r"^`members`: .*class indices"):
-        stream.add(np.full((3, 4), 2), np.zeros(4, dtype=int))
-    with pytest.warns(RuntimeWarning):                   # every member always right
+        stream.update(np.full((3, 4), 2), np.zeros(4, dtype=int))
+    with pytest.warns(bagwise.BagwiseWarning):                   # every member always right
         assert stream.result().n_points == 4             # failed chunks added nothing
     with pytest.raises(TypeError, match=r"^`n_classes`"):
         bagwise.diversity_stream(n_classes=None)
@@ -417,7 +452,7 @@ def test_redundant_pairs_summary_frame_and_display():
     assert len(d.redundant_pairs()) == 10
     summary = d.summary()
     json.dumps(summary)
-    assert summary["kohavi_wolpert"] == d.kohavi_wolpert and summary["members"] == 5
+    assert summary["kohavi_wolpert"] == d.kohavi_wolpert and summary["n_members"] == 5
     frame = d.to_frame()
     assert list(frame.columns) == ["member_a", "member_b", *PAIRWISE]
     assert len(frame) == 10

@@ -37,11 +37,11 @@ def test_out_of_bag_equals_the_function_on_the_same_arrays():
     raw = bag.out_of_bag_predictions()
     direct = bagwise.out_of_bag(_fill_in_bag(raw, bag.in_bag_), bag.in_bag_, y)
     np.testing.assert_array_equal(oob.prediction, direct.prediction)
-    assert oob.error == direct.error
+    assert oob.ensemble_loss == direct.ensemble_loss
     # independent numpy: mean over the members that left the row out (Breiman 1996)
     expected = np.nanmean(np.where(bag.in_bag_ == 0, raw, np.nan), axis=0)
     np.testing.assert_allclose(oob.prediction, expected, rtol=1e-12)
-    assert bag.out_of_bag("absolute_error").error == pytest.approx(oob.absolute_error)
+    assert bag.out_of_bag("absolute_error").ensemble_loss == pytest.approx(oob.absolute_error)
 
 
 def test_classification_out_of_bag_uses_probabilities_and_class_codes():
@@ -53,9 +53,9 @@ def test_classification_out_of_bag_uses_probabilities_and_class_codes():
     codes = np.searchsorted(bag.classes_, labels)
     raw = bag.out_of_bag_predictions()
     direct = bagwise.out_of_bag(_fill_in_bag(raw, bag.in_bag_), bag.in_bag_, codes,
-                                metric="brier_score")
+                                loss="brier_score")
     np.testing.assert_array_equal(oob.probabilities, direct.probabilities)
-    assert oob.error == direct.error and oob.error_rate == direct.error_rate
+    assert oob.ensemble_loss == direct.ensemble_loss and oob.error_rate == direct.error_rate
 
 
 def test_prediction_variance_and_spread_reuse_the_count_gram():
@@ -108,7 +108,7 @@ def test_native_bag_after_save_and_load_rebuilds_the_gram(tmp_path):
     # a loaded bag keeps no training rows: out_of_bag needs them given back
     with pytest.raises(ValueError, match="`X`"):
         loaded.out_of_bag()
-    assert loaded.out_of_bag(X=X[:200], y=y[:200]).error == bag.out_of_bag().error
+    assert loaded.out_of_bag(X=X[:200], y=y[:200]).ensemble_loss == bag.out_of_bag().ensemble_loss
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = loaded.diagnose(X[200:], y[200:])
@@ -145,7 +145,7 @@ def test_diagnose_labels_and_unknown_classes():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = bag.diagnose(X[400:], labels[400:])
-    assert report.out_of_bag.error == bag.out_of_bag().error
+    assert report.out_of_bag.ensemble_loss == bag.out_of_bag().ensemble_loss
     # ensemble Brier of the soft vote at the test points (numpy, one-hot targets)
     proba = bag.predict_proba(X[400:])
     onehot = np.eye(2)[np.searchsorted(bag.classes_, labels[400:])]
@@ -271,6 +271,6 @@ def test_native_classifier_out_of_bag_and_a_test_set_as_large_as_the_training_se
         warnings.simplefilter("ignore")
         report = bag.diagnose(X[280:560], y[280:560])
     assert report.decomposition.n_points == 280
-    assert report.out_of_bag.error == oob.error
+    assert report.out_of_bag.ensemble_loss == oob.ensemble_loss
     assert report.out_of_bag.error_rate == pytest.approx(
         np.mean(oob.probabilities.argmax(axis=1) != y[:280]), abs=0)

@@ -24,7 +24,7 @@ def test_members_equal_weighted_sklearn_fits(penalty):
     # sklearn.linear_model.Ridge(alpha=λ) and, for λ = 0, LinearRegression, both with
     # sample_weight=c (the member's in-bag counts).
     x, y = _data()
-    counts = bagwise.resample(len(y), 6, seed=4).counts
+    counts = bagwise.resample(len(y), 6, rng=4).counts
     fit = _core.LinearEnsemble.fit(x, y, counts, penalty=penalty)
     assert fit.n_members == 6 and fit.n_features == 4 and fit.n_classes is None
     for m in range(6):
@@ -42,7 +42,7 @@ def test_counts_as_weights_equal_the_materialised_resample():
     # Bootstrap semantics (Efron 1979): a row drawn c times weighs c; the fit on the
     # repeated rows (np.repeat) is the same least squares problem (sklearn LinearRegression).
     x, y = _data(80, 3, seed=2)
-    counts = bagwise.resample(80, 3, seed=8).counts
+    counts = bagwise.resample(80, 3, rng=8).counts
     fit = _core.LinearEnsemble.fit(x, y, counts)
     for m in range(3):
         rows = np.repeat(np.arange(80), counts[m])
@@ -54,7 +54,7 @@ def test_large_offsets_stay_accurate():
     # Centring and scaling before the normal equations (Golub & Van Loan 2013, §5.3):
     # features around 1e6 with unit spread still match sklearn LinearRegression (lstsq).
     x, y = _data(200, 3, seed=5, offset=1e6)
-    counts = bagwise.resample(200, 2, seed=1).counts
+    counts = bagwise.resample(200, 2, rng=1).counts
     fit = _core.LinearEnsemble.fit(x, y, counts)
     for m in range(2):
         ref = LinearRegression().fit(x, y, sample_weight=counts[m].astype(float))
@@ -65,7 +65,7 @@ def test_large_offsets_stay_accurate():
 def test_bayesian_weights_are_accepted():
     # Continuous weights (Rubin 1981) against sklearn LinearRegression(sample_weight=w).
     x, y = _data(60, 2, seed=3)
-    weights = bagwise.resample(60, 3, scheme="bayesian", seed=2).weights
+    weights = bagwise.resample(60, 3, scheme="bayesian", rng=2).row_weights
     fit = _core.LinearEnsemble.fit(x, y, weights)
     for m in range(3):
         ref = LinearRegression().fit(x, y, sample_weight=weights[m])
@@ -74,7 +74,7 @@ def test_bayesian_weights_are_accepted():
 
 def test_float32_and_strided_input_and_threads():
     x, y = _data(300, 5, seed=6)
-    counts = bagwise.resample(300, 8, seed=3).counts
+    counts = bagwise.resample(300, 8, rng=3).counts
     base = _core.LinearEnsemble.fit(x, y, counts, n_jobs=1)
     two = _core.LinearEnsemble.fit(x, y, counts, n_jobs=2)
     np.testing.assert_array_equal(base.coefficients, two.coefficients)
@@ -95,7 +95,7 @@ def test_float32_and_strided_input_and_threads():
 
 def test_out_of_bag_predictions_are_nan_in_bag():
     x, y = _data(50, 2, seed=7)
-    counts = bagwise.resample(50, 5, seed=5).counts
+    counts = bagwise.resample(50, 5, rng=5).counts
     fit = _core.LinearEnsemble.fit(x, y, counts)
     oob = fit.out_of_bag_predictions(x, counts)
     full = fit.member_predictions(x)

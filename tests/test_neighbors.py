@@ -27,7 +27,7 @@ def test_regression_members_equal_sklearn_on_repeated_rows(k):
     # np.repeat) against sklearn.neighbors.KNeighborsRegressor (uniform weights).
     x, y = _data()
     xt = _data(40, seed=7)[0]
-    counts = bagwise.resample(len(y), 5, seed=3).counts
+    counts = bagwise.resample(len(y), 5, rng=3).counts
     fit = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", neighbors=k)
     got = fit.member_predictions(xt)
     assert got.shape == (5, 40)
@@ -43,7 +43,7 @@ def test_classification_members_equal_sklearn_on_repeated_rows():
     # its columns are the member's own classes, mapped to all classes here.
     x, y = _data(200, classes=3, seed=1)
     xt = _data(50, seed=8)[0]
-    counts = bagwise.resample(200, 4, scheme="subsample", fraction=0.5, seed=6).counts
+    counts = bagwise.resample(200, 4, scheme="subsample", fraction=0.5, rng=6).counts
     fit = _core.NeighborsEnsemble.fit(x, y.astype(np.int64), counts, task="classification",
                                       n_classes=3, neighbors=6)
     got = fit.member_predictions(xt)
@@ -75,7 +75,7 @@ def test_out_of_bag_predictions_equal_refits_without_the_row():
     # A member's out-of-bag prediction at training row i is its prediction at x_i
     # (sklearn KNeighborsRegressor on the member's repeated rows); in-bag rows are NaN.
     x, y = _data(80, seed=2)
-    counts = bagwise.resample(80, 4, seed=9).counts
+    counts = bagwise.resample(80, 4, rng=9).counts
     fit = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", neighbors=3)
     oob = fit.out_of_bag_predictions(x, counts)
     assert np.array_equal(np.isnan(oob), counts > 0)
@@ -88,7 +88,7 @@ def test_out_of_bag_predictions_equal_refits_without_the_row():
 
 def test_threads_float32_and_strides_do_not_change_results():
     x, y = _data(300, seed=4)
-    counts = bagwise.resample(300, 6, seed=1).counts
+    counts = bagwise.resample(300, 6, rng=1).counts
     fit = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", n_jobs=1)
     other = _core.NeighborsEnsemble.fit(x, y, counts, task="regression", n_jobs=2)
     a = fit.member_predictions(x, n_jobs=1)

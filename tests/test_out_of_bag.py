@@ -5,6 +5,8 @@ bad input."""
 
 from __future__ import annotations
 
+import pickle
+
 import numpy as np
 import pytest
 import sklearn.datasets
@@ -58,7 +60,7 @@ def reference(members, counts, y, kind, weights=None, k=None):
 def draw_counts(n, m, seed):
     """Bootstrap counts where every point is out of bag for at least one member (small
     ensembles would otherwise leave a few points uncovered, which has its own tests)."""
-    counts = bagwise.resample(n, m, seed=seed).counts.copy()
+    counts = bagwise.resample(n, m, rng=seed).counts.copy()
     uncovered = np.flatnonzero((counts == 0).sum(axis=0) == 0)
     counts[np.arange(len(uncovered)) % m, uncovered] = 0
     return counts
@@ -94,15 +96,15 @@ def test_regression_matches_numpy_reference_and_sklearn_metrics():
     np.testing.assert_array_equal(oob.n_out_of_bag, ref["n_oob"])
     assert oob.squared_error == pytest.approx(ref["squared_error"], rel=1e-12)
     assert oob.absolute_error == pytest.approx(ref["absolute_error"], rel=1e-12)
-    assert oob.error == oob.squared_error and oob.metric == "squared_error"
+    assert oob.ensemble_loss == oob.squared_error and oob.loss == "squared_error"
     # sklearn.metrics.mean_squared_error / mean_absolute_error on the OOB predictions
     assert oob.squared_error == pytest.approx(sklearn.metrics.mean_squared_error(y, oob.prediction),
                                               rel=1e-12)
     assert oob.absolute_error == pytest.approx(
         sklearn.metrics.mean_absolute_error(y, oob.prediction), rel=1e-12)
     assert oob.error_rate is None and oob.task == "regression"
-    absolute = bagwise.out_of_bag(members, counts, y, metric="absolute_error")
-    assert absolute.error == oob.absolute_error
+    absolute = bagwise.out_of_bag(members, counts, y, loss="absolute_error")
+    assert absolute.ensemble_loss == oob.absolute_error
 
 
 def test_weights_enter_every_mean():
@@ -118,16 +120,16 @@ def test_weights_enter_every_mean():
 
 def test_zero_weights_give_nan_with_a_warning():
     members, counts, y = regression_data(n=100, m=20, seed=22)
-    with pytest.warns(RuntimeWarning, match="`point_weights`: .* sum to zero"):
+    with pytest.warns(bagwise.BagwiseWarning, match="`point_weights`: .* sum to zero"):
         oob = bagwise.out_of_bag(members, counts, y, point_weights=np.zeros(100))
-    assert np.isnan(oob.error) and np.isfinite(oob.prediction).all()
+    assert np.isnan(oob.ensemble_loss) and np.isfinite(oob.prediction).all()
 
 
 def test_probabilities_match_numpy_and_sklearn_metrics():
     probs, counts, y = probability_data()
     oob = bagwise.out_of_bag(probs, counts, y)
     ref = reference(probs, counts, y, "probabilities")
-    assert oob.kind == "probabilities" and oob.metric == "error_rate"
+    assert oob.kind == "probabilities" and oob.loss == "error_rate"
     np.testing.assert_allclose(oob.probabilities, ref["probabilities"], rtol=1e-13)
     np.testing.assert_array_equal(oob.prediction, ref["prediction"])
     for name in ("error_rate", "brier_score", "log_loss"):
@@ -143,8 +145,8 @@ def test_binary_brier_is_twice_sklearns():
     # sklearn.metrics.brier_score_loss (binary) = mean (p1 - y)^2; the multi-class form
     # sum_c (p_c - [y = c])^2 counts the same deviation twice (Brier 1950).
     probs, counts, y = probability_data(c=2, seed=4)
-    oob = bagwise.out_of_bag(probs, counts, y, metric="brier_score")
-    assert oob.error == oob.brier_score
+    oob = bagwise.out_of_bag(probs, counts, y, loss="brier_score")
+    assert oob.ensemble_loss == oob.brier_score
     sk = sklearn.metrics.brier_score_loss(y, oob.probabilities[:, 1])
     assert oob.brier_score == pytest.approx(2 * sk, rel=1e-12)
 
@@ -167,8 +169,8 @@ def test_labels_match_numpy_reference_including_log_loss_floor():
     n, m = 800, 25
     y = rng.integers(0, 3, size=n)
     members = np.where(rng.random((m, n)) < 0.6, y, rng.integers(0, 3, size=(m, n))).astype(np.int16)
-    counts = bagwise.resample(n, m, seed=5).counts
-    oob = bagwise.out_of_bag(members, counts, y, metric="log_loss")
+    counts = bagwise.resample(n, m, rng=5).counts
+    oob = bagwise.out_of_bag(members, counts, y, loss="log_loss")
     ref = reference(members, counts, y, "labels")   # straightforward numpy (reference above)
     np.testing.assert_allclose(oob.probabilities, ref["probabilities"], rtol=1e-15)
     np.testing.assert_array_equal(oob.prediction, ref["prediction"])
@@ -180,14 +182,14 @@ def test_labels_match_numpy_reference_including_log_loss_floor():
 
 def test_curve_matches_reference_over_the_first_k_members():
     members, counts, y = regression_data(n=300, m=60, seed=6)
-    oob = bagwise.out_of_bag(members, counts, y, curve_sizes=[1, 3, 10, 30])
-    assert oob.curve_sizes.tolist() == [1, 3, 10, 30, 60]   # the full ensemble is appended
-    for k, err, covered in zip(oob.curve_sizes, oob.curve_error, oob.curve_covered):
+    oob = bagwise.out_of_bag(members, counts, y, sizes=[1, 3, 10, 30])
+    assert oob.sizes.tolist() == [1, 3, 10, 30, 60]   # the full ensemble is appended
+    for k, err, covered in zip(oob.sizes, oob.curve, oob.n_covered):
         ref = reference(members, counts, y, "regression", k=k)   # numpy on members[:k]
         assert covered == ref["covered"]
         assert err == pytest.approx(ref["squared_error"], rel=1e-12)
-    assert oob.curve("absolute_error")[-1] == oob.absolute_error
-    default = bagwise.out_of_bag(members, counts, y).curve_sizes
+    assert oob.loss_curve("absolute_error")[-1] == oob.absolute_error
+    default = bagwise.out_of_bag(members, counts, y).sizes
     assert default[0] == 1 and default[-1] == 60 and np.all(np.diff(default) > 0)
     ratios = default[1:] / default[:-1]
     assert ratios[-1] < 1.5   # roughly log-spaced: bounded ratio at the top
@@ -195,8 +197,8 @@ def test_curve_matches_reference_over_the_first_k_members():
 
 def test_classification_curve_matches_reference():
     probs, counts, y = probability_data(n=400, m=20, seed=7)
-    oob = bagwise.out_of_bag(probs, counts, y, metric="brier_score")
-    for k, err in zip(oob.curve_sizes, oob.curve_error):   # numpy reference on members[:k]
+    oob = bagwise.out_of_bag(probs, counts, y, loss="brier_score")
+    for k, err in zip(oob.sizes, oob.curve):   # numpy reference on members[:k]
         assert err == pytest.approx(reference(probs, counts, y, "probabilities", k=k)["brier_score"],
                                     rel=1e-12)
 
@@ -250,14 +252,14 @@ def test_points_without_out_of_bag_member_are_counted_and_warned():
     counts[:, [3, 17, 50]] = 1   # in bag for every member
     expected = int(((counts == 0).sum(axis=0) == 0).sum())   # straightforward numpy
     assert expected >= 3
-    with pytest.warns(RuntimeWarning, match=f"{expected} of 200 points have no out-of-bag member"):
+    with pytest.warns(bagwise.BagwiseWarning, match=f"{expected} of 200 points have no out-of-bag member"):
         oob = bagwise.out_of_bag(members, counts, y)
     assert oob.n_without_out_of_bag == expected
     assert np.isnan(oob.prediction[[3, 17, 50]]).all()
     assert np.array_equal(oob.covered, oob.n_out_of_bag > 0)
     ref = reference(members, counts, y, "regression")
     assert oob.squared_error == pytest.approx(ref["squared_error"], rel=1e-12)
-    assert oob.curve_covered[-1] == 200 - oob.n_without_out_of_bag
+    assert oob.n_covered[-1] == 200 - oob.n_without_out_of_bag
     frame = oob.to_frame()
     assert frame["prediction"].isna().sum() == oob.n_without_out_of_bag
 
@@ -266,7 +268,7 @@ def test_classification_without_out_of_bag_member_gives_nan_rows():
     probs, counts, y = probability_data(n=50, m=5, c=3, seed=9)
     counts = counts.copy()
     counts[:, 0] = 2
-    with pytest.warns(RuntimeWarning, match="no out-of-bag member"):
+    with pytest.warns(bagwise.BagwiseWarning, match="no out-of-bag member"):
         oob = bagwise.out_of_bag(probs, counts, y)
     assert np.isnan(oob.prediction[0]) and np.isnan(oob.probabilities[0]).all()
 
@@ -281,8 +283,8 @@ def test_every_count_dtype_gives_identical_results():
     results = [bagwise.out_of_bag(members, counts.astype(dt), y) for dt in COUNT_DTYPES]
     for r in results[1:]:
         np.testing.assert_array_equal(r.prediction, results[0].prediction)
-        np.testing.assert_array_equal(r.curve_error, results[0].curve_error)
-        assert r.error == results[0].error
+        np.testing.assert_array_equal(r.curve, results[0].curve)
+        assert r.ensemble_loss == results[0].ensemble_loss
 
 
 def test_label_dtypes_and_float32_members():
@@ -291,7 +293,7 @@ def test_label_dtypes_and_float32_members():
     a = bagwise.out_of_bag(f32, counts, y)
     b = bagwise.out_of_bag(f32.astype(np.float64), counts, y)   # same values, widened by us
     np.testing.assert_array_equal(a.prediction, b.prediction)
-    assert a.error == b.error
+    assert a.ensemble_loss == b.ensemble_loss
     labels = (members > 0).astype(np.int64)
     yl = (y > 0).astype(np.int64)
     results = [bagwise.out_of_bag(labels.astype(dt), counts, yl) for dt in COUNT_DTYPES]
@@ -305,8 +307,8 @@ def test_results_do_not_depend_on_threads():
     three = bagwise.out_of_bag(members, counts, y, n_jobs=3)
     for other in (two, three):
         np.testing.assert_array_equal(other.prediction, one.prediction)
-        np.testing.assert_array_equal(other.curve_error, one.curve_error)
-        assert other.error == one.error
+        np.testing.assert_array_equal(other.curve, one.curve)
+        assert other.ensemble_loss == one.ensemble_loss
     probs, counts, y = probability_data(n=20_000, m=8, c=3, seed=12)
     one = bagwise.out_of_bag(probs, counts, y, n_jobs=1)
     two = bagwise.out_of_bag(probs, counts, y, n_jobs=2)
@@ -319,7 +321,7 @@ def test_strided_and_fortran_inputs():
     whole = bagwise.out_of_bag(members[:, ::2], counts[:, ::2], y[::2])
     copy = bagwise.out_of_bag(members[:, ::2].copy(), counts[:, ::2].copy(), y[::2].copy())
     np.testing.assert_array_equal(whole.prediction, copy.prediction)
-    assert whole.error == copy.error
+    assert whole.ensemble_loss == copy.ensemble_loss
     fortran = bagwise.out_of_bag(np.asfortranarray(members), np.asfortranarray(counts), y)
     base = bagwise.out_of_bag(members, counts, y)
     np.testing.assert_array_equal(fortran.prediction, base.prediction)
@@ -334,7 +336,7 @@ def test_strided_and_fortran_inputs():
 def test_non_native_byte_order_is_accepted():
     members, counts, y = regression_data(n=300, m=20, seed=23)
     big = bagwise.out_of_bag(members.astype(">f8"), counts.astype(">u2"), y.astype(">f8"))
-    assert big.error == bagwise.out_of_bag(members, counts, y).error
+    assert big.ensemble_loss == bagwise.out_of_bag(members, counts, y).ensemble_loss
 
 
 def test_stream_warns_at_finish_for_points_without_out_of_bag_member():
@@ -344,24 +346,25 @@ def test_stream_warns_at_finish_for_points_without_out_of_bag_member():
     stream = bagwise.out_of_bag_stream()
     stream.update(members[:, :50], counts[:, :50], y[:50])
     stream.update(members[:, 50:], counts[:, 50:], y[50:])
-    with pytest.warns(RuntimeWarning, match="1 of 100 points"):
-        result = stream.finish()
+    with pytest.warns(bagwise.BagwiseWarning, match="1 of 100 points"):
+        result = stream.result()
     assert np.isnan(result.prediction[70]) and result.n_without_out_of_bag == 1
 
 
-def test_curve_rejects_a_metric_of_the_other_task():
+def test_loss_curve_rejects_a_loss_of_the_other_task():
     members, counts, y = regression_data(n=100, m=20, seed=25)
     oob = bagwise.out_of_bag(members, counts, y)
-    with pytest.raises(ValueError, match="`metric`"):
-        oob.curve("log_loss")
-    with pytest.raises(ValueError, match="`metric`"):
-        oob.curve("covered")
+    with pytest.raises(ValueError, match="`loss`"):
+        oob.loss_curve("log_loss")
+    with pytest.raises(ValueError, match="`loss`"):
+        oob.loss_curve("covered")
 
 
 def test_accepts_a_resample_result_as_counts():
     members, _, y = regression_data(n=300, m=30, seed=15)
-    draw = bagwise.resample(300, 30, seed=15)
-    assert bagwise.out_of_bag(members, draw, y).error == bagwise.out_of_bag(members, draw.counts, y).error
+    draw = bagwise.resample(300, 30, rng=15)
+    assert (bagwise.out_of_bag(members, draw, y).ensemble_loss
+            == bagwise.out_of_bag(members, draw.counts, y).ensemble_loss)
 
 
 # -- streaming over memory-mapped chunks ------------------------------------------------------
@@ -380,29 +383,81 @@ def test_stream_over_memory_mapped_chunks_equals_in_memory(tmp_path, kind):
     for name, array in (("members", members), ("counts", counts), ("y", y), ("w", w)):
         np.save(tmp_path / f"{name}.npy", array)
     mm = {name: np.load(tmp_path / f"{name}.npy", mmap_mode="r") for name in ("members", "counts", "y", "w")}
-    stream = bagwise.out_of_bag_stream(metric="brier_score" if kind != "regression" else None)
+    stream = bagwise.out_of_bag_stream(loss="brier_score" if kind != "regression" else None)
     edges = [0, 7, 1000, 1001, 3333, 5000]
     for a, b in zip(edges[:-1], edges[1:]):
         stream.update(mm["members"][:, a:b], mm["counts"][:, a:b], mm["y"][a:b], mm["w"][a:b])
-    got = stream.finish()
+    got = stream.result()
     want = bagwise.out_of_bag(members, counts, y, point_weights=w,
-                              metric="brier_score" if kind != "regression" else None)
+                              loss="brier_score" if kind != "regression" else None)
     np.testing.assert_array_equal(got.n_out_of_bag, want.n_out_of_bag)
     np.testing.assert_allclose(got.prediction, want.prediction, rtol=1e-12)
-    np.testing.assert_allclose(got.curve_error, want.curve_error, rtol=1e-12)
-    np.testing.assert_array_equal(got.curve_covered, want.curve_covered)
-    assert got.error == pytest.approx(want.error, rel=1e-12)
+    np.testing.assert_allclose(got.curve, want.curve, rtol=1e-12)
+    np.testing.assert_array_equal(got.n_covered, want.n_covered)
+    assert got.ensemble_loss == pytest.approx(want.ensemble_loss, rel=1e-12)
     if kind != "regression":
         np.testing.assert_allclose(got.probabilities, want.probabilities, rtol=1e-12)
         assert got.log_loss == pytest.approx(want.log_loss, rel=1e-12)
     assert "chunks" in repr(stream)
 
 
+@pytest.mark.parametrize("kind", ["regression", "labels", "probabilities"])
+def test_stream_merge_of_two_halves_equals_the_whole_and_pickles(kind):
+    if kind == "probabilities":
+        members, counts, y = probability_data(n=900, m=10, c=3, seed=26)
+    else:
+        members, counts, y = regression_data(n=900, m=10, seed=26)
+        if kind == "labels":
+            members, y = np.clip(np.round(members + 2), 0, 4).astype(np.int32), np.clip(
+                np.round(y + 2), 0, 4).astype(np.int64)
+    loss = "log_loss" if kind != "regression" else "absolute_error"
+    first, second = bagwise.out_of_bag_stream(loss=loss), bagwise.out_of_bag_stream(loss=loss)
+    assert first.update(members[:, :400], counts[:, :400], y[:400]) is first
+    second.update(members[:, 400:], counts[:, 400:], y[400:])
+    second = pickle.loads(pickle.dumps(second))
+    assert first.merge(second) is first
+    got, want = first.result(), bagwise.out_of_bag(members, counts, y, loss=loss)
+    np.testing.assert_array_equal(got.n_out_of_bag, want.n_out_of_bag)
+    np.testing.assert_allclose(got.prediction, want.prediction, rtol=1e-12)
+    np.testing.assert_allclose(got.curve, want.curve, rtol=1e-12)
+    np.testing.assert_array_equal(got.n_covered, want.n_covered)
+    assert got.ensemble_loss == pytest.approx(want.ensemble_loss, rel=1e-12)
+    # a pickled stream continues exactly where it stopped
+    again = pickle.loads(pickle.dumps(bagwise.out_of_bag_stream(loss=loss).update(
+        members[:, :400], counts[:, :400], y[:400])))
+    again.update(members[:, 400:], counts[:, 400:], y[400:])
+    np.testing.assert_array_equal(again.result().curve, first.result().curve)
+    # merging an empty stream changes nothing, into an empty one copies
+    assert bagwise.out_of_bag_stream(loss=loss).merge(first).result().ensemble_loss == got.ensemble_loss
+    with pytest.raises(TypeError, match="`other`"):
+        first.merge(object())
+
+
+def test_core_state_rejects_corrupt_bytes():
+    members, counts, y = regression_data(n=50, m=6, seed=27)
+    state, _ = bagwise._core.out_of_bag_chunk(members, counts, y, None, [6], "regression")
+    data = state.to_bytes()
+    assert bagwise._core.OutOfBagState.from_bytes(data).n_points == 50
+    with pytest.raises(ValueError, match="`data`"):
+        bagwise._core.OutOfBagState.from_bytes(data[:-3])
+    with pytest.raises(ValueError, match="`data`"):
+        bagwise._core.OutOfBagState.from_bytes(b"\x07" + data[1:])
+
+
+def test_result_is_frozen():
+    members, counts, y = regression_data(n=60, m=5, seed=28)
+    oob = bagwise.out_of_bag(members, counts, y)
+    assert isinstance(oob, bagwise._results.Result)
+    with pytest.raises(AttributeError):
+        oob.ensemble_loss = 0.0
+    assert oob.curve[-1] == oob.ensemble_loss and oob.loss_curve() is oob.curve
+
+
 def test_stream_rejects_inconsistent_chunks():
     members, counts, y = regression_data(n=100, m=8, seed=18)
     stream = bagwise.out_of_bag_stream()
     with pytest.raises(ValueError, match="no chunk"):
-        stream.finish()
+        stream.result()
     stream.update(members[:, :50], counts[:, :50], y[:50])
     with pytest.raises(ValueError, match="`members_chunk`"):
         stream.update(members[:4, 50:], counts[:4, 50:], y[50:])
@@ -444,14 +499,14 @@ def test_bad_input_raises_naming_the_argument():
         bagwise.out_of_bag(members.astype(np.float16), counts, y)
     with pytest.raises(TypeError, match=r"^`members`"):
         bagwise.out_of_bag(members[None, None], counts, y)
-    with pytest.raises(ValueError, match=r"^`metric`"):
-        bagwise.out_of_bag(members, counts, y, metric="error_rate")
+    with pytest.raises(ValueError, match=r"^`loss`"):
+        bagwise.out_of_bag(members, counts, y, loss="error_rate")
     with pytest.raises(ValueError, match=r"^`point_weights`"):
         bagwise.out_of_bag(members, counts, y, point_weights=-np.ones(50))
     with pytest.raises(ValueError, match=r"^`point_weights`"):
         bagwise.out_of_bag(members, counts, y, point_weights=np.ones(3))
-    with pytest.raises(ValueError, match=r"^`curve_sizes`"):
-        bagwise.out_of_bag(members, counts, y, curve_sizes=[0, 2])
+    with pytest.raises(ValueError, match=r"^`sizes`"):
+        bagwise.out_of_bag(members, counts, y, sizes=[0, 2])
     with pytest.raises(ValueError, match=r"^`n_jobs`|^`n_jobs`: must be at least 1"):
         bagwise.out_of_bag(members, counts, y, n_jobs=0)
 
@@ -480,8 +535,8 @@ def test_bad_classification_input():
         bagwise.out_of_bag(labels, counts, -y - 1)
     with pytest.raises(ValueError, match=r"^`members`: at most 65536"):
         bagwise.out_of_bag(labels * 100_000, counts, y)
-    with pytest.raises(ValueError, match=r"^`metric`"):
-        bagwise.out_of_bag(labels, counts, y, metric="squared_error")
+    with pytest.raises(ValueError, match=r"^`loss`"):
+        bagwise.out_of_bag(labels, counts, y, loss="squared_error")
 
 
 def test_display_never_raises():
@@ -489,8 +544,8 @@ def test_display_never_raises():
     oob = bagwise.out_of_bag(members, counts, y)
     assert "squared error" in repr(oob) and "<table" in oob._repr_html_()
     frame = oob.curve_frame()
-    assert frame["size"].tolist() == oob.curve_sizes.tolist()
-    oob.curve_error = None    # broken on purpose: the HTML hook falls back to text
+    assert frame["size"].tolist() == oob.sizes.tolist()
+    object.__setattr__(oob, "curve", None)   # broken on purpose: the HTML hook falls back to text
     assert oob._repr_html_().startswith("<pre>")
 
 
@@ -499,14 +554,14 @@ def test_missing_in_bag_entries_are_ignored():
     # BagRegressor.out_of_bag_predictions) give the same result as any filler there;
     # a NaN at an out-of-bag entry is still an error naming `members`.
     rng = np.random.default_rng(5)
-    counts = bagwise.resample(80, 30, seed=3).counts
+    counts = bagwise.resample(80, 30, rng=3).counts
     members = rng.normal(size=(30, 80))
     y = rng.normal(size=80)
     marked = np.where(counts > 0, np.nan, members)
     want = bagwise.out_of_bag(members, counts, y)
     got = bagwise.out_of_bag(marked, counts, y)
     np.testing.assert_array_equal(got.prediction, want.prediction)
-    assert got.error == want.error
+    assert got.ensemble_loss == want.ensemble_loss
     probabilities = rng.dirichlet(np.ones(3), size=(30, 80))
     labels = rng.integers(0, 3, size=80)
     marked3 = np.where((counts > 0)[..., None], np.nan, probabilities)

@@ -50,7 +50,7 @@ def test_counts_as_weights_equal_materialised_rows(splitter, task):
         extra = {"task": task, "n_classes": 3}
     else:
         extra = {"task": task}
-    counts = bagwise.resample(800, 3, seed=5).counts
+    counts = bagwise.resample(800, 3, rng=5).counts
     weighted = TreeEnsemble.fit(x, y, counts, splitter=splitter, min_leaf=4, **extra)
     test = rng.uniform(size=(400, 4)) * (30 if splitter == "histogram" else 1)
     for m in range(3):
@@ -105,7 +105,7 @@ def test_bagging_cuts_friedman1_error():
         x, y = regression_data(1200, seed)
         xtr, ytr, xte, yte = x[:200], y[:200], x[200:], y[200:]
         single = fit_regression(xtr, ytr, None)
-        counts = bagwise.resample(200, 50, seed=seed).counts
+        counts = bagwise.resample(200, 50, rng=seed).counts
         bagged = fit_regression(xtr, ytr, counts, seed=seed)
         ratios.append(mse(bagged.predict(xte), yte) / mse(single.predict(xte), yte))
     assert np.mean(ratios) <= 0.7, ratios
@@ -122,7 +122,7 @@ def test_bagged_trees_beat_one_tree_on_breast_cancer():
         tr, te = order[:380], order[380:]
         kw = {"task": "classification", "n_classes": 2, "splitter": "exact"}
         single = TreeEnsemble.fit(x[tr], y[tr], None, n_members=1, **kw)
-        counts = bagwise.resample(len(tr), 50, seed=seed).counts
+        counts = bagwise.resample(len(tr), 50, rng=seed).counts
         bagged = TreeEnsemble.fit(x[tr], y[tr], counts, seed=seed, **kw)
         acc = [float(np.mean(m.predict(x[te]).argmax(axis=1) == y[te])) for m in (single, bagged)]
         gains.append(acc[1] - acc[0])
@@ -134,7 +134,7 @@ def test_histogram_and_auto_match_exact_error():
     # few percent of the exact splitter on a larger data set.
     x, y = regression_data(30_000, 4)
     xtr, ytr, xte, yte = x[:20_000], y[:20_000], x[20_000:], y[20_000:]
-    counts = bagwise.resample(20_000, 20, seed=1).counts
+    counts = bagwise.resample(20_000, 20, rng=1).counts
     errors = {s: mse(fit_regression(xtr, ytr, counts, splitter=s).predict(xte), yte)
               for s in ("exact", "histogram", "auto")}
     assert abs(errors["histogram"] / errors["exact"] - 1) < 0.03, errors
@@ -144,7 +144,7 @@ def test_histogram_and_auto_match_exact_error():
 @pytest.mark.parametrize("splitter", ["exact", "histogram", "auto"])
 def test_reproducible_for_any_thread_count_and_member_count(splitter):
     x, y = regression_data(6000, 5)
-    counts = bagwise.resample(6000, 6, seed=2).counts
+    counts = bagwise.resample(6000, 6, rng=2).counts
     kw = {"splitter": splitter, "split_features": 3, "seed": 9}
     one = fit_regression(x, y, counts, n_jobs=1, **kw)
     two = fit_regression(x, y, counts, n_jobs=2, **kw)
@@ -160,7 +160,7 @@ def test_reproducible_for_any_thread_count_and_member_count(splitter):
 def test_float32_strided_and_fortran_input():
     x, y = regression_data(1500, 6)
     x32 = x.astype(np.float32)
-    counts = bagwise.resample(1500, 4, seed=3).counts
+    counts = bagwise.resample(1500, 4, rng=3).counts
     base = fit_regression(x32.astype(np.float64), y, counts, splitter="auto")
     for variant in (x32, np.asfortranarray(x32), np.repeat(x32, 2, axis=1)[:, ::2]):
         fitted = fit_regression(variant, y, counts, splitter="auto")
@@ -176,7 +176,7 @@ def test_float32_strided_and_fortran_input():
 
 def test_counts_of_every_unsigned_width_agree():
     x, y = regression_data(500, 7)
-    counts = bagwise.resample(500, 3, seed=4).counts
+    counts = bagwise.resample(500, 3, rng=4).counts
     fits = [fit_regression(x, y, counts.astype(t)).to_bytes()
             for t in (np.uint8, np.uint16, np.uint32, np.uint64)]
     assert all(f == fits[0] for f in fits)
@@ -186,7 +186,7 @@ def test_counts_of_every_unsigned_width_agree():
 
 def test_out_of_bag_predictions_are_nan_where_a_member_saw_the_row():
     x, y = regression_data(400, 8)
-    counts = bagwise.resample(400, 5, seed=6).counts
+    counts = bagwise.resample(400, 5, rng=6).counts
     model = fit_regression(x, y, counts)
     oob = model.out_of_bag_predictions(x, counts)
     full = model.member_predictions(x)
@@ -200,7 +200,7 @@ def test_out_of_bag_predictions_are_nan_where_a_member_saw_the_row():
 def test_classification_shapes_and_probabilities():
     x, y = load_breast_cancer(return_X_y=True)
     y = y.astype(np.int64)
-    counts = bagwise.resample(len(y), 7, seed=1).counts
+    counts = bagwise.resample(len(y), 7, rng=1).counts
     model = TreeEnsemble.fit(x, y, counts, task="classification", n_classes=2, max_depth=4)
     members = model.member_predictions(x)
     assert members.shape == (7, len(y), 2)
@@ -213,7 +213,7 @@ def test_classification_shapes_and_probabilities():
 
 def test_pickle_and_bytes_round_trip():
     x, y = regression_data(800, 9)
-    model = fit_regression(x, y, bagwise.resample(800, 5, seed=1).counts, splitter="auto")
+    model = fit_regression(x, y, bagwise.resample(800, 5, rng=1).counts, splitter="auto")
     back = pickle.loads(pickle.dumps(model))
     np.testing.assert_array_equal(back.member_predictions(x), model.member_predictions(x))
     assert TreeEnsemble.from_bytes(model.to_bytes()).to_bytes() == model.to_bytes()
@@ -221,7 +221,7 @@ def test_pickle_and_bytes_round_trip():
 
 def test_corrupt_bytes_raise_value_error():
     x, y = regression_data(300, 10)
-    data = fit_regression(x, y, bagwise.resample(300, 2, seed=1).counts).to_bytes()
+    data = fit_regression(x, y, bagwise.resample(300, 2, rng=1).counts).to_bytes()
     for bad in (b"", b"garbage", data[:-5], data[: len(data) // 2], data + b"\x00"):
         with pytest.raises(ValueError, match="`data`"):
             TreeEnsemble.from_bytes(bad)
@@ -241,7 +241,7 @@ def test_corrupt_bytes_raise_value_error():
 
 def test_progress_callback_and_interrupt():
     x, y = regression_data(2000, 11)
-    counts = bagwise.resample(2000, 12, seed=1).counts
+    counts = bagwise.resample(2000, 12, rng=1).counts
     calls = []
     fit_regression(x, y, counts, n_jobs=2, progress=lambda done, total: calls.append((done, total)))
     assert calls[-1] == (12, 12)
@@ -256,7 +256,7 @@ def test_progress_callback_and_interrupt():
 
 def test_bad_input_raises_value_error_naming_the_argument():
     x, y = regression_data(100, 12)
-    counts = bagwise.resample(100, 3, seed=1).counts
+    counts = bagwise.resample(100, 3, rng=1).counts
     labels = (y > y.mean()).astype(np.int64)
 
     def raises(argument, **kw):
@@ -310,7 +310,7 @@ def test_ctrl_c_stops_a_long_fit_quickly():
         from bagwise._core import TreeEnsemble
         rng = np.random.default_rng(0)
         x, y = rng.uniform(size=(100_000, 8)), rng.uniform(size=100_000)
-        counts = bagwise.resample(100_000, 500, seed=0).counts
+        counts = bagwise.resample(100_000, 500, rng=0).counts
         print("ready", flush=True)
         start = time.perf_counter()
         try:
@@ -328,7 +328,7 @@ def test_trying_every_feature_at_random_equals_plain_bagging():
     # tried at every node, only in a random order, so the deterministic tie rule (lowest
     # feature, then lowest threshold) gives the plain bagged trees; fewer features differ.
     x, y = regression_data(1000, 13)
-    counts = bagwise.resample(1000, 3, seed=2).counts
+    counts = bagwise.resample(1000, 3, rng=2).counts
     for splitter in ("exact", "histogram"):
         plain = fit_regression(x, y, counts, splitter=splitter)
         every = fit_regression(x, y, counts, splitter=splitter, split_features=10, seed=4)

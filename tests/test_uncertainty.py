@@ -42,7 +42,7 @@ def direct_sums(members, counts, chunk=7):
 def ensemble():
     rng = np.random.default_rng(4)
     n, b, p = 60, 80, 9
-    counts = bagwise.resample(n, b, seed=2).counts
+    counts = bagwise.resample(n, b, rng=2).counts
     x = rng.normal(size=(n, p))
     # Member predictions that depend on their counts, like fitted models do.
     members = counts @ x / n + 0.1 * rng.normal(size=(b, p))
@@ -75,7 +75,7 @@ def test_bagged_mean_matches_the_multinomial_closed_form():
     rng = np.random.default_rng(0)
     n, b = 300, 6000
     x = rng.gamma(2.0, size=n)
-    counts = bagwise.resample(n, b, seed=5).counts
+    counts = bagwise.resample(n, b, rng=5).counts
     t = (counts @ x / n)[:, None]
     result = bagwise.prediction_variance(t, counts)
     ideal = ((x - x.mean()) ** 2).sum() / n**2
@@ -91,7 +91,7 @@ def test_subsample_factor_gives_the_unbiased_variance_of_the_mean():
     rng = np.random.default_rng(1)
     n, b, s = 120, 8000, 60
     x = rng.normal(size=n)
-    counts = bagwise.resample(n, b, scheme="subsample", fraction=s / n, seed=3).counts
+    counts = bagwise.resample(n, b, scheme="subsample", fraction=s / n, rng=3).counts
     t = (counts @ x / s)[:, None]
     result = bagwise.prediction_variance(t, counts)
     assert result.scheme == "subsample"
@@ -137,7 +137,7 @@ def test_spread_splits_member_variance():
     rng = np.random.default_rng(7)
     n, b = 200, 4000
     x = rng.normal(size=n)
-    counts = bagwise.resample(n, b, seed=9).counts
+    counts = bagwise.resample(n, b, rng=9).counts
     noise = rng.normal(scale=0.05, size=(b, 3))
     members = (counts @ x / n)[:, None] + noise
     result = bagwise.spread(members, counts)
@@ -157,7 +157,7 @@ def test_spread_splits_member_variance():
 
 
 def test_count_gram_is_reusable_and_pickles():
-    counts = bagwise.resample(80, 40, seed=1).counts
+    counts = bagwise.resample(80, 40, rng=1).counts
     gram = bagwise.count_gram(counts, jackknife=True)
     np.testing.assert_array_equal(gram.gram, counts.astype(np.int64) @ counts.T.astype(np.int64))
     members = np.random.default_rng(0).normal(size=(40, 5)) + counts[:, :5]
@@ -172,7 +172,7 @@ def test_count_gram_is_reusable_and_pickles():
 
 
 def test_dtypes_strides_and_threads_give_identical_results():
-    counts = bagwise.resample(300, 64, seed=4).counts
+    counts = bagwise.resample(300, 64, rng=4).counts
     rng = np.random.default_rng(3)
     members = rng.normal(size=(64, 40)) + counts[:, :40]
     with warnings.catch_warnings():
@@ -195,7 +195,7 @@ def test_dtypes_strides_and_threads_give_identical_results():
 
 
 def test_small_ensembles_warn_and_clip():
-    counts = bagwise.resample(500, 10, seed=0).counts
+    counts = bagwise.resample(500, 10, rng=0).counts
     members = np.random.default_rng(0).normal(size=(10, 50))   # unrelated to the counts
     with pytest.warns(bagwise.BagwiseWarning) as caught:
         result = bagwise.prediction_variance(members, counts)
@@ -208,7 +208,7 @@ def test_small_ensembles_warn_and_clip():
 
 
 def test_interval_is_normal_approximation():
-    counts = bagwise.resample(50, 200, seed=0).counts
+    counts = bagwise.resample(50, 200, rng=0).counts
     members = counts[:, :3].astype(float)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", bagwise.BagwiseWarning)
@@ -243,7 +243,7 @@ def test_bad_input_names_the_argument(members, counts, argument, error):
 
 
 def test_bad_options_name_the_argument():
-    counts = bagwise.resample(20, 5, seed=0).counts
+    counts = bagwise.resample(20, 5, rng=0).counts
     with pytest.raises(ValueError, match="`method`"):
         bagwise.prediction_variance(np.zeros((5, 2)), counts, method="bootstrap")
     with pytest.raises(ValueError, match="`scheme`"):

@@ -86,3 +86,23 @@ def renamed_arguments(error: Exception, names: dict[str, str]) -> Exception:
             message = f"`{outer}`" + message[len(inner) + 2:]
             break
     return type(error)(message)
+
+
+def rng_seed(rng: object) -> int:
+    """The 64-bit seed of the member streams from the one seed keyword ``rng`` (SPEC 7).
+
+    An int seeds the streams directly; a ``numpy.random.Generator`` gives
+    ``int(rng.integers(2**63))`` (advancing it); ``None`` draws a fresh seed from the
+    operating system.
+    """
+    if isinstance(rng, np.random.Generator):
+        return int(rng.integers(2**63))
+    if rng is None:
+        return secrets.randbits(64)
+    if isinstance(rng, bool) or not isinstance(rng, numbers.Integral):
+        raise TypeError("`rng`: expected a non-negative integer, a numpy.random.Generator or "
+                        f"None, got {type(rng).__name__}")
+    rng = int(rng)
+    if not 0 <= rng < 2**64:
+        raise ValueError(f"`rng`: must lie in [0, 2**64), got {rng}")
+    return rng

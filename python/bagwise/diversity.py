@@ -1,34 +1,36 @@
 """How differently the members of a classifier ensemble err (Kuncheva & Whitaker 2003).
 
 `diversity` computes the pairwise measures (Yule's Q, the correlation of the correct/wrong
-indicators, disagreement, double fault, Cohen's kappa between the members' labels), their
-means over pairs, the non-pairwise measures (entropy, Kohavi-Wolpert variance, interrater
-agreement, difficulty, generalised and coincident-failure diversity) and per-member
-redundancy. `diversity_stream` computes exactly the same result from chunks of points (e.g.
-slices of a memory-mapped ``.npy``): every measure is a function of integer counts that
-merge exactly, so the split into chunks and the thread count never change a digit.
+indicators `correct_correlation`, disagreement, double fault, Cohen's kappa between the
+members' labels), their means over pairs, the non-pairwise measures (entropy,
+Kohavi-Wolpert variance, interrater agreement, difficulty, generalised and
+coincident-failure diversity) and per-member redundancy. `diversity_stream` computes exactly
+the same result from chunks of points (e.g. slices of a memory-mapped ``.npy``): every
+measure is a function of integer counts that merge exactly, so the split into chunks and
+the thread count never change a digit.
 
-Members come as integer ``(members, n_points)`` class labels or float32/float64
-``(members, n_points, n_classes)`` probabilities; a member's label is then its most probable
+Members come as integer ``(n_members, n_points)`` class labels or float32/float64
+``(n_members, n_points, n_classes)`` probabilities; a member's label is then its most probable
 class (ties: the lowest class index, as in `bagwise.vote_fractions`).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
-import warnings
 
 import numpy as np
 
 from . import _core
-from ._display import html_block, safe_html, text_block
+from ._results import Result
 from ._validation import n_jobs_value, positive_int
+from ._warnings import warn
 
 __all__ = ["Diversity", "DiversityStream", "diversity", "diversity_stream"]
 
 _MAX_CLASSES = 1 << 20  # the core keeps members x n_classes counts
-_PAIRWISE = ("yule_q", "correlation", "disagreement", "double_fault", "kappa")
-_SCALARS = ("mean_yule_q", "mean_correlation", "mean_disagreement", "mean_double_fault",
+_PAIRWISE = ("yule_q", "correct_correlation", "disagreement", "double_fault", "kappa")
+_SCALARS = ("mean_yule_q", "mean_correct_correlation", "mean_disagreement", "mean_double_fault",
             "mean_kappa", "entropy", "kohavi_wolpert", "interrater_kappa", "difficulty",
             "generalized_diversity", "coincident_failure")
 
@@ -40,17 +42,17 @@ def _members_iv(members):
     if kind == "f":
         if array.ndim == 2:
             raise TypeError("`members`: diversity measures need class predictions - integer "
-                            "labels (members, n_points) or probabilities (members, n_points, "
+                            "labels (n_members, n_points) or probabilities (n_members, n_points, "
                             f"n_classes) - got float values of shape {array.shape}")
         if array.ndim != 3:
-            raise ValueError("`members`: probabilities must have shape (members, n_points, "
+            raise ValueError("`members`: probabilities must have shape (n_members, n_points, "
                              f"n_classes), got {array.shape}")
         if array.dtype not in (np.float32, np.float64):
             raise TypeError(f"`members`: probabilities must be float32 or float64, got {array.dtype}")
         implied = array.shape[2]
     elif kind in "iu":
         if array.ndim != 2:
-            raise ValueError("`members`: integer labels must have shape (members, n_points), "
+            raise ValueError("`members`: integer labels must have shape (n_members, n_points), "
                              f"got {array.shape}")
         implied = None
     else:
@@ -111,7 +113,10 @@ def _number(value):
 
 
 class DiversityStream:
-    """Diversity measures computed from chunks of points; see `diversity_stream`."""
+    """Diversity measures computed from chunks of points; see `diversity_stream`.
+
+    Pickles, and merges with a stream over other points of the same members.
+    """
 
     def __init__(self, n_classes, n_jobs=None):
         self.n_classes = positive_int(n_classes, "n_classes")
@@ -121,33 +126,59 @@ class DiversityStream:
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
 
-    def add(self, members, y) -> DiversityStream:
-        """Add every member's labels (or probabilities) at a chunk of points and its targets."""
+    def update(self, members, y) -> DiversityStream:
+        """Add every member's labels (or probabilities) at a chunk of points and its
+        targets. Returns the stream."""
         members, implied = _members_iv(members)
         y = _y_iv(y, members.shape[1])
         _n_classes_iv(self.n_classes, members, implied, y)
         if self._core is None:
             self._core = _core.DiversityAccumulator(members.shape[0], self.n_classes)
-        elif members.shape[0] != self._core.members:
+        elif members.shape[0] != self._core.n_members:
             raise ValueError(f"`members`: this chunk has {members.shape[0]} members but earlier "
-                             f"chunks had {self._core.members}")
+                             f"chunks had {self._core.n_members}")
         self._core.update(members, y, self._n_jobs)
+        return self
+
+    def merge(self, other: DiversityStream) -> DiversityStream:
+        """Add the counts of ``other`` (other points of the same members and classes); the
+        integer counts add exactly, checked for overflow. Returns this stream."""
+        if not isinstance(other, DiversityStream):
+            raise TypeError(f"`other`: expected a DiversityStream, got {type(other).__name__}")
+        if other.n_classes != self.n_classes:
+            raise ValueError(f"`other`: has {other.n_classes} classes but this stream has "
+                             f"{self.n_classes}")
+        if other._core is None:
+            return self
+        if self._core is None:
+            self._core = _core.DiversityAccumulator(other._core.n_members, self.n_classes)
+        elif other._core.n_members != self._core.n_members:
+            raise ValueError(f"`other`: has {other._core.n_members} members but this stream has "
+                             f"{self._core.n_members}")
+        self._core.merge(other._core)
         return self
 
     def result(self) -> Diversity:
         """The measures over all points added so far."""
         if self._core is None:
-            raise ValueError("`members`: no points were added (call add first)")
-        return Diversity(**self._core.finish())
+            raise ValueError("`members`: no points were added (call update first)")
+        return Diversity._build(self._core.result())
+
+    def __repr__(self) -> str:
+        if self._core is None:
+            return f"DiversityStream ({self.n_classes} classes, no chunk yet)"
+        return (f"DiversityStream ({self._core.n_members} members, {self.n_classes} classes, "
+                f"{self._core.n_points:,} points)")
 
 
 def diversity_stream(*, n_classes, n_jobs=None) -> DiversityStream:
     """Start diversity measures fed by chunks of points.
 
-    Call ``.add(members_chunk, y_chunk)`` for consecutive chunks (any split of the points;
-    every chunk holds all members), then ``.result()``. The result equals `diversity` on all
-    points exactly: the measures are functions of integer counts, summed with overflow
-    checks.
+    Call ``.update(members_chunk, y_chunk)`` for consecutive chunks (any split of the
+    points; every chunk holds all members), then ``.result()``. The result equals
+    `diversity` on all points exactly: the measures are functions of integer counts, summed
+    with overflow checks. Streams over different points combine with ``.merge(other)`` and
+    pickle.
 
     Parameters
     ----------
@@ -167,7 +198,7 @@ def diversity_stream(*, n_classes, n_jobs=None) -> DiversityStream:
     >>> members, y = rng.integers(0, 3, size=(5, 1000)), rng.integers(0, 3, size=1000)
     >>> stream = bagwise.diversity_stream(n_classes=3)
     >>> for start in range(0, 1000, 300):
-    ...     _ = stream.add(members[:, start:start + 300], y[start:start + 300])
+    ...     _ = stream.update(members[:, start:start + 300], y[start:start + 300])
     >>> stream.result().kappa.tolist() == bagwise.diversity(members, y).kappa.tolist()
     True
     """
@@ -180,21 +211,21 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     For every pair of members (i, j), with N11 the points both get right, N00 the points
     both get wrong and N10, N01 the points only one gets right::
 
-        Yule's Q       (N11 N00 - N01 N10) / (N11 N00 + N01 N10)
-        correlation    (N11 N00 - N01 N10) / sqrt((N11+N10)(N01+N00)(N11+N01)(N10+N00))
-        disagreement   (N01 + N10) / n
-        double fault   N00 / n
-        kappa          Cohen's (1960) kappa between the two members' labels
+        Yule's Q             (N11 N00 - N01 N10) / (N11 N00 + N01 N10)
+        correct correlation  (N11 N00 - N01 N10) / sqrt((N11+N10)(N01+N00)(N11+N01)(N10+N00))
+        disagreement         (N01 + N10) / n
+        double fault         N00 / n
+        kappa                Cohen's (1960) kappa between the two members' labels
 
     With l the number of members right at a point, the non-pairwise measures describe how
     l is spread over the points (see the `Diversity` attributes). Measures that are
-    undefined (a zero denominator) are NaN with a `RuntimeWarning`.
+    undefined (a zero denominator) are NaN with one `BagwiseWarning` each.
 
     Parameters
     ----------
     members : array
-        Integer ``(members, n_points)`` class labels ``0..n_classes-1``, or float32/float64
-        ``(members, n_points, n_classes)`` probabilities (a member's label is its most
+        Integer ``(n_members, n_points)`` class labels ``0..n_classes-1``, or float32/float64
+        ``(n_members, n_points, n_classes)`` probabilities (a member's label is its most
         probable class, the lowest index among ties). At least 2 members; any strides.
     y : integer array of shape (n_points,)
         True classes ``0..n_classes-1``.
@@ -222,26 +253,29 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     members, implied = _members_iv(members)
     y = _y_iv(y, members.shape[1])
     n_classes = _n_classes_iv(n_classes, members, implied, y)
-    return DiversityStream(n_classes, n_jobs).add(members, y).result()
+    return DiversityStream(n_classes, n_jobs).update(members, y).result()
 
 
-class Diversity:
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class Diversity(Result):
     """Diversity of a classifier ensemble's members (Kuncheva & Whitaker 2003).
 
     Frozen: attributes cannot be reassigned and the arrays are read-only.
 
     Attributes
     ----------
-    members, n_points : int
+    n_members, n_points : int
         Shape of the predictions.
-    accuracy : ndarray of float64, shape (members,)
+    accuracy : ndarray of float64, shape (n_members,)
         Share of the points each member gets right.
-    yule_q, correlation, disagreement, double_fault, kappa : ndarray of float64, shape (members, members)
-        The pairwise measures (symmetric). Diagonals: Q = correlation = kappa = 1,
-        disagreement 0, double fault the member's error rate. An undefined pair is NaN: Q
-        when ``N11 N00 + N01 N10 = 0``, the correlation when a member is always or never
-        right, kappa when both members always predict the same single class.
-    mean_yule_q, mean_correlation, mean_disagreement, mean_double_fault, mean_kappa : float
+    yule_q, correct_correlation, disagreement, double_fault, kappa : ndarray of float64
+        Shape (n_members, n_members). The pairwise measures (symmetric);
+        ``correct_correlation`` is the correlation of two members' right/wrong indicators.
+        Diagonals: Q = correct correlation = kappa = 1, disagreement 0, double fault the
+        member's error rate. An undefined pair is NaN: Q when ``N11 N00 + N01 N10 = 0``, the
+        correct correlation when a member is always or never right, kappa when both members
+        always predict the same single class.
+    mean_yule_q, mean_correct_correlation, mean_disagreement, mean_double_fault, mean_kappa : float
         Means over the pairs i < j, undefined pairs left out (with a warning).
     entropy : float
         ``(1/n) sum_p min(l, M - l) / (M - ceil(M/2))``: 0 when the members always agree on
@@ -260,51 +294,66 @@ class Diversity:
     coincident_failure : float
         Coincident-failure diversity: 0 when failures always coincide (or there are none),
         1 when every failure is a single member's.
-    correct_tally : ndarray of int64, shape (members + 1,)
-        Number of points where exactly ``l`` members are right, ``l = 0..members``.
-    redundancy : ndarray of float64, shape (members,)
+    correct_tally : ndarray of int64, shape (n_members + 1,)
+        Number of points where exactly ``l`` members are right, ``l = 0..n_members``.
+    redundancy : ndarray of float64, shape (n_members,)
         Every member's mean disagreement with the others: the lower, the more it repeats
         the rest of the ensemble.
     """
 
-    def __init__(self, *, members, n_points, accuracy, correct_tally, redundancy,
-                 undefined_yule_q=0, undefined_correlation=0, undefined_kappa=0, **measures):
-        values = {"members": int(members), "n_points": int(n_points), "accuracy": accuracy,
-                  "correct_tally": correct_tally, "redundancy": redundancy}
-        for name in _PAIRWISE:
-            values[name] = measures[name]
-        for name in _SCALARS:
-            values[name] = float(measures[name])
-        for value in values.values():
+    _title = "Diversity"
+
+    n_members: int
+    n_points: int
+    accuracy: np.ndarray
+    yule_q: np.ndarray
+    correct_correlation: np.ndarray
+    disagreement: np.ndarray
+    double_fault: np.ndarray
+    kappa: np.ndarray
+    mean_yule_q: float
+    mean_correct_correlation: float
+    mean_disagreement: float
+    mean_double_fault: float
+    mean_kappa: float
+    entropy: float
+    kohavi_wolpert: float
+    interrater_kappa: float
+    difficulty: float
+    generalized_diversity: float
+    coincident_failure: float
+    correct_tally: np.ndarray
+    redundancy: np.ndarray
+
+    @classmethod
+    def _build(cls, measures) -> Diversity:
+        """The one place a Diversity is made: from the core's measures; warns once for
+        every undefined measure."""
+        fields = {f.name: getattr(measures, f.name) for f in dataclasses.fields(cls)}
+        for value in fields.values():
             if isinstance(value, np.ndarray):
                 value.setflags(write=False)
-        for name, value in values.items():
-            object.__setattr__(self, name, value)
-        pairs = self.members * (self.members - 1) // 2
+        result = cls(**fields)
+        pairs = result.n_members * (result.n_members - 1) // 2
         for measure, count, why in (
-            ("Yule's Q", undefined_yule_q, "N11*N00 + N01*N10 = 0"),
-            ("the correlation", undefined_correlation, "a member always or never right"),
-            ("Cohen's kappa", undefined_kappa, "both members always give one same class"),
+            ("Yule's Q", measures.undefined_yule_q, "N11*N00 + N01*N10 = 0"),
+            ("the correct correlation", measures.undefined_correct_correlation,
+             "a member always or never right"),
+            ("Cohen's kappa", measures.undefined_kappa, "both members always give one same class"),
         ):
             if count:
-                warnings.warn(f"`members`: {measure} is undefined ({why}) for {count} of {pairs} "
-                              "pairs; those entries are NaN and left out of its mean",
-                              RuntimeWarning, stacklevel=4)
-        if math.isnan(self.interrater_kappa):
-            warnings.warn("`members`: the interrater agreement kappa is undefined (NaN) because the "
-                          "mean member accuracy is 0 or 1", RuntimeWarning, stacklevel=4)
-        if math.isnan(self.generalized_diversity):
-            warnings.warn("`members`: the generalized diversity is undefined (NaN) because no "
-                          "member ever fails", RuntimeWarning, stacklevel=4)
-
-    def __setattr__(self, name, value):
-        raise AttributeError(f"Diversity is frozen; cannot set {name!r}")
-
-    def __delattr__(self, name):
-        raise AttributeError(f"Diversity is frozen; cannot delete {name!r}")
+                warn(f"`members`: {measure} is undefined ({why}) for {count} of {pairs} pairs; "
+                     "those entries are NaN and left out of its mean")
+        if math.isnan(result.interrater_kappa):
+            warn("`members`: the interrater agreement kappa is undefined (NaN) because the mean "
+                 "member accuracy is 0 or 1")
+        if math.isnan(result.generalized_diversity):
+            warn("`members`: the generalized diversity is undefined (NaN) because no member "
+                 "ever fails")
+        return result
 
     def _pairs(self):
-        return np.triu_indices(self.members, k=1)
+        return np.triu_indices(self.n_members, k=1)
 
     def redundant_pairs(self, top=10) -> list[tuple[int, int, float]]:
         """The ``top`` most redundant pairs: ``(member_a, member_b, disagreement)`` with
@@ -317,7 +366,7 @@ class Diversity:
 
     def summary(self) -> dict:
         """The scalar measures as plain ints and floats (NaN as None), ready for ``json.dumps``."""
-        out = {"members": self.members, "n_points": self.n_points,
+        out = {"n_members": self.n_members, "n_points": self.n_points,
                "mean_accuracy": _number(np.mean(self.accuracy))}
         out.update({name: _number(getattr(self, name)) for name in _SCALARS})
         return out
@@ -333,12 +382,12 @@ class Diversity:
 
     def _rows(self):
         return [
-            ("members x points", f"{self.members:,} x {self.n_points:,}"),
+            ("members x points", f"{self.n_members:,} x {self.n_points:,}"),
             ("mean accuracy", _fmt(float(np.mean(self.accuracy)))),
             ("mean disagreement", _fmt(self.mean_disagreement)),
             ("mean double fault", _fmt(self.mean_double_fault)),
             ("mean Yule's Q", _fmt(self.mean_yule_q)),
-            ("mean correlation", _fmt(self.mean_correlation)),
+            ("mean correct correlation", _fmt(self.mean_correct_correlation)),
             ("mean Cohen's kappa", _fmt(self.mean_kappa)),
             ("entropy", _fmt(self.entropy)),
             ("Kohavi-Wolpert variance", _fmt(self.kohavi_wolpert)),
@@ -355,9 +404,3 @@ class Diversity:
         word = "together" if q > 0.5 else "somewhat together" if q > 0 else "on different points"
         return (f"members tend to err {word} (mean Q {q:.2f}); they disagree on "
                 f"{self.mean_disagreement:.1%} of the points per pair")
-
-    def __repr__(self) -> str:
-        return text_block("Diversity", self._rows(), self._reading())
-
-    def _repr_html_(self) -> str:
-        return safe_html(self, lambda: html_block("Diversity", self._rows(), self._reading()))

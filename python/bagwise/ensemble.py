@@ -238,8 +238,8 @@ class _Bag(BaseEstimator):
             return np.ones((n_members, n_rows), dtype=np.uint8)
         strata = codes if self._classification and self.stratify else None
         draw = resample(n_rows, n_members, scheme=self.scheme, fraction=params["fraction"],
-                        strata=strata, groups=groups, seed=params["seed"], n_jobs=params["n_jobs"])
-        return draw.weights if self.scheme == "bayesian" else draw.counts
+                        strata=strata, groups=groups, rng=params["seed"], n_jobs=params["n_jobs"])
+        return draw.row_weights if self.scheme == "bayesian" else draw.counts
 
     def _fit_native(self, X, target, counts, params, n_classes):
         learner = LEARNERS[params["learner"]]
@@ -432,7 +432,7 @@ class _Bag(BaseEstimator):
         from .out_of_bag import out_of_bag
 
         members, target = self._training_members(X, y)
-        return out_of_bag(members, self.in_bag_, target, metric=metric, n_jobs=self.n_jobs)
+        return out_of_bag(members, self.in_bag_, target, loss=metric, n_jobs=self.n_jobs)
 
     def _count_gram(self, jackknife=False):
         """The `CountGram` of ``in_bag_``, built on first use and kept in ``count_gram_``."""

@@ -3,19 +3,20 @@ their `OutOfBag` result."""
 
 from __future__ import annotations
 
+import dataclasses
 import math
-import warnings
 
 import numpy as np
 
 from . import _core
-from ._display import html_block, safe_html, text_block
+from ._results import Result
 from ._validation import n_jobs_value
+from ._warnings import warn
 
 __all__ = ["OutOfBag", "OutOfBagStream", "out_of_bag", "out_of_bag_stream"]
 
-REGRESSION_METRICS = ("squared_error", "absolute_error")
-CLASSIFICATION_METRICS = ("error_rate", "brier_score", "log_loss")
+REGRESSION_LOSSES = ("squared_error", "absolute_error")
+CLASSIFICATION_LOSSES = ("error_rate", "brier_score", "log_loss")
 LOG_LOSS_FLOOR = 1e-15
 PROBABILITY_TOLERANCE = 1e-6
 
@@ -51,22 +52,31 @@ def _members_kind(members):
     )
 
 
-def _curve_sizes(curve_sizes, n_members):
-    if curve_sizes is None:
+def _sizes_iv(sizes, n_members):
+    if sizes is None:
         return list(_core.default_sizes(n_members))
-    sizes = _array(curve_sizes, "curve_sizes")
+    sizes = _array(sizes, "sizes")
     if sizes.ndim != 1 or sizes.size == 0 or sizes.dtype.kind not in "iu":
-        raise TypeError("`curve_sizes`: expected a non-empty 1-D sequence of integers")
+        raise TypeError("`sizes`: expected a non-empty 1-D sequence of integers")
     sizes = np.unique(sizes.astype(np.int64))
     if sizes[0] < 1 or sizes[-1] > n_members:
-        raise ValueError(f"`curve_sizes`: ensemble sizes must lie in 1..{n_members}, got {sizes.tolist()}")
+        raise ValueError(f"`sizes`: ensemble sizes must lie in 1..{n_members}, got {sizes.tolist()}")
     sizes = sizes.tolist()
     if sizes[-1] != n_members:
         sizes.append(n_members)  # the whole ensemble is always evaluated
     return sizes
 
 
-def _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_sizes):
+def _loss_iv(loss, task):
+    allowed = REGRESSION_LOSSES if task == "regression" else CLASSIFICATION_LOSSES
+    if loss is None:
+        return allowed[0]
+    if loss not in allowed:
+        raise ValueError(f"`loss`: for {task} expected one of {allowed}, got {loss!r}")
+    return loss
+
+
+def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes):
     """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core."""
     from .resampling import Resample
 
@@ -117,12 +127,7 @@ def _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_size
                 raise ValueError(f"`{name}`: at most 65536 classes are supported, found label {top:g}")
         n_classes = max(highest, int(y_top)) + 1
     y = np.ascontiguousarray(y, dtype=np.float64)
-    task = "regression" if kind == "regression" else "classification"
-    allowed = REGRESSION_METRICS if task == "regression" else CLASSIFICATION_METRICS
-    if metric is None:
-        metric = allowed[0]
-    elif metric not in allowed:
-        raise ValueError(f"`metric`: for {task} expected one of {allowed}, got {metric!r}")
+    loss = _loss_iv(loss, "regression" if kind == "regression" else "classification")
     if point_weights is not None:
         point_weights = _array(point_weights, "point_weights")
         if point_weights.ndim != 1 or point_weights.shape[0] != n_points:
@@ -132,42 +137,45 @@ def _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_size
         if point_weights.dtype.kind not in "iuf":
             raise TypeError(f"`point_weights`: expected numbers, got dtype {point_weights.dtype}")
         point_weights = np.ascontiguousarray(point_weights, dtype=np.float64)
-    sizes = _curve_sizes(curve_sizes, n_members)
-    return members, counts, y, kind, n_classes, metric, point_weights, n_jobs_value(n_jobs), sizes
+    sizes = _sizes_iv(sizes, n_members)
+    return members, counts, y, kind, n_classes, loss, point_weights, n_jobs_value(n_jobs), sizes
 
 
-def out_of_bag(members, counts, y, *, metric=None, point_weights=None, n_jobs=None,
-               curve_sizes=None) -> OutOfBag:
-    """Out-of-bag predictions and error of a bagged ensemble, and its error curve.
+
+def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None,
+               sizes=None) -> OutOfBag:
+    """Out-of-bag predictions and loss of a bagged ensemble, and its loss curve.
 
     For every training point only the members whose in-bag count of the point is zero
     are aggregated (Breiman 1996): the mean prediction for regression, the mean class
-    probability or the share of votes for classification. The error of these
-    predictions estimates the ensemble's error on new data without a hold-out set.
+    probability or the vote fraction for classification. The loss of these predictions
+    estimates the ensemble's test loss without a hold-out set; the loss curve repeats it
+    for the first k members at every ensemble size k of ``sizes``.
 
     Parameters
     ----------
     members : ndarray
         Member predictions on the training points, one of: float32/float64 regression
-        predictions of shape (members, n_points); integer class labels ``0..n_classes-1``
-        of shape (members, n_points) (majority vote; ties go to the lowest class index);
-        float class probabilities of shape (members, n_points, n_classes), each member's
-        row summing to 1 within 1e-6. Read without a copy, with any strides.
-    counts : ndarray of int, shape (members, n_points), or Resample
+        predictions of shape (n_members, n_points); integer class labels
+        ``0..n_classes-1`` of shape (n_members, n_points) (majority vote; ties go to the
+        lowest class index); float class probabilities of shape (n_members, n_points,
+        n_classes), each member's row summing to 1 within 1e-6. Read without a copy, with
+        any strides.
+    counts : ndarray of int, shape (n_members, n_points), or Resample
         In-bag counts, e.g. ``bagwise.resample(...).counts``; zero means out of bag. Any
         signed or unsigned integer dtype; negative counts are an error.
     y : array-like, shape (n_points,)
         Targets; class indices for classification.
-    metric : str, optional
-        The headline error: ``"squared_error"`` (default) or ``"absolute_error"`` for
+    loss : str, optional
+        The headline loss: ``"squared_error"`` (default) or ``"absolute_error"`` for
         regression; ``"error_rate"`` (default), ``"brier_score"`` or ``"log_loss"`` for
         classification. All of them are computed either way.
     point_weights : array-like, shape (n_points,), optional
-        Non-negative weights of the points in the error means (default: all 1).
+        Non-negative weights of the points in the loss means (default: all 1).
     n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
-    curve_sizes : sequence of int, optional
-        Ensemble sizes k at which the error of the first k members is evaluated (default:
+    sizes : sequence of int, optional
+        Ensemble sizes k at which the loss of the first k members is evaluated (default:
         about 8 geometrically spaced sizes per decade from 1 to the number of members).
         The full ensemble is always included.
 
@@ -177,10 +185,10 @@ def out_of_bag(members, counts, y, *, metric=None, point_weights=None, n_jobs=No
 
     Notes
     -----
-    Errors are weighted means over the points that have at least one out-of-bag member;
-    points without one get a NaN prediction, are left out of the errors, are counted in
-    ``n_without_out_of_bag`` and raise a ``RuntimeWarning`` (as do point weights that sum to zero
-    over the covered points, which make every error NaN). The Brier score is the
+    Losses are weighted means over the points that have at least one out-of-bag member;
+    points without one get a NaN prediction, are left out of the losses, are counted in
+    ``n_without_out_of_bag`` and raise a ``BagwiseWarning`` (as do point weights that sum
+    to zero over the covered points, which make every loss NaN). The Brier score is the
     multi-class form ``sum_c (p_c - [y = c])**2`` (twice scikit-learn's binary
     ``brier_score_loss``); the log loss uses ``-log(max(p_y, 1e-15))``.
 
@@ -189,100 +197,126 @@ def out_of_bag(members, counts, y, *, metric=None, point_weights=None, n_jobs=No
     >>> import numpy as np, bagwise
     >>> rng = np.random.default_rng(0)
     >>> y = rng.normal(size=500)
-    >>> draw = bagwise.resample(500, 100, seed=0)
+    >>> draw = bagwise.resample(500, 100, rng=0)
     >>> members = y + rng.normal(scale=0.5, size=(100, 500))   # noisy members
     >>> oob = bagwise.out_of_bag(members, draw.counts, y)
     >>> oob.n_without_out_of_bag, bool(oob.n_out_of_bag.min() > 15)
     (0, True)
-    >>> bool(abs(oob.error - 0.25 / 37) < 0.003)   # ≈ 0.5**2 / (members out of bag)
+    >>> bool(abs(oob.ensemble_loss - 0.25 / 37) < 0.003)   # ≈ 0.5**2 / (members out of bag)
     True
-    >>> oob.curve_sizes[:4].tolist(), int(oob.curve_sizes[-1])
+    >>> oob.sizes[:4].tolist(), int(oob.sizes[-1])
     ([1, 2, 3, 4], 100)
     """
-    (members, counts, y, kind, n_classes, metric, point_weights, n_jobs,
-     sizes) = _out_of_bag_iv(members, counts, y, metric, point_weights, n_jobs, curve_sizes)
+    (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
+     sizes) = _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes)
     state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
         members, counts, y, point_weights, sizes, kind, n_classes, n_jobs)
-    return OutOfBag._build(state, kind, metric, prediction, n_oob, probabilities)
+    return OutOfBag._build(state, kind, loss, prediction, n_oob, probabilities)
 
 
-def out_of_bag_stream(*, metric=None, n_jobs=None, curve_sizes=None) -> OutOfBagStream:
+def out_of_bag_stream(*, loss=None, n_jobs=None, sizes=None) -> OutOfBagStream:
     """Out-of-bag evaluation over chunks of points that need not fit in memory together.
 
     Feed consecutive chunks of points (all members each time) with
-    :meth:`OutOfBagStream.update` and call :meth:`OutOfBagStream.finish`; the result
-    equals :func:`out_of_bag` on the whole arrays (the error sums are compensated and
-    merged in order, so they agree to about 1e-15 relative). Parameters as in
-    :func:`out_of_bag`.
+    :meth:`OutOfBagStream.update` and call :meth:`OutOfBagStream.result`; the result
+    equals :func:`out_of_bag` on the whole arrays (the loss sums are compensated and
+    merged in order, so they agree to about 1e-15 relative). Streams over consecutive
+    parts of the points combine with :meth:`OutOfBagStream.merge` and pickle. Parameters
+    as in :func:`out_of_bag`.
 
     Examples
     --------
     >>> import numpy as np, bagwise
     >>> rng = np.random.default_rng(1)
     >>> y = rng.normal(size=1000)
-    >>> counts = bagwise.resample(1000, 50, seed=1).counts
+    >>> counts = bagwise.resample(1000, 50, rng=1).counts
     >>> members = y + rng.normal(size=(50, 1000))
     >>> stream = bagwise.out_of_bag_stream()
     >>> for start in range(0, 1000, 300):
     ...     part = slice(start, start + 300)
-    ...     stream.update(members[:, part], counts[:, part], y[part])
+    ...     _ = stream.update(members[:, part], counts[:, part], y[part])
     >>> whole = bagwise.out_of_bag(members, counts, y)
-    >>> bool(np.isclose(stream.finish().error, whole.error, rtol=1e-12))
+    >>> bool(np.isclose(stream.result().ensemble_loss, whole.ensemble_loss, rtol=1e-12))
     True
     """
-    if metric is not None and metric not in REGRESSION_METRICS + CLASSIFICATION_METRICS:
+    if loss is not None and loss not in REGRESSION_LOSSES + CLASSIFICATION_LOSSES:
         raise ValueError(
-            f"`metric`: expected one of {REGRESSION_METRICS + CLASSIFICATION_METRICS}, got {metric!r}"
+            f"`loss`: expected one of {REGRESSION_LOSSES + CLASSIFICATION_LOSSES}, got {loss!r}"
         )
-    return OutOfBagStream(metric, n_jobs_value(n_jobs), curve_sizes)
+    return OutOfBagStream(loss, n_jobs_value(n_jobs), sizes)
 
 
 class OutOfBagStream:
     """Accumulates an out-of-bag evaluation chunk of points by chunk (see
-    :func:`out_of_bag_stream`)."""
+    :func:`out_of_bag_stream`); pickles, and merges with a stream over later points."""
 
-    def __init__(self, metric, n_jobs, curve_sizes):
-        self._metric = metric
+    def __init__(self, loss, n_jobs, sizes):
+        self._loss = loss
         self._n_jobs = n_jobs
-        self._curve_sizes = curve_sizes
+        self._sizes = sizes
         self._kind = None
         self._state = None
         self._parts: list[tuple[np.ndarray, np.ndarray, np.ndarray | None]] = []
 
-    def update(self, members_chunk, counts_chunk, y_chunk, point_weights_chunk=None) -> None:
+    def _check_compatible(self, kind, n_members, n_classes_of_probabilities):
+        """Raises unless a chunk (or stream) of ``kind`` fits the chunks seen so far."""
+        if self._state is None:
+            return
+        if kind != self._kind:
+            raise ValueError(f"`members_chunk`: holds {kind} but earlier chunks held {self._kind}")
+        if n_members != self._state.n_members:
+            raise ValueError(f"`members_chunk`: has {n_members} members but earlier chunks had "
+                             f"{self._state.n_members}")
+        if kind == "probabilities" and n_classes_of_probabilities != self._parts[0][2].shape[1]:
+            raise ValueError(f"`members_chunk`: has {n_classes_of_probabilities} classes but "
+                             f"earlier chunks had {self._parts[0][2].shape[1]}")
+
+    def update(self, members_chunk, counts_chunk, y_chunk, point_weights_chunk=None) -> OutOfBagStream:
         """Add the next chunk of points: arrays as in :func:`out_of_bag`, restricted to the
-        chunk's points (e.g. ``members[:, a:b]`` of a memory map)."""
+        chunk's points (e.g. ``members[:, a:b]`` of a memory map). Returns the stream."""
         if self._kind is not None:
             kind = _members_kind(_array(members_chunk, "members_chunk"))
             if kind != self._kind:
                 raise ValueError(f"`members_chunk`: holds {kind} but earlier chunks held {self._kind}")
-        (members, counts, y, kind, n_classes, metric, point_weights, n_jobs,
-         sizes) = _out_of_bag_iv(members_chunk, counts_chunk, y_chunk, self._metric,
-                                 point_weights_chunk, self._n_jobs, self._curve_sizes)
-        if self._state is not None:
-            if members.shape[0] != self._state.members:
-                raise ValueError(
-                    f"`members_chunk`: has {members.shape[0]} members but earlier chunks had "
-                    f"{self._state.members}"
-                )
-            if kind == "probabilities" and members.shape[2] != self._parts[0][2].shape[1]:
-                raise ValueError(
-                    f"`members_chunk`: has {members.shape[2]} classes but earlier chunks had "
-                    f"{self._parts[0][2].shape[1]}"
-                )
+        (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
+         sizes) = _out_of_bag_iv(members_chunk, counts_chunk, y_chunk, self._loss,
+                                 point_weights_chunk, self._n_jobs, self._sizes)
+        self._check_compatible(kind, members.shape[0],
+                               members.shape[2] if kind == "probabilities" else None)
         state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
                                              n_classes, n_jobs)
         self._state = state if self._state is None else self._state.merge(state)
-        self._kind, self._metric = kind, metric
+        self._kind, self._loss = kind, loss
         self._parts.append(part)
+        return self
+
+    def merge(self, other: OutOfBagStream) -> OutOfBagStream:
+        """Add the points of ``other``, a stream over the points that follow this one's
+        (same members, sizes and kind). Returns this stream."""
+        if not isinstance(other, OutOfBagStream):
+            raise TypeError(f"`other`: expected an OutOfBagStream, got {type(other).__name__}")
+        if other._state is None:
+            return self
+        if self._state is None:
+            self._kind, self._loss = other._kind, other._loss
+            self._state, self._parts = other._state, list(other._parts)
+            return self
+        probabilities = other._parts[0][2]
+        self._check_compatible(other._kind, other._state.n_members,
+                               None if probabilities is None else probabilities.shape[1])
+        if other._loss != self._loss:
+            raise ValueError(f"`other`: reports {other._loss!r} but this stream {self._loss!r}")
+        self._state = self._state.merge(other._state)
+        self._parts.extend(other._parts)
+        return self
 
     def __repr__(self) -> str:
         if self._state is None:
             return "OutOfBagStream (no chunk yet)"
-        return (f"OutOfBagStream ({self._kind}, {self._state.members} members, "
-                f"{self._state.points:,} points in {len(self._parts)} chunks)")
+        return (f"OutOfBagStream ({self._kind}, {self._state.n_members} members, "
+                f"{self._state.n_points:,} points in {len(self._parts)} chunks)")
 
-    def finish(self) -> OutOfBag:
+    def result(self) -> OutOfBag:
         """The :class:`OutOfBag` result of all chunks so far."""
         if self._state is None:
             raise ValueError("`members_chunk`: no chunk was added; call update() first")
@@ -296,12 +330,13 @@ class OutOfBagStream:
                 pad = np.where((n_part == 0)[:, None], np.nan, 0.0)
                 blocks.append(np.hstack([probs, np.broadcast_to(pad, (len(n_part), width - probs.shape[1]))]))
             probabilities = np.concatenate(blocks)
-        return OutOfBag._build(self._state, self._kind, self._metric, prediction, n_oob,
+        return OutOfBag._build(self._state, self._kind, self._loss, prediction, n_oob,
                                probabilities)
 
 
-class OutOfBag:
-    """Out-of-bag predictions and errors of a bagged ensemble.
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class OutOfBag(Result):
+    """Out-of-bag predictions and losses of a bagged ensemble.
 
     Attributes
     ----------
@@ -309,12 +344,12 @@ class OutOfBag:
         ``"regression"`` or ``"classification"``.
     kind : str
         How the members predicted: ``"regression"``, ``"labels"`` or ``"probabilities"``.
-    members, n_points : int
+    n_members, n_points : int
         Number of members and of training points.
-    metric : str
-        Name of the headline error.
-    error : float
-        The headline error of the whole ensemble (the value of ``metric``).
+    loss : str
+        Name of the headline loss.
+    ensemble_loss : float
+        The headline loss of the whole ensemble (the value of ``loss``).
     prediction : ndarray of float64, shape (n_points,)
         Out-of-bag prediction of every point: the mean of its out-of-bag members
         (regression) or the voted class index (classification; ties to the lowest index).
@@ -325,109 +360,106 @@ class OutOfBag:
     n_out_of_bag : ndarray of int64, shape (n_points,)
         Number of members for which the point is out of bag.
     n_without_out_of_bag : int
-        Points with no out-of-bag member (left out of every error).
+        Points with no out-of-bag member (left out of every loss).
     squared_error, absolute_error : float or None
         Regression: weighted mean squared and absolute error (None for classification).
     error_rate, brier_score, log_loss : float or None
         Classification: weighted share misclassified, multi-class Brier score
         ``sum_c (p_c - [y = c])**2`` and log loss with ``p`` floored at 1e-15 (None for
         regression).
-    curve_sizes : ndarray of int64
-        Ensemble sizes k of the error curve (the first k members), ending at ``members``.
-    curve_error : ndarray of float64
-        The headline error of the first k members at each size (NaN when no point is
-        covered yet).
-    curve_covered : ndarray of int64
-        Points with at least one out-of-bag member among the first k members.
+    sizes : ndarray of int64
+        Ensemble sizes k of the loss curve (the first k members), ending at ``n_members``.
+    curve : ndarray of float64
+        The headline loss of the first k members at each of ``sizes`` (NaN when no point
+        is covered yet); :meth:`loss_curve` gives the other losses.
+    n_covered : ndarray of int64
+        At each of ``sizes``, the points with at least one out-of-bag member among the
+        first k members.
     """
 
-    def __init__(self, *, task, kind, members, n_points, metric, prediction, probabilities,
-                 n_out_of_bag, n_without_out_of_bag, errors, curve_sizes, curve):
-        self.task = task
-        self.kind = kind
-        self.members = members
-        self.n_points = n_points
-        self.metric = metric
-        self.prediction = prediction
-        self.probabilities = probabilities
-        self.n_out_of_bag = n_out_of_bag
-        self.n_without_out_of_bag = n_without_out_of_bag
-        names = REGRESSION_METRICS + CLASSIFICATION_METRICS
-        for name in names:
-            setattr(self, name, errors.get(name))
-        self.error = errors[metric]
-        self.curve_sizes = curve_sizes
-        self._curve = curve
-        self.curve_covered = curve["covered"]
-        self.curve_error = curve[metric]
+    _title = "OutOfBag"
+
+    task: str
+    kind: str
+    n_members: int
+    n_points: int
+    loss: str
+    ensemble_loss: float
+    prediction: np.ndarray
+    probabilities: np.ndarray | None
+    n_out_of_bag: np.ndarray
+    n_without_out_of_bag: int
+    squared_error: float | None
+    absolute_error: float | None
+    error_rate: float | None
+    brier_score: float | None
+    log_loss: float | None
+    sizes: np.ndarray
+    curve: np.ndarray
+    n_covered: np.ndarray
+    _curves: dict = dataclasses.field(repr=False)
 
     @classmethod
-    def _build(cls, state, kind, metric, prediction, n_oob, probabilities):
-        raw = state.curve()
-        curve = {name: np.asarray(values, dtype=np.float64) for name, values in raw.items()}
-        curve["covered"] = np.asarray(raw["covered"], dtype=np.int64)
-        errors = {name: float(values[-1]) for name, values in curve.items() if name != "covered"}
-        missing = int(state.without_out_of_bag)
+    def _build(cls, state, kind, loss, prediction, n_oob, probabilities):
+        """The one place an OutOfBag is made: from the core state and per-point arrays;
+        warns (once each) about uncovered points and weights summing to zero."""
+        raw = state.losses()
+        curves = {name: np.asarray(values, dtype=np.float64)
+                  for name in REGRESSION_LOSSES + CLASSIFICATION_LOSSES
+                  if (values := getattr(raw, name)) is not None}
+        losses = {name: float(values[-1]) for name, values in curves.items()}
+        n_covered = np.asarray(raw.n_covered, dtype=np.int64)
+        missing = int(state.n_without_out_of_bag)
         if missing:
-            warnings.warn(
-                f"{missing} of {state.points} points have no out-of-bag member: their "
-                "prediction is NaN and they are left out of the errors (use more members)",
-                RuntimeWarning, stacklevel=3,
-            )
-        covered = int(curve["covered"][-1])
-        if covered and math.isnan(errors[metric]):
-            warnings.warn(
-                f"`point_weights`: the weights of the {covered} covered points sum to zero, so every "
-                "error is NaN",
-                RuntimeWarning, stacklevel=3,
-            )
-        return cls(task=state.task, kind=kind, members=state.members, n_points=int(state.points),
-                   metric=metric, prediction=prediction, probabilities=probabilities,
-                   n_out_of_bag=n_oob, n_without_out_of_bag=missing, errors=errors,
-                   curve_sizes=np.asarray(state.sizes, dtype=np.int64), curve=curve)
+            warn(f"{missing} of {state.n_points} points have no out-of-bag member: their "
+                 "prediction is NaN and they are left out of the losses (use more members)")
+        covered = int(n_covered[-1])
+        if covered and math.isnan(losses[loss]):
+            warn(f"`point_weights`: the weights of the {covered} covered points sum to zero, so "
+                 "every loss is NaN")
+        return cls(task=state.task, kind=kind, n_members=state.n_members,
+                   n_points=int(state.n_points), loss=loss, ensemble_loss=losses[loss],
+                   prediction=prediction, probabilities=probabilities, n_out_of_bag=n_oob,
+                   n_without_out_of_bag=missing,
+                   **{name: losses.get(name) for name in REGRESSION_LOSSES + CLASSIFICATION_LOSSES},
+                   sizes=np.asarray(state.sizes, dtype=np.int64), curve=curves[loss],
+                   n_covered=n_covered, _curves=curves)
 
     @property
     def covered(self) -> np.ndarray:
         """Boolean mask of the points with at least one out-of-bag member."""
         return self.n_out_of_bag > 0
 
-    def curve(self, metric: str | None = None) -> np.ndarray:
-        """Error of the first k members at every ``curve_sizes`` entry for ``metric``
-        (default: the headline metric)."""
-        metric = self.metric if metric is None else metric
-        if metric not in self._curve or metric == "covered":
-            allowed = REGRESSION_METRICS if self.task == "regression" else CLASSIFICATION_METRICS
-            raise ValueError(f"`metric`: for {self.task} expected one of {allowed}, got {metric!r}")
-        return self._curve[metric]
+    def loss_curve(self, loss: str | None = None) -> np.ndarray:
+        """Loss of the first k members at every entry of ``sizes`` for ``loss`` (default:
+        the headline loss, i.e. ``curve``)."""
+        loss = self.loss if loss is None else loss
+        if loss not in self._curves:
+            allowed = REGRESSION_LOSSES if self.task == "regression" else CLASSIFICATION_LOSSES
+            raise ValueError(f"`loss`: for {self.task} expected one of {allowed}, got {loss!r}")
+        return self._curves[loss]
 
     def _rows(self) -> list[tuple[str, str]]:
         rows = [
             ("task", self.task if self.kind == "regression" else f"{self.task} ({self.kind})"),
-            ("members x points", f"{self.members:,} x {self.n_points:,}"),
+            ("members x points", f"{self.n_members:,} x {self.n_points:,}"),
         ]
-        names = REGRESSION_METRICS if self.task == "regression" else CLASSIFICATION_METRICS
+        names = REGRESSION_LOSSES if self.task == "regression" else CLASSIFICATION_LOSSES
         rows += [(name.replace("_", " "), f"{getattr(self, name):.6g}") for name in names]
         rows.append(("out-of-bag members", f"{self.n_out_of_bag.mean():.1f} per point on average"))
         rows.append(("points without any", f"{self.n_without_out_of_bag:,}"))
-        k = len(self.curve_sizes)
+        k = len(self.sizes)
         if k > 1:
-            first = self.curve_error[0]
-            rows.append((f"{self.metric.replace('_', ' ')} curve",
-                         f"{first:.4g} (k={self.curve_sizes[0]}) -> {self.curve_error[-1]:.4g} "
-                         f"(k={self.curve_sizes[-1]}), {k} sizes"))
+            rows.append((f"{self.loss.replace('_', ' ')} curve",
+                         f"{self.curve[0]:.4g} (size {self.sizes[0]}) -> {self.curve[-1]:.4g} "
+                         f"(size {self.sizes[-1]}), {k} sizes"))
         return rows
 
     def _reading(self) -> str:
-        text = f"out-of-bag {self.metric.replace('_', ' ')} {self.error:.4g}"
+        text = f"out-of-bag {self.loss.replace('_', ' ')} {self.ensemble_loss:.4g}"
         if self.n_without_out_of_bag:
             text += f"; {self.n_without_out_of_bag:,} points had no out-of-bag member"
         return text
-
-    def __repr__(self) -> str:
-        return text_block("OutOfBag", self._rows(), self._reading())
-
-    def _repr_html_(self) -> str:
-        return safe_html(self, lambda: html_block("OutOfBag", self._rows(), self._reading()))
 
     def to_frame(self):
         """One row per point: ``prediction``, ``n_out_of_bag`` and, for classification,
@@ -441,10 +473,9 @@ class OutOfBag:
         return pd.DataFrame(columns)
 
     def curve_frame(self):
-        """One row per curve size: ``size``, ``covered`` and every metric of the task."""
+        """One row per curve size: ``size``, ``n_covered`` and every loss of the task."""
         import pandas as pd
 
-        frame = {"size": self.curve_sizes, "covered": self.curve_covered}
-        frame.update({k: v for k, v in self._curve.items() if k != "covered"})
+        frame = {"size": self.sizes, "n_covered": self.n_covered}
+        frame.update(self._curves)
         return pd.DataFrame(frame)
-

@@ -2,15 +2,17 @@
 
 from __future__ import annotations
 
+import dataclasses
+import functools
 import math
 from typing import Literal
 
 import numpy as np
 
 from . import _core
-from ._display import html_block, safe_html, text_block
 from ._progress import ProgressArg, progress_callback
-from ._validation import label_codes, n_jobs_value, positive_int, seed_value
+from ._results import Result
+from ._validation import label_codes, n_jobs_value, positive_int, rng_seed
 
 __all__ = ["Resample", "resample"]
 
@@ -18,9 +20,9 @@ SchemeName = Literal["bootstrap", "subsample", "bayesian"]
 _SCHEMES = ("bootstrap", "subsample", "bayesian")
 
 
-def _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length, seed, n_jobs):
+def _resample_iv(n_rows, n_members, scheme, fraction, strata, groups, block_length, rng, n_jobs):
     n_rows = positive_int(n_rows, "n_rows")
-    members = positive_int(members, "members")
+    n_members = positive_int(n_members, "n_members")
     if scheme not in _SCHEMES:
         raise ValueError(f"`scheme`: expected one of {_SCHEMES}, got {scheme!r}")
     if isinstance(fraction, bool) or not isinstance(fraction, (int, float, np.floating)):
@@ -39,20 +41,20 @@ def _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length
         block_length = positive_int(block_length, "block_length")
         if block_length > n_rows:
             raise ValueError(f"`block_length`: must be at most n_rows ({n_rows}), got {block_length}")
-    return (n_rows, members, scheme, fraction, strata_codes, group_codes, block_length,
-            seed_value(seed), n_jobs_value(n_jobs))
+    return (n_rows, n_members, scheme, fraction, strata_codes, group_codes, block_length,
+            rng_seed(rng), n_jobs_value(n_jobs))
 
 
 def resample(
     n_rows: int,
-    members: int,
+    n_members: int,
     *,
     scheme: SchemeName = "bootstrap",
     fraction: float = 1.0,
     strata=None,
     groups=None,
     block_length: int | None = None,
-    seed: int | None = 0,
+    rng: int | np.random.Generator | None = 0,
     n_jobs: int | None = None,
     progress: ProgressArg = False,
 ) -> Resample:
@@ -62,7 +64,7 @@ def resample(
     ----------
     n_rows : int
         Number of training rows.
-    members : int
+    n_members : int
         Number of ensemble members.
     scheme : {"bootstrap", "subsample", "bayesian"}
         ``"bootstrap"``: ``round(n_rows * fraction)`` draws with replacement (Efron 1979).
@@ -81,10 +83,12 @@ def resample(
     block_length : int, optional
         Moving-block bootstrap for ordered rows (Künsch 1989): blocks of this many
         consecutive rows, drawn with replacement until the draw size is reached.
-    seed : int or None
-        Seed of the member streams. Member ``m`` always uses stream ``m``, so results do not
-        depend on ``n_jobs`` and the first members do not change when ``members`` grows.
-        ``None`` draws a fresh seed, kept in ``Resample.seed``.
+    rng : int, numpy.random.Generator or None
+        Seed of the member streams (default 0). An int seeds them directly; a Generator
+        gives the seed ``int(rng.integers(2**63))``; ``None`` draws a fresh one. The seed
+        used is kept in ``Resample.seed``. Member ``m`` always uses stream ``m``, so results
+        do not depend on ``n_jobs`` and the first members do not change when ``n_members``
+        grows.
     n_jobs : int, optional
         Worker threads (default: all cores).
     progress : bool or callable
@@ -97,7 +101,7 @@ def resample(
     Examples
     --------
     >>> import bagwise
-    >>> draw = bagwise.resample(1000, 200, seed=1)
+    >>> draw = bagwise.resample(1000, 200, rng=1)
     >>> draw.counts.shape, draw.counts.dtype
     ((200, 1000), dtype('uint8'))
     >>> bool((draw.counts.sum(axis=1) == 1000).all())
@@ -105,9 +109,9 @@ def resample(
     >>> round(float(draw.out_of_bag.mean()), 2)  # close to (1 - 1/n)^n ≈ 0.368
     0.37
     """
-    (n_rows, members, scheme, fraction, strata_codes, group_codes, block_length, seed,
-     n_jobs) = _resample_iv(n_rows, members, scheme, fraction, strata, groups, block_length,
-                             seed, n_jobs)
+    (n_rows, n_members, scheme, fraction, strata_codes, group_codes, block_length, seed,
+     n_jobs) = _resample_iv(n_rows, n_members, scheme, fraction, strata, groups, block_length,
+                             rng, n_jobs)
     plan = _core.Resampler(
         n_rows,
         scheme,
@@ -118,9 +122,9 @@ def resample(
     )
     with progress_callback(progress, "resampling") as callback:
         if scheme == "bayesian":
-            counts, weights = None, plan.bayesian_weights(seed, members, n_jobs, callback)
+            counts, weights = None, plan.bayesian_weights(seed, n_members, n_jobs, callback)
         else:
-            counts, weights = plan.counts(seed, members, n_jobs, callback), None
+            counts, weights = plan.counts(seed, n_members, n_jobs, callback), None
     if strata_codes is not None:
         design, labels = "strata", strata_codes
     elif group_codes is not None:
@@ -130,19 +134,20 @@ def resample(
     else:
         design, labels = "rows", None
     return Resample(
-        n_rows=n_rows, members=members, scheme=scheme, fraction=fraction, design=design,
-        labels=labels, block_length=block_length, seed=seed,
-        draws_per_member=plan.draws_per_member, counts=counts, weights=weights,
+        n_rows=n_rows, n_members=n_members, scheme=scheme, fraction=fraction, design=design,
+        block_length=block_length, seed=seed, draws_per_member=plan.draws_per_member,
+        _labels=labels, _counts=counts, _weights=weights,
     )
 
 
-class Resample:
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class Resample(Result):
     """The rows drawn for every member of an ensemble.
 
     Attributes
     ----------
-    n_rows, members : int
-        Shape of the draw: ``(members, n_rows)``.
+    n_rows, n_members : int
+        Shape of the draw: ``(n_members, n_rows)``.
     scheme : str
         ``"bootstrap"``, ``"subsample"`` or ``"bayesian"``.
     fraction : float
@@ -152,33 +157,33 @@ class Resample:
     block_length : int or None
         Length of the moving blocks (block design only).
     seed : int
-        The seed actually used (also when ``seed=None`` was passed).
+        The integer seed of the member streams actually used (also when ``rng`` was a
+        Generator or ``None``).
     draws_per_member : int
         Rows drawn per member (expected rows for group designs, whose draws vary).
-    counts : ndarray of unsigned int, shape (members, n_rows)
+    counts : ndarray of unsigned int, shape (n_members, n_rows)
         In-bag count of every row in every member, in the narrowest unsigned dtype that
         holds the largest count drawn (uint8 unless a row is drawn over 255 times); counts
         never wrap around. Not defined for ``scheme="bayesian"`` (raises ``ValueError``).
-    out_of_bag : ndarray of bool, shape (members, n_rows)
+    out_of_bag : ndarray of bool, shape (n_members, n_rows)
         ``counts == 0``; made on first access.
-    weights : ndarray of float64, shape (members, n_rows)
+    row_weights : ndarray of float64, shape (n_members, n_rows)
         Row weights: the counts as floats (made on first access) or the Bayesian weights.
     """
 
-    def __init__(self, *, n_rows, members, scheme, fraction, design, labels, block_length,
-                 seed, draws_per_member, counts, weights):
-        self.n_rows = n_rows
-        self.members = members
-        self.scheme = scheme
-        self.fraction = fraction
-        self.design = design
-        self.block_length = block_length
-        self.seed = seed
-        self.draws_per_member = draws_per_member
-        self._labels = labels
-        self._counts = counts
-        self._weights = weights
-        self._out_of_bag = None
+    _title = "Resample"
+
+    n_rows: int
+    n_members: int
+    scheme: str
+    fraction: float
+    design: str
+    block_length: int | None
+    seed: int
+    draws_per_member: int
+    _labels: tuple | None = dataclasses.field(repr=False)
+    _counts: np.ndarray | None = dataclasses.field(repr=False)
+    _weights: np.ndarray | None = dataclasses.field(repr=False)
 
     # -- arrays -------------------------------------------------------------------------
     @property
@@ -186,25 +191,23 @@ class Resample:
         if self._counts is None:
             raise ValueError(
                 "`counts`: not defined for scheme='bayesian' - every row gets a positive "
-                "continuous weight, so no row is out of bag; use `weights`"
+                "continuous weight, so no row is out of bag; use `row_weights`"
             )
         return self._counts
 
-    @property
+    @functools.cached_property
     def out_of_bag(self) -> np.ndarray:
-        if self._out_of_bag is None:
-            if self._counts is None:
-                raise ValueError(
-                    "`out_of_bag`: not defined for scheme='bayesian' - every row has a "
-                    "positive weight in every member"
-                )
-            self._out_of_bag = self._counts == 0
-        return self._out_of_bag
+        if self._counts is None:
+            raise ValueError(
+                "`out_of_bag`: not defined for scheme='bayesian' - every row has a "
+                "positive weight in every member"
+            )
+        return self._counts == 0
 
-    @property
-    def weights(self) -> np.ndarray:
+    @functools.cached_property
+    def row_weights(self) -> np.ndarray:
         if self._weights is None:
-            self._weights = self._counts.astype(np.float64)
+            return self._counts.astype(np.float64)
         return self._weights
 
     @property
@@ -219,7 +222,7 @@ class Resample:
 
     @property
     def block_starts(self) -> np.ndarray:
-        """First row of every moving block, shape (members, blocks per member).
+        """First row of every moving block, shape (n_members, blocks per member).
 
         Redrawn from the same member streams as ``counts``, so the two always agree; the
         last block of a member is cut short when the draw size is not a multiple of
@@ -229,11 +232,11 @@ class Resample:
             raise ValueError("`block_starts`: only defined when `block_length` was given")
         plan = _core.Resampler(self.n_rows, self.scheme, self.fraction,
                                block_length=self.block_length)
-        return plan.block_starts(self.seed, self.members)
+        return plan.block_starts(self.seed, self.n_members)
 
     # -- summaries ----------------------------------------------------------------------
     def out_of_bag_share(self) -> np.ndarray:
-        """Share of rows that each member leaves out, shape (members,)."""
+        """Share of rows that each member leaves out, shape (n_members,)."""
         return self.out_of_bag.mean(axis=1)
 
     def expected_out_of_bag_share(self) -> float:
@@ -285,7 +288,7 @@ class Resample:
             ("scheme", self.scheme if self.fraction == 1 else f"{self.scheme} ({self.fraction:g})"),
             ("design", self.design + (f" (length {self.block_length})"
                                       if self.design == "blocks" else "")),
-            ("members x rows", f"{self.members:,} x {self.n_rows:,}"),
+            ("members x rows", f"{self.n_members:,} x {self.n_rows:,}"),
             ("draws per member", f"{self.draws_per_member:,}"),
             ("seed", str(self.seed)),
         ]
@@ -308,12 +311,6 @@ class Resample:
         share = self.out_of_bag_share().mean()
         return f"each member leaves out {share:.1%} of the rows on average"
 
-    def __repr__(self) -> str:
-        return text_block("Resample", self._rows(), self._reading())
-
-    def _repr_html_(self) -> str:
-        return safe_html(self, lambda: html_block("Resample", self._rows(), self._reading()))
-
     def to_frame(self):
         """One row per member: draw size, distinct rows, out-of-bag share, largest count.
 
@@ -321,7 +318,7 @@ class Resample:
         """
         import pandas as pd
 
-        member = np.arange(self.members)
+        member = np.arange(self.n_members)
         if self._counts is None:
             w = self._weights
             return pd.DataFrame({"member": member, "weight_min": w.min(axis=1),

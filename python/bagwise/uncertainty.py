@@ -167,7 +167,7 @@ def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGra
     Examples
     --------
     >>> import numpy as np, bagwise
-    >>> counts = bagwise.resample(100, 50, seed=0).counts
+    >>> counts = bagwise.resample(100, 50, rng=0).counts
     >>> gram = bagwise.count_gram(counts)
     >>> gram.gram.shape
     (50, 50)
@@ -321,7 +321,7 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
     >>> import numpy as np, bagwise
     >>> rng = np.random.default_rng(0)
     >>> x = rng.normal(size=200)
-    >>> counts = bagwise.resample(200, 4000, seed=0).counts
+    >>> counts = bagwise.resample(200, 4000, rng=0).counts
     >>> bagged_means = (counts @ x / 200)[:, None]      # one "prediction" per member
     >>> result = bagwise.prediction_variance(bagged_means, counts)
     >>> ideal = x.var() / 200                            # Σ(x - x̄)² / n²

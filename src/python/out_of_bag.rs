@@ -4,11 +4,11 @@ use numpy::ndarray::{Dimension, Ix2, Ix3};
 use numpy::{PyArrayMethods, PyReadonlyArray, PyReadonlyArray1};
 use pyo3::exceptions::{PyTypeError, PyValueError};
 use pyo3::prelude::*;
-use pyo3::types::PyDict;
+use pyo3::types::PyBytes;
 
 use super::{run_core, to_py_err, zeros_nd, FloatArray};
 use crate::out_of_bag::{
-    default_curve_sizes, out_of_bag, ErrorSums, InBagCounts, Labels, MemberPredictions,
+    default_curve_sizes, out_of_bag, InBagCounts, Labels, LossCurves, MemberPredictions,
     OutOfBagPartial, PointOutputs, Probabilities, Task, Values,
 };
 
@@ -61,12 +61,14 @@ macro_rules! int_array {
     };
 }
 
-type Metric = fn(&ErrorSums) -> f64;
-
 /// Per-point outputs of one chunk: prediction, OOB member counts, class probabilities.
-type ChunkArrays = (Py<PyAny>, Py<PyAny>, Option<Py<PyAny>>);
+type ChunkArrays<'py> = (
+    Bound<'py, PyAny>,
+    Bound<'py, PyAny>,
+    Option<Bound<'py, PyAny>>,
+);
 
-/// The mergeable error sums of an out-of-bag evaluation over some points.
+/// The mergeable loss sums of an out-of-bag evaluation over some points.
 #[pyclass(module = "bagwise._core", name = "OutOfBagState", frozen)]
 pub struct PyOutOfBagState {
     inner: OutOfBagPartial,
@@ -90,12 +92,12 @@ impl PyOutOfBagState {
     }
 
     #[getter]
-    fn members(&self) -> usize {
+    fn n_members(&self) -> usize {
         self.inner.members()
     }
 
     #[getter]
-    fn points(&self) -> u64 {
+    fn n_points(&self) -> u64 {
         self.inner.points()
     }
 
@@ -105,131 +107,206 @@ impl PyOutOfBagState {
     }
 
     #[getter]
-    fn without_out_of_bag(&self) -> u64 {
+    fn n_without_out_of_bag(&self) -> u64 {
         self.inner.without_out_of_bag()
     }
 
-    /// Per curve size: `covered` points and the weighted mean of every metric of the task.
-    fn curve<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
-        let curve = self.inner.curve();
-        let out = PyDict::new(py);
-        out.set_item(
-            "covered",
-            curve.iter().map(|e| e.covered).collect::<Vec<_>>(),
-        )?;
-        let metrics: &[(&str, Metric)] = match self.inner.task() {
-            Task::Regression => &[
-                ("squared_error", |e| e.squared_error()),
-                ("absolute_error", |e| e.absolute_error()),
-            ],
-            Task::Classification { .. } => &[
-                ("error_rate", |e| e.error_rate()),
-                ("brier_score", |e| e.brier_score()),
-                ("log_loss", |e| e.log_loss()),
-            ],
-        };
-        for (name, metric) in metrics {
-            out.set_item(*name, curve.iter().map(metric).collect::<Vec<f64>>())?;
+    /// The losses of the task at every curve size.
+    fn losses(&self) -> PyLossCurves {
+        PyLossCurves {
+            inner: self.inner.losses(),
         }
-        Ok(out)
+    }
+
+    /// The state as bytes (postcard behind a version number).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Bound<'py, PyBytes> {
+        PyBytes::new(py, &self.inner.to_bytes())
+    }
+
+    #[staticmethod]
+    fn from_bytes(data: &[u8]) -> PyResult<Self> {
+        OutOfBagPartial::from_bytes(data)
+            .map(|inner| PyOutOfBagState { inner })
+            .map_err(to_py_err)
+    }
+
+    fn __reduce__<'py>(
+        slf: &Bound<'py, Self>,
+    ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let py = slf.py();
+        let from_bytes = py.get_type::<PyOutOfBagState>().getattr("from_bytes")?;
+        Ok((from_bytes, (slf.get().to_bytes(py),)))
     }
 }
 
-/// Out-of-bag predictions of a chunk of points and its mergeable error state.
+/// The losses of an out-of-bag state at every curve size (`None` for the other task's).
+#[pyclass(module = "bagwise._core", name = "LossCurves", frozen)]
+pub struct PyLossCurves {
+    inner: LossCurves,
+}
+
+#[pymethods]
+impl PyLossCurves {
+    #[getter]
+    fn n_covered(&self) -> Vec<u64> {
+        self.inner.n_covered.clone()
+    }
+    #[getter]
+    fn squared_error(&self) -> Option<Vec<f64>> {
+        self.inner.squared_error.clone()
+    }
+    #[getter]
+    fn absolute_error(&self) -> Option<Vec<f64>> {
+        self.inner.absolute_error.clone()
+    }
+    #[getter]
+    fn error_rate(&self) -> Option<Vec<f64>> {
+        self.inner.error_rate.clone()
+    }
+    #[getter]
+    fn brier_score(&self) -> Option<Vec<f64>> {
+        self.inner.brier_score.clone()
+    }
+    #[getter]
+    fn log_loss(&self) -> Option<Vec<f64>> {
+        self.inner.log_loss.clone()
+    }
+}
+
+/// Member predictions of one of the three kinds, read without a copy.
+enum Members<'py> {
+    Values(FloatArray<'py, Ix2>),
+    Probabilities(FloatArray<'py, Ix3>),
+    Labels(IntArray<'py, Ix2>, usize),
+}
+
+impl<'py> Members<'py> {
+    /// `kind` is "regression", "labels" (needs `n_classes`) or "probabilities".
+    fn extract(
+        members: &Bound<'py, PyAny>,
+        kind: &str,
+        n_classes: Option<usize>,
+    ) -> PyResult<Self> {
+        Ok(match (kind, n_classes) {
+            ("regression", _) => Members::Values(FloatArray::extract(members, "members")?),
+            ("probabilities", _) => {
+                Members::Probabilities(FloatArray::extract(members, "members")?)
+            }
+            ("labels", Some(c)) => Members::Labels(IntArray::extract(members, "members")?, c),
+            ("labels", None) => {
+                return Err(PyValueError::new_err(
+                    "`members`: class labels need the number of classes",
+                ))
+            }
+            (other, _) => {
+                return Err(PyValueError::new_err(format!(
+                    "`members`: unknown kind {other:?} (regression, labels, probabilities)"
+                )))
+            }
+        })
+    }
+
+    /// The core's view of the predictions.
+    fn view(&self) -> PyResult<Box<dyn MemberPredictions + '_>> {
+        let view: Box<dyn MemberPredictions + '_> = match self {
+            Members::Values(v) => with_float!(v, |a| Box::new(Values(a))),
+            Members::Probabilities(p) => with_float!(p, |a| Box::new(Probabilities(a))),
+            Members::Labels(l, c) => {
+                int_array!(l, a => Box::new(Labels::new(a.as_array(), *c).map_err(to_py_err)?))
+            }
+        };
+        Ok(view)
+    }
+}
+
+/// Numpy-owned per-point output arrays of one chunk, filled in place by the core.
+struct Outputs<'py> {
+    prediction: Bound<'py, numpy::PyArrayDyn<f64>>,
+    n_out_of_bag: Bound<'py, numpy::PyArrayDyn<i64>>,
+    probabilities: Option<Bound<'py, numpy::PyArrayDyn<f64>>>,
+}
+
+impl<'py> Outputs<'py> {
+    fn new(py: Python<'py>, task: Task, n_points: usize) -> PyResult<Self> {
+        let probabilities = match task {
+            Task::Regression => None,
+            task => Some(zeros_nd::<f64>(py, vec![n_points, task.outputs()])?),
+        };
+        Ok(Outputs {
+            prediction: zeros_nd::<f64>(py, vec![n_points])?,
+            n_out_of_bag: zeros_nd::<i64>(py, vec![n_points])?,
+            probabilities,
+        })
+    }
+
+    /// The core's view of the buffers.
+    fn slices(&self) -> PointOutputs<'_> {
+        // SAFETY: the arrays were created in `new` and are not shared with Python yet.
+        unsafe {
+            PointOutputs {
+                prediction: self.prediction.as_slice_mut().expect("contiguous"),
+                n_out_of_bag: self.n_out_of_bag.as_slice_mut().expect("contiguous"),
+                probabilities: match &self.probabilities {
+                    Some(p) => p.as_slice_mut().expect("contiguous"),
+                    None => &mut [],
+                },
+            }
+        }
+    }
+
+    fn into_arrays(self) -> ChunkArrays<'py> {
+        let probabilities = self.probabilities.map(Bound::into_any);
+        (
+            self.prediction.into_any(),
+            self.n_out_of_bag.into_any(),
+            probabilities,
+        )
+    }
+}
+
+/// Out-of-bag predictions of a chunk of points and its mergeable loss state.
 ///
 /// `kind` is "regression", "labels" (needs `n_classes`) or "probabilities".
 #[pyfunction]
-#[pyo3(signature = (members, counts, y, weights, sizes, kind, n_classes=None, n_jobs=None))]
+#[pyo3(signature = (members, counts, y, point_weights, sizes, kind, n_classes=None, n_jobs=None))]
 #[allow(clippy::too_many_arguments)]
 fn out_of_bag_chunk<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     counts: &Bound<'py, PyAny>,
     y: PyReadonlyArray1<'py, f64>,
-    weights: Option<PyReadonlyArray1<'py, f64>>,
+    point_weights: Option<PyReadonlyArray1<'py, f64>>,
     sizes: Vec<usize>,
     kind: &str,
     n_classes: Option<usize>,
     n_jobs: Option<usize>,
-) -> PyResult<(PyOutOfBagState, ChunkArrays)> {
+) -> PyResult<(PyOutOfBagState, ChunkArrays<'py>)> {
     let counts = IntArray::<Ix2>::extract(counts, "counts")?;
     let counts: Box<dyn InBagCounts + '_> = int_array!(&counts, a => Box::new(a.as_array()));
-    let (values, labels, probabilities);
-    let predictions: Box<dyn MemberPredictions + '_> = match kind {
-        "regression" => {
-            values = FloatArray::<Ix2>::extract(members, "members")?;
-            match &values {
-                FloatArray::F32(a) => Box::new(Values(a.as_array())),
-                FloatArray::F64(a) => Box::new(Values(a.as_array())),
-            }
-        }
-        "probabilities" => {
-            probabilities = FloatArray::<Ix3>::extract(members, "members")?;
-            match &probabilities {
-                FloatArray::F32(a) => Box::new(Probabilities(a.as_array())),
-                FloatArray::F64(a) => Box::new(Probabilities(a.as_array())),
-            }
-        }
-        "labels" => {
-            labels = IntArray::<Ix2>::extract(members, "members")?;
-            let c = n_classes.ok_or_else(|| {
-                PyValueError::new_err("`members`: class labels need the number of classes")
-            })?;
-            int_array!(&labels, a => Box::new(Labels::new(a.as_array(), c).map_err(to_py_err)?))
-        }
-        other => {
-            return Err(PyValueError::new_err(format!(
-                "`members`: unknown kind {other:?} (regression, labels, probabilities)"
-            )))
-        }
-    };
-    let (_, n) = predictions.dim();
-    let width = match predictions.task() {
-        Task::Regression => None,
-        task => Some(task.outputs()),
-    };
-    let prediction = zeros_nd::<f64>(py, vec![n])?;
-    let n_oob = zeros_nd::<i64>(py, vec![n])?;
-    let probs = width.map(|c| zeros_nd::<f64>(py, vec![n, c])).transpose()?;
-    // SAFETY: the arrays were just created here and are not shared with Python yet.
-    let (prediction_out, n_oob_out, probs_out) = unsafe {
-        (
-            prediction
-                .as_slice_mut()
-                .expect("a new array is contiguous"),
-            n_oob.as_slice_mut().expect("a new array is contiguous"),
-            match &probs {
-                Some(p) => p.as_slice_mut().expect("a new array is contiguous"),
-                None => &mut [],
-            },
-        )
-    };
-    let (y, weights) = (y.as_array(), weights.as_ref().map(|w| w.as_array()));
+    let members = Members::extract(members, kind, n_classes)?;
+    let predictions = members.view()?;
+    let outputs = Outputs::new(py, predictions.task(), predictions.dim().1)?;
+    let (y, weights, out) = (
+        y.as_array(),
+        point_weights.as_ref().map(|w| w.as_array()),
+        outputs.slices(),
+    );
     let (predictions, counts) = (&*predictions, &*counts);
-    let state = run_core(py, n_jobs, None, |pool, monitor| {
-        let out = PointOutputs {
-            prediction: prediction_out,
-            n_out_of_bag: n_oob_out,
-            probabilities: probs_out,
-        };
+    let inner = run_core(py, n_jobs, None, |pool, monitor| {
         out_of_bag(predictions, counts, y, weights, &sizes, out, pool, monitor)
     })?;
-    let arrays = (
-        prediction.into_any().unbind(),
-        n_oob.into_any().unbind(),
-        probs.map(|p| p.into_any().unbind()),
-    );
-    Ok((PyOutOfBagState { inner: state }, arrays))
+    Ok((PyOutOfBagState { inner }, outputs.into_arrays()))
 }
 
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyOutOfBagState>()?;
+    m.add_class::<PyLossCurves>()?;
     m.add_function(wrap_pyfunction!(out_of_bag_chunk, m)?)?;
     m.add_function(wrap_pyfunction!(default_sizes, m)?)
 }
 
-/// The default ensemble sizes of the out-of-bag error curve for `members` members.
+/// The default ensemble sizes of the out-of-bag loss curve for `n_members` members.
 #[pyfunction]
-fn default_sizes(members: usize) -> Vec<usize> {
-    default_curve_sizes(members)
+fn default_sizes(n_members: usize) -> Vec<usize> {
+    default_curve_sizes(n_members)
 }

@@ -81,18 +81,18 @@ impl PyResampler {
         self.inner.max_possible_count()
     }
 
-    #[pyo3(signature = (seed, members, n_jobs=None, progress=None))]
+    #[pyo3(signature = (seed, n_members, n_jobs=None, progress=None))]
     fn counts(
         &self,
         py: Python<'_>,
         seed: u64,
-        members: i64,
+        n_members: i64,
         n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Py<PyAny>> {
         let n_rows = self.inner.n_rows();
-        let members = positive(members, "members")?;
-        let shape = [members, n_rows];
+        let n_members = positive(n_members, "n_members")?;
+        let shape = [n_members, n_rows];
         // Written straight into numpy's own zeroed buffer (no copy, numpy's huge pages).
         macro_rules! draw_as {
             ($t:ty) => {{
@@ -108,7 +108,7 @@ impl PyResampler {
                 .map(|()| array.into_any().unbind())
             }};
         }
-        let mut outcome = Err(PyValueError::new_err("`members`: nothing to draw"));
+        let mut outcome = Err(PyValueError::new_err("`n_members`: nothing to draw"));
         for width in self.inner.count_widths() {
             outcome = match width {
                 CountWidth::U8 => draw_as!(u8),
@@ -123,17 +123,17 @@ impl PyResampler {
         outcome
     }
 
-    #[pyo3(signature = (seed, members, n_jobs=None, progress=None))]
+    #[pyo3(signature = (seed, n_members, n_jobs=None, progress=None))]
     fn bayesian_weights(
         &self,
         py: Python<'_>,
         seed: u64,
-        members: i64,
+        n_members: i64,
         n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Py<PyAny>> {
-        let members = positive(members, "members")?;
-        let array = zeros::<f64>(py, [members, self.inner.n_rows()])?;
+        let n_members = positive(n_members, "n_members")?;
+        let array = zeros::<f64>(py, [n_members, self.inner.n_rows()])?;
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
         run_core(py, n_jobs, progress, |pool, monitor| {
@@ -142,17 +142,17 @@ impl PyResampler {
         Ok(array.into_any().unbind())
     }
 
-    #[pyo3(signature = (seed, members, n_jobs=None))]
+    #[pyo3(signature = (seed, n_members, n_jobs=None))]
     fn block_starts(
         &self,
         py: Python<'_>,
         seed: u64,
-        members: i64,
+        n_members: i64,
         n_jobs: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
-        let members = positive(members, "members")?;
+        let n_members = positive(n_members, "n_members")?;
         let starts = run_core(py, n_jobs, None, |pool, _| {
-            self.inner.block_starts(seed, members, pool)
+            self.inner.block_starts(seed, n_members, pool)
         })?;
         Ok(starts.into_pyarray(py).into_any().unbind())
     }

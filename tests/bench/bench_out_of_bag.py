@@ -59,16 +59,16 @@ def main():
     y = rng.normal(size=n)
     members64 = rng.standard_normal((m, n))
     members64 += y
-    counts = bagwise.resample(n, m, seed=0).counts
+    counts = bagwise.resample(n, m, rng=0).counts
     print(f"members ({m}, {n}), counts {counts.dtype}; best of {args.repeat}")
-    sizes = bagwise.out_of_bag(members64[:, :1000], counts[:, :1000], y[:1000]).curve_sizes.tolist()
+    sizes = bagwise.out_of_bag(members64[:, :1000], counts[:, :1000], y[:1000]).sizes.tolist()
 
     for name, members in (("float64", members64), ("float32", members64.astype(np.float32))):
         t_sum, _ = best_of(args.repeat, lambda members=members: np.sum(members))
         t_ours, oob = best_of(args.repeat, lambda members=members: bagwise.out_of_bag(members, counts, y))
         t_ref, ref = best_of(max(1, args.repeat - 2),
                              lambda members=members: numpy_reference(members, counts, y, sizes))
-        agree = np.allclose(oob.curve_error, ref, rtol=1e-9 if name == "float64" else 1e-6)
+        agree = np.allclose(oob.curve, ref, rtol=1e-9 if name == "float64" else 1e-6)
         print(f"{name}: out_of_bag {t_ours:.3f} s   np.sum {t_sum:.3f} s   numpy reference "
               f"{t_ref:.3f} s   (curve agrees: {agree})")
         print(f"  out_of_bag / np.sum     = {t_ours / t_sum:.2f}   (target <= 2)")

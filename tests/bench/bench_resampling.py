@@ -32,7 +32,7 @@ def numpy_loop():
     return counts
 
 def ours():
-    return bagwise.resample(n, members, seed=0).counts
+    return bagwise.resample(n, members, rng=0).counts
 
 run = {"numpy": numpy_loop, "bagwise": ours}[which]
 before = rss_mib()

@@ -52,7 +52,7 @@ if which == "sklearn":
         model = RandomForestClassifier(n_estimators=members, max_features=None, bootstrap=True,
                                        n_jobs=2, random_state=0).fit(xtr, ytr)
 else:
-    counts = bagwise.resample(n, members, seed=0).counts
+    counts = bagwise.resample(n, members, rng=0).counts
     if task == "regression":
         model = TreeEnsemble.fit(xtr, ytr, counts, task="regression", splitter=splitter,
                                  seed=0, n_jobs=2)

@@ -49,7 +49,7 @@ def matmul():
 if which == "matmul":
     print(json.dumps({"gflops": max(matmul() for _ in range(3))}))
     sys.exit()
-counts = bagwise.resample(n_train, b, seed=0).counts
+counts = bagwise.resample(n_train, b, rng=0).counts
 members = np.random.default_rng(0).normal(size=(b, n_points))
 before = rss()
 start = time.perf_counter()
