@@ -212,7 +212,7 @@ HOW_MANY_MEMBERS = [
     """),
     code("""
     oob = bagwise.out_of_bag(model.member_predictions(X_train), model.in_bag_, y_train)
-    print(f"out-of-bag error: {oob.error:.4f}")
+    print(f"out-of-bag error: {oob.ensemble_loss:.4f}")
     print(f"test error: {curve.ensemble_loss:.4f}")
     oob
     """),
@@ -226,7 +226,7 @@ HOW_MANY_MEMBERS = [
     ax.plot(k, curve.law(k), "-", color="0.3", label="law: loss(∞) + W/k")
     ax.axhline(curve.infinite_loss, color="0.3", linestyle=":", label="loss(∞)")
     ax.axvline(within_1, color="0.5", linestyle="--", label=f"within 1%: {within_1} members")
-    ax.plot(oob.curve_sizes, oob.curve_error, "s--", color="0.55", markersize=4,
+    ax.plot(oob.sizes, oob.curve, "s--", color="0.55", markersize=4,
             label="out-of-bag curve (training vines)")
     ax.set_xscale("log")
     ax.set_xlabel("members in the ensemble")
@@ -324,7 +324,7 @@ STANDARD_ERRORS = [
     model_only = np.mean((y_test >= low) & (y_test <= high))
     oob = bagwise.out_of_bag(model.member_predictions(X[training_sets[0]]), model.in_bag_,
                              y[training_sets[0]])
-    half_width = 1.96 * np.sqrt(se.variance + oob.error)
+    half_width = 1.96 * np.sqrt(se.variance + oob.ensemble_loss)
     with_noise = np.mean(np.abs(y_test - se.mean) <= half_width)
     print(f"coverage of prediction ± 1.96 se: {model_only:.3f}")
     print(f"coverage with out-of-bag noise added: {with_noise:.3f}")
@@ -421,7 +421,7 @@ OWN_ESTIMATOR = [
     code("""
     oob = bagwise.out_of_bag(best.member_predictions(X_train), best.in_bag_, y_train)
     test_error = float(np.mean((best.predict(X_test) - y_test) ** 2))
-    print(f"out-of-bag error: {oob.error:.4f}")
+    print(f"out-of-bag error: {oob.ensemble_loss:.4f}")
     print(f"cross-validated error: {-search.best_score_:.4f}")
     print(f"test error: {test_error:.4f}")
     """),
@@ -497,7 +497,7 @@ FITTED_ELSEWHERE = [
     oob = bagwise.out_of_bag(train_members, counts, y_train)
     difference = float(np.max(np.abs(oob.prediction - ensemble.oob_prediction_)))
     print(f"largest difference from oob_prediction_: {difference:.3g}")
-    print(f"out-of-bag R²: {1 - oob.error / y_train.var():.4f} (scikit-learn: {ensemble.oob_score_:.4f})")
+    print(f"out-of-bag R²: {1 - oob.ensemble_loss / y_train.var():.4f} (scikit-learn: {ensemble.oob_score_:.4f})")
     oob
     """),
     md("""

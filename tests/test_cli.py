@@ -25,7 +25,7 @@ def run(*args, cwd=None):
 def ensemble(members=200, n_train=60, n_test=90, seed=0):
     """Bagged means: member b predicts ``y + 0.3 + counts_b @ Z / n_train`` at every point."""
     rng = np.random.default_rng(seed)
-    counts = bagwise.resample(n_train, members, seed=seed).counts
+    counts = bagwise.resample(n_train, members, rng=seed).counts
     y_test, y_train = rng.normal(size=n_test), rng.normal(size=n_train)
     test = y_test + 0.3 + counts @ rng.normal(size=(n_train, n_test)) / n_train
     train = y_train + 0.3 + counts @ rng.normal(size=(n_train, n_train)) / n_train
@@ -54,7 +54,7 @@ def test_round_trip_with_a_test_set(files):
                                 y_train=y_train, rng=4)
     summary = expected.summary()
     assert format_number(summary["decomposition"]["ensemble_loss"]) in result.stdout
-    assert format_number(summary["out_of_bag"]["error"]) in result.stdout
+    assert format_number(summary["out_of_bag"]["ensemble_loss"]) in result.stdout
     assert json.loads((path / "summary.json").read_text()) == summary
     page = (path / "report.html").read_text(encoding="utf-8")
     assert page.startswith("<!DOCTYPE html>") and "data:image/png;base64," in page
@@ -72,7 +72,7 @@ def test_training_rows_alone_give_the_out_of_bag_error(files):
     expected = bagwise.diagnose(train, y_train, counts=counts).summary()
     assert "out_of_bag" in expected
     assert json.loads((path / "s.json").read_text()) == expected
-    assert format_number(expected["out_of_bag"]["error"]) in result.stdout
+    assert format_number(expected["out_of_bag"]["ensemble_loss"]) in result.stdout
 
 
 def test_reference_and_csv_without_header(tmp_path):

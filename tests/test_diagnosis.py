@@ -22,7 +22,7 @@ def _regression_members(members=200, n_train=60, n_test=120, seed=0):
     so the members vary through their resamples only (more members than training rows
     keeps the Monte-Carlo correction of the variance estimates small)."""
     rng = np.random.default_rng(seed)
-    counts = bagwise.resample(n_train, members, seed=seed).counts
+    counts = bagwise.resample(n_train, members, rng=seed).counts
     y_test = rng.normal(size=n_test)
     z = rng.normal(size=(n_train, n_test))
     test = y_test + 0.3 + counts @ z / n_train
@@ -127,8 +127,8 @@ def test_out_of_bag_through_sklearn_bagging_regressor():
         warnings.simplefilter("ignore")
         split = bagwise.diagnose(test, y_test, counts=counts, train_members=train, y_train=y)
         oob = bagwise.out_of_bag(train, counts, y)
-    assert split.out_of_bag.error == pytest.approx(oob.error, rel=1e-12)
-    assert split.summary()["out_of_bag"]["error"] == pytest.approx(
+    assert split.out_of_bag.ensemble_loss == pytest.approx(oob.ensemble_loss, rel=1e-12)
+    assert split.summary()["out_of_bag"]["ensemble_loss"] == pytest.approx(
         sklearn.metrics.mean_squared_error(y, bag.oob_prediction_), rel=1e-10)
     assert split.decomposition.n_points == 100
 
@@ -154,7 +154,7 @@ def test_probabilities_use_the_last_class_and_labels_skip_uncertainty():
     assert report.reference_loss == pytest.approx(2 * single, rel=1e-12)
     # out-of-bag error rate = 1 - BaggingClassifier's soft-vote OOB accuracy (numpy here)
     oob = bagwise.out_of_bag(probs, counts, y)
-    assert report.out_of_bag.error == oob.error
+    assert report.out_of_bag.ensemble_loss == oob.ensemble_loss
     labels = probs.argmax(axis=2)
     hard = bagwise.diagnose(labels, y, counts=counts)
     assert hard.uncertainty is None and hard.spread is None and hard.correlation is None
@@ -200,7 +200,7 @@ def test_rough_standard_errors_are_flagged():
     # few members against many training rows: the Monte-Carlo correction dominates
     # (Wager, Hastie & Efron 2014) and the reading says so
     rng = np.random.default_rng(6)
-    counts = bagwise.resample(400, 20, seed=6).counts
+    counts = bagwise.resample(400, 20, rng=6).counts
     members = rng.normal(size=(20, 50))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -234,7 +234,7 @@ def test_bad_input(change, error, match):
 
 def test_bad_training_members_are_reported_under_their_own_names():
     rng = np.random.default_rng(1)
-    counts = bagwise.resample(12, 4, seed=0).counts
+    counts = bagwise.resample(12, 4, rng=0).counts
     train = rng.normal(size=(4, 12))
     member, row = np.argwhere(counts == 0)[0]
     train[member, row] = np.nan  # out-of-bag entries are used, so this one is an error
@@ -278,7 +278,7 @@ def test_each_warning_once_per_call_at_the_callers_line():
     # few members against many training rows: the bias correction of the standard errors
     # is rough, which both the standard errors and the between/within split compute
     rng = np.random.default_rng(6)
-    counts = bagwise.resample(400, 20, seed=6).counts
+    counts = bagwise.resample(400, 20, rng=6).counts
     members, y = rng.normal(size=(20, 50)), rng.normal(size=50)
     with warnings.catch_warnings(record=True) as records:
         warnings.simplefilter("always")

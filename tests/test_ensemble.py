@@ -227,7 +227,7 @@ def test_an_int_random_state_draws_the_members_of_that_seed():
     # estimator seeds the member streams with the int itself).
     x, y = _regression(60)
     bag = bagwise.BagRegressor("linear", n_members=4, random_state=11).fit(x, y)
-    np.testing.assert_array_equal(bag.in_bag_, bagwise.resample(60, 4, seed=11).counts)
+    np.testing.assert_array_equal(bag.in_bag_, bagwise.resample(60, 4, rng=11).counts)
     assert bag.seed_ == 11
 
 

@@ -49,7 +49,7 @@ def test_classification_out_of_bag_uses_probabilities_and_class_codes():
     labels = np.where(y == 1, "benign", "malignant")
     bag = bagwise.BagClassifier(DecisionTreeClassifier(max_depth=4), n_members=25,
                                     random_state=1).fit(X, labels)
-    oob = bag.out_of_bag(metric="brier_score")
+    oob = bag.out_of_bag(loss="brier_score")
     codes = np.searchsorted(bag.classes_, labels)
     raw = bag.out_of_bag_predictions()
     direct = bagwise.out_of_bag(_fill_in_bag(raw, bag.in_bag_), bag.in_bag_, codes,

@@ -106,7 +106,7 @@ def known(name: str, names: set[str]) -> bool:
 def _results():
     """One instance of every result class `bagwise` exports (small inputs)."""
     rng = np.random.default_rng(0)
-    counts = bagwise.resample(40, 60, seed=0).counts
+    counts = bagwise.resample(40, 60, rng=0).counts
     y_test, y_train = rng.normal(size=50), rng.normal(size=40)
     test = y_test + counts @ rng.normal(size=(40, 50)) / 40 + 0.1 * rng.normal(size=(60, 50))
     train = y_train + counts @ rng.normal(size=(40, 40)) / 40
@@ -115,7 +115,7 @@ def _results():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return [
-            bagwise.resample(40, 60, seed=0),
+            bagwise.resample(40, 60, rng=0),
             bagwise.decompose(test, y_test),
             bagwise.size_curve(test, y_test),
             bagwise.correlation(test, y_test),

@@ -38,7 +38,7 @@ def regression(members=30, n=600, seed=0):
     rng = np.random.default_rng(seed)
     y = rng.normal(size=n)
     preds = y + 0.4 * rng.normal(size=n) + 0.1 + 0.8 * rng.normal(size=(members, n))
-    counts = bagwise.resample(n, members, seed=seed).counts
+    counts = bagwise.resample(n, members, rng=seed).counts
     return preds, y, counts
 
 
@@ -56,7 +56,7 @@ def linear_statistic(points=600, n_train=200, members=1000, seed=0):
     rng = np.random.default_rng(seed)
     z = rng.normal(size=n_train)
     scales = rng.uniform(0.2, 3.0, size=points)
-    counts = bagwise.resample(n_train, members, seed=seed).counts
+    counts = bagwise.resample(n_train, members, rng=seed).counts
     preds = counts @ np.outer(z, scales) / n_train
     return preds, counts
 
@@ -137,12 +137,12 @@ def test_size_curve_stretches_the_axis_to_a_members_needed_beyond_the_ensemble()
 def test_size_curve_with_out_of_bag_curve_on_the_same_axes():
     preds, y, counts = regression()
     curve = bagwise.size_curve(preds, y, orders=6, rng=2)
-    oob = bagwise.out_of_bag(preds, counts, y, metric="absolute_error")
+    oob = bagwise.out_of_bag(preds, counts, y, loss="absolute_error")
     ax = plots.plot_size_curve(curve, out_of_bag=oob)
     line = line_labelled(ax, "training points: out-of-bag")
-    np.testing.assert_array_equal(line.get_xdata(), oob.curve_sizes)
+    np.testing.assert_array_equal(line.get_xdata(), oob.sizes)
     # The squared error is drawn whatever the headline metric, to match the squared loss.
-    np.testing.assert_array_equal(line.get_ydata(), oob.curve("squared_error"))
+    np.testing.assert_array_equal(line.get_ydata(), oob.loss_curve("squared_error"))
     assert len(ax.lines) == 5
     assert len(ax.get_legend().get_texts()) == 6          # five lines and the band
 
@@ -152,12 +152,12 @@ def test_size_curve_of_probabilities_with_out_of_bag_brier_score():
     y = rng.integers(0, 3, size=300)
     logits = rng.normal(size=(20, 300, 3)) + 1.2 * np.eye(3)[y]
     p = np.exp(logits) / np.exp(logits).sum(axis=2, keepdims=True)
-    counts = bagwise.resample(300, 20, seed=8).counts
+    counts = bagwise.resample(300, 20, rng=8).counts
     curve = bagwise.size_curve(p, y, orders=4)
     oob = bagwise.out_of_bag(p, counts, y)                  # headline metric: error rate
     ax = plots.plot_size_curve(curve, out_of_bag=oob)
     np.testing.assert_array_equal(line_labelled(ax, "training points").get_ydata(),
-                                  oob.curve("brier_score"))
+                                  oob.loss_curve("brier_score"))
     np.testing.assert_allclose(line_labelled(ax, "law").get_ydata(),
                                curve.law(line_labelled(ax, "law").get_xdata()), rtol=1e-12)
     assert ax.get_ylabel() == "Brier score"
@@ -378,7 +378,7 @@ def spread_case():
     rng = np.random.default_rng(4)
     n_train, members = 150, 2000
     z = rng.normal(size=n_train)
-    counts = bagwise.resample(n_train, members, seed=4).counts
+    counts = bagwise.resample(n_train, members, rng=4).counts
     # Point j: a bootstrap mean (shared through the data) plus member noise of scale s_j.
     scales = rng.uniform(0.02, 0.3, size=200)
     preds = (counts @ z / n_train)[:, None] + scales * rng.normal(size=(members, 200))
@@ -694,7 +694,7 @@ def test_plot_kappa_error_draws_one_point_per_pair():
 def test_plot_kappa_error_leaves_out_undefined_pairs_and_checks_its_input():
     y = np.array([0, 0, 0, 1, 1])
     members = np.array([[0, 0, 0, 0, 0], [0, 0, 0, 0, 0], [0, 1, 0, 1, 1]])
-    with pytest.warns(RuntimeWarning, match="Cohen's kappa is undefined .* for 1 of 3 pairs"):
+    with pytest.warns(bagwise.BagwiseWarning, match="Cohen's kappa is undefined .* for 1 of 3 pairs"):
         d = bagwise.diversity(members, y)
     ax = plots.plot_kappa_error(d)
     # members 0 and 1 always say class 0: chance agreement 1, kappa undefined (Cohen 1960)

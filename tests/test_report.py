@@ -62,7 +62,7 @@ def ensemble(members=200, n_train=80, n_test=150, seed=0):
     """Bagged means with member noise: member b predicts ``y + 0.3 + counts_b @ Z / n`` plus
     its own noise at the test points and, with its own Z, at the training rows."""
     rng = np.random.default_rng(seed)
-    counts = bagwise.resample(n_train, members, seed=seed).counts
+    counts = bagwise.resample(n_train, members, rng=seed).counts
     y_test, y_train = rng.normal(size=n_test), rng.normal(size=n_train)
     test = (y_test + 0.3 + counts @ rng.normal(size=(n_train, n_test)) / n_train
             + 0.03 * rng.normal(size=(members, n_test)))
@@ -190,7 +190,7 @@ def _results():
         warnings.simplefilter("ignore")  # few members: the standard errors warn, as they should
         shared = np.random.default_rng(0).normal(size=(10, 1, 30))
         return {
-            "Resample": bagwise.resample(40, 60, seed=0),
+            "Resample": bagwise.resample(40, 60, rng=0),
             "Decomposition": bagwise.decompose(test, y_test),
             "SizeCurve": bagwise.size_curve(test, y_test),
             "Correlation": bagwise.correlation(test, y_test),
@@ -250,7 +250,7 @@ def test_probability_report_draws_the_last_class_figures():
     rng = np.random.default_rng(0)
     y = rng.integers(0, 3, size=120)
     probabilities = rng.dirichlet([1.0, 1.0, 1.0], size=(50, 120))
-    counts = bagwise.resample(120, 50, seed=0).counts
+    counts = bagwise.resample(120, 50, rng=0).counts
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # 50 members: the standard errors warn, as they should
         report = bagwise.diagnose(probabilities, y, counts=counts)

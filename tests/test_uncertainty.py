@@ -254,7 +254,7 @@ def test_bad_options_name_the_argument():
 
 def test_spread_members_needed_is_nan_with_one_warning_without_a_floor():
     # members that do not vary: between = within = 0, no floor to come near
-    counts = bagwise.resample(30, 20, seed=1).counts
+    counts = bagwise.resample(30, 20, rng=1).counts
     result = bagwise.spread(np.ones((20, 4)), counts)
     assert result.mean_between == 0
     with pytest.warns(bagwise.BagwiseWarning, match="not positive") as caught:
@@ -273,7 +273,7 @@ def test_results_are_frozen_and_share_members_needed():
     import dataclasses
     import inspect
 
-    counts = bagwise.resample(100, 200, seed=2).counts
+    counts = bagwise.resample(100, 200, rng=2).counts
     members = (counts @ np.random.default_rng(3).normal(size=(100, 5)) / 100
                + 0.05 * np.random.default_rng(4).normal(size=(200, 5)))
     result = bagwise.spread(members, counts)

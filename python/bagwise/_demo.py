@@ -28,7 +28,7 @@ def resampling_section(data: dict[str, np.ndarray], members: int, seed: int) -> 
 
     def timed(**kwargs):
         start = time.perf_counter()
-        draw = resample(n, members, seed=seed, **kwargs)
+        draw = resample(n, members, rng=seed, **kwargs)
         return draw, time.perf_counter() - start
 
     def oob_cell(draw):
@@ -74,7 +74,7 @@ def resampling_section(data: dict[str, np.ndarray], members: int, seed: int) -> 
                  f"{seconds * 1e3:.1f}"])
 
     draw, seconds = timed(scheme="bayesian")
-    w = draw.weights
+    w = draw.row_weights
     rows.append(["bayesian, rows", f"{n:,}", "none (all rows weighted)", "-", "-",
                  f"weight variance {w.var(axis=1, ddof=1).mean():.4f} "
                  f"(Rubin 1981: {(n - 1) / (n + 1):.4f})", f"{seconds * 1e3:.1f}"])
@@ -166,7 +166,7 @@ def diversity_section(data: dict[str, np.ndarray], members: int, seed: int) -> s
         bag.fit(X[train], y[train])
         d = bag.diversity(X[test], y[test])
         vote = float(bag.score(X[test], y[test]))
-        m = d.members
+        m = d.n_members
         holds = abs(d.kohavi_wolpert - (m - 1) / (2 * m) * d.mean_disagreement) < 1e-12
         rows.append([name, f"{np.mean(d.accuracy):.3f}", f"{vote:.3f}",
                      f"{d.mean_disagreement:.3f}", f"{d.mean_yule_q:.3f}", f"{d.mean_kappa:.3f}",

@@ -30,20 +30,6 @@ def seed_value(seed: object) -> int:
     return seed
 
 
-def rng_seed(rng: object) -> int:
-    """The integer seed of the ``rng=`` keyword (Scientific Python SPEC 7): an int as it
-    is, a numpy Generator's ``int(rng.integers(2**63))``, ``None`` a fresh one."""
-    if isinstance(rng, np.random.Generator):
-        return int(rng.integers(2**63))
-    if rng is not None and (isinstance(rng, bool) or not isinstance(rng, numbers.Integral)):
-        raise TypeError(f"`rng`: expected an int, a numpy Generator or None, got "
-                        f"{type(rng).__name__}")
-    try:
-        return seed_value(rng)
-    except ValueError as err:
-        raise ValueError(str(err).replace("`seed`", "`rng`", 1)) from None
-
-
 def n_jobs_value(n_jobs: object) -> int | None:
     """``None`` or ``-1`` (all cores), or a positive thread count."""
     if n_jobs is None or (isinstance(n_jobs, int) and not isinstance(n_jobs, bool) and n_jobs == -1):

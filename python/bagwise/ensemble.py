@@ -410,7 +410,7 @@ class _Bag(BaseEstimator):
             target = self._targets(y, counts.shape[1])
         return predictions, target
 
-    def out_of_bag(self, metric=None, *, X=None, y=None):
+    def out_of_bag(self, loss=None, *, X=None, y=None):
         """The out-of-bag predictions and error on the training rows (Breiman 1996).
 
         Each member predicts only its out-of-bag rows (see `out_of_bag_predictions`); the
@@ -420,7 +420,7 @@ class _Bag(BaseEstimator):
 
         Parameters
         ----------
-        metric : str, optional
+        loss : str, optional
             Headline error, as in `bagwise.out_of_bag`.
         X, y : array-like, optional
             The training rows and targets; needed only after `bagwise.load`.
@@ -432,7 +432,7 @@ class _Bag(BaseEstimator):
         from .out_of_bag import out_of_bag
 
         members, target = self._training_members(X, y)
-        return out_of_bag(members, self.in_bag_, target, loss=metric, n_jobs=self.n_jobs)
+        return out_of_bag(members, self.in_bag_, target, loss=loss, n_jobs=self.n_jobs)
 
     def _count_gram(self, jackknife=False):
         """The `CountGram` of ``in_bag_``, built on first use and kept in ``count_gram_``."""

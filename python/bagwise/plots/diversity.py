@@ -36,7 +36,7 @@ def kappa_error_points(diversity) -> tuple[np.ndarray, np.ndarray]:
     if not isinstance(diversity, Diversity):
         raise TypeError("`diversity`: expected the Diversity returned by bagwise.diversity, got "
                         f"{type(diversity).__name__}")
-    a, b = np.triu_indices(diversity.members, k=1)
+    a, b = np.triu_indices(diversity.n_members, k=1)
     error = 1.0 - diversity.accuracy
     return diversity.kappa[a, b].copy(), (error[a] + error[b]) / 2
 

@@ -28,7 +28,7 @@ def _size_curve_iv(size_curve, out_of_bag, tolerance, unit):
             raise TypeError("`out_of_bag`: expected the OutOfBag returned by bagwise.out_of_bag, "
                             f"got {type(out_of_bag).__name__}")
         metric = size_curve.loss  # both use the glossary's loss spellings
-        if metric not in out_of_bag._curve:
+        if metric not in out_of_bag._curves:
             raise ValueError(f"`out_of_bag`: is a {out_of_bag.task} result, which has no {metric} "
                              f"to compare with a {size_curve.loss} size curve")
     if isinstance(tolerance, bool) or not isinstance(tolerance, numbers.Real):
@@ -103,7 +103,7 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
     curve, error = size_curve.curve, size_curve.std_error
     x_high = float(sizes.max())
     if out_of_bag is not None:
-        x_high = max(x_high, float(out_of_bag.curve_sizes.max()))
+        x_high = max(x_high, float(out_of_bag.sizes.max()))
     needed = _needed(size_curve, tolerance)
     if needed is not None and needed <= _MAX_EXTRAPOLATION * size_curve.n_members:
         x_high = max(x_high, needed * 1.25)
@@ -135,7 +135,7 @@ def plot_size_curve(size_curve, *, out_of_bag=None, ax=None, tolerance=0.01, uni
 
     if out_of_bag is not None:
         metric = size_curve.loss  # both use the glossary's loss spellings
-        ax.plot(out_of_bag.curve_sizes.astype(np.float64), out_of_bag.curve(metric),
+        ax.plot(out_of_bag.sizes.astype(np.float64), out_of_bag.loss_curve(metric),
                 color=c.RUST, linestyle=(0, (1, 1)), marker="s", markersize=4,
                 markerfacecolor="white", label="training points: out-of-bag, first k members",
                 zorder=3)

@@ -44,7 +44,7 @@ def binned_errors(prediction_variance, y, bins=10):
     >>> import numpy as np, bagwise
     >>> from bagwise.plots import binned_errors
     >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> counts = bagwise.resample(100, 1000, rng=0).counts
     >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
     >>> estimate = bagwise.prediction_variance(members, counts)
     >>> mean_se, mean_error, spread, size = binned_errors(estimate, np.zeros(6), bins=3)
@@ -100,7 +100,7 @@ def plot_error_vs_std_error(prediction_variance, y, *, bins=10, ax=None, unit=No
     >>> from bagwise.plots import plot_error_vs_std_error
     >>> rng = np.random.default_rng(0)
     >>> x = rng.normal(size=200)
-    >>> counts = bagwise.resample(200, 1000, seed=0).counts
+    >>> counts = bagwise.resample(200, 1000, rng=0).counts
     >>> members = counts @ np.outer(x, [1.0, 2.0, 3.0]) / 200    # three "points"
     >>> estimate = bagwise.prediction_variance(members, counts)
     >>> ax = plot_error_vs_std_error(estimate, np.zeros(3), bins=3)
@@ -133,7 +133,7 @@ def binned_coverage(prediction_variance, y, level=0.9, bins=10):
     >>> import numpy as np, bagwise
     >>> from bagwise.plots import binned_coverage
     >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> counts = bagwise.resample(100, 1000, rng=0).counts
     >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
     >>> estimate = bagwise.prediction_variance(members, counts)
     >>> _, share, size = binned_coverage(estimate, estimate.mean, level=0.5, bins=2)
@@ -189,7 +189,7 @@ def plot_interval_coverage(prediction_variance, y, *, level=0.9, bins=10, ax=Non
     >>> import matplotlib.pyplot as plt
     >>> from bagwise.plots import plot_interval_coverage
     >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> counts = bagwise.resample(100, 1000, rng=0).counts
     >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
     >>> estimate = bagwise.prediction_variance(members, counts)
     >>> ax = plot_interval_coverage(estimate, np.zeros(6), level=0.9, bins=3)
@@ -246,7 +246,7 @@ def plot_rho(spread, *, bins=30, ax=None):
     >>> import matplotlib.pyplot as plt
     >>> from bagwise.plots import plot_rho
     >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> counts = bagwise.resample(100, 1000, rng=0).counts
     >>> data = (counts @ rng.normal(size=100) / 100)[:, None]       # shared through the data
     >>> members = data + rng.uniform(0.01, 0.2, size=50) * rng.normal(size=(1000, 50))
     >>> ax = plot_rho(bagwise.spread(members, counts))
@@ -299,7 +299,7 @@ def plot_between_within(spread, *, ax=None, unit=None, max_points=20_000):
     >>> import matplotlib.pyplot as plt
     >>> from bagwise.plots import plot_between_within
     >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, seed=0).counts
+    >>> counts = bagwise.resample(100, 1000, rng=0).counts
     >>> data = (counts @ rng.normal(size=100) / 100)[:, None]       # shared through the data
     >>> members = data + rng.uniform(0.01, 0.2, size=50) * rng.normal(size=(1000, 50))
     >>> ax = plot_between_within(bagwise.spread(members, counts))

@@ -31,13 +31,13 @@ class OutOfBagSection(Section):
         return None
 
     def summary(self, result, diagnosis):
-        return {"metric": result.metric, "error": number(result.error),
+        return {"loss": result.loss, "ensemble_loss": number(result.ensemble_loss),
                 "n_points": result.n_points,
                 "n_points_without_out_of_bag": result.n_without_out_of_bag}
 
     def readings(self, result, diagnosis):
         covered = result.n_points - result.n_without_out_of_bag
-        return [f"out-of-bag {result.metric.replace('_', ' ')} {result.error:.4g} on the "
+        return [f"out-of-bag {result.loss.replace('_', ' ')} {result.ensemble_loss:.4g} on the "
                 f"{covered:,} training rows, an estimate of the error on new data"]
 
 
