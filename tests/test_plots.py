@@ -78,7 +78,7 @@ def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
     preds, y, _ = regression()
     curve = bagwise.size_curve(preds, y, orders=8, rng=1)
     needed = curve.members_needed(0.05)
-    assert 1 < needed <= 100 * curve.members
+    assert 1 < needed <= 100 * curve.n_members
     ax = plots.plot_size_curve(curve, tolerance=0.05, unit="kg")
 
     empirical = line_labelled(ax, "test points")
@@ -87,7 +87,7 @@ def test_size_curve_draws_curve_band_law_infinite_loss_and_marker():
 
     law = line_labelled(ax, "law")
     k = np.asarray(law.get_xdata())
-    assert k[0] == 1 and np.all(np.diff(k) > 0) and k[-1] >= curve.members
+    assert k[0] == 1 and np.all(np.diff(k) > 0) and k[-1] >= curve.n_members
     np.testing.assert_allclose(law.get_ydata(), curve.law(k), rtol=1e-12)
     # The law is infinite_loss + W/k (size_curve's docstring), written out here:
     np.testing.assert_allclose(law.get_ydata(), curve.infinite_loss + curve.mean_within / k, rtol=1e-12)
@@ -125,7 +125,7 @@ def test_size_curve_stretches_the_axis_to_a_members_needed_beyond_the_ensemble()
     preds, y, _ = regression(members=12)
     curve = bagwise.size_curve(preds, y, orders=5, rng=0)
     needed = curve.members_needed(0.01)
-    assert needed > curve.members            # W/k against 1% of the infinite loss
+    assert needed > curve.n_members            # W/k against 1% of the infinite loss
     ax = plots.plot_size_curve(curve)
     np.testing.assert_array_equal(line_labelled(ax, f"{needed:,} members").get_xdata(),
                                   [needed, needed])

@@ -125,12 +125,12 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
                           f"{d['ambiguity']:.4f}", f"{d['relative_gain']:.1%}",
                           f"{r['reference_loss']:.4f}", f"{r['reference_ratio']:.3f}",
                           f"{c['infinite_loss']:.4f}", str(c["members_needed"]),
-                          f"{o['error']:.4f}", f"{seconds:.1f}"])
+                          f"{o['ensemble_loss']:.4f}", f"{seconds:.1f}"])
         spread_rows.append([name, f"{u['median_std_error']:.4f}",
                             f"{u['median_correction_share']:.0%}", f"{u['share_clipped']:.1%}",
                             f"{s['mean_between']:.4f}", f"{s['mean_within']:.4f}",
                             f"{s['pooled_rho']:.3f}", str(s["members_needed"])])
-        readings.append(f"  {name}: {report.verdict()}; out-of-bag error {o['error']:.4f} vs "
+        readings.append(f"  {name}: {report.verdict()}; out-of-bag error {o['ensemble_loss']:.4f} vs "
                         f"test error {d['ensemble_loss']:.4f}")
     lines.append(_table(["learner", "test loss", "member", "ambiguity", "gain", "single",
                          "ratio", "loss(inf)", "k for 1%", "OOB loss", "s"], loss_rows))

@@ -19,17 +19,9 @@ from . import _core
 from ._display import fmt as _fmt
 from ._members import loss_for, loss_option, members_array, n_classes_of, targets
 from ._members import member_weights as _member_weights
-
-# Transitional: modules that still import these names from here (diagnosis, report,
-# plots) keep working until they import them from their own families.
-from ._members import members_array as _members_array  # noqa: F401
-from ._members import targets as _target  # noqa: F401
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
-from .aggregation import aggregate, vote_fractions  # noqa: F401
-from .correlation import Correlation, correlation  # noqa: F401
-from .size_curve import SizeCurve, size_curve  # noqa: F401
 
 __all__ = ["Decomposition", "DecompositionStream", "decompose", "decompose_stream"]
 

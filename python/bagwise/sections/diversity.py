@@ -41,7 +41,7 @@ class DiversitySection(Section):
     def figures(self, result, diagnosis, unit):
         from .. import plots
 
-        if result.members > DIAGRAM_MEMBERS:
+        if result.n_members > DIAGRAM_MEMBERS:
             return []
         return [Figure("kappa-error diagram: one point per pair of members; high kappa means "
                        "the pair is redundant", lambda ax: plots.plot_kappa_error(result, ax=ax))]
