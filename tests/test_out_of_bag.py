@@ -459,9 +459,9 @@ def test_stream_rejects_inconsistent_chunks():
     with pytest.raises(ValueError, match="no chunk"):
         stream.result()
     stream.update(members[:, :50], counts[:, :50], y[:50])
-    with pytest.raises(ValueError, match="`members_chunk`"):
+    with pytest.raises(ValueError, match="`members`"):
         stream.update(members[:4, 50:], counts[:4, 50:], y[50:])
-    with pytest.raises(ValueError, match="`members_chunk`"):
+    with pytest.raises(ValueError, match="`members`"):
         stream.update((members[:, 50:] > 0).astype(int), counts[:, 50:], (y[50:] > 0).astype(int))
 
 

@@ -588,9 +588,9 @@ def test_margins_bad_input():
     members, y = labels(n=50)
     with pytest.raises(ValueError, match="`y`: expected shape"):
         plots.plot_margins(members, y[:-1])
-    with pytest.raises(TypeError, match="`members_labels_or_vote_fractions`"):
+    with pytest.raises(TypeError, match="`members`"):
         plots.plot_margins(members.astype(str), y)
-    with pytest.raises(ValueError, match="`members_labels_or_vote_fractions`"):
+    with pytest.raises(ValueError, match="`members`"):
         plots.plot_margins(members[0], y)
 
 

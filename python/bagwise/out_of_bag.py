@@ -263,24 +263,24 @@ class OutOfBagStream:
         if self._state is None:
             return
         if kind != self._kind:
-            raise ValueError(f"`members_chunk`: holds {kind} but earlier chunks held {self._kind}")
+            raise ValueError(f"`members`: holds {kind} but earlier chunks held {self._kind}")
         if n_members != self._state.n_members:
-            raise ValueError(f"`members_chunk`: has {n_members} members but earlier chunks had "
+            raise ValueError(f"`members`: has {n_members} members but earlier chunks had "
                              f"{self._state.n_members}")
         if kind == "probabilities" and n_classes_of_probabilities != self._parts[0][2].shape[1]:
-            raise ValueError(f"`members_chunk`: has {n_classes_of_probabilities} classes but "
+            raise ValueError(f"`members`: has {n_classes_of_probabilities} classes but "
                              f"earlier chunks had {self._parts[0][2].shape[1]}")
 
-    def update(self, members_chunk, counts_chunk, y_chunk, point_weights_chunk=None) -> OutOfBagStream:
+    def update(self, members, counts, y, point_weights=None) -> OutOfBagStream:
         """Add the next chunk of points: arrays as in :func:`out_of_bag`, restricted to the
         chunk's points (e.g. ``members[:, a:b]`` of a memory map). Returns the stream."""
         if self._kind is not None:
-            kind = _members_kind(_array(members_chunk, "members_chunk"))
+            kind = _members_kind(_array(members, "members"))
             if kind != self._kind:
-                raise ValueError(f"`members_chunk`: holds {kind} but earlier chunks held {self._kind}")
+                raise ValueError(f"`members`: holds {kind} but earlier chunks held {self._kind}")
         (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
-         sizes) = _out_of_bag_iv(members_chunk, counts_chunk, y_chunk, self._loss,
-                                 point_weights_chunk, self._n_jobs, self._sizes)
+         sizes) = _out_of_bag_iv(members, counts, y, self._loss,
+                                 point_weights, self._n_jobs, self._sizes)
         self._check_compatible(kind, members.shape[0],
                                members.shape[2] if kind == "probabilities" else None)
         state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
@@ -319,7 +319,7 @@ class OutOfBagStream:
     def result(self) -> OutOfBag:
         """The :class:`OutOfBag` result of all chunks so far."""
         if self._state is None:
-            raise ValueError("`members_chunk`: no chunk was added; call update() first")
+            raise ValueError("`members`: no chunk was added; call update() first")
         prediction = np.concatenate([p[0] for p in self._parts])
         n_oob = np.concatenate([p[1] for p in self._parts])
         probabilities = None

@@ -145,7 +145,7 @@ class CountGram:
         estimate = PredictionVariance._from_parts(
             method=method, corrected=corrected, raw=raw, correction=correction, mean=mean,
             n_members=self.n_members, n_rows=self.n_rows, scheme=self.scheme,
-            rows_never_out_of_bag=(self._gram.rows_never_out_of_bag
+            n_without_out_of_bag=(self._gram.rows_never_out_of_bag
                                    if method == "jackknife" else 0))
         return estimate, within
 
@@ -204,7 +204,7 @@ class PredictionVariance(Result):
         ``"bootstrap"`` or ``"subsample"`` (which fixes the scale; see the module notes).
     n_clipped : int
         Points whose corrected variance was negative and clipped to zero.
-    rows_never_out_of_bag : int
+    n_without_out_of_bag : int
         Training rows in every member (jackknife only): no leave-one-out mean exists for
         them, so they are left out of the jackknife sum.
     """
@@ -223,11 +223,11 @@ class PredictionVariance(Result):
     n_rows: int
     scheme: str
     n_clipped: int
-    rows_never_out_of_bag: int
+    n_without_out_of_bag: int
 
     @classmethod
     def _from_parts(cls, *, method, corrected, raw, correction, mean, n_members, n_rows,
-                    scheme, rows_never_out_of_bag) -> PredictionVariance:
+                    scheme, n_without_out_of_bag) -> PredictionVariance:
         """The one place a PredictionVariance is built: from the core's estimate."""
         with np.errstate(divide="ignore", invalid="ignore"):
             correction_share = np.where(raw > 0, correction / raw, np.nan)
@@ -247,7 +247,7 @@ class PredictionVariance(Result):
                    std_error=np.sqrt(variance), raw_variance=raw, correction=correction,
                    correction_share=correction_share, mean=mean, n_members=n_members,
                    n_rows=n_rows, scheme=scheme, n_clipped=n_clipped,
-                   rows_never_out_of_bag=rows_never_out_of_bag)
+                   n_without_out_of_bag=n_without_out_of_bag)
 
     def interval(self, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
         """Normal-approximation interval ``mean ± z · std_error`` at ``level``.
@@ -272,7 +272,7 @@ class PredictionVariance(Result):
             ("clipped at zero", str(self.n_clipped)),
         ]
         if self.method == "jackknife":
-            rows.append(("rows never out of bag", str(self.rows_never_out_of_bag)))
+            rows.append(("rows never out of bag", str(self.n_without_out_of_bag)))
         return rows
 
     def _reading(self):
@@ -302,7 +302,7 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
         ``"ij"``: infinitesimal jackknife V_IJ = Σ_i Cov_b(N_bi, t_b)² (Efron 2014).
         ``"jackknife"``: jackknife-after-bootstrap V_J = (n−1)/n Σ_i (t̄_(−i) − t̄)²
         (Wager, Hastie & Efron 2014); rows in every member have no t̄_(−i) and are left out
-        (counted in ``rows_never_out_of_bag``). Bootstrap draws only.
+        (counted in ``n_without_out_of_bag``). Bootstrap draws only.
     corrected : bool
         Subtract the Monte-Carlo bias: (n/B²) Σ_b (t_b − t̄)² for the IJ, (e − 1) times that
         for the jackknife (Wager, Hastie & Efron 2014). For subsamples of s rows the IJ is

@@ -133,7 +133,7 @@ def plot_reliability(probabilities, y, *, bins=10, ax=None):
                     ylabel="share of points predicted right")
 
 
-def margins(members_labels_or_vote_fractions, y):
+def margins(members, y):
     """Majority-vote margin at every point (Breiman 2001, Random Forests, section 2.1).
 
     ``margin = share of votes for the true class - largest share for any other class``,
@@ -141,7 +141,7 @@ def margins(members_labels_or_vote_fractions, y):
 
     Parameters
     ----------
-    members_labels_or_vote_fractions : array
+    members : array
         Integer member labels of shape (members, n_points), or float vote fractions (or
         mean probabilities) of shape (n_points, n_classes).
     y : integer array of shape (n_points,)
@@ -157,8 +157,8 @@ def margins(members_labels_or_vote_fractions, y):
     >>> margins(np.array([[0, 1], [0, 2], [1, 2], [0, 2]]), np.array([0, 1])).tolist()
     [0.5, -0.5]
     """
-    data = np.asarray(members_labels_or_vote_fractions)
-    name = "members_labels_or_vote_fractions"
+    data = np.asarray(members)
+    name = "members"
     if data.dtype.kind in "iu":
         if data.ndim != 2:
             raise ValueError(f"`{name}`: integer member labels must have shape (members, n_points), "
@@ -179,7 +179,7 @@ def margins(members_labels_or_vote_fractions, y):
     return true_share - others.max(axis=1)
 
 
-def plot_margins(members_labels_or_vote_fractions, y, *, bins=40, ax=None):
+def plot_margins(members, y, *, bins=40, ax=None):
     """Histogram of the majority-vote margin over points (Breiman 2001).
 
     The margin is the vote share of the true class minus the largest share of any other
@@ -189,7 +189,7 @@ def plot_margins(members_labels_or_vote_fractions, y, *, bins=40, ax=None):
 
     Parameters
     ----------
-    members_labels_or_vote_fractions : array
+    members : array
         Integer member labels (members, n_points) or float vote fractions
         (n_points, n_classes).
     y : integer array of shape (n_points,)
@@ -213,7 +213,7 @@ def plot_margins(members_labels_or_vote_fractions, y, *, bins=40, ax=None):
     [0, 1, 0, 2]
     >>> plt.close(ax.figure)
     """
-    values = margins(members_labels_or_vote_fractions, y)
+    values = margins(members, y)
     bins = c.bins_iv(bins)
     ax = c.axes(ax)
     wrong = float(np.mean(values < 0))

@@ -33,7 +33,7 @@ class OutOfBagSection(Section):
     def summary(self, result, diagnosis):
         return {"loss": result.loss, "ensemble_loss": number(result.ensemble_loss),
                 "n_points": result.n_points,
-                "n_points_without_out_of_bag": result.n_without_out_of_bag}
+                "n_without_out_of_bag": result.n_without_out_of_bag}
 
     def readings(self, result, diagnosis):
         covered = result.n_points - result.n_without_out_of_bag
