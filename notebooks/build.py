@@ -271,7 +271,8 @@ STANDARD_ERRORS = [
     X_test, y_test = X[test], y[test]
 
     def fit(rows, seed):
-        return bagwise.BagRegressor("tree", n_members=4000, min_leaf=10, random_state=seed).fit(X[rows], y[rows])
+        bag = bagwise.BagRegressor("tree", n_members=4000, min_leaf=10, random_state=seed)
+        return bag.fit(X[rows], y[rows])
 
     model = fit(training_sets[0], seed=0)
     test_members = model.member_predictions(X_test)
@@ -497,7 +498,8 @@ FITTED_ELSEWHERE = [
     oob = bagwise.out_of_bag(train_members, counts, y_train)
     difference = float(np.max(np.abs(oob.prediction - ensemble.oob_prediction_)))
     print(f"largest difference from oob_prediction_: {difference:.3g}")
-    print(f"out-of-bag R²: {1 - oob.ensemble_loss / y_train.var():.4f} (scikit-learn: {ensemble.oob_score_:.4f})")
+    r2 = 1 - oob.ensemble_loss / y_train.var()
+    print(f"out-of-bag R²: {r2:.4f} (scikit-learn: {ensemble.oob_score_:.4f})")
     oob
     """),
     md("""

@@ -42,8 +42,10 @@ def test_size_curve_matches_numpy_on_the_same_orders():
     assert lc.mean_within is None and lc.infinite_loss is None
     with pytest.raises(ValueError, match="`law`"):
         lc.law(3)
-    with pytest.raises(ValueError, match="`members_needed`"):
-        lc.members_needed(0.1)
+    # the same edge behaviour as every members_needed: NaN with one warning saying why
+    with pytest.warns(bagwise.BagwiseWarning, match="not for error rates") as records:
+        assert math.isnan(lc.members_needed(0.1))
+    assert len(records) == 1
 
 
 def test_size_law_is_the_exact_mean_over_all_subsets():

@@ -95,11 +95,13 @@ class SizeCurve(Result):
         infinite ensemble, so this bounds the expected loss of ``k`` members. It may exceed
         ``n_members``; 1 when the members agree (``W = 0``). NaN with one `BagwiseWarning`
         when it cannot be estimated: a single member (``W`` is NaN) or
-        ``infinite_loss <= 0`` (no size is close in relative terms). Error rates follow no
-        such law (``ValueError``).
+        ``infinite_loss <= 0`` (no size is close in relative terms) or an error rate, which
+        follows no such law.
         """
-        self._require_law("members_needed")
         tolerance = check_tolerance(tolerance)
+        if self.mean_within is None:
+            return not_estimable("the size law holds for squared error and Brier score only, "
+                                 "not for error rates")
         within, limit = self.mean_within, self.infinite_loss
         if math.isnan(within):
             return not_estimable("a single member has no within part (mean_within is NaN)")
