@@ -63,11 +63,25 @@ pub trait FittedMembers: Sized {
         self.task().outputs()
     }
 
-    /// Checks points `x` before prediction.
+    /// Checks points `x` before prediction: finite values and the fitted number of
+    /// features.
     ///
     /// # Errors
     /// `x` with the wrong number of features or non-finite values.
-    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()>;
+    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
+        check_design(x, "x")?;
+        if x.ncols() != self.n_features() {
+            return Err(Error::value(
+                "x",
+                format!(
+                    "has {} columns but the ensemble was fit on {} features",
+                    x.ncols(),
+                    self.n_features()
+                ),
+            ));
+        }
+        Ok(())
+    }
 
     /// Every member's prediction at every point of `x`, written into `out` (members ×
     /// points × outputs): regression values or class fractions.

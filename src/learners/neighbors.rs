@@ -432,21 +432,6 @@ impl FittedMembers for NeighborsEnsemble {
         self.n_features
     }
 
-    fn check_x<T: Real>(&self, x: ArrayView2<'_, T>) -> Result<()> {
-        check_design(x, "x")?;
-        if x.ncols() != self.n_features {
-            return Err(Error::value(
-                "x",
-                format!(
-                    "has {} columns but the ensemble was fit on {} features",
-                    x.ncols(),
-                    self.n_features
-                ),
-            ));
-        }
-        Ok(())
-    }
-
     fn member_predictions_into<T: Real>(
         &self,
         x: ArrayView2<'_, T>,
