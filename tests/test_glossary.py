@@ -12,7 +12,6 @@ import warnings
 from pathlib import Path
 
 import numpy as np
-import pytest
 
 import bagwise
 from bagwise import plots
