@@ -185,9 +185,9 @@ def targets(y, kind: str, n_points: int, name: str = "y", *,
         fraction = array[array != np.round(array)]
         if fraction.size:
             raise ValueError(f"`{name}`: class labels must be integers 0..n_classes-1; got "
-                             f"{fraction[0]!r}")
+                             f"{float(fraction[0])!r}")
         if array.size and array.max() > np.iinfo(np.int64).max:
-            raise ValueError(f"`{name}`: labels are class indices; got {array.max()!r}")
+            raise ValueError(f"`{name}`: labels are class indices; got {float(array.max())!r}")
     elif array.dtype.kind not in "iu":
         raise TypeError(f"`{name}`: class labels must be integers 0..n_classes-1, got dtype "
                         f"{array.dtype}")
