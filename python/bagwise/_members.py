@@ -8,9 +8,14 @@ Member predictions come in three kinds, told apart by dtype and shape:
 - labels: integer ``(n_members, n_points)`` class indices ``0..n_classes-1``, loss
   ``"error_rate"``.
 
-Float inputs are returned as they are (no upcasting copy, any strides); integer labels as
-int64 (other integer dtypes are converted once). Every message names the argument in
-backticks. The limits mirror the core's (``src/members.rs``).
+Float inputs are returned as they are (no upcasting copy, any strides; only a non-native
+byte order is converted, once); integer labels as int64 (other integer dtypes are converted
+once). A family that takes only some kinds says which (``kinds=``) and gets the same message
+for the others. Every message names the argument in backticks, so the same fault reads the
+same in every family. NaN and infinite predictions, and probabilities that do not sum to 1,
+are left to the core, which names the member and point.
+
+The limits are the core's (``src/members.rs``): `PROBABILITY_TOLERANCE` and `MAX_CLASSES`.
 """
 
 from __future__ import annotations
@@ -25,11 +30,13 @@ __all__ = [
     "MAX_CLASSES",
     "PROBABILITY_TOLERANCE",
     "WEIGHT_TOLERANCE",
+    "as_array",
     "loss_for",
     "loss_option",
     "member_weights",
     "members_array",
     "n_classes_of",
+    "replicate_members",
     "targets",
 ]
 
@@ -38,25 +45,66 @@ LOSS_OF_KIND = {"values": "squared_error", "probabilities": "brier_score", "labe
 _KIND_OF_LOSS = {loss: kind for kind, loss in LOSS_OF_KIND.items()}
 _LOSSES = "'squared_error', 'brier_score' or 'error_rate'"
 
-#: Largest number of classes (the core's ``members::MAX_CLASSES``).
+#: Largest number of classes of any members array (the core's ``members::MAX_CLASSES``,
+#: 2**20). A family may refuse fewer through ``n_classes_of(max_classes=...)``.
 MAX_CLASSES = 1 << 20
-#: Largest |sum_c p_c - 1| of one member's probabilities at a point (the core checks it).
+#: Largest |sum_c p_c - 1| of one member's probabilities at a point, and the slack below 0
+#: and above 1 of one probability: the core's ``members::PROBABILITY_TOLERANCE``, 1e-5 (a
+#: float32 softmax over a few hundred classes sums to 1 only within a few 1e-6). The core
+#: checks it; it is the one tolerance every family documents.
 PROBABILITY_TOLERANCE = 1e-5
 #: Largest |sum_b w_b - 1| of member weights.
 WEIGHT_TOLERANCE = 1e-6
 
 
-def members_array(members, name: str = "members") -> tuple[str, np.ndarray]:
+_DESCRIBED = {
+    "values": "float values (n_members, n_points)",
+    "probabilities": "float probabilities (n_members, n_points, n_classes)",
+    "labels": "integer labels (n_members, n_points)",
+}
+
+
+def as_array(value, name: str) -> np.ndarray:
+    """``value`` as an ndarray without copying numpy inputs (memory maps stay mapped); only a
+    non-native byte order (e.g. big-endian data from a file) is converted, once."""
+    if not isinstance(value, np.ndarray):
+        try:
+            value = np.asarray(value)
+        except (TypeError, ValueError) as err:
+            raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} "
+                            f"({err})") from None
+    if not value.dtype.isnative:
+        value = value.astype(value.dtype.newbyteorder("="))
+    return value
+
+
+def _float_dtype(array: np.ndarray, name: str) -> None:
+    if array.dtype not in (np.float32, np.float64):
+        raise TypeError(f"`{name}`: float predictions must be float32 or float64, got "
+                        f"{array.dtype}")
+
+
+def members_array(members, name: str = "members", *, kinds: tuple[str, ...] = KINDS,
+                  numbers_as_values: bool = False, min_members: int = 1,
+                  purpose: str = "this function") -> tuple[str, np.ndarray]:
     """``(kind, array)``: the kind (one of `KINDS`) and the array the core reads.
 
-    Raises ``TypeError`` for a dtype that is neither float32/float64 nor integer,
-    ``ValueError`` for a wrong number of dimensions, an empty axis or a negative label.
+    ``kinds`` are the kinds the caller takes (another kind is a ``TypeError`` saying what
+    ``purpose`` needs); ``numbers_as_values`` reads integer and boolean arrays as values
+    (one float64 copy) instead of labels, for families that take values only;
+    ``min_members`` is the fewest members ``purpose`` needs.
+
+    Raises ``TypeError`` for a dtype that is neither float32/float64 nor integer or a kind
+    outside ``kinds``, ``ValueError`` for a wrong number of dimensions, an empty axis, too
+    few members or a negative label.
     """
-    array = members if isinstance(members, np.ndarray) else np.asarray(members)
+    array = as_array(members, name)
     kind = array.dtype.kind
+    if numbers_as_values and kind in "iub":
+        array = array.astype(np.float64)
+        kind = "f"
     if kind == "f":
-        if array.dtype not in (np.float32, np.float64):
-            raise TypeError(f"`{name}`: float predictions must be float32 or float64, got {array.dtype}")
+        _float_dtype(array, name)
         if array.ndim == 2:
             found = "values"
         elif array.ndim == 3:
@@ -74,53 +122,123 @@ def members_array(members, name: str = "members") -> tuple[str, np.ndarray]:
     else:
         raise TypeError(f"`{name}`: expected float predictions or integer labels, got dtype "
                         f"{array.dtype}")
+    if found not in kinds:
+        wanted = ("class predictions" if set(kinds) == {"labels", "probabilities"}
+                  else " or ".join(kinds))
+        raise TypeError(f"`{name}`: {purpose} need {wanted} - "
+                        f"{' or '.join(_DESCRIBED[k] for k in kinds)} - got "
+                        f"{_DESCRIBED[found].split(' (')[0]} of shape {array.shape}")
     if 0 in array.shape:
         raise ValueError(f"`{name}`: is empty (shape {array.shape})")
+    if array.shape[0] < min_members:
+        raise ValueError(f"`{name}`: needs at least {min_members} members, got "
+                         f"{array.shape[0]}")
     if found == "labels":
         if array.dtype == np.uint64 and array.max() > np.iinfo(np.int64).max:
             raise ValueError(f"`{name}`: labels are class indices; got {array.max()}")
         array = array.astype(np.int64, copy=False)
         if array.min() < 0:
-            raise ValueError(f"`{name}`: labels are class indices 0..n_classes-1; got {array.min()}")
+            raise ValueError(f"`{name}`: class labels must be non-negative class indices "
+                             f"0..n_classes-1; got {array.min()}")
     return found, array
 
 
-def targets(y, kind: str, n_points: int, name: str = "y") -> np.ndarray:
+def replicate_members(members, name: str = "members") -> np.ndarray:
+    """Float32/float64 values of ensembles refitted on independent training sets, shape
+    ``(n_replicates, n_members, n_points)`` with at least 2 replicates, read like
+    `members_array` reads values."""
+    array = as_array(members, name)
+    _float_dtype(array, name)
+    if array.ndim != 3:
+        raise ValueError(f"`{name}`: expected shape (n_replicates, n_members, n_points), got "
+                         f"{array.ndim} dimensions {array.shape}")
+    if array.size == 0:
+        raise ValueError(f"`{name}`: is empty (shape {array.shape})")
+    if array.shape[0] < 2:
+        raise ValueError(f"`{name}`: needs at least 2 replicates (ensembles fitted on "
+                         "independent training sets) to estimate the between-replicate "
+                         f"variance, got {array.shape[0]}")
+    return array
+
+
+def targets(y, kind: str, n_points: int, name: str = "y", *,
+            float_labels: bool = False) -> np.ndarray:
     """The targets of ``n_points`` points for members of ``kind``: finite float64 values,
-    or int64 class indices for probabilities and labels."""
-    array = y if isinstance(y, np.ndarray) else np.asarray(y)
+    or int64 class indices for probabilities and labels.
+
+    ``float_labels`` also takes class indices stored as whole floats (e.g. 1.0), for
+    families that have always taken them; a fraction or NaN is then a ``ValueError``.
+    """
+    array = as_array(y, name)
     if array.ndim != 1:
         raise ValueError(f"`{name}`: expected a 1-D array, got shape {array.shape}")
     if array.shape[0] != n_points:
         raise ValueError(f"`{name}`: has {array.shape[0]} values but `members` has {n_points} points")
-    if kind == "values":
+    if kind == "values" or (float_labels and array.dtype.kind == "f"):
         if array.dtype.kind not in "fiu":
             raise TypeError(f"`{name}`: expected numbers, got dtype {array.dtype}")
         array = array.astype(np.float64, copy=False)
         if not np.all(np.isfinite(array)):
             raise ValueError(f"`{name}`: contains NaN or infinite values")
-        return array
-    if array.dtype.kind not in "iu":
+        if kind == "values":
+            return array
+        fraction = array[array != np.round(array)]
+        if fraction.size:
+            raise ValueError(f"`{name}`: class labels must be integers 0..n_classes-1; got "
+                             f"{float(fraction[0])!r}")
+        if array.size and array.max() > np.iinfo(np.int64).max:
+            raise ValueError(f"`{name}`: labels are class indices; got {float(array.max())!r}")
+    elif array.dtype.kind not in "iu":
         raise TypeError(f"`{name}`: class labels must be integers 0..n_classes-1, got dtype "
                         f"{array.dtype}")
+    if array.dtype == np.uint64 and array.size and array.max() > np.iinfo(np.int64).max:
+        raise ValueError(f"`{name}`: labels are class indices; got {array.max()}")
     array = array.astype(np.int64, copy=False)
     if array.size and array.min() < 0:
-        raise ValueError(f"`{name}`: labels are class indices 0..n_classes-1; got {array.min()}")
+        raise ValueError(f"`{name}`: class labels must be non-negative class indices "
+                         f"0..n_classes-1; got {array.min()}")
     return array
 
 
-def n_classes_of(n_classes, labels: np.ndarray, y: np.ndarray | None = None,
-                 name: str = "n_classes") -> int:
-    """The class count of int64 ``labels`` (and targets ``y``): ``n_classes`` if given
-    (checked against the largest label), else the largest label + 1; at most `MAX_CLASSES`."""
-    top = int(labels.max())
+def n_classes_of(n_classes, labels: np.ndarray | None, y: np.ndarray | None = None,
+                 name: str = "n_classes", *, implied: int | None = None,
+                 max_classes: int = MAX_CLASSES, blame_labels: bool = False,
+                 labels_name: str = "members", y_name: str = "y") -> int:
+    """The class count of int64 ``labels`` (``None`` for probabilities) and targets ``y``.
+
+    ``n_classes`` if given, else ``implied`` (the probabilities' last axis), else the largest
+    label + 1; at most ``max_classes``. A given count must equal ``implied``. A label at or
+    above the count is reported against ``n_classes``, or with ``blame_labels`` (a count
+    fixed before the labels are seen, as in a stream) against the array holding it, as is
+    an inferred count above ``max_classes``.
+    """
+    tops = []
+    if labels is not None:
+        tops.append((int(labels.max()), labels_name))
     if y is not None and y.size:
-        top = max(top, int(y.max()))
-    n_classes = top + 1 if n_classes is None else positive_int(n_classes, name)
-    if n_classes > MAX_CLASSES:
-        raise ValueError(f"`{name}`: {n_classes} classes exceed the {MAX_CLASSES} supported; "
-                         "labels must be class indices 0..n_classes-1")
+        tops.append((int(y.max()), y_name))
+    top, where = max(tops, key=lambda t: t[0]) if tops else (-1, labels_name)
+    if n_classes is not None:
+        n_classes = positive_int(n_classes, name)
+        if n_classes > max_classes:
+            raise ValueError(f"`{name}`: at most {max_classes} classes are supported, got "
+                             f"{n_classes}")
+        if implied is not None and implied != n_classes:
+            raise ValueError(f"`{name}`: is {n_classes} but `{labels_name}` has {implied} classes")
+    elif implied is not None:
+        n_classes = implied
+    else:
+        n_classes = top + 1
+        if n_classes > max_classes:
+            if blame_labels:
+                raise ValueError(f"`{where}`: at most {max_classes} classes are supported, "
+                                 f"found label {top}")
+            raise ValueError(f"`{name}`: at most {max_classes} classes are supported, got "
+                             f"{n_classes} (the largest label + 1)")
     if top >= n_classes:
+        if blame_labels:
+            raise ValueError(f"`{where}`: class labels must be class indices 0..{n_classes - 1}; "
+                             f"got {top}")
         raise ValueError(f"`{name}`: is {n_classes} but a label {top} occurs")
     return n_classes
 

@@ -22,83 +22,29 @@ import math
 import numpy as np
 
 from . import _core
+from ._members import members_array, n_classes_of, targets
 from ._results import Result
 from ._validation import n_jobs_value, positive_int
 from ._warnings import warn
 
 __all__ = ["Diversity", "DiversityStream", "diversity", "diversity_stream"]
 
-_MAX_CLASSES = 1 << 20  # the core keeps members x n_classes counts
 _PAIRWISE = ("yule_q", "correct_correlation", "disagreement", "double_fault", "kappa")
 _SCALARS = ("mean_yule_q", "mean_correct_correlation", "mean_disagreement", "mean_double_fault",
             "mean_kappa", "entropy", "kohavi_wolpert", "interrater_kappa", "difficulty",
             "generalized_diversity", "coincident_failure")
 
 
-def _members_iv(members):
-    """(members array as int64 labels or f32/f64 probabilities, n_classes it implies)."""
-    array = members if isinstance(members, np.ndarray) else np.asarray(members)
-    kind = array.dtype.kind
-    if kind == "f":
-        if array.ndim == 2:
-            raise TypeError("`members`: diversity measures need class predictions - integer "
-                            "labels (n_members, n_points) or probabilities (n_members, n_points, "
-                            f"n_classes) - got float values of shape {array.shape}")
-        if array.ndim != 3:
-            raise ValueError("`members`: probabilities must have shape (n_members, n_points, "
-                             f"n_classes), got {array.shape}")
-        if array.dtype not in (np.float32, np.float64):
-            raise TypeError(f"`members`: probabilities must be float32 or float64, got {array.dtype}")
-        implied = array.shape[2]
-    elif kind in "iu":
-        if array.ndim != 2:
-            raise ValueError("`members`: integer labels must have shape (n_members, n_points), "
-                             f"got {array.shape}")
-        implied = None
-    else:
-        raise TypeError("`members`: expected integer class labels or float probabilities, got "
-                        f"dtype {array.dtype}")
-    if 0 in array.shape:
-        raise ValueError(f"`members`: is empty (shape {array.shape})")
-    if array.shape[0] < 2:
-        raise ValueError(f"`members`: diversity needs at least 2 members, got {array.shape[0]}")
-    if implied is None:
-        if array.dtype == np.uint64 and array.max() > np.iinfo(np.int64).max:
-            raise ValueError(f"`members`: labels are class indices; got {array.max()}")
-        array = array.astype(np.int64, copy=False)
-        if array.min() < 0:
-            raise ValueError(f"`members`: labels are class indices 0..n_classes-1; got {array.min()}")
-    return array, implied
-
-
-def _y_iv(y, n_points):
-    array = y if isinstance(y, np.ndarray) else np.asarray(y)
-    if array.dtype.kind not in "iu":
-        raise TypeError(f"`y`: class labels must be integers 0..n_classes-1, got dtype {array.dtype}")
-    if array.ndim != 1:
-        raise ValueError(f"`y`: expected a 1-D array, got shape {array.shape}")
-    if array.shape[0] != n_points:
-        raise ValueError(f"`y`: has {array.shape[0]} values but `members` has {n_points} points")
-    if array.dtype == np.uint64 and array.max() > np.iinfo(np.int64).max:
-        raise ValueError(f"`y`: labels are class indices; got {array.max()}")
-    array = array.astype(np.int64, copy=False)
-    if array.min() < 0:
-        raise ValueError(f"`y`: labels are class indices 0..n_classes-1; got {array.min()}")
-    return array
-
-
-def _n_classes_iv(n_classes, members, implied, y):
-    if n_classes is None:
-        if implied is not None:
-            return implied
-        n_classes = int(max(members.max(), y.max())) + 1
-    else:
-        n_classes = positive_int(n_classes, "n_classes")
-    if n_classes > _MAX_CLASSES:
-        raise ValueError(f"`n_classes`: at most {_MAX_CLASSES} classes are supported, got {n_classes}")
-    if implied is not None and implied != n_classes:
-        raise ValueError(f"`n_classes`: is {n_classes} but `members` has {implied} classes")
-    return n_classes
+def _diversity_iv(members, y, n_classes):
+    """(members as int64 labels or f32/f64 probabilities, y as int64, n_classes); a label
+    outside a given count names the array holding it (a stream fixes its count first)."""
+    kind, members = members_array(members, kinds=("labels", "probabilities"), min_members=2,
+                                  purpose="diversity measures")
+    y = targets(y, kind, members.shape[1])
+    implied = members.shape[2] if kind == "probabilities" else None
+    n_classes = n_classes_of(n_classes, members if implied is None else None, y,
+                             implied=implied, blame_labels=True)
+    return members, y, n_classes
 
 
 def _fmt(value) -> str:
@@ -119,19 +65,15 @@ class DiversityStream:
     """
 
     def __init__(self, n_classes, n_jobs=None):
-        self.n_classes = positive_int(n_classes, "n_classes")
-        if self.n_classes > _MAX_CLASSES:
-            raise ValueError(f"`n_classes`: at most {_MAX_CLASSES} classes are supported, got "
-                             f"{self.n_classes}")
+        # Required (no labels to infer it from yet); the core keeps members x n_classes counts.
+        self.n_classes = n_classes_of(positive_int(n_classes, "n_classes"), None)
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
 
     def update(self, members, y) -> DiversityStream:
         """Add every member's labels (or probabilities) at a chunk of points and its
         targets. Returns the stream."""
-        members, implied = _members_iv(members)
-        y = _y_iv(y, members.shape[1])
-        _n_classes_iv(self.n_classes, members, implied, y)
+        members, y, _ = _diversity_iv(members, y, self.n_classes)
         if self._core is None:
             self._core = _core.DiversityAccumulator(members.shape[0], self.n_classes)
         elif members.shape[0] != self._core.n_members:
@@ -250,9 +192,7 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     >>> d.redundant_pairs(top=1)
     [(0, 1, 0.5)]
     """
-    members, implied = _members_iv(members)
-    y = _y_iv(y, members.shape[1])
-    n_classes = _n_classes_iv(n_classes, members, implied, y)
+    members, y, n_classes = _diversity_iv(members, y, n_classes)
     return DiversityStream(n_classes, n_jobs).update(members, y).result()
 
 

@@ -9,6 +9,7 @@ import math
 import numpy as np
 
 from . import _core
+from ._members import as_array, members_array, n_classes_of, targets
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -18,44 +19,21 @@ __all__ = ["OutOfBag", "OutOfBagStream", "out_of_bag", "out_of_bag_stream"]
 REGRESSION_LOSSES = ("squared_error", "absolute_error")
 CLASSIFICATION_LOSSES = ("error_rate", "brier_score", "log_loss")
 LOG_LOSS_FLOOR = 1e-15
-PROBABILITY_TOLERANCE = 1e-6
+#: Labels this family refuses above (the core takes up to `MAX_CLASSES`): the result holds
+#: dense ``(n_points, n_classes)`` vote fractions, so a stray large label (say 100,000 in
+#: place of 1) is refused here rather than turned into a mostly-zero table that size.
+OUT_OF_BAG_MAX_CLASSES = 1 << 16
 
 
-def _array(value, name):
-    """``value`` as an ndarray without copying numpy inputs (memory maps stay mapped);
-    only non-native byte order (e.g. big-endian data from a file) is converted."""
-    if not isinstance(value, np.ndarray):
-        try:
-            value = np.asarray(value)
-        except (TypeError, ValueError) as err:
-            raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
-    if not value.dtype.isnative:
-        value = value.astype(value.dtype.newbyteorder("="))
-    return value
-
-
-def _members_kind(members):
-    """("regression" | "labels" | "probabilities") from the dtype and dimensions."""
-    kind = members.dtype.kind
-    if kind == "f" and members.dtype not in (np.float32, np.float64):
-        raise TypeError(f"`members`: float predictions must be float32 or float64, got {members.dtype}")
-    if members.ndim == 2 and kind == "f":
-        return "regression"
-    if members.ndim == 2 and kind in "iu":
-        return "labels"
-    if members.ndim == 3 and kind == "f":
-        return "probabilities"
-    raise TypeError(
-        "`members`: expected float predictions (members, n_points), integer class labels "
-        "(members, n_points) or float class probabilities (members, n_points, n_classes); "
-        f"got dtype {members.dtype} with {members.ndim} dimensions"
-    )
+def _core_kind(kind):
+    """The out-of-bag core and `OutOfBag.kind` name the values kind ``"regression"``."""
+    return "regression" if kind == "values" else kind
 
 
 def _sizes_iv(sizes, n_members):
     if sizes is None:
         return list(_core.default_sizes(n_members))
-    sizes = _array(sizes, "sizes")
+    sizes = as_array(sizes, "sizes")
     if sizes.ndim != 1 or sizes.size == 0 or sizes.dtype.kind not in "iu":
         raise TypeError("`sizes`: expected a non-empty 1-D sequence of integers")
     sizes = np.unique(sizes.astype(np.int64))
@@ -76,17 +54,18 @@ def _loss_iv(loss, task):
     return loss
 
 
-def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes):
-    """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core."""
+def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earlier_kind=None):
+    """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core.
+    ``earlier_kind``: the kind of a stream's earlier chunks, which this one must match."""
     from .resampling import Resample
 
-    members = _array(members, "members")
-    kind = _members_kind(members)
-    if members.size == 0:
-        raise ValueError(f"`members`: is empty (shape {members.shape})")
+    kind, members = members_array(members)
+    kind = _core_kind(kind)
+    if earlier_kind is not None and kind != earlier_kind:
+        raise ValueError(f"`members`: holds {kind} but earlier chunks held {earlier_kind}")
     if isinstance(counts, Resample):
         counts = counts.counts
-    counts = _array(counts, "counts")
+    counts = as_array(counts, "counts")
     if counts.dtype.kind not in "iu":
         raise TypeError(
             f"`counts`: expected integer in-bag counts (zero = out of bag), got dtype {counts.dtype}"
@@ -109,27 +88,16 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes):
                 # Fillers that pass the core's checks: 0, or uniform probabilities.
                 fill = 1.0 / members.shape[2] if members.ndim == 3 else 0.0
                 members = np.where(seen, fill, members).astype(members.dtype, copy=False)
-    y = _array(y, "y")
-    if y.ndim != 1 or y.shape[0] != n_points:
-        raise ValueError(f"`y`: expected shape ({n_points},) to match `members`, got {y.shape}")
-    if y.dtype.kind not in "iuf":
-        raise TypeError(f"`y`: expected numbers, got dtype {y.dtype}")
+    # Class targets may come as whole floats here (the core reads float64 targets).
+    y = targets(y, "values" if kind == "regression" else kind, n_points, float_labels=True)
     n_classes = None
     if kind == "labels":
-        lowest, highest = int(members.min()), int(members.max())
-        if lowest < 0:
-            raise ValueError(f"`members`: class labels must be non-negative integers, found {lowest}")
-        if y.dtype.kind == "f" and not np.all(np.isfinite(y)):
-            raise ValueError("`y`: contains NaN or infinite values")
-        y_top = float(y.max()) if y.size else 0.0
-        for name, top in (("members", highest), ("y", y_top)):
-            if top >= 2**16:
-                raise ValueError(f"`{name}`: at most 65536 classes are supported, found label {top:g}")
-        n_classes = max(highest, int(y_top)) + 1
+        n_classes = n_classes_of(None, members, y, max_classes=OUT_OF_BAG_MAX_CLASSES,
+                                 blame_labels=True)
     y = np.ascontiguousarray(y, dtype=np.float64)
     loss = _loss_iv(loss, "regression" if kind == "regression" else "classification")
     if point_weights is not None:
-        point_weights = _array(point_weights, "point_weights")
+        point_weights = as_array(point_weights, "point_weights")
         if point_weights.ndim != 1 or point_weights.shape[0] != n_points:
             raise ValueError(
                 f"`point_weights`: expected shape ({n_points},) to match `members`, got {point_weights.shape}"
@@ -139,7 +107,6 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes):
         point_weights = np.ascontiguousarray(point_weights, dtype=np.float64)
     sizes = _sizes_iv(sizes, n_members)
     return members, counts, y, kind, n_classes, loss, point_weights, n_jobs_value(n_jobs), sizes
-
 
 
 def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None,
@@ -159,7 +126,7 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
         predictions of shape (n_members, n_points); integer class labels
         ``0..n_classes-1`` of shape (n_members, n_points) (majority vote; ties go to the
         lowest class index); float class probabilities of shape (n_members, n_points,
-        n_classes), each member's row summing to 1 within 1e-6. Read without a copy, with
+        n_classes), each member's row summing to 1 within 1e-5. Read without a copy, with
         any strides.
     counts : ndarray of int, shape (n_members, n_points), or Resample
         In-bag counts, e.g. ``bagwise.resample(...).counts``; zero means out of bag. Any
@@ -274,13 +241,9 @@ class OutOfBagStream:
     def update(self, members, counts, y, point_weights=None) -> OutOfBagStream:
         """Add the next chunk of points: arrays as in :func:`out_of_bag`, restricted to the
         chunk's points (e.g. ``members[:, a:b]`` of a memory map). Returns the stream."""
-        if self._kind is not None:
-            kind = _members_kind(_array(members, "members"))
-            if kind != self._kind:
-                raise ValueError(f"`members`: holds {kind} but earlier chunks held {self._kind}")
         (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
-         sizes) = _out_of_bag_iv(members, counts, y, self._loss,
-                                 point_weights, self._n_jobs, self._sizes)
+         sizes) = _out_of_bag_iv(members, counts, y, self._loss, point_weights, self._n_jobs,
+                                 self._sizes, earlier_kind=self._kind)
         self._check_compatible(kind, members.shape[0],
                                members.shape[2] if kind == "probabilities" else None)
         state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,

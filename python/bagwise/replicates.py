@@ -10,6 +10,7 @@ from typing import ClassVar
 import numpy as np
 
 from . import _core
+from ._members import replicate_members, targets
 from ._results import Result, check_tolerance, members_for
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -18,31 +19,9 @@ __all__ = ["ReplicateSpread", "replicate_spread"]
 
 
 def _replicate_spread_iv(members, y, n_jobs):
-    if not isinstance(members, np.ndarray):
-        members = np.asarray(members)
-    if not members.dtype.isnative:   # e.g. big-endian data from a file: one converted copy
-        members = members.astype(members.dtype.newbyteorder("="))
-    if members.dtype not in (np.float32, np.float64):
-        raise TypeError(f"`members`: expected float32 or float64 predictions, got dtype {members.dtype}")
-    if members.ndim != 3:
-        raise ValueError(
-            "`members`: expected shape (n_replicates, n_members, n_points), got "
-            f"{members.ndim} dimensions {members.shape}"
-        )
-    if members.size == 0:
-        raise ValueError(f"`members`: is empty (shape {members.shape})")
-    if members.shape[0] < 2:
-        raise ValueError(
-            f"`members`: needs at least 2 replicates (ensembles fitted on independent training "
-            f"sets) to estimate the between-replicate variance, got {members.shape[0]}"
-        )
+    members = replicate_members(members)
     if y is not None:
-        y = np.asarray(y)
-        if y.dtype.kind not in "iuf":
-            raise TypeError(f"`y`: expected numbers, got dtype {y.dtype}")
-        if y.shape != (members.shape[2],):
-            raise ValueError(f"`y`: expected shape ({members.shape[2]},) to match `members`, got {y.shape}")
-        y = np.ascontiguousarray(y, dtype=np.float64)
+        y = np.ascontiguousarray(targets(y, "values", members.shape[2]))
     return members, y, n_jobs_value(n_jobs)
 
 

@@ -20,6 +20,7 @@ from typing import ClassVar
 import numpy as np
 
 from . import _core
+from ._members import as_array, members_array
 from ._results import Result, check_tolerance, members_for
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -51,21 +52,17 @@ def _counts_iv(counts) -> np.ndarray:
 
 
 def _members_iv(members, n_members: int) -> np.ndarray:
-    members = np.asarray(members)
-    if members.dtype.kind in "iub":
-        members = members.astype(np.float64)
-    elif members.dtype not in (np.float32, np.float64):
-        raise TypeError(f"`members`: expected float predictions, got dtype {members.dtype}")
-    if members.ndim == 1:
-        members = members[:, None]
-    if members.ndim != 2:
-        raise ValueError(f"`members`: expected shape (n_members, n_points), got {members.shape}")
-    if members.shape[0] != n_members:
-        raise ValueError(f"`members`: has {members.shape[0]} members (rows) but `counts` has "
+    """Values ``(n_members, n_points)`` (integers and booleans read as values; a 1-D array is
+    one point per member) from the shared reader, matching ``n_members`` rows of counts."""
+    array = as_array(members, "members")
+    if array.ndim == 1:
+        array = array[:, None]
+    _, array = members_array(array, kinds=("values",), numbers_as_values=True,
+                             purpose="standard errors")
+    if array.shape[0] != n_members:
+        raise ValueError(f"`members`: has {array.shape[0]} members (rows) but `counts` has "
                          f"{n_members}")
-    if members.shape[1] == 0:
-        raise ValueError("`members`: has no points")
-    return members
+    return array
 
 
 class CountGram:
