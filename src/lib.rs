@@ -18,6 +18,7 @@
 pub mod decomposition;
 pub mod diversity;
 pub mod error;
+pub mod intervals;
 pub mod learners;
 pub mod numeric;
 pub mod out_of_bag;

@@ -56,6 +56,7 @@ macro_rules! with_counts {
 
 mod decomposition;
 mod diversity;
+mod intervals;
 mod linear;
 mod neighbors;
 mod out_of_bag;
@@ -233,6 +234,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     decomposition::register(m)?;
     diversity::register(m)?;
+    intervals::register(m)?;
     resampling::register(m)?;
     uncertainty::register(m)?;
     linear::register(m)?;
