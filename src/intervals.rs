@@ -175,6 +175,52 @@ fn kth_smallest(values: &mut [f64], k: usize) -> f64 {
     *values.select_nth_unstable_by(k, f64::total_cmp).1
 }
 
+/// Below this many values, [`kth_of`] selects directly.
+const SAMPLED_SELECTION: usize = 2048;
+
+/// The `k`-th smallest (0-based) of `value(0..len)` without writing them all out.
+///
+/// A strided sample of about `len^(2/3)` values brackets the answer between two of its
+/// order statistics `[lo, hi]` (Floyd & Rivest 1975, "Expected time bounds for
+/// selection", CACM 18(3)); one pass counts the values below `lo` and keeps those in
+/// `[lo, hi]`, and the answer is selected among the kept ones when the bracket holds it.
+/// Otherwise (an unlucky sample) it falls back to selecting among all values, so the
+/// result is always the exact order statistic.
+fn kth_of(
+    len: usize,
+    value: impl Fn(usize) -> f64,
+    k: usize,
+    scratch: &mut Vec<f64>,
+    kept: &mut Vec<f64>,
+) -> f64 {
+    if len >= SAMPLED_SELECTION {
+        let step = (len as f64).cbrt() as usize;
+        scratch.clear();
+        scratch.extend((0..len).step_by(step).map(&value));
+        let s = scratch.len();
+        let position = k * s / len;
+        let gap = 3 * ((s as f64).sqrt() as usize) + 2;
+        let lo = kth_smallest(scratch, position.saturating_sub(gap));
+        let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+        kept.clear();
+        let mut below = 0;
+        for i in 0..len {
+            let v = value(i);
+            if v < lo {
+                below += 1;
+            } else if v <= hi {
+                kept.push(v);
+            }
+        }
+        if below <= k && k < below + kept.len() {
+            return kth_smallest(kept, k - below);
+        }
+    }
+    scratch.clear();
+    scratch.extend((0..len).map(value));
+    kth_smallest(scratch, k)
+}
+
 /// Runs `task(start, lower_chunk, upper_chunk)` over chunks of `POINT_CHUNK` points on the
 /// pool, calling the monitor between rounds; the chunking does not depend on the threads.
 fn over_point_chunks<A: Send, B: Send>(
@@ -346,19 +392,25 @@ fn leave_out_chunk<T: Real>(
     let mut means = Array2::from_shape_vec((len, n), zeroed::<f64>(len * n, "members")?)
         .map_err(|_| Error::value("members", "chunk shape"))?;
     general_mat_mul(1.0, &left, &weights, 0.0, &mut means);
-    let mut scratch = zeroed::<f64>(n, "train_members")?;
+    let (mut scratch, mut kept) = (Vec::new(), Vec::new());
     for (j, row) in means.outer_iter().enumerate() {
         let row = row
             .as_slice()
             .ok_or_else(|| Error::value("members", "chunk layout"))?;
-        for ((s, &mu), &r) in scratch.iter_mut().zip(row).zip(residuals) {
-            *s = mu - r;
-        }
-        lower[j] = kth_smallest(&mut scratch, lower_rank - 1);
-        for ((s, &mu), &r) in scratch.iter_mut().zip(row).zip(residuals) {
-            *s = mu + r;
-        }
-        upper[j] = kth_smallest(&mut scratch, upper_rank - 1);
+        lower[j] = kth_of(
+            n,
+            |i| row[i] - residuals[i],
+            lower_rank - 1,
+            &mut scratch,
+            &mut kept,
+        );
+        upper[j] = kth_of(
+            n,
+            |i| row[i] + residuals[i],
+            upper_rank - 1,
+            &mut scratch,
+            &mut kept,
+        );
     }
     Ok(())
 }
@@ -739,5 +791,25 @@ mod tests {
         assert_eq!(one, run(2));
         assert_eq!(one, run(3));
         assert!(one.0.iter().zip(&one.1).all(|(l, u)| l <= u));
+    }
+
+    #[test]
+    fn sampled_selection_is_exact() {
+        let (mut scratch, mut kept) = (Vec::new(), Vec::new());
+        for (len, seed) in [(5000usize, 1usize), (20_011, 7), (3000, 3)] {
+            // sorted, reversed and scrambled inputs, with ties
+            let patterns: [Box<dyn Fn(usize) -> f64>; 3] = [
+                Box::new(|i| (i / 3) as f64),
+                Box::new(move |i| (len - i) as f64),
+                Box::new(move |i| ((i * 7919 + seed * 104_729) % 1013) as f64 * 0.5),
+            ];
+            for value in &patterns {
+                let mut all: Vec<f64> = (0..len).map(value).collect();
+                all.sort_by(f64::total_cmp);
+                for k in [0, 1, len / 10, len / 2, len - len / 10, len - 1] {
+                    assert_eq!(kth_of(len, value, k, &mut scratch, &mut kept), all[k]);
+                }
+            }
+        }
     }
 }

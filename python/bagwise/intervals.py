@@ -438,7 +438,7 @@ def prediction_interval(
     >>> interval.n_rows_used
     300
     >>> round(interval.coverage(y_new), 2)
-    0.9
+    0.89
     """
     members, counts, train_members, y_train, level, method, n_jobs, n_left_out = (
         _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs)
