@@ -225,6 +225,26 @@ def bagged_members(model, X_train, y_train, X_test, proba=False):
 def split_coverage(X, y, seed, level, method, n_train, classifier=False, in_bag=False):
     """Coverage of the test points of one random split (the test points are new
     observations exchangeable with the training rows)."""
+    members, counts, train_members, y_train, y_test = fitted_split(
+        X, y, seed, n_train, classifier)
+    if in_bag:   # the wrong variant: aggregate the members that saw each row
+        counts = (counts == 0).astype(np.uint8)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)   # rows in bag for all members
+        result = bagwise.prediction_interval(members, counts, train_members, y_train,
+                                             level=level, method=method)
+    return result.coverage(y_test)
+
+
+_FITTED = {}
+
+
+def fitted_split(X, y, seed, n_train, classifier):
+    """Member predictions of a bagged ensemble fitted on one random split, kept for the
+    other methods of the same dataset."""
+    key = (len(y), seed, n_train, classifier)
+    if key in _FITTED:
+        return _FITTED[key]
     rng = np.random.default_rng(seed)
     order = rng.permutation(len(y))
     train, test = order[:n_train], order[n_train:n_train + 400]
@@ -235,23 +255,33 @@ def split_coverage(X, y, seed, level, method, n_train, classifier=False, in_bag=
         model = BaggingRegressor(n_estimators=25, random_state=seed)
     model.fit(X[train], y[train])
     members, counts, train_members = bagged_members(model, X[train], y[train], X[test], classifier)
-    if in_bag:   # the wrong variant: aggregate the members that saw each row
-        counts = (counts == 0).astype(np.uint8)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", bagwise.BagwiseWarning)   # rows in bag for all members
-        result = bagwise.prediction_interval(members, counts, train_members, y[train],
-                                             level=level, method=method)
-    return result.coverage(y[test])
+    _FITTED[key] = members, counts, train_members, y[train], y[test]
+    return _FITTED[key]
 
 
-def coverage_check(coverages, level):
+def conservative(method):
+    """Methods whose coverage sits above the level by design: jackknife+ (Barber, Candes,
+    Ramdas & Tibshirani 2021, section 5: typically at or above 1 - alpha; Kim, Xu & Barber
+    2020, section 5, the same after bootstrap) is checked from below and kept under
+    level + alpha / 2; non-randomised adaptive sets (Romano, Sesia & Candes 2020, section 2)
+    only from below."""
+    return {"jackknife+": "capped", "adaptive": "below"}.get(method, "")
+
+
+def coverage_check(coverages, level, side=""):
     """Mean coverage over splits within 3 Monte-Carlo standard errors of the nominal level
-    (from the spread over splits) and no split below 1 - 2 alpha (Kim, Xu & Barber 2020,
-    Theorem 1, for jackknife+). Returns (passed, mean, std_error)."""
+    (from the spread over splits; only from below for the conservative methods) and no split
+    below 1 - 2 alpha (Kim, Xu & Barber 2020, Theorem 1, for jackknife+). Returns
+    (passed, mean, std_error)."""
     coverages = np.asarray(coverages)
     mean = coverages.mean()
     std_error = coverages.std(ddof=1) / math.sqrt(len(coverages))
-    passed = abs(mean - level) <= 3 * std_error and coverages.min() >= 1 - 2 * (1 - level)
+    close = mean - level >= -3 * std_error
+    if side == "capped":
+        close = close and mean <= level + (1 - level) / 2
+    elif not side:
+        close = close and mean - level <= 3 * std_error
+    passed = close and coverages.min() >= 1 - 2 * (1 - level)
     return passed, mean, std_error
 
 
@@ -281,7 +311,8 @@ def case_coverages(case, first_seed, n_splits=20, level=0.8, in_bag=False):
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_coverage_on_bundled_data(case):
-    passed, mean, std_error = coverage_check(case_coverages(case, first_seed=0), 0.8)
+    coverages = case_coverages(case, first_seed=0)
+    passed, mean, std_error = coverage_check(coverages, 0.8, conservative(CASES[case][1]))
     assert passed, f"{case}: mean coverage {mean:.3f} +- {std_error:.3f}, nominal 0.8"
 
 
@@ -293,31 +324,35 @@ def simulated(seed, n=400):
 
 
 def simulated_coverages(first_seed, n_splits=20, level=0.8, in_bag=False, method="jackknife+"):
+    """Coverage of the second half of each simulated sample by intervals calibrated on an
+    ensemble of regression trees fitted to the first half."""
     coverages = []
     for seed in range(first_seed, first_seed + n_splits):
-        X, y = simulated(seed)
-        model = BaggingRegressor(DecisionTreeRegressor(min_samples_leaf=3), n_estimators=30,
-                                 random_state=seed)
-        coverages.append(split_coverage_fitted(model, X, y, level, method, in_bag))
+        if seed not in _SIMULATED:
+            X, y = simulated(seed)
+            n_train = len(y) // 2
+            model = BaggingRegressor(DecisionTreeRegressor(min_samples_leaf=3), n_estimators=25,
+                                     random_state=seed).fit(X[:n_train], y[:n_train])
+            _SIMULATED[seed] = (*bagged_members(model, X[:n_train], y[:n_train], X[n_train:]),
+                                y[:n_train], y[n_train:])
+        members, counts, train_members, y_train, y_test = _SIMULATED[seed]
+        if in_bag:   # the wrong variant: aggregate the members that saw each row
+            counts = (counts == 0).astype(np.uint8)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+            result = bagwise.prediction_interval(members, counts, train_members, y_train,
+                                                 level=level, method=method)
+        coverages.append(result.coverage(y_test))
     return coverages
 
 
-def split_coverage_fitted(model, X, y, level, method, in_bag):
-    n_train = len(y) // 2
-    model.fit(X[:n_train], y[:n_train])
-    members, counts, train_members = bagged_members(model, X[:n_train], y[:n_train], X[n_train:])
-    if in_bag:
-        counts = (counts == 0).astype(np.uint8)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
-        result = bagwise.prediction_interval(members, counts, train_members, y[:n_train],
-                                             level=level, method=method)
-    return result.coverage(y[n_train:])
+_SIMULATED = {}
 
 
 @pytest.mark.parametrize("method", ["jackknife+", "out_of_bag_residual"])
 def test_coverage_on_a_known_generator_and_the_in_bag_variant_undercovers(method):
-    passed, mean, std_error = coverage_check(simulated_coverages(0, method=method), 0.8)
+    passed, mean, std_error = coverage_check(simulated_coverages(0, method=method), 0.8,
+                                             conservative(method))
     assert passed, f"mean coverage {mean:.3f} +- {std_error:.3f}, nominal 0.8"
     # the wrong variant: residuals of members that saw the row are too small
     passed, wrong, _ = coverage_check(simulated_coverages(0, in_bag=True, method=method), 0.8)
@@ -339,46 +374,46 @@ def good():
     return dict(members=members, counts=counts, train_members=train_members, y_train=y_train)
 
 
-def replace(**changes):
-    arguments = good()
-    arguments.update(changes)
-    return arguments
-
-
 def run(arguments, **options):
     a = arguments
     return bagwise.prediction_interval(a["members"], a["counts"], a["train_members"], a["y_train"],
                                        **options)
 
 
-BAD = {
-    "members NaN": (ValueError, "`members`", lambda g: replace(members=np.where(g["members"] > 1, np.nan, g["members"]))),
-    "members inf": (ValueError, "`members`", lambda g: replace(members=g["members"] * np.inf)),
-    "members 1-D": (ValueError, "`members`", lambda g: replace(members=g["members"][0])),
-    "members empty": (ValueError, "`members`", lambda g: replace(members=g["members"][:, :0])),
-    "members one member": (ValueError, "`members`", lambda g: replace(members=g["members"][:1])),
-    "members ints": (TypeError, "`members`", lambda g: replace(members=g["members"].astype(int))),
-    "members one class": (ValueError, "`members`", lambda g: replace(members=np.ones((9, 25, 1)))),
-    "train_members shape": (ValueError, "`train_members`", lambda g: replace(train_members=g["train_members"][:5])),
-    "train_members NaN": (ValueError, "`train_members`", lambda g: replace(train_members=g["train_members"] * np.nan)),
-    "counts float": (TypeError, "`counts`", lambda g: replace(counts=g["counts"].astype(float))),
-    "counts bool": (TypeError, "`counts`", lambda g: replace(counts=g["counts"] == 0)),
-    "counts negative": (ValueError, "`counts`", lambda g: replace(counts=g["counts"].astype(int) - 1)),
-    "counts shape": (ValueError, "`counts`", lambda g: replace(counts=g["counts"][:, :30])),
-    "counts as row indices": (ValueError, "`counts`.*np.bincount", lambda g: replace(
-        counts=np.random.default_rng(0).integers(0, 40, size=(9, 40)))),
-    "counts never out of bag": (ValueError, "`counts`", lambda g: replace(counts=g["counts"] + 1)),
-    "y_train length": (ValueError, "`y_train`", lambda g: replace(y_train=g["y_train"][:-1])),
-    "y_train NaN": (ValueError, "`y_train`", lambda g: replace(y_train=g["y_train"] * np.nan)),
-    "y_train strings": (TypeError, "`y_train`", lambda g: replace(y_train=g["y_train"].astype(str))),
+def _nan_above_one(values):
+    return np.where(values > 1, np.nan, values)
+
+
+BAD = {   # case: (exception, the argument replaced and named, its bad value, more of the message)
+    "members NaN": (ValueError, "members", lambda g: _nan_above_one(g["members"]), ""),
+    "members inf": (ValueError, "members", lambda g: g["members"] * np.inf, ""),
+    "members 1-D": (ValueError, "members", lambda g: g["members"][0], ""),
+    "members empty": (ValueError, "members", lambda g: g["members"][:, :0], ""),
+    "members one member": (ValueError, "members", lambda g: g["members"][:1], ""),
+    "members ints": (TypeError, "members", lambda g: g["members"].astype(int), ""),
+    "members one class": (ValueError, "members", lambda g: np.ones((9, 25, 1)), ""),
+    "train_members shape": (ValueError, "train_members", lambda g: g["train_members"][:5], ""),
+    "train_members NaN": (ValueError, "train_members", lambda g: g["train_members"] * np.nan, ""),
+    "counts float": (TypeError, "counts", lambda g: g["counts"].astype(float), ""),
+    "counts bool": (TypeError, "counts", lambda g: g["counts"] == 0, ""),
+    "counts negative": (ValueError, "counts", lambda g: g["counts"].astype(int) - 1, ""),
+    "counts shape": (ValueError, "counts", lambda g: g["counts"][:, :30], ""),
+    "counts as row indices": (ValueError, "counts", lambda g: np.random.default_rng(0).integers(
+        0, 40, size=(9, 40)), ".*np.bincount"),
+    "counts never out of bag": (ValueError, "counts", lambda g: g["counts"] + 1, ""),
+    "y_train length": (ValueError, "y_train", lambda g: g["y_train"][:-1], ""),
+    "y_train NaN": (ValueError, "y_train", lambda g: g["y_train"] * np.nan, ""),
+    "y_train strings": (TypeError, "y_train", lambda g: g["y_train"].astype(str), ""),
 }
 
 
 @pytest.mark.parametrize("case", list(BAD))
 def test_bad_input_names_the_argument(case):
-    error, match, make = BAD[case]
-    with pytest.raises(error, match=f"^{match}"):
-        run(make(good()))
+    error, argument, bad, more = BAD[case]
+    arguments = good()
+    arguments[argument] = bad(arguments)
+    with pytest.raises(error, match=f"^`{argument}`{more}"):
+        run(arguments)
 
 
 @pytest.mark.parametrize("level", [0.0, 1.0, -0.1, 1.5, float("nan")])
