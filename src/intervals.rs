@@ -178,34 +178,38 @@ fn kth_smallest(values: &mut [f64], k: usize) -> f64 {
 /// Below this many values, [`kth_of`] selects directly.
 const SAMPLED_SELECTION: usize = 2048;
 
-/// The `k`-th smallest (0-based) of `value(0..len)` without writing them all out.
+/// The `k`-th smallest (0-based) of `means[i] + sign · residuals[i]` (`sign` = ±1) without
+/// writing them all out.
 ///
-/// A strided sample of about `len^(2/3)` values brackets the answer between two of its
-/// order statistics `[lo, hi]` (Floyd & Rivest 1975, "Expected time bounds for
-/// selection", CACM 18(3)); one pass counts the values below `lo` and keeps those in
-/// `[lo, hi]`, and the answer is selected among the kept ones when the bracket holds it.
-/// Otherwise (an unlucky sample) it falls back to selecting among all values, so the
-/// result is always the exact order statistic.
+/// A strided sample of about `n^(2/3)` values brackets the answer between two of its
+/// order statistics `[lo, hi]`, about three binomial standard deviations of the sample rank
+/// apart (Floyd & Rivest 1975, "Expected time bounds for selection", CACM 18(3)); one pass
+/// counts the values below `lo` and keeps those in `[lo, hi]`, and the answer is selected
+/// among the kept ones when the bracket holds it. Otherwise (an unlucky sample) it falls
+/// back to selecting among all values, so the result is always the exact order statistic.
 fn kth_of(
-    len: usize,
-    value: impl Fn(usize) -> f64,
+    means: &[f64],
+    residuals: &[f64],
+    sign: f64,
     k: usize,
     scratch: &mut Vec<f64>,
     kept: &mut Vec<f64>,
 ) -> f64 {
+    let len = means.len().min(residuals.len());
+    let pairs = || means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r);
     if len >= SAMPLED_SELECTION {
         let step = (len as f64).cbrt() as usize;
         scratch.clear();
-        scratch.extend((0..len).step_by(step).map(&value));
+        scratch.extend(pairs().step_by(step));
         let s = scratch.len();
         let position = k * s / len;
-        let gap = 3 * ((s as f64).sqrt() as usize) + 2;
+        let p = k as f64 / len as f64;
+        let gap = (3.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 4;
         let lo = kth_smallest(scratch, position.saturating_sub(gap));
         let hi = kth_smallest(scratch, (position + gap).min(s - 1));
         kept.clear();
         let mut below = 0;
-        for i in 0..len {
-            let v = value(i);
+        for v in pairs() {
             if v < lo {
                 below += 1;
             } else if v <= hi {
@@ -217,7 +221,7 @@ fn kth_of(
         }
     }
     scratch.clear();
-    scratch.extend((0..len).map(value));
+    scratch.extend(pairs());
     kth_smallest(scratch, k)
 }
 
@@ -398,19 +402,14 @@ fn leave_out_chunk<T: Real>(
             .as_slice()
             .ok_or_else(|| Error::value("members", "chunk layout"))?;
         lower[j] = kth_of(
-            n,
-            |i| row[i] - residuals[i],
+            row,
+            residuals,
+            -1.0,
             lower_rank - 1,
             &mut scratch,
             &mut kept,
         );
-        upper[j] = kth_of(
-            n,
-            |i| row[i] + residuals[i],
-            upper_rank - 1,
-            &mut scratch,
-            &mut kept,
-        );
+        upper[j] = kth_of(row, residuals, 1.0, upper_rank - 1, &mut scratch, &mut kept);
     }
     Ok(())
 }
@@ -798,16 +797,26 @@ mod tests {
         let (mut scratch, mut kept) = (Vec::new(), Vec::new());
         for (len, seed) in [(5000usize, 1usize), (20_011, 7), (3000, 3)] {
             // sorted, reversed and scrambled inputs, with ties
-            let patterns: [Box<dyn Fn(usize) -> f64>; 3] = [
-                Box::new(|i| (i / 3) as f64),
-                Box::new(move |i| (len - i) as f64),
-                Box::new(move |i| ((i * 7919 + seed * 104_729) % 1013) as f64 * 0.5),
+            let patterns: [Vec<f64>; 3] = [
+                (0..len).map(|i| (i / 3) as f64).collect(),
+                (0..len).map(|i| (len - i) as f64).collect(),
+                (0..len)
+                    .map(|i| ((i * 7919 + seed * 104_729) % 1013) as f64 * 0.5)
+                    .collect(),
             ];
-            for value in &patterns {
-                let mut all: Vec<f64> = (0..len).map(value).collect();
-                all.sort_by(f64::total_cmp);
-                for k in [0, 1, len / 10, len / 2, len - len / 10, len - 1] {
-                    assert_eq!(kth_of(len, value, k, &mut scratch, &mut kept), all[k]);
+            let residuals: Vec<f64> = (0..len).map(|i| ((i * 31) % 17) as f64).collect();
+            for means in &patterns {
+                for sign in [-1.0, 1.0] {
+                    let mut all: Vec<f64> = means
+                        .iter()
+                        .zip(&residuals)
+                        .map(|(m, r)| m + sign * r)
+                        .collect();
+                    all.sort_by(f64::total_cmp);
+                    for k in [0, 1, len / 10, len / 2, len - len / 10, len - 1] {
+                        let got = kth_of(means, &residuals, sign, k, &mut scratch, &mut kept);
+                        assert_eq!(got, all[k]);
+                    }
                 }
             }
         }
