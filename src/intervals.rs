@@ -24,7 +24,7 @@ use crate::out_of_bag::CountValue;
 use crate::parallel::{Monitor, Pool};
 
 /// Test points per task: the working memory of one task is `POINT_CHUNK × n` f64 values.
-const POINT_CHUNK: usize = 64;
+const POINT_CHUNK: usize = 256;
 
 /// Relative guard on `α (n + 1)` against round-off in `α = 1 − level`.
 const RANK_GUARD: f64 = 1e-12;
