@@ -182,7 +182,7 @@ const SAMPLED_SELECTION: usize = 2048;
 /// writing them all out.
 ///
 /// A strided sample of about `n^(2/3)` values brackets the answer between two of its
-/// order statistics `[lo, hi]`, about three binomial standard deviations of the sample rank
+/// order statistics `[lo, hi]`, about five binomial standard deviations of the sample rank
 /// apart (Floyd & Rivest 1975, "Expected time bounds for selection", CACM 18(3)); one pass
 /// counts the values below `lo` and keeps those in `[lo, hi]`, and the answer is selected
 /// among the kept ones when the bracket holds it. Otherwise (an unlucky sample) it falls
@@ -196,28 +196,33 @@ fn kth_of(
     kept: &mut Vec<f64>,
 ) -> f64 {
     let len = means.len().min(residuals.len());
+    let (means, residuals) = (&means[..len], &residuals[..len]);
     let pairs = || means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r);
     if len >= SAMPLED_SELECTION {
         let step = (len as f64).cbrt() as usize;
         scratch.clear();
-        scratch.extend(pairs().step_by(step));
+        scratch.extend(
+            (0..len)
+                .step_by(step)
+                .map(|i| means[i] + sign * residuals[i]),
+        );
         let s = scratch.len();
         let position = k * s / len;
         let p = k as f64 / len as f64;
-        let gap = (3.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 4;
+        let gap = (5.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 8;
         let lo = kth_smallest(scratch, position.saturating_sub(gap));
         let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+        // branch-free pass: every value is stored, the slot advances only when it is kept
         kept.clear();
-        let mut below = 0;
+        kept.resize(len + 1, 0.0);
+        let (mut below, mut n_kept) = (0, 0);
         for v in pairs() {
-            if v < lo {
-                below += 1;
-            } else if v <= hi {
-                kept.push(v);
-            }
+            below += usize::from(v < lo);
+            kept[n_kept] = v;
+            n_kept += usize::from(v >= lo && v <= hi);
         }
-        if below <= k && k < below + kept.len() {
-            return kth_smallest(kept, k - below);
+        if below <= k && k < below + n_kept {
+            return kth_smallest(&mut kept[..n_kept], k - below);
         }
     }
     scratch.clear();
