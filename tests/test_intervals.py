@@ -263,9 +263,11 @@ def conservative(method):
     """Methods whose coverage sits above the level by design: jackknife+ (Barber, Candes,
     Ramdas & Tibshirani 2021, section 5: typically at or above 1 - alpha; Kim, Xu & Barber
     2020, section 5, the same after bootstrap) is checked from below and kept under
-    level + alpha / 2; non-randomised adaptive sets (Romano, Sesia & Candes 2020, section 2)
-    only from below."""
-    return {"jackknife+": "capped", "adaptive": "below"}.get(method, "")
+    level + alpha / 2; so is the out-of-bag residual interval, whose scores come from means of
+    about e^-1 of the members and so exceed the full ensemble's residuals (from the
+    construction; the pass-rate script measured mean coverage 0.816 at level 0.8);
+    non-randomised adaptive sets (Romano, Sesia & Candes 2020, section 2) only from below."""
+    return {"jackknife+": "capped", "out_of_bag_residual": "capped", "adaptive": "below"}.get(method, "")
 
 
 def coverage_check(coverages, level, side=""):
