@@ -266,8 +266,12 @@ def conservative(method):
     level + alpha / 2; so is the out-of-bag residual interval, whose scores come from means of
     about e^-1 of the members and so exceed the full ensemble's residuals (from the
     construction; the pass-rate script measured mean coverage 0.816 at level 0.8);
-    non-randomised adaptive sets (Romano, Sesia & Candes 2020, section 2) only from below."""
-    return {"jackknife+": "capped", "out_of_bag_residual": "capped", "adaptive": "below"}.get(method, "")
+    least-ambiguous sets too, since averaged tree probabilities tie and tied conformal scores
+    only bound coverage from below (digits: 20/25 seed blocks within 3 standard errors on both
+    sides, mean 0.811); non-randomised adaptive sets (Romano, Sesia & Candes 2020, section 2)
+    only from below."""
+    return {"jackknife+": "capped", "out_of_bag_residual": "capped", "least_ambiguous": "capped",
+            "adaptive": "below"}.get(method, "")
 
 
 def coverage_check(coverages, level, side=""):
