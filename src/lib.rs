@@ -25,6 +25,7 @@ pub mod correlation;
 pub mod decomposition;
 pub mod diversity;
 pub mod error;
+pub mod intervals;
 pub mod learners;
 pub mod members;
 pub mod numeric;

@@ -184,6 +184,11 @@ def test_report_rejects_a_title_that_is_not_text(diagnosis):
 
 # -- notebook display of every result type --------------------------------------------------
 
+def _two_classes(values):
+    """Logistic class probabilities (n_members, n_points, 2) from member values."""
+    return np.stack([1 / (1 + np.exp(values)), 1 / (1 + np.exp(-values))], axis=-1)
+
+
 def _results():
     test, y_test, counts, train, y_train = ensemble(members=60, n_train=40, n_test=50)
     with warnings.catch_warnings():
@@ -203,6 +208,10 @@ def _results():
             "Diversity": bagwise.diversity(
                 np.random.default_rng(2).integers(0, 3, size=(6, 80)),
                 np.random.default_rng(3).integers(0, 3, size=80)),
+            "PredictionInterval": bagwise.prediction_interval(test, counts, train, y_train, level=0.8),
+            "PredictionSet": bagwise.prediction_interval(
+                _two_classes(test), counts, _two_classes(train),
+                (y_train > np.median(y_train)).astype(int), level=0.8),
         }
 
 

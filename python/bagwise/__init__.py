@@ -8,6 +8,7 @@ from .decomposition import Decomposition, DecompositionStream, decompose, decomp
 from .diagnosis import Diagnosis, diagnose
 from .diversity import Diversity, DiversityStream, diversity, diversity_stream
 from .ensemble import BagClassifier, BagRegressor
+from .intervals import PredictionInterval, PredictionSet, prediction_interval
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
 from .replicates import ReplicateSpread, replicate_spread
@@ -47,6 +48,9 @@ __all__ = [
     "out_of_bag_stream",
     "OutOfBag",
     "OutOfBagStream",
+    "prediction_interval",
+    "PredictionInterval",
+    "PredictionSet",
     "prediction_variance",
     "PredictionVariance",
     "replicate_spread",

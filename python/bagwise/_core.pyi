@@ -23,6 +23,8 @@ __all__ = [
     "out_of_bag_chunk",
     "OutOfBagState",
     "pack_container",
+    "prediction_interval_arrays",
+    "prediction_set_arrays",
     "replicate_spread",
     "ReplicateSpreadParts",
     "Resampler",
@@ -438,6 +440,24 @@ def default_sizes(n_members: int) -> list[int]: ...
 
 # -- replicates ---------------------------------------------------------------------------
 
+def prediction_interval_arrays(
+    members: npt.NDArray[np.floating],
+    counts: npt.NDArray[np.unsignedinteger],
+    train_members: npt.NDArray[np.floating],
+    y_train: npt.NDArray[np.float64],
+    level: float,
+    method: str,
+    n_jobs: int | None = None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64], int, bool]: ...
+def prediction_set_arrays(
+    members: npt.NDArray[np.floating],
+    counts: npt.NDArray[np.unsignedinteger],
+    train_members: npt.NDArray[np.floating],
+    y_train: npt.NDArray[np.int64],
+    level: float,
+    method: str,
+    n_jobs: int | None = None,
+) -> tuple[npt.NDArray[np.bool_], int, bool]: ...
 @final
 class ReplicateSpreadParts:
     @property

@@ -58,6 +58,7 @@ mod aggregation;
 mod correlation;
 mod decomposition;
 mod diversity;
+mod intervals;
 mod learners;
 mod linear;
 mod members;
@@ -241,6 +242,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     size_curve::register(m)?;
     correlation::register(m)?;
     diversity::register(m)?;
+    intervals::register(m)?;
     resampling::register(m)?;
     uncertainty::register(m)?;
     linear::register(m)?;

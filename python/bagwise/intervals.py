@@ -1,0 +1,471 @@
+"""Prediction intervals and class sets for a new observation, calibrated on the members'
+out-of-bag predictions: `prediction_interval` and its `PredictionInterval` and
+`PredictionSet` results."""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import numbers
+from typing import ClassVar
+
+import numpy as np
+
+from . import _core
+from ._results import Result
+from ._validation import n_jobs_value
+from ._warnings import warn
+
+__all__ = ["PredictionInterval", "PredictionSet", "prediction_interval"]
+
+_INTERVAL_METHODS = ("jackknife+", "out_of_bag_residual")
+_SET_METHODS = ("least_ambiguous", "adaptive")
+
+# Relative guard on alpha * (n + 1) against round-off in alpha = 1 - level (as in the core).
+_RANK_GUARD = 1e-12
+
+# A member whose total in-bag count exceeds this many times n_rows is taken for row indices.
+_INDEX_FACTOR = 4
+
+
+def _rows_needed(level: float) -> int:
+    """The least number of calibration rows n with floor(alpha (n + 1)) >= 1."""
+    alpha = 1.0 - level
+    n = max(math.ceil(1.0 / alpha) - 2, 0)
+    while math.floor(alpha * (n + 1) * (1 + _RANK_GUARD)) < 1:
+        n += 1
+    return n
+
+
+def _float_array(values, name: str) -> np.ndarray:
+    array = values if isinstance(values, np.ndarray) else np.asarray(values)
+    if array.dtype.kind == "f" and not array.dtype.isnative:  # e.g. big-endian data from a file
+        array = array.astype(array.dtype.newbyteorder("="))
+    if array.dtype not in (np.float32, np.float64):
+        raise TypeError(f"`{name}`: expected float32 or float64 predictions, got dtype {array.dtype}")
+    return array
+
+
+def _finite(array: np.ndarray, name: str) -> None:
+    if not np.all(np.isfinite(array)):
+        raise ValueError(f"`{name}`: contains NaN or infinite values")
+
+
+def _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs):
+    members = _float_array(members, "members")
+    if members.ndim not in (2, 3):
+        raise ValueError(
+            "`members`: expected shape (n_members, n_points) for values or (n_members, n_points, "
+            f"n_classes) for class probabilities, got {members.ndim} dimensions {members.shape}"
+        )
+    if members.size == 0:
+        raise ValueError(f"`members`: is empty (shape {members.shape})")
+    if members.shape[0] < 2:
+        raise ValueError(
+            f"`members`: needs at least 2 members (out-of-bag calibration averages the members "
+            f"that did not see a row), got {members.shape[0]}"
+        )
+    classes = members.ndim == 3
+    if classes and members.shape[2] < 2:
+        raise ValueError(f"`members`: needs at least 2 classes, got {members.shape[2]}")
+    _finite(members, "members")
+    n_members = members.shape[0]
+
+    train_members = _float_array(train_members, "train_members")
+    if train_members.ndim != members.ndim:
+        raise ValueError(
+            f"`train_members`: expected {members.ndim} dimensions like `members`, got shape "
+            f"{train_members.shape}"
+        )
+    if train_members.shape[0] != n_members:
+        raise ValueError(
+            f"`train_members`: has {train_members.shape[0]} members but `members` has {n_members}"
+        )
+    if classes and train_members.shape[2] != members.shape[2]:
+        raise ValueError(
+            f"`train_members`: has {train_members.shape[2]} classes but `members` has {members.shape[2]}"
+        )
+    n_rows = train_members.shape[1]
+    if n_rows == 0:
+        raise ValueError("`train_members`: has no training rows")
+    _finite(train_members, "train_members")
+    if classes:
+        for name, array in (("members", members), ("train_members", train_members)):
+            if array.min() < 0 or array.max() > 1:
+                raise ValueError(f"`{name}`: class probabilities must lie in [0, 1]")
+    if members.dtype != train_members.dtype:  # one converted copy of the float32 one
+        members = members.astype(np.float64, copy=False)
+        train_members = train_members.astype(np.float64, copy=False)
+
+    counts = counts if isinstance(counts, np.ndarray) else np.asarray(counts)
+    if counts.dtype.kind not in "iu":
+        raise TypeError(
+            f"`counts`: expected integer in-bag counts (n_members, n_rows), got dtype {counts.dtype}"
+        )
+    if counts.ndim != 2 or counts.shape[0] != n_members:
+        raise ValueError(
+            f"`counts`: expected shape ({n_members}, {n_rows}) = (n_members, n_rows), got {counts.shape}"
+        )
+    hint = (
+        "; `counts` are in-bag counts per training row, not row indices: convert indices with "
+        "np.bincount(indices, minlength=n_rows) per member"
+    )
+    if counts.shape[1] != n_rows:
+        raise ValueError(
+            f"`counts`: has {counts.shape[1]} columns but `train_members` has {n_rows} rows{hint}"
+        )
+    if counts.dtype.kind == "i":
+        if counts.size and counts.min() < 0:
+            raise ValueError("`counts`: in-bag counts must be non-negative")
+        counts = counts.view(counts.dtype.str.replace("i", "u"))
+    if not counts.dtype.isnative:
+        counts = counts.astype(counts.dtype.newbyteorder("="))
+    totals = counts.sum(axis=1, dtype=np.float64)
+    if np.any(totals > _INDEX_FACTOR * n_rows):
+        raise ValueError(
+            f"`counts`: a member's total count is {totals.max():.0f}, more than {_INDEX_FACTOR} "
+            f"times n_rows = {n_rows}{hint}"
+        )
+    used = np.any(counts == 0, axis=0)
+    if not np.any(used):
+        raise ValueError(
+            "`counts`: no training row is out of bag for any member; out-of-bag calibration "
+            "needs rows that some member did not see"
+        )
+
+    y_train = np.asarray(y_train)
+    if y_train.ndim != 1 or y_train.shape[0] != n_rows:
+        raise ValueError(f"`y_train`: expected shape ({n_rows},) = (n_rows,), got {y_train.shape}")
+    if classes:
+        if y_train.dtype.kind not in "iu":
+            raise TypeError(
+                f"`y_train`: expected integer class codes 0..{members.shape[2] - 1}, got dtype "
+                f"{y_train.dtype}"
+            )
+        if y_train.min() < 0 or y_train.max() >= members.shape[2]:
+            raise ValueError(
+                f"`y_train`: class codes must lie in 0..{members.shape[2] - 1}, got values in "
+                f"{y_train.min()}..{y_train.max()}"
+            )
+        y_train = np.ascontiguousarray(y_train, dtype=np.int64)
+    else:
+        if y_train.dtype.kind not in "iuf":
+            raise TypeError(f"`y_train`: expected numbers, got dtype {y_train.dtype}")
+        y_train = np.ascontiguousarray(y_train, dtype=np.float64)
+        _finite(y_train, "y_train")
+
+    if isinstance(level, bool) or not isinstance(level, numbers.Real):
+        raise TypeError(f"`level`: expected a number, got {type(level).__name__}")
+    level = float(level)
+    if not 0 < level < 1:
+        raise ValueError(f"`level`: must lie strictly between 0 and 1, got {level!r}")
+
+    allowed = _SET_METHODS if classes else _INTERVAL_METHODS
+    if method is None:
+        method = allowed[0]
+    if method not in allowed:
+        kind = "class probabilities" if classes else "values"
+        raise ValueError(f"`method`: for {kind} expected one of {allowed}, got {method!r}")
+    n_left_out = int(n_rows - used.sum())
+    return members, counts, train_members, y_train, level, method, n_jobs_value(n_jobs), n_left_out
+
+
+def _guarantee(method: str, level: float) -> str:
+    alpha = 1.0 - level
+    if method == "jackknife+":
+        return (
+            f"For a new observation exchangeable with the training rows, the interval covers it "
+            f"with probability at least 1 - 2 alpha = {1 - 2 * alpha:.4g} when the number of "
+            "members is drawn at random (Binomial), as in Kim, Xu & Barber (2020, Theorem 1); "
+            "a fixed number of members is the usual practice, for which that bound is not proved "
+            f"(coverage near {level:.4g} is typical)."
+        )
+    aim = (
+        f"aims at covering a new observation with probability {level:.4g}; with out-of-bag "
+        "calibration scores no finite-sample bound is proved"
+    )
+    if method == "out_of_bag_residual":
+        return (
+            f"The interval {aim} (Johansson, Bostrom, Lofstrom & Linusson 2014 found coverage near "
+            "nominal in practice)."
+        )
+    if method == "adaptive":
+        return (
+            f"The class set {aim} (Romano, Sesia & Candes 2020 prove {level:.4g} with held-out "
+            "scores); this version is not randomised, so its sets are conservative (larger)."
+        )
+    return (
+        f"The class set {aim} (Sadinle, Lei & Wasserman 2019 prove {level:.4g} with held-out "
+        "scores)."
+    )
+
+
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class PredictionInterval(Result):
+    """Prediction interval for a new observation at each new point.
+
+    Attributes
+    ----------
+    lower, upper : ndarray of float64, shape (n_points,)
+        Bounds of the interval for a new observation at each point (``-inf``/``inf`` when
+        too few rows are out of bag for the level).
+    width : ndarray of float64, shape (n_points,)
+        ``upper - lower``.
+    level : float
+        The nominal coverage ``1 - alpha``.
+    method : str
+        ``"jackknife+"`` or ``"out_of_bag_residual"``.
+    n_rows_used : int
+        Training rows with at least one out-of-bag member (the calibration rows).
+    n_rows : int
+        Training rows given.
+    n_members : int
+        Members of the ensemble.
+    guarantee : str
+        What coverage is proved, and under which assumptions, in plain words.
+    """
+
+    lower: np.ndarray
+    upper: np.ndarray
+    width: np.ndarray
+    level: float
+    method: str
+    n_rows_used: int
+    n_rows: int
+    n_members: int
+    guarantee: str
+
+    _title: ClassVar[str] = "PredictionInterval"
+
+    def coverage(self, y) -> float:
+        """Share of the points whose observed ``y`` lies in its interval (bounds included)."""
+        y = np.asarray(y)
+        if y.dtype.kind not in "iuf":
+            raise TypeError(f"`y`: expected numbers, got dtype {y.dtype}")
+        if y.shape != self.lower.shape:
+            raise ValueError(f"`y`: expected shape {self.lower.shape} = (n_points,), got {y.shape}")
+        _finite(y, "y")
+        return float(np.mean((self.lower <= y) & (y <= self.upper)))
+
+    def summary(self) -> dict:
+        """Level, method, rows and the mean width over points."""
+        return {
+            "level": self.level,
+            "method": self.method,
+            "n_points": int(self.lower.shape[0]),
+            "n_rows_used": self.n_rows_used,
+            "mean_width": float(np.mean(self.width)),
+        }
+
+    def to_frame(self):
+        """One row per point: ``lower``, ``upper``, ``width``."""
+        import pandas as pd
+
+        return pd.DataFrame({"lower": self.lower, "upper": self.upper, "width": self.width})
+
+    def _rows(self):
+        return [
+            ("method", self.method),
+            ("level", f"{self.level:.4g}"),
+            ("points", f"{self.lower.shape[0]:,}"),
+            ("rows used / rows", f"{self.n_rows_used:,} / {self.n_rows:,}"),
+            ("mean width", f"{float(np.mean(self.width)):.6g}"),
+        ]
+
+    def _reading(self):
+        if not np.all(np.isfinite(self.width)):
+            return "too few out-of-bag rows for this level: the interval for a new observation is unbounded"
+        return (
+            f"a new observation at a point falls in its interval with the probability stated in "
+            f"`guarantee` (nominal {self.level:.4g}); the mean width is {float(np.mean(self.width)):.4g}"
+        )
+
+
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class PredictionSet(Result):
+    """Set of classes for a new observation at each new point.
+
+    Attributes
+    ----------
+    sets : ndarray of bool, shape (n_points, n_classes)
+        ``sets[j, k]`` is true when class ``k`` is in the set at point ``j``.
+    set_size : ndarray of int64, shape (n_points,)
+        Classes in each set.
+    level : float
+        The nominal coverage ``1 - alpha``.
+    method : str
+        ``"least_ambiguous"`` or ``"adaptive"``.
+    n_rows_used : int
+        Training rows with at least one out-of-bag member (the calibration rows).
+    n_rows : int
+        Training rows given.
+    n_members : int
+        Members of the ensemble.
+    guarantee : str
+        What coverage is proved, and under which assumptions, in plain words.
+    """
+
+    sets: np.ndarray
+    set_size: np.ndarray
+    level: float
+    method: str
+    n_rows_used: int
+    n_rows: int
+    n_members: int
+    guarantee: str
+
+    _title: ClassVar[str] = "PredictionSet"
+
+    def coverage(self, y) -> float:
+        """Share of the points whose true class code ``y`` is in its set."""
+        y = np.asarray(y)
+        n_points, n_classes = self.sets.shape
+        if y.dtype.kind not in "iu":
+            raise TypeError(f"`y`: expected integer class codes, got dtype {y.dtype}")
+        if y.shape != (n_points,):
+            raise ValueError(f"`y`: expected shape ({n_points},) = (n_points,), got {y.shape}")
+        if y.size and (y.min() < 0 or y.max() >= n_classes):
+            raise ValueError(f"`y`: class codes must lie in 0..{n_classes - 1}")
+        return float(np.mean(self.sets[np.arange(n_points), y]))
+
+    def summary(self) -> dict:
+        """Level, method, rows and the mean set size over points."""
+        return {
+            "level": self.level,
+            "method": self.method,
+            "n_points": int(self.sets.shape[0]),
+            "n_rows_used": self.n_rows_used,
+            "mean_set_size": float(np.mean(self.set_size)),
+        }
+
+    def to_frame(self):
+        """One row per point: ``set_size``, then one boolean column per class code."""
+        import pandas as pd
+
+        frame = pd.DataFrame({"set_size": self.set_size})
+        for k in range(self.sets.shape[1]):
+            frame[k] = self.sets[:, k]
+        return frame
+
+    def _rows(self):
+        return [
+            ("method", self.method),
+            ("level", f"{self.level:.4g}"),
+            ("points x classes", f"{self.sets.shape[0]:,} x {self.sets.shape[1]:,}"),
+            ("rows used / rows", f"{self.n_rows_used:,} / {self.n_rows:,}"),
+            ("mean set size", f"{float(np.mean(self.set_size)):.4g}"),
+        ]
+
+    def _reading(self):
+        return (
+            f"the set holds the class of a new observation with the probability stated in "
+            f"`guarantee` (nominal {self.level:.4g}); {float(np.mean(self.set_size == 1)):.0%} of "
+            "the sets hold a single class"
+        )
+
+
+def prediction_interval(
+    members, counts, train_members, y_train, *, level=0.9, method=None, n_jobs=None
+) -> PredictionInterval | PredictionSet:
+    """Prediction interval (values) or class set (probabilities) for a new observation,
+    calibrated on the members' out-of-bag predictions at the training rows.
+
+    A training row ``i`` is out of bag for member ``m`` when ``counts[m, i] == 0``; rows
+    with at least one such member are the ``n`` calibration rows (rows that every member
+    saw are left out, counted in ``n_rows_used``, and warned about once). With
+    ``alpha = 1 - level``, ``k- = floor(alpha (n + 1))`` and
+    ``k+ = ceil((1 - alpha)(n + 1))``:
+
+    - ``"jackknife+"`` (values, default): the jackknife+-after-bootstrap of Kim, Xu &
+      Barber (2020, NeurIPS 33). With ``mu_i(x)`` the mean of the members that did not
+      see row ``i`` and ``R_i = |y_i - mu_i(x_i)|``, ``lower(x)`` is the ``k-``-th
+      smallest of ``mu_i(x) - R_i`` and ``upper(x)`` the ``k+``-th smallest of
+      ``mu_i(x) + R_i``.
+    - ``"out_of_bag_residual"`` (values): Johansson, Bostrom, Lofstrom & Linusson (2014,
+      Machine Learning 97): ``q`` the ``k+``-th smallest ``R_i``; the interval is the
+      members' mean at ``x`` plus or minus ``q``.
+    - ``"least_ambiguous"`` (probabilities, default): Sadinle, Lei & Wasserman (2019, JASA
+      114): scores ``1 - p_i[y_i]`` from the out-of-bag mean probabilities, ``q`` their
+      ``k+``-th smallest; the set at ``x`` holds the classes ``k`` with
+      ``1 - p(x)[k] <= q``, ``p(x)`` the members' mean probability.
+    - ``"adaptive"`` (probabilities): Romano, Sesia & Candes (2020, NeurIPS 33) with the
+      score ``sum of p[j] over the classes with p[j] > p[k], plus p[k]``. It is the
+      non-randomised version, which is conservative: its sets are larger than the
+      randomised ones and cover at least as often.
+
+    When ``k- < 1`` (too few calibration rows for the level) the interval is infinite on
+    both sides (a class set holds every class), with one warning naming how many rows
+    are needed. What coverage is proved is stated in the result's ``guarantee``.
+
+    Parameters
+    ----------
+    members : ndarray of float32 or float64
+        The members' predictions at the new points, ``(n_members, n_points)`` values or
+        ``(n_members, n_points, n_classes)`` class probabilities. Any strides, no copy.
+    counts : ndarray of int, shape (n_members, n_rows)
+        In-bag counts of the training rows (for scikit-learn's bagging,
+        ``np.bincount(indices, minlength=n_rows)`` of each member's ``estimators_samples_``).
+    train_members : ndarray of float32 or float64
+        The members' predictions at the training rows, ``(n_members, n_rows[, n_classes])``.
+        If its dtype differs from ``members``, both are read as float64.
+    y_train : array-like, shape (n_rows,)
+        Training targets; integer class codes ``0..n_classes - 1`` for probabilities.
+    level : float, default 0.9
+        Nominal coverage ``1 - alpha``, strictly between 0 and 1.
+    method : str, optional
+        ``"jackknife+"`` (default for values), ``"out_of_bag_residual"``,
+        ``"least_ambiguous"`` (default for probabilities) or ``"adaptive"``.
+    n_jobs : int, optional
+        Worker threads (default: all cores). Results do not depend on it.
+
+    Returns
+    -------
+    PredictionInterval or PredictionSet
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> from sklearn.ensemble import BaggingRegressor
+    >>> rng = np.random.default_rng(0)
+    >>> X, X_new = rng.uniform(-2, 2, size=(300, 1)), rng.uniform(-2, 2, size=(2000, 1))
+    >>> y = np.sin(2 * X[:, 0]) + rng.normal(scale=0.3, size=300)
+    >>> y_new = np.sin(2 * X_new[:, 0]) + rng.normal(scale=0.3, size=2000)
+    >>> bag = BaggingRegressor(n_estimators=50, random_state=0).fit(X, y)
+    >>> counts = np.array([np.bincount(s, minlength=300) for s in bag.estimators_samples_])
+    >>> members = np.array([tree.predict(X_new) for tree in bag.estimators_])
+    >>> train_members = np.array([tree.predict(X) for tree in bag.estimators_])
+    >>> interval = bagwise.prediction_interval(members, counts, train_members, y, level=0.9)
+    >>> interval.n_rows_used
+    300
+    >>> round(interval.coverage(y_new), 2)
+    0.89
+    """
+    members, counts, train_members, y_train, level, method, n_jobs, n_left_out = (
+        _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs)
+    )
+    n_members, n_rows = counts.shape
+    if n_left_out:
+        warn(
+            f"`counts`: {n_left_out} of {n_rows} training rows were in bag for every member and are "
+            "left out of the calibration (more members, or smaller samples, leave more rows out of bag)"
+        )
+    guarantee = _guarantee(method, level)
+    if members.ndim == 3:
+        sets, n_used, finite = _core.prediction_set_arrays(
+            members, counts, train_members, y_train, level, method, n_jobs
+        )
+    else:
+        lower, upper, n_used, finite = _core.prediction_interval_arrays(
+            members, counts, train_members, y_train, level, method, n_jobs
+        )
+    if not finite:
+        what = "every class set holds all classes" if members.ndim == 3 else "the interval is infinite"
+        warn(
+            f"`level`: with {n_used} rows out of bag, {what} at level {level:.4g}; at least "
+            f"{_rows_needed(level)} rows with an out-of-bag member are needed (or a lower `level`)"
+        )
+    common = dict(level=level, method=method, n_rows_used=int(n_used), n_rows=int(n_rows),
+                  n_members=int(n_members), guarantee=guarantee)
+    if members.ndim == 3:
+        return PredictionSet(sets=sets, set_size=sets.sum(axis=1, dtype=np.int64), **common)
+    return PredictionInterval(lower=lower, upper=upper, width=upper - lower, **common)

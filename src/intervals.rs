@@ -1,0 +1,829 @@
+//! Prediction intervals and class sets for a new observation, calibrated on the members'
+//! out-of-bag predictions at the training rows (no hold-out set).
+//!
+//! A training row `i` is out of bag for member `m` when `counts[m, i] = 0`. Rows with at
+//! least one out-of-bag member are the calibration rows (`n` of them); rows that every
+//! member saw are left out and counted. With `α = 1 − level`, the two ranks used below are
+//!
+//! ```text
+//!   k⁻ = ⌊α (n + 1)⌋          (the lower rank, 1-based)
+//!   k⁺ = ⌈(1 − α)(n + 1)⌉     (the upper rank, 1-based)
+//! ```
+//!
+//! computed with a relative guard of 1e-12 against round-off in `α (n + 1)` (so that
+//! `level = 0.9, n = 19` gives `k⁻ = 2`, not 1). `k⁻ ≥ 1` and `k⁺ ≤ n` hold together
+//! (both say `α (n + 1) ≥ 1`); when they fail, the interval is infinite (`−∞`, `+∞`) and a
+//! class set holds every class.
+
+use ndarray::{linalg::general_mat_mul, Array2, ArrayView1, ArrayView2, ArrayView3, ArrayViewMut2};
+use rayon::prelude::*;
+
+use crate::error::{zeroed, Error, Result};
+use crate::numeric::Real;
+use crate::out_of_bag::CountValue;
+use crate::parallel::{Monitor, Pool};
+
+/// Test points per task: the working memory of one task is `POINT_CHUNK × n` f64 values.
+const POINT_CHUNK: usize = 256;
+
+/// Relative guard on `α (n + 1)` against round-off in `α = 1 − level`.
+const RANK_GUARD: f64 = 1e-12;
+
+/// How a regression interval is formed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum IntervalMethod {
+    /// Kim, Xu & Barber (2020), jackknife+-after-bootstrap.
+    JackknifePlus,
+    /// Johansson, Boström, Löfström & Linusson (2014), out-of-bag residuals.
+    OutOfBagResidual,
+}
+
+/// How a class set is formed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SetMethod {
+    /// Sadinle, Lei & Wasserman (2019): score `1 − p̂[y]`.
+    LeastAmbiguous,
+    /// Romano, Sesia & Candès (2020), without randomisation: score = probability mass of
+    /// the classes ranked above `y` plus `p̂[y]`.
+    Adaptive,
+}
+
+/// What the calibration rows gave.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Calibration {
+    /// Rows with at least one out-of-bag member (`n`).
+    pub n_rows_used: usize,
+    /// The lower rank `k⁻` (1-based); 0 when the interval is infinite.
+    pub lower_rank: usize,
+    /// The upper rank `k⁺` (1-based); `n + 1` when the interval is infinite.
+    pub upper_rank: usize,
+    /// The `k⁺`-th smallest calibration score (out-of-bag residual and class sets); `+∞`
+    /// when `k⁺ > n`, NaN for jackknife+ (which has one per new point).
+    pub threshold: f64,
+}
+
+impl Calibration {
+    /// `true` when `k⁻ ≥ 1` (equivalently `k⁺ ≤ n`): the interval is finite.
+    pub fn finite(&self) -> bool {
+        self.lower_rank >= 1 && self.upper_rank <= self.n_rows_used
+    }
+}
+
+/// The ranks `(k⁻, k⁺)` of the module documentation for `n` calibration rows.
+///
+/// # Errors
+/// `level` outside (0, 1).
+pub fn ranks(level: f64, n: usize) -> Result<(usize, usize)> {
+    if !(level > 0.0 && level < 1.0) {
+        return Err(Error::value(
+            "level",
+            format!("must lie strictly between 0 and 1, got {level}"),
+        ));
+    }
+    let alpha = 1.0 - level;
+    let scaled = alpha * (n as f64 + 1.0);
+    let lower = (scaled * (1.0 + RANK_GUARD)).floor() as usize;
+    let upper = ((n as f64 + 1.0 - scaled) * (1.0 - RANK_GUARD)).ceil() as usize;
+    Ok((lower, upper.max(1)))
+}
+
+/// The smallest number of calibration rows with a finite interval at `level`:
+/// the least `n` with `⌊α (n + 1)⌋ ≥ 1`.
+pub fn rows_needed(level: f64) -> Result<usize> {
+    let mut n = ((1.0 / (1.0 - level)).ceil() as usize).saturating_sub(2);
+    while ranks(level, n)?.0 < 1 {
+        n += 1;
+    }
+    Ok(n)
+}
+
+/// Out-of-bag member counts `|O_i|` and out-of-bag sums `Σ_{m ∈ O_i} t_m(x_i)[c]` at the
+/// training rows, `t` read as `(n_members, n_rows, width)`.
+fn out_of_bag_sums<C: CountValue>(
+    counts: ArrayView2<'_, C>,
+    n_rows: usize,
+    width: usize,
+    value: impl Fn(usize, usize, usize) -> f64,
+) -> Result<(Vec<usize>, Vec<f64>)> {
+    let mut n_out = zeroed::<usize>(n_rows, "counts")?;
+    let mut sums = zeroed::<f64>(n_rows * width, "train_members")?;
+    for (m, row) in counts.outer_iter().enumerate() {
+        for (i, &c) in row.iter().enumerate() {
+            if c.is_negative() {
+                return Err(Error::value(
+                    "counts",
+                    format!("in-bag counts must be non-negative (member {m}, row {i})"),
+                ));
+            }
+            if c.is_zero() {
+                n_out[i] += 1;
+                for k in 0..width {
+                    sums[i * width + k] += value(m, i, k);
+                }
+            }
+        }
+    }
+    Ok((n_out, sums))
+}
+
+/// Checks the shared shapes: `members` and `train_members` have the same number of members
+/// as `counts`, `train_members` and `y_train` as many rows.
+fn check_shapes(
+    n_members: usize,
+    counts: (usize, usize),
+    train: (usize, usize),
+    y_len: usize,
+) -> Result<()> {
+    if n_members == 0 {
+        return Err(Error::value("members", "has no members"));
+    }
+    if counts.0 != n_members {
+        return Err(Error::value(
+            "counts",
+            format!("has {} members but `members` has {n_members}", counts.0),
+        ));
+    }
+    if train.0 != n_members {
+        return Err(Error::value(
+            "train_members",
+            format!("has {} members but `members` has {n_members}", train.0),
+        ));
+    }
+    if counts.1 != train.1 {
+        return Err(Error::value(
+            "counts",
+            format!("has {} rows but `train_members` has {}", counts.1, train.1),
+        ));
+    }
+    if y_len != train.1 {
+        return Err(Error::value(
+            "y_train",
+            format!(
+                "has {y_len} values but `train_members` has {} rows",
+                train.1
+            ),
+        ));
+    }
+    if train.1 == 0 {
+        return Err(Error::value("train_members", "has no training rows"));
+    }
+    Ok(())
+}
+
+/// The `k`-th smallest (0-based) of `values`, reordering them.
+fn kth_smallest(values: &mut [f64], k: usize) -> f64 {
+    *values.select_nth_unstable_by(k, f64::total_cmp).1
+}
+
+/// Below this many values, [`kth_of`] selects directly.
+const SAMPLED_SELECTION: usize = 2048;
+
+/// The `k`-th smallest (0-based) of `means[i] + sign · residuals[i]` (`sign` = ±1) without
+/// writing them all out.
+///
+/// A strided sample of about `n^(2/3)` values brackets the answer between two of its
+/// order statistics `[lo, hi]`, about five binomial standard deviations of the sample rank
+/// apart (Floyd & Rivest 1975, "Expected time bounds for selection", CACM 18(3)); one pass
+/// counts the values below `lo` and keeps those in `[lo, hi]`, and the answer is selected
+/// among the kept ones when the bracket holds it. Otherwise (an unlucky sample) it falls
+/// back to selecting among all values, so the result is always the exact order statistic.
+fn kth_of(
+    means: &[f64],
+    residuals: &[f64],
+    sign: f64,
+    k: usize,
+    scratch: &mut Vec<f64>,
+    kept: &mut Vec<f64>,
+) -> f64 {
+    let len = means.len().min(residuals.len());
+    let (means, residuals) = (&means[..len], &residuals[..len]);
+    let pairs = || means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r);
+    if len >= SAMPLED_SELECTION {
+        let step = (len as f64).cbrt() as usize;
+        scratch.clear();
+        scratch.extend(
+            (0..len)
+                .step_by(step)
+                .map(|i| means[i] + sign * residuals[i]),
+        );
+        let s = scratch.len();
+        let position = k * s / len;
+        let p = k as f64 / len as f64;
+        let gap = (5.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 8;
+        let lo = kth_smallest(scratch, position.saturating_sub(gap));
+        let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+        // branch-free pass: every value is stored, the slot advances only when it is kept
+        kept.clear();
+        kept.resize(len + 1, 0.0);
+        let (mut below, mut n_kept) = (0, 0);
+        for v in pairs() {
+            below += usize::from(v < lo);
+            kept[n_kept] = v;
+            n_kept += usize::from(v >= lo && v <= hi);
+        }
+        if below <= k && k < below + n_kept {
+            return kth_smallest(&mut kept[..n_kept], k - below);
+        }
+    }
+    scratch.clear();
+    scratch.extend(pairs());
+    kth_smallest(scratch, k)
+}
+
+/// Runs `task(start, lower_chunk, upper_chunk)` over chunks of `POINT_CHUNK` points on the
+/// pool, calling the monitor between rounds; the chunking does not depend on the threads.
+fn over_point_chunks<A: Send, B: Send>(
+    first: &mut [A],
+    second: &mut [B],
+    width: usize,
+    pool: &Pool,
+    monitor: &dyn Monitor,
+    task: impl Fn(usize, &mut [A], &mut [B]) -> Result<()> + Sync,
+) -> Result<()> {
+    let n_points = first.len();
+    let round = POINT_CHUNK * pool.threads().max(1) * 4;
+    let mut done = 0;
+    for (a, b) in first
+        .chunks_mut(round)
+        .zip(second.chunks_mut(round * width))
+    {
+        let start = done;
+        pool.run(|| {
+            a.par_chunks_mut(POINT_CHUNK)
+                .zip(b.par_chunks_mut(POINT_CHUNK * width))
+                .enumerate()
+                .try_for_each(|(c, (a, b))| task(start + c * POINT_CHUNK, a, b))
+        })?;
+        done += a.len();
+        monitor.progress(done, n_points)?;
+    }
+    Ok(())
+}
+
+/// Prediction interval for a new observation at each of the `n_points` new points.
+///
+/// `members[m, j]`: prediction of member `m` at new point `j`; `train_members[m, i]` at
+/// training row `i`; `counts[m, i]` the in-bag counts; results go to `lower` and `upper`.
+///
+/// ```text
+/// O_i = { m : counts[m, i] = 0 },  calibration rows I = { i : |O_i| ≥ 1 },  n = |I|
+/// μ̂_(−i)(x) = (1/|O_i|) Σ_{m ∈ O_i} t_m(x)                leave-out mean
+/// R_i = |y_i − μ̂_(−i)(x_i)|                                out-of-bag residual
+///
+/// jackknife+ (Kim, Xu & Barber 2020, "Predictive inference is free with the
+/// jackknife+-after-bootstrap", NeurIPS 33, Algorithm 1):
+///   lower(x) = the k⁻-th smallest of { μ̂_(−i)(x) − R_i : i ∈ I }
+///   upper(x) = the k⁺-th smallest of { μ̂_(−i)(x) + R_i : i ∈ I }
+/// out-of-bag residual (Johansson, Boström, Löfström & Linusson 2014, "Regression
+/// conformal prediction with random forests", Machine Learning 97):
+///   q̂ = the k⁺-th smallest of { R_i : i ∈ I },  f̄(x) = (1/M) Σ_m t_m(x)
+///   [lower, upper](x) = [f̄(x) − q̂, f̄(x) + q̂]
+/// ```
+///
+/// For jackknife+, each chunk of new points computes the leave-out means of every
+/// calibration row as one matrix product, `(chunk × M) · (M × n)` with the right factor
+/// `W[m, i] = 1[m ∈ O_i] / |O_i|`, then two order statistics per point (selection, not a
+/// sort). Memory is `O(POINT_CHUNK × n)` per thread plus `W`; every point is computed
+/// within a fixed chunk, so results do not depend on the thread count.
+///
+/// # Errors
+/// `level` outside (0, 1); `members` without members; `counts`, `train_members`, `y_train`
+/// of mismatched shapes or no rows; `counts` negative; `lower`/`upper` not of length
+/// `n_points`; `Interrupted` from the monitor; `OutOfMemory`.
+#[allow(clippy::too_many_arguments)]
+pub fn prediction_interval<C: CountValue, T: Real>(
+    members: ArrayView2<'_, T>,
+    counts: ArrayView2<'_, C>,
+    train_members: ArrayView2<'_, T>,
+    y_train: ArrayView1<'_, f64>,
+    level: f64,
+    method: IntervalMethod,
+    lower: &mut [f64],
+    upper: &mut [f64],
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<Calibration> {
+    let (n_members, n_points) = members.dim();
+    check_shapes(n_members, counts.dim(), train_members.dim(), y_train.len())?;
+    if lower.len() != n_points || upper.len() != n_points {
+        return Err(Error::value("members", "outputs do not match n_points"));
+    }
+    ranks(level, 0)?;
+    let n_rows = counts.ncols();
+    let (n_out, sums) =
+        out_of_bag_sums(counts, n_rows, 1, |m, i, _| train_members[[m, i]].to_f64())?;
+    let used: Vec<usize> = (0..n_rows).filter(|&i| n_out[i] > 0).collect();
+    let n = used.len();
+    let residuals: Vec<f64> = used
+        .iter()
+        .map(|&i| (y_train[i] - sums[i] / n_out[i] as f64).abs())
+        .collect();
+    let (lower_rank, upper_rank) = ranks(level, n)?;
+    let mut calibration = Calibration {
+        n_rows_used: n,
+        lower_rank,
+        upper_rank,
+        threshold: f64::NAN,
+    };
+    if !calibration.finite() {
+        lower.fill(f64::NEG_INFINITY);
+        upper.fill(f64::INFINITY);
+        if method == IntervalMethod::OutOfBagResidual {
+            calibration.threshold = f64::INFINITY;
+        }
+        return Ok(calibration);
+    }
+    match method {
+        IntervalMethod::OutOfBagResidual => {
+            let mut scores = residuals;
+            let q = kth_smallest(&mut scores, upper_rank - 1);
+            calibration.threshold = q;
+            over_point_chunks(lower, upper, 1, pool, monitor, |start, lo, up| {
+                for (j, (l, u)) in lo.iter_mut().zip(up.iter_mut()).enumerate() {
+                    let mean = members
+                        .column(start + j)
+                        .iter()
+                        .map(|t| t.to_f64())
+                        .sum::<f64>()
+                        / n_members as f64;
+                    *l = mean - q;
+                    *u = mean + q;
+                }
+                Ok(())
+            })?;
+        }
+        IntervalMethod::JackknifePlus => {
+            let mut buffer = zeroed::<f64>(n_members * n, "counts")?;
+            for (u, &i) in used.iter().enumerate() {
+                let share = 1.0 / n_out[i] as f64;
+                for m in 0..n_members {
+                    if counts[[m, i]].is_zero() {
+                        buffer[m * n + u] = share;
+                    }
+                }
+            }
+            let weights = Array2::from_shape_vec((n_members, n), buffer)
+                .map_err(|_| Error::value("counts", "weights shape"))?;
+            let weights = weights.view();
+            let residuals = &residuals;
+            over_point_chunks(lower, upper, 1, pool, monitor, |start, lo, up| {
+                leave_out_chunk(
+                    members,
+                    weights,
+                    residuals,
+                    start,
+                    (lower_rank, upper_rank),
+                    lo,
+                    up,
+                )
+            })?;
+        }
+    }
+    Ok(calibration)
+}
+
+/// Jackknife+ bounds of one chunk of points starting at `start`.
+fn leave_out_chunk<T: Real>(
+    members: ArrayView2<'_, T>,
+    weights: ArrayView2<'_, f64>,
+    residuals: &[f64],
+    start: usize,
+    (lower_rank, upper_rank): (usize, usize),
+    lower: &mut [f64],
+    upper: &mut [f64],
+) -> Result<()> {
+    let (n_members, n) = weights.dim();
+    let len = lower.len();
+    let mut left = Array2::<f64>::zeros((len, n_members));
+    for ((j, m), value) in left.indexed_iter_mut() {
+        *value = members[[m, start + j]].to_f64();
+    }
+    let mut means = Array2::from_shape_vec((len, n), zeroed::<f64>(len * n, "members")?)
+        .map_err(|_| Error::value("members", "chunk shape"))?;
+    general_mat_mul(1.0, &left, &weights, 0.0, &mut means);
+    let (mut scratch, mut kept) = (Vec::new(), Vec::new());
+    for (j, row) in means.outer_iter().enumerate() {
+        let row = row
+            .as_slice()
+            .ok_or_else(|| Error::value("members", "chunk layout"))?;
+        lower[j] = kth_of(
+            row,
+            residuals,
+            -1.0,
+            lower_rank - 1,
+            &mut scratch,
+            &mut kept,
+        );
+        upper[j] = kth_of(row, residuals, 1.0, upper_rank - 1, &mut scratch, &mut kept);
+    }
+    Ok(())
+}
+
+/// Class set for a new observation at each new point: `sets[j, k]` is `true` when class
+/// `k` is in the set at point `j`.
+///
+/// `members[m, j, k]` and `train_members[m, i, k]` are class probabilities; `y_train[i]`
+/// the class code of training row `i` in `0..n_classes`.
+///
+/// ```text
+/// p̂_oob(x_i) = (1/|O_i|) Σ_{m ∈ O_i} p_m(x_i),   p̂(x) = (1/M) Σ_m p_m(x)
+/// least ambiguous (Sadinle, Lei & Wasserman 2019, JASA 114, §3):
+///   s(p, k) = 1 − p[k]
+/// adaptive, not randomised (Romano, Sesia & Candès 2020, NeurIPS 33, eq. 5 with u = 1):
+///   s(p, k) = Σ_{j : p[j] > p[k]} p[j] + p[k]
+/// q̂ = the k⁺-th smallest of { s(p̂_oob(x_i), y_i) : i ∈ I }
+/// set(x) = { k : s(p̂(x), k) ≤ q̂ }
+/// ```
+///
+/// # Errors
+/// As [`prediction_interval`], plus `y_train` with a class code outside `0..n_classes`,
+/// `train_members` with another number of classes than `members`, `sets` of the wrong
+/// shape.
+#[allow(clippy::too_many_arguments)]
+pub fn prediction_set<C: CountValue, T: Real>(
+    members: ArrayView3<'_, T>,
+    counts: ArrayView2<'_, C>,
+    train_members: ArrayView3<'_, T>,
+    y_train: ArrayView1<'_, i64>,
+    level: f64,
+    method: SetMethod,
+    mut sets: ArrayViewMut2<'_, bool>,
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<Calibration> {
+    let (n_members, n_points, n_classes) = members.dim();
+    let (train_m, n_rows, train_classes) = train_members.dim();
+    check_shapes(n_members, counts.dim(), (train_m, n_rows), y_train.len())?;
+    if train_classes != n_classes {
+        return Err(Error::value(
+            "train_members",
+            format!("has {train_classes} classes but `members` has {n_classes}"),
+        ));
+    }
+    if n_classes < 2 {
+        return Err(Error::value("members", "needs at least 2 classes"));
+    }
+    if sets.dim() != (n_points, n_classes) {
+        return Err(Error::value(
+            "members",
+            "output does not match (n_points, n_classes)",
+        ));
+    }
+    ranks(level, 0)?;
+    if let Some(i) = y_train
+        .iter()
+        .position(|&y| y < 0 || y as u64 >= n_classes as u64)
+    {
+        return Err(Error::value(
+            "y_train",
+            format!(
+                "class codes must lie in 0..{n_classes}, got {} at row {i}",
+                y_train[i]
+            ),
+        ));
+    }
+    let (n_out, sums) = out_of_bag_sums(counts, n_rows, n_classes, |m, i, k| {
+        train_members[[m, i, k]].to_f64()
+    })?;
+    let mut scores = Vec::new();
+    let mut probabilities = vec![0.0; n_classes];
+    for i in (0..n_rows).filter(|&i| n_out[i] > 0) {
+        for (k, p) in probabilities.iter_mut().enumerate() {
+            *p = sums[i * n_classes + k] / n_out[i] as f64;
+        }
+        scores.push(class_score(&probabilities, y_train[i] as usize, method));
+    }
+    let n = scores.len();
+    let (lower_rank, upper_rank) = ranks(level, n)?;
+    let mut calibration = Calibration {
+        n_rows_used: n,
+        lower_rank,
+        upper_rank,
+        threshold: f64::INFINITY,
+    };
+    if calibration.finite() {
+        calibration.threshold = kth_smallest(&mut scores, upper_rank - 1);
+    }
+    let q = calibration.threshold;
+    let flat = sets
+        .as_slice_mut()
+        .ok_or_else(|| Error::value("members", "output is not contiguous"))?;
+    let mut marker = vec![(); n_points];
+    over_point_chunks(
+        &mut marker,
+        flat,
+        n_classes,
+        pool,
+        monitor,
+        |start, _, out| {
+            let mut p = vec![0.0; n_classes];
+            for (j, row) in out.chunks_mut(n_classes).enumerate() {
+                p.iter_mut().for_each(|v| *v = 0.0);
+                for m in 0..n_members {
+                    for (k, v) in p.iter_mut().enumerate() {
+                        *v += members[[m, start + j, k]].to_f64();
+                    }
+                }
+                p.iter_mut().for_each(|v| *v /= n_members as f64);
+                for (k, cell) in row.iter_mut().enumerate() {
+                    *cell = class_score(&p, k, method) <= q;
+                }
+            }
+            Ok(())
+        },
+    )?;
+    Ok(calibration)
+}
+
+/// The score `s(p, k)` of [`prediction_set`].
+fn class_score(p: &[f64], k: usize, method: SetMethod) -> f64 {
+    match method {
+        SetMethod::LeastAmbiguous => 1.0 - p[k],
+        SetMethod::Adaptive => p.iter().filter(|&&v| v > p[k]).sum::<f64>() + p[k],
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::{Silent, Threads};
+    use ndarray::{array, Array1, Array3};
+
+    fn pool(threads: usize) -> Pool {
+        Threads::Fixed(threads).pool().unwrap()
+    }
+
+    /// Two members, three rows; worked by hand in the comments.
+    fn small() -> (Array2<f64>, Array2<u8>, Array2<f64>, Array1<f64>) {
+        // row 0 out of bag for member 1, row 1 for member 0, row 2 for member 1
+        let counts = array![[1u8, 0, 2], [0, 1, 0]];
+        let train = array![[10.0, 1.0, 20.0], [1.0, 30.0, 5.0]];
+        let y = array![2.0, 4.0, 4.0];
+        // one new point: member 0 predicts 0, member 1 predicts 10
+        let members = array![[0.0], [10.0]];
+        (members, counts, train, y)
+    }
+
+    fn interval(method: IntervalMethod, level: f64) -> Result<(f64, f64, Calibration)> {
+        let (members, counts, train, y) = small();
+        let (mut lo, mut up) = ([0.0], [0.0]);
+        let c = prediction_interval(
+            members.view(),
+            counts.view(),
+            train.view(),
+            y.view(),
+            level,
+            method,
+            &mut lo,
+            &mut up,
+            &pool(1),
+            &Silent,
+        )?;
+        Ok((lo[0], up[0], c))
+    }
+
+    #[test]
+    fn jackknife_plus_by_hand() {
+        // leave-out means at the rows: 1, 1, 5 -> residuals R = 1, 3, 1; at the new point
+        // the leave-out means are 10, 0, 10: lower values {9, -3, 9}, upper {11, 3, 11};
+        // level 0.5, n = 3: k- = floor(0.5 * 4) = 2, k+ = ceil(0.5 * 4) = 2.
+        let (lo, up, c) = interval(IntervalMethod::JackknifePlus, 0.5).unwrap();
+        assert_eq!((lo, up), (9.0, 11.0));
+        assert_eq!((c.n_rows_used, c.lower_rank, c.upper_rank), (3, 2, 2));
+    }
+
+    #[test]
+    fn out_of_bag_residual_by_hand() {
+        // ensemble mean 5; residuals sorted 1, 1, 3; k+ = 2 -> q = 1
+        let (lo, up, c) = interval(IntervalMethod::OutOfBagResidual, 0.5).unwrap();
+        assert_eq!((lo, up, c.threshold), (4.0, 6.0, 1.0));
+    }
+
+    #[test]
+    fn too_few_rows_give_an_infinite_interval() {
+        // level 0.9, n = 3: floor(0.1 * 4) = 0
+        let (lo, up, c) = interval(IntervalMethod::JackknifePlus, 0.9).unwrap();
+        assert_eq!((lo, up), (f64::NEG_INFINITY, f64::INFINITY));
+        assert!(!c.finite());
+    }
+
+    #[test]
+    fn ranks_resist_round_off() {
+        // 1 - 0.9 = 0.09999999999999998: without the guard floor(0.1 * 20) would be 1
+        assert_eq!(ranks(0.9, 19).unwrap(), (2, 18));
+        assert_eq!(ranks(0.9, 9).unwrap(), (1, 9));
+        assert_eq!(ranks(0.9, 8).unwrap().0, 0);
+        assert_eq!(rows_needed(0.9).unwrap(), 9);
+        assert_eq!(rows_needed(0.95).unwrap(), 19);
+        assert_eq!(rows_needed(0.5).unwrap(), 1);
+    }
+
+    #[test]
+    fn errors_name_their_argument() {
+        let argument = |e: Error| match e {
+            Error::InvalidValue { argument, .. } => argument,
+            other => panic!("unexpected {other:?}"),
+        };
+        for level in [0.0, 1.0, f64::NAN, -0.5] {
+            let e = interval(IntervalMethod::JackknifePlus, level).unwrap_err();
+            assert_eq!(argument(e), "level");
+        }
+        let (members, counts, train, y) = small();
+        let (mut lo, mut up) = ([0.0], [0.0]);
+        let mut call =
+            |m: ArrayView2<f64>, c: ArrayView2<i8>, t: ArrayView2<f64>, y: ArrayView1<f64>| {
+                prediction_interval(
+                    m,
+                    c,
+                    t,
+                    y,
+                    0.5,
+                    IntervalMethod::JackknifePlus,
+                    &mut lo,
+                    &mut up,
+                    &pool(1),
+                    &Silent,
+                )
+                .map(|_| ())
+                .map_err(argument)
+            };
+        let signed = counts.mapv(|c| c as i8);
+        assert_eq!(
+            call(
+                members.slice(ndarray::s![..1, ..]),
+                signed.view(),
+                train.view(),
+                y.view()
+            ),
+            Err("counts")
+        );
+        assert_eq!(
+            call(
+                members.view(),
+                signed.view(),
+                train.slice(ndarray::s![.., ..2]),
+                y.view()
+            ),
+            Err("counts")
+        );
+        assert_eq!(
+            call(
+                members.view(),
+                signed.view(),
+                train.view(),
+                y.slice(ndarray::s![..2])
+            ),
+            Err("y_train")
+        );
+        let negative = array![[1i8, -1, 2], [0, 1, 0]];
+        assert_eq!(
+            call(members.view(), negative.view(), train.view(), y.view()),
+            Err("counts")
+        );
+        let none = Array2::<f64>::zeros((0, 1));
+        let no_counts = Array2::<i8>::zeros((0, 3));
+        let no_train = Array2::<f64>::zeros((0, 3));
+        assert_eq!(
+            call(none.view(), no_counts.view(), no_train.view(), y.view()),
+            Err("members")
+        );
+    }
+
+    #[test]
+    fn class_sets_by_hand() {
+        // three members, four rows, two classes; y = 0, 0, 1, 1
+        let counts = array![[0u8, 1, 0, 1], [1, 0, 1, 0], [1, 1, 1, 0]];
+        let mut train = Array3::<f64>::zeros((3, 4, 2));
+        let p1 = [[0.9, 0.3, 0.2, 0.4], [0.8, 0.7, 0.6, 0.1], [0.5; 4]];
+        for m in 0..3 {
+            for i in 0..4 {
+                train[[m, i, 1]] = p1[m][i];
+                train[[m, i, 0]] = 1.0 - p1[m][i];
+            }
+        }
+        // out-of-bag P(class 1): row 0 -> 0.9 (m0), row 1 -> 0.7 (m1), row 2 -> 0.2 (m0),
+        // row 3 -> members 1 and 2: (0.1 + 0.5) / 2 = 0.3
+        // least-ambiguous scores 1 - p[y]: 0.9, 0.7, 0.8, 0.7; level 0.5, n = 4:
+        // k+ = ceil(0.5 * 5) = 3 -> q = 0.8 (sorted 0.7, 0.7, 0.8, 0.9)
+        let y = array![0i64, 0, 1, 1];
+        // one new point with mean P(class 1) = 0.1: scores 0.1 (class 0), 0.9 (class 1)
+        let mut members = Array3::<f64>::zeros((3, 1, 2));
+        for (m, p) in [0.1, 0.05, 0.15].iter().enumerate() {
+            members[[m, 0, 1]] = *p;
+            members[[m, 0, 0]] = 1.0 - p;
+        }
+        let mut sets = Array2::from_elem((1, 2), false);
+        let c = prediction_set(
+            members.view(),
+            counts.view(),
+            train.view(),
+            y.view(),
+            0.5,
+            SetMethod::LeastAmbiguous,
+            sets.view_mut(),
+            &pool(1),
+            &Silent,
+        )
+        .unwrap();
+        assert!((c.threshold - 0.8).abs() < 1e-15);
+        assert_eq!(sets.row(0).to_vec(), vec![true, false]);
+        // adaptive scores s(p, y): row 0 p=(0.1, 0.9), y=0 -> 0.9 + 0.1 = 1.0; row 1
+        // (0.3, 0.7), y=0 -> 1.0; row 2 (0.8, 0.2), y=1 -> 1.0; row 3 (0.7, 0.3), y=1 ->
+        // 1.0 -> q = 1.0; class 0 at the new point scores 0.9
+        let c = prediction_set(
+            members.view(),
+            counts.view(),
+            train.view(),
+            y.view(),
+            0.5,
+            SetMethod::Adaptive,
+            sets.view_mut(),
+            &pool(1),
+            &Silent,
+        )
+        .unwrap();
+        assert!((c.threshold - 1.0).abs() < 1e-15);
+        assert!(sets[[0, 0]]);
+        let bad_y = array![0i64, 0, 2, 1];
+        let e = prediction_set(
+            members.view(),
+            counts.view(),
+            train.view(),
+            bad_y.view(),
+            0.5,
+            SetMethod::Adaptive,
+            sets.view_mut(),
+            &pool(1),
+            &Silent,
+        )
+        .unwrap_err();
+        assert!(matches!(
+            e,
+            Error::InvalidValue {
+                argument: "y_train",
+                ..
+            }
+        ));
+    }
+
+    #[test]
+    fn thread_counts_agree() {
+        let (n_members, n_rows, n_points) = (7, 50, 300);
+        let value = |a: usize, b: usize| ((a * 7919 + b * 104_729) % 1000) as f64 / 100.0;
+        let members = Array2::from_shape_fn((n_members, n_points), |(m, j)| value(m, j + 3));
+        let train = Array2::from_shape_fn((n_members, n_rows), |(m, i)| value(m + 5, i));
+        let counts = Array2::from_shape_fn((n_members, n_rows), |(m, i)| ((m + 2 * i) % 3) as u16);
+        let y = Array1::from_shape_fn(n_rows, |i| value(1, i * 3));
+        let run = |threads| {
+            let (mut lo, mut up) = (vec![0.0; n_points], vec![0.0; n_points]);
+            prediction_interval(
+                members.view(),
+                counts.view(),
+                train.view(),
+                y.view(),
+                0.8,
+                IntervalMethod::JackknifePlus,
+                &mut lo,
+                &mut up,
+                &pool(threads),
+                &Silent,
+            )
+            .unwrap();
+            (lo, up)
+        };
+        let one = run(1);
+        assert_eq!(one, run(2));
+        assert_eq!(one, run(3));
+        assert!(one.0.iter().zip(&one.1).all(|(l, u)| l <= u));
+    }
+
+    #[test]
+    fn sampled_selection_is_exact() {
+        let (mut scratch, mut kept) = (Vec::new(), Vec::new());
+        for (len, seed) in [(5000usize, 1usize), (20_011, 7), (3000, 3)] {
+            // sorted, reversed and scrambled inputs, with ties
+            let patterns: [Vec<f64>; 3] = [
+                (0..len).map(|i| (i / 3) as f64).collect(),
+                (0..len).map(|i| (len - i) as f64).collect(),
+                (0..len)
+                    .map(|i| ((i * 7919 + seed * 104_729) % 1013) as f64 * 0.5)
+                    .collect(),
+            ];
+            let residuals: Vec<f64> = (0..len).map(|i| ((i * 31) % 17) as f64).collect();
+            for means in &patterns {
+                for sign in [-1.0, 1.0] {
+                    let mut all: Vec<f64> = means
+                        .iter()
+                        .zip(&residuals)
+                        .map(|(m, r)| m + sign * r)
+                        .collect();
+                    all.sort_by(f64::total_cmp);
+                    for k in [0, 1, len / 10, len / 2, len - len / 10, len - 1] {
+                        let got = kth_of(means, &residuals, sign, k, &mut scratch, &mut kept);
+                        assert_eq!(got, all[k]);
+                    }
+                }
+            }
+        }
+    }
+}
