@@ -316,12 +316,12 @@ STANDARD_ERRORS = [
 
     ## Intervals
 
-    `se.interval(0.95)` is the prediction ± 1.96 standard errors: an interval for what the
+    `se.mean_interval(0.95)` is the prediction ± 1.96 standard errors: an interval for what the
     *model* would predict, not for the next vine. For the vine's yield add the noise
     variance, estimated without a test set by the out-of-bag error (common practice).
     """),
     code("""
-    low, high = se.interval(0.95)
+    low, high = se.mean_interval(0.95)
     model_only = np.mean((y_test >= low) & (y_test <= high))
     oob = bagwise.out_of_bag(model.member_predictions(X[training_sets[0]]), model.in_bag_,
                              y[training_sets[0]])

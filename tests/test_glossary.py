@@ -57,7 +57,8 @@ ALLOWED = {
     # verbs of the result and stream API (DEVELOPERS.md, Shapes of the API)
     "to_frame": "tidy table", "to_html": "HTML report", "summary": "key numbers",
     "readings": "findings in words", "verdict": "does bagging help",
-    "interval": "the interval mean ± z std_error", "law": "the size law at sizes k",
+    "mean_interval": "the interval mean ± z std_error around the ensemble's mean",
+    "law": "the size law at sizes k",
     # frame and summary labels
     "section": "a frame's section column", "quantity": "a frame's quantity column",
     "value": "a frame's value column", "point": "a frame's point index",

@@ -127,7 +127,7 @@ def test_monte_carlo_truth_over_independent_training_sets():
     ratio = mean_estimate.mean() / truth.mean()
     assert 0.6 <= ratio <= 1.7, ratio                        # tolerance from the issue
     for e in estimates:
-        lower, upper = e.interval(0.90)
+        lower, upper = e.mean_interval(0.90)
         covered.append((lower <= centre) & (centre <= upper))
     coverage = np.mean(covered)
     assert 0.80 <= coverage <= 0.98, coverage
@@ -213,13 +213,13 @@ def test_interval_is_normal_approximation():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", bagwise.BagwiseWarning)
         result = bagwise.prediction_variance(members, counts)
-    lower, upper = result.interval(0.95)
+    lower, upper = result.mean_interval(0.95)
     # scipy.stats.norm.ppf(0.975) = 1.959963984540054
     np.testing.assert_allclose(upper - result.mean, 1.959963984540054 * result.std_error,
                                rtol=1e-12)
     np.testing.assert_allclose(result.mean - lower, upper - result.mean, rtol=1e-12)
     with pytest.raises(ValueError, match="`level`"):
-        result.interval(1.5)
+        result.mean_interval(1.5)
 
 
 @pytest.mark.parametrize(

@@ -478,6 +478,33 @@ class _Bag(BaseEstimator):
         return gram.prediction_variance(members, method=method, corrected=corrected,
                                         n_jobs=self.n_jobs)
 
+    def prediction_interval(self, X, level=0.9, *, method=None, X_train=None, y_train=None):
+        """An interval (regression) or class set (classification) for a **new observation**
+        at each point of ``X``, calibrated on the out-of-bag predictions of the training
+        rows: `bagwise.prediction_interval` of `member_predictions`, ``in_bag_`` and the
+        out-of-bag predictions (class sets in the order of ``classes_``).
+
+        Parameters
+        ----------
+        X : array-like of shape (n_points, n_features)
+        level : float
+            Nominal coverage, in (0, 1).
+        method : str, optional
+            As in `bagwise.prediction_interval` (default: jackknife+ for regression, least
+            ambiguous sets for classification).
+        X_train, y_train : array-like, optional
+            The training rows and targets; needed only after `bagwise.load`.
+
+        Returns
+        -------
+        PredictionInterval or PredictionSet
+        """
+        from .intervals import prediction_interval
+
+        train_members, target = self._training_members(X_train, y_train)
+        return prediction_interval(self.member_predictions(X), self.in_bag_, train_members,
+                                   target, level=level, method=method, n_jobs=self.n_jobs)
+
     def spread(self, X):
         """Between/within split of the members' variance at ``X`` (`bagwise.spread`; the
         last-class probability for classification), reusing ``count_gram_``.

@@ -246,8 +246,10 @@ class PredictionVariance(Result):
                    n_rows=n_rows, scheme=scheme, n_clipped=n_clipped,
                    n_without_out_of_bag=n_without_out_of_bag)
 
-    def interval(self, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
-        """Normal-approximation interval ``mean ± z · std_error`` at ``level``.
+    def mean_interval(self, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
+        """Normal-approximation interval ``mean ± z · std_error`` at ``level`` for the
+        **ensemble's mean prediction** (what a refit on new training data would average to),
+        not for a new observation: for that, use `bagwise.prediction_interval`.
 
         The normal approximation is an assumption (Wager, Hastie & Efron 2014 use it too);
         it ignores the ensemble's bias.

@@ -141,7 +141,7 @@ def binned_coverage(prediction_variance, y, level=0.9, bins=10):
     ([1.0, 1.0], [3, 3])
     """
     y, bins, _ = _variance_iv(prediction_variance, y, bins, None)
-    low, high = prediction_variance.interval(_level_iv(level))
+    low, high = prediction_variance.mean_interval(_level_iv(level))
     inside = (y >= low) & (y <= high)
     se = prediction_variance.std_error
     groups = c.equal_count_bins(se, bins)
@@ -160,7 +160,7 @@ def _level_iv(level):
 def plot_interval_coverage(prediction_variance, y, *, level=0.9, bins=10, ax=None, unit=None):
     """Share of the targets inside their ``level`` interval, by bin of standard error.
 
-    The interval is ``PredictionVariance.interval(level)``, the normal approximation
+    The interval is ``PredictionVariance.mean_interval(level)``, the normal approximation
     ``mean ± z * standard error``. Points are cut into ``bins`` bins of (nearly) equal
     size by predicted standard error; each marker is one bin, with a bar of ± one binomial
     standard error ``sqrt(p (1 - p) / n)``. The nominal level is the horizontal line;
@@ -205,7 +205,7 @@ def plot_interval_coverage(prediction_variance, y, *, level=0.9, bins=10, ax=Non
     ax.errorbar(mean_se, share, yerr=spread, color=c.INK, linestyle="-", marker="o",
                 markersize=5, capsize=3, label=f"observed, {bins} bins of equal size")
     ax.axhline(level, color=c.SLATE, linestyle="--", label=f"nominal level {level:.0%}")
-    low, high = prediction_variance.interval(level)
+    low, high = prediction_variance.mean_interval(level)
     overall = float(np.mean((y >= low) & (y <= high)))
     ax.axhline(overall, color=c.FAINT, linestyle=":", label=f"all points: {overall:.1%}")
     ax.set_ylim(0, 1.02)
