@@ -731,20 +731,7 @@ mod tests {
 
     const POOL: Pool = Pool::Global;
 
-    /// Deterministic pseudo-random values in [0, 1) (a small LCG; tests only).
-    fn values(count: usize, seed: u64) -> Vec<f64> {
-        let mut state = seed
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        (0..count)
-            .map(|_| {
-                state = state
-                    .wrapping_mul(6364136223846793005)
-                    .wrapping_add(1442695040888963407);
-                (state >> 11) as f64 / (1u64 << 53) as f64
-            })
-            .collect()
-    }
+    use crate::members::test_values as values;
 
     fn decompose(
         members: &Array2<f64>,

@@ -506,6 +506,23 @@ pub trait MergeableState: Serialize + DeserializeOwned {
     }
 }
 
+/// Deterministic pseudo-random values in [0, 1) (a small LCG) shared by the families'
+/// tests.
+#[cfg(test)]
+pub(crate) fn test_values(count: usize, seed: u64) -> Vec<f64> {
+    let mut state = seed
+        .wrapping_mul(6364136223846793005)
+        .wrapping_add(1442695040888963407);
+    (0..count)
+        .map(|_| {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 11) as f64 / (1u64 << 53) as f64
+        })
+        .collect()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
