@@ -201,7 +201,28 @@ def _guarantee(method: str, level: float) -> str:
 
 
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)
-class PredictionInterval(Result):
+class _Calibrated(Result):
+    """What an interval and a class set share: the level, the method and the calibration
+    rows (the subclasses document these fields)."""
+
+    level: float
+    method: str
+    n_rows_used: int
+    n_rows: int
+    n_members: int
+    guarantee: str
+
+    def _summary(self, n_points: int, mean_name: str, mean_value: float) -> dict:
+        return {"level": self.level, "method": self.method, "n_points": n_points,
+                "n_rows_used": self.n_rows_used, mean_name: mean_value}
+
+    def _framed_rows(self, shape_row, mean_row) -> list[tuple[str, str]]:
+        return [("method", self.method), ("level", f"{self.level:.4g}"), shape_row,
+                ("rows used / rows", f"{self.n_rows_used:,} / {self.n_rows:,}"), mean_row]
+
+
+@dataclasses.dataclass(frozen=True, repr=False, eq=False)
+class PredictionInterval(_Calibrated):
     """Prediction interval for a new observation at each new point.
 
     Attributes
@@ -228,12 +249,6 @@ class PredictionInterval(Result):
     lower: np.ndarray
     upper: np.ndarray
     width: np.ndarray
-    level: float
-    method: str
-    n_rows_used: int
-    n_rows: int
-    n_members: int
-    guarantee: str
 
     _title: ClassVar[str] = "PredictionInterval"
 
@@ -249,13 +264,7 @@ class PredictionInterval(Result):
 
     def summary(self) -> dict:
         """Level, method, rows and the mean width over points."""
-        return {
-            "level": self.level,
-            "method": self.method,
-            "n_points": int(self.lower.shape[0]),
-            "n_rows_used": self.n_rows_used,
-            "mean_width": float(np.mean(self.width)),
-        }
+        return self._summary(int(self.lower.shape[0]), "mean_width", float(np.mean(self.width)))
 
     def to_frame(self):
         """One row per point: ``lower``, ``upper``, ``width``."""
@@ -264,13 +273,8 @@ class PredictionInterval(Result):
         return pd.DataFrame({"lower": self.lower, "upper": self.upper, "width": self.width})
 
     def _rows(self):
-        return [
-            ("method", self.method),
-            ("level", f"{self.level:.4g}"),
-            ("points", f"{self.lower.shape[0]:,}"),
-            ("rows used / rows", f"{self.n_rows_used:,} / {self.n_rows:,}"),
-            ("mean width", f"{float(np.mean(self.width)):.6g}"),
-        ]
+        return self._framed_rows(("points", f"{self.lower.shape[0]:,}"),
+                                 ("mean width", f"{float(np.mean(self.width)):.6g}"))
 
     def _reading(self):
         if not np.all(np.isfinite(self.width)):
@@ -282,7 +286,7 @@ class PredictionInterval(Result):
 
 
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)
-class PredictionSet(Result):
+class PredictionSet(_Calibrated):
     """Set of classes for a new observation at each new point.
 
     Attributes
@@ -307,12 +311,6 @@ class PredictionSet(Result):
 
     sets: np.ndarray
     set_size: np.ndarray
-    level: float
-    method: str
-    n_rows_used: int
-    n_rows: int
-    n_members: int
-    guarantee: str
 
     _title: ClassVar[str] = "PredictionSet"
 
@@ -330,13 +328,8 @@ class PredictionSet(Result):
 
     def summary(self) -> dict:
         """Level, method, rows and the mean set size over points."""
-        return {
-            "level": self.level,
-            "method": self.method,
-            "n_points": int(self.sets.shape[0]),
-            "n_rows_used": self.n_rows_used,
-            "mean_set_size": float(np.mean(self.set_size)),
-        }
+        return self._summary(int(self.sets.shape[0]), "mean_set_size",
+                             float(np.mean(self.set_size)))
 
     def to_frame(self):
         """One row per point: ``set_size``, then one boolean column per class code."""
@@ -348,13 +341,9 @@ class PredictionSet(Result):
         return frame
 
     def _rows(self):
-        return [
-            ("method", self.method),
-            ("level", f"{self.level:.4g}"),
+        return self._framed_rows(
             ("points x classes", f"{self.sets.shape[0]:,} x {self.sets.shape[1]:,}"),
-            ("rows used / rows", f"{self.n_rows_used:,} / {self.n_rows:,}"),
-            ("mean set size", f"{float(np.mean(self.set_size)):.4g}"),
-        ]
+            ("mean set size", f"{float(np.mean(self.set_size)):.4g}"))
 
     def _reading(self):
         return (
