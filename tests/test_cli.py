@@ -179,10 +179,10 @@ def test_warnings_of_the_diagnosis_are_one_line_each(tmp_path):
                  "--counts", tmp_path / "c.npy", "--out", tmp_path / "r.html")
     assert result.returncode == 0, result.stderr
     lines = result.stderr.strip().splitlines()
-    # 12 members are too few for the bias correction of the standard errors (see
+    # 12 members are too few for steady standard errors (see
     # bagwise.prediction_variance): the warning reaches the user as a plain line
     assert lines and all(line.startswith("warning: ") for line in lines)
-    assert any("too few" in line for line in lines)
+    assert any("not estimable with 12 members" in line for line in lines)
     assert len(set(lines)) == len(lines)  # each warning once
     assert (tmp_path / "r.html").exists()
 

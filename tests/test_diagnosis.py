@@ -61,7 +61,9 @@ def test_every_number_equals_the_standalone_result():
     assert _close(report.spread.mean_within, s.mean_within)
     assert _close(report.spread.pooled_rho, s.pooled_rho)
     summary = report.summary()
-    assert summary["uncertainty"]["median_std_error"] == float(np.median(u.std_error))
+    np.testing.assert_array_equal(report.uncertainty.status, u.status)
+    typical = None if u._typical() is None else float(np.median(u.std_error))
+    assert summary["uncertainty"]["median_std_error"] == typical
     assert summary["uncertainty"]["share_clipped"] == u.n_clipped / len(y)
     assert summary["uncertainty"]["median_correction_share"] == pytest.approx(
         float(np.nanmedian(u.correction_share)), rel=1e-15)
@@ -133,7 +135,7 @@ def test_out_of_bag_through_sklearn_bagging_regressor():
     assert split.decomposition.n_points == 100
 
 
-def test_probabilities_use_the_last_class_and_labels_skip_uncertainty():
+def test_probabilities_use_every_class_and_labels_skip_uncertainty():
     # sklearn.datasets.load_breast_cancer; sklearn.ensemble.BaggingClassifier
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)
     n = len(y)
@@ -144,9 +146,14 @@ def test_probabilities_use_the_last_class_and_labels_skip_uncertainty():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = bagwise.diagnose(probs, y, counts=counts, reference=probs[0])
-        u = bagwise.prediction_variance(probs[:, :, 1], counts)
+        u = bagwise.prediction_variance(probs, counts)
+        one = bagwise.prediction_variance(probs[:, :, 1], counts)
     np.testing.assert_array_equal(report.uncertainty.variance, u.variance)
-    r = bagwise.correlation(probs[:, :, 1], (y == 1).astype(float))
+    # every class gets its own estimate: class 1's equals the estimate of its column alone
+    np.testing.assert_array_equal(u.variance[:, 1], one.variance)
+    # residuals of the probability each member gives the observed class
+    observed = probs[:, np.arange(n), y]
+    r = bagwise.correlation(observed, np.ones(n))
     assert _close(report.correlation.mean_residual_correlation, r.mean_residual_correlation)
     # multi-class Brier of a single member: sum_c (p_c - [y = c])**2 = 2 x
     # sklearn.metrics.brier_score_loss for two classes
@@ -176,11 +183,11 @@ def test_summary_is_json_and_frame_and_display():
     frame = report.to_frame()
     assert list(frame.columns) == ["section", "quantity", "value"]
     assert len(frame) == sum(len(v) for v in report.summary().values())
-    row = frame[(frame.section == "spread") & (frame.quantity == "pooled_rho")]
-    assert row.value.iloc[0] == pytest.approx(report.spread.pooled_rho)
+    row = frame[(frame.section == "spread") & (frame.quantity == "mean_within")]
+    assert row.value.iloc[0] == pytest.approx(report.spread.mean_within)
     shown = repr(report)
     for title in ("Ambiguity decomposition", "Ensemble size", "Residual correlation",
-                  "Prediction uncertainty", "Between / within", "Single model", "Readings"):
+                  "Uncertainty of the ensemble's mean", "Between / within", "Single model", "Readings"):
         assert title in shown
     assert f"averaging removed {report.decomposition.relative_gain:.0%}" in shown
     assert "<table" in report._repr_html_()
@@ -205,9 +212,13 @@ def test_rough_standard_errors_are_flagged():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = bagwise.diagnose(members, rng.normal(size=50), counts=counts)
-    share = float(np.nanmedian(report.uncertainty.correction_share))
-    assert share > 0.5
-    assert any(f"rough: the bias correction is {share:.0%}" in line for line in report.readings())
+    result = report.uncertainty
+    assert np.mean(result.status == "not estimable") > 0.5
+    needed = result.members_needed()
+    assert needed > 20
+    assert any(f"not estimable with 20 members; at least {needed:,} needed" in line
+               for line in report.readings())
+    assert not any("±" in line for line in report.readings())
 
 
 @pytest.mark.parametrize("change, error, match", [
@@ -284,7 +295,7 @@ def test_each_warning_once_per_call_at_the_callers_line():
         warnings.simplefilter("always")
         bagwise.diagnose(members, y, counts=counts)
     messages = [(r.category, str(r.message)) for r in records]
-    assert any("correction" in text for _, text in messages)
+    assert any("not estimable" in text for _, text in messages)
     assert len(messages) == len(set(messages)), messages          # each condition once
     assert all(r.filename == __file__ for r in records), [r.filename for r in records]
     # the diagnosis's own warning: a reference with loss 0
@@ -302,11 +313,14 @@ def test_members_needed_is_one_table_of_every_figure():
     table = report.members_needed()
     # the size curve bounds the expected loss, the between/within split the variance of
     # the ensemble's prediction: two rows, each the standalone result's own figure
-    assert table.sections == ("size_curve", "spread")
+    assert table.sections == ("size_curve", "uncertainty", "spread")
     curve = bagwise.size_curve(members, y, rng=2)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         split = bagwise.spread(members, counts)
+        variance = bagwise.prediction_variance(members, counts)
+    # the standard errors' row: members for steady estimates, whatever the tolerance
+    assert table["uncertainty"] == variance.members_needed(0.2)
     assert table["size_curve"] == curve.members_needed(0.01)
     assert table["spread"] == split.members_needed(0.01)
     assert report.members_needed(0.05)["size_curve"] == curve.members_needed(0.05)

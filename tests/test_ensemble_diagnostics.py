@@ -115,15 +115,18 @@ def test_native_bag_after_save_and_load_rebuilds_the_gram(tmp_path):
     assert report.out_of_bag is None and report.uncertainty is not None
 
 
-def test_classification_prediction_variance_is_the_last_class():
+def test_classification_prediction_variance_has_every_class():
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)   # bundled open dataset
     bag = bagwise.BagClassifier(DecisionTreeClassifier(max_depth=3), n_members=30,
                                     random_state=0).fit(X[:400], y[:400])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         got = bag.prediction_variance(X[400:])
-        want = bagwise.prediction_variance(bag.member_predictions(X[400:])[:, :, 1], bag.in_bag_)
-    np.testing.assert_array_equal(got.std_error, want.std_error)
+        members = bag.member_predictions(X[400:])
+        for k in range(2):
+            want = bagwise.prediction_variance(members[:, :, k], bag.in_bag_)
+            np.testing.assert_array_equal(got.std_error[:, k], want.std_error)
+    assert got.std_error.shape == (len(X) - 400, 2) and got.quantity == "class probability"
 
 
 def test_bayesian_counts_have_no_out_of_bag_or_variance():

@@ -307,31 +307,43 @@ def variance_case():
     return estimate, y
 
 
-def test_error_vs_std_error_bins_against_pandas_qcut(variance_case):
-    estimate, y = variance_case
-    ax = plots.plot_error_vs_std_error(estimate, y, bins=10, unit="kg")
+def test_std_error_check_against_refitted_ensembles():
+    """The check compares like with like: the predicted standard error of the ensemble's
+    mean against the spread of that mean over ensembles refitted on independent training
+    sets (here bagged means of independent samples, whose true variance is σ²/n; Efron &
+    Tibshirani 1993). Bins from pandas.qcut; a standard error 1.6x too large must show."""
+    rng = np.random.default_rng(3)
+    n_rows, n_points, n_replicates, n_members = 100, 60, 40, 200
+    scales = np.geomspace(1.0, 10.0, n_points)
+    members = np.empty((n_replicates, n_members, n_points))
+    for r in range(n_replicates):
+        x = rng.normal(size=(n_rows, n_points)) * scales
+        counts = bagwise.resample(n_rows, n_members, rng=r).counts
+        members[r] = counts @ x / n_rows
+    replicates = bagwise.replicate_spread(members)
+    x = rng.normal(size=(n_rows, n_points)) * scales
+    counts = bagwise.resample(n_rows, 2000, rng=99).counts
+    estimate = bagwise.prediction_variance(counts @ x / n_rows, counts)
+    ax = plots.plot_std_error_check(estimate, replicates, bins=6, unit="kg")
     data = ax.containers[0].lines[0]
-    # Quantile bins: pandas.qcut on the (distinct) predicted standard errors.
-    frame = pd.DataFrame({"se": estimate.std_error, "error": np.abs(y - estimate.mean)})
-    frame["bin"] = pd.qcut(frame["se"], 10, labels=False)
-    grouped = frame.groupby("bin").agg(["mean", "sem", "size"])
-    np.testing.assert_allclose(data.get_xdata(), grouped[("se", "mean")], rtol=1e-12)
-    np.testing.assert_allclose(data.get_ydata(), grouped[("error", "mean")], rtol=1e-12)
-    assert set(grouped[("error", "size")]) == {60}
-    # The error bars are ± the standard error of each bin's mean (pandas sem, ddof 1).
-    segments = ax.containers[0].lines[2][0].get_segments()
-    np.testing.assert_allclose([s[1, 1] - s[0, 1] for s in segments],
-                               2 * grouped[("error", "sem")], rtol=1e-10)
-    ideal = line_labelled(ax, "ideal")
-    x, slope = np.asarray(ideal.get_xdata()), np.asarray(ideal.get_ydata())
-    # Mean of a half-normal variable with scale 1: scipy.stats.halfnorm.mean() = sqrt(2/pi).
-    np.testing.assert_allclose(slope[1] / x[1], stats.halfnorm.mean(), rtol=1e-12)
-    assert x[0] == slope[0] == 0 and x[1] >= data.get_xdata().max()
-    # Normal errors with the predicted standard deviation: each bin within 4 of its bars.
-    gap = np.abs(data.get_ydata() - stats.halfnorm.mean() * data.get_xdata())
-    assert np.all(gap < 4 * grouped[("error", "sem")].to_numpy())
-    assert ax.get_xlabel() == "predicted standard error (kg)"
-    assert ax.get_ylabel() == "mean absolute error of the ensemble mean (kg)"
+    keep = estimate.status != "not estimable"
+    frame = pd.DataFrame({"se": estimate.std_error, "variance": estimate.variance,
+                          "between": replicates.between})[keep]
+    frame["bin"] = pd.qcut(frame["se"], 6, labels=False)
+    grouped = frame.groupby("bin").agg(["mean", "sem"])
+    np.testing.assert_allclose(data.get_xdata(), np.sqrt(grouped[("variance", "mean")]),
+                               rtol=1e-12)
+    truth = np.sqrt(grouped[("between", "mean")].clip(lower=0)).to_numpy()
+    np.testing.assert_allclose(data.get_ydata(), truth, rtol=1e-12)
+    # Delta method: the SE of √(mean between) is sem / (2 √mean).
+    bars = (grouped[("between", "sem")] / (2 * truth)).to_numpy()
+    # Each bin also carries the sampling noise of the one training set: relative SD
+    # √(2/n) of a variance over n rows, over the bin's points (common practice).
+    own = data.get_xdata() * math.sqrt(2 / n_rows) / math.sqrt(n_points / 6) / 2
+    allowed = 4 * np.hypot(bars, own)
+    assert np.all(np.abs(data.get_ydata() - data.get_xdata()) < allowed)
+    assert np.sum(np.abs(data.get_ydata() - 1.6 * data.get_xdata()) >= allowed) >= 4
+    assert ax.get_xlabel() == "predicted standard error of the ensemble's mean (kg)"
 
 
 def test_interval_coverage_by_bin(variance_case):
@@ -356,10 +368,8 @@ def test_interval_coverage_by_bin(variance_case):
 
 def test_uncertainty_bad_input(variance_case):
     estimate, y = variance_case
-    with pytest.raises(ValueError, match="`y`: expected shape"):
-        plots.plot_error_vs_std_error(estimate, y[:-1])
-    with pytest.raises(ValueError, match="`y`: contains NaN"):
-        plots.plot_error_vs_std_error(estimate, np.where(np.arange(y.size) == 3, np.nan, y))
+    with pytest.raises(TypeError, match="`replicates`"):
+        plots.plot_std_error_check(estimate, y)
     with pytest.raises(ValueError, match="`bins`"):
         plots.plot_interval_coverage(estimate, y, bins=y.size + 1)
     with pytest.raises(TypeError, match="`bins`"):
@@ -367,7 +377,7 @@ def test_uncertainty_bad_input(variance_case):
     with pytest.raises(ValueError, match="`level`"):
         plots.plot_interval_coverage(estimate, y, level=1.0)
     with pytest.raises(TypeError, match="`prediction_variance`"):
-        plots.plot_error_vs_std_error(estimate.std_error, y)
+        plots.plot_std_error_check(estimate.std_error, y)
     with pytest.raises(TypeError, match="`spread`"):
         plots.plot_rho(estimate)
 
@@ -605,7 +615,6 @@ def every_plot(variance_case, spread_case):
         (plots.plot_size_curve, (bagwise.size_curve(preds, y, orders=3),)),
         (plots.plot_decomposition, (d,)),
         (plots.plot_ambiguity_by_point, (d,)),
-        (plots.plot_error_vs_std_error, (estimate, target)),
         (plots.plot_interval_coverage, (estimate, target)),
         (plots.plot_rho, (spread_case,)),
         (plots.plot_between_within, (spread_case,)),

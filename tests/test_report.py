@@ -104,12 +104,14 @@ def test_report_parses_and_holds_the_key_numbers(diagnosis, page):
     assert parsed.tags[0][0] == "html" and ("title", {}) in parsed.tags
 
 
-def test_report_embeds_every_figure_and_fetches_nothing(page):
+def test_report_embeds_every_figure_and_fetches_nothing(diagnosis, page):
     parsed = Page(page)
     images = parsed.images()
-    # decomposition (2), size curve (1), correlation heatmap (1), standard errors (2),
-    # between/within (2)
-    assert len(images) == 8
+    # decomposition (2), size curve (1), correlation heatmap (1), between/within (2, only
+    # where its between part is estimable); the standard errors have no figure without
+    # refitted ensembles to check them against
+    between = 2 if diagnosis.spread.pooled_status != "not estimable" else 0
+    assert len(images) == 4 + between
     for src in images:
         assert src.startswith("data:image/png;base64,")
         assert base64.b64decode(src.split(",", 1)[1]).startswith(PNG_SIGNATURE)
@@ -144,8 +146,9 @@ def test_heatmap_left_out_beyond_300_members():
     test, y_test, counts, _, _ = ensemble(members=301, n_test=60)
     report = bagwise.diagnose(test, y_test, counts=counts)
     images = Page(report.to_html()).images()
-    # decomposition (2), size curve (1), standard errors (2), between/within (2): no heatmap
-    assert len(images) == 7
+    # decomposition (2), size curve (1), between/within (2 where estimable): no heatmap
+    between = 2 if report.spread.pooled_status != "not estimable" else 0
+    assert len(images) == 3 + between
 
 
 def test_label_report_has_the_figures_that_apply():
@@ -255,7 +258,7 @@ def test_display_of_a_broken_result_falls_back_and_never_raises():
         Page(out)
 
 
-def test_probability_report_draws_the_last_class_figures():
+def test_probability_report_draws_the_figures_that_apply():
     rng = np.random.default_rng(0)
     y = rng.integers(0, 3, size=120)
     probabilities = rng.dirichlet([1.0, 1.0, 1.0], size=(50, 120))
@@ -266,9 +269,9 @@ def test_probability_report_draws_the_last_class_figures():
     parsed = Page(report.to_html())
     assert report.decomposition.loss == "brier_score"
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
-    # decomposition (2), size curve (1), heatmap (1), standard errors (2), between/within (2),
-    # kappa-error diagram (1)
-    assert len(parsed.images()) == 9
+    # decomposition (2), size curve (1), heatmap (1), kappa-error diagram (1); between/within
+    # has no figure for class probabilities (one split per class)
+    assert len(parsed.images()) == 5
 
 
 def test_report_of_a_fitted_bag_has_every_figure():
@@ -278,7 +281,8 @@ def test_report_of_a_fitted_bag_has_every_figure():
     bag = bagwise.BagRegressor("linear", n_members=400, random_state=0).fit(X[:100], y[:100])
     report = bag.diagnose(X[100:], y[100:])
     parsed = Page(report.to_html())
-    # as `diagnose` on the same arrays: decomposition (2), size curve (1), standard errors
-    # (2), between/within (2); no heatmap for 400 members (more than 300)
-    assert len(parsed.images()) == 7
+    # as `diagnose` on the same arrays: decomposition (2), size curve (1), between/within
+    # (2 where estimable); no heatmap for 400 members (more than 300)
+    between = 2 if report.spread.pooled_status != "not estimable" else 0
+    assert len(parsed.images()) == 3 + between
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words

@@ -153,7 +153,8 @@ def test_spread_splits_member_variance():
     assert result.mean_within / needed <= 0.01 * result.mean_between
     assert result.mean_within / (needed - 1) > 0.01 * result.mean_between
     assert "rho" in repr(result) and "<table" in result._repr_html_()
-    assert list(result.to_frame().columns) == ["point", "between", "within", "total", "rho"]
+    assert list(result.to_frame().columns) == ["point", "between", "within", "total", "rho",
+                                              "noise", "status"]
 
 
 def test_count_gram_is_reusable_and_pickles():
@@ -200,9 +201,10 @@ def test_small_ensembles_warn_and_clip():
     with pytest.warns(bagwise.BagwiseWarning) as caught:
         result = bagwise.prediction_variance(members, counts)
     messages = [str(w.message) for w in caught]
-    assert any("too few" in m for m in messages)
-    assert any(f"{result.n_clipped} of 50 corrected variances" in m for m in messages)
-    assert result.n_clipped > 0
+    assert len(messages) == 1
+    n_not = int(np.sum(result.status == "not estimable"))
+    assert f"not estimable with 10 members at {n_not} of 50 points" in messages[0]
+    assert result.n_clipped > 0 and n_not >= result.n_clipped
     assert np.all(result.variance >= 0)
     assert np.all(result.correction_share > 0.5)
 

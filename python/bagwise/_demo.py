@@ -8,9 +8,17 @@ from typing import TextIO
 import numpy as np
 
 from . import __version__, _core
+from ._display import plus_minus
 from .datasets import feature_matrix, find_vineyards_csv, load_vineyards
 from .ensemble import BagRegressor
 from .resampling import resample
+
+
+def _or_not(value, spec: str) -> str:
+    """A summary number, or "n/e" where it is not estimable (None or NaN)."""
+    if value is None or value != value:
+        return "n/e"
+    return format(value, spec)
 
 
 def _table(header: list[str], rows: list[list[str]]) -> str:
@@ -34,7 +42,8 @@ def resampling_section(data: dict[str, np.ndarray], members: int, seed: int) -> 
     def oob_cell(draw):
         share = draw.out_of_bag_share()
         se = share.std(ddof=1) / np.sqrt(len(share))
-        return f"{share.mean():.4f} ± {se:.4f}", f"{draw.expected_out_of_bag_share():.4f}"
+        return (plus_minus(f"{share.mean():.4f}", se, f"{se:.4f}"),
+                f"{draw.expected_out_of_bag_share():.4f}")
 
     draw, seconds = timed()
     ok = bool((draw.counts.sum(axis=1) == n).all())
@@ -126,10 +135,10 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
                           f"{r['reference_loss']:.4f}", f"{r['reference_ratio']:.3f}",
                           f"{c['infinite_loss']:.4f}", str(c["members_needed"]),
                           f"{o['ensemble_loss']:.4f}", f"{seconds:.1f}"])
-        spread_rows.append([name, f"{u['median_std_error']:.4f}",
-                            f"{u['median_correction_share']:.0%}", f"{u['share_clipped']:.1%}",
-                            f"{s['mean_between']:.4f}", f"{s['mean_within']:.4f}",
-                            f"{s['pooled_rho']:.3f}", str(s["members_needed"])])
+        spread_rows.append([name, _or_not(u["median_std_error"], ".4f"),
+                            f"{u['share_steady']:.0%}", _or_not(u["members_needed"], ","),
+                            _or_not(s["mean_between"], ".4f"), f"{s['mean_within']:.4f}",
+                            _or_not(s["pooled_rho"], ".3f"), _or_not(s["members_needed"], ",")])
         readings.append(f"  {name}: {report.verdict()}; out-of-bag error {o['ensemble_loss']:.4f} vs "
                         f"test error {d['ensemble_loss']:.4f}")
     lines.append(_table(["learner", "test loss", "member", "ambiguity", "gain", "single",
@@ -139,12 +148,14 @@ def bagging_section(data: dict[str, np.ndarray], members: int, seed: int) -> str
                  "  ratio = test loss / single model's (does bagging help?); loss(inf) = "
                  "loss(M) - W/M, k for 1% = smallest k with W/k <= 1% of it;\n"
                  "  OOB loss: out-of-bag error on the training vines (Breiman 1996)\n")
-    lines.append(_table(["learner", "median SE", "correction", "clipped", "between", "within",
+    lines.append(_table(["learner", "median SE", "steady", "M steady", "between", "within",
                          "rho", "M for 1%"], spread_rows))
-    lines.append("  SE: bias-corrected infinitesimal jackknife (Efron 2014; Wager, Hastie & "
-                 "Efron 2014), correction = its median share of the raw estimate\n"
-                 "  (above 50%: too few members for steady standard errors); Var(f_M) = "
-                 "between + within/M (ESL eq. 15.1), rho = between / (between + within),\n"
+    lines.append("  SE: standard error of the ensemble's mean, bias-corrected infinitesimal "
+                 "jackknife (Efron 2014; Wager, Hastie & Efron 2014);\n"
+                 "  steady = share of points whose estimate's Monte-Carlo noise is <= 20% of "
+                 "it, M steady = members for that at the median point;\n"
+                 "  n/e = not estimable with these members; Var(f_M) = between + within/M "
+                 "(ESL eq. 15.1), rho = between / (between + within),\n"
                  "  M for 1% = smallest M with within/M <= 1% of between")
     lines += readings
     return "\n".join(lines)

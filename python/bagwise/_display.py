@@ -49,3 +49,13 @@ def fmt(value) -> str:
     if isinstance(value, float) and value != value:
         return "nan"
     return f"{value:.6g}"
+
+
+def plus_minus(value: str, error: float, error_text: str) -> str:
+    """``"value ± error"``, or the value with the reason there is no spread to show: a
+    standard error of exactly 0 or NaN is never printed as "± 0"."""
+    if error != error:
+        return f"{value} (standard error n/a)"
+    if error == 0:
+        return f"{value} (no spread: every draw gives the same)"
+    return f"{value} ± {error_text}"

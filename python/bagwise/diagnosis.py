@@ -131,12 +131,15 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     -----
     Losses follow the members' kind: squared error for values, the multi-class Brier score
     for probabilities, the majority-vote error rate for labels. The residual correlation,
-    the standard errors and the spread need one number per member and point: for
-    probabilities they use the probability of the last class (the positive class of a
-    binary problem) against the indicator ``y == n_classes - 1``; for labels they are left
-    out (None). Each warning of the sections (e.g. too few members for the bias correction
-    of the standard errors, points without an out-of-bag member) is given once per call,
-    attributed to the line that called `diagnose`.
+    the residual correlation needs one number per member and point: for probabilities it
+    uses the probability each member gives the observed class (residual ``p(y) - 1``). The
+    standard errors and the spread of probabilities are estimated for every class (arrays
+    ``(n_points, n_classes)``); their readings summarise the predicted class's probability.
+    For labels these sections are left out (None). A standard error, ρ or between figure
+    that is not estimable with the members given is read out as "not estimable with M
+    members; about N needed", never as a number. Each warning of the sections (e.g. too
+    few members for steady standard errors, points without an out-of-bag member) is given
+    once per call, attributed to the line that called `diagnose`.
 
     Examples
     --------

@@ -446,17 +446,12 @@ class _Bag(BaseEstimator):
             self.count_gram_ = gram
         return gram
 
-    def _one_value(self, members):
-        # Classification: the probability of the last class in ``classes_`` (the positive
-        # class of a binary problem).
-        return members[:, :, -1] if self._classification else members
-
     def prediction_variance(self, X, *, method="ij", corrected=True):
         """Variance and standard error of the ensemble's prediction at new points.
 
-        `bagwise.prediction_variance` of `member_predictions` (for classification: the
-        probability of the last class in ``classes_``, the positive class of a binary
-        problem) and ``in_bag_``. The Gram matrix of the counts is built on the first call
+        `bagwise.prediction_variance` of `member_predictions` (for classification: every
+        class's probability, arrays of shape (n_points, n_classes) in the order of
+        ``classes_``) and ``in_bag_``. The Gram matrix of the counts is built on the first call
         (O(members² · n_rows)) and kept in ``count_gram_``, so later calls cost only the
         quadratic forms; a loaded or unpickled ensemble rebuilds it when first needed.
 
@@ -474,9 +469,8 @@ class _Bag(BaseEstimator):
         if method not in ("ij", "jackknife"):
             raise ValueError(f"`method`: expected 'ij' or 'jackknife', got {method!r}")
         gram = self._count_gram(jackknife=method == "jackknife")
-        members = self._one_value(self.member_predictions(X))
-        return gram.prediction_variance(members, method=method, corrected=corrected,
-                                        n_jobs=self.n_jobs)
+        return gram.prediction_variance(self.member_predictions(X), method=method,
+                                        corrected=corrected, n_jobs=self.n_jobs)
 
     def prediction_interval(self, X, level=0.9, *, method=None, X_train=None, y_train=None):
         """An interval (regression) or class set (classification) for a **new observation**
@@ -506,15 +500,15 @@ class _Bag(BaseEstimator):
                                    target, level=level, method=method, n_jobs=self.n_jobs)
 
     def spread(self, X):
-        """Between/within split of the members' variance at ``X`` (`bagwise.spread`; the
-        last-class probability for classification), reusing ``count_gram_``.
+        """Between/within split of the members' variance at ``X`` (`bagwise.spread`; every
+        class's probability for classification), reusing ``count_gram_``.
 
         Returns
         -------
         Spread
         """
         gram = self._count_gram()
-        return gram.spread(self._one_value(self.member_predictions(X)), n_jobs=self.n_jobs)
+        return gram.spread(self.member_predictions(X), n_jobs=self.n_jobs)
 
     def diagnose(self, X, y, reference=None, *, X_train=None, y_train=None):
         """The full `bagwise.diagnose` report on a test set.

@@ -10,6 +10,7 @@ from typing import Literal
 import numpy as np
 
 from . import _core
+from ._display import plus_minus
 from ._progress import ProgressArg, progress_callback
 from ._results import Result
 from ._validation import label_codes, n_jobs_value, positive_int, rng_seed
@@ -298,7 +299,7 @@ class Resample(Result):
             rows += [
                 ("counts dtype", str(self._counts.dtype)),
                 ("largest count", str(int(self._counts.max()))),
-                ("out-of-bag share", f"{share.mean():.4f} ± {se:.4f}"),
+                ("out-of-bag share", plus_minus(f"{share.mean():.4f}", se, f"{se:.4f}")),
                 ("expected share", f"{self.expected_out_of_bag_share():.4f}"),
             ]
         else:

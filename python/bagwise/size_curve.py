@@ -15,6 +15,7 @@ import numpy as np
 
 from . import _core
 from ._display import fmt as _fmt
+from ._display import plus_minus
 from ._members import loss_for, loss_option, members_array, n_classes_of, targets
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value, positive_int, rng_seed
@@ -123,7 +124,8 @@ class SizeCurve(Result):
             ("loss", self.loss),
             ("members x points", f"{self.n_members:,} x {self.n_points:,}"),
             ("orders (seed)", f"{self.orders} ({self.seed})"),
-            ("loss(1)", f"{_fmt(float(self.curve[0]))} ± {_fmt(float(self.std_error[0]))}"
+            ("loss(1)", plus_minus(_fmt(float(self.curve[0])), float(self.std_error[0]),
+                                   _fmt(float(self.std_error[0])))
              if self.sizes[0] == 1 else "-"),
             ("loss(M)", _fmt(self.ensemble_loss)),
         ]

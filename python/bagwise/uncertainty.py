@@ -21,16 +21,23 @@ import numpy as np
 
 from . import _core
 from ._members import as_array, members_array
-from ._results import Result, check_tolerance, members_for
+from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value
 from ._warnings import warn
 
 __all__ = ["CountGram", "PredictionVariance", "Spread", "count_gram", "prediction_variance",
            "spread"]
 
-#: Above this median share of the raw estimate, the bias correction dominates and a warning
-#: suggests more members (common practice: the correction should be a small adjustment).
-CORRECTION_WARNING_SHARE = 0.5
+#: A variance estimate is "steady" when its Monte-Carlo noise (standard deviation over
+#: reseeded members on the same training rows) is at most this share of it: the standard
+#: error then moves by about half that, 10% (common practice for a figure shown with two
+#: digits). It is the default ``tolerance`` of `PredictionVariance.members_needed`.
+STEADY_NOISE = 0.2
+#: ... and "not estimable" when the noise is at least this share of it (the estimate lies
+#: within two noise standard deviations of zero) or the estimate is not positive.
+ESTIMABLE_NOISE = 0.5
+#: The values of every ``status`` array, best first.
+STATUSES = ("steady", "noisy", "not estimable")
 
 
 def _counts_iv(counts) -> np.ndarray:
@@ -51,18 +58,24 @@ def _counts_iv(counts) -> np.ndarray:
     return counts
 
 
-def _members_iv(members, n_members: int) -> np.ndarray:
-    """Values ``(n_members, n_points)`` (integers and booleans read as values; a 1-D array is
-    one point per member) from the shared reader, matching ``n_members`` rows of counts."""
+def _members_iv(members, n_members: int) -> tuple[np.ndarray, tuple[int, ...]]:
+    """``(array, shape)``: the members as ``(n_members, n_values)`` for the core, and the
+    shape of one member's values — ``(n_points,)`` for values (integers and booleans read as
+    values; a 1-D array is one point per member), ``(n_points, n_classes)`` for class
+    probabilities, whose every class is estimated (flattened point-major; one copy only when
+    the array is not C-contiguous)."""
     array = as_array(members, "members")
     if array.ndim == 1:
         array = array[:, None]
-    _, array = members_array(array, kinds=("values",), numbers_as_values=True,
+    _, array = members_array(array, kinds=("values", "probabilities"), numbers_as_values=True,
                              purpose="standard errors")
     if array.shape[0] != n_members:
         raise ValueError(f"`members`: has {array.shape[0]} members (rows) but `counts` has "
                          f"{n_members}")
-    return array
+    shape = array.shape[1:]
+    if array.ndim == 3:
+        array = array.reshape(n_members, -1)
+    return array, shape
 
 
 class CountGram:
@@ -134,16 +147,17 @@ class CountGram:
 
     def _estimate(self, members, method, corrected, n_jobs):
         """The PredictionVariance of ``members`` and their across-member variance."""
-        members = _members_iv(members, self.n_members)
+        members, shape = _members_iv(members, self.n_members)
         if method == "jackknife" and not self._gram.has_jackknife:
             raise ValueError("`method`: this CountGram was built without jackknife=True")
-        raw, correction, within, mean = self._gram.variance(members, method,
-                                                            n_jobs_value(n_jobs))
+        raw, correction, within, mean = (
+            part.reshape(shape)
+            for part in self._gram.variance(members, method, n_jobs_value(n_jobs)))
         estimate = PredictionVariance._from_parts(
             method=method, corrected=corrected, raw=raw, correction=correction, mean=mean,
             n_members=self.n_members, n_rows=self.n_rows, scheme=self.scheme,
             n_without_out_of_bag=(self._gram.rows_never_out_of_bag
-                                   if method == "jackknife" else 0))
+                                  if method == "jackknife" else 0))
         return estimate, within
 
     def __reduce__(self):
@@ -174,36 +188,111 @@ def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGra
     return CountGram(counts, scheme=scheme, jackknife=jackknife, n_jobs=n_jobs)
 
 
+def _monte_carlo_noise(method, corrected, raw, correction, value, n_rows, n_members,
+                       group_size):
+    """The Monte-Carlo standard deviation of a variance estimate: how much it would move if
+    the members were redrawn on the same training rows.
+
+    Infinitesimal jackknife and jackknife: the raw estimate is a scaled sum over the n rows
+    of squared Monte-Carlo estimates Ĉ_i = C_i + ε_i (a covariance with the row's count, or
+    a leave-out mean's deviation), the ε_i nearly uncorrelated with a common variance e. Its
+    Monte-Carlo bias is the correction c = n·e (times the scheme's scale; Wager, Hastie &
+    Efron 2014 give it as n·v/B for the IJ). For near-Gaussian ε_i, Var(Σ ε_i²) = 2 n e² =
+    2c²/n. The cross term 2 Σ C_i ε_i = (2/B) Σ_b u_b (t_b − t̄) − …, with u_b = Σ_i C_i
+    (N_bi − 1) the linear part of t_b (Var u_b = Cov(u_b, t_b) = V), has variance
+    4 (V v + V²)/B = 4Vc/n + 4V²/B for near-Gaussian (u_b, t_b). So the corrected estimate
+    V̂ = raw − c has noise √((2c² + 4Vc)/n + 4V²/B), V = max(V̂, 0); a reseeding simulation
+    checks it (tests/test_uncertainty.py).
+    Little bags: V̂ = S²_B − W/ℓ, with S²_B the variance of G group means; for near-Gaussian
+    group means Var(S²_B) = 2 E[S²_B]² / (G − 1), so the noise is √(2 / (G − 1)) · S²_B.
+    An uncorrected estimate also carries its bias: the root mean square √(noise² + c²).
+    """
+    if method == "little_bags":
+        n_groups = n_members // max(group_size, 1)
+        noise = math.sqrt(2.0 / max(n_groups - 1, 1)) * np.abs(raw)
+    else:
+        positive = np.maximum(value, 0.0)
+        noise = np.sqrt((2.0 * correction**2 + 4.0 * positive * correction) / max(n_rows, 1)
+                        + 4.0 * positive**2 / n_members)
+    if not corrected:
+        noise = np.hypot(noise, correction)
+    return noise
+
+
+def _status_of(value, noise) -> np.ndarray:
+    """"steady" / "noisy" / "not estimable" from an estimate and its Monte-Carlo noise (see
+    `STEADY_NOISE`, `ESTIMABLE_NOISE`); members that agree exactly (estimate and noise both
+    0) give a steady 0."""
+    value = np.asarray(value, dtype=np.float64)
+    noise = np.asarray(noise, dtype=np.float64)
+    status = np.full(value.shape, STATUSES[2], dtype="<U13")
+    with np.errstate(invalid="ignore"):
+        status[(value > 0) & (noise < ESTIMABLE_NOISE * value)] = STATUSES[1]
+        status[((value > 0) & (noise <= STEADY_NOISE * value))
+               | ((value == 0) & (noise == 0))] = STATUSES[0]
+    return status
+
+
+def _at_predicted_class(array: np.ndarray, mean: np.ndarray) -> np.ndarray:
+    """Per point: ``array`` itself for values; for class probabilities ``(n_points,
+    n_classes)``, its entry at the class with the largest mean probability."""
+    if array.ndim == 1:
+        return array
+    return array[np.arange(array.shape[0]), np.argmax(mean, axis=1)]
+
+
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)
 class PredictionVariance(Result):
-    """Variance and standard error of a bagged prediction at each point.
+    """Variance and standard error of the **ensemble's mean prediction** at each point: how
+    much the bagged prediction would move if the training set were drawn again (not the
+    spread of a new observation: for that, see `bagwise.prediction_interval`).
+
+    Every estimate comes with its Monte-Carlo ``noise`` (it is computed from finitely many
+    members) and a ``status``: "steady" when the noise is at most `STEADY_NOISE` (20%) of
+    the variance, "not estimable" when it is at least `ESTIMABLE_NOISE` (50%) or the
+    estimate is not positive, "noisy" in between. `members_needed` says how many members
+    would make it steady.
 
     Attributes
     ----------
     method : str
-        ``"ij"`` (infinitesimal jackknife) or ``"jackknife"`` (after bootstrap).
+        ``"ij"`` (infinitesimal jackknife), ``"jackknife"`` (after bootstrap) or
+        ``"little_bags"`` (bootstrap of little bags).
     corrected : bool
         Whether the Monte-Carlo bias correction was subtracted.
-    variance : ndarray, shape (n_points,)
-        The variance of the ensemble's mean prediction over training sets; corrected values
-        below zero are clipped to zero (see ``n_clipped``).
-    std_error : ndarray, shape (n_points,)
+    variance : ndarray, shape (n_points,) or (n_points, n_classes)
+        The variance of the ensemble's mean prediction over training sets (of each class's
+        probability for class probabilities); corrected values below zero are clipped to
+        zero (see ``n_clipped``) and have status "not estimable".
+    std_error : ndarray
         ``sqrt(variance)``.
-    raw_variance, correction : ndarray, shape (n_points,)
+    raw_variance, correction : ndarray
         The uncorrected estimate and the correction term (corrected = raw − correction).
-    correction_share : ndarray, shape (n_points,)
+    correction_share : ndarray
         ``correction / raw_variance``: near 1 means too few members for a stable estimate.
-    mean : ndarray, shape (n_points,)
+    noise : ndarray
+        The Monte-Carlo standard deviation of ``variance`` (before clipping): how much it
+        would move if the members were redrawn on the same training rows (derived in
+        `_monte_carlo_noise`).
+    status : ndarray of str
+        Per point (and class): "steady", "noisy" or "not estimable".
+    mean : ndarray
         The ensemble mean prediction the standard errors belong to.
+    quantity : str
+        What the variance is of: ``"value"`` (the prediction) or ``"class probability"``
+        (each class's probability; readings summarise the predicted class's).
     n_members, n_rows : int
         Members and training rows of the in-bag counts.
     scheme : str
-        ``"bootstrap"`` or ``"subsample"`` (which fixes the scale; see the module notes).
+        ``"bootstrap"``, ``"subsample"`` or ``"little_bags"`` (which fixes the scale; see the
+        module notes).
     n_clipped : int
-        Points whose corrected variance was negative and clipped to zero.
+        Entries whose corrected variance was negative and clipped to zero.
     n_without_out_of_bag : int
         Training rows in every member (jackknife only): no leave-one-out mean exists for
         them, so they are left out of the jackknife sum.
+    group_size : int
+        Members per group of the bootstrap of little bags; 0 for the other methods.
     """
 
     _title: ClassVar[str] = "PredictionVariance"
@@ -215,41 +304,100 @@ class PredictionVariance(Result):
     raw_variance: np.ndarray
     correction: np.ndarray
     correction_share: np.ndarray
+    noise: np.ndarray
+    status: np.ndarray
     mean: np.ndarray
+    quantity: str
     n_members: int
     n_rows: int
     scheme: str
     n_clipped: int
     n_without_out_of_bag: int
+    group_size: int
 
     @classmethod
     def _from_parts(cls, *, method, corrected, raw, correction, mean, n_members, n_rows,
-                    scheme, n_without_out_of_bag) -> PredictionVariance:
+                    scheme, n_without_out_of_bag, group_size=0) -> PredictionVariance:
         """The one place a PredictionVariance is built: from the core's estimate."""
         with np.errstate(divide="ignore", invalid="ignore"):
             correction_share = np.where(raw > 0, correction / raw, np.nan)
         value = raw - correction if corrected else raw.copy()
+        noise = _monte_carlo_noise(method, corrected, raw, correction, value,
+                                   n_rows - n_without_out_of_bag, n_members, group_size)
+        status = _status_of(value, noise)
         negative = value < 0
-        n_clipped = int(negative.sum())
         variance = np.where(negative, 0.0, value)
-        share = (float(np.nanmedian(correction_share)) if np.isfinite(correction_share).any()
-                 else math.nan)
-        if corrected and share > CORRECTION_WARNING_SHARE:
-            warn(f"the Monte-Carlo correction is {share:.0%} of the raw variance at the median "
-                 f"point: {n_members} members are too few for a stable estimate; use more members")
-        if corrected and n_clipped:
-            warn(f"{n_clipped} of {len(value)} corrected variances were negative and were "
-                 "clipped to zero")
-        return cls(method=method, corrected=corrected, variance=variance,
-                   std_error=np.sqrt(variance), raw_variance=raw, correction=correction,
-                   correction_share=correction_share, mean=mean, n_members=n_members,
-                   n_rows=n_rows, scheme=scheme, n_clipped=n_clipped,
-                   n_without_out_of_bag=n_without_out_of_bag)
+        result = cls(method=method, corrected=corrected, variance=variance,
+                     std_error=np.sqrt(variance), raw_variance=raw, correction=correction,
+                     correction_share=correction_share, noise=noise, status=status, mean=mean,
+                     quantity="value" if mean.ndim == 1 else "class probability",
+                     n_members=n_members, n_rows=n_rows, scheme=scheme,
+                     n_clipped=int(negative.sum()),
+                     n_without_out_of_bag=n_without_out_of_bag, group_size=group_size)
+        headline = _at_predicted_class(status, mean)
+        n_not = int((headline == STATUSES[2]).sum())
+        if n_not:
+            needed = result._needed_words()
+            more = (f"; {needed} members would make the typical point steady"
+                    if needed is not None else "")
+            warn(f"the standard error of the ensemble's mean is not estimable with "
+                 f"{n_members} members at {n_not} of {len(headline)} points (see `status`)"
+                 f"{more}")
+        return result
+
+    def members_needed_at_points(self, tolerance: float = STEADY_NOISE) -> np.ndarray:
+        """Per point (and class): the smallest ensemble whose variance estimate would have
+        Monte-Carlo noise within ``tolerance`` of the variance (``tolerance=STEADY_NOISE``
+        is the "steady" status), with the same training rows and method.
+
+        Derivation (see `_monte_carlo_noise`): for the jackknifes the correction scales as
+        c·M/M' with M' members, so M' solves a c'² + b c' ≤ τ²V² with a = 2/n (plus 1 when
+        uncorrected: the bias stays) and b = 4V/n; for little bags the noise scales as
+        √(2/(G − 1)) S²_B with G groups of ``group_size``. Where the variance is not
+        estimable it is replaced by the largest value the noise allows, V̂₊ + 2·noise, so
+        the figure is then a lower bound. Float array; NaN where no size would do (an
+        uncorrected little-bags estimate whose bias alone exceeds the tolerance).
+        """
+        tau = check_tolerance(tolerance)
+        value = self.raw_variance - self.correction if self.corrected else self.raw_variance
+        target = np.where(self.status == STATUSES[2],
+                          np.maximum(value, 0.0) + 2.0 * self.noise, value)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            if self.method == "little_bags":
+                groups = 1.0 + 2.0 * (np.abs(self.raw_variance) / (tau * target)) ** 2
+                needed = self.group_size * np.ceil(groups)
+                if not self.corrected:
+                    needed = np.where(self.correction <= tau * target, needed, np.nan)
+            else:
+                # With M' members the correction is K/M', K = c·M: the noise² of
+                # `_monte_carlo_noise` (plus c'² when uncorrected) is a u² + b u in u = 1/M'.
+                n = max(self.n_rows - self.n_without_out_of_bag, 1)
+                k = self.correction * self.n_members
+                a = k * k * (2.0 / n + (0.0 if self.corrected else 1.0))
+                b = 4.0 * target * k / n + 4.0 * target**2
+                limit = (tau * target) ** 2
+                largest = np.where(a > 0, (-b + np.sqrt(b * b + 4.0 * a * limit))
+                                   / np.where(a > 0, 2.0 * a, 1.0), limit / b)
+                needed = np.ceil(1.0 / largest)
+            needed = np.where(target > 0, np.maximum(needed, 2.0), np.nan)
+        return needed
+
+    def members_needed(self, tolerance: float = STEADY_NOISE) -> int | float:
+        """The smallest ensemble whose variance estimate would be steady (Monte-Carlo noise
+        within ``tolerance`` of the variance) at the median point — the predicted class's
+        probability for class probabilities; see `members_needed_at_points`. NaN with one
+        `BagwiseWarning` when no point gives a figure."""
+        needed = _at_predicted_class(self.members_needed_at_points(tolerance), self.mean)
+        finite = needed[np.isfinite(needed)]
+        if not finite.size:
+            return not_estimable("no point has a positive variance or noise to scale from")
+        return int(np.ceil(np.median(finite)))
 
     def mean_interval(self, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
         """Normal-approximation interval ``mean ± z · std_error`` at ``level`` for the
         **ensemble's mean prediction** (what a refit on new training data would average to),
-        not for a new observation: for that, use `bagwise.prediction_interval`.
+        not for a new observation: for that, use `bagwise.prediction_interval`. Only as
+        good as ``status`` says.
 
         The normal approximation is an assumption (Wager, Hastie & Efron 2014 use it too);
         it ignores the ensemble's bias.
@@ -259,32 +407,97 @@ class PredictionVariance(Result):
         z = NormalDist().inv_cdf(0.5 + level / 2)
         return self.mean - z * self.std_error, self.mean + z * self.std_error
 
+    # -- readings -------------------------------------------------------------------------
+    def _of(self) -> str:
+        return ("the ensemble's mean prediction" if self.quantity == "value"
+                else "the ensemble's mean probability of the predicted class")
+
+    def status_counts(self) -> dict[str, int]:
+        """Points by status (the predicted class's entry for class probabilities)."""
+        headline = _at_predicted_class(self.status, self.mean)
+        return {name: int((headline == name).sum()) for name in STATUSES}
+
+    def _needed_words(self) -> str | None:
+        """"about N" members for steady estimates, "at least N" when the typical point's
+        variance is itself not estimable (its figure then rests on an upper bound)."""
+        needed = _quiet(self.members_needed)
+        if _is_nan(needed):
+            return None
+        status = _at_predicted_class(self.status, self.mean)
+        share_not = np.mean(status == STATUSES[2])
+        return f"{'at least' if share_not >= 0.5 else 'about'} {needed:,}"
+
+    def _not_estimable_words(self) -> str:
+        needed = self._needed_words()
+        words = f"not estimable with {self.n_members:,} members"
+        if needed is not None:
+            words += f"; {needed} needed"
+        if self.method != "little_bags":
+            words += " (or fit with scheme='little_bags')"
+        return words
+
+    def _typical(self) -> str | None:
+        """The median standard error in words, or None when the median point is not
+        estimable (never "± 0" from a clipped estimate)."""
+        status = _at_predicted_class(self.status, self.mean)
+        error = _at_predicted_class(self.std_error, self.mean)
+        order = np.argsort(error, kind="stable")
+        middle = order[len(order) // 2]
+        if status[middle] == STATUSES[2]:
+            return None
+        if error[middle] == 0:
+            return "0 (the members agree exactly at a typical point)"
+        rough = "" if status[middle] == STATUSES[0] else " (rough: Monte-Carlo noisy)"
+        return f"± {np.median(error):.3g}{rough}"
+
     def _rows(self):
-        name = {"ij": "infinitesimal jackknife", "jackknife": "jackknife-after-bootstrap"}
+        name = {"ij": "infinitesimal jackknife", "jackknife": "jackknife-after-bootstrap",
+                "little_bags": "bootstrap of little bags"}
+        counts = self.status_counts()
+        typical = self._typical()
         rows = [
-            ("method", name[self.method] + (" (bias-corrected)" if self.corrected else "")),
+            ("method", name.get(self.method, self.method)
+             + (" (bias-corrected)" if self.corrected else "")),
+            ("of", self._of()),
             ("members x training rows", f"{self.n_members:,} x {self.n_rows:,}"),
             ("points", f"{len(self.variance):,}"),
-            ("median standard error", f"{np.median(self.std_error):.4g}"),
+            ("steady / noisy / not estimable",
+             " / ".join(f"{counts[name]:,}" for name in STATUSES)),
+            ("median standard error", typical if typical is not None
+             else self._not_estimable_words()),
             ("median correction share", f"{np.nanmedian(self.correction_share):.1%}"
              if np.isfinite(self.correction_share).any() else "n/a"),
-            ("clipped at zero", str(self.n_clipped)),
+            ("members for steady estimates", self._needed_words() or "n/a"),
         ]
         if self.method == "jackknife":
             rows.append(("rows never out of bag", str(self.n_without_out_of_bag)))
         return rows
 
     def _reading(self):
-        return (f"a typical prediction is uncertain by ± {np.median(self.std_error):.3g} "
-                "(one standard error)")
+        typical = self._typical()
+        if typical is None:
+            return f"standard error of {self._of()}: {self._not_estimable_words()}"
+        return f"{self._of()} at a typical point is uncertain by {typical} (one standard error)"
 
     def to_frame(self):
-        """One row per point: mean, variance, std_error, raw_variance, correction."""
+        """One row per point (and class): mean, variance, std_error, raw_variance,
+        correction, noise, status."""
         import pandas as pd
 
-        return pd.DataFrame({"point": np.arange(len(self.variance)), "mean": self.mean,
-                             "variance": self.variance, "std_error": self.std_error,
-                             "raw_variance": self.raw_variance, "correction": self.correction})
+        n_points = self.variance.shape[0]
+        columns = {"point": np.arange(n_points)}
+        if self.variance.ndim == 2:
+            n_classes = self.variance.shape[1]
+            columns = {"point": np.repeat(np.arange(n_points), n_classes),
+                       "class": np.tile(np.arange(n_classes), n_points)}
+        for name in ("mean", "variance", "std_error", "raw_variance", "correction", "noise",
+                     "status"):
+            columns[name] = np.ravel(getattr(self, name))
+        return pd.DataFrame(columns)
+
+
+def _is_nan(value) -> bool:
+    return isinstance(value, float) and math.isnan(value)
 
 
 def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=None,
@@ -342,18 +555,28 @@ class Spread(Result):
     between two members. So Var(f_M) = ρσ² + (1 − ρ)σ²/M = between + within/M (Hastie,
     Tibshirani & Friedman 2009, ESL eq. 15.1).
 
+    The between part is a variance estimate with Monte-Carlo noise like any
+    `PredictionVariance` (its ``status`` per point); the pooled figures (``mean_between``,
+    ``pooled_rho``, `members_needed`) are only read out when ``pooled_status`` is not "not
+    estimable". For class probabilities every array has shape (n_points, n_classes).
+
     Attributes
     ----------
-    between, within, total, rho : ndarray, shape (n_points,)
+    between, within, total, rho : ndarray, shape (n_points,) or (n_points, n_classes)
         Per point; ``between`` is never negative (clipped at zero, see ``n_clipped``).
+    noise, status : ndarray
+        The between part's Monte-Carlo noise and status (as in `PredictionVariance`).
     mean_between, mean_within, mean_total : float
         Means over points (``mean_total = mean_between + mean_within``).
     pooled_rho : float
         ``mean_between / mean_total``.
+    pooled_status : str
+        The status of the mean over points of the corrected between part, against the mean
+        of its noise (an upper bound of the mean's noise, since the points share members).
     n_members : int
         Members of the ensemble.
     n_clipped : int
-        Points whose corrected between-variance was negative and clipped to zero.
+        Entries whose corrected between-variance was negative and clipped to zero.
     """
 
     _title: ClassVar[str] = "Spread"
@@ -362,12 +585,16 @@ class Spread(Result):
     within: np.ndarray
     total: np.ndarray
     rho: np.ndarray
+    noise: np.ndarray
+    status: np.ndarray
     mean_between: float
     mean_within: float
     mean_total: float
     pooled_rho: float
+    pooled_status: str
     n_members: int
     n_clipped: int
+    _estimate: PredictionVariance = dataclasses.field(repr=False)
 
     @classmethod
     def _from_parts(cls, estimate: PredictionVariance, within: np.ndarray) -> Spread:
@@ -380,19 +607,23 @@ class Spread(Result):
         mean_between = float(between.mean())
         mean_within = float(within.mean())
         mean_total = mean_between + mean_within
+        unclipped = float(np.mean(estimate.raw_variance - estimate.correction))
+        pooled_status = str(_status_of(unclipped, float(np.mean(estimate.noise))))
         return cls(between=between, within=within, total=total, rho=rho,
+                   noise=estimate.noise, status=estimate.status,
                    mean_between=mean_between, mean_within=mean_within, mean_total=mean_total,
                    pooled_rho=mean_between / mean_total if mean_total > 0 else math.nan,
-                   n_members=estimate.n_members, n_clipped=estimate.n_clipped)
+                   pooled_status=pooled_status, n_members=estimate.n_members,
+                   n_clipped=estimate.n_clipped, _estimate=estimate)
 
     def predicted_variance(self, n_members) -> np.ndarray:
         """Var(f_M) = ρσ² + (1 − ρ)σ²/M = between + within / M at each point (Hastie,
         Tibshirani & Friedman 2009, eq. 15.1) for an ensemble of ``n_members`` members (an
-        array of sizes gives shape ``(n_points, len(n_members))``)."""
+        array of sizes adds a last axis of ``len(n_members)``)."""
         m = _n_members_iv(n_members)
         if m.ndim == 0:
             return self.between + self.within / m
-        return self.between[:, None] + self.within[:, None] / np.ravel(m)[None, :]
+        return self.between[..., None] + self.within[..., None] / np.ravel(m)
 
     def mean_predicted_variance(self, n_members):
         """eq. 15.1 from the means over points: ``mean_between + mean_within / M`` for
@@ -406,33 +637,56 @@ class Spread(Result):
         ``tolerance`` (relative) of its limit ρσ², from the means over points:
         ``mean_within / M <= tolerance * mean_between``.
 
-        NaN with one `BagwiseWarning` when ``mean_between`` is not positive (no floor that
-        more members could come near).
+        NaN with one `BagwiseWarning` when the pooled between part is not estimable with
+        these members (it would be a ratio of noise) or not positive.
         """
         tolerance = check_tolerance(tolerance)
+        if self.pooled_status == STATUSES[2]:
+            return not_estimable(f"the between part is {self._not_estimable_words()} for "
+                                 "a steady estimate")
         return members_for(self.mean_within, self.mean_between, tolerance,
                            "the between variance (the limit) is not positive: more members "
                            "cannot make the remaining part small relative to it")
 
+    def _not_estimable_words(self) -> str:
+        return self._estimate._not_estimable_words()
+
     def _rows(self):
-        needed = _quiet(lambda: self.members_needed(0.01))
-        return [("members", str(self.n_members)),
-                ("between (training data)", f"{self.mean_between:.4g}"),
+        rows = [("members", str(self.n_members)),
                 ("within (members)", f"{self.mean_within:.4g}"),
-                ("rho", f"{self.pooled_rho:.3f}"),
-                ("members for 1% of between", str(needed))]
+                ("between: steady / noisy / not estimable",
+                 " / ".join(f"{n:,}" for n in self._estimate.status_counts().values()))]
+        if self.pooled_status == STATUSES[2]:
+            words = self._not_estimable_words()
+            return rows + [("between (training data)", words), ("rho", words)]
+        needed = _quiet(lambda: self.members_needed(0.01))
+        rough = "" if self.pooled_status == STATUSES[0] else " (rough)"
+        return rows + [("between (training data)", f"{self.mean_between:.4g}{rough}"),
+                       ("rho", f"{self.pooled_rho:.3f}{rough}"),
+                       ("members for 1% of between", str(needed))]
 
     def _reading(self):
+        if self.pooled_status == STATUSES[2]:
+            return ("the split of the member variance into training data and members is "
+                    + self._not_estimable_words())
         needed = _quiet(lambda: self.members_needed(0.01))
-        return (f"members share {self.pooled_rho:.0%} of their variance through the training "
-                f"data; {needed} members bring the rest within 1% of it")
+        rough = "" if self.pooled_status == STATUSES[0] else "roughly "
+        return (f"members share {rough}{self.pooled_rho:.0%} of their variance through the "
+                f"training data; {needed} members bring the rest within 1% of it")
 
     def to_frame(self):
-        """One row per point: between, within, total, rho."""
+        """One row per point (and class): between, within, total, rho, noise, status."""
         import pandas as pd
 
-        return pd.DataFrame({"point": np.arange(len(self.between)), "between": self.between,
-                             "within": self.within, "total": self.total, "rho": self.rho})
+        n_points = self.between.shape[0]
+        columns = {"point": np.arange(n_points)}
+        if self.between.ndim == 2:
+            n_classes = self.between.shape[1]
+            columns = {"point": np.repeat(np.arange(n_points), n_classes),
+                       "class": np.tile(np.arange(n_classes), n_points)}
+        for name in ("between", "within", "total", "rho", "noise", "status"):
+            columns[name] = np.ravel(getattr(self, name))
+        return pd.DataFrame(columns)
 
 
 def _quiet(compute):

@@ -10,8 +10,9 @@ The functions without the prefix compute the numbers a figure shows.
 - `plot_size_curve`: error against ensemble size, with the finite-ensemble law, the
   infinite-ensemble error, the members needed and the out-of-bag curve;
 - `plot_decomposition`, `plot_ambiguity_by_point`: what averaging removed;
-- `plot_error_vs_std_error`, `plot_interval_coverage`: standard errors checked against the
-  observed errors; `plot_rho`, `plot_between_within`: the between/within variance split;
+- `plot_std_error_check`: standard errors of the ensemble's mean checked against ensembles
+  refitted on independent training sets; `plot_interval_coverage`: interval coverage against
+  observed targets; `plot_rho`, `plot_between_within`: the between/within variance split;
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
 - `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
 - `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members.
@@ -24,16 +25,16 @@ from .diversity import kappa_error_points, plot_kappa_error
 from .size_curve import plot_size_curve
 from .uncertainty import (
     binned_coverage,
-    binned_errors,
+    binned_std_errors,
     plot_between_within,
-    plot_error_vs_std_error,
     plot_interval_coverage,
     plot_rho,
+    plot_std_error_check,
 )
 
 __all__ = [
     "binned_coverage",
-    "binned_errors",
+    "binned_std_errors",
     "kappa_error_points",
     "margins",
     "member_order",
@@ -41,12 +42,12 @@ __all__ = [
     "plot_between_within",
     "plot_correlation_matrix",
     "plot_decomposition",
-    "plot_error_vs_std_error",
     "plot_interval_coverage",
     "plot_kappa_error",
     "plot_margins",
     "plot_reliability",
     "plot_rho",
     "plot_size_curve",
+    "plot_std_error_check",
     "reliability",
 ]

@@ -1,4 +1,5 @@
-"""Checking standard errors against real errors; the between/within split of the variance."""
+"""Checking standard errors against refitted ensembles; the between/within split of the
+variance."""
 
 from __future__ import annotations
 
@@ -10,11 +11,9 @@ import numpy as np
 from ..uncertainty import PredictionVariance, Spread
 from . import _common as c
 
-__all__ = ["plot_between_within", "plot_error_vs_std_error", "plot_interval_coverage",
-           "plot_rho"]
+__all__ = ["binned_std_errors", "plot_between_within", "plot_interval_coverage", "plot_rho",
+           "plot_std_error_check"]
 
-#: Mean absolute value of a centred normal variable over its standard deviation.
-HALF_NORMAL_MEAN = math.sqrt(2 / math.pi)
 
 
 def _variance_iv(prediction_variance, y, bins, unit):
@@ -34,94 +33,95 @@ def _variance_iv(prediction_variance, y, bins, unit):
     return y, c.bins_iv(bins, n_points), c.unit_iv(unit)
 
 
-def binned_errors(prediction_variance, y, bins=10):
-    """Per bin of predicted standard error: mean standard error, mean absolute error of the
-    ensemble mean, its standard error and the bin size, as four arrays (the numbers
-    `plot_error_vs_std_error` draws). Bins hold (nearly) equal numbers of points.
+def _check_iv(prediction_variance, replicates, bins, unit):
+    from ..replicates import ReplicateSpread
 
-    Examples
-    --------
-    >>> import numpy as np, bagwise
-    >>> from bagwise.plots import binned_errors
-    >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, rng=0).counts
-    >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
-    >>> estimate = bagwise.prediction_variance(members, counts)
-    >>> mean_se, mean_error, spread, size = binned_errors(estimate, np.zeros(6), bins=3)
-    >>> size.tolist(), bool(np.all(np.diff(mean_se) > 0))
-    ([2, 2, 2], True)
+    if not isinstance(prediction_variance, PredictionVariance):
+        raise TypeError("`prediction_variance`: expected the PredictionVariance returned by "
+                        f"bagwise.prediction_variance, got {type(prediction_variance).__name__}")
+    if prediction_variance.variance.ndim != 1:
+        raise ValueError("`prediction_variance`: holds one variance per class; the check "
+                         "compares one value per point")
+    if not isinstance(replicates, ReplicateSpread):
+        raise TypeError("`replicates`: expected the ReplicateSpread of ensembles refitted on "
+                        "independent training sets (bagwise.replicate_spread), got "
+                        f"{type(replicates).__name__}")
+    n_points = len(prediction_variance.mean)
+    if replicates.n_points != n_points:
+        raise ValueError(f"`replicates`: has {replicates.n_points} points but "
+                         f"`prediction_variance` has {n_points}")
+    estimable = prediction_variance.status != "not estimable"
+    return estimable, c.bins_iv(bins, max(int(estimable.sum()), 1)), c.unit_iv(unit)
+
+
+def binned_std_errors(prediction_variance, replicates, bins=10):
+    """Per bin of predicted standard error, over the points whose estimate is not "not
+    estimable": the root mean predicted variance, the root mean true variance of the
+    ensemble's mean from ensembles refitted on independent training sets
+    (``replicates.between``, the variance of the infinitely bagged prediction, which the
+    corrected estimators target), that truth's standard error (delta method) and the bin
+    size — four arrays, the numbers `plot_std_error_check` draws. Bins hold (nearly) equal
+    numbers of points.
     """
-    y, bins, _ = _variance_iv(prediction_variance, y, bins, None)
-    se = prediction_variance.std_error
-    error = np.abs(y - prediction_variance.mean)
-    groups = c.equal_count_bins(se, bins)
-    mean_se = np.array([se[g].mean() for g in groups])
-    mean_error = np.array([error[g].mean() for g in groups])
-    spread = np.array([error[g].std(ddof=1) / math.sqrt(len(g)) if len(g) > 1 else math.nan
-                       for g in groups])
-    return mean_se, mean_error, spread, np.array([len(g) for g in groups])
+    estimable, bins, _ = _check_iv(prediction_variance, replicates, bins, None)
+    points = np.flatnonzero(estimable)
+    groups = [points[g] for g in c.equal_count_bins(prediction_variance.std_error[points],
+                                                    bins)] if points.size else []
+    predicted = np.array([math.sqrt(prediction_variance.variance[g].mean()) for g in groups])
+    truth, spread = [], []
+    for g in groups:
+        between = replicates.between[g]
+        mean = max(float(between.mean()), 0.0)
+        truth.append(math.sqrt(mean))
+        sem = between.std(ddof=1) / math.sqrt(len(g)) if len(g) > 1 else math.nan
+        spread.append(sem / (2 * math.sqrt(mean)) if mean > 0 else math.nan)
+    return predicted, np.array(truth), np.array(spread), np.array([len(g) for g in groups])
 
 
-def plot_error_vs_std_error(prediction_variance, y, *, bins=10, ax=None, unit=None):
-    """Predicted standard error against the observed absolute error of the ensemble mean.
+def plot_std_error_check(prediction_variance, replicates, *, bins=10, ax=None, unit=None):
+    """Predicted standard error of the ensemble's mean against the truth it estimates: the
+    spread of the ensemble's mean over ensembles refitted on independent training sets.
 
-    Points are ranked by their predicted standard error and cut into ``bins`` bins of
-    (nearly) equal size (quantile bins); each marker is one bin: its mean predicted
-    standard error across, the mean of ``|y - mean|`` up, with a bar of ± one standard
-    error of that mean. The ideal line is ``sqrt(2/pi) * standard error``: when the error
-    of the ensemble mean is normal with standard deviation sigma, the mean absolute error
-    is ``sqrt(2/pi) * sigma`` (about 0.80 sigma; the mean of a half-normal distribution).
-
-    The standard error measures only how the ensemble mean would move over training sets.
-    Markers above the line mean the observed error has parts it does not cover - noise in
-    the targets, the ensemble's bias - or that the standard errors are too small; markers
-    that rise with the line show that the standard errors rank the points correctly.
+    This compares like with like — both measure how the ensemble's mean moves when the
+    training set is drawn again; neither includes the noise of a new observation. Points are
+    ranked by their predicted standard error and cut into ``bins`` bins of (nearly) equal
+    size; each marker is one bin: the root mean predicted variance across, the root mean
+    refitted variance up (with a bar of ± one standard error). On the diagonal the
+    standard errors are right; points whose estimate is "not estimable" are left out (the
+    caption says how many).
 
     Parameters
     ----------
     prediction_variance : PredictionVariance
-        From `bagwise.prediction_variance` at the points of ``y``.
-    y : array of shape (n_points,)
-        Observed targets at those points.
+        From `bagwise.prediction_variance` at some points.
+    replicates : ReplicateSpread
+        From `bagwise.replicate_spread` of ensembles refitted on independent training sets
+        from the same source, predicting at the same points.
     bins : int
-        Number of bins (default 10).
     ax : matplotlib Axes, optional
     unit : str, optional
-        Unit of the targets, e.g. ``"kg"``.
 
     Returns
     -------
     matplotlib Axes
-
-    Examples
-    --------
-    >>> import numpy as np, bagwise
-    >>> import matplotlib.pyplot as plt
-    >>> from bagwise.plots import plot_error_vs_std_error
-    >>> rng = np.random.default_rng(0)
-    >>> x = rng.normal(size=200)
-    >>> counts = bagwise.resample(200, 1000, rng=0).counts
-    >>> members = counts @ np.outer(x, [1.0, 2.0, 3.0]) / 200    # three "points"
-    >>> estimate = bagwise.prediction_variance(members, counts)
-    >>> ax = plot_error_vs_std_error(estimate, np.zeros(3), bins=3)
-    >>> len(ax.containers[0].lines[0].get_xdata())
-    3
-    >>> plt.close(ax.figure)
     """
-    y, bins, unit = _variance_iv(prediction_variance, y, bins, unit)
+    estimable, bins, unit = _check_iv(prediction_variance, replicates, bins, unit)
     ax = c.axes(ax)
-    mean_se, mean_error, spread, _ = binned_errors(prediction_variance, y, bins)
-    ax.errorbar(mean_se, mean_error, yerr=np.nan_to_num(spread), color=c.INK, linestyle="none",
+    predicted, truth, spread, _ = binned_std_errors(prediction_variance, replicates, bins)
+    left_out = int((~estimable).sum())
+    ax.errorbar(predicted, truth, yerr=np.nan_to_num(spread), color=c.INK, linestyle="none",
                 marker="o", markersize=5, capsize=3,
-                label=f"observed, {bins} bins of equal size")
-    top = max(float(np.max(mean_se)), float(np.max(mean_error) / HALF_NORMAL_MEAN), 0.0)
+                label=f"{bins} bins of equal size"
+                + (f"; {left_out} points not estimable, left out" if left_out else ""))
+    top = max(float(np.max(predicted, initial=0.0)), float(np.max(truth, initial=0.0)))
     top = top * 1.1 if top > 0 else 1.0
-    ax.plot([0, top], [0, HALF_NORMAL_MEAN * top], color=c.SLATE, linestyle="--",
-            label="ideal: √(2/π) × standard error (normal errors)")
+    ax.plot([0, top], [0, top], color=c.SLATE, linestyle="--",
+            label="right: predicted = refitted")
     ax.set_xlim(-0.02 * top, top)
     ax.set_ylim(0, None)
-    return c.finish(ax, xlabel=c.with_unit("predicted standard error", unit),
-                    ylabel=c.with_unit("mean absolute error of the ensemble mean", unit))
+    return c.finish(ax, xlabel=c.with_unit("predicted standard error of the ensemble's mean",
+                                           unit),
+                    ylabel=c.with_unit("its spread over refitted ensembles", unit))
 
 
 def binned_coverage(prediction_variance, y, level=0.9, bins=10):

@@ -34,13 +34,15 @@ class Inputs:
 
     @functools.cached_property
     def one_value(self) -> tuple[np.ndarray, np.ndarray] | None:
-        """``(members, targets)`` with one number per member and point: the values, the
-        probability of the last class against ``y == n_classes - 1``, None for labels."""
+        """``(members, targets)`` with one number per member and point: the values; for
+        class probabilities the probability each member gives the **observed** class,
+        against 1 (so a residual is ``p(y) - 1`` for any number of classes); None for
+        labels."""
         if self.kind == "labels":
             return None
         if self.kind == "probabilities":
-            last = self.members.shape[2] - 1
-            return self.members[:, :, last], (self.y == last).astype(np.float64)
+            observed = self.members[:, np.arange(self.members.shape[1]), self.y]
+            return observed, np.ones(self.members.shape[1])
         return self.members, self.y
 
 

@@ -14,8 +14,8 @@ class CorrelationSection(Section):
     key = "correlation"
     title = "Residual correlation"
     result_type = "Correlation"
-    doc = ("`correlation` of the residuals (values; last-class probabilities); None for "
-           "labels.")
+    doc = ("`correlation` of the residuals (values; for class probabilities, of the "
+           "probability given to the observed class); None for labels.")
 
     def compute(self, inputs, done):
         from ..correlation import correlation
@@ -31,7 +31,10 @@ class CorrelationSection(Section):
     def readings(self, result, diagnosis):
         if math.isnan(result.mean_residual_correlation):
             return []
-        return [f"the members' errors correlate at {result.mean_residual_correlation:.2f} on average"]
+        of = ("" if diagnosis.kind == "values"
+              else " (errors in the probability given to the observed class)")
+        return [f"the members' errors correlate at {result.mean_residual_correlation:.2f} on "
+                f"average{of}"]
 
     def figures(self, result, diagnosis, unit):
         from .. import plots

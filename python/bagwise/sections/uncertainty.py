@@ -1,68 +1,61 @@
-"""The prediction-uncertainty section: standard errors of the ensemble's predictions
-(`prediction_variance`, bias-corrected infinitesimal jackknife)."""
+"""The prediction-uncertainty section: standard errors of the ensemble's mean prediction
+(`prediction_variance`, bias-corrected infinitesimal jackknife), with their Monte-Carlo
+status: a standard error that is not steady is never read out as a number."""
 
 from __future__ import annotations
 
 import numpy as np
 
-from ._base import Figure, Section, number
-
-#: Bins of the standard-error figures (fewer when there are fewer points).
-BINS = 10
-
-
-def _median_correction_share(result):
-    share = result.correction_share
-    return number(np.nanmedian(share)) if np.isfinite(share).any() else None
+from ._base import Needed, Section, number, quiet
 
 
 class UncertaintySection(Section):
     key = "uncertainty"
-    title = "Prediction uncertainty"
+    title = "Uncertainty of the ensemble's mean"
     result_type = "PredictionVariance"
     doc = ("`prediction_variance` (infinitesimal jackknife, bias-corrected) of the ensemble "
-           "at the points; None without counts or for labels.")
+           "at the points, every class's probability for class probabilities; None without "
+           "counts or for labels.")
 
     def compute(self, inputs, done):
         from ..uncertainty import prediction_variance
 
-        if inputs.counts is None or inputs.one_value is None:
+        if inputs.counts is None or inputs.kind == "labels":
             return None
-        return prediction_variance(inputs.one_value[0], inputs.counts, method="ij",
+        return prediction_variance(inputs.members, inputs.counts, method="ij",
                                    corrected=True, n_jobs=inputs.n_jobs)
 
     def summary(self, result, diagnosis):
-        return {"median_std_error": number(np.median(result.std_error)),
-                "share_clipped": number(result.n_clipped / len(result.variance)),
-                "median_correction_share": _median_correction_share(result)}
+        from ..uncertainty import _at_predicted_class
+
+        counts = result.status_counts()
+        total = max(sum(counts.values()), 1)
+        typical = result._typical()
+        error = _at_predicted_class(result.std_error, result.mean)
+        share = result.correction_share
+        return {"median_std_error": number(np.median(error)) if typical is not None else None,
+                "share_clipped": number(result.n_clipped / result.variance.size),
+                "share_steady": number(counts["steady"] / total),
+                "share_not_estimable": number(counts["not estimable"] / total),
+                "members_needed": number(quiet(result.members_needed)),
+                "median_correction_share": (number(np.nanmedian(share))
+                                            if np.isfinite(share).any() else None)}
 
     def readings(self, result, diagnosis):
-        from ..uncertainty import CORRECTION_WARNING_SHARE
+        counts = result.status_counts()
+        total = max(sum(counts.values()), 1)
+        line = result._reading()
+        if result._typical() is not None and counts["steady"] < total:
+            line += f"; steady at {counts['steady'] / total:.0%} of points"
+        return [line + " (infinitesimal jackknife)"]
 
-        line = (f"a typical prediction is uncertain by ± {np.median(result.std_error):.3g} "
-                "(one standard error, infinitesimal jackknife)")
-        share = _median_correction_share(result)
-        if share is not None and share > CORRECTION_WARNING_SHARE:
-            line += (f"; rough: the bias correction is {share:.0%} of the raw estimate at the "
-                     "median point, more members would steady it")
-        return [line]
+    def needed(self, result, tolerance):
+        from ..uncertainty import STEADY_NOISE
 
-    def figures(self, result, diagnosis, unit):
-        from .. import plots
-
-        inputs = diagnosis._inputs
-        if inputs is None or inputs.one_value is None:
-            return []
-        target = inputs.one_value[1]
-        bins = max(1, min(BINS, len(target)))
-        return [
-            Figure("predicted standard error against the observed error",
-                   lambda ax: plots.plot_error_vs_std_error(result, target, bins=bins, ax=ax,
-                                                            unit=unit)),
-            Figure("coverage of the 90% intervals by bin of standard error",
-                   lambda ax: plots.plot_interval_coverage(result, target, bins=bins, ax=ax,
-                                                           unit=unit)),
-        ]
+        return [Needed("standard error of the ensemble's mean: steady",
+                       result.members_needed(STEADY_NOISE),
+                       f"Monte-Carlo noise of the variance <= {STEADY_NOISE:.0%} of it at the "
+                       "median point")]
 
 
 section = UncertaintySection()
