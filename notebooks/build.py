@@ -280,8 +280,11 @@ STANDARD_ERRORS = [
     se
     """),
     md("""
-    The median *correction share* says how much of the raw estimate was Monte-Carlo noise
-    from having finitely many members; well below 50% means the members are enough.
+    Each test vine's estimate comes with its Monte-Carlo *noise* (how much it would move if
+    the members were drawn again) and a *status*: "steady" when that noise is at most 20%
+    of the estimate, "not estimable" when the estimate is within its noise of zero. The
+    table counts them, and `se.members_needed()` says how many members would make the
+    typical vine steady; a standard error that is not estimable is never shown as a number.
 
     ## Do the standard errors match reality?
 
@@ -317,18 +320,18 @@ STANDARD_ERRORS = [
     ## Intervals
 
     `se.mean_interval(0.95)` is the prediction ± 1.96 standard errors: an interval for what the
-    *model* would predict, not for the next vine. For the vine's yield add the noise
-    variance, estimated without a test set by the out-of-bag error (common practice).
+    *model* would predict, not for the next vine. For the vine's yield use
+    `model.prediction_interval(X, level)`: the jackknife+-after-bootstrap of Kim, Xu & Barber
+    (2020), calibrated on the out-of-bag residuals of the training vines, so it needs no
+    test set.
     """),
     code("""
     low, high = se.mean_interval(0.95)
     model_only = np.mean((y_test >= low) & (y_test <= high))
-    oob = bagwise.out_of_bag(model.member_predictions(X[training_sets[0]]), model.in_bag_,
-                             y[training_sets[0]])
-    half_width = 1.96 * np.sqrt(se.variance + oob.ensemble_loss)
-    with_noise = np.mean(np.abs(y_test - se.mean) <= half_width)
-    print(f"coverage of prediction ± 1.96 se: {model_only:.3f}")
-    print(f"coverage with out-of-bag noise added: {with_noise:.3f}")
+    interval = model.prediction_interval(X_test, level=0.95)
+    print(f"share of yields inside the ensemble-mean interval: {model_only:.3f}")
+    print(f"share of yields inside the 95% prediction interval: {interval.coverage(y_test):.3f}")
+    interval
     """),
     md("""
     ## Between and within

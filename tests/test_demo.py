@@ -56,10 +56,17 @@ def test_demo_bagging_section_reads_right():
     spread_linear = _row(out, "learner median SE", "linear")
     spread_tree = _row(out, "learner median SE", tree)
     for cells in (spread_linear, spread_tree):
-        assert float(cells[0]) > 0                      # a standard error was computed
-        assert 0 <= float(cells[5]) <= 1                 # rho
-    # trees decorrelate more than least squares (members share less through the data)
-    assert float(spread_tree[5]) < float(spread_linear[5])
+        # a standard error, or "n/e" (not estimable with these members) and then the
+        # members a steady one needs, more than the demo has
+        if cells[0] == "n/e":
+            assert int(cells[2].replace(",", "")) > 60
+        else:
+            assert float(cells[0]) > 0
+        assert cells[5] == "n/e" or 0 <= float(cells[5]) <= 1          # rho
+    # trees decorrelate more than least squares (members share less through the data),
+    # where both splits are estimable
+    if "n/e" not in (spread_tree[5], spread_linear[5]):
+        assert float(spread_tree[5]) < float(spread_linear[5])
 
 
 def test_demo_diversity_section_reads_right():
