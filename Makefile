@@ -1,5 +1,6 @@
-# The single entry point. Every target creates and uses its own virtual environment
-# (.venv), so nothing needs to be installed by hand beyond Python 3.10+ and Rust.
+# The single entry point. The targets share one virtual environment (.venv), created on
+# first use, so nothing needs to be installed by hand beyond Python 3.10+ and Rust. Installs
+# are quiet: their output goes to .venv/install.log and is shown only when they fail.
 #   make demo    install (release build) and run the demo on the bundled data
 #   make test    install test dependencies, run every Rust and Python test
 #   make lint    cargo fmt --check, clippy -D warnings, ruff
@@ -14,16 +15,21 @@ export VIRTUAL_ENV := $(abspath $(VENV))
 .PHONY: demo test lint bench dev install install-test clean
 
 $(VENV)/created:
-	$(PYTHON) -m venv $(VENV)
-	$(PY) -m pip install --quiet --upgrade pip
-	$(PY) -m pip install --quiet "maturin>=1.16,<2"
-	touch $@
+	@echo "creating $(VENV)"
+	@$(PYTHON) -m venv $(VENV)
+	@$(PY) -m pip install --quiet --upgrade pip > /dev/null
+	@$(PY) -m pip install --quiet "maturin>=1.16,<2" > /dev/null
+	@touch $@
 
 install: $(VENV)/created
-	$(VENV)/bin/maturin develop --release --quiet
+	@echo "building bagwise (release) into $(VENV); log in $(VENV)/install.log"
+	@$(VENV)/bin/maturin develop --release --quiet > $(VENV)/install.log 2>&1 \
+		|| (cat $(VENV)/install.log; exit 1)
 
 install-test: $(VENV)/created
-	$(VENV)/bin/maturin develop --profile fastdev --extras test --quiet
+	@echo "building bagwise (fastdev) with the test extras into $(VENV); log in $(VENV)/install.log"
+	@$(VENV)/bin/maturin develop --profile fastdev --extras test --quiet > $(VENV)/install.log 2>&1 \
+		|| (cat $(VENV)/install.log; exit 1)
 
 dev: install-test
 

@@ -11,12 +11,14 @@ random effect (a natural grouping), varieties differ in size (natural strata), a
 ordered by harvest day (a natural order for block resampling).
 
 Run from the repository root:  python demo-data/make_vineyards.py
-It rewrites demo-data/vineyards.csv deterministically (seed below).
+It rewrites python/bagwise/data/vineyards.csv (shipped in the package) deterministically
+(seed below); ``python make_vineyards.py OUT.csv`` writes elsewhere.
 """
 
 from __future__ import annotations
 
 import csv
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -92,7 +94,8 @@ def generate(seed: int = SEED) -> dict[str, np.ndarray]:
 
 def main() -> None:
     data = generate()
-    path = Path(__file__).with_name("vineyards.csv")
+    packaged = Path(__file__).resolve().parents[1] / "python" / "bagwise" / "data"
+    path = Path(sys.argv[1]) if len(sys.argv) > 1 else packaged / "vineyards.csv"
     with path.open("w", newline="") as handle:
         writer = csv.writer(handle)
         writer.writerow(COLUMNS)

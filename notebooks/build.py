@@ -39,7 +39,7 @@ VINEYARDS = code("""
     import bagwise
     from bagwise.datasets import feature_matrix, load_vineyards
 
-    data = load_vineyards()                      # demo-data/vineyards.csv
+    data = load_vineyards()                      # shipped in the package
     X, feature_names = feature_matrix(data)      # nine numeric readings per vine
     y = data["yield_kg"]
     print(f"{len(y)} vines, readings: {', '.join(feature_names)}")

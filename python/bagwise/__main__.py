@@ -295,8 +295,9 @@ def _parser():
     parser = argparse.ArgumentParser(prog="python -m bagwise", description="bagwise tools")
     commands = parser.add_subparsers(dest="command", required=True)
     demo = commands.add_parser("demo", help="run the pipeline on the bundled demo data")
-    demo.add_argument("--data", help="path to vineyards.csv (default: demo-data/)")
-    demo.add_argument("--members", type=int, default=200, help="ensemble members (default 200)")
+    demo.add_argument("--data", help="path to vineyards.csv (default: the copy shipped in the package)")
+    demo.add_argument("--members", type=int, default=100,
+                      help="ensemble members in every section (default 100)")
     demo.add_argument("--seed", type=int, default=0, help="seed (default 0)")
     rep = commands.add_parser("report", help="diagnose member predictions saved as files",
                               description=REPORT_HELP,

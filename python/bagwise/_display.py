@@ -57,5 +57,5 @@ def plus_minus(value: str, error: float, error_text: str) -> str:
     if error != error:
         return f"{value} (standard error n/a)"
     if error == 0:
-        return f"{value} (no spread: every draw gives the same)"
+        return f"{value} (same in every draw)"
     return f"{value} ± {error_text}"
