@@ -115,7 +115,8 @@ def bad_inputs(path):
     m, y = ["--members", path / "m.npy"], ["--targets", path / "y.npy"]
     return {
         "missing file": (["--members", path / "nope.npy", *y, *base], "--members: no such file"),
-        "shape mismatch": ([*m, "--targets", path / "short.npy", *base], "--targets: expected 40"),
+        "shape mismatch": ([*m, "--targets", path / "short.npy", *base],
+                           "--targets / --members: 39 targets but 40 points"),
         "string array": (["--members", path / "text.npy", *y, *base], "--members: expected numbers"),
         "object array": (["--members", path / "objects.npy", *y, *base], "--members: cannot read"),
         "txt file": (["--members", path / "m.txt", *y, *base], "--members: cannot read"),
@@ -131,10 +132,15 @@ def bad_inputs(path):
                                      path / "y.npy", *base], "--counts: --test-members needs"),
         "test targets alone": ([*m, *y, "--test-targets", path / "y.npy", *base],
                                "--test-targets: give --test-members and --test-targets"),
-        "targets of another length": (["--members", path / "train.npy", "--targets", path / "short.npy",
-                              *base], "--targets: expected 30"),
+        "targets of another length": (["--members", path / "train.npy", "--targets",
+                                       path / "short.npy", *base],
+                                      "--targets / --members: 39 targets but 30 points"),
         "unwritable output": ([*m, *y, "--out", path / "missing-dir" / "r.html"],
                               "--out: cannot write"),
+        # the output is checked before any file is read
+        "unwritable output, missing input": (["--members", path / "nope.npy", *y, "--out",
+                                              path / "missing-dir" / "r.html"],
+                                             "--out: cannot write"),
     }
 
 
@@ -162,6 +168,47 @@ def test_diagnose_errors_name_the_options(tmp_path):
                  "--out", tmp_path / "r.html")
     assert result.returncode == 2
     assert result.stderr.strip() == "error: --targets: label 5 is outside 0..1"
+
+
+def test_nan_errors_name_the_file_and_the_entry_the_same_way(tmp_path):
+    test, y_test, counts, train, y_train = ensemble(members=20, n_train=30, n_test=40)
+    bad = test.copy()
+    bad[3, 17] = np.nan
+    np.save(tmp_path / "bad.npy", bad)
+    np.save(tmp_path / "y.npy", y_test)
+    np.save(tmp_path / "train.npy", train)
+    np.save(tmp_path / "y_train.npy", y_train)
+    np.save(tmp_path / "counts.npy", counts)
+    alone = run("report", "--members", tmp_path / "bad.npy", "--targets", tmp_path / "y.npy",
+                "--out", tmp_path / "r.html")
+    held_out = run("report", "--members", tmp_path / "train.npy", "--targets",
+                   tmp_path / "y_train.npy", "--counts", tmp_path / "counts.npy",
+                   "--test-members", tmp_path / "bad.npy", "--test-targets", tmp_path / "y.npy",
+                   "--out", tmp_path / "r.html")
+    for result, option in ((alone, "--members"), (held_out, "--test-members")):
+        assert result.returncode == 2
+        line = result.stderr.strip()
+        assert line.startswith(f"error: {option}: contains NaN"), line
+        assert line.endswith("(first at member 3, point 17, counting from 0)"), line
+    # the same fault reads the same whichever option carried the file
+    assert (alone.stderr.replace("--members", "X")
+            == held_out.stderr.replace("--test-members", "X"))
+
+
+def test_the_output_says_what_was_diagnosed_and_prints_the_cautions(tmp_path):
+    from bagwise.report import CAUTIONS
+
+    _, _, counts, train, y_train = ensemble(members=20, n_train=30, n_test=40)
+    np.save(tmp_path / "train.npy", train)
+    np.save(tmp_path / "y_train.npy", y_train)
+    np.save(tmp_path / "counts.npy", counts)
+    result = run("report", "--members", tmp_path / "train.npy", "--targets",
+                 tmp_path / "y_train.npy", "--counts", tmp_path / "counts.npy", "--out",
+                 tmp_path / "r.html", "--quiet")
+    assert result.returncode == 0, result.stderr
+    text = " ".join(result.stdout.split())
+    assert "Diagnosed points: the training rows (in-sample)" in text
+    assert " ".join(CAUTIONS.split()) in text
 
 
 def test_usage_errors_exit_with_status_2(tmp_path):

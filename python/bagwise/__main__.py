@@ -8,6 +8,7 @@ import json
 import os
 import re
 import sys
+import textwrap
 import warnings
 
 REPORT_HELP = """\
@@ -134,9 +135,7 @@ def _inputs(args):
     if members.ndim not in (2, 3):
         raise CommandError(f"--members: expected (members, points) or (members, points, "
                            f"classes), got shape {members.shape}")
-    if targets.ndim != 1 or targets.shape[0] != members.shape[1]:
-        raise CommandError(f"--targets: expected {members.shape[1]} values (one per point of "
-                           f"--members {members.shape}), got shape {targets.shape}")
+    _pair(members, targets, "--members", "--targets")
     counts = reference = None
     if args.counts:
         counts = _numeric(load_array(args.counts, "--counts"), "--counts", integer=True)
@@ -152,9 +151,7 @@ def _inputs(args):
         if test.ndim != members.ndim or test.shape[0] != members.shape[0]:
             raise CommandError(f"--test-members: expected {members.shape[0]} members shaped "
                                f"like --members {members.shape}, got shape {test.shape}")
-        if test_y.ndim != 1 or test_y.shape[0] != test.shape[1]:
-            raise CommandError(f"--test-targets: expected {test.shape[1]} values (one per point "
-                               f"of --test-members {test.shape}), got shape {test_y.shape}")
+        _pair(test, test_y, "--test-members", "--test-targets")
         if counts is None:
             raise CommandError("--counts: --test-members needs the in-bag counts the members "
                                "were fit with (the training rows of --members)")
@@ -179,6 +176,60 @@ def _inputs(args):
                                f"point), got shape {reference.shape}")
     kwargs["reference"] = reference
     return kwargs, names
+
+
+def _pair(members, targets, members_option, targets_option):
+    """Targets must hold one value per point of the members: a mismatch names both files
+    and their shapes, since either may be the wrong one."""
+    if targets.ndim != 1:
+        raise CommandError(f"{targets_option}: expected one value per point (a 1-D array), "
+                           f"got shape {targets.shape}")
+    if targets.shape[0] != members.shape[1]:
+        raise CommandError(f"{targets_option} / {members_option}: {targets.shape[0]} targets "
+                           f"but {members.shape[1]} points (the second axis of "
+                           f"{members_option}, shape {members.shape}); one of the two files "
+                           "does not belong to the other")
+
+
+def _first_bad(array):
+    """The index of the first NaN or infinite entry of a float array, or None."""
+    import numpy as np
+
+    if array.dtype.kind != "f":
+        return None
+    bad = np.argwhere(~np.isfinite(np.asarray(array)))
+    return None if bad.size == 0 else tuple(int(i) for i in bad[0])
+
+
+def _where_bad(message, kwargs, names):
+    """A NaN / infinity error of `diagnose` with the position of the first bad entry in the
+    file named, the same wording whichever options the file came from."""
+    if "NaN" not in message and "infinite" not in message:
+        return message
+    for name, option in names.items():
+        array = kwargs.get({"y_train": "train_y"}.get(name, name))
+        if option in message and array is not None and hasattr(array, "dtype"):
+            index = _first_bad(array)
+            if index is None:
+                continue
+            axes = ("member", "point", "class") if array.ndim > 1 else ("point",)
+            if name in ("train_members", "y_train"):
+                axes = ("member", "training row") if array.ndim > 1 else ("training row",)
+            where = ", ".join(f"{axis} {i}" for axis, i in zip(axes, index))
+            return f"{message} (first at {where}, counting from 0)"
+    return message
+
+
+def _writable(path, option):
+    """Fail before any work when ``path`` cannot be written."""
+    existed = os.path.exists(path)
+    try:
+        with open(path, "a", encoding="utf-8"):
+            pass
+    except OSError as err:
+        raise CommandError(f"{option}: cannot write {path}: {err.strerror or err}") from None
+    if not existed:
+        os.remove(path)
 
 
 def _options(message, names):
@@ -256,7 +307,11 @@ def _warn_plainly(message, category, filename, lineno, file=None, line=None):
 
 def report(args) -> int:
     from .diagnosis import _diagnose
+    from .report import CAUTIONS
 
+    _writable(args.out, "--out")
+    if args.json:
+        _writable(args.json, "--json")
     with _steps(4, args.quiet) as step:
         step("reading")
         kwargs, names = _inputs(args)
@@ -266,7 +321,7 @@ def report(args) -> int:
                 warnings.showwarning = _warn_plainly
                 diagnosis = _diagnose(seed=args.seed, n_jobs=None, **kwargs)
         except (ValueError, TypeError) as err:
-            raise CommandError(_options(str(err), names)) from None
+            raise CommandError(_where_bad(_options(str(err), names), kwargs, names)) from None
         step("drawing the report")
         with warnings.catch_warnings():
             warnings.showwarning = _warn_plainly
@@ -277,8 +332,27 @@ def report(args) -> int:
             text = json.dumps(diagnosis.summary(), indent=2, allow_nan=False)
             _write(args.json, text + "\n", "--json")
     print(summary_table(diagnosis))
+    print("\n" + _in_sample_note(kwargs))
+    print("\nCautions\n" + textwrap.fill(CAUTIONS, 100, initial_indent="  ",
+                                         subsequent_indent="  "))
     print(f"\nreport written to {args.out}" + (f", summary to {args.json}" if args.json else ""))
     return 0
+
+
+def _in_sample_note(kwargs) -> str:
+    """What the diagnosed points are: held-out points, the training rows, or unknown."""
+    counts, members = kwargs["counts"], kwargs["members"]
+    if kwargs["train_members"] is not None:
+        return ("Diagnosed points: the held-out points of --test-members; the out-of-bag "
+                "error comes from the training rows of --members.")
+    if counts is not None and counts.shape[1] == members.shape[1]:
+        return ("Diagnosed points: the training rows (in-sample). The losses, size curve and "
+                "standard errors describe the rows the members were fit on; only the "
+                "out-of-bag error estimates the error on new data. Give --test-members and "
+                "--test-targets to diagnose held-out points.")
+    return ("Diagnosed points: the points of --members. If the members were fit on them, the "
+            "losses are in-sample; give --counts so the out-of-bag error can say how the "
+            "ensemble does on new data.")
 
 
 def _write(path, text, option):

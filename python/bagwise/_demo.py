@@ -13,7 +13,6 @@ from .datasets import feature_matrix, find_vineyards_csv, load_vineyards
 from .ensemble import BagRegressor
 from .resampling import resample
 
-
 #: The widest line the demo prints.
 WIDTH = 100
 
