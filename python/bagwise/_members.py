@@ -312,7 +312,7 @@ def _counts_object(counts, name: str):
     from .resampling import Resample
 
     if isinstance(counts, Resample):
-        if counts.counts is None:
+        if counts.scheme == "bayesian":
             raise TypeError(f"`{name}`: this Resample ({counts.scheme!r}) has continuous row "
                             "weights, not in-bag counts; no row is ever out of bag")
         return counts.counts
