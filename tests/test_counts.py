@@ -212,6 +212,15 @@ def legitimate():
     return rows
 
 
+def test_two_grouped_members_that_look_transposed_by_chance_pass():
+    # Groups {0} and {1, 2, 3}: the first member drew group 0 twice, the second the other
+    # group twice. Every column sums to 2, the number of members, as in transposed
+    # bootstrap counts; with two members that is chance, and the counts pass.
+    counts = np.array([[2, 0, 0, 0], [0, 2, 2, 2]], dtype=np.uint8)
+    assert np.array_equal(in_bag_counts(counts), counts)
+    bagwise.count_gram(counts)
+
+
 LEGITIMATE = legitimate()
 
 

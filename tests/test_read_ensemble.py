@@ -146,6 +146,9 @@ CLASSIFIERS = {
     "RandomForestClassifier balanced_subsample": (lambda: RandomForestClassifier(
         n_estimators=N_MEMBERS, oob_score=True, max_samples=0.7,
         class_weight="balanced_subsample", random_state=1), wine_labels),
+    "RandomForestClassifier balanced": (lambda: RandomForestClassifier(
+        n_estimators=N_MEMBERS, oob_score=True, max_depth=3, class_weight="balanced",
+        random_state=5), wine_labels),
     "ExtraTreesClassifier": (lambda: ExtraTreesClassifier(
         n_estimators=N_MEMBERS, bootstrap=True, oob_score=True, max_depth=4,
         random_state=2), wine_labels),
@@ -305,6 +308,9 @@ def unsupported():
                      GradientBoostingRegressor(n_estimators=3).fit(X, y)),
         "a class": (TypeError, "`model`: expected a fitted ensemble", RandomForestRegressor),
         "not fitted": (ValueError, "`model`: .*not fitted", RandomForestRegressor()),
+        "bag without resampling": (ValueError, "`model`: .*scheme='none'",
+                                   bagwise.BagRegressor("linear", n_members=2,
+                                                        scheme="none").fit(X, y)),
         "bayesian bag": (ValueError, "`model`: .*bayesian",
                          bagwise.BagRegressor("linear", n_members=3, scheme="bayesian").fit(X, y)),
     }

@@ -359,9 +359,9 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
       is ``(n_rows, n_members)``: ``ValueError``;
     - drawn row indices ``(n_members, n_draws)``: entries averaging above `INDEX_MEAN` with
       a variance above `INDEX_DISPERSION` times their mean: ``ValueError``;
-    - whole counts without ``n_members`` whose rows sum to different totals while every
-      column sums to the number of rows, the fingerprint of bootstrap counts
-      ``(n_rows, n_members)`` (each member's column holds its ``n_rows`` draws):
+    - whole counts without ``n_members``, at least 3 x 3, whose rows sum to different
+      totals while every column sums to the number of rows, the fingerprint of bootstrap
+      counts ``(n_rows, n_members)`` (each member's column holds its ``n_rows`` draws):
       ``ValueError``.
 
     Accepted: any non-negative integers not looking like the above, among them bootstrap
@@ -424,7 +424,9 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
         where = f"`{rows_from}` has" if rows_from else "expected"
         raise ValueError(f"`{name}`: has shape {_shape_text(array.shape)} but {where} "
                          f"{n_rows:,} training rows (one column of counts per row)")
-    if whole and n_members is None and rows > 1 and columns > 1 and np.any(sums != sums[0]):
+    # Two members (or two rows) make the fingerprint too likely by chance (e.g. grouped
+    # counts [[2, 0, 0], [0, 2, 2]]): it is read from three of each on.
+    if whole and n_members is None and rows > 2 and columns > 2 and np.any(sums != sums[0]):
         totals = array.sum(axis=0, dtype=np.float64)
         if np.all(totals == rows):
             raise ValueError(

@@ -28,9 +28,9 @@ Where the counts come from
 
 Not supported (a clear error): forests fit with ``bootstrap=False`` and bagging that gives
 every member every row (nothing is out of bag); multi-output targets; bagwise's bags with
-``scheme="bayesian"`` (continuous weights, no counts); a warm-started scikit-learn bagging
-whose earlier draws are lost; any other model (boosting, stacking, voting, isolation
-forests, tree embeddings).
+``scheme="bayesian"`` (continuous weights, no counts) or ``scheme="none"``; a warm-started
+scikit-learn bagging whose earlier draws are lost; any other model (boosting, stacking,
+voting, isolation forests, tree embeddings).
 """
 
 from __future__ import annotations
@@ -239,6 +239,9 @@ def _read_bag(model, X, X_train, y_train):
         raise ValueError(f"`model`: this {type(model).__name__} was fit with "
                          "scheme='bayesian': continuous row weights, not in-bag counts, so no "
                          "row is ever out of bag")
+    if model.scheme == "none":
+        raise ValueError(f"`model`: this {type(model).__name__} was fit with scheme='none': "
+                         "every member saw every training row, so nothing is out of bag")
     counts = in_bag_counts(model.in_bag_)
     n_rows = counts.shape[1]
     members = model.member_predictions(X)
