@@ -301,7 +301,8 @@ CONVERT_INDICES = "np.stack([np.bincount(idx, minlength=n_rows) for idx in indic
 #: common practice); row indices spread evenly over 0..n-1 average (n - 1)/2 with variance
 #: (n^2 - 1)/12, (n + 1)/6 times their mean, so index arrays of more than 12 training rows
 #: are caught, and counts of more than 4 draws per row pass when they are about as
-#: dispersed as a count.
+#: dispersed as a count. The one kind of real counts this refuses: draws of more than 4
+#: times the rows made with very unequal row weights (the weights add their own spread).
 INDEX_MEAN = 4.0
 INDEX_DISPERSION = 2.0
 
