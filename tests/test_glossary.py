@@ -131,7 +131,18 @@ def _results():
             bagwise.diagnose(test, y_test, counts=counts, train_members=train,
                              y_train=y_train, reference=y_test + 0.5),
             bagwise.diagnose(labels, labels_y),
+            _read_ensemble(),
         ]
+
+
+def _read_ensemble():
+    from sklearn.ensemble import RandomForestClassifier
+
+    rng = np.random.default_rng(1)
+    X = rng.normal(size=(60, 3))
+    y = np.where(X[:, 0] > 0, "yes", "no")
+    forest = RandomForestClassifier(n_estimators=5, random_state=0).fit(X, y)
+    return bagwise.read_ensemble(forest, X[:10], X_train=X, y_train=y)
 
 
 def _public(names):

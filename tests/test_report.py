@@ -215,7 +215,18 @@ def _results():
             "PredictionSet": bagwise.prediction_interval(
                 _two_classes(test), counts, _two_classes(train),
                 (y_train > np.median(y_train)).astype(int), level=0.8),
+            "EnsembleArrays": _read_forest(),
         }
+
+
+def _read_forest():
+    from sklearn.ensemble import RandomForestClassifier
+
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(60, 3))
+    y = np.where(X[:, 0] > 0, "yes", "no")
+    forest = RandomForestClassifier(n_estimators=5, random_state=0).fit(X, y)
+    return bagwise.read_ensemble(forest, X[:10], X_train=X, y_train=y)
 
 
 def test_every_result_type_displays_a_compact_table_and_a_reading():

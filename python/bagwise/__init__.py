@@ -11,6 +11,7 @@ from .ensemble import BagClassifier, BagRegressor
 from .intervals import PredictionInterval, PredictionSet, prediction_interval
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
+from .read_ensemble import EnsembleArrays, read_ensemble
 from .replicates import ReplicateSpread, replicate_spread
 from .resampling import Resample, resample
 from .size_curve import SizeCurve, SizeCurveStream, size_curve, size_curve_stream
@@ -43,6 +44,7 @@ __all__ = [
     "Diversity",
     "diversity_stream",
     "DiversityStream",
+    "EnsembleArrays",
     "load",
     "out_of_bag",
     "out_of_bag_stream",
@@ -53,6 +55,7 @@ __all__ = [
     "PredictionSet",
     "prediction_variance",
     "PredictionVariance",
+    "read_ensemble",
     "replicate_spread",
     "ReplicateSpread",
     "Resample",

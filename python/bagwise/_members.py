@@ -16,6 +16,10 @@ same in every family. NaN and infinite predictions, and probabilities that do no
 are left to the core, which names the member and point.
 
 The limits are the core's (``src/members.rs``): `PROBABILITY_TOLERANCE` and `MAX_CLASSES`.
+
+In-bag ``counts`` have one reader too, `in_bag_counts`, used by every function that takes
+them: it refuses arrays that are not counts (row indices, boolean masks, transposed counts,
+floats) with a message saying what the array looks like and how to convert it.
 """
 
 from __future__ import annotations
@@ -30,7 +34,11 @@ __all__ = [
     "MAX_CLASSES",
     "PROBABILITY_TOLERANCE",
     "WEIGHT_TOLERANCE",
+    "CONVERT_INDICES",
+    "INDEX_DISPERSION",
+    "INDEX_MEAN",
     "as_array",
+    "in_bag_counts",
     "loss_for",
     "loss_option",
     "member_weights",
@@ -281,3 +289,168 @@ def loss_for(loss, kind: str) -> str:
             "n_classes); labels: integer (n_members, n_points))"
         )
     return loss
+
+
+#: How drawn row indices convert to in-bag counts (``indices``: one array of row indices per
+#: member, e.g. scikit-learn's ``estimators_samples_``).
+CONVERT_INDICES = "np.stack([np.bincount(idx, minlength=n_rows) for idx in indices])"
+#: `in_bag_counts` reads an array as drawn row indices when its entries average more than
+#: `INDEX_MEAN` with a variance above `INDEX_DISPERSION` times that mean. In-bag counts
+#: average the draws per training row (a bootstrap's ``fraction``, about 1; at most 1 for a
+#: subsample) with a variance close to their mean (a count of one row is about Poisson;
+#: common practice); row indices spread evenly over 0..n-1 average (n - 1)/2 with variance
+#: (n^2 - 1)/12, (n + 1)/6 times their mean, so index arrays of more than 12 training rows
+#: are caught, and counts of more than 4 draws per row pass when they are about as
+#: dispersed as a count. The one kind of real counts this refuses: draws of more than 4
+#: times the rows made with very unequal row weights (the weights add their own spread).
+INDEX_MEAN = 4.0
+INDEX_DISPERSION = 2.0
+
+
+def _counts_object(counts, name: str):
+    """``counts`` as an ndarray; a ``Resample`` gives its counts, a list of index arrays
+    of different lengths (a ragged ``estimators_samples_``) is refused with the fix."""
+    from .resampling import Resample
+
+    if isinstance(counts, Resample):
+        if counts.scheme == "bayesian":
+            raise TypeError(f"`{name}`: this Resample ({counts.scheme!r}) has continuous row "
+                            "weights, not in-bag counts; no row is ever out of bag")
+        return counts.counts
+    if isinstance(counts, (list, tuple)) and counts and all(
+            np.ndim(part) == 1 for part in counts):
+        lengths = {len(part) for part in counts}
+        if len(lengths) > 1:
+            raise TypeError(
+                f"`{name}`: got a list of {len(counts)} arrays of different lengths "
+                f"({min(lengths)}..{max(lengths)}): drawn row indices per member, not in-bag "
+                f"counts (one row per member, one column per training row); convert them "
+                f"with {CONVERT_INDICES}")
+    return as_array(counts, name)
+
+
+def _shape_text(shape) -> str:
+    return "(" + ", ".join(f"{n:,}" for n in shape) + ")"
+
+
+def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
+                  n_rows: int | None = None, members_from: str = "members",
+                  rows_from: str | None = None, min_members: int = 1, min_rows: int = 1,
+                  unsigned: bool = False, whole: bool = True) -> np.ndarray:
+    """The in-bag counts ``(n_members, n_rows)`` of an ensemble, checked to be counts.
+
+    The one reader of ``counts``: every function that takes them calls it, so the same
+    fault reads the same everywhere. Returns the array without a copy (a `Resample` gives
+    its ``counts``; a non-native byte order is converted once; with ``unsigned`` a signed
+    dtype is reinterpreted as the unsigned one of the same width).
+
+    ``n_members`` / ``n_rows`` are the members and training rows another argument fixes
+    (``members_from`` / ``rows_from`` name it in the message); ``whole`` says the counts
+    cover every training row (False for a chunk of a stream), which allows the check for
+    transposed counts when no other argument fixes the shape.
+
+    Refused, each with a message saying what the array looks like and how to convert it:
+
+    - a boolean dtype (a mask of in-bag or out-of-bag rows, not counts): ``TypeError``;
+    - a float dtype (weights, or counts read from a text file): ``TypeError``; any other
+      non-integer dtype: ``TypeError``;
+    - not 2-D, empty, fewer than ``min_members`` rows or ``min_rows`` columns, a negative
+      count: ``ValueError``;
+    - a shape that disagrees with ``n_members`` / ``n_rows``, said to be transposed when it
+      is ``(n_rows, n_members)``: ``ValueError``;
+    - drawn row indices ``(n_members, n_draws)``: entries averaging above `INDEX_MEAN` with
+      a variance above `INDEX_DISPERSION` times their mean: ``ValueError``;
+    - whole counts without ``n_members``, at least 3 x 3, whose rows sum to different
+      totals while every column sums to the number of rows, the fingerprint of bootstrap
+      counts ``(n_rows, n_members)`` (each member's column holds its ``n_rows`` draws):
+      ``ValueError``.
+
+    Accepted: any non-negative integers not looking like the above, among them bootstrap
+    counts of any ``fraction``, stratified, grouped and blocked draws (whose totals differ
+    between members), subsample and other 0/1 counts in an integer dtype.
+    """
+    array = _counts_object(counts, name)
+    dtype = array.dtype
+    if dtype == np.bool_:
+        raise TypeError(
+            f"`{name}`: is a boolean mask {_shape_text(array.shape)}, not in-bag counts "
+            "(how many times each member drew each training row). An in-bag mask of draws "
+            "without replacement converts with `mask.astype(np.int64)` (an out-of-bag mask "
+            "with `(~mask).astype(np.int64)`); a bootstrap mask has lost the repeats, so "
+            f"rebuild the counts from the drawn row indices with {CONVERT_INDICES}")
+    if dtype.kind == "f":
+        whole_numbers = bool(array.size) and bool(np.all(np.isfinite(array))) and bool(
+            np.all(array == np.round(array)))
+        hint = ("its values are whole numbers: convert with `counts.astype(np.int64)`"
+                if whole_numbers else
+                "its values are not whole numbers, so they are row weights (e.g. a Bayesian "
+                "bootstrap's), which have no out-of-bag rows and no counts")
+        raise TypeError(f"`{name}`: in-bag counts must be integers, got dtype {dtype}; {hint}")
+    if dtype.kind not in "iu":
+        raise TypeError(f"`{name}`: expected integer in-bag counts (n_members, n_rows), got "
+                        f"dtype {dtype}")
+    if array.ndim != 2:
+        hint = (f"; one member's counts are `counts[None, :]`, one member's drawn row "
+                f"indices convert with {CONVERT_INDICES}" if array.ndim == 1 else "")
+        raise ValueError(f"`{name}`: expected shape (n_members, n_rows), one row per member "
+                         f"and one column per training row, got {array.shape}{hint}")
+    if array.size == 0:
+        raise ValueError(f"`{name}`: is empty (shape {array.shape})")
+    if dtype.kind == "i":
+        low = array.min()
+        if low < 0:
+            member, row = np.unravel_index(int(np.argmin(array)), array.shape)
+            raise ValueError(f"`{name}`: in-bag counts must be non-negative, got {low} "
+                             f"(member {member}, row {row})")
+    rows, columns = array.shape
+    if n_members is not None and rows != n_members:
+        if columns == n_members and n_rows in (None, rows):
+            raise ValueError(
+                f"`{name}`: has shape {_shape_text(array.shape)} but `{members_from}` has "
+                f"{n_members:,} members: it looks transposed, one column per member "
+                f"(n_rows, n_members); pass `{name}.T` (one row per member)")
+        raise ValueError(f"`{name}`: has shape {_shape_text(array.shape)} but `{members_from}` "
+                         f"has {n_members:,} members (one row of counts per member)")
+    sums = array.sum(axis=1, dtype=np.float64)
+    mean = float(sums.sum()) / array.size
+    if mean > INDEX_MEAN and _variance(array, mean) > INDEX_DISPERSION * mean:
+        raise ValueError(
+            f"`{name}`: looks like drawn row indices, not in-bag counts: shape "
+            f"{_shape_text(array.shape)} with values spanning {array.min()}..{array.max()}, "
+            f"each member's row summing to about {sums.mean():,.0f} where in-bag counts sum "
+            f"to the member's draws (about {columns:,}, one per training row). Counts hold "
+            "how many times each member drew each training row, one column per row; "
+            f"convert indices with {CONVERT_INDICES}")
+    if n_rows is not None and columns != n_rows:
+        where = f"`{rows_from}` has" if rows_from else "expected"
+        raise ValueError(f"`{name}`: has shape {_shape_text(array.shape)} but {where} "
+                         f"{n_rows:,} training rows (one column of counts per row)")
+    # Two members (or two rows) make the fingerprint too likely by chance (e.g. grouped
+    # counts [[2, 0, 0], [0, 2, 2]]): it is read from three of each on.
+    if whole and n_members is None and rows > 2 and columns > 2 and np.any(sums != sums[0]):
+        totals = array.sum(axis=0, dtype=np.float64)
+        if np.all(totals == rows):
+            raise ValueError(
+                f"`{name}`: looks transposed: every column sums to {rows:,} (a member's "
+                f"draws from {rows:,} rows) while the rows sum to different totals, as "
+                f"bootstrap counts laid out (n_rows, n_members) do; pass `{name}.T` (one row "
+                "per member, one column per training row)")
+    if rows < min_members:
+        raise ValueError(f"`{name}`: needs at least {min_members} members, got {rows}")
+    if columns < min_rows:
+        raise ValueError(f"`{name}`: needs at least {min_rows} training rows, got {columns}")
+    if unsigned and dtype.kind == "i":
+        # Same width, reinterpreted: no copy (the counts are non-negative).
+        array = array.view(dtype.str.replace("i", "u"))
+    return array
+
+
+def _variance(array: np.ndarray, mean: float) -> float:
+    """Variance of the entries of an integer array, a block of members at a time (no
+    float64 copy of the whole array)."""
+    total = 0.0
+    step = max(1, (1 << 22) // max(1, array.shape[1]))
+    for start in range(0, array.shape[0], step):
+        block = array[start:start + step].astype(np.float64) - mean
+        total += float(np.einsum("ij,ij->", block, block))
+    return total / array.size

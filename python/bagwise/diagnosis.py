@@ -23,10 +23,11 @@ from typing import Any
 import numpy as np
 
 from ._display import html_block, safe_html, text_block
-from ._members import members_array, targets
+from ._members import in_bag_counts, members_array, targets
 from ._results import Result, check_tolerance
 from ._validation import n_jobs_value, rng_seed
 from ._warnings import once_per_call
+from .read_ensemble import EnsembleArrays, _targets
 from .sections import SECTIONS, TOLERANCE, Inputs
 from .sections._base import quiet
 
@@ -50,22 +51,22 @@ def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_
     y = targets(y, kind, n_points)
     if kind == "probabilities" and y.max() >= members.shape[2]:
         raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
-    if counts is not None:
-        counts = _array(counts, "counts")
-        if counts.dtype == np.bool_ or counts.dtype.kind not in "iu":
-            raise TypeError(f"`counts`: expected integer in-bag counts, got dtype {counts.dtype}")
-        if counts.ndim != 2 or counts.shape[0] != n_members:
-            raise ValueError(f"`counts`: expected shape ({n_members}, n_train) (one row per "
-                             f"member), got {counts.shape}")
     if (train_members is None) != (y_train is None):
         raise ValueError("`y_train`: give `train_members` and `y_train` together")
+    n_rows = None
     if train_members is not None:
         if counts is None:
             raise ValueError("`counts`: `train_members` needs the in-bag counts they were fit with")
         train_members = _array(train_members, "train_members")
-        if train_members.shape[:1] != (n_members,) or train_members.shape[1:2] != counts.shape[1:]:
-            raise ValueError(f"`train_members`: expected ({n_members}, {counts.shape[1]}, ...) to "
-                             f"match `counts`, got {train_members.shape}")
+        if train_members.ndim < 2 or train_members.shape[0] != n_members:
+            raise ValueError(f"`train_members`: expected ({n_members}, n_rows, ...) (one row per "
+                             f"member of `members`), got {train_members.shape}")
+        n_rows = train_members.shape[1]
+    if counts is not None:
+        # Members from `members`; training rows from `train_members` when given.
+        counts = in_bag_counts(counts, n_members=n_members, n_rows=n_rows,
+                               rows_from="train_members")
+    if train_members is not None:
         train_kind, _ = members_array(train_members, "train_members")
         if train_kind != kind:
             raise ValueError(f"`train_members`: holds {train_kind} but `members` holds {kind}")
@@ -96,12 +97,16 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
 
     Parameters
     ----------
-    members : array
+    members : array or EnsembleArrays
         The members' predictions at the points being diagnosed (usually a test set): float
         ``(members, n_points)`` values, float ``(members, n_points, n_classes)``
-        probabilities or integer ``(members, n_points)`` labels; at least 2 members.
+        probabilities or integer ``(members, n_points)`` labels; at least 2 members. Or
+        what `bagwise.read_ensemble` read from a fitted ensemble: its members, counts and
+        training-row predictions and targets are used (leave ``counts`` and
+        ``train_members`` out), and ``y`` is given as the model's class labels.
     y : array of shape (n_points,)
-        Targets at the points (class indices for classification).
+        Targets at the points (class indices for classification; the model's class labels
+        with an `EnsembleArrays`).
     counts : integer array of shape (members, n_train), optional
         The in-bag counts the members were fit with (e.g. ``bagwise.resample(...).counts`` or
         a fitted bag's ``in_bag_``). Enables the standard errors (``uncertainty``) and the
@@ -155,8 +160,39 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     >>> sorted(report.summary())
     ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
     """
+    if isinstance(members, EnsembleArrays):
+        return _diagnose_read(members, y, counts=counts, reference=reference,
+                              train_members=train_members, y_train=y_train, seed=rng,
+                              n_jobs=n_jobs)
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
                      train_y=y_train, seed=rng, n_jobs=n_jobs, members_are_training=None)
+
+
+def _diagnose_read(read, y, *, counts, reference, train_members, y_train, seed, n_jobs):
+    """`diagnose` of an `EnsembleArrays`: its members, counts and training-row predictions;
+    ``y`` (and a ``y_train`` it lacks) as class labels of the model, read through
+    ``read.class_codes``. Its members are never read as training-row predictions."""
+    for name, value in (("counts", counts), ("train_members", train_members)):
+        if value is not None:
+            raise ValueError(f"`{name}`: comes from the ensemble read (`members` is an "
+                             "EnsembleArrays); leave it out")
+    if y_train is not None and read.y_train is not None:
+        raise ValueError("`y_train`: comes from the ensemble read (`members` is an "
+                         "EnsembleArrays, read with y_train); leave it out")
+    if y_train is not None:
+        y_train = _targets(y_train, read.classes, "y_train")
+        if len(y_train) != read.n_rows:
+            raise ValueError(f"`y_train`: has {len(y_train):,} values but the ensemble was fit "
+                             f"on {read.n_rows:,} rows")
+    else:
+        y_train = read.y_train
+    train = read.train_members
+    if train is None or y_train is None:
+        # The out-of-bag error needs both; without them that section is left out.
+        train = y_train = None
+    return _diagnose(read.members, read.class_codes(y), counts=read.counts, reference=reference,
+                     train_members=train, train_y=y_train, seed=seed, n_jobs=n_jobs,
+                     members_are_training=False)
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,

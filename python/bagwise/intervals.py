@@ -12,6 +12,7 @@ from typing import ClassVar
 import numpy as np
 
 from . import _core
+from ._members import in_bag_counts
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -23,9 +24,6 @@ _SET_METHODS = ("least_ambiguous", "adaptive")
 
 # Relative guard on alpha * (n + 1) against round-off in alpha = 1 - level (as in the core).
 _RANK_GUARD = 1e-12
-
-# A member whose total in-bag count exceeds this many times n_rows is taken for row indices.
-_INDEX_FACTOR = 4
 
 
 def _rows_needed(level: float) -> int:
@@ -97,35 +95,8 @@ def _prediction_interval_iv(members, counts, train_members, y_train, level, meth
         members = members.astype(np.float64, copy=False)
         train_members = train_members.astype(np.float64, copy=False)
 
-    counts = counts if isinstance(counts, np.ndarray) else np.asarray(counts)
-    if counts.dtype.kind not in "iu":
-        raise TypeError(
-            f"`counts`: expected integer in-bag counts (n_members, n_rows), got dtype {counts.dtype}"
-        )
-    if counts.ndim != 2 or counts.shape[0] != n_members:
-        raise ValueError(
-            f"`counts`: expected shape ({n_members}, {n_rows}) = (n_members, n_rows), got {counts.shape}"
-        )
-    hint = (
-        "; `counts` are in-bag counts per training row, not row indices: convert indices with "
-        "np.bincount(indices, minlength=n_rows) per member"
-    )
-    if counts.shape[1] != n_rows:
-        raise ValueError(
-            f"`counts`: has {counts.shape[1]} columns but `train_members` has {n_rows} rows{hint}"
-        )
-    if counts.dtype.kind == "i":
-        if counts.size and counts.min() < 0:
-            raise ValueError("`counts`: in-bag counts must be non-negative")
-        counts = counts.view(counts.dtype.str.replace("i", "u"))
-    if not counts.dtype.isnative:
-        counts = counts.astype(counts.dtype.newbyteorder("="))
-    totals = counts.sum(axis=1, dtype=np.float64)
-    if np.any(totals > _INDEX_FACTOR * n_rows):
-        raise ValueError(
-            f"`counts`: a member's total count is {totals.max():.0f}, more than {_INDEX_FACTOR} "
-            f"times n_rows = {n_rows}{hint}"
-        )
+    counts = in_bag_counts(counts, n_members=n_members, n_rows=n_rows, rows_from="train_members",
+                           unsigned=True)
     used = np.any(counts == 0, axis=0)
     if not np.any(used):
         raise ValueError(

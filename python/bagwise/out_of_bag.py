@@ -9,7 +9,7 @@ import math
 import numpy as np
 
 from . import _core
-from ._members import as_array, members_array, n_classes_of, targets
+from ._members import as_array, in_bag_counts, members_array, n_classes_of, targets
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -54,28 +54,19 @@ def _loss_iv(loss, task):
     return loss
 
 
-def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earlier_kind=None):
+def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earlier_kind=None,
+                   whole=True):
     """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core.
-    ``earlier_kind``: the kind of a stream's earlier chunks, which this one must match."""
-    from .resampling import Resample
-
+    ``earlier_kind``: the kind of a stream's earlier chunks, which this one must match;
+    ``whole``: False for a stream's chunk (the counts of some training rows only)."""
     kind, members = members_array(members)
     kind = _core_kind(kind)
     if earlier_kind is not None and kind != earlier_kind:
         raise ValueError(f"`members`: holds {kind} but earlier chunks held {earlier_kind}")
-    if isinstance(counts, Resample):
-        counts = counts.counts
-    counts = as_array(counts, "counts")
-    if counts.dtype.kind not in "iu":
-        raise TypeError(
-            f"`counts`: expected integer in-bag counts (zero = out of bag), got dtype {counts.dtype}"
-        )
-    if counts.shape != members.shape[:2]:
-        raise ValueError(
-            f"`counts`: has shape {counts.shape} but `members` has (members, n_points) = "
-            f"{members.shape[:2]}"
-        )
     n_members, n_points = members.shape[:2]
+    # The members are the training rows' predictions: one column of counts per point.
+    counts = in_bag_counts(counts, n_members=n_members, n_rows=n_points, rows_from="members",
+                           whole=whole)
     if members.dtype.kind == "f":
         missing = ~np.isfinite(members)
         if missing.any():
@@ -243,7 +234,7 @@ class OutOfBagStream:
         chunk's points (e.g. ``members[:, a:b]`` of a memory map). Returns the stream."""
         (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
          sizes) = _out_of_bag_iv(members, counts, y, self._loss, point_weights, self._n_jobs,
-                                 self._sizes, earlier_kind=self._kind)
+                                 self._sizes, earlier_kind=self._kind, whole=False)
         self._check_compatible(kind, members.shape[0],
                                members.shape[2] if kind == "probabilities" else None)
         state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,

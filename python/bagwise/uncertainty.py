@@ -41,21 +41,9 @@ STATUSES = ("steady", "noisy", "not estimable")
 
 
 def _counts_iv(counts) -> np.ndarray:
-    counts = np.asarray(counts)
-    if counts.dtype == np.bool_ or counts.dtype.kind not in "iu":
-        raise TypeError(f"`counts`: expected integer in-bag counts, got dtype {counts.dtype}")
-    if counts.ndim != 2:
-        raise ValueError(f"`counts`: expected shape (n_members, n_rows), got {counts.shape}")
-    if counts.shape[0] < 2:
-        raise ValueError(f"`counts`: needs at least 2 members, got {counts.shape[0]}")
-    if counts.shape[1] < 2:
-        raise ValueError(f"`counts`: needs at least 2 training rows, got {counts.shape[1]}")
-    if counts.dtype.kind == "i":
-        if counts.size and counts.min() < 0:
-            raise ValueError("`counts`: in-bag counts cannot be negative")
-        # Same width, reinterpreted: no copy.
-        counts = counts.view(counts.dtype.str.replace("i", "u"))
-    return counts
+    from ._members import in_bag_counts
+
+    return in_bag_counts(counts, min_members=2, min_rows=2, unsigned=True)
 
 
 def _members_iv(members, n_members: int) -> tuple[np.ndarray, tuple[int, ...]]:
