@@ -456,9 +456,9 @@ FITTED_ELSEWHERE = [
     say how often each member drew each row.
 
     Here the ensemble is scikit-learn's `BaggingRegressor` of regression trees on the
-    diabetes data bundled with scikit-learn. You will learn to pull those two arrays out of
-    it and get its out-of-bag error, decomposition, size curve, member correlation and
-    standard errors.
+    diabetes data bundled with scikit-learn. You will learn to read those arrays off it in
+    one call and get its out-of-bag error, decomposition, size curve, member correlation,
+    standard errors and prediction intervals.
     """),
     code("""
     import numpy as np
@@ -476,21 +476,17 @@ FITTED_ELSEWHERE = [
     print(f"{len(ensemble.estimators_)} trees, {len(y_train)} training rows, {len(y_test)} test rows")
     """),
     md("""
-    ## The two arrays
+    ## The arrays, in one call
 
-    `estimators_samples_` lists the rows each member drew, with repeats; counting them
-    gives the in-bag counts. Each member predicts on the features it was given.
+    `bagwise.read_ensemble` reads them off the fitted model: the in-bag counts from the rows
+    each member drew (`estimators_samples_`, with repeats), and each member's predictions
+    on the features it was given, at the test rows and at the training rows.
     """),
     code("""
-    n_train = len(y_train)
-    counts = np.stack([np.bincount(rows, minlength=n_train) for rows in ensemble.estimators_samples_])
-
-    def member_predictions(X):
-        return np.stack([tree.predict(X[:, features]) for tree, features
-                         in zip(ensemble.estimators_, ensemble.estimators_features_)])
-
-    train_members, test_members = member_predictions(X_train), member_predictions(X_test)
+    arrays = bagwise.read_ensemble(ensemble, X_test, X_train=X_train, y_train=y_train)
+    counts, test_members, train_members = arrays.counts, arrays.members, arrays.train_members
     print("counts", counts.shape, "train", train_members.shape, "test", test_members.shape)
+    arrays
     """),
     md("""
     ## Out-of-bag error
@@ -530,19 +526,28 @@ FITTED_ELSEWHERE = [
     """),
     code("""
     se = bagwise.prediction_variance(test_members, counts)
-    print(f"median standard error: {np.median(se.std_error):.2f} "
-          f"(target standard deviation {y.std():.1f})")
+    print(se.status_counts(), "members for steady estimates:", se.members_needed())
     se
+    """),
+    md("""
+    Each estimate carries its Monte-Carlo noise and a status; a standard error that is not
+    steady is reported as such rather than as a number. For a new patient's outcome, the
+    interval to use is the prediction interval, calibrated on the out-of-bag residuals:
+    """),
+    code("""
+    interval = bagwise.prediction_interval(test_members, counts, train_members, y_train, level=0.9)
+    print(f"share of test outcomes inside the 90% interval: {interval.coverage(y_test):.3f}")
+    interval
     """),
     md("""
     ## Reading the result
 
-    The out-of-bag predictions are exactly scikit-learn's, so the arrays were read right.
+    The out-of-bag predictions are scikit-learn's own, so the arrays were read right.
     The members' errors are strongly shared (high residual correlation), which is why
     averaging removes only part of their loss and why a few dozen members already come
-    close to the infinite ensemble. The standard errors are small next to the spread of the
-    target: most of the remaining error is not the ensemble's variance but what the ten
-    measurements cannot explain.
+    close to the infinite ensemble. The prediction interval is wide next to the standard
+    errors of the ensemble's mean: most of the remaining error is not the ensemble's
+    variance but what the ten measurements cannot explain.
     """),
 ]
 
