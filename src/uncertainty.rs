@@ -685,10 +685,12 @@ mod tests {
 
     #[test]
     fn gram_is_exact_and_symmetric() {
-        let counts = draw(20_000, 40, Scheme::Bootstrap, 1.0);
+        // More rows than one COLUMN_BLOCK and more members than one TILE, so the block sums
+        // and the tile seams are both exercised.
+        let counts = draw(COLUMN_BLOCK + 1_000, TILE + 5, Scheme::Bootstrap, 1.0);
         let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
-        for a in [0, 7, 39] {
-            for b in [0, 16, 33] {
+        for a in [0, 7, TILE + 4] {
+            for b in [0, TILE, TILE + 1] {
                 let exact: u64 = counts
                     .row(a)
                     .iter()
@@ -757,7 +759,11 @@ mod tests {
         for column in 0..2 {
             let squares = sum_of_squares(&x.column(column).to_vec());
             assert_relative_eq!(ij.raw[column], squares / (nf * nf), max_relative = 1e-10);
-            assert_relative_eq!(jk.raw[column], squares / (nf * (nf - 1.0)), max_relative = 1e-10);
+            assert_relative_eq!(
+                jk.raw[column],
+                squares / (nf * (nf - 1.0)),
+                max_relative = 1e-10
+            );
             // the corrections subtract a positive amount
             assert!(ij.correction[column] > 0.0 && jk.correction[column] > 0.0);
         }
@@ -770,7 +776,9 @@ mod tests {
         // scale ((n − 1)/n)(n/(n − s))² (Wager & Athey 2018) turns Σ_i Cov² into
         // Σ(x − x̄)²/(n(n − 1)), the unbiased variance of the mean (module docs).
         let (n, s) = (8usize, 3usize);
-        let subsets: Vec<u32> = (0u32..1 << n).filter(|m| m.count_ones() == s as u32).collect();
+        let subsets: Vec<u32> = (0u32..1 << n)
+            .filter(|m| m.count_ones() == s as u32)
+            .collect();
         assert_eq!(subsets.len(), 56);
         let counts = Array2::from_shape_fn((subsets.len(), n), |(m, i)| {
             u8::from(subsets[m] >> i & 1 == 1)
