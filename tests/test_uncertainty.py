@@ -404,7 +404,7 @@ def bagged_statistics(seed, *, method, n, n_members, sets, points, draws=None):
 #: raw estimate (n/B of the truth for the IJ) and the estimator's own bias stays small.
 MONTE_CARLO_CASES = {
     "ij": dict(method="ij", n=400, n_members=200, sets=24, points=4),
-    "jackknife": dict(method="jackknife", n=100, n_members=300, sets=24, points=6),
+    "jackknife": dict(method="jackknife", n=100, n_members=300, sets=48, points=3),
     "subsample ij": dict(method="ij", n=400, n_members=400, sets=24, points=4, draws=200),
 }
 

@@ -55,7 +55,8 @@ def main():
     parser.add_argument("--first", type=int, default=1000, help="first seed")
     parser.add_argument("--cases", default=",".join(CHECKS))
     args = parser.parse_args()
-    print(f"Z = {uncertainty.Z}; seeds {args.first}..{args.first + args.seeds - 1}", flush=True)
+    print(f"Z = {uncertainty.Z} (test_uncertainty), {replicates.Z} (test_replicates); "
+          f"seeds {args.first}..{args.first + args.seeds - 1}", flush=True)
     for case in args.cases.split(","):
         started = time.perf_counter()
         runs = [CHECKS[case](seed) for seed in range(args.first, args.first + args.seeds)]
