@@ -12,6 +12,8 @@ The functions without the prefix compute the numbers a figure shows.
 - `plot_decomposition`, `plot_ambiguity_by_point`: what averaging removed;
 - `plot_error_vs_std_error`, `plot_interval_coverage`: standard errors checked against the
   observed errors; `plot_rho`, `plot_between_within`: the between/within variance split;
+- `plot_prediction_coverage`: prediction intervals (or class sets) for a new observation
+  checked against test targets, by interval width (or set size);
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
 - `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
 - `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members.
@@ -21,6 +23,7 @@ from .classification import margins, plot_margins, plot_reliability, reliability
 from .correlation import member_order, plot_correlation_matrix
 from .decomposition import plot_ambiguity_by_point, plot_decomposition
 from .diversity import kappa_error_points, plot_kappa_error
+from .intervals import plot_prediction_coverage, prediction_coverage
 from .size_curve import plot_size_curve
 from .uncertainty import (
     binned_coverage,
@@ -37,6 +40,7 @@ __all__ = [
     "kappa_error_points",
     "margins",
     "member_order",
+    "prediction_coverage",
     "plot_ambiguity_by_point",
     "plot_between_within",
     "plot_correlation_matrix",
@@ -45,6 +49,7 @@ __all__ = [
     "plot_interval_coverage",
     "plot_kappa_error",
     "plot_margins",
+    "plot_prediction_coverage",
     "plot_reliability",
     "plot_rho",
     "plot_size_curve",
