@@ -24,7 +24,8 @@ use crate::out_of_bag::CountValue;
 use crate::parallel::{Monitor, Pool};
 use crate::random::MemberStreams;
 
-/// Test points per task of the out-of-bag residual interval and of the class sets.
+/// Test points per task (jackknife+ works through them in sub-chunks of
+/// [`LEAVE_OUT_CHUNK`]).
 const POINT_CHUNK: usize = 256;
 
 /// Relative guard on `α (n + 1)` against round-off in `α = 1 − level`.
@@ -115,14 +116,21 @@ pub fn rows_needed(level: f64) -> Result<usize> {
 ///
 /// # Errors
 /// `n_rows` zero; `draws` zero, or above `n_rows` without replacement.
-pub fn member_count_probability(n_rows: usize, draws: usize, with_replacement: bool) -> Result<f64> {
+pub fn member_count_probability(
+    n_rows: usize,
+    draws: usize,
+    with_replacement: bool,
+) -> Result<f64> {
     if n_rows == 0 {
         return Err(Error::value("n_rows", "must be at least 1"));
     }
     if draws == 0 || (!with_replacement && draws > n_rows) {
         return Err(Error::value(
             "draws",
-            format!("must lie in 1..={} rows per member, got {draws}", if with_replacement { usize::MAX } else { n_rows }),
+            format!(
+                "must lie in 1..={} rows per member, got {draws}",
+                if with_replacement { usize::MAX } else { n_rows }
+            ),
         ));
     }
     let n1 = n_rows as f64 + 1.0;
@@ -257,22 +265,12 @@ fn kth_of(
     let (means, residuals) = (&means[..len], &residuals[..len]);
     let pairs = || means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r);
     if len >= SAMPLED_SELECTION {
-        let step = (len as f64).cbrt() as usize;
-        scratch.clear();
-        scratch.extend(
-            (0..len)
-                .step_by(step)
-                .map(|i| means[i] + sign * residuals[i]),
-        );
-        let s = scratch.len();
-        let position = k * s / len;
-        let p = k as f64 / len as f64;
-        let gap = (5.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 8;
-        let lo = kth_smallest(scratch, position.saturating_sub(gap));
-        let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+        let (lo, hi) = bracket(means, residuals, sign, k, scratch);
         // branch-free pass: every value is stored, the slot advances only when it is kept
-        kept.clear();
-        kept.resize(len + 1, 0.0);
+        if kept.len() < len + 1 {
+            // every slot is written before it is read, so the buffer is only ever grown
+            kept.resize(len + 1, 0.0);
+        }
         let (mut below, mut n_kept) = (0, 0);
         for v in pairs() {
             below += usize::from(v < lo);
@@ -286,6 +284,85 @@ fn kth_of(
     scratch.clear();
     scratch.extend(pairs());
     kth_smallest(scratch, k)
+}
+
+/// The bracket `[lo, hi]` of [`kth_of`]: two order statistics of a strided sample of about
+/// `n^(2/3)` of the values `means[i] + sign · residuals[i]`, around the sample rank of `k`.
+fn bracket(
+    means: &[f64],
+    residuals: &[f64],
+    sign: f64,
+    k: usize,
+    scratch: &mut Vec<f64>,
+) -> (f64, f64) {
+    let len = means.len();
+    let step = (len as f64).cbrt() as usize;
+    scratch.clear();
+    scratch.extend(
+        (0..len)
+            .step_by(step)
+            .map(|i| means[i] + sign * residuals[i]),
+    );
+    let s = scratch.len();
+    let position = k * s / len;
+    let p = k as f64 / len as f64;
+    let gap = (5.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 8;
+    let lo = kth_smallest(scratch, position.saturating_sub(gap));
+    let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+    (lo, hi)
+}
+
+/// Both jackknife+ bounds at one point: [`kth_of`] of `means − residuals` at rank
+/// `k_lower` and of `means + residuals` at rank `k_upper` (0-based), with one pass over
+/// the values for the two brackets. The same exact order statistics as two calls.
+fn bounds_of(
+    means: &[f64],
+    residuals: &[f64],
+    (k_lower, k_upper): (usize, usize),
+    scratch: &mut Vec<f64>,
+    kept: &mut [Vec<f64>; 2],
+) -> (f64, f64) {
+    let len = means.len().min(residuals.len());
+    let (means, residuals) = (&means[..len], &residuals[..len]);
+    if len < SAMPLED_SELECTION {
+        return (
+            kth_of(means, residuals, -1.0, k_lower, scratch, &mut kept[0]),
+            kth_of(means, residuals, 1.0, k_upper, scratch, &mut kept[1]),
+        );
+    }
+    let (lo_a, hi_a) = bracket(means, residuals, -1.0, k_lower, scratch);
+    let (lo_b, hi_b) = bracket(means, residuals, 1.0, k_upper, scratch);
+    for buffer in kept.iter_mut() {
+        if buffer.len() < len + 1 {
+            // every slot is written before it is read, so the buffer is only ever grown
+            buffer.resize(len + 1, 0.0);
+        }
+    }
+    let [kept_a, kept_b] = kept;
+    let (mut below_a, mut n_a, mut below_b, mut n_b) = (0, 0, 0, 0);
+    // branch-free pass: every value is stored, the slot advances only when it is kept
+    for (&mu, &r) in means.iter().zip(residuals) {
+        let (a, b) = (mu - r, mu + r);
+        below_a += usize::from(a < lo_a);
+        kept_a[n_a] = a;
+        n_a += usize::from(a >= lo_a && a <= hi_a);
+        below_b += usize::from(b < lo_b);
+        kept_b[n_b] = b;
+        n_b += usize::from(b >= lo_b && b <= hi_b);
+    }
+    let mut select = |sign: f64, k: usize, below: usize, n_kept: usize, kept: &mut Vec<f64>| {
+        if below <= k && k < below + n_kept {
+            kth_smallest(&mut kept[..n_kept], k - below)
+        } else {
+            scratch.clear();
+            scratch.extend(means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r));
+            kth_smallest(scratch, k)
+        }
+    };
+    (
+        select(-1.0, k_lower, below_a, n_a, kept_a),
+        select(1.0, k_upper, below_b, n_b, kept_b),
+    )
 }
 
 /// Runs `task(start, lower_chunk, upper_chunk)` over chunks of `chunk` points on the
@@ -399,19 +476,27 @@ pub fn prediction_interval<C: CountValue, T: Real>(
             let mut scores = residuals;
             let q = kth_smallest(&mut scores, upper_rank - 1);
             calibration.threshold = q;
-            over_point_chunks(lower, upper, 1, POINT_CHUNK, pool, monitor, |start, lo, up| {
-                for (j, (l, u)) in lo.iter_mut().zip(up.iter_mut()).enumerate() {
-                    let mean = members
-                        .column(start + j)
-                        .iter()
-                        .map(|t| t.to_f64())
-                        .sum::<f64>()
-                        / n_members as f64;
-                    *l = mean - q;
-                    *u = mean + q;
-                }
-                Ok(())
-            })?;
+            over_point_chunks(
+                lower,
+                upper,
+                1,
+                POINT_CHUNK,
+                pool,
+                monitor,
+                |start, lo, up| {
+                    for (j, (l, u)) in lo.iter_mut().zip(up.iter_mut()).enumerate() {
+                        let mean = members
+                            .column(start + j)
+                            .iter()
+                            .map(|t| t.to_f64())
+                            .sum::<f64>()
+                            / n_members as f64;
+                        *l = mean - q;
+                        *u = mean + q;
+                    }
+                    Ok(())
+                },
+            )?;
         }
         IntervalMethod::JackknifePlus => {
             let lists = OutOfBagLists::new(counts, &used, &n_out)?;
@@ -420,7 +505,7 @@ pub fn prediction_interval<C: CountValue, T: Real>(
                 lower,
                 upper,
                 1,
-                LEAVE_OUT_CHUNK,
+                POINT_CHUNK,
                 pool,
                 monitor,
                 |start, lo, up| {
@@ -448,7 +533,11 @@ struct OutOfBagLists {
 }
 
 impl OutOfBagLists {
-    fn new<C: CountValue>(counts: ArrayView2<'_, C>, used: &[usize], n_out: &[usize]) -> Result<Self> {
+    fn new<C: CountValue>(
+        counts: ArrayView2<'_, C>,
+        used: &[usize],
+        n_out: &[usize],
+    ) -> Result<Self> {
         let total: usize = used.iter().map(|&i| n_out[i]).sum();
         let mut members = zeroed::<u32>(total, "counts")?;
         let mut starts = zeroed::<usize>(used.len() + 1, "counts")?;
@@ -472,13 +561,13 @@ impl OutOfBagLists {
     }
 }
 
-/// Points per jackknife+ task: the kernel keeps one row's leave-out means at this many
-/// points in registers (8 AVX2 vectors), and the chunk's member predictions
+/// Points per jackknife+ sub-chunk: the kernel keeps one row's leave-out means at this
+/// many points in registers (8 AVX2 vectors), and the sub-chunk's member predictions
 /// (`n_members × LEAVE_OUT_CHUNK` f64) stay in the level-2 cache.
 const LEAVE_OUT_CHUNK: usize = 32;
 
 /// Leave-out means of every calibration row at the `P` points of a chunk:
-/// `means[j · n + u] = (Σ_{m ∈ O_u} values[m · P + j]) / |O_u|`, the sum in increasing `m`.
+/// `means[j · n + u] = (Σ_{m ∈ O_u} values[m][j]) · (1 / |O_u|)`, the sum in increasing `m`.
 ///
 /// Only the out-of-bag members of each row are added (about `e⁻¹` of them for the
 /// bootstrap), so the work is a third of the dense product `(P × M) · (M × n)` with the
@@ -495,9 +584,9 @@ fn leave_out_means<const P: usize>(lists: &OutOfBagLists, values: &[[f64; P]], m
                 acc[k] += row[k];
             }
         }
-        let count = (to - from) as f64;
+        let share = 1.0 / (to - from) as f64;
         for (k, a) in acc.iter().enumerate() {
-            means[k * n + u] = a / count;
+            means[k * n + u] = a * share;
         }
     }
 }
@@ -530,9 +619,10 @@ unsafe fn leave_out_means_avx2<const P: usize>(
     leave_out_means(lists, values, means)
 }
 
-/// Jackknife+ bounds of one chunk of at most [`LEAVE_OUT_CHUNK`] points starting at
-/// `start`: the chunk's leave-out means (`LEAVE_OUT_CHUNK × n` f64), then two order
-/// statistics per point by selection.
+/// Jackknife+ bounds of one task's points starting at `start`, in sub-chunks of
+/// [`LEAVE_OUT_CHUNK`] points that share one buffer of leave-out means
+/// (`LEAVE_OUT_CHUNK × n` f64): the sub-chunk's means, then two order statistics per point
+/// by selection.
 fn leave_out_chunk<T: Real>(
     members: ArrayView2<'_, T>,
     lists: &OutOfBagLists,
@@ -544,26 +634,27 @@ fn leave_out_chunk<T: Real>(
 ) -> Result<()> {
     const P: usize = LEAVE_OUT_CHUNK;
     let n = lists.len();
-    let len = lower.len();
     let mut values = vec![[0.0f64; P]; members.nrows()];
-    for (row, member) in values.iter_mut().zip(members.outer_iter()) {
-        for (j, v) in row.iter_mut().take(len).enumerate() {
-            *v = member[start + j].to_f64();
-        }
-    }
     let mut means = zeroed::<f64>(P * n, "members")?;
-    leave_out_means_dispatch::<P>(lists, &values, &mut means);
-    let (mut scratch, mut kept) = (Vec::new(), Vec::new());
-    for (j, row) in means.chunks_exact(n).take(len).enumerate() {
-        lower[j] = kth_of(
-            row,
-            residuals,
-            -1.0,
-            lower_rank - 1,
-            &mut scratch,
-            &mut kept,
-        );
-        upper[j] = kth_of(row, residuals, 1.0, upper_rank - 1, &mut scratch, &mut kept);
+    let (mut scratch, mut kept) = (Vec::new(), [Vec::new(), Vec::new()]);
+    for (c, (lower, upper)) in lower.chunks_mut(P).zip(upper.chunks_mut(P)).enumerate() {
+        let first = start + c * P;
+        let len = lower.len();
+        for (row, member) in values.iter_mut().zip(members.outer_iter()) {
+            for (j, v) in row.iter_mut().take(len).enumerate() {
+                *v = member[first + j].to_f64();
+            }
+        }
+        leave_out_means_dispatch::<P>(lists, &values, &mut means);
+        for (j, row) in means.chunks_exact(n).take(len).enumerate() {
+            (lower[j], upper[j]) = bounds_of(
+                row,
+                residuals,
+                (lower_rank - 1, upper_rank - 1),
+                &mut scratch,
+                &mut kept,
+            );
+        }
     }
     Ok(())
 }
@@ -697,7 +788,7 @@ fn class_score(p: &[f64], k: usize, method: SetMethod) -> f64 {
 mod tests {
     use super::*;
     use crate::parallel::{Silent, Threads};
-    use ndarray::{array, Array1, Array3};
+    use ndarray::{array, Array1, Array2, Array3};
 
     fn pool(threads: usize) -> Pool {
         Threads::Fixed(threads).pool().unwrap()
@@ -980,8 +1071,11 @@ mod tests {
     fn leave_out_means_match_a_direct_sum() {
         // both compiled versions against the definition, point by point
         let (n_members, n_rows) = (11, 37);
-        let counts = Array2::from_shape_fn((n_members, n_rows), |(m, i)| ((m * 5 + i * 3) % 4) as u8);
-        let n_out: Vec<usize> = (0..n_rows).map(|i| counts.column(i).iter().filter(|&&c| c == 0).count()).collect();
+        let counts =
+            Array2::from_shape_fn((n_members, n_rows), |(m, i)| ((m * 5 + i * 3) % 4) as u8);
+        let n_out: Vec<usize> = (0..n_rows)
+            .map(|i| counts.column(i).iter().filter(|&&c| c == 0).count())
+            .collect();
         let used: Vec<usize> = (0..n_rows).filter(|&i| n_out[i] > 0).collect();
         let lists = OutOfBagLists::new(counts.view(), &used, &n_out).unwrap();
         const P: usize = LEAVE_OUT_CHUNK;
@@ -995,8 +1089,11 @@ mod tests {
         assert_eq!(plain, fast);
         for (u, &i) in used.iter().enumerate() {
             for j in 0..P {
-                let sum: f64 = (0..n_members).filter(|&m| counts[[m, i]] == 0).map(|m| values[m][j]).sum();
-                assert_eq!(plain[j * n + u], sum / n_out[i] as f64);
+                let sum: f64 = (0..n_members)
+                    .filter(|&m| counts[[m, i]] == 0)
+                    .map(|m| values[m][j])
+                    .sum();
+                assert_eq!(plain[j * n + u], sum * (1.0 / n_out[i] as f64));
             }
         }
     }
@@ -1026,6 +1123,21 @@ mod tests {
                         let got = kth_of(means, &residuals, sign, k, &mut scratch, &mut kept);
                         assert_eq!(got, all[k]);
                     }
+                }
+                for (k_lower, k_upper) in
+                    [(0, len - 1), (len / 10, len - len / 10), (len / 2, len / 2)]
+                {
+                    let mut pair = [Vec::new(), Vec::new()];
+                    let got = bounds_of(
+                        means,
+                        &residuals,
+                        (k_lower, k_upper),
+                        &mut scratch,
+                        &mut pair,
+                    );
+                    let one = kth_of(means, &residuals, -1.0, k_lower, &mut scratch, &mut kept);
+                    let other = kth_of(means, &residuals, 1.0, k_upper, &mut scratch, &mut kept);
+                    assert_eq!(got, (one, other));
                 }
             }
         }

@@ -577,8 +577,8 @@ def test_random_member_count_is_binomial_and_the_wrong_probability_fails():
 
 
 def test_a_bag_with_a_random_member_count():
-    X, y = load_diabetes(return_X_y=True)
-    X, y = X[:120], y[:120]
+    X_all, y_all = load_diabetes(return_X_y=True)
+    X, y = X_all[:120], y_all[:120]
     bag = bagwise.BagRegressor("tree", n_members=50, random_state=4, random_member_count=True)
     assert bag.get_params()["random_member_count"] is True
     from sklearn.base import clone
@@ -594,6 +594,11 @@ def test_a_bag_with_a_random_member_count():
     interval = bag.prediction_interval(X[:5], level=0.8)
     assert "at least 1 - 2 alpha = 0.6" in interval.guarantee
     assert "does not formally hold" not in interval.guarantee
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+        diagnosis = bag.diagnose(X_all[120:200], y_all[120:200])
+    assert diagnosis.intervals.guarantee == bag.prediction_interval(X_all[:3], level=0.9).guarantee
+    assert diagnosis.intervals.guarantee.startswith("Guaranteed")
     fixed = bagwise.BagRegressor("tree", n_members=20, random_state=4).fit(X, y)
     assert "does not formally hold" in fixed.prediction_interval(X[:5], level=0.8).guarantee
     members, counts, train_members, y_train = random_inputs(3)
@@ -632,7 +637,8 @@ def test_diagnose_reports_the_interval_and_its_coverage():
         math.sqrt(inside.mean() * (1 - inside.mean()) / len(y_test)), rel=1e-12)
     assert summary["mean_width"] == pytest.approx(np.mean(direct.upper - direct.lower), rel=1e-12)
     text = repr(diagnosis)
-    assert "for a new observation" in text and "of the mean" not in text.split("Prediction intervals")[1].split("\n\n")[0]
+    block = text.split("Prediction intervals")[1].split("\n\n")[0]
+    assert "for a new observation" in block and "of the mean" not in block
     page = diagnosis.to_html()
     assert "share of new observations inside their 90% interval" in page
 

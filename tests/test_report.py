@@ -108,8 +108,8 @@ def test_report_embeds_every_figure_and_fetches_nothing(page):
     parsed = Page(page)
     images = parsed.images()
     # decomposition (2), size curve (1), correlation heatmap (1), standard errors (2),
-    # between/within (2)
-    assert len(images) == 8
+    # prediction-interval coverage (1), between/within (2)
+    assert len(images) == 9
     for src in images:
         assert src.startswith("data:image/png;base64,")
         assert base64.b64decode(src.split(",", 1)[1]).startswith(PNG_SIGNATURE)
@@ -279,6 +279,7 @@ def test_report_of_a_fitted_bag_has_every_figure():
     report = bag.diagnose(X[100:], y[100:])
     parsed = Page(report.to_html())
     # as `diagnose` on the same arrays: decomposition (2), size curve (1), standard errors
-    # (2), between/within (2); no heatmap for 400 members (more than 300)
-    assert len(parsed.images()) == 7
+    # (2), prediction-interval coverage (1, from the bag's out-of-bag training predictions),
+    # between/within (2); no heatmap for 400 members (more than 300)
+    assert len(parsed.images()) == 8
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words

@@ -537,10 +537,15 @@ class _Bag(BaseEstimator):
         from .intervals import _prediction_interval
 
         train_members, target = self._training_members(X_train, y_train)
-        randomised = self.__dict__.get("_counted_at_random", self.random_member_count)
         return _prediction_interval(self.member_predictions(X), self.in_bag_, train_members,
                                     target, level=level, method=method, n_jobs=self.n_jobs,
-                                    member_count="random" if randomised else "fixed")
+                                    member_count=self._member_count())
+
+    def _member_count(self) -> str:
+        """``"random"`` when the fit drew its number of members (``random_member_count``),
+        else ``"fixed"`` (see `bagwise.intervals._guarantee`)."""
+        randomised = self.__dict__.get("_counted_at_random", self.random_member_count)
+        return "random" if randomised else "fixed"
 
     def spread(self, X):
         """Between/within split of the members' variance at ``X`` (`bagwise.spread`; the
@@ -588,7 +593,8 @@ class _Bag(BaseEstimator):
                 train_members, train_y = self._training_members(X_train, y_train)
         return _diagnose(members, target, counts=counts, reference=reference,
                          train_members=train_members, train_y=train_y, seed=0,
-                         n_jobs=self.n_jobs, members_are_training=False)
+                         n_jobs=self.n_jobs, members_are_training=False,
+                         member_count=self._member_count())
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""

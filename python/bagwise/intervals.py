@@ -176,20 +176,19 @@ def _guarantee(method: str, level: float, member_count: str | None = None) -> st
     known: arrays from elsewhere)."""
     alpha = 1.0 - level
     if method == "jackknife+":
-        bound = (f"at least 1 - 2 alpha = {1 - 2 * alpha:.4g} for a new observation "
-                 "exchangeable with the training rows")
-        theorem = ("Kim, Xu & Barber (2020, Theorem 1) prove it when the number of members is "
-                   "drawn at random (Binomial, their Algorithm 1)")
+        claim = ("a new observation exchangeable with the training rows falls in its interval "
+                 f"with probability at least 1 - 2 alpha = {1 - 2 * alpha:.4g}")
+        typical = f"coverage near {level:.4g} is typical"
         if member_count == "random":
-            return (f"The interval covers a new observation with probability {bound}: the "
-                    "number of members was drawn at random (Binomial), as Kim, Xu & Barber "
-                    f"(2020, Theorem 1) require; coverage near {level:.4g} is typical.")
+            return (f"Guaranteed: {claim}, since the number of members was drawn at random "
+                    f"(Binomial), as Kim, Xu & Barber (2020, Theorem 1) require; {typical}.")
+        proof = ("Kim, Xu & Barber (2020, Theorem 1) prove it for a number of members drawn at "
+                 "random (Binomial, their Algorithm 1)")
         if member_count == "fixed":
-            return (f"The bound {bound} does not formally hold: the number of members was "
-                    f"fixed, and {theorem}; coverage near {level:.4g} is typical (fit with "
-                    "random_member_count=True for the guarantee).")
-        return (f"Whether the bound {bound} holds is not known: {theorem}, and these arrays do "
-                f"not say how the members were counted; coverage near {level:.4g} is typical.")
+            return (f"The bound does not formally hold: {proof}, and this number was fixed "
+                    f"(fit with random_member_count=True for it); {typical}.")
+        return (f"It is not known whether {claim}: {proof}, and these arrays do not say how "
+                f"the members were counted; {typical}.")
     aim = (
         f"aims at covering a new observation with probability {level:.4g}; with out-of-bag "
         "calibration scores no finite-sample bound is proved"

@@ -59,7 +59,7 @@ class IntervalsSection(Section):
            "training predictions are missing; None for labels.")
 
     def compute(self, inputs, done):
-        from ..intervals import prediction_interval
+        from ..intervals import _prediction_interval
 
         if inputs.kind == "labels":
             return None
@@ -72,8 +72,9 @@ class IntervalsSection(Section):
         if train.dtype.kind != "f":
             train = train.astype(np.float64)
         try:
-            return prediction_interval(members, inputs.counts, train, inputs.y_train,
-                                       level=LEVEL, n_jobs=inputs.n_jobs)
+            return _prediction_interval(members, inputs.counts, train, inputs.y_train,
+                                        level=LEVEL, method=None, n_jobs=inputs.n_jobs,
+                                        member_count=inputs.member_count)
         except ValueError as error:   # e.g. no training row out of bag for any member
             return NotEstimated(f"no interval for a new observation: {error}")
 
