@@ -115,8 +115,9 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
         The members' predictions on the training rows, ``(members, n_train[, n_classes])``
         as ``members``, and the training targets; with ``counts`` they give the out-of-bag
         error and the prediction intervals (or class sets) for a new observation at the
-        points (``intervals``, level 0.9, with their observed coverage of ``y``). Entries of a member on its in-bag rows are not used, but must be valid
-        numbers. When they are not given and ``counts`` has ``n_points`` columns,
+        points (``intervals``, level 0.9, with their observed coverage of ``y``). Entries
+        of a member on its in-bag rows are not used, but must be valid numbers. When they
+        are not given and ``counts`` has ``n_points`` columns,
         ``members`` themselves are taken to be the training-row predictions (so ``y`` the
         training targets) and the out-of-bag error is computed from them.
     rng : int, numpy.random.Generator or None
@@ -151,7 +152,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     >>> report.decomposition.ensemble_loss < report.decomposition.member_loss
     True
     >>> sorted(report.summary())
-    ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
+    ['correlation', 'decomposition', 'ensemble', 'intervals', 'size_curve', 'spread', 'uncertainty']
     """
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
                      train_y=y_train, seed=rng, n_jobs=n_jobs, members_are_training=None)
