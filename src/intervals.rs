@@ -15,15 +15,17 @@
 //! (both say `α (n + 1) ≥ 1`); when they fail, the interval is infinite (`−∞`, `+∞`) and a
 //! class set holds every class.
 
-use ndarray::{linalg::general_mat_mul, Array2, ArrayView1, ArrayView2, ArrayView3, ArrayViewMut2};
+use ndarray::{ArrayView1, ArrayView2, ArrayView3, ArrayViewMut2};
 use rayon::prelude::*;
 
 use crate::error::{zeroed, Error, Result};
 use crate::numeric::Real;
 use crate::out_of_bag::CountValue;
 use crate::parallel::{Monitor, Pool};
+use crate::random::MemberStreams;
 
-/// Test points per task: the working memory of one task is `POINT_CHUNK × n` f64 values.
+/// Test points per task (jackknife+ works through them in sub-chunks of
+/// [`LEAVE_OUT_CHUNK`]).
 const POINT_CHUNK: usize = 256;
 
 /// Relative guard on `α (n + 1)` against round-off in `α = 1 − level`.
@@ -95,6 +97,70 @@ pub fn rows_needed(level: f64) -> Result<usize> {
         n += 1;
     }
     Ok(n)
+}
+
+/// The success probability of the randomised number of members of the
+/// jackknife+-after-bootstrap for `n_rows` training rows and `draws` rows per member.
+///
+/// ```text
+/// Kim, Xu & Barber (2020), "Predictive inference is free with the
+/// jackknife+-after-bootstrap", NeurIPS 33, Algorithm 1 and Theorem 1: fix B, draw
+///   B̃ ~ Binomial(B, p),  p = (1 − 1/(n + 1))^m   (m draws with replacement)
+///                        p = 1 − m/(n + 1)       (m rows without replacement)
+/// and fit B̃ members on resamples of the n training rows. p is the chance that a
+/// resample of n + 1 rows (the training rows and the new point) misses the new point, so
+/// the B̃ members are distributed as the members of B that did not see it; with the
+/// training rows and the new point exchangeable, the interval covers the new point with
+/// probability at least 1 − 2α.
+/// ```
+///
+/// # Errors
+/// `n_rows` zero; `draws` zero, or above `n_rows` without replacement.
+pub fn member_count_probability(
+    n_rows: usize,
+    draws: usize,
+    with_replacement: bool,
+) -> Result<f64> {
+    if n_rows == 0 {
+        return Err(Error::value("n_rows", "must be at least 1"));
+    }
+    if draws == 0 || (!with_replacement && draws > n_rows) {
+        return Err(Error::value(
+            "draws",
+            format!(
+                "must lie in 1..={} rows per member, got {draws}",
+                if with_replacement { usize::MAX } else { n_rows }
+            ),
+        ));
+    }
+    let n1 = n_rows as f64 + 1.0;
+    Ok(if with_replacement {
+        // (1 − 1/(n + 1))^m = exp(m · ln(1 − 1/(n + 1))), accurate for large m
+        (draws as f64 * (-1.0 / n1).ln_1p()).exp()
+    } else {
+        1.0 - draws as f64 / n1
+    })
+}
+
+/// A draw of `B̃ ~ Binomial(n_members, probability)` (see [`member_count_probability`]): the
+/// number of `n_members` independent trials with `U < probability`, `U` uniform on (0, 1)
+/// from member stream `n_members` of `seed` (the stream after the last one the members
+/// could use, so the count and the members' resamples are independent).
+///
+/// # Errors
+/// `probability` outside [0, 1].
+pub fn random_member_count(n_members: usize, probability: f64, seed: u64) -> Result<usize> {
+    if !(0.0..=1.0).contains(&probability) {
+        return Err(Error::value(
+            "probability",
+            format!("must lie in [0, 1], got {probability}"),
+        ));
+    }
+    let mut streams = MemberStreams::starting_at(seed, n_members);
+    let mut draws = streams.take(1).pop().expect("one stream");
+    Ok((0..n_members)
+        .filter(|_| draws.open_unit() < probability)
+        .count())
 }
 
 /// Out-of-bag member counts `|O_i|` and out-of-bag sums `Σ_{m ∈ O_i} t_m(x_i)[c]` at the
@@ -199,22 +265,12 @@ fn kth_of(
     let (means, residuals) = (&means[..len], &residuals[..len]);
     let pairs = || means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r);
     if len >= SAMPLED_SELECTION {
-        let step = (len as f64).cbrt() as usize;
-        scratch.clear();
-        scratch.extend(
-            (0..len)
-                .step_by(step)
-                .map(|i| means[i] + sign * residuals[i]),
-        );
-        let s = scratch.len();
-        let position = k * s / len;
-        let p = k as f64 / len as f64;
-        let gap = (5.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 8;
-        let lo = kth_smallest(scratch, position.saturating_sub(gap));
-        let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+        let (lo, hi) = bracket(means, residuals, sign, k, scratch);
         // branch-free pass: every value is stored, the slot advances only when it is kept
-        kept.clear();
-        kept.resize(len + 1, 0.0);
+        if kept.len() < len + 1 {
+            // every slot is written before it is read, so the buffer is only ever grown
+            kept.resize(len + 1, 0.0);
+        }
         let (mut below, mut n_kept) = (0, 0);
         for v in pairs() {
             below += usize::from(v < lo);
@@ -230,18 +286,98 @@ fn kth_of(
     kth_smallest(scratch, k)
 }
 
-/// Runs `task(start, lower_chunk, upper_chunk)` over chunks of `POINT_CHUNK` points on the
+/// The bracket `[lo, hi]` of [`kth_of`]: two order statistics of a strided sample of about
+/// `n^(2/3)` of the values `means[i] + sign · residuals[i]`, around the sample rank of `k`.
+fn bracket(
+    means: &[f64],
+    residuals: &[f64],
+    sign: f64,
+    k: usize,
+    scratch: &mut Vec<f64>,
+) -> (f64, f64) {
+    let len = means.len();
+    let step = (len as f64).cbrt() as usize;
+    scratch.clear();
+    scratch.extend(
+        (0..len)
+            .step_by(step)
+            .map(|i| means[i] + sign * residuals[i]),
+    );
+    let s = scratch.len();
+    let position = k * s / len;
+    let p = k as f64 / len as f64;
+    let gap = (5.0 * (s as f64 * p * (1.0 - p)).sqrt()) as usize + 8;
+    let lo = kth_smallest(scratch, position.saturating_sub(gap));
+    let hi = kth_smallest(scratch, (position + gap).min(s - 1));
+    (lo, hi)
+}
+
+/// Both jackknife+ bounds at one point: [`kth_of`] of `means − residuals` at rank
+/// `k_lower` and of `means + residuals` at rank `k_upper` (0-based), with one pass over
+/// the values for the two brackets. The same exact order statistics as two calls.
+fn bounds_of(
+    means: &[f64],
+    residuals: &[f64],
+    (k_lower, k_upper): (usize, usize),
+    scratch: &mut Vec<f64>,
+    kept: &mut [Vec<f64>; 2],
+) -> (f64, f64) {
+    let len = means.len().min(residuals.len());
+    let (means, residuals) = (&means[..len], &residuals[..len]);
+    if len < SAMPLED_SELECTION {
+        return (
+            kth_of(means, residuals, -1.0, k_lower, scratch, &mut kept[0]),
+            kth_of(means, residuals, 1.0, k_upper, scratch, &mut kept[1]),
+        );
+    }
+    let (lo_a, hi_a) = bracket(means, residuals, -1.0, k_lower, scratch);
+    let (lo_b, hi_b) = bracket(means, residuals, 1.0, k_upper, scratch);
+    for buffer in kept.iter_mut() {
+        if buffer.len() < len + 1 {
+            // every slot is written before it is read, so the buffer is only ever grown
+            buffer.resize(len + 1, 0.0);
+        }
+    }
+    let [kept_a, kept_b] = kept;
+    let (mut below_a, mut n_a, mut below_b, mut n_b) = (0, 0, 0, 0);
+    // branch-free pass: every value is stored, the slot advances only when it is kept
+    for (&mu, &r) in means.iter().zip(residuals) {
+        let (a, b) = (mu - r, mu + r);
+        below_a += usize::from(a < lo_a);
+        kept_a[n_a] = a;
+        n_a += usize::from(a >= lo_a && a <= hi_a);
+        below_b += usize::from(b < lo_b);
+        kept_b[n_b] = b;
+        n_b += usize::from(b >= lo_b && b <= hi_b);
+    }
+    let mut select = |sign: f64, k: usize, below: usize, n_kept: usize, kept: &mut Vec<f64>| {
+        if below <= k && k < below + n_kept {
+            kth_smallest(&mut kept[..n_kept], k - below)
+        } else {
+            scratch.clear();
+            scratch.extend(means.iter().zip(residuals).map(|(&mu, &r)| mu + sign * r));
+            kth_smallest(scratch, k)
+        }
+    };
+    (
+        select(-1.0, k_lower, below_a, n_a, kept_a),
+        select(1.0, k_upper, below_b, n_b, kept_b),
+    )
+}
+
+/// Runs `task(start, lower_chunk, upper_chunk)` over chunks of `chunk` points on the
 /// pool, calling the monitor between rounds; the chunking does not depend on the threads.
 fn over_point_chunks<A: Send, B: Send>(
     first: &mut [A],
     second: &mut [B],
     width: usize,
+    chunk: usize,
     pool: &Pool,
     monitor: &dyn Monitor,
     task: impl Fn(usize, &mut [A], &mut [B]) -> Result<()> + Sync,
 ) -> Result<()> {
     let n_points = first.len();
-    let round = POINT_CHUNK * pool.threads().max(1) * 4;
+    let round = chunk * pool.threads().max(1) * 4;
     let mut done = 0;
     for (a, b) in first
         .chunks_mut(round)
@@ -249,10 +385,10 @@ fn over_point_chunks<A: Send, B: Send>(
     {
         let start = done;
         pool.run(|| {
-            a.par_chunks_mut(POINT_CHUNK)
-                .zip(b.par_chunks_mut(POINT_CHUNK * width))
+            a.par_chunks_mut(chunk)
+                .zip(b.par_chunks_mut(chunk * width))
                 .enumerate()
-                .try_for_each(|(c, (a, b))| task(start + c * POINT_CHUNK, a, b))
+                .try_for_each(|(c, (a, b))| task(start + c * chunk, a, b))
         })?;
         done += a.len();
         monitor.progress(done, n_points)?;
@@ -280,11 +416,13 @@ fn over_point_chunks<A: Send, B: Send>(
 ///   [lower, upper](x) = [f̄(x) − q̂, f̄(x) + q̂]
 /// ```
 ///
-/// For jackknife+, each chunk of new points computes the leave-out means of every
-/// calibration row as one matrix product, `(chunk × M) · (M × n)` with the right factor
-/// `W[m, i] = 1[m ∈ O_i] / |O_i|`, then two order statistics per point (selection, not a
-/// sort). Memory is `O(POINT_CHUNK × n)` per thread plus `W`; every point is computed
-/// within a fixed chunk, so results do not depend on the thread count.
+/// For jackknife+, each chunk of [`LEAVE_OUT_CHUNK`] new points computes the leave-out
+/// means of every calibration row by adding, for each row, only its out-of-bag members'
+/// predictions (the product of the 0/1 out-of-bag mask with the member predictions,
+/// skipping the zeros), then two order statistics per point (selection, not a sort).
+/// Memory is `O(LEAVE_OUT_CHUNK × n)` per thread plus the out-of-bag lists; every point is
+/// computed within a fixed chunk in a fixed order, so results do not depend on the thread
+/// count.
 ///
 /// # Errors
 /// `level` outside (0, 1); `members` without members; `counts`, `train_members`, `y_train`
@@ -338,83 +476,185 @@ pub fn prediction_interval<C: CountValue, T: Real>(
             let mut scores = residuals;
             let q = kth_smallest(&mut scores, upper_rank - 1);
             calibration.threshold = q;
-            over_point_chunks(lower, upper, 1, pool, monitor, |start, lo, up| {
-                for (j, (l, u)) in lo.iter_mut().zip(up.iter_mut()).enumerate() {
-                    let mean = members
-                        .column(start + j)
-                        .iter()
-                        .map(|t| t.to_f64())
-                        .sum::<f64>()
-                        / n_members as f64;
-                    *l = mean - q;
-                    *u = mean + q;
-                }
-                Ok(())
-            })?;
+            over_point_chunks(
+                lower,
+                upper,
+                1,
+                POINT_CHUNK,
+                pool,
+                monitor,
+                |start, lo, up| {
+                    for (j, (l, u)) in lo.iter_mut().zip(up.iter_mut()).enumerate() {
+                        let mean = members
+                            .column(start + j)
+                            .iter()
+                            .map(|t| t.to_f64())
+                            .sum::<f64>()
+                            / n_members as f64;
+                        *l = mean - q;
+                        *u = mean + q;
+                    }
+                    Ok(())
+                },
+            )?;
         }
         IntervalMethod::JackknifePlus => {
-            let mut buffer = zeroed::<f64>(n_members * n, "counts")?;
-            for (u, &i) in used.iter().enumerate() {
-                let share = 1.0 / n_out[i] as f64;
-                for m in 0..n_members {
-                    if counts[[m, i]].is_zero() {
-                        buffer[m * n + u] = share;
-                    }
-                }
-            }
-            let weights = Array2::from_shape_vec((n_members, n), buffer)
-                .map_err(|_| Error::value("counts", "weights shape"))?;
-            let weights = weights.view();
-            let residuals = &residuals;
-            over_point_chunks(lower, upper, 1, pool, monitor, |start, lo, up| {
-                leave_out_chunk(
-                    members,
-                    weights,
-                    residuals,
-                    start,
-                    (lower_rank, upper_rank),
-                    lo,
-                    up,
-                )
-            })?;
+            let lists = OutOfBagLists::new(counts, &used, &n_out)?;
+            let (lists, residuals) = (&lists, &residuals);
+            over_point_chunks(
+                lower,
+                upper,
+                1,
+                POINT_CHUNK,
+                pool,
+                monitor,
+                |start, lo, up| {
+                    leave_out_chunk(
+                        members,
+                        lists,
+                        residuals,
+                        start,
+                        (lower_rank, upper_rank),
+                        lo,
+                        up,
+                    )
+                },
+            )?;
         }
     }
     Ok(calibration)
 }
 
-/// Jackknife+ bounds of one chunk of points starting at `start`.
+/// The out-of-bag members of each calibration row, as compressed lists: the members of
+/// calibration row `u` are `members[starts[u]..starts[u + 1]]`, in increasing order.
+struct OutOfBagLists {
+    starts: Vec<usize>,
+    members: Vec<u32>,
+}
+
+impl OutOfBagLists {
+    fn new<C: CountValue>(
+        counts: ArrayView2<'_, C>,
+        used: &[usize],
+        n_out: &[usize],
+    ) -> Result<Self> {
+        let total: usize = used.iter().map(|&i| n_out[i]).sum();
+        let mut members = zeroed::<u32>(total, "counts")?;
+        let mut starts = zeroed::<usize>(used.len() + 1, "counts")?;
+        for (u, &i) in used.iter().enumerate() {
+            starts[u + 1] = starts[u] + n_out[i];
+        }
+        let mut next = starts.clone();
+        for (m, row) in counts.outer_iter().enumerate() {
+            for (u, &i) in used.iter().enumerate() {
+                if row[i].is_zero() {
+                    members[next[u]] = m as u32;
+                    next[u] += 1;
+                }
+            }
+        }
+        Ok(OutOfBagLists { starts, members })
+    }
+
+    fn len(&self) -> usize {
+        self.starts.len() - 1
+    }
+}
+
+/// Points per jackknife+ sub-chunk: the kernel keeps one row's leave-out means at this
+/// many points in registers (8 AVX2 vectors), and the sub-chunk's member predictions
+/// (`n_members × LEAVE_OUT_CHUNK` f64) stay in the level-2 cache.
+const LEAVE_OUT_CHUNK: usize = 32;
+
+/// Leave-out means of every calibration row at the `P` points of a chunk:
+/// `means[j · n + u] = (Σ_{m ∈ O_u} values[m][j]) · (1 / |O_u|)`, the sum in increasing `m`.
+///
+/// Only the out-of-bag members of each row are added (about `e⁻¹` of them for the
+/// bootstrap), so the work is a third of the dense product `(P × M) · (M × n)` with the
+/// 0/1 mask; the `P` sums of a row are independent chains that vectorise.
+#[inline(always)]
+fn leave_out_means<const P: usize>(lists: &OutOfBagLists, values: &[[f64; P]], means: &mut [f64]) {
+    let n = lists.len();
+    for u in 0..n {
+        let (from, to) = (lists.starts[u], lists.starts[u + 1]);
+        let mut acc = [0.0f64; P];
+        for &m in &lists.members[from..to] {
+            let row = &values[m as usize];
+            for k in 0..P {
+                acc[k] += row[k];
+            }
+        }
+        let share = 1.0 / (to - from) as f64;
+        for (k, a) in acc.iter().enumerate() {
+            means[k * n + u] = a * share;
+        }
+    }
+}
+
+/// [`leave_out_means`] compiled for AVX2 when the processor has it (4 f64 lanes instead of
+/// SSE2's 2). Element-wise adds in the same order, no fused multiply-add, so both versions
+/// give bit-identical means.
+fn leave_out_means_dispatch<const P: usize>(
+    lists: &OutOfBagLists,
+    values: &[[f64; P]],
+    means: &mut [f64],
+) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { leave_out_means_avx2(lists, values, means) };
+        }
+    }
+    leave_out_means(lists, values, means)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn leave_out_means_avx2<const P: usize>(
+    lists: &OutOfBagLists,
+    values: &[[f64; P]],
+    means: &mut [f64],
+) {
+    leave_out_means(lists, values, means)
+}
+
+/// Jackknife+ bounds of one task's points starting at `start`, in sub-chunks of
+/// [`LEAVE_OUT_CHUNK`] points that share one buffer of leave-out means
+/// (`LEAVE_OUT_CHUNK × n` f64): the sub-chunk's means, then two order statistics per point
+/// by selection.
 fn leave_out_chunk<T: Real>(
     members: ArrayView2<'_, T>,
-    weights: ArrayView2<'_, f64>,
+    lists: &OutOfBagLists,
     residuals: &[f64],
     start: usize,
     (lower_rank, upper_rank): (usize, usize),
     lower: &mut [f64],
     upper: &mut [f64],
 ) -> Result<()> {
-    let (n_members, n) = weights.dim();
-    let len = lower.len();
-    let mut left = Array2::<f64>::zeros((len, n_members));
-    for ((j, m), value) in left.indexed_iter_mut() {
-        *value = members[[m, start + j]].to_f64();
-    }
-    let mut means = Array2::from_shape_vec((len, n), zeroed::<f64>(len * n, "members")?)
-        .map_err(|_| Error::value("members", "chunk shape"))?;
-    general_mat_mul(1.0, &left, &weights, 0.0, &mut means);
-    let (mut scratch, mut kept) = (Vec::new(), Vec::new());
-    for (j, row) in means.outer_iter().enumerate() {
-        let row = row
-            .as_slice()
-            .ok_or_else(|| Error::value("members", "chunk layout"))?;
-        lower[j] = kth_of(
-            row,
-            residuals,
-            -1.0,
-            lower_rank - 1,
-            &mut scratch,
-            &mut kept,
-        );
-        upper[j] = kth_of(row, residuals, 1.0, upper_rank - 1, &mut scratch, &mut kept);
+    const P: usize = LEAVE_OUT_CHUNK;
+    let n = lists.len();
+    let mut values = vec![[0.0f64; P]; members.nrows()];
+    let mut means = zeroed::<f64>(P * n, "members")?;
+    let (mut scratch, mut kept) = (Vec::new(), [Vec::new(), Vec::new()]);
+    for (c, (lower, upper)) in lower.chunks_mut(P).zip(upper.chunks_mut(P)).enumerate() {
+        let first = start + c * P;
+        let len = lower.len();
+        for (row, member) in values.iter_mut().zip(members.outer_iter()) {
+            for (j, v) in row.iter_mut().take(len).enumerate() {
+                *v = member[first + j].to_f64();
+            }
+        }
+        leave_out_means_dispatch::<P>(lists, &values, &mut means);
+        for (j, row) in means.chunks_exact(n).take(len).enumerate() {
+            (lower[j], upper[j]) = bounds_of(
+                row,
+                residuals,
+                (lower_rank - 1, upper_rank - 1),
+                &mut scratch,
+                &mut kept,
+            );
+        }
     }
     Ok(())
 }
@@ -513,6 +753,7 @@ pub fn prediction_set<C: CountValue, T: Real>(
         &mut marker,
         flat,
         n_classes,
+        POINT_CHUNK,
         pool,
         monitor,
         |start, _, out| {
@@ -547,7 +788,7 @@ fn class_score(p: &[f64], k: usize, method: SetMethod) -> f64 {
 mod tests {
     use super::*;
     use crate::parallel::{Silent, Threads};
-    use ndarray::{array, Array1, Array3};
+    use ndarray::{array, Array1, Array2, Array3};
 
     fn pool(threads: usize) -> Pool {
         Threads::Fixed(threads).pool().unwrap()
@@ -798,6 +1039,66 @@ mod tests {
     }
 
     #[test]
+    fn member_count_probability_by_hand() {
+        // n = 3, m = 2 with replacement: (3/4)^2 = 0.5625; without: 1 - 2/4 = 0.5
+        let p = member_count_probability(3, 2, true).unwrap();
+        assert!((p - 0.5625).abs() < 1e-15);
+        assert_eq!(member_count_probability(3, 2, false).unwrap(), 0.5);
+        assert!(member_count_probability(0, 2, true).is_err());
+        assert!(member_count_probability(3, 0, true).is_err());
+        assert!(member_count_probability(3, 4, false).is_err());
+    }
+
+    #[test]
+    fn random_member_count_is_seeded_and_binomial() {
+        assert_eq!(random_member_count(50, 0.0, 1).unwrap(), 0);
+        assert_eq!(random_member_count(50, 1.0, 1).unwrap(), 50);
+        assert!(random_member_count(50, 1.5, 1).is_err());
+        assert_eq!(
+            random_member_count(200, 0.37, 9).unwrap(),
+            random_member_count(200, 0.37, 9).unwrap()
+        );
+        // mean over 2,000 seeds against n p = 74, standard error sqrt(n p (1 - p) / 2000)
+        let draws: Vec<f64> = (0..2000)
+            .map(|seed| random_member_count(200, 0.37, seed).unwrap() as f64)
+            .collect();
+        let mean = draws.iter().sum::<f64>() / draws.len() as f64;
+        let se = (200.0 * 0.37 * 0.63 / 2000.0f64).sqrt();
+        assert!((mean - 74.0).abs() < 4.0 * se, "mean {mean}");
+    }
+
+    #[test]
+    fn leave_out_means_match_a_direct_sum() {
+        // both compiled versions against the definition, point by point
+        let (n_members, n_rows) = (11, 37);
+        let counts =
+            Array2::from_shape_fn((n_members, n_rows), |(m, i)| ((m * 5 + i * 3) % 4) as u8);
+        let n_out: Vec<usize> = (0..n_rows)
+            .map(|i| counts.column(i).iter().filter(|&&c| c == 0).count())
+            .collect();
+        let used: Vec<usize> = (0..n_rows).filter(|&i| n_out[i] > 0).collect();
+        let lists = OutOfBagLists::new(counts.view(), &used, &n_out).unwrap();
+        const P: usize = LEAVE_OUT_CHUNK;
+        let values: Vec<[f64; P]> = (0..n_members)
+            .map(|m| std::array::from_fn(|j| ((m * 31 + j * 17) % 23) as f64 / 7.0))
+            .collect();
+        let n = used.len();
+        let (mut plain, mut fast) = (vec![0.0; P * n], vec![0.0; P * n]);
+        leave_out_means::<P>(&lists, &values, &mut plain);
+        leave_out_means_dispatch::<P>(&lists, &values, &mut fast);
+        assert_eq!(plain, fast);
+        for (u, &i) in used.iter().enumerate() {
+            for j in 0..P {
+                let sum: f64 = (0..n_members)
+                    .filter(|&m| counts[[m, i]] == 0)
+                    .map(|m| values[m][j])
+                    .sum();
+                assert_eq!(plain[j * n + u], sum * (1.0 / n_out[i] as f64));
+            }
+        }
+    }
+
+    #[test]
     fn sampled_selection_is_exact() {
         let (mut scratch, mut kept) = (Vec::new(), Vec::new());
         for (len, seed) in [(5000usize, 1usize), (20_011, 7), (3000, 3)] {
@@ -822,6 +1123,21 @@ mod tests {
                         let got = kth_of(means, &residuals, sign, k, &mut scratch, &mut kept);
                         assert_eq!(got, all[k]);
                     }
+                }
+                for (k_lower, k_upper) in
+                    [(0, len - 1), (len / 10, len - len / 10), (len / 2, len / 2)]
+                {
+                    let mut pair = [Vec::new(), Vec::new()];
+                    let got = bounds_of(
+                        means,
+                        &residuals,
+                        (k_lower, k_upper),
+                        &mut scratch,
+                        &mut pair,
+                    );
+                    let one = kth_of(means, &residuals, -1.0, k_lower, &mut scratch, &mut kept);
+                    let other = kth_of(means, &residuals, 1.0, k_upper, &mut scratch, &mut kept);
+                    assert_eq!(got, (one, other));
                 }
             }
         }

@@ -233,7 +233,7 @@ def split_coverage(X, y, seed, level, method, n_train, classifier=False, in_bag=
         warnings.simplefilter("ignore", bagwise.BagwiseWarning)   # rows in bag for all members
         result = bagwise.prediction_interval(members, counts, train_members, y_train,
                                              level=level, method=method)
-    return result.coverage(y_test)
+    return result.coverage(y_test), len(y_test), result.n_rows_used
 
 
 _FITTED = {}
@@ -274,14 +274,33 @@ def conservative(method):
             "adaptive": "below"}.get(method, "")
 
 
-def coverage_check(coverages, level, side=""):
+def coverage_std_error(level, n_test, n_rows_used):
+    """Monte-Carlo standard error of the mean coverage over splits, from the binomial
+    variance of the test points and of the calibration rows: per split, the share of
+    n_test new observations inside has variance E[c (1 - c)] / n_test given the calibration,
+    and the conditional coverage c of a conformal threshold, the k+-th smallest of n
+    exchangeable scores, is the k+-th smallest of n uniforms (probability integral
+    transform), Beta(k+, n + 1 - k+), of variance about level (1 - level) / (n + 2) (order
+    statistics of the uniform, common practice). Both at the nominal level (the null
+    hypothesis); the mean over S splits has the sum of the variances over S^2."""
+    n_test, n_rows_used = np.asarray(n_test, float), np.asarray(n_rows_used, float)
+    per_split = level * (1 - level) * (1 / n_test + 1 / (n_rows_used + 2))
+    return math.sqrt(per_split.sum()) / len(per_split)
+
+
+def coverage_check(coverages, level, side="", n_test=None, n_rows_used=None):
     """Mean coverage over splits within 3 Monte-Carlo standard errors of the nominal level
-    (from the spread over splits; only from below for the conservative methods) and no split
-    below 1 - 2 alpha (Kim, Xu & Barber 2020, Theorem 1, for jackknife+). Returns
-    (passed, mean, std_error)."""
-    coverages = np.asarray(coverages)
+    (`coverage_std_error`; only from below for the conservative methods, which are capped
+    at level + alpha / 2 instead) and no split below 1 - 2 alpha (Kim, Xu & Barber 2020,
+    Theorem 1, for jackknife+). ``coverages`` may be (coverage, n_test, n_rows_used)
+    triples. Returns (passed, mean, std_error)."""
+    triples = np.asarray(coverages, dtype=float)
+    if triples.ndim == 2:
+        coverages, n_test, n_rows_used = triples.T
+    else:
+        coverages = triples
     mean = coverages.mean()
-    std_error = coverages.std(ddof=1) / math.sqrt(len(coverages))
+    std_error = coverage_std_error(level, n_test, n_rows_used)
     close = mean - level >= -3 * std_error
     if side == "capped":
         close = close and mean <= level + (1 - level) / 2
@@ -304,6 +323,7 @@ CASES = {   # dataset, method, training rows, classifier
     "diabetes-out_of_bag_residual": ("diabetes", "out_of_bag_residual", 300, False),
     "breast_cancer-least_ambiguous": ("breast_cancer", "least_ambiguous", 350, True),
     "digits-least_ambiguous": ("digits", "least_ambiguous", 500, True),
+    "breast_cancer-adaptive": ("breast_cancer", "adaptive", 350, True),
     "digits-adaptive": ("digits", "adaptive", 500, True),
 }
 
@@ -348,7 +368,7 @@ def simulated_coverages(first_seed, n_splits=20, level=0.8, in_bag=False, method
             warnings.simplefilter("ignore", bagwise.BagwiseWarning)
             result = bagwise.prediction_interval(members, counts, train_members, y_train,
                                                  level=level, method=method)
-        coverages.append(result.coverage(y_test))
+        coverages.append((result.coverage(y_test), len(y_test), result.n_rows_used))
     return coverages
 
 
@@ -365,8 +385,10 @@ def test_coverage_on_a_known_generator_and_the_in_bag_variant_undercovers(method
     assert not passed and wrong < 0.8 - 3 * std_error
 
 
-def test_in_bag_variant_undercovers_on_bundled_data():
-    passed, wrong, std_error = coverage_check(case_coverages("diabetes-jackknife+", 0, in_bag=True), 0.8)
+@pytest.mark.parametrize("case", ["diabetes-jackknife+", "breast_cancer-least_ambiguous"])
+def test_in_bag_variant_undercovers_on_bundled_data(case):
+    # the wrong variant: members that saw each row give its score, so scores are too small
+    passed, wrong, std_error = coverage_check(case_coverages(case, 0, in_bag=True), 0.8)
     assert not passed and wrong < 0.8 - 3 * std_error
 
 
@@ -483,3 +505,194 @@ def test_a_fitted_classifier_gives_class_sets_in_the_order_of_its_classes():
     # the least-ambiguous sets cover at least 1 - alpha in expectation (Sadinle, Lei &
     # Wasserman 2019, Proposition 1); 169 points give a standard error of about 0.023
     assert sets.coverage(codes) > 0.9 - 3 * 0.023
+
+
+# ---------------------------------------------------------------------------------------
+# the definition at scale: sampled selection (>= 2048 calibration rows), several chunks of
+# points, ties, float32 and a member count that is not a multiple of the vector width
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.float32])
+def test_jackknife_plus_matches_the_definition_at_scale(dtype):
+    rng = np.random.default_rng(11)
+    n_members, n_rows, n_points = 13, 3000, 70
+    counts = rng.poisson(1.0, size=(n_members, n_rows)).astype(np.uint8)
+    counts[:, :5] = 1                               # left out
+    members = rng.normal(size=(n_members, n_points)).astype(dtype)
+    train_members = rng.normal(size=(n_members, n_rows)).astype(dtype)
+    members[:, 40:] = members[:, :1]                # tied columns
+    y_train = np.round(rng.normal(size=n_rows), 1)  # tied residuals
+    for level in (0.9, 0.5, 0.99):
+        # Kim, Xu & Barber (2020), Algorithm 1, written out in numpy above
+        lower, upper = jackknife_plus_reference(members, counts, train_members, y_train, level)
+        result = call(members, counts, train_members, y_train, level=level)
+        np.testing.assert_allclose(result.lower, lower, rtol=0, atol=1e-12)
+        np.testing.assert_allclose(result.upper, upper, rtol=0, atol=1e-12)
+
+
+# ---------------------------------------------------------------------------------------
+# the randomised number of members (Kim, Xu & Barber 2020, Algorithm 1)
+
+
+def member_count_draws(first_seed, n_draws, n_members=60, n_rows=9, draws=9, replace=True):
+    return np.array([bagwise._core.random_member_count(n_members, n_rows, draws, replace, seed)[0]
+                     for seed in range(first_seed, first_seed + n_draws)])
+
+
+def binomial_check(counts, n_members, probability):
+    """Chi-square goodness of fit of the drawn counts to scipy.stats.binom(n_members,
+    probability), cells pooled until each expects >= 5 draws; passes at p-value >= 0.001
+    (so it fails on 0.1% of seeds when the law is right). Returns (passed, p_value)."""
+    from scipy import stats
+
+    n_draws = len(counts)
+    law = stats.binom(n_members, probability)
+    edges, expected, observed = [], [], []
+    start, mass = 0, 0.0
+    for k in range(n_members + 1):
+        mass += law.pmf(k)
+        if mass * n_draws >= 5 and law.sf(k) * n_draws >= 5:
+            edges.append((start, k))
+            start, mass = k + 1, 0.0
+    edges.append((start, n_members))
+    for lo, hi in edges:
+        expected.append((law.cdf(hi) - law.cdf(lo - 1)) * n_draws)
+        observed.append(np.sum((counts >= lo) & (counts <= hi)))
+    p_value = stats.chisquare(observed, expected).pvalue
+    return p_value >= 1e-3, p_value
+
+
+def test_random_member_count_is_binomial_and_the_wrong_probability_fails():
+    # Kim, Xu & Barber (2020), Algorithm 1: B~ ~ Binomial(B, (1 - 1/(n + 1))^m) for m draws
+    # with replacement; n = m = 9 gives 0.9^9 = 0.387 (against scipy.stats.binom)
+    counts = member_count_draws(0, 3000)
+    passed, p_value = binomial_check(counts, 60, 0.9 ** 9)
+    assert passed, f"p-value {p_value:.2g}"
+    # the plausible wrong variant: (1 - 1/n)^m, the out-of-bag chance without the new point
+    assert not binomial_check(counts, 60, (1 - 1 / 9) ** 9)[0]
+    # without replacement: 1 - m/(n + 1) = 1 - 4/10
+    counts = member_count_draws(5000, 3000, draws=4, replace=False)
+    assert binomial_check(counts, 60, 0.6)[0]
+    assert not binomial_check(counts, 60, 1 - 4 / 9)[0]
+
+
+def test_a_bag_with_a_random_member_count():
+    X_all, y_all = load_diabetes(return_X_y=True)
+    X, y = X_all[:120], y_all[:120]
+    bag = bagwise.BagRegressor("tree", n_members=50, random_state=4, random_member_count=True)
+    assert bag.get_params()["random_member_count"] is True
+    from sklearn.base import clone
+
+    assert clone(bag).get_params()["random_member_count"] is True
+    bag.fit(X, y)
+    # the count is the core's Binomial draw from the same seed, with p = (1 - 1/121)^120
+    expected, probability = bagwise._core.random_member_count(50, 120, 120, True, 4)
+    assert probability == pytest.approx((120 / 121) ** 120, rel=1e-12)
+    assert bag.in_bag_.shape[0] == expected < 50
+    again = clone(bag).fit(X, y)
+    np.testing.assert_array_equal(again.in_bag_, bag.in_bag_)
+    interval = bag.prediction_interval(X[:5], level=0.8)
+    assert "at least 1 - 2 alpha = 0.6" in interval.guarantee
+    assert "does not formally hold" not in interval.guarantee
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+        diagnosis = bag.diagnose(X_all[120:200], y_all[120:200])
+    assert diagnosis.intervals.guarantee == bag.prediction_interval(X_all[:3], level=0.9).guarantee
+    assert diagnosis.intervals.guarantee.startswith("Guaranteed")
+    fixed = bagwise.BagRegressor("tree", n_members=20, random_state=4).fit(X, y)
+    assert "does not formally hold" in fixed.prediction_interval(X[:5], level=0.8).guarantee
+    members, counts, train_members, y_train = random_inputs(3)
+    assert "not known" in call(members, counts, train_members, y_train, level=0.8).guarantee
+    with pytest.raises(ValueError, match="^`random_member_count`"):
+        bagwise.BagRegressor("tree", scheme="bayesian", random_member_count=True).fit(X, y)
+    with pytest.raises(TypeError, match="^`random_member_count`"):
+        bagwise.BagRegressor("tree", random_member_count=1).fit(X, y)
+
+
+# ---------------------------------------------------------------------------------------
+# in `diagnose`, its report and its figure
+
+
+def diagnosed_split():
+    X, y = load_diabetes(return_X_y=True)
+    order = np.random.default_rng(8).permutation(len(y))
+    train, test = order[:300], order[300:]
+    model = BaggingRegressor(n_estimators=30, random_state=8).fit(X[train], y[train])
+    members, counts, train_members = bagged_members(model, X[train], y[train], X[test])
+    return members, counts, train_members, y[train], y[test]
+
+
+def test_diagnose_reports_the_interval_and_its_coverage():
+    members, counts, train_members, y_train, y_test = diagnosed_split()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+        diagnosis = bagwise.diagnose(members, y_test, counts=counts, train_members=train_members,
+                                     y_train=y_train)
+        direct = bagwise.prediction_interval(members, counts, train_members, y_train, level=0.9)
+    np.testing.assert_array_equal(diagnosis.intervals.lower, direct.lower)
+    summary = diagnosis.summary()["intervals"]
+    inside = (direct.lower <= y_test) & (y_test <= direct.upper)   # counted directly
+    assert summary["coverage"] == inside.mean()
+    assert summary["coverage_std_error"] == pytest.approx(
+        math.sqrt(inside.mean() * (1 - inside.mean()) / len(y_test)), rel=1e-12)
+    assert summary["mean_width"] == pytest.approx(np.mean(direct.upper - direct.lower), rel=1e-12)
+    text = repr(diagnosis)
+    block = text.split("Prediction intervals")[1].split("\n\n")[0]
+    assert "for a new observation" in block and "of the mean" not in block
+    page = diagnosis.to_html()
+    assert "share of new observations inside their 90% interval" in page
+
+
+def test_diagnose_says_in_words_when_the_training_predictions_are_missing():
+    members, counts, _, _, y_test = diagnosed_split()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+        diagnosis = bagwise.diagnose(members, y_test, counts=counts)
+    assert diagnosis.summary()["intervals"]["coverage"] is None
+    assert any("needs the members' predictions on the training rows" in line
+               for line in diagnosis.readings())
+    assert "not estimated" in repr(diagnosis)
+
+
+def test_diagnose_gives_class_sets_for_probabilities():
+    X, y = load_breast_cancer(return_X_y=True)
+    model = BaggingClassifier(DecisionTreeClassifier(min_samples_leaf=3), n_estimators=15,
+                              random_state=2).fit(X[:350], y[:350])
+    members, counts, train_members = bagged_members(model, X[:350], y[:350], X[350:], proba=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+        diagnosis = bagwise.diagnose(members, y[350:], counts=counts, train_members=train_members,
+                                     y_train=y[:350])
+    sets = diagnosis.intervals
+    assert isinstance(sets, bagwise.PredictionSet)
+    summary = diagnosis.summary()["intervals"]
+    assert summary["coverage"] == np.mean(sets.sets[np.arange(len(y) - 350), y[350:]])
+    assert summary["mean_set_size"] == np.mean(sets.sets.sum(axis=1))
+
+
+def test_coverage_figure_numbers_and_axes():
+    pytest.importorskip("matplotlib")
+    import matplotlib.pyplot as plt
+
+    from bagwise import plots
+
+    members, counts, train_members, y_train, y_test = diagnosed_split()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+        result = bagwise.prediction_interval(members, counts, train_members, y_train, level=0.8)
+    width, share, size = plots.prediction_coverage(result, y_test, bins=4)
+    # direct: sort by width, four runs of nearly equal size, share inside each
+    order = np.argsort(result.width, kind="stable")
+    inside = (result.lower <= y_test) & (y_test <= result.upper)
+    runs = np.array_split(order, 4)
+    np.testing.assert_allclose(share, [inside[r].mean() for r in runs], rtol=0, atol=0)
+    np.testing.assert_allclose(width, [result.width[r].mean() for r in runs], rtol=1e-12)
+    assert size.sum() == len(y_test)
+    ax = plots.plot_prediction_coverage(result, y_test, bins=4)
+    assert ax.get_ylabel() == "share of new observations inside the 80% interval"
+    assert any(line.get_ydata()[0] == 0.8 for line in ax.get_lines())   # the nominal line
+    plt.close(ax.figure)
+    with pytest.raises(TypeError, match="^`prediction_interval`"):
+        plots.plot_prediction_coverage(np.zeros(3), y_test)
+    with pytest.raises(ValueError, match="^`y`"):
+        plots.plot_prediction_coverage(result, y_test[:-1])

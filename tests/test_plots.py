@@ -19,7 +19,6 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
 from matplotlib.collections import PolyCollection  # noqa: E402
-from scipy import stats  # noqa: E402
 
 import bagwise  # noqa: E402
 from bagwise import plots  # noqa: E402
@@ -346,36 +345,10 @@ def test_std_error_check_against_refitted_ensembles():
     assert ax.get_xlabel() == "predicted standard error of the ensemble's mean (kg)"
 
 
-def test_interval_coverage_by_bin(variance_case):
-    estimate, y = variance_case
-    ax = plots.plot_interval_coverage(estimate, y, level=0.8, bins=6)
-    data = ax.containers[0].lines[0]
-    # Interval from scipy.stats.norm quantiles, bins from pandas.qcut.
-    z = stats.norm.ppf(0.9)
-    inside = np.abs(y - estimate.mean) <= z * estimate.std_error
-    frame = pd.DataFrame({"se": estimate.std_error, "inside": inside})
-    frame["bin"] = pd.qcut(frame["se"], 6, labels=False)
-    grouped = frame.groupby("bin").mean()
-    np.testing.assert_allclose(data.get_xdata(), grouped["se"], rtol=1e-12)
-    np.testing.assert_allclose(data.get_ydata(), grouped["inside"], rtol=1e-12)
-    np.testing.assert_array_equal(line_labelled(ax, "nominal").get_ydata(), [0.8, 0.8])
-    overall = line_labelled(ax, "all points")
-    assert overall.get_ydata()[0] == pytest.approx(inside.mean(), rel=1e-12)
-    # Normal errors: each bin within 4 binomial standard errors of the nominal level.
-    assert np.all(np.abs(grouped["inside"] - 0.8) < 4 * math.sqrt(0.8 * 0.2 / 100))
-    assert ax.get_ylabel() == "share of targets inside the 80% interval"
-
-
 def test_uncertainty_bad_input(variance_case):
     estimate, y = variance_case
     with pytest.raises(TypeError, match="`replicates`"):
         plots.plot_std_error_check(estimate, y)
-    with pytest.raises(ValueError, match="`bins`"):
-        plots.plot_interval_coverage(estimate, y, bins=y.size + 1)
-    with pytest.raises(TypeError, match="`bins`"):
-        plots.plot_interval_coverage(estimate, y, bins=2.5)
-    with pytest.raises(ValueError, match="`level`"):
-        plots.plot_interval_coverage(estimate, y, level=1.0)
     with pytest.raises(TypeError, match="`prediction_variance`"):
         plots.plot_std_error_check(estimate.std_error, y)
     with pytest.raises(TypeError, match="`spread`"):
@@ -615,7 +588,6 @@ def every_plot(variance_case, spread_case):
         (plots.plot_size_curve, (bagwise.size_curve(preds, y, orders=3),)),
         (plots.plot_decomposition, (d,)),
         (plots.plot_ambiguity_by_point, (d,)),
-        (plots.plot_interval_coverage, (estimate, target)),
         (plots.plot_rho, (spread_case,)),
         (plots.plot_between_within, (spread_case,)),
         (plots.plot_correlation_matrix, (bagwise.correlation(preds, y, matrix=True),)),

@@ -107,11 +107,11 @@ def test_report_parses_and_holds_the_key_numbers(diagnosis, page):
 def test_report_embeds_every_figure_and_fetches_nothing(diagnosis, page):
     parsed = Page(page)
     images = parsed.images()
-    # decomposition (2), size curve (1), correlation heatmap (1), between/within (2, only
-    # where its between part is estimable); the standard errors have no figure without
-    # refitted ensembles to check them against
+    # decomposition (2), size curve (1), correlation heatmap (1), prediction-interval
+    # coverage (1), between/within (2, only where its between part is estimable); the
+    # standard errors have no figure without refitted ensembles to check them against
     between = 2 if diagnosis.spread.pooled_status != "not estimable" else 0
-    assert len(images) == 4 + between
+    assert len(images) == 5 + between
     for src in images:
         assert src.startswith("data:image/png;base64,")
         assert base64.b64decode(src.split(",", 1)[1]).startswith(PNG_SIGNATURE)
@@ -292,8 +292,9 @@ def test_report_of_a_fitted_bag_has_every_figure():
     bag = bagwise.BagRegressor("linear", n_members=400, random_state=0).fit(X[:100], y[:100])
     report = bag.diagnose(X[100:], y[100:])
     parsed = Page(report.to_html())
-    # as `diagnose` on the same arrays: decomposition (2), size curve (1), between/within
-    # (2 where estimable); no heatmap for 400 members (more than 300)
+    # as `diagnose` on the same arrays: decomposition (2), size curve (1),
+    # prediction-interval coverage (1, from the bag's out-of-bag training predictions),
+    # between/within (2 where estimable); no heatmap for 400 members (more than 300)
     between = 2 if report.spread.pooled_status != "not estimable" else 0
-    assert len(parsed.images()) == 3 + between
+    assert len(parsed.images()) == 4 + between
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words

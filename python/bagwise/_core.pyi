@@ -25,6 +25,7 @@ __all__ = [
     "pack_container",
     "prediction_interval_arrays",
     "prediction_set_arrays",
+    "random_member_count",
     "replicate_spread",
     "ReplicateSpreadParts",
     "Resampler",
@@ -440,6 +441,9 @@ def default_sizes(n_members: int) -> list[int]: ...
 
 # -- replicates ---------------------------------------------------------------------------
 
+def random_member_count(
+    n_members: int, n_rows: int, draws: int, with_replacement: bool, seed: int
+) -> tuple[int, float]: ...
 def prediction_interval_arrays(
     members: npt.NDArray[np.floating],
     counts: npt.NDArray[np.unsignedinteger],

@@ -119,8 +119,10 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     train_members, y_train : arrays, optional
         The members' predictions on the training rows, ``(members, n_train[, n_classes])``
         as ``members``, and the training targets; with ``counts`` they give the out-of-bag
-        error. Entries of a member on its in-bag rows are not used, but must be valid
-        numbers. When they are not given and ``counts`` has ``n_points`` columns,
+        error and the prediction intervals (or class sets) for a new observation at the
+        points (``intervals``, level 0.9, with their observed coverage of ``y``). Entries
+        of a member on its in-bag rows are not used, but must be valid numbers. When they
+        are not given and ``counts`` has ``n_points`` columns,
         ``members`` themselves are taken to be the training-row predictions (so ``y`` the
         training targets) and the out-of-bag error is computed from them.
     rng : int, numpy.random.Generator or None
@@ -158,7 +160,7 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     >>> report.decomposition.ensemble_loss < report.decomposition.member_loss
     True
     >>> sorted(report.summary())
-    ['correlation', 'decomposition', 'ensemble', 'size_curve', 'spread', 'uncertainty']
+    ['correlation', 'decomposition', 'ensemble', 'intervals', 'size_curve', 'spread', 'uncertainty']
     """
     if isinstance(members, EnsembleArrays):
         return _diagnose_read(members, y, counts=counts, reference=reference,
@@ -196,7 +198,7 @@ def _diagnose_read(read, y, *, counts, reference, train_members, y_train, seed, 
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,
-              members_are_training):
+              members_are_training, member_count=None):
     """`diagnose` (``train_y`` is its ``y_train``); ``members_are_training=False`` never
     reads ``members`` as training-row predictions (None: when ``counts`` has ``n_points``
     columns). Each warning of the
@@ -207,7 +209,8 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_
                                 n_jobs)
         inputs = Inputs(kind=kind, members=members, y=y, counts=counts,
                         train_members=train_members, y_train=train_y, reference=reference,
-                        seed=seed, n_jobs=n_jobs, members_are_training=members_are_training)
+                        seed=seed, n_jobs=n_jobs, members_are_training=members_are_training,
+                        member_count=member_count)
         done: dict[str, Any] = {}
         for section in SECTIONS:
             done[section.key] = section.compute(inputs, done)

@@ -23,7 +23,7 @@ from sklearn.utils.validation import (
     validate_data,
 )
 
-from . import persistence
+from . import _core, persistence
 from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
 from ._validation import n_jobs_value, positive_int
@@ -112,6 +112,17 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
     _number(est.penalty, "penalty")
     if not isinstance(est.use_sample_weight, bool):
         raise TypeError("`use_sample_weight`: expected True or False")
+    if not isinstance(est.random_member_count, bool):
+        raise TypeError("`random_member_count`: expected True or False")
+    if est.random_member_count and est.scheme not in ("bootstrap", "subsample"):
+        raise ValueError(
+            "`random_member_count`: the randomised number of members of the "
+            "jackknife+-after-bootstrap is defined for scheme='bootstrap' or 'subsample', got "
+            f"{est.scheme!r}"
+        )
+    if est.random_member_count and classification and est.stratify:
+        raise ValueError("`random_member_count`: is defined for plain resampling, not with "
+                         "stratify=True")
     if est.scheme == "bayesian":
         weighted = (LEARNERS[learner].weighted if isinstance(learner, str)
                     else est.use_sample_weight)
@@ -183,7 +194,8 @@ class _Bag(BaseEstimator):
 
     def _forget(self):
         for name in ("in_bag_", "n_features_in_", "feature_names_in_", "classes_", "members_",
-                     "seed_", "_model", "_train_X", "_train_y", "count_gram_"):
+                     "seed_", "_model", "_train_X", "_train_y", "count_gram_",
+                     "_counted_at_random"):
             self.__dict__.pop(name, None)
 
     def _fit(self, X, y, groups):
@@ -208,6 +220,8 @@ class _Bag(BaseEstimator):
             codes = codes.reshape(-1)
         else:
             classes, codes = None, None
+        if self.random_member_count:
+            params["n_members"] = self._random_count(n_rows, params, groups)
         counts = self._draw(n_rows, params, codes, groups)
         if native:
             # Classification passes the class codes (int64, indices into ``classes_``),
@@ -229,6 +243,27 @@ class _Bag(BaseEstimator):
             self.members_ = members
         self._train_X = X
         self._train_y = codes if self._classification else np.asarray(y, dtype=np.float64)
+        self._counted_at_random = self.random_member_count
+
+    def _random_count(self, n_rows, params, groups):
+        """The number of members to fit when ``random_member_count`` is set:
+        ``Binomial(n_members, p)`` with ``p = (1 - 1/(n_rows + 1))^m`` for ``m`` draws with
+        replacement, ``1 - m/(n_rows + 1)`` without (Kim, Xu & Barber 2020, NeurIPS 33,
+        Algorithm 1 and Theorem 1), drawn from the seed (see `_core.random_member_count`)."""
+        if groups is not None:
+            raise ValueError("`groups`: the randomised number of members is defined for "
+                             "resampling single rows, not groups")
+        draws = round(n_rows * params["fraction"])
+        if draws < 1:
+            raise ValueError(f"`fraction`: draws no row of {n_rows}")
+        count, _ = _core.random_member_count(params["n_members"], n_rows, draws,
+                                             self.scheme == "bootstrap", params["seed"])
+        if count < 1:
+            raise ValueError(
+                f"`n_members`: the randomised number of members drew 0 of {params['n_members']} "
+                "(each is kept with probability about e^-1); ask for more members"
+            )
+        return count
 
     def _draw(self, n_rows, params, codes, groups):
         n_members = params["n_members"]
@@ -493,11 +528,18 @@ class _Bag(BaseEstimator):
         -------
         PredictionInterval or PredictionSet
         """
-        from .intervals import prediction_interval
+        from .intervals import _prediction_interval
 
         train_members, target = self._training_members(X_train, y_train)
-        return prediction_interval(self.member_predictions(X), self.in_bag_, train_members,
-                                   target, level=level, method=method, n_jobs=self.n_jobs)
+        return _prediction_interval(self.member_predictions(X), self.in_bag_, train_members,
+                                    target, level=level, method=method, n_jobs=self.n_jobs,
+                                    member_count=self._member_count())
+
+    def _member_count(self) -> str:
+        """``"random"`` when the fit drew its number of members (``random_member_count``),
+        else ``"fixed"`` (see `bagwise.intervals._guarantee`)."""
+        randomised = self.__dict__.get("_counted_at_random", self.random_member_count)
+        return "random" if randomised else "fixed"
 
     def spread(self, X):
         """Between/within split of the members' variance at ``X`` (`bagwise.spread`; every
@@ -545,7 +587,8 @@ class _Bag(BaseEstimator):
                 train_members, train_y = self._training_members(X_train, y_train)
         return _diagnose(members, target, counts=counts, reference=reference,
                          train_members=train_members, train_y=train_y, seed=0,
-                         n_jobs=self.n_jobs, members_are_training=False)
+                         n_jobs=self.n_jobs, members_are_training=False,
+                         member_count=self._member_count())
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""
@@ -599,6 +642,16 @@ _PARAMETERS_DOC = """
     use_sample_weight : bool
         Wrapped estimators only: fit each member on all rows with the counts as
         ``sample_weight`` instead of on the repeated rows.
+    random_member_count : bool
+        Fit a random number of members, ``Binomial(n_members, p)`` with
+        ``p = (1 - 1/(n_rows + 1))^m`` for ``m = round(n_rows * fraction)`` draws with
+        replacement (``1 - m/(n_rows + 1)`` for ``scheme="subsample"``), drawn from
+        ``random_state``: about ``e^-1`` of ``n_members`` for the bootstrap. This is the
+        jackknife+-after-bootstrap's randomised ensemble size (Kim, Xu & Barber 2020,
+        NeurIPS 33, Algorithm 1), under which `prediction_interval` covers a new
+        observation with probability at least ``1 - 2 alpha`` (their Theorem 1); with a
+        fixed number (the default) that bound is not proved. The members fitted are
+        ``in_bag_.shape[0]``. Not for ``"bayesian"``/``"none"``, strata or groups.
 """
 
 _ATTRIBUTES_DOC = """
@@ -653,7 +706,8 @@ class BagRegressor(RegressorMixin, _Bag):
 
     def __init__(self, learner="tree", n_members=100, *, scheme="bootstrap", fraction=1.0,
                  max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
-                 random_state=0, n_jobs=None, progress=False, splitter="auto", use_sample_weight=False):
+                 random_state=0, n_jobs=None, progress=False, splitter="auto", use_sample_weight=False,
+                 random_member_count=False):
         self.learner = learner
         self.n_members = n_members
         self.scheme = scheme
@@ -668,6 +722,7 @@ class BagRegressor(RegressorMixin, _Bag):
         self.progress = progress
         self.splitter = splitter
         self.use_sample_weight = use_sample_weight
+        self.random_member_count = random_member_count
 
     def _member_predict(self, member, X):
         return np.asarray(member.predict(X), dtype=np.float64).reshape(-1)
@@ -711,7 +766,7 @@ class BagClassifier(ClassifierMixin, _Bag):
     def __init__(self, learner="tree", n_members=100, *, scheme="bootstrap", fraction=1.0,
                  max_depth=None, min_leaf=1, split_features=None, neighbors=5, penalty=0.0,
                  random_state=0, n_jobs=None, progress=False, stratify=False, criterion="gini",
-                 splitter="auto", use_sample_weight=False):
+                 splitter="auto", use_sample_weight=False, random_member_count=False):
         self.learner = learner
         self.n_members = n_members
         self.scheme = scheme
@@ -728,6 +783,7 @@ class BagClassifier(ClassifierMixin, _Bag):
         self.criterion = criterion
         self.splitter = splitter
         self.use_sample_weight = use_sample_weight
+        self.random_member_count = random_member_count
 
     _classification = True
 

@@ -141,16 +141,25 @@ def _prediction_interval_iv(members, counts, train_members, y_train, level, meth
     return members, counts, train_members, y_train, level, method, n_jobs_value(n_jobs), n_left_out
 
 
-def _guarantee(method: str, level: float) -> str:
+def _guarantee(method: str, level: float, member_count: str | None = None) -> str:
+    """The coverage guarantee in words. ``member_count``: ``"random"`` (the members were
+    counted by Kim, Xu & Barber's Binomial draw), ``"fixed"`` (a fixed number), None (not
+    known: arrays from elsewhere)."""
     alpha = 1.0 - level
     if method == "jackknife+":
-        return (
-            f"For a new observation exchangeable with the training rows, the interval covers it "
-            f"with probability at least 1 - 2 alpha = {1 - 2 * alpha:.4g} when the number of "
-            "members is drawn at random (Binomial), as in Kim, Xu & Barber (2020, Theorem 1); "
-            "a fixed number of members is the usual practice, for which that bound is not proved "
-            f"(coverage near {level:.4g} is typical)."
-        )
+        claim = ("a new observation exchangeable with the training rows falls in its interval "
+                 f"with probability at least 1 - 2 alpha = {1 - 2 * alpha:.4g}")
+        typical = f"coverage near {level:.4g} is typical"
+        if member_count == "random":
+            return (f"Guaranteed: {claim}, since the number of members was drawn at random "
+                    f"(Binomial), as Kim, Xu & Barber (2020, Theorem 1) require; {typical}.")
+        proof = ("Kim, Xu & Barber (2020, Theorem 1) prove it for a number of members drawn at "
+                 "random (Binomial, their Algorithm 1)")
+        if member_count == "fixed":
+            return (f"The bound does not formally hold: {proof}, and this number was fixed "
+                    f"(fit with random_member_count=True for it); {typical}.")
+        return (f"It is not known whether {claim}: {proof}, and these arrays do not say how "
+                f"the members were counted; {typical}.")
     aim = (
         f"aims at covering a new observation with probability {level:.4g}; with out-of-bag "
         "calibration scores no finite-sample bound is proved"
@@ -355,7 +364,10 @@ def prediction_interval(
 
     When ``k- < 1`` (too few calibration rows for the level) the interval is infinite on
     both sides (a class set holds every class), with one warning naming how many rows
-    are needed. What coverage is proved is stated in the result's ``guarantee``.
+    are needed. What coverage is proved is stated in the result's ``guarantee``: for
+    jackknife+ the ``1 - 2 alpha`` bound of Kim, Xu & Barber (2020, Theorem 1) needs the
+    number of members drawn at random (``BagRegressor(random_member_count=True)``), so for
+    arrays given here it says the bound is not known to hold.
 
     Parameters
     ----------
@@ -400,6 +412,13 @@ def prediction_interval(
     >>> round(interval.coverage(y_new), 2)
     0.89
     """
+    return _prediction_interval(members, counts, train_members, y_train, level=level,
+                                method=method, n_jobs=n_jobs, member_count=None)
+
+
+def _prediction_interval(members, counts, train_members, y_train, *, level, method, n_jobs,
+                         member_count):
+    """`prediction_interval`, told how the members were counted (see `_guarantee`)."""
     members, counts, train_members, y_train, level, method, n_jobs, n_left_out = (
         _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs)
     )
@@ -409,7 +428,7 @@ def prediction_interval(
             f"`counts`: {n_left_out} of {n_rows} training rows were in bag for every member and are "
             "left out of the calibration (more members, or smaller samples, leave more rows out of bag)"
         )
-    guarantee = _guarantee(method, level)
+    guarantee = _guarantee(method, level, member_count)
     if members.ndim == 3:
         sets, n_used, finite = _core.prediction_set_arrays(
             members, counts, train_members, y_train, level, method, n_jobs

@@ -5,8 +5,11 @@ use numpy::{PyArrayMethods, PyReadonlyArray1};
 use pyo3::exceptions::{PyTypeError, PyValueError};
 use pyo3::prelude::*;
 
-use super::{run_core, zeros, zeros_nd, CountArray, FloatArray};
-use crate::intervals::{prediction_interval, prediction_set, IntervalMethod, SetMethod};
+use super::{run_core, to_py_err, zeros, zeros_nd, CountArray, FloatArray};
+use crate::intervals::{
+    member_count_probability, prediction_interval, prediction_set, random_member_count,
+    IntervalMethod, SetMethod,
+};
 
 /// Calls `$body` with `$m`, `$t` bound to the views of two [`FloatArray`]s of one dtype.
 macro_rules! with_float_pair {
@@ -117,7 +120,25 @@ fn prediction_set_arrays<'py>(
     ))
 }
 
+/// `(count, probability)`: the randomised number of members of the
+/// jackknife+-after-bootstrap, `Binomial(n_members, probability)` (see the core).
+#[pyfunction]
+#[pyo3(name = "random_member_count")]
+fn random_member_count_py(
+    n_members: usize,
+    n_rows: usize,
+    draws: usize,
+    with_replacement: bool,
+    seed: u64,
+) -> PyResult<(usize, f64)> {
+    let probability =
+        member_count_probability(n_rows, draws, with_replacement).map_err(to_py_err)?;
+    let count = random_member_count(n_members, probability, seed).map_err(to_py_err)?;
+    Ok((count, probability))
+}
+
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add_function(wrap_pyfunction!(random_member_count_py, m)?)?;
     m.add_function(wrap_pyfunction!(prediction_interval_arrays, m)?)?;
     m.add_function(wrap_pyfunction!(prediction_set_arrays, m)?)
 }

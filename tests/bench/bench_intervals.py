@@ -7,7 +7,10 @@ Run with ``make bench`` (release build), or on its own after a release build:
 
 Target: the jackknife+ interval within 2x the time of ``(n_rows x n_members) @ (n_members x
 n_points)`` in numpy, the product at the heart of the computation (the leave-out means of
-every training row at every new point), followed here by two order statistics per point.
+every training row at every new point). bagwise forms that product without the zeros of
+the out-of-bag mask (about e^-1 of the members per row), a chunk of points at a time, and
+takes two order statistics per point by selection; it never holds the full
+(n_rows x n_points) matrix that numpy writes.
 """
 
 from __future__ import annotations

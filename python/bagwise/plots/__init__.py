@@ -11,8 +11,10 @@ The functions without the prefix compute the numbers a figure shows.
   infinite-ensemble error, the members needed and the out-of-bag curve;
 - `plot_decomposition`, `plot_ambiguity_by_point`: what averaging removed;
 - `plot_std_error_check`: standard errors of the ensemble's mean checked against ensembles
-  refitted on independent training sets; `plot_interval_coverage`: interval coverage against
-  observed targets; `plot_rho`, `plot_between_within`: the between/within variance split;
+  refitted on independent training sets; `plot_rho`, `plot_between_within`: the
+  between/within variance split;
+- `plot_prediction_coverage`: prediction intervals (or class sets) for a new observation
+  checked against test targets, by interval width (or set size);
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
 - `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
 - `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members.
@@ -22,29 +24,28 @@ from .classification import margins, plot_margins, plot_reliability, reliability
 from .correlation import member_order, plot_correlation_matrix
 from .decomposition import plot_ambiguity_by_point, plot_decomposition
 from .diversity import kappa_error_points, plot_kappa_error
+from .intervals import plot_prediction_coverage, prediction_coverage
 from .size_curve import plot_size_curve
 from .uncertainty import (
-    binned_coverage,
     binned_std_errors,
     plot_between_within,
-    plot_interval_coverage,
     plot_rho,
     plot_std_error_check,
 )
 
 __all__ = [
-    "binned_coverage",
     "binned_std_errors",
     "kappa_error_points",
     "margins",
     "member_order",
+    "prediction_coverage",
     "plot_ambiguity_by_point",
     "plot_between_within",
     "plot_correlation_matrix",
     "plot_decomposition",
-    "plot_interval_coverage",
     "plot_kappa_error",
     "plot_margins",
+    "plot_prediction_coverage",
     "plot_reliability",
     "plot_rho",
     "plot_size_curve",

@@ -4,33 +4,14 @@ variance."""
 from __future__ import annotations
 
 import math
-import numbers
 
 import numpy as np
 
 from ..uncertainty import PredictionVariance, Spread
 from . import _common as c
 
-__all__ = ["binned_std_errors", "plot_between_within", "plot_interval_coverage", "plot_rho",
-           "plot_std_error_check"]
+__all__ = ["binned_std_errors", "plot_between_within", "plot_rho", "plot_std_error_check"]
 
-
-
-def _variance_iv(prediction_variance, y, bins, unit):
-    if not isinstance(prediction_variance, PredictionVariance):
-        raise TypeError("`prediction_variance`: expected the PredictionVariance returned by "
-                        f"bagwise.prediction_variance, got {type(prediction_variance).__name__}")
-    n_points = len(prediction_variance.mean)
-    y = np.asarray(y)
-    if y.dtype.kind not in "fiu":
-        raise TypeError(f"`y`: expected numbers, got dtype {y.dtype}")
-    if y.shape != (n_points,):
-        raise ValueError(f"`y`: expected shape ({n_points},) (one target per point of "
-                         f"`prediction_variance`), got {y.shape}")
-    y = y.astype(np.float64, copy=False)
-    if not np.all(np.isfinite(y)):
-        raise ValueError("`y`: contains NaN or infinite values")
-    return y, c.bins_iv(bins, n_points), c.unit_iv(unit)
 
 
 def _check_iv(prediction_variance, replicates, bins, unit):
@@ -122,95 +103,6 @@ def plot_std_error_check(prediction_variance, replicates, *, bins=10, ax=None, u
     return c.finish(ax, xlabel=c.with_unit("predicted standard error of the ensemble's mean",
                                            unit),
                     ylabel=c.with_unit("its spread over refitted ensembles", unit))
-
-
-def binned_coverage(prediction_variance, y, level=0.9, bins=10):
-    """Per bin of predicted standard error: mean standard error, share of ``y`` inside the
-    ``level`` interval and the bin size (the numbers `plot_interval_coverage` draws).
-
-    Examples
-    --------
-    >>> import numpy as np, bagwise
-    >>> from bagwise.plots import binned_coverage
-    >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, rng=0).counts
-    >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
-    >>> estimate = bagwise.prediction_variance(members, counts)
-    >>> _, share, size = binned_coverage(estimate, estimate.mean, level=0.5, bins=2)
-    >>> share.tolist(), size.tolist()                  # targets at the mean: all inside
-    ([1.0, 1.0], [3, 3])
-    """
-    y, bins, _ = _variance_iv(prediction_variance, y, bins, None)
-    low, high = prediction_variance.mean_interval(_level_iv(level))
-    inside = (y >= low) & (y <= high)
-    se = prediction_variance.std_error
-    groups = c.equal_count_bins(se, bins)
-    return (np.array([se[g].mean() for g in groups]), np.array([inside[g].mean() for g in groups]),
-            np.array([len(g) for g in groups]))
-
-
-def _level_iv(level):
-    if isinstance(level, bool) or not isinstance(level, numbers.Real):
-        raise TypeError(f"`level`: expected a number, got {type(level).__name__}")
-    if not 0 < level < 1:
-        raise ValueError(f"`level`: must lie in (0, 1), got {level}")
-    return float(level)
-
-
-def plot_interval_coverage(prediction_variance, y, *, level=0.9, bins=10, ax=None, unit=None):
-    """Share of the targets inside their ``level`` interval, by bin of standard error.
-
-    The interval is ``PredictionVariance.mean_interval(level)``, the normal approximation
-    ``mean ± z * standard error``. Points are cut into ``bins`` bins of (nearly) equal
-    size by predicted standard error; each marker is one bin, with a bar of ± one binomial
-    standard error ``sqrt(p (1 - p) / n)``. The nominal level is the horizontal line;
-    bins below it hold points whose intervals are too narrow.
-
-    Parameters
-    ----------
-    prediction_variance : PredictionVariance
-    y : array of shape (n_points,)
-        Observed targets.
-    level : float
-        Nominal coverage of the interval, in (0, 1) (default 0.9).
-    bins : int
-        Number of bins (default 10).
-    ax : matplotlib Axes, optional
-    unit : str, optional
-        Unit of the targets.
-
-    Returns
-    -------
-    matplotlib Axes
-
-    Examples
-    --------
-    >>> import numpy as np, bagwise
-    >>> import matplotlib.pyplot as plt
-    >>> from bagwise.plots import plot_interval_coverage
-    >>> rng = np.random.default_rng(0)
-    >>> counts = bagwise.resample(100, 1000, rng=0).counts
-    >>> members = counts @ np.outer(rng.normal(size=100), np.arange(1.0, 7.0)) / 100
-    >>> estimate = bagwise.prediction_variance(members, counts)
-    >>> ax = plot_interval_coverage(estimate, np.zeros(6), level=0.9, bins=3)
-    >>> ax.get_ylabel()
-    'share of targets inside the 90% interval'
-    >>> plt.close(ax.figure)
-    """
-    y, bins, unit = _variance_iv(prediction_variance, y, bins, unit)
-    level = _level_iv(level)
-    ax = c.axes(ax)
-    mean_se, share, size = binned_coverage(prediction_variance, y, level, bins)
-    spread = np.sqrt(share * (1 - share) / size)
-    ax.errorbar(mean_se, share, yerr=spread, color=c.INK, linestyle="-", marker="o",
-                markersize=5, capsize=3, label=f"observed, {bins} bins of equal size")
-    ax.axhline(level, color=c.SLATE, linestyle="--", label=f"nominal level {level:.0%}")
-    low, high = prediction_variance.mean_interval(level)
-    overall = float(np.mean((y >= low) & (y <= high)))
-    ax.axhline(overall, color=c.FAINT, linestyle=":", label=f"all points: {overall:.1%}")
-    ax.set_ylim(0, 1.02)
-    return c.finish(ax, xlabel=c.with_unit("predicted standard error", unit),
-                    ylabel=f"share of targets inside the {level:.0%} interval")
 
 
 def _spread_iv(spread):

@@ -12,6 +12,7 @@ from . import (
     correlation,
     decomposition,
     diversity,
+    intervals,
     out_of_bag,
     reference,
     size_curve,
@@ -31,6 +32,7 @@ SECTIONS: list[Section] = [
     correlation.section,
     out_of_bag.section,
     uncertainty.section,
+    intervals.section,
     spread.section,
     diversity.section,
 ]

@@ -18,7 +18,9 @@ class Inputs:
     """The checked arguments of `diagnose` (the arrays are references, not copies).
 
     ``members_are_training`` False never reads ``members`` as predictions on the training
-    rows; None reads them so when ``counts`` has one column per point.
+    rows; None reads them so when ``counts`` has one column per point. ``member_count`` says
+    how the number of members was chosen: ``"random"`` (a fitted bag's
+    ``random_member_count``), ``"fixed"``, or None (not known: arrays from elsewhere).
     """
 
     kind: str
@@ -31,6 +33,7 @@ class Inputs:
     seed: Any = 0
     n_jobs: int | None = None
     members_are_training: bool | None = None
+    member_count: str | None = None
 
     @functools.cached_property
     def one_value(self) -> tuple[np.ndarray, np.ndarray] | None:
