@@ -432,13 +432,15 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
     >>> bool(abs(result.variance[0] / ideal - 1) < 0.1)
     True
 
-    Little bags: 1000 groups of 2 members, each member a fifth of the rows, drawn from its
+    Little bags: 250 groups of 8 members, each member a fifth of the rows, drawn from its
     group's half; the variance of the mean over halves of the sample is
     ``x.var(ddof=1) / n`` (sampling without replacement).
 
-    >>> draw = bagwise.resample(200, 2000, scheme="little_bags", fraction=0.2, rng=0)
+    >>> draw = bagwise.resample(200, 2000, scheme="little_bags", fraction=0.2, group_size=8,
+    ...                         rng=0)
     >>> subsample_means = (draw.counts @ x / 40)[:, None]
-    >>> little = bagwise.prediction_variance(subsample_means, draw.counts, method="little_bags")
+    >>> little = bagwise.prediction_variance(subsample_means, draw.counts, method="little_bags",
+    ...                                      group_size=8)
     >>> bool(abs(little.variance[0] / (x.var(ddof=1) / 200) - 1) < 0.3)
     True
     """
