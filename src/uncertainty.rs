@@ -1047,8 +1047,7 @@ mod tests {
             let v32 = little_bags_variance(single.view(), l, &POOL).unwrap();
             let strided = t.t().to_owned();
             let vt = little_bags_variance(strided.t(), l, &POOL).unwrap();
-            for x in 0..p {
-                let [s2, w, m] = direct[x];
+            for (x, &[s2, w, m]) in direct.iter().enumerate() {
                 assert_relative_eq!(v.raw[x], s2, max_relative = 1e-10);
                 assert_relative_eq!(v.within[x], w, max_relative = 1e-10);
                 assert_relative_eq!(v.correction[x], w / l as f64, max_relative = 1e-10);
