@@ -652,7 +652,7 @@ _PARAMETERS_DOC = """
         Draw size as a share of the rows. For ``"little_bags"`` each member's share of all
         rows, in (0, 0.5); left at 1.0 it becomes 0.1, the share whose bias was smallest in
         our measurement (the little-bags variance overstates the truth as the share grows:
-        median ratio about 1.15 at 0.1, 1.28 at 0.2, 1.5 at 0.3 on trees; a fit above 0.15
+        median ratio about 1.15 at 0.1, 1.28 at 0.2, 1.5 at 0.3, 2.1 at 0.4 on trees; a fit above 0.15
         warns). Smaller shares make noisier members, so each point's estimate needs more
         groups.
     group_size : int

@@ -14,6 +14,18 @@
 2. Pass rate over seeds of the Monte-Carlo checks of tests/test_little_bags.py (target
    >= 99%), and how often the wrong variants fail.
 
+Measured (release build, 2 shared cores; defaults below, 100 training sets):
+
+    share  median ratio   ± se  uncorrected  corr. share
+      0.1         1.152  0.099        40.98         0.97
+      0.2         1.283  0.055        21.84         0.94
+      0.3         1.505  0.050        14.81         0.90
+      0.4         2.097  0.057        11.06         0.81
+    corrected IJ, 300 bootstrap members, n = 4000: median correction share 0.996,
+    44% of points clipped at zero
+
+so the estimators' default share is 0.1 and a fit above 0.15 warns.
+
 Release build only (``make bench`` or ``maturin develop --release``):
 
     python tests/bench/bench_little_bags.py [--n 4000] [--members 300] [--replicates 150]
@@ -100,12 +112,16 @@ def bias_table(n, members, replicates, n_points):
           f"{median_share:.3f}, points clipped at zero {clipped:.0%}", flush=True)
 
 
-def pass_rates(seeds):
+CHECKS = {
+    "kernel": ("kernel statistic (closed-form truth)", t.little_bags_ratio, ("uncorrected", "ddof")),
+    "trees": ("trees (Monte-Carlo truth)", t.tree_ratio, ("uncorrected", "ddof")),
+}
+
+
+def pass_rates(seeds, checks):
     print(f"\npass rate over {seeds} seeds (target >= 99%)", flush=True)
-    for name, check, variants in (
-        ("kernel statistic (closed-form truth)", t.little_bags_ratio, ("uncorrected", "ddof")),
-        ("trees (Monte-Carlo truth)", t.tree_ratio, ("uncorrected", "ddof")),
-    ):
+    for key in checks:
+        name, check, variants = CHECKS[key]
         start = time.perf_counter()
         passes, medians, wrong = 0, [], dict.fromkeys(variants, 0)
         for seed in range(1000, 1000 + seeds):    # seeds not used by the unit test itself
@@ -131,11 +147,13 @@ def main():
     parser.add_argument("--seeds", type=int, default=50)
     parser.add_argument("--skip-bias", action="store_true")
     parser.add_argument("--skip-pass-rate", action="store_true")
+    parser.add_argument("--checks", default="kernel,trees",
+                        help="which unit checks to rerun over seeds: kernel, trees")
     args = parser.parse_args()
     if not args.skip_bias:
         bias_table(args.n, args.members, args.replicates, args.points)
     if not args.skip_pass_rate:
-        pass_rates(args.seeds)
+        pass_rates(args.seeds, args.checks.split(","))
 
 
 if __name__ == "__main__":
