@@ -1207,7 +1207,20 @@ mod tests {
                 "expected 'bootstrap', 'subsample', 'bayesian' or 'little_bags', got \"jackknife\""
             )
         );
-        assert_eq!(check(5, Scheme::Bootstrap, 1.0, Design::Rows), "group_size");
+        let grouped = ResampleParams {
+            n_rows: 5,
+            scheme: Scheme::Bootstrap,
+            fraction: 1.0,
+            design: Design::Rows,
+            group_size: 2,
+        };
+        assert!(matches!(
+            grouped.check(),
+            Err(Error::InvalidValue {
+                argument: "group_size",
+                ..
+            })
+        ));
     }
 
     fn little(n_rows: usize, fraction: f64, group_size: usize) -> Resampler {
