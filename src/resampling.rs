@@ -23,6 +23,13 @@
 //! blocks      moving-block bootstrap for ordered rows (Künsch 1989, Annals of Statistics
 //!             17(3)): ceil(draws/L) blocks of L consecutive rows, starts uniform on
 //!             0..=n−L, concatenated and cut to `draws` rows (the last block may be shorter)
+//! little_bags the bootstrap of little bags (Sexton & Laake 2009, CSDA 53(3); Athey,
+//!             Tibshirani & Wager 2019, Annals of Statistics 47(2), §4): members come in
+//!             consecutive groups of ℓ = group_size; group g draws a half-sample H_g of
+//!             floor(n/2) distinct rows, and each of its members draws round(n·fraction)
+//!             distinct rows of H_g without replacement (fraction < 1/2, counts 0 or 1).
+//!             H_g comes from the stream of the group's first member (before that member's
+//!             own draw), so a group is a function of its member indices alone
 //! ```
 
 use ndarray::Array2;
@@ -41,6 +48,9 @@ pub enum Scheme {
     Subsample,
     /// Continuous Dirichlet weights (Rubin 1981).
     Bayesian,
+    /// Subsamples inside a half-sample shared by each group of members (Sexton & Laake
+    /// 2009; Athey, Tibshirani & Wager 2019, §4).
+    LittleBags,
 }
 
 impl Scheme {
@@ -50,9 +60,12 @@ impl Scheme {
             "bootstrap" => Ok(Scheme::Bootstrap),
             "subsample" => Ok(Scheme::Subsample),
             "bayesian" => Ok(Scheme::Bayesian),
+            "little_bags" => Ok(Scheme::LittleBags),
             other => Err(Error::value(
                 "scheme",
-                format!("expected 'bootstrap', 'subsample' or 'bayesian', got {other:?}"),
+                format!(
+                    "expected 'bootstrap', 'subsample', 'bayesian' or 'little_bags', got {other:?}"
+                ),
             )),
         }
     }
@@ -63,6 +76,7 @@ impl Scheme {
             Scheme::Bootstrap => "bootstrap",
             Scheme::Subsample => "subsample",
             Scheme::Bayesian => "bayesian",
+            Scheme::LittleBags => "little_bags",
         }
     }
 }
@@ -87,6 +101,9 @@ pub struct ResampleParams {
     pub scheme: Scheme,
     pub fraction: f64,
     pub design: Design,
+    /// Members per group (ℓ) of [`Scheme::LittleBags`], at least 2; 0 for the other
+    /// schemes, which do not group members.
+    pub group_size: usize,
 }
 
 /// Rows (or groups) listed by code: `rows[offsets[c]..offsets[c + 1]]` belong to code `c`.
@@ -152,6 +169,13 @@ enum Plan {
         draws: usize,
         blocks: usize,
     },
+    LittleBags {
+        /// Rows of each group's half-sample, floor(n/2).
+        half: usize,
+        /// Distinct rows each member draws from its group's half.
+        draws: usize,
+        group_size: usize,
+    },
 }
 
 /// Checked parameters, ready to draw any number of members.
@@ -176,11 +200,13 @@ fn draw_size(units: usize, fraction: f64, scheme: Scheme) -> Result<usize> {
         ));
     }
     let size = size as usize;
-    Ok(if scheme == Scheme::Subsample {
-        size.min(units)
-    } else {
-        size
-    })
+    Ok(
+        if matches!(scheme, Scheme::Subsample | Scheme::LittleBags) {
+            size.min(units)
+        } else {
+            size
+        },
+    )
 }
 
 fn check_codes(codes: &[usize], n_rows: usize, argument: &'static str) -> Result<()> {
@@ -201,14 +227,17 @@ impl ResampleParams {
     ///
     /// # Errors
     /// [`Error::InvalidValue`] naming `n_rows`, `fraction`, `strata`, `groups`,
-    /// `block_length` or `scheme` when a value is out of range or a combination is not
-    /// defined (blocks with subsampling or Bayesian weights).
+    /// `block_length`, `group_size` or `scheme` when a value is out of range or a
+    /// combination is not defined (blocks with subsampling or Bayesian weights; little bags
+    /// with strata, groups or blocks, a group size below 2, fewer than 2 rows or a fraction
+    /// not below 1/2).
     pub fn check(self) -> Result<Resampler> {
         let ResampleParams {
             n_rows,
             scheme,
             fraction,
             design,
+            group_size,
         } = self;
         if n_rows == 0 {
             return Err(Error::value("n_rows", "must be at least 1"));
@@ -232,7 +261,17 @@ impl ResampleParams {
                     "has no meaning for scheme='bayesian' (weights always sum to n_rows); leave it at 1.0",
                 ))
             }
+            Scheme::LittleBags => return little_bags_plan(n_rows, fraction, &design, group_size),
             _ => {}
+        }
+        if group_size != 0 {
+            return Err(Error::value(
+                "group_size",
+                format!(
+                    "only scheme='little_bags' groups members; leave it at 0 for scheme={:?}",
+                    scheme.name()
+                ),
+            ));
         }
         let plan = match design {
             Design::Rows => Plan::Rows {
@@ -283,6 +322,66 @@ impl ResampleParams {
             plan,
         })
     }
+}
+
+/// The checked plan of [`Scheme::LittleBags`]: rows only, ℓ ≥ 2, n ≥ 2, 0 < fraction < 1/2
+/// (so that round(n·fraction) ≤ floor(n/2) and every member fits in its group's half).
+fn little_bags_plan(
+    n_rows: usize,
+    fraction: f64,
+    design: &Design,
+    group_size: usize,
+) -> Result<Resampler> {
+    let refused = match design {
+        Design::Rows => None,
+        Design::Strata(_) => Some("strata"),
+        Design::Groups(_) => Some("groups"),
+        Design::Blocks(_) => Some("block_length"),
+    };
+    if let Some(argument) = refused {
+        return Err(Error::value(
+            argument,
+            "scheme='little_bags' draws half-samples of exchangeable rows; strata, groups \
+             and blocks are not supported with it",
+        ));
+    }
+    if group_size < 2 {
+        return Err(Error::value(
+            "group_size",
+            format!(
+                "must be at least 2 for scheme='little_bags' (the within-group variance needs \
+                 two members), got {group_size}"
+            ),
+        ));
+    }
+    if n_rows < 2 {
+        return Err(Error::value(
+            "n_rows",
+            format!("scheme='little_bags' needs at least 2 rows to draw a half, got {n_rows}"),
+        ));
+    }
+    if fraction >= 0.5 {
+        return Err(Error::value(
+            "fraction",
+            format!(
+                "must lie in (0, 0.5) for scheme='little_bags' (each member's share of all \
+                 rows, drawn inside its group's half), got {fraction}"
+            ),
+        ));
+    }
+    let half = n_rows / 2;
+    // fraction < 1/2 gives n·fraction < n/2, whose rounding is at most floor(n/2).
+    let draws = draw_size(n_rows, fraction, Scheme::LittleBags)?.min(half);
+    Ok(Resampler {
+        n_rows,
+        scheme: Scheme::LittleBags,
+        fraction,
+        plan: Plan::LittleBags {
+            half,
+            draws,
+            group_size,
+        },
+    })
 }
 
 /// An unsigned integer type that in-bag counts can be stored in.
@@ -387,7 +486,9 @@ impl Resampler {
     pub fn draws_per_member(&self) -> usize {
         match &self.plan {
             _ if self.scheme == Scheme::Bayesian => self.n_rows,
-            Plan::Rows { draws } | Plan::Blocks { draws, .. } => *draws,
+            Plan::Rows { draws } | Plan::Blocks { draws, .. } | Plan::LittleBags { draws, .. } => {
+                *draws
+            }
             Plan::Strata { draws, .. } => draws.iter().sum(),
             Plan::Groups { groups, draws } => {
                 // A drawn group contributes all its rows; the sum varies by member unless
@@ -399,14 +500,30 @@ impl Resampler {
 
     /// The largest count any row can receive: the bound the output type must cover.
     pub fn max_possible_count(&self) -> u64 {
-        if self.scheme == Scheme::Subsample {
+        if matches!(self.scheme, Scheme::Subsample | Scheme::LittleBags) {
             return 1;
         }
         match &self.plan {
-            Plan::Rows { draws } => *draws as u64,
+            Plan::Rows { draws } | Plan::LittleBags { draws, .. } => *draws as u64,
             Plan::Strata { draws, .. } => draws.iter().copied().max().unwrap_or(0) as u64,
             Plan::Groups { draws, .. } => *draws as u64,
             Plan::Blocks { blocks, .. } => *blocks as u64,
+        }
+    }
+
+    /// Members per group of [`Scheme::LittleBags`] (ℓ); 0 for the other schemes.
+    pub fn group_size(&self) -> usize {
+        match &self.plan {
+            Plan::LittleBags { group_size, .. } => *group_size,
+            _ => 0,
+        }
+    }
+
+    /// Rows of each group's half-sample, floor(n/2), for [`Scheme::LittleBags`].
+    pub fn half_size(&self) -> Option<usize> {
+        match &self.plan {
+            Plan::LittleBags { half, .. } => Some(*half),
+            _ => None,
         }
     }
 
@@ -511,9 +628,14 @@ impl Resampler {
     /// Writes the counts of members `0..out.len() / n_rows` into `out` (row-major
     /// members × n_rows, all zeros on entry), e.g. straight into a numpy array.
     ///
+    /// For little bags the members are filled a whole group at a time: the group's half is
+    /// drawn from its first member's stream, then each member draws from its own stream.
+    ///
     /// # Errors
     /// `scheme` for Bayesian weights; `members` if `out` is empty or not a whole number of
-    /// rows; [`Error::CountOverflow`] if a count does not fit `T`; [`Error::Interrupted`].
+    /// rows; `n_members` if little bags get a member count that is not a multiple of the
+    /// group size; [`Error::CountOverflow`] if a count does not fit `T`;
+    /// [`Error::Interrupted`].
     pub fn fill_counts<T: Count>(
         &self,
         seed: u64,
@@ -535,6 +657,21 @@ impl Resampler {
         let members = out.len() / n;
         let mut streams = MemberStreams::new(seed);
         let chunk = chunk_members(self.draws_per_member(), pool.threads());
+        if let Plan::LittleBags {
+            half,
+            draws,
+            group_size,
+        } = self.plan
+        {
+            return self.fill_little_bags(
+                &mut streams,
+                out,
+                (half, draws, group_size),
+                chunk,
+                pool,
+                monitor,
+            );
+        }
         let mut done = 0;
         for block in out.chunks_mut(chunk * n) {
             let k = block.len() / n;
@@ -551,9 +688,54 @@ impl Resampler {
         Ok(())
     }
 
+    /// The little-bags part of [`fill_counts`](Resampler::fill_counts): chunks of whole
+    /// groups, one rayon task per group.
+    fn fill_little_bags<T: Count>(
+        &self,
+        streams: &mut MemberStreams,
+        out: &mut [T],
+        (half, draws, group_size): (usize, usize, usize),
+        chunk: usize,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        let n = self.n_rows;
+        let members = out.len() / n;
+        if members % group_size != 0 {
+            return Err(Error::value(
+                "n_members",
+                format!(
+                    "must be a multiple of group_size ({group_size}) for scheme='little_bags', \
+                     got {members}"
+                ),
+            ));
+        }
+        let chunk = chunk.div_ceil(group_size) * group_size;
+        let mut done = 0;
+        for block in out.chunks_mut(chunk * n) {
+            let k = block.len() / n;
+            let mut draws_of = streams.take(k);
+            pool.run(|| {
+                block
+                    .par_chunks_mut(group_size * n)
+                    .zip(draws_of.par_chunks_mut(group_size))
+                    .for_each(|(rows, d)| fill_group(d, rows, n, half, draws))
+            });
+            done += k;
+            monitor.progress(done, members)?;
+        }
+        Ok(())
+    }
+
     /// Writes one member's counts into `row` (all zeros on entry).
     fn fill_member<T: Count>(&self, d: &mut Draws, row: &mut [T]) -> Result<()> {
         let overflow = match (&self.plan, self.scheme) {
+            (Plan::LittleBags { .. }, _) => {
+                return Err(Error::value(
+                    "scheme",
+                    "little bags are drawn a whole group at a time, not member by member",
+                ))
+            }
             (Plan::Rows { draws }, Scheme::Bootstrap) => {
                 let n = row.len();
                 let mut overflow = false;
@@ -758,6 +940,25 @@ impl Resampler {
     }
 }
 
+/// One group of little bags: `rows` holds the group's ℓ = `streams.len()` members
+/// (row-major, `n` rows each, zeros on entry). The half H (`half` distinct rows of 0..n) is
+/// drawn from the first member's stream, then member k draws `draws` distinct rows of H
+/// from stream k (the first member continuing after the half).
+fn fill_group<T: Count>(
+    streams: &mut [Draws],
+    rows: &mut [T],
+    n: usize,
+    half: usize,
+    draws: usize,
+) {
+    let mut in_half = vec![0u8; n];
+    subsample_into(&mut streams[0], n, half, &[], &mut in_half);
+    let half_rows: Vec<usize> = (0..n).filter(|&i| in_half[i] == 1).collect();
+    for (d, row) in streams.iter_mut().zip(rows.chunks_mut(n)) {
+        subsample_into(d, half, draws, &half_rows, row);
+    }
+}
+
 /// Marks `size` distinct units of `0..units` with a count of one (Floyd's algorithm:
 /// Bentley & Floyd 1987, "A sample of brilliance", CACM 30(9)); O(size) draws, no
 /// extra memory, the output itself serving as the membership test. `rows` maps unit
@@ -784,7 +985,8 @@ fn subsample_into<T: Count>(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::parallel::{Pool, Silent};
+    use crate::parallel::{Pool, Silent, Threads};
+    use ndarray::Axis;
     const POOL: Pool = Pool::Global;
 
     fn plan(n_rows: usize, scheme: Scheme, fraction: f64, design: Design) -> Resampler {
@@ -793,6 +995,7 @@ mod tests {
             scheme,
             fraction,
             design,
+            group_size: 0,
         }
         .check()
         .unwrap()
@@ -962,6 +1165,7 @@ mod tests {
             scheme,
             fraction,
             design,
+            group_size: 0,
         })
         .check()
         {
@@ -1000,8 +1204,130 @@ mod tests {
             Scheme::parse("jackknife").unwrap_err(),
             Error::value(
                 "scheme",
-                "expected 'bootstrap', 'subsample' or 'bayesian', got \"jackknife\""
+                "expected 'bootstrap', 'subsample', 'bayesian' or 'little_bags', got \"jackknife\""
             )
         );
+        let grouped = ResampleParams {
+            n_rows: 5,
+            scheme: Scheme::Bootstrap,
+            fraction: 1.0,
+            design: Design::Rows,
+            group_size: 2,
+        };
+        assert!(matches!(
+            grouped.check(),
+            Err(Error::InvalidValue {
+                argument: "group_size",
+                ..
+            })
+        ));
+    }
+
+    fn little(n_rows: usize, fraction: f64, group_size: usize) -> Resampler {
+        ResampleParams {
+            n_rows,
+            scheme: Scheme::LittleBags,
+            fraction,
+            design: Design::Rows,
+            group_size,
+        }
+        .check()
+        .unwrap()
+    }
+
+    #[test]
+    fn little_bags_stay_inside_their_group_half() {
+        // Sexton & Laake (2009); Athey, Tibshirani & Wager (2019), §4: each group shares a
+        // half-sample of floor(n/2) rows, each member draws round(n·fraction) of them.
+        for (n, fraction, l) in [(101, 0.1, 2), (100, 0.3, 3), (7, 0.49, 4), (2, 0.2, 2)] {
+            let r = little(n, fraction, l);
+            let members = 6 * l;
+            let c = as_u64(&r.counts(11, members, &POOL, &Silent).unwrap());
+            let draws = ((n as f64 * fraction).round() as u64).max(1);
+            assert_eq!(r.draws_per_member() as u64, draws);
+            assert_eq!(r.half_size(), Some(n / 2));
+            for g in 0..members / l {
+                let group = c.slice(ndarray::s![g * l..(g + 1) * l, ..]);
+                let union = group
+                    .axis_iter(Axis(1))
+                    .filter(|column| column.iter().any(|&v| v > 0))
+                    .count();
+                assert!(union <= n / 2, "group {g}: {union} rows outside a half");
+                for row in group.rows() {
+                    assert!(row.iter().all(|&v| v <= 1));
+                    assert_eq!(row.sum(), draws);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn little_bags_halves_cover_all_rows_evenly() {
+        // Over many groups every row is in a half with probability floor(n/2)/n, so a member
+        // draws it with probability round(n·fraction)/n (exchangeability; common practice).
+        let (n, l, groups) = (50, 2, 2000);
+        let r = little(n, 0.2, l);
+        let c = as_u64(&r.counts(12, groups * l, &POOL, &Silent).unwrap());
+        let expected = (groups * l) as f64 * 10.0 / 50.0;
+        let sd = (expected * (1.0 - 0.2)).sqrt() * 2f64.sqrt();
+        for column in c.axis_iter(Axis(1)) {
+            let hits = column.sum() as f64;
+            assert!((hits - expected).abs() < 5.0 * sd, "{hits} vs {expected}");
+        }
+    }
+
+    #[test]
+    fn little_bags_do_not_depend_on_threads_or_later_groups() {
+        let r = little(300, 0.1, 3);
+        let few = as_u64(&r.counts(13, 6, &POOL, &Silent).unwrap());
+        let many = as_u64(&r.counts(13, 3000, &POOL, &Silent).unwrap());
+        assert_eq!(few, many.slice(ndarray::s![..6, ..]));
+        let one = Threads::Fixed(1).pool().unwrap();
+        let single = as_u64(&r.counts(13, 3000, &one, &Silent).unwrap());
+        assert_eq!(single, many);
+        let narrow = r.counts_as::<u16>(13, 3000, &POOL, &Silent).unwrap();
+        assert_eq!(narrow.mapv(u64::from), many);
+    }
+
+    #[test]
+    fn little_bags_refuse_what_they_do_not_support() {
+        let check = |n, fraction, design, group_size| match (ResampleParams {
+            n_rows: n,
+            scheme: Scheme::LittleBags,
+            fraction,
+            design,
+            group_size,
+        })
+        .check()
+        {
+            Err(Error::InvalidValue { argument, .. }) => argument,
+            other => panic!("expected an error, got {other:?}"),
+        };
+        assert_eq!(check(10, 0.5, Design::Rows, 2), "fraction");
+        assert_eq!(check(10, 0.7, Design::Rows, 2), "fraction");
+        assert_eq!(check(10, 0.2, Design::Rows, 1), "group_size");
+        assert_eq!(check(10, 0.2, Design::Rows, 0), "group_size");
+        assert_eq!(check(1, 0.2, Design::Rows, 2), "n_rows");
+        assert_eq!(check(10, 0.2, Design::Strata(vec![0; 10]), 2), "strata");
+        assert_eq!(check(10, 0.2, Design::Groups(vec![0; 10]), 2), "groups");
+        assert_eq!(check(10, 0.2, Design::Blocks(2), 2), "block_length");
+        let r = little(10, 0.2, 2);
+        assert!(matches!(
+            r.counts(1, 3, &POOL, &Silent),
+            Err(Error::InvalidValue {
+                argument: "n_members",
+                ..
+            })
+        ));
+        assert!(matches!(
+            r.bayesian_weights(1, 2, &POOL, &Silent),
+            Err(Error::InvalidValue {
+                argument: "scheme",
+                ..
+            })
+        ));
+        assert_eq!(r.max_possible_count(), 1);
+        assert_eq!(r.group_size(), 2);
+        assert_eq!(Scheme::parse("little_bags").unwrap().name(), "little_bags");
     }
 }

@@ -16,6 +16,7 @@ __all__ = [
     "DiversityMeasures",
     "default_sizes",
     "LinearEnsemble",
+    "little_bags_variance",
     "LossCurves",
     "majority_vote",
     "mean_prediction",
@@ -47,9 +48,12 @@ class Resampler:
         strata: npt.NDArray[np.int64] | None = None,
         groups: npt.NDArray[np.int64] | None = None,
         block_length: int | None = None,
+        group_size: int = 0,
     ) -> Resampler: ...
     @property
     def draws_per_member(self) -> int: ...
+    @property
+    def group_size(self) -> int: ...
     @property
     def max_possible_count(self) -> int: ...
     def counts(
@@ -190,6 +194,16 @@ class CountGram:
     def to_bytes(self) -> bytes: ...
     @staticmethod
     def from_bytes(data: bytes) -> CountGram: ...
+
+def little_bags_variance(
+    members: npt.NDArray[np.floating], group_size: int, n_jobs: int | None = None
+) -> tuple[
+    npt.NDArray[np.float64],
+    npt.NDArray[np.float64],
+    npt.NDArray[np.float64],
+    npt.NDArray[np.float64],
+]: ...
+
 # -- aggregation ---------------------------------------------------------------------------
 
 def mean_prediction(

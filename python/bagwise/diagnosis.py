@@ -198,7 +198,7 @@ def _diagnose_read(read, y, *, counts, reference, train_members, y_train, seed, 
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,
-              members_are_training, member_count=None):
+              members_are_training, member_count=None, group_size=0):
     """`diagnose` (``train_y`` is its ``y_train``); ``members_are_training=False`` never
     reads ``members`` as training-row predictions (None: when ``counts`` has ``n_points``
     columns). Each warning of the
@@ -210,7 +210,7 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_
         inputs = Inputs(kind=kind, members=members, y=y, counts=counts,
                         train_members=train_members, y_train=train_y, reference=reference,
                         seed=seed, n_jobs=n_jobs, members_are_training=members_are_training,
-                        member_count=member_count)
+                        member_count=member_count, group_size=group_size)
         done: dict[str, Any] = {}
         for section in SECTIONS:
             done[section.key] = section.compute(inputs, done)

@@ -2,7 +2,10 @@
 
 `prediction_variance` gives the infinitesimal-jackknife (Efron 2014) or
 jackknife-after-bootstrap variance of the ensemble mean at each point, with the Monte-Carlo
-bias corrections of Wager, Hastie & Efron (2014); `spread` splits each point's member
+bias corrections of Wager, Hastie & Efron (2014), or, for members drawn by
+``resample(..., scheme="little_bags")``, the bootstrap of little bags (Sexton & Laake 2009;
+Athey, Tibshirani & Wager 2019, §4), whose member budget does not grow with the number of
+training rows; `spread` splits each point's member
 variance into the part shared through the training data (between) and the part more members
 average away (within). Both work from the members' predictions and the in-bag counts they
 were fit with, through Gram matrices of the counts (`CountGram`) that can be built once and
@@ -38,6 +41,15 @@ STEADY_NOISE = 0.2
 ESTIMABLE_NOISE = 0.5
 #: The values of every ``status`` array, best first.
 STATUSES = ("steady", "noisy", "not estimable")
+
+#: Little bags: above this share of the rows per member, the half-sampling argument's
+#: higher-order terms bias the variance upward noticeably (tests/bench/bench_little_bags.py:
+#: median ratio to the Monte-Carlo truth 1.15 ± 0.10 at share 0.1, 1.28 ± 0.06 at 0.2).
+LITTLE_BAGS_BIAS_SHARE = 0.15
+#: The measured median ratio (little-bags variance / Monte-Carlo truth) by share, for the
+#: reading of a result; from tests/bench/bench_little_bags.py (Friedman #1 with noise 1,
+#: n = 4000, 300 native trees in groups of 2, 100 training sets).
+LITTLE_BAGS_MEASURED_RATIO = {0.1: 1.15, 0.2: 1.28, 0.3: 1.51, 0.4: 2.10}
 
 
 def _counts_iv(counts) -> np.ndarray:
@@ -280,7 +292,9 @@ class PredictionVariance(Result):
         Training rows in every member (jackknife only): no leave-one-out mean exists for
         them, so they are left out of the jackknife sum.
     group_size : int
-        Members per group of the bootstrap of little bags; 0 for the other methods.
+        Members per group (ℓ) for ``method="little_bags"``, whose ``raw_variance`` is the
+        variance of the group means across groups and ``correction`` the mean within-group
+        variance over ℓ; 0 for the other methods.
     """
 
     _title: ClassVar[str] = "PredictionVariance"
@@ -302,10 +316,12 @@ class PredictionVariance(Result):
     n_clipped: int
     n_without_out_of_bag: int
     group_size: int
+    _share: float = dataclasses.field(repr=False)
 
     @classmethod
     def _from_parts(cls, *, method, corrected, raw, correction, mean, n_members, n_rows,
-                    scheme, n_without_out_of_bag, group_size=0) -> PredictionVariance:
+                    scheme, n_without_out_of_bag, group_size=0,
+                    member_share=math.nan) -> PredictionVariance:
         """The one place a PredictionVariance is built: from the core's estimate."""
         with np.errstate(divide="ignore", invalid="ignore"):
             correction_share = np.where(raw > 0, correction / raw, np.nan)
@@ -321,7 +337,8 @@ class PredictionVariance(Result):
                      quantity="value" if mean.ndim == 1 else "class probability",
                      n_members=n_members, n_rows=n_rows, scheme=scheme,
                      n_clipped=int(negative.sum()),
-                     n_without_out_of_bag=n_without_out_of_bag, group_size=group_size)
+                     n_without_out_of_bag=n_without_out_of_bag, group_size=group_size,
+                     _share=member_share)
         headline = _at_predicted_class(status, mean)
         n_not = int((headline == STATUSES[2]).sum())
         if n_not:
@@ -459,6 +476,10 @@ class PredictionVariance(Result):
         ]
         if self.method == "jackknife":
             rows.append(("rows never out of bag", str(self.n_without_out_of_bag)))
+        if self.method == "little_bags":
+            rows.append(("groups", f"{self.n_members // self.group_size:,} of "
+                                   f"{self.group_size}"))
+            rows.append(("share per member", _share_reading(self._share)))
         return rows
 
     def _reading(self):
@@ -488,8 +509,74 @@ def _is_nan(value) -> bool:
     return isinstance(value, float) and math.isnan(value)
 
 
+def _share_reading(share: float) -> str:
+    """The share of rows per member, and whether it is large enough to bias little bags."""
+    if not math.isfinite(share):
+        return "n/a"
+    measured = {s: r for s, r in LITTLE_BAGS_MEASURED_RATIO.items() if math.isfinite(r)}
+    nearest = min(measured, key=lambda s: abs(s - share))
+    hint = f"measured on trees: x{measured[nearest]:.2f} of the truth at {nearest:g}"
+    if share <= LITTLE_BAGS_BIAS_SHARE:
+        return f"{share:.2f} of the rows ({hint})"
+    return (f"{share:.2f} of the rows: above {LITTLE_BAGS_BIAS_SHARE:g}, large enough to "
+            f"overstate the variance ({hint})")
+
+
+def _little_bags_iv(counts, group_size) -> tuple[np.ndarray, int, float]:
+    """Checks that ``counts`` look like little bags drawn in consecutive groups of
+    ``group_size`` (0/1, equal row sums, each group's members inside one half of the
+    rows); returns them with ℓ and each member's share of the rows."""
+    counts = _counts_iv(counts)
+    if group_size is None:
+        group_size = 2
+    if isinstance(group_size, bool) or not isinstance(group_size, (int, np.integer)):
+        raise TypeError(f"`group_size`: expected an integer, got {type(group_size).__name__}")
+    group_size = int(group_size)
+    n_members, n_rows = counts.shape
+    if group_size < 2:
+        raise ValueError("`group_size`: must be at least 2 (the within-group variance needs "
+                         f"two members), got {group_size}")
+    if n_members % group_size:
+        raise ValueError(f"`group_size`: the {n_members} members do not split into whole "
+                         f"groups of {group_size} (little bags lay members out in consecutive "
+                         "groups, as `resample` draws them)")
+    if counts.max() > 1:
+        raise ValueError(f"`counts`: little bags draw each row at most once per member (0/1 "
+                         f"counts), found a count of {int(counts.max())}")
+    sums = counts.sum(axis=1, dtype=np.int64)
+    if sums.min() != sums.max():
+        raise ValueError(f"`counts`: little-bags members all draw the same number of rows; "
+                         f"these draw between {sums.min()} and {sums.max()}")
+    if sums[0] == 0:
+        raise ValueError("`counts`: the members draw no rows")
+    half = n_rows // 2
+    used = counts.reshape(n_members // group_size, group_size, n_rows).any(axis=1).sum(axis=1)
+    wide = np.flatnonzero(used > half)
+    if len(wide):
+        g = int(wide[0])
+        raise ValueError(
+            f"`counts`: the members of group {g} (members {g * group_size} to "
+            f"{(g + 1) * group_size - 1}) use {int(used[g])} distinct rows, more than one half "
+            f"({half} of {n_rows}); little bags keep each group inside one half - are the "
+            f"members laid out in consecutive groups of {group_size}?")
+    return counts, group_size, float(sums[0]) / n_rows
+
+
+def _little_bags(members, counts, group_size, corrected, n_jobs) -> PredictionVariance:
+    """The bootstrap-of-little-bags `PredictionVariance` (checked inputs)."""
+    counts, group_size, share = _little_bags_iv(counts, group_size)
+    members, shape = _members_iv(members, counts.shape[0])
+    raw, correction, _, mean = (
+        part.reshape(shape)
+        for part in _core.little_bags_variance(members, group_size, n_jobs_value(n_jobs)))
+    return PredictionVariance._from_parts(
+        method="little_bags", corrected=corrected, raw=raw, correction=correction, mean=mean,
+        n_members=counts.shape[0], n_rows=counts.shape[1], scheme="little_bags",
+        n_without_out_of_bag=0, group_size=group_size, member_share=share)
+
+
 def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=None,
-                        n_jobs=None) -> PredictionVariance:
+                        group_size=None, n_jobs=None) -> PredictionVariance:
     """Variance of the bagged prediction at every point, from one fitted ensemble.
 
     Parameters
@@ -498,18 +585,32 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
         Each member's prediction at the points (or the probability of one class).
     counts : array of non-negative integers, shape (n_members, n_rows)
         The in-bag counts the members were fit with (any integer dtype; kept as is).
-    method : {"ij", "jackknife"}
+    method : {"ij", "jackknife", "little_bags"}
         ``"ij"``: infinitesimal jackknife V_IJ = Σ_i Cov_b(N_bi, t_b)² (Efron 2014).
         ``"jackknife"``: jackknife-after-bootstrap V_J = (n−1)/n Σ_i (t̄_(−i) − t̄)²
         (Wager, Hastie & Efron 2014); rows in every member have no t̄_(−i) and are left out
         (counted in ``n_without_out_of_bag``). Bootstrap draws only.
+        ``"little_bags"``: the bootstrap of little bags (Sexton & Laake 2009; Athey,
+        Tibshirani & Wager 2019, §4, eq. 12) for members drawn by
+        ``resample(..., scheme="little_bags")``, laid out in consecutive groups of
+        ``group_size``: S²_B − W/ℓ with S²_B the variance of the group means across groups
+        (``raw_variance``) and W the mean within-group variance (``correction = W/ℓ``);
+        unbiased for the variance of the half-sample mean, which approximates that of the
+        ensemble mean over training sets while each member's share of the rows is small
+        (derived in the Rust docs). Its member budget does not grow with ``n_rows``.
     corrected : bool
         Subtract the Monte-Carlo bias: (n/B²) Σ_b (t_b − t̄)² for the IJ, (e − 1) times that
-        for the jackknife (Wager, Hastie & Efron 2014). For subsamples of s rows the IJ is
-        scaled by ((n−1)/n)(n/(n−s))² (Wager & Athey 2018) and the correction is
-        s(n−s)/(n B²) Σ_b (t_b − t̄)² times that scale (derived in the Rust docs).
-    scheme : {"bootstrap", "subsample"} or None
-        None detects the scheme from the counts.
+        for the jackknife (Wager, Hastie & Efron 2014), W/ℓ for little bags. For subsamples
+        of s rows the IJ is scaled by ((n−1)/n)(n/(n−s))² (Wager & Athey 2018) and the
+        correction is s(n−s)/(n B²) Σ_b (t_b − t̄)² times that scale (derived in the Rust
+        docs).
+    scheme : {"bootstrap", "subsample", "little_bags"} or None
+        None detects the scheme from the counts (bootstrap or subsample); the IJ and the
+        jackknife refuse ``"little_bags"``, whose members are not independent draws.
+    group_size : int, optional
+        Members per group for ``method="little_bags"`` (default 2); the counts are checked
+        to look like little bags (0/1, equal row sums, each group's members inside one half
+        of the rows). Other methods refuse it.
     n_jobs : int, optional
 
     Returns
@@ -527,7 +628,33 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
     >>> ideal = x.var() / 200                            # Σ(x - x̄)² / n²
     >>> bool(abs(result.variance[0] / ideal - 1) < 0.1)
     True
+
+    Little bags: 250 groups of 8 members, each member a fifth of the rows, drawn from its
+    group's half; the variance of the mean over halves of the sample is
+    ``x.var(ddof=1) / n`` (sampling without replacement).
+
+    >>> draw = bagwise.resample(200, 2000, scheme="little_bags", fraction=0.2, group_size=8,
+    ...                         rng=0)
+    >>> subsample_means = (draw.counts @ x / 40)[:, None]
+    >>> little = bagwise.prediction_variance(subsample_means, draw.counts, method="little_bags",
+    ...                                      group_size=8)
+    >>> bool(abs(little.variance[0] / (x.var(ddof=1) / 200) - 1) < 0.3)
+    True
     """
+    if method == "little_bags":
+        if scheme not in (None, "little_bags"):
+            raise ValueError(f"`scheme`: method='little_bags' reads little-bags counts, not "
+                             f"scheme={scheme!r}")
+        return _little_bags(members, counts, group_size, corrected, n_jobs)
+    if method not in ("ij", "jackknife"):
+        raise ValueError(f"`method`: expected 'ij', 'jackknife' or 'little_bags', got {method!r}")
+    if group_size is not None:
+        raise ValueError("`group_size`: only method='little_bags' reads groups of members")
+    if scheme == "little_bags":
+        raise ValueError(
+            f"`scheme`: method={method!r} is not valid for little-bags counts (members of a "
+            "group share a half-sample, so they are not independent draws); use "
+            "method='little_bags'")
     gram = CountGram(counts, scheme=scheme, jackknife=(method == "jackknife"), n_jobs=n_jobs)
     return gram.prediction_variance(members, method=method, corrected=corrected, n_jobs=n_jobs)
 

@@ -33,7 +33,7 @@ pub struct PyResampler {
 #[pymethods]
 impl PyResampler {
     #[new]
-    #[pyo3(signature = (n_rows, scheme, fraction, strata=None, groups=None, block_length=None))]
+    #[pyo3(signature = (n_rows, scheme, fraction, strata=None, groups=None, block_length=None, group_size=0))]
     fn new(
         n_rows: i64,
         scheme: &str,
@@ -41,6 +41,7 @@ impl PyResampler {
         strata: Option<PyReadonlyArray1<'_, i64>>,
         groups: Option<PyReadonlyArray1<'_, i64>>,
         block_length: Option<i64>,
+        group_size: usize,
     ) -> PyResult<Self> {
         let design = match (
             codes(strata, "strata")?,
@@ -62,6 +63,7 @@ impl PyResampler {
             scheme: Scheme::parse(scheme).map_err(to_py_err)?,
             fraction,
             design,
+            group_size,
         };
         params
             .check()
@@ -73,6 +75,12 @@ impl PyResampler {
     #[getter]
     fn draws_per_member(&self) -> usize {
         self.inner.draws_per_member()
+    }
+
+    /// Members per little-bags group; 0 for the other schemes.
+    #[getter]
+    fn group_size(&self) -> usize {
+        self.inner.group_size()
     }
 
     /// The largest count any row can receive.

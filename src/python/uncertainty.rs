@@ -6,7 +6,9 @@ use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::{run_core, to_py_err, CountArray, FloatArray};
-use crate::uncertainty::{CountGram, DrawKind, GramCount, Method};
+use crate::uncertainty::{
+    little_bags_variance as core_little_bags, CountGram, DrawKind, GramCount, Method,
+};
 
 fn parse_kind(kind: Option<&str>, subsample_rows: Option<usize>) -> PyResult<Option<DrawKind>> {
     match (kind, subsample_rows) {
@@ -163,6 +165,33 @@ impl PyCountGram {
     }
 }
 
+/// (S²_B, W/ℓ, W, mean) per point for little-bags `members` (n_members, n_points) laid out
+/// in consecutive groups of `group_size`.
+#[pyfunction]
+#[pyo3(signature = (members, group_size, n_jobs=None))]
+#[allow(clippy::type_complexity)]
+fn little_bags_variance(
+    py: Python<'_>,
+    members: &Bound<'_, PyAny>,
+    group_size: usize,
+    n_jobs: Option<usize>,
+) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
+    let members = FloatArray::<numpy::Ix2>::extract(members, "members")?;
+    let estimate = with_float!(members, |view| {
+        run_core(py, n_jobs, None, |pool, _| {
+            core_little_bags(view, group_size, pool)
+        })
+    })?;
+    let arr = |a: numpy::ndarray::Array1<f64>| a.into_pyarray(py).into_any().unbind();
+    Ok((
+        arr(estimate.raw),
+        arr(estimate.correction),
+        arr(estimate.within),
+        arr(estimate.mean),
+    ))
+}
+
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
-    m.add_class::<PyCountGram>()
+    m.add_class::<PyCountGram>()?;
+    m.add_function(wrap_pyfunction!(little_bags_variance, m)?)
 }

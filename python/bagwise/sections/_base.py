@@ -34,6 +34,9 @@ class Inputs:
     n_jobs: int | None = None
     members_are_training: bool | None = None
     member_count: str | None = None
+    #: Members per group when the counts come from the bootstrap of little bags (then the
+    #: standard errors use its estimator and the IJ-based spread is left out); 0 otherwise.
+    group_size: int = 0
 
     @functools.cached_property
     def one_value(self) -> tuple[np.ndarray, np.ndarray] | None:

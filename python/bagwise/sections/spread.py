@@ -17,8 +17,8 @@ class SpreadSection(Section):
     def compute(self, inputs, done):
         from ..uncertainty import spread
 
-        if inputs.counts is None or inputs.kind == "labels":
-            return None
+        if inputs.counts is None or inputs.kind == "labels" or inputs.group_size:
+            return None           # the split rests on the IJ, not valid for little bags
         return spread(inputs.members, inputs.counts, n_jobs=inputs.n_jobs)
 
     def summary(self, result, diagnosis):

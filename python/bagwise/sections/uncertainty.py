@@ -13,15 +13,19 @@ class UncertaintySection(Section):
     key = "uncertainty"
     title = "Uncertainty of the ensemble's mean"
     result_type = "PredictionVariance"
-    doc = ("`prediction_variance` (infinitesimal jackknife, bias-corrected) of the ensemble "
-           "at the points, every class's probability for class probabilities; None without "
-           "counts or for labels.")
+    doc = ("`prediction_variance` (infinitesimal jackknife, bias-corrected; the bootstrap of "
+           "little bags for a bag fitted with scheme='little_bags') of the ensemble at the "
+           "points, every class's probability for class probabilities; None without counts "
+           "or for labels.")
 
     def compute(self, inputs, done):
         from ..uncertainty import prediction_variance
 
         if inputs.counts is None or inputs.kind == "labels":
             return None
+        if inputs.group_size:
+            return prediction_variance(inputs.members, inputs.counts, method="little_bags",
+                                       group_size=inputs.group_size, n_jobs=inputs.n_jobs)
         return prediction_variance(inputs.members, inputs.counts, method="ij",
                                    corrected=True, n_jobs=inputs.n_jobs)
 
@@ -47,7 +51,9 @@ class UncertaintySection(Section):
         line = result._reading()
         if result._typical() is not None and counts["steady"] < total:
             line += f"; steady at {counts['steady'] / total:.0%} of points"
-        return [line + " (infinitesimal jackknife)"]
+        method = ("bootstrap of little bags" if result.method == "little_bags"
+                  else "infinitesimal jackknife")
+        return [f"{line} ({method})"]
 
     def needed(self, result, tolerance):
         from ..uncertainty import STEADY_NOISE
