@@ -412,9 +412,13 @@ def test_regressor_uses_the_default_share_and_little_bags_variance():
         bag.spread(X[:30])
     restored = pickle.loads(pickle.dumps(bag))
     assert restored.group_size == 2
-    with pytest.warns(BagwiseWarning, match="leaves out standard errors"):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", BagwiseWarning)
         diagnosis = bag.diagnose(X[:30], y[:30])
-    assert diagnosis is not None
+    # the diagnosis uses the little-bags estimator and leaves out the IJ-based split
+    assert diagnosis.uncertainty.method == "little_bags"
+    np.testing.assert_array_equal(diagnosis.uncertainty.variance, direct.variance)
+    assert diagnosis.spread is None
 
 
 def test_other_bags_refuse_the_little_bags_method():
@@ -424,7 +428,7 @@ def test_other_bags_refuse_the_little_bags_method():
         bag.prediction_variance(X[:5], method="little_bags")
 
 
-def test_classifier_gives_little_bags_variance_of_the_last_class():
+def test_classifier_gives_little_bags_variance_of_every_class():
     X, y = _data()
     labels = np.where(y > 0, "high", "low")
     bag = bagwise.BagClassifier("neighbors", n_members=30, scheme="little_bags", group_size=3,
@@ -432,10 +436,12 @@ def test_classifier_gives_little_bags_variance_of_the_last_class():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", BagwiseWarning)
         result = bag.prediction_variance(X[:20])
-    probabilities = bag.member_predictions(X[:20])[:, :, -1]
-    s2_b, within, _ = _defining_sums(probabilities, 3)
-    np.testing.assert_allclose(result.raw_variance, s2_b, rtol=1e-12)
-    np.testing.assert_allclose(result.correction, within / 3, rtol=1e-12)
+    assert result.raw_variance.shape == (20, 2)
+    for k in range(2):
+        probabilities = bag.member_predictions(X[:20])[:, :, k]
+        s2_b, within, _ = _defining_sums(probabilities, 3)
+        np.testing.assert_allclose(result.raw_variance[:, k], s2_b, rtol=1e-12)
+        np.testing.assert_allclose(result.correction[:, k], within / 3, rtol=1e-12)
 
 
 def test_a_large_share_warns_once_and_says_so():
