@@ -80,23 +80,31 @@ def test_cross_validated_single_losses_equal_sklearn_cross_val_predict(diabetes)
 
 def test_out_of_bag_side_and_its_decomposition(tree_verdict):
     bag, v = tree_verdict
-    # the per-row losses average to the core's out-of-bag squared error
     oob = bag.out_of_bag()
     assert v.n_rows_used + v.n_without_out_of_bag == v.n_rows == 442
     assert v.n_without_out_of_bag == oob.n_without_out_of_bag
-    assert v.ensemble_loss == pytest.approx(oob.squared_error, rel=1e-12)
-    # Krogh & Vedelsby 1995, per row over its out-of-bag members (numpy written here):
-    # (f - y)^2 = mean_b (t_b - y)^2 - mean_b (t_b - f)^2
     members = bag.out_of_bag_predictions()[:, oob.covered]
     y = bag._train_y[oob.covered]
     f = np.nanmean(members, axis=0)
+    # each row's out-of-bag loss moved to the ensemble of all 100 members by the
+    # finite-ensemble law, loss - W (1/n_i - 1/M) (Ueda & Nakano 1996 with independent
+    # members; numpy written here); before the move it averages to the core's out-of-bag
+    # squared error
+    n_i = np.sum(~np.isnan(members), axis=0)
+    law = np.nanvar(members, axis=0, ddof=1) * (1 / n_i - 1 / 100)
+    assert np.mean(v.ensemble_loss_per_point + law) == pytest.approx(oob.squared_error,
+                                                                     rel=1e-12)
+    np.testing.assert_allclose(v.ensemble_loss_per_point, (f - y) ** 2 - law, rtol=1e-9,
+                               atol=1e-9)
+    # Krogh & Vedelsby 1995, per row over its out-of-bag members (numpy written here):
+    # (f - y)^2 = mean_b (t_b - y)^2 - mean_b (t_b - f)^2
     d = v.decomposition
     np.testing.assert_allclose(d.member_loss_per_point, np.nanmean((members - y) ** 2, axis=0),
                                rtol=1e-12)
     np.testing.assert_allclose(d.ambiguity_per_point, np.nanmean((members - f) ** 2, axis=0),
                                rtol=1e-10, atol=1e-12)
     assert d.ensemble_loss == pytest.approx(d.member_loss - d.ambiguity, rel=1e-10)
-    assert d.ensemble_loss == pytest.approx(v.ensemble_loss, rel=1e-12)
+    assert d.ensemble_loss == pytest.approx(oob.squared_error, rel=1e-12)
     assert d.ambiguity > 0
 
 
@@ -247,8 +255,11 @@ def test_classifier_reports_three_losses_labelled():
     oob = bag.out_of_bag()
     row = frame.set_index("loss")
     # the ensemble side equals the core's out-of-bag losses, loss by loss
-    for name in ("error_rate", "brier_score", "log_loss"):
+    for name in ("error_rate", "log_loss"):
         assert row.loc[name, "ensemble_loss"] == pytest.approx(getattr(oob, name), rel=1e-12)
+    # the Brier score moved to the whole ensemble by the size law: lower than that of the
+    # out-of-bag ensembles of about 60/e members (Ueda & Nakano 1996)
+    assert row.loc["brier_score", "ensemble_loss"] < oob.brier_score
     # a single full tree predicts probabilities 0 and 1: its multi-class Brier score is
     # twice its error rate (sum over the two classes of (p - [y = c])^2)
     assert row.loc["brier_score", "reference_loss"] == pytest.approx(

@@ -131,6 +131,10 @@ def _results():
             bagwise.diagnose(test, y_test, counts=counts, train_members=train,
                              y_train=y_train, reference=y_test + 0.5),
             bagwise.diagnose(labels, labels_y),
+            bagwise.BagRegressor("linear", n_members=10, random_state=0).fit(
+                rng.normal(size=(40, 2)), y_train).verdict(),
+            bagwise.compare_learners(rng.normal(size=(40, 2)), y_train, ["linear"],
+                                     n_members=10, random_state=0),
         ]
 
 

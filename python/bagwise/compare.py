@@ -268,7 +268,8 @@ def bag_verdict(bag, X=None, y=None, *, folds=None, level=0.95, loss=None) -> Ve
         oob = out_of_bag(members, counts, target, n_jobs=bag.n_jobs)
         single = _cross_validated(bag, X, target, folds)
         covered = oob.n_out_of_bag > 0
-        if classification_task := task == "classification":
+        classification_task = task == "classification"
+        if classification_task:
             ensemble_losses = per_row_losses(task, target[covered], oob.prediction[covered],
                                              oob.probabilities[covered])
             single_losses = per_row_losses(task, target[covered],
@@ -280,6 +281,14 @@ def bag_verdict(bag, X=None, y=None, *, folds=None, level=0.95, loss=None) -> Ve
             task, members[:, covered], counts[:, covered], target[covered],
             oob.prediction[covered] if not classification_task else None,
             oob.probabilities[covered] if classification_task else None)
+        # Each row's out-of-bag ensemble has only n_i (about M/e) members; for the losses
+        # with an exact size law (squared error, Brier) move it to the whole ensemble of M:
+        # E loss(M) = E loss(n_i) - W_i (1/n_i - 1/M) (the finite-ensemble law; rows with
+        # fewer than 2 out-of-bag members keep their loss).
+        n_out = oob.n_out_of_bag[covered]
+        shift = np.where(np.isfinite(within), within, 0.0) * (1 / n_out - 1 / counts.shape[0])
+        identity_loss = IDENTITY_LOSS[task]
+        ensemble_losses[identity_loss] = ensemble_losses[identity_loss] - shift
         by_loss = {}
         for name in LOSSES[task]:
             ratio, lower, upper = ratio_interval(ensemble_losses[name], single_losses[name],
@@ -334,7 +343,14 @@ class Verdict(Result):
         Rows with at least one out-of-bag member (the rows compared); rows without one,
         left out of both losses.
     ensemble_loss : float
-        The ensemble's out-of-bag loss, mean over the rows used.
+        The ensemble's out-of-bag loss, mean over the rows used. A row's out-of-bag
+        ensemble has only the ``n_i`` members (about ``n_members / e``) that did not see
+        it; for squared error and the Brier score each row's loss is moved to the whole
+        ensemble by the finite-ensemble law, ``loss_i − W_i (1/n_i − 1/n_members)`` with
+        ``W_i`` the across-member variance of its out-of-bag members (ddof 1), so it
+        estimates the loss of the ensemble of ``n_members``; the other losses (absolute
+        error, error rate, log loss) follow no exact size law and describe an ensemble of
+        about ``n_members / e``.
     reference_loss : float
         The single model's K-fold cross-validated loss, mean over the same rows.
     reference_ratio : float
@@ -451,8 +467,10 @@ def reading(word, ratio, lower, upper, level, basis) -> str:
     """The plain-word line of a verdict."""
     if word == NOT_ESTIMABLE:
         return "no verdict: the ratio of the losses has no interval here"
-    share = (f"the ensemble's loss is {ratio:.0%} of a single model's ({level:.0%} interval "
-             f"{lower:.0%} to {upper:.0%}; {basis})")
+    width = upper - lower
+    digits = 0 if width >= 0.02 else 1 if width >= 0.002 else 2   # ends that differ
+    share = (f"the ensemble's loss is {ratio:.{digits}%} of a single model's ({level:.0%} "
+             f"interval {lower:.{digits}%} to {upper:.{digits}%}; {basis})")
     if word == HELPS:
         return f"bagging helps this learner: {share}"
     if word == HURTS:
@@ -632,7 +650,7 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     bags = [(name, _bag_of(name, spec, task, n_members, seed, n_jobs)) for name, spec in named]
     verdicts, rho, status, needed = [], [], [], []
     with once_per_call():
-        for name, bag in bags:
+        for _, bag in bags:
             bag.fit(X, y)
             verdicts.append(bag.verdict(folds=folds, level=level, loss=loss))
             import warnings
