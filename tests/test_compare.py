@@ -420,3 +420,22 @@ def test_diagnose_refits_the_single_model(diabetes):
     assert r.ratio_lower < r.reference_ratio < r.ratio_upper
     with pytest.raises(ValueError, match=r"^`reference`: expected an array or 'refit'"):
         bag.diagnose(X[test], y[test], reference="again")
+
+
+def test_rows_without_an_out_of_bag_member_are_left_out_and_counted():
+    # 3 bootstrap members: a row is in every resample with probability about
+    # (1 - 1/e)^3 = 0.25 (Efron & Tibshirani 1993), so some rows have no out-of-bag member
+    rng = np.random.default_rng(2)
+    X = rng.normal(size=(60, 2))
+    y = X @ [1.0, -1.0] + rng.normal(size=60)
+    bag = bagwise.BagRegressor("linear", n_members=3, random_state=0).fit(X, y)
+    uncovered = np.all(bag.in_bag_ > 0, axis=0)          # numpy reference
+    assert uncovered.sum() > 0
+    with warnings.catch_warnings(record=True) as records:
+        warnings.simplefilter("always")
+        v = bag.verdict()
+    messages = [str(r.message) for r in records if r.category is bagwise.BagwiseWarning]
+    assert len(messages) == 1 and "no out-of-bag member" in messages[0]
+    assert v.n_without_out_of_bag == uncovered.sum()
+    assert v.n_rows_used == len(v.ensemble_loss_per_point) == (~uncovered).sum()
+    assert "without an out-of-bag member" in repr(v)
