@@ -132,6 +132,10 @@ def _results():
                              y_train=y_train, reference=y_test + 0.5),
             bagwise.diagnose(labels, labels_y),
             _read_ensemble(),
+            bagwise.BagRegressor("linear", n_members=10, random_state=0).fit(
+                rng.normal(size=(40, 2)), y_train).verdict(),
+            bagwise.compare_learners(rng.normal(size=(40, 2)), y_train, ["linear"],
+                                     n_members=10, random_state=0),
         ]
 
 

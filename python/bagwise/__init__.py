@@ -3,6 +3,7 @@
 from ._core import __version__
 from ._warnings import BagwiseWarning
 from .aggregation import aggregate, vote_fractions
+from .compare import LearnerComparison, Verdict, compare_learners
 from .correlation import Correlation, correlation
 from .decomposition import Decomposition, DecompositionStream, decompose, decompose_stream
 from .diagnosis import Diagnosis, diagnose
@@ -30,6 +31,7 @@ __all__ = [
     "BagwiseWarning",
     "BagClassifier",
     "BagRegressor",
+    "compare_learners",
     "Correlation",
     "correlation",
     "count_gram",
@@ -45,6 +47,7 @@ __all__ = [
     "diversity_stream",
     "DiversityStream",
     "EnsembleArrays",
+    "LearnerComparison",
     "load",
     "out_of_bag",
     "out_of_bag_stream",
@@ -67,5 +70,6 @@ __all__ = [
     "SizeCurveStream",
     "Spread",
     "spread",
+    "Verdict",
     "vote_fractions",
 ]

@@ -17,10 +17,12 @@ The functions without the prefix compute the numbers a figure shows.
   checked against test targets, by interval width (or set size);
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
 - `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
-- `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members.
+- `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members;
+- `plot_learner_comparison`: does bagging help each learner, ratios with their intervals.
 """
 
 from .classification import margins, plot_margins, plot_reliability, reliability
+from .compare import plot_learner_comparison
 from .correlation import member_order, plot_correlation_matrix
 from .decomposition import plot_ambiguity_by_point, plot_decomposition
 from .diversity import kappa_error_points, plot_kappa_error
@@ -43,6 +45,7 @@ __all__ = [
     "plot_between_within",
     "plot_correlation_matrix",
     "plot_decomposition",
+    "plot_learner_comparison",
     "plot_kappa_error",
     "plot_margins",
     "plot_prediction_coverage",

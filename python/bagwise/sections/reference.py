@@ -11,15 +11,18 @@ from .._results import Result
 from .._warnings import warn
 from ._base import Section, number
 
-#: Ratios of ensemble to single-model loss below this read as "bagging helps"; from 0.97 up
-#: the ensemble is within 3% of one model (common practice: a gain of a few per cent is
-#: within the noise of one train/test split).
-HELPS_BELOW = 0.97
+#: Nominal coverage of the interval of the ratio on the test points.
+LEVEL = 0.95
 
 
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)
 class Reference(Result):
     """A single model's loss at the points against the ensemble's.
+
+    The points are a test set independent of the training rows, so the interval of the
+    ratio (the delta method on the log scale from the paired per-point losses, as in
+    `bagwise.compare.ratio_interval`) covers the ratio of the two fitted models' expected
+    losses on new points drawn like these; it says nothing about other training sets.
 
     Attributes
     ----------
@@ -29,46 +32,66 @@ class Reference(Result):
     reference_ratio : float
         ``ensemble_loss / reference_loss``: below 1 the ensemble beats one model; NaN (with
         a warning) when the reference loss is 0.
+    ratio_lower, ratio_upper : float
+        The ends of its interval at ``level`` (NaN when the ratio is).
+    level : float
+        Nominal coverage of the interval.
     """
 
     reference_loss: float
     reference_ratio: float
+    ratio_lower: float = math.nan
+    ratio_upper: float = math.nan
+    level: float = LEVEL
 
     _title = "Single model"
 
     def verdict(self) -> str:
-        """One line: does bagging help this learner."""
-        ratio = self.reference_ratio
-        if math.isnan(ratio):
+        """One line: does bagging help this learner ("helps", "hurts" or "no clear
+        difference", decided by the interval of the ratio)."""
+        from ..compare import reading, verdict_word
+
+        if math.isnan(self.reference_ratio):
             return "no verdict: the single model's loss is 0"
-        helps = "helps" if ratio < HELPS_BELOW else "does not help"
-        return (f"bagging {helps} this learner: the ensemble's loss is {ratio:.0%} of a single "
-                "model's")
+        word = verdict_word(self.ratio_lower, self.ratio_upper)
+        return reading(word, self.reference_ratio, self.ratio_lower, self.ratio_upper,
+                       self.level, "test points")
 
     def _rows(self):
+        interval = ("n/a" if math.isnan(self.ratio_lower) else
+                    f"{self.ratio_lower:.4g} to {self.ratio_upper:.4g}")
         return [("reference loss", f"{self.reference_loss:.6g}"),
-                ("ensemble / reference", f"{self.reference_ratio:.4g}")]
+                ("ensemble / reference", f"{self.reference_ratio:.4g}"),
+                (f"{self.level:.0%} interval", interval)]
 
     def _reading(self):
         return self.verdict()
 
     def to_frame(self):
-        """One row: ``reference_loss``, ``reference_ratio``."""
+        """One row: ``reference_loss``, ``reference_ratio``, ``ratio_lower``,
+        ``ratio_upper``."""
         import pandas as pd
 
         return pd.DataFrame({"reference_loss": [self.reference_loss],
-                             "reference_ratio": [self.reference_ratio]})
+                             "reference_ratio": [self.reference_ratio],
+                             "ratio_lower": [self.ratio_lower],
+                             "ratio_upper": [self.ratio_upper]})
 
 
 def reference_loss(kind, reference, y):
     """The single model's loss, in the loss the decomposition uses for ``kind``."""
+    return float(np.mean(reference_loss_per_point(kind, reference, y)))
+
+
+def reference_loss_per_point(kind, reference, y):
+    """The same loss point by point."""
     if kind == "values":
-        return float(np.mean((reference - y) ** 2))
+        return (reference - y) ** 2
     if kind == "probabilities":
         onehot = np.zeros_like(reference)
         onehot[np.arange(len(y)), y] = 1.0
-        return float(np.mean(np.sum((reference - onehot) ** 2, axis=1)))
-    return float(np.mean(reference != y))
+        return np.sum((reference - onehot) ** 2, axis=1)
+    return (reference != y).astype(np.float64)
 
 
 class ReferenceSection(Section):
@@ -81,18 +104,27 @@ class ReferenceSection(Section):
     def compute(self, inputs, done):
         if inputs.reference is None:
             return None
-        loss = reference_loss(inputs.kind, inputs.reference, inputs.y)
+        from ..compare import ratio_interval
+
+        per_point = reference_loss_per_point(inputs.kind, inputs.reference, inputs.y)
+        loss = float(np.mean(per_point))
         if loss > 0:
-            # the one number this section reads from another: the decomposition's loss
-            ratio = done["decomposition"].ensemble_loss / loss
+            # the numbers this section reads from another: the decomposition's losses
+            ensemble = done["decomposition"]
+            ratio = ensemble.ensemble_loss / loss
+            _, lower, upper = ratio_interval(ensemble.ensemble_loss_per_point, per_point,
+                                             LEVEL)
         else:
             warn("`reference`: the single model's loss is 0, so the ratio is NaN")
-            ratio = math.nan
-        return Reference(reference_loss=loss, reference_ratio=ratio)
+            ratio = lower = upper = math.nan
+        return Reference(reference_loss=loss, reference_ratio=ratio, ratio_lower=lower,
+                         ratio_upper=upper)
 
     def summary(self, result, diagnosis):
         return {"reference_loss": number(result.reference_loss),
-                "reference_ratio": number(result.reference_ratio)}
+                "reference_ratio": number(result.reference_ratio),
+                "ratio_lower": number(result.ratio_lower),
+                "ratio_upper": number(result.ratio_upper)}
 
     def readings(self, result, diagnosis):
         return [result.verdict()]
