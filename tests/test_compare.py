@@ -439,3 +439,16 @@ def test_rows_without_an_out_of_bag_member_are_left_out_and_counted():
     assert v.n_without_out_of_bag == uncovered.sum()
     assert v.n_rows_used == len(v.ensemble_loss_per_point) == (~uncovered).sum()
     assert "without an out-of-bag member" in repr(v)
+
+
+def test_a_change_too_small_to_matter_is_no_clear_difference():
+    """An interval that excludes 1 but stays within the practical margin (1%) is "no clear
+    difference"; one that reaches past it is "helps" or "hurts" (common practice: a region
+    of practical equivalence)."""
+    from bagwise.compare import PRACTICAL_MARGIN, verdict_word
+
+    assert verdict_word(0.997, 0.9995) == "no clear difference"
+    assert verdict_word(1.0005, 1.003) == "no clear difference"
+    assert verdict_word(1 - 2 * PRACTICAL_MARGIN, 0.999) == "helps"
+    assert verdict_word(1.001, 1 + 2 * PRACTICAL_MARGIN) == "hurts"
+    assert verdict_word(0.9, 1.1) == "no clear difference"

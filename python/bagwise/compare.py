@@ -76,13 +76,21 @@ def ratio_interval(ensemble, reference, level):
     return ratio, ratio * math.exp(-z * se), ratio * math.exp(z * se)
 
 
+#: A change of the loss smaller than this share is no difference a user would act on: an
+#: interval inside 1 ± this reads "no clear difference" even when it excludes 1 (common
+#: practice: a region of practical equivalence around no change).
+PRACTICAL_MARGIN = 0.01
+
+
 def verdict_word(lower, upper) -> str:
-    """The three words an interval of the ratio decides (NaN ends: "not estimable")."""
+    """The three words an interval of the ratio decides (NaN ends: "not estimable"):
+    "helps" when it lies below 1 and reaches below 1 − `PRACTICAL_MARGIN`, "hurts" when it
+    lies above 1 and reaches above 1 + `PRACTICAL_MARGIN`, else "no clear difference"."""
     if not (math.isfinite(lower) and math.isfinite(upper)):
         return NOT_ESTIMABLE
-    if upper < 1:
+    if upper < 1 and lower < 1 - PRACTICAL_MARGIN:
         return HELPS
-    if lower > 1:
+    if lower > 1 and upper > 1 + PRACTICAL_MARGIN:
         return HURTS
     return NO_CLEAR_DIFFERENCE
 
