@@ -216,7 +216,21 @@ def _results():
                 _two_classes(test), counts, _two_classes(train),
                 (y_train > np.median(y_train)).astype(int), level=0.8),
             "EnsembleArrays": _read_forest(),
+            "Verdict": _linear_bag().verdict(),
+            "LearnerComparison": bagwise.compare_learners(
+                *_linear_rows(), ["linear", "tree"], n_members=10, random_state=0),
         }
+
+
+def _linear_rows():
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(60, 2))
+    return X, X @ [1.0, -1.0] + rng.normal(size=60)
+
+
+def _linear_bag():
+    X, y = _linear_rows()
+    return bagwise.BagRegressor("linear", n_members=10, random_state=0).fit(X, y)
 
 
 def _read_forest():
@@ -245,6 +259,14 @@ def test_every_result_type_displays_a_compact_table_and_a_reading():
             needed = result.members_needed()
             assert parsed.count("table") == len(result._parts()) + (len(needed) > 0)
             assert parsed.count("li") == len(result.readings())
+            continue
+        if name == "LearnerComparison":
+            # one table row per learner under a header row, each with its verdict
+            header, cells = result._cells()
+            assert parsed.count("table") == 1 and parsed.count("tr") == len(cells) + 1
+            for row in cells:
+                assert " ".join(row) in parsed.words, row
+            assert " ".join(result._reading().split()) in parsed.words
             continue
         assert parsed.count("table") == 1, name
         rows = result._rows()

@@ -427,7 +427,7 @@ class Verdict(Result):
                 ("rows compared", f"{self.n_rows_used:,} of {self.n_rows:,}"
                  + (f" ({self.n_without_out_of_bag:,} without an out-of-bag member)"
                     if self.n_without_out_of_bag else "")),
-                ("single model (cross-validated)", f"{fmt(self.reference_loss)}  "
+                ("single model (cross-validated)", f"{fmt(self.reference_loss)} "
                  f"({self.folds} folds)" if self.folds > 0 else fmt(self.reference_loss)),
                 ("ensemble (out of bag)", fmt(self.ensemble_loss)),
                 ("ratio", _ratio_text(self.reference_ratio, self.ratio_lower,
@@ -468,7 +468,7 @@ def _ratio_text(ratio, lower, upper, level):
         return "not estimable"
     if not (math.isfinite(lower) and math.isfinite(upper)):
         return f"{ratio:.3f} (interval not estimable)"
-    return f"{ratio:.3f}  ({level:.0%} interval {lower:.3f} to {upper:.3f})"
+    return f"{ratio:.3f} ({level:.0%} interval {lower:.3f} to {upper:.3f})"
 
 
 def reading(word, ratio, lower, upper, level, basis) -> str:
