@@ -168,10 +168,15 @@ def test_03_standard_errors_match_refits(tmp_path_factory):
     refit = [float(r[2]) for r in rows]
     assert predicted == sorted(predicted)
     assert refit[-1] > refit[0]  # larger predicted standard errors move more between refits
-    model_only = _numbers(text, r"coverage of prediction ± 1.96 se: ([\d.]+)")[0]
-    with_noise = _numbers(text, r"coverage with out-of-bag noise added: ([\d.]+)")[0]
+    model_only = _numbers(text, r"inside the ensemble-mean interval: ([\d.]+)")[0]
+    covered = _numbers(text, r"inside the 95% prediction interval: ([\d.]+)")[0]
     assert model_only < 0.7  # an interval for the model, not for the vine's yield
-    assert 0.92 < with_noise < 0.98  # nominal 95%
+    # Kim, Xu & Barber 2020: the jackknife+-after-bootstrap covers at least 1 - 2 alpha
+    # (0.90 here) over training sets; on one training set and 1,000 vines, not far from
+    # the nominal 0.95 either way (binomial SE 0.007)
+    assert 0.90 <= covered < 0.99
+    steady = _numbers(text, r"steady / noisy / not estimable\s+(\d+)")[0]
+    assert steady > 900          # 4,000 members on 500 rows: steady standard errors
     rho = _numbers(text, r"pooled rho: ([\d.]+)")[0]
     assert 0 < rho < 1
     assert _images(nb) >= 1
