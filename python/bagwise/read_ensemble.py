@@ -298,12 +298,17 @@ def _read_bagging(model, X, X_train, y_train):
             out.append(full)
         return np.stack(out)
 
-    members = predict(X)
+    return _predicted(model, predict, X, X_train, y_train, counts, n_rows, classification)
+
+
+def _predicted(model, predict, X, X_train, y_train, counts, n_rows, classification):
+    """The result of a scikit-learn reader: ``predict`` at ``X`` and, when given, at the
+    checked ``X_train``."""
     train = None
     if X_train is not None:
-        _rows_of(X_train, n_rows, name)
+        _rows_of(X_train, n_rows, type(model).__name__)
         train = predict(X_train)
-    return _result(model, members, counts, train, y_train,
+    return _result(model, predict(X), counts, train, y_train,
                    model.classes_ if classification else None)
 
 
@@ -342,13 +347,7 @@ def _read_forest(model, X, X_train, y_train):
             out.append(proba)
         return np.stack(out)
 
-    members = predict(X)
-    train = None
-    if X_train is not None:
-        _rows_of(X_train, n_rows, name)
-        train = predict(X_train)
-    return _result(model, members, counts, train, y_train,
-                   model.classes_ if classification else None)
+    return _predicted(model, predict, X, X_train, y_train, counts, n_rows, classification)
 
 
 def _forest_counts(model, n_rows: int) -> np.ndarray:

@@ -491,18 +491,25 @@ class PredictionVariance(Result):
     def to_frame(self):
         """One row per point (and class): mean, variance, std_error, raw_variance,
         correction, noise, status."""
-        import pandas as pd
+        return _per_point_frame(self, ("mean", "variance", "std_error", "raw_variance",
+                                       "correction", "noise", "status"))
 
-        n_points = self.variance.shape[0]
-        columns = {"point": np.arange(n_points)}
-        if self.variance.ndim == 2:
-            n_classes = self.variance.shape[1]
-            columns = {"point": np.repeat(np.arange(n_points), n_classes),
-                       "class": np.tile(np.arange(n_classes), n_points)}
-        for name in ("mean", "variance", "std_error", "raw_variance", "correction", "noise",
-                     "status"):
-            columns[name] = np.ravel(getattr(self, name))
-        return pd.DataFrame(columns)
+
+def _per_point_frame(result, names):
+    """One row per point (and per class, with a ``class`` column, for class probabilities)
+    holding the per-point arrays ``names`` of ``result``."""
+    import pandas as pd
+
+    first = getattr(result, names[0])
+    n_points = first.shape[0]
+    columns = {"point": np.arange(n_points)}
+    if first.ndim == 2:
+        n_classes = first.shape[1]
+        columns = {"point": np.repeat(np.arange(n_points), n_classes),
+                   "class": np.tile(np.arange(n_classes), n_points)}
+    for name in names:
+        columns[name] = np.ravel(getattr(result, name))
+    return pd.DataFrame(columns)
 
 
 def _is_nan(value) -> bool:
@@ -791,17 +798,8 @@ class Spread(Result):
 
     def to_frame(self):
         """One row per point (and class): between, within, total, rho, noise, status."""
-        import pandas as pd
-
-        n_points = self.between.shape[0]
-        columns = {"point": np.arange(n_points)}
-        if self.between.ndim == 2:
-            n_classes = self.between.shape[1]
-            columns = {"point": np.repeat(np.arange(n_points), n_classes),
-                       "class": np.tile(np.arange(n_classes), n_points)}
-        for name in ("between", "within", "total", "rho", "noise", "status"):
-            columns[name] = np.ravel(getattr(self, name))
-        return pd.DataFrame(columns)
+        return _per_point_frame(self, ("between", "within", "total", "rho", "noise",
+                                       "status"))
 
 
 def _quiet(compute):
