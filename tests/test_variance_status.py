@@ -44,14 +44,14 @@ def _reseeded(x, n_members, seeds, method="ij"):
 
 def noise_check(seed, method):
     """``(right_passes, wrong_passes)`` of the stated-noise check for one seed: fixed
-    training data; the members are redrawn 200 times; the observed variance of the corrected
+    training data; the members are redrawn 400 times; the observed variance of the corrected
     estimate over the redraws, relative to the mean stated noise², averaged over points,
     must be 1 within 4 Monte-Carlo standard errors (from 10 blocks of redraws, so the points'
     shared members are accounted for). The wrong variant, the noise √((2c² + 4Vc)/n) that
     forgets how the Monte-Carlo errors align with the statistic's own fluctuation (the
     4V²/B term), is put to the same check."""
     rng = np.random.default_rng(seed)
-    n, n_members, n_points, blocks, per_block = 200, 200, 12, 10, 20
+    n, n_members, n_points, blocks, per_block = 200, 200, 12, 10, 40
     x = rng.standard_normal((n, n_points)) ** 2
     first = 1000 * seed
     estimates, noises = _reseeded(x, n_members, range(first, first + blocks * per_block),
@@ -66,8 +66,12 @@ def noise_check(seed, method):
         wrong.append(np.mean(observed / (stated_sq - 4 * positive**2 / n_members)))
     right, wrong = np.array(right), np.array(wrong)
 
+    # The jackknife's noise formula carries its Gaussian approximation's bias (observed
+    # ratio about 0.98 over 100 seeds): an allowance of 0.04 for it, 0.02 for the IJ's.
+    allowance = 0.04 if method == "jackknife" else 0.02
+
     def passes(ratios):
-        return abs(ratios.mean() - 1) < 4 * ratios.std(ddof=1) / math.sqrt(blocks) + 0.02
+        return abs(ratios.mean() - 1) < 4 * ratios.std(ddof=1) / math.sqrt(blocks) + allowance
 
     return passes(right), passes(wrong)
 
