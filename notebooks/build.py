@@ -133,6 +133,19 @@ DOES_BAGGING_HELP = [
     fig.tight_layout()
     """),
     md("""
+    ## The same question without a test set
+
+    A test set costs rows. `bagwise.compare_learners` answers from the training vines
+    alone: each vine's out-of-bag error (from the members that never saw it) against the
+    cross-validated error of a single model of the same learner, with a 95% interval for
+    their ratio from the paired vines. The verdict is read off the interval: "helps",
+    "hurts" or "no clear difference" (a change within 1% counts as none).
+    """),
+    code("""
+    table = bagwise.compare_learners(X_train, y_train, learners, n_members=100, random_state=0)
+    table
+    """),
+    md("""
     ## Reading the result
 
     * **Trees.** Each member is a little *worse* than the single tree (it saw only about

@@ -129,6 +129,12 @@ def test_01_bagging_helps_trees_not_least_squares(tmp_path_factory):
                   r"removed ([\d.]+)%")
         assert abs(member - ambiguity - ensemble) < 0.002
         assert abs(removed / 100 - ambiguity / member) < 0.002
+    # Without a test set (out of bag against cross-validated): the same answer as the
+    # held-out vines, Breiman 1996 again.
+    verdicts = dict(re.findall(r"^\s+(tree|linear|neighbors)\s+[\d.]+\s+[\d.]+\s+[\d.]+"
+                               r"\s+[\d.]+ to [\d.]+\s+(helps|no clear difference|hurts)",
+                               text, flags=re.M))
+    assert verdicts["tree"] == "helps" and verdicts["linear"] == "no clear difference"
     tree_removed = _numbers(text, r"tree: member loss .* removed ([\d.]+)%")[0]
     linear_removed = _numbers(text, r"linear: member loss .* removed ([\d.]+)%")[0]
     assert tree_removed > 30 > 2 > linear_removed
