@@ -28,7 +28,7 @@ from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
 from ._validation import n_jobs_value, positive_int
 from ._warnings import warn
-from .resampling import LITTLE_BAGS_FRACTION, resample
+from .resampling import LITTLE_BAGS_FRACTION, check_group_size, resample
 
 __all__ = ["BagClassifier", "BagRegressor"]
 
@@ -156,13 +156,8 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
 def _little_bags_iv(est: _Bag, n_members: int, classification: bool) -> int:
     """ℓ of ``scheme="little_bags"``: an integer >= 2 dividing ``n_members``; the fraction
     (unless left at 1.0) below one half; no stratification."""
-    group_size = _number(est.group_size, "group_size", numbers.Integral)
-    if group_size < 2:
-        raise ValueError("`group_size`: must be at least 2 for scheme='little_bags' (the "
-                         f"within-group variance needs two members), got {group_size}")
-    if n_members % group_size:
-        raise ValueError(f"`n_members`: must be a multiple of group_size ({group_size}) for "
-                         f"scheme='little_bags' (members come in whole groups), got {n_members}")
+    group_size = check_group_size(_number(est.group_size, "group_size", numbers.Integral),
+                                  n_members)
     if est.fraction != 1 and not 0 < est.fraction < 0.5:
         raise ValueError(
             "`fraction`: must lie in (0, 0.5) for scheme='little_bags' (each member's share "

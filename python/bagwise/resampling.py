@@ -37,7 +37,11 @@ def _group_size_iv(group_size, scheme, n_members):
         return 0
     if group_size is None:
         group_size = DEFAULT_GROUP_SIZE
-    group_size = positive_int(group_size, "group_size")
+    return check_group_size(positive_int(group_size, "group_size"), n_members)
+
+
+def check_group_size(group_size: int, n_members: int) -> int:
+    """``group_size`` of little bags, checked: at least 2, dividing ``n_members``."""
     if group_size < 2:
         raise ValueError("`group_size`: must be at least 2 for scheme='little_bags' (the "
                          f"within-group variance needs two members), got {group_size}")

@@ -85,12 +85,14 @@ impl PyCountGram {
                 self.inner.variance(view, method, pool)
             })
         })?;
-        let arr = |a: numpy::ndarray::Array1<f64>| a.into_pyarray(py).into_any().unbind();
-        Ok((
-            arr(estimate.raw),
-            arr(estimate.correction),
-            arr(estimate.within),
-            arr(estimate.mean),
+        Ok(estimate_arrays(
+            py,
+            [
+                estimate.raw,
+                estimate.correction,
+                estimate.within,
+                estimate.mean,
+            ],
         ))
     }
 
@@ -182,16 +184,27 @@ fn little_bags_variance(
             core_little_bags(view, group_size, pool)
         })
     })?;
-    let arr = |a: numpy::ndarray::Array1<f64>| a.into_pyarray(py).into_any().unbind();
-    Ok((
-        arr(estimate.raw),
-        arr(estimate.correction),
-        arr(estimate.within),
-        arr(estimate.mean),
+    Ok(estimate_arrays(
+        py,
+        [
+            estimate.raw,
+            estimate.correction,
+            estimate.within,
+            estimate.mean,
+        ],
     ))
 }
 
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyCountGram>()?;
     m.add_function(wrap_pyfunction!(little_bags_variance, m)?)
+}
+
+/// The four per-value arrays of a variance estimate (raw, correction, within, mean) as numpy.
+fn estimate_arrays(
+    py: Python<'_>,
+    parts: [numpy::ndarray::Array1<f64>; 4],
+) -> (Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>) {
+    let [raw, correction, within, mean] = parts.map(|a| a.into_pyarray(py).into_any().unbind());
+    (raw, correction, within, mean)
 }
