@@ -1,5 +1,7 @@
 """bagwise: fit bagged ensembles and diagnose them from their member predictions."""
 
+from typing import TYPE_CHECKING
+
 from ._core import __version__
 from ._warnings import BagwiseWarning
 from .aggregation import aggregate, vote_fractions
@@ -8,7 +10,6 @@ from .correlation import Correlation, correlation
 from .decomposition import Decomposition, DecompositionStream, decompose, decompose_stream
 from .diagnosis import Diagnosis, diagnose
 from .diversity import Diversity, DiversityStream, diversity, diversity_stream
-from .ensemble import BagClassifier, BagRegressor
 from .intervals import PredictionInterval, PredictionSet, prediction_interval
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
@@ -24,6 +25,28 @@ from .uncertainty import (
     prediction_variance,
     spread,
 )
+
+if TYPE_CHECKING:
+    from .ensemble import BagClassifier, BagRegressor
+
+# The estimators load scikit-learn (about 1.5 s and 150 MB with scipy and pandas); they are
+# imported on first use, so the diagnostics alone (e.g. on a dask worker) stay light.
+_LAZY = {"BagClassifier": "ensemble", "BagRegressor": "ensemble"}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'bagwise' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
+
 
 __all__ = [
     "__version__",
