@@ -26,17 +26,84 @@ __all__ = ["aligned_blocks", "as_dask", "is_lazy", "map_points", "reduce_streams
 _LAZY_MODULES = ("dask", "dask_expr", "zarr")
 
 
+#: Bytes of one chunk when a memory-mapped file is split for the workers (64 MiB: a few
+#: chunks per worker fit in any sensible ``memory_limit``, and per-task overhead stays small).
+MEMMAP_CHUNK_BYTES = 64 << 20
+
+
 def is_lazy(value) -> bool:
-    """True for a dask array, DataFrame or Series, or a zarr array."""
+    """True for a dask array, DataFrame or Series, or a zarr array; and for a memory-mapped
+    file (``np.load(path, mmap_mode="r")``) while a ``dask.distributed`` client is active, so
+    the workers read their own chunks from the file instead of receiving them."""
     module = type(value).__module__ or ""
-    return module.split(".")[0] in _LAZY_MODULES
+    if module.split(".")[0] in _LAZY_MODULES:
+        return True
+    return _memmap_file(value) is not None and _client_active()
 
 
-def as_dask(value, name: str):
-    """``value`` as a dask array (a zarr array read lazily; a DataFrame by its partitions,
-    with their lengths computed so the point chunks are known)."""
+def _client_active() -> bool:
+    import sys
+
+    if "distributed" not in sys.modules:
+        return False
+    from distributed import get_client
+
+    try:
+        get_client()
+    except ValueError:
+        return False
+    return True
+
+
+def _memmap_file(value) -> tuple[str, int] | None:
+    """``(path, offset)`` of a memory map that covers its whole file region (as
+    `numpy.load` returns it); None for anything else, e.g. a slice of a map."""
+    if not isinstance(value, np.memmap) or getattr(value, "filename", None) is None:
+        return None
+    import mmap
+
+    if not isinstance(value.base, mmap.mmap) or not value.flags.c_contiguous:
+        return None
+    return value.filename, value.offset
+
+
+def _read_points(path, offset, dtype, shape, axis, start, stop):
+    """One chunk of a memory-mapped file, read by the worker that computes it."""
+    whole = np.memmap(path, dtype=dtype, mode="r", offset=offset, shape=shape)
+    index = [slice(None)] * len(shape)
+    index[axis] = slice(start, stop)
+    return np.array(whole[tuple(index)])
+
+
+def _from_memmap(value, path, offset, axis):
+    """A dask array over a memory-mapped file, each chunk read from the file on its worker
+    (the last axis is the points for a 1-D array, axis 1 for members)."""
+    import dask
     import dask.array as da
 
+    row_bytes = value.itemsize * (value.size // max(value.shape[axis], 1))
+    step = max(1, MEMMAP_CHUNK_BYTES // max(row_bytes, 1))
+    blocks = []
+    for start in range(0, value.shape[axis], step):
+        stop = min(start + step, value.shape[axis])
+        shape = list(value.shape)
+        shape[axis] = stop - start
+        chunk = dask.delayed(_read_points, pure=True)(path, offset, value.dtype, value.shape,
+                                                      axis, start, stop)
+        blocks.append(da.from_delayed(chunk, shape=tuple(shape), dtype=value.dtype))
+    return da.concatenate(blocks, axis=axis)
+
+
+def as_dask(value, name: str, point_axis: int | None = None):
+    """``value`` as a dask array (a zarr array read lazily; a DataFrame by its partitions,
+    with their lengths computed so the point chunks are known; a memory-mapped file split
+    along ``point_axis`` into chunks its workers read themselves)."""
+    import dask.array as da
+
+    source = _memmap_file(value)
+    if source is not None:
+        axis = point_axis if point_axis is not None else min(1, value.ndim - 1)
+        return _from_memmap(value, *source, axis)
     module = (type(value).__module__ or "").split(".")[0]
     if module == "zarr":
         return da.from_zarr(value)
@@ -65,7 +132,7 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
     reference = None
     for value, name, axis in arrays:
         if value is not None and axis is not None and is_lazy(value):
-            reference = as_dask(value, name).chunks[axis]
+            reference = as_dask(value, name, axis).chunks[axis]
             break
     if reference is None:
         raise ValueError("no lazy array among the inputs")
@@ -75,7 +142,7 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
         if value is None or axis is None:
             columns.append([value] * len(reference))
             continue
-        array = as_dask(value, name) if is_lazy(value) else np.asarray(value)
+        array = as_dask(value, name, axis) if is_lazy(value) else np.asarray(value)
         if array.shape[axis] != n_points:
             raise ValueError(f"`{name}`: has {array.shape[axis]:,} points along axis {axis} "
                              f"but the other arrays {n_points:,}")
