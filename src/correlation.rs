@@ -499,7 +499,11 @@ impl CorrelationState {
         (0..m)
             .map(|b| {
                 let c = self.comoments[packed(m, b, b)];
-                let variance1 = if self.count > 1 { c / (n - 1.0) } else { f64::NAN };
+                let variance1 = if self.count > 1 {
+                    c / (n - 1.0)
+                } else {
+                    f64::NAN
+                };
                 constant_spread(self.means[b], c / n, variance1, target_rms)
             })
             .collect()
@@ -526,8 +530,7 @@ impl CorrelationState {
                     1.0
                 } else {
                     self.comoments[packed(m, lo, hi)]
-                        / (self.comoments[packed(m, a, a)] * self.comoments[packed(m, b, b)])
-                            .sqrt()
+                        / (self.comoments[packed(m, a, a)] * self.comoments[packed(m, b, b)]).sqrt()
                 };
             }
         }
@@ -660,7 +663,8 @@ mod tests {
         // Uneven chunks, and a state that travels as bytes before its merge.
         let mut first = CorrelationState::new();
         let mut second = CorrelationState::new();
-        for (state, range) in [(&mut first, 0..1), (&mut first, 1..5000), (&mut second, 5000..n)] {
+        for (which, range) in [(0, 0..1), (0, 1..5000), (1, 5000..n)] {
+            let state = if which == 0 { &mut first } else { &mut second };
             state
                 .update(
                     members.slice(s![.., range.clone()]),
@@ -675,7 +679,11 @@ mod tests {
         let streamed = first.finish().unwrap();
         assert_eq!(first.n_points(), n as u64);
         assert_eq!(streamed.constant_members, whole.constant_members);
-        for (a, b) in streamed.residual_variance.iter().zip(&whole.residual_variance) {
+        for (a, b) in streamed
+            .residual_variance
+            .iter()
+            .zip(&whole.residual_variance)
+        {
             assert_relative_eq!(a, b, max_relative = 1e-12);
         }
         assert_relative_eq!(
@@ -710,7 +718,9 @@ mod tests {
                 ..
             })
         ));
-        state.update(members.view(), y.view(), &POOL, &Silent).unwrap();
+        state
+            .update(members.view(), y.view(), &POOL, &Silent)
+            .unwrap();
         assert!(matches!(
             state.update(members.slice(s![..2, ..]), y.view(), &POOL, &Silent),
             Err(Error::InvalidValue {

@@ -354,7 +354,8 @@ impl Block<'_> {
             sums.ensemble.add(means.variance(1));
             sums.negative += u64::from(between < 0.0);
             if let (Some([bias_out, var_out, cov_out, err_out]), Some(y)) = (split.as_mut(), &y) {
-                let bias = means.mean() - y[j];
+                let target = y[self.start + j];
+                let bias = means.mean() - target;
                 let mut member_variance = Sum::default();
                 for mi in 0..m {
                     member_variance.add(member[mi * rows + j].variance(0));
@@ -368,7 +369,7 @@ impl Block<'_> {
                 };
                 let mut error = Sum::default();
                 for ri in 0..r {
-                    let d = replicate[ri * rows + j].mean() - y[j];
+                    let d = replicate[ri * rows + j].mean() - target;
                     error.add(d * d);
                 }
                 let expected = error.value() / r as f64;
@@ -436,7 +437,11 @@ impl ReplicateSpreadState {
         }
         if let Some(known) = self.with_y {
             if known != with_y {
-                let (now, before) = if with_y { ("with", "without") } else { ("without", "with") };
+                let (now, before) = if with_y {
+                    ("with", "without")
+                } else {
+                    ("without", "with")
+                };
                 let argument = if argument == "members" { "y" } else { argument };
                 return Err(Error::value(
                     argument,
@@ -615,6 +620,20 @@ mod tests {
         assert!(out.summary.mean_covariance.is_nan());
     }
     #[test]
+    fn targets_beyond_the_first_block_are_read_at_their_point() {
+        // Every member predicts 0 and y_i = i, so bias_i = −i and E(f − y)² = i² at every
+        // point, in every block of points.
+        let n = 2 * BLOCK_POINTS + 7;
+        let t = Array3::<f64>::zeros((3, 2, n));
+        let y: Array1<f64> = (0..n).map(|i| i as f64).collect();
+        let out = run(t.view(), y.as_slice(), &Pool::Global).unwrap();
+        for i in [0, BLOCK_POINTS - 1, BLOCK_POINTS, n - 1] {
+            assert_eq!(out.split[0][i], -(i as f64));
+            assert_eq!(out.split[3][i], (i * i) as f64);
+        }
+    }
+
+    #[test]
     fn stream_in_chunks_matches_one_pass() {
         let (r, m, n) = (4, 3, 1500);
         let t = Array3::from_shape_fn((r, m, n), |(a, b, c)| {
@@ -625,7 +644,8 @@ mod tests {
         let mut rows = Vec::new();
         let mut first = ReplicateSpreadState::new();
         let mut second = ReplicateSpreadState::new();
-        for (state, range) in [(&mut first, 0..1), (&mut first, 1..700), (&mut second, 700..n)] {
+        for (which, range) in [(0, 0..1), (0, 1..700), (1, 700..n)] {
+            let state = if which == 0 { &mut first } else { &mut second };
             let mut out = vec![0.0; Row::WITH_Y * range.len()];
             state
                 .update(
@@ -643,7 +663,11 @@ mod tests {
         let summary = first.finish().unwrap();
         assert_eq!(first.n_points(), n as u64);
         assert_eq!(summary.n_negative_between, whole.summary.n_negative_between);
-        assert_relative_eq!(summary.mean_within, whole.summary.mean_within, max_relative = 1e-14);
+        assert_relative_eq!(
+            summary.mean_within,
+            whole.summary.mean_within,
+            max_relative = 1e-14
+        );
         assert_relative_eq!(
             summary.mean_between,
             whole.summary.mean_between,

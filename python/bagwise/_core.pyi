@@ -318,6 +318,7 @@ class CorrelationSummary:
     @property
     def constant_members(self) -> npt.NDArray[np.int64]: ...
 
+@final
 class CorrelationAccumulator:
     def __new__(cls) -> CorrelationAccumulator: ...
     def update(
@@ -534,6 +535,7 @@ def replicate_spread(
     n_jobs: int | None = None,
 ) -> ReplicateSpreadParts: ...
 
+@final
 class ReplicateSpreadAccumulator:
     def __new__(cls) -> ReplicateSpreadAccumulator: ...
     def update(

@@ -84,7 +84,10 @@ impl PyCorrelationAccumulator {
         y: PyReadonlyArray1<'py, f64>,
         n_jobs: Option<usize>,
     ) -> PyResult<()> {
-        let (members, y) = (FloatArray::<Ix2>::extract(members, "members")?, y.as_array());
+        let (members, y) = (
+            FloatArray::<Ix2>::extract(members, "members")?,
+            y.as_array(),
+        );
         with_float!(members, |v| run_core(py, n_jobs, None, |pool, mon| {
             self.state().update(v, y, pool, mon)
         }))

@@ -9,7 +9,9 @@ use pyo3::types::PyBytes;
 
 use super::{run_core, to_py_err, zeros, FloatArray};
 use crate::members::MergeableState;
-use crate::replicates::{replicate_spread as spread_core, ReplicateSpreadState, Row, SpreadSummary};
+use crate::replicates::{
+    replicate_spread as spread_core, ReplicateSpreadState, Row, SpreadSummary,
+};
 
 /// The per-point arrays (rows of one numpy buffer) and means over points of the replicate
 /// spread, as typed getters.
