@@ -293,6 +293,31 @@ def test_dask_series_targets():
     _same(bagwise.out_of_bag(members, counts, series), bagwise.out_of_bag(members, counts, y))
 
 
+def test_dask_dataframe_members():
+    """A dask DataFrame of member predictions: one row per point, one column per member."""
+    dd = pytest.importorskip("dask.dataframe")
+    pd = pytest.importorskip("pandas")
+
+    def frame(array, partitions=4):
+        return dd.from_pandas(pd.DataFrame(array.T, columns=[f"m{b}" for b in range(len(array))]),
+                              npartitions=partitions)
+
+    values, y = _values()
+    labels, labels_y = _labels()
+    counts = _counts()
+    # reference for each: in-memory path, same function
+    _same(bagwise.decompose(frame(values), y), bagwise.decompose(values, y))
+    _same(bagwise.size_curve(frame(values), y, orders=3),
+          bagwise.size_curve(values, y, orders=3))
+    _same(bagwise.correlation(frame(values), dd.from_pandas(pd.Series(y), npartitions=2)),
+          bagwise.correlation(values, y))
+    _same(_quiet(bagwise.diversity, frame(labels), labels_y),
+          _quiet(bagwise.diversity, labels, labels_y), rtol=0)
+    _same(bagwise.out_of_bag(frame(values), frame(counts, 3), y),
+          bagwise.out_of_bag(values, counts, y))
+    assert np.array_equal(bagwise.aggregate(frame(labels)), bagwise.aggregate(labels))
+
+
 # -- the same messages for bad input -----------------------------------------------------------
 
 def _message(function, *args, **kwargs):

@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 
 __all__ = ["aligned_blocks", "any_lazy", "as_dask", "is_lazy", "largest", "map_points",
-           "map_over", "point_starts", "reduce_over", "reduce_streams"]
+           "map_over", "point_major", "point_starts", "reduce_over", "reduce_streams"]
 
 _LAZY_MODULES = ("dask", "dask_expr", "zarr")
 
@@ -71,15 +71,25 @@ def as_dask(value, name: str):
     raise TypeError(f"`{name}`: expected a dask or numpy array, got {type(value).__name__}")
 
 
+def point_major(value, name: str):
+    """``value`` with the points on its last axis: a dask DataFrame holds one row per point
+    and one column per member (or class, ...), so it becomes the transposed dask array of
+    its partitions, ``(n_columns, n_points)`` chunked along the points; anything else is
+    returned as is."""
+    if is_lazy(value) and hasattr(value, "columns"):
+        return as_dask(value, name).T
+    return value
+
+
 def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[Any]]:
     """Blocks of ``arrays`` chunk by chunk along the points.
 
     ``arrays`` holds ``(value, name, point_axis)``; a ``None`` value stays ``None`` and a
     ``None`` axis marks an argument passed whole to every chunk. The chunks along the points
     are those of the first lazy array; every other array is rechunked to them (a numpy array
-    is sliced on the client, so it travels once, a chunk to each task), and every other axis
-    is made one chunk. Returns, for each chunk of points, the list of its blocks (dask
-    delayed objects, or the whole values) in the order of ``arrays``.
+    is sliced on the client, so it travels once, a piece with each task), and every other
+    axis is made one chunk. Returns, for each chunk of points, the list of its blocks (dask
+    delayed objects, numpy pieces, or the whole values) in the order of ``arrays``.
     """
     import dask.array as da
 
@@ -100,10 +110,15 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
         if array.shape[axis] != n_points:
             raise ValueError(f"`{name}`: has {array.shape[axis]:,} points along axis {axis} "
                              f"but the other arrays {n_points:,}")
+        if not isinstance(array, da.Array):
+            # Sliced here: each task carries its own piece (no whole array in the graph).
+            bounds = np.cumsum((0,) + tuple(reference))
+            lead = (slice(None),) * axis
+            columns.append([array[(*lead, slice(lo, hi))]
+                            for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)])
+            continue
         chunks = tuple(reference if a == axis else (size,) for a, size in enumerate(array.shape))
-        array = (array.rechunk(chunks) if isinstance(array, da.Array)
-                 else da.from_array(array, chunks=chunks))
-        columns.append(list(np.ravel(array.to_delayed())))
+        columns.append(list(np.ravel(array.rechunk(chunks).to_delayed())))
     return [list(blocks) for blocks in zip(*columns, strict=True)]
 
 

@@ -45,6 +45,7 @@ def _lazy_classes(members, n_classes):
 
 def _lazy_map(members, member_weights, n_classes, n_jobs, compute) -> np.ndarray:
     """A per-point map over the point chunks of lazy ``members``, joined in point order."""
+    members = _chunked.point_major(members, "members")
     n_classes = _lazy_classes(members, n_classes)
     weights = None if member_weights is None else np.asarray(member_weights)
     parts = _chunked.map_over([(members, "members", 1)], compute,
@@ -86,7 +87,8 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> n
 
     Notes
     -----
-    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points; each
+    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (or a
+    dask DataFrame, one row per point and one column per member); each
     chunk is combined on the worker holding it and the per-point results come back in
     point order (what travels per chunk: the chunk's combined predictions, O(points of the
     chunk x n_classes); the member weights go once to each worker). Without ``n_classes``

@@ -215,6 +215,7 @@ def _lazy_correlation(members, y, matrix, n_jobs) -> Correlation:
     """`correlation` over the point chunks of lazy arrays: one `CorrelationStream` per
     chunk where it lives, merged pairwise in point order."""
     matrix, n_jobs = _matrix_iv(matrix), n_jobs_value(n_jobs)
+    members = _chunked.point_major(members, "members")
     stream = _chunked.reduce_over([(members, "members", 1), (y, "y", 0)],
                                   lambda: CorrelationStream(matrix, n_jobs), _correlation_update)
     return stream.result()
@@ -249,7 +250,8 @@ def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``y`` also a dask Series); any chunking of the member axis is made one chunk. Each
+    (``members`` also a dask DataFrame,
+    one row per point and one column per member; ``y`` a dask Series); any chunking of the member axis is made one chunk. Each
     point chunk becomes a `CorrelationStream` on the worker holding it, and the streams
     merge pairwise in point order on the workers. What travels per chunk: its state,
     O(members**2) (the co-moment matrix, ``8 M (M + 3) / 2`` bytes), independent of the

@@ -281,7 +281,8 @@ def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Dec
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``y`` also a dask Series); any chunking of the member or class axis is made one chunk.
+    (``members`` also a dask DataFrame,
+    one row per point and one column per member; ``y`` a dask Series); any chunking of the member or class axis is made one chunk.
     Each point chunk becomes a `DecompositionStream` on the worker holding it, and the
     streams merge pairwise in point order on the workers. What travels per chunk: its
     state, O(members) (the member weights and loss moments) plus the chunk's per-point
@@ -317,6 +318,7 @@ def _lazy_decompose(members, y, loss, member_weights, n_jobs) -> Decomposition:
     loss = loss_option(loss)
     weights = None if member_weights is None else np.asarray(member_weights)
     n_jobs = n_jobs_value(n_jobs)
+    members = _chunked.point_major(members, "members")
     stream = _chunked.reduce_over(
         [(members, "members", 1), (y, "y", 0)],
         lambda w: DecompositionStream(loss=loss, member_weights=w, n_jobs=n_jobs),

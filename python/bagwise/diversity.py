@@ -183,7 +183,8 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``y`` also a dask Series). Without ``n_classes`` the class count of labels comes from a
+    (``members`` also a dask DataFrame,
+    one row per point and one column per member; ``y`` a dask Series). Without ``n_classes`` the class count of labels comes from a
     dask max (one number per chunk). Each point chunk becomes a `DiversityStream` on the
     worker holding it, and the streams' integer counts add pairwise on the workers. What
     travels per chunk: its state, O(members**2 + members x n_classes) integer counts,
@@ -231,6 +232,7 @@ def _diversity_update(stream, members, y):
 def _lazy_diversity(members, y, n_classes, n_jobs) -> Diversity:
     """`diversity` over the point chunks of lazy arrays: one `DiversityStream` per chunk,
     its integer counts added pairwise on the workers."""
+    members = _chunked.point_major(members, "members")
     n_classes = _lazy_n_classes(members, y, n_classes)
     n_jobs = n_jobs_value(n_jobs)
     stream = _chunked.reduce_over([(members, "members", 1), (y, "y", 0)],

@@ -144,7 +144,9 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
     Notes
     -----
     Lazy inputs: ``members``, ``counts``, ``y`` and ``point_weights`` may be dask or zarr
-    arrays chunked along the training rows (``y`` also a dask Series); the members and
+    arrays chunked along the training rows (``members`` and ``counts`` also dask
+    DataFrames, one row per training row and one column per member; ``y`` a dask Series);
+    the members and
     the counts are aligned chunk by chunk (the chunks of the first lazy one), and any
     chunking of the member axis is made one chunk. Each chunk becomes an `OutOfBagStream`
     on the worker holding it, merged pairwise in row order on the workers. What travels per
@@ -194,6 +196,8 @@ def _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes) -> 
     on the worker holding it, merged pairwise in row order."""
     if not _chunked.is_lazy(counts):
         counts = getattr(counts, "counts", counts)  # a Resample
+    members = _chunked.point_major(members, "members")
+    counts = _chunked.point_major(counts, "counts")
     start = out_of_bag_stream(loss=loss, n_jobs=n_jobs)
     loss, n_jobs = start._loss, start._n_jobs
     sizes = None if sizes is None else np.asarray(sizes)

@@ -335,7 +335,8 @@ def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=No
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``y`` also a dask Series). Each point chunk becomes a `SizeCurveStream` on the worker
+    (``members`` also a dask DataFrame,
+    one row per point and one column per member; ``y`` a dask Series). Each point chunk becomes a `SizeCurveStream` on the worker
     holding it (the member orders are drawn there from the one seed, so every chunk scores
     the same orders), and the streams merge pairwise in point order on the workers. What
     travels per chunk: its state, O(orders x sizes) loss sums plus O(orders x members)
@@ -372,6 +373,7 @@ def _lazy_size_curve(members, y, sizes, orders, rng, loss, n_jobs) -> SizeCurve:
     seed = rng_seed(rng)
     loss, orders, n_jobs = loss_option(loss), positive_int(orders, "orders"), n_jobs_value(n_jobs)
     sizes = None if sizes is None else np.asarray(sizes)
+    members = _chunked.point_major(members, "members")
     stream = _chunked.reduce_over(
         [(members, "members", 1), (y, "y", 0)],
         lambda k: SizeCurveStream(loss=loss, sizes=k, orders=orders, rng=seed, n_jobs=n_jobs),
