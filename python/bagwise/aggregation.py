@@ -87,13 +87,13 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> n
 
     Notes
     -----
-    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (or a
-    dask DataFrame, one row per point and one column per member); each
-    chunk is combined on the worker holding it and the per-point results come back in
-    point order (what travels per chunk: the chunk's combined predictions, O(points of the
-    chunk x n_classes); the member weights go once to each worker). Without ``n_classes``
-    the class count of labels comes from a dask max. The client holds the returned numpy
-    array, equal to the in-memory one bit for bit.
+    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (or a dask
+    DataFrame, one row per point and one column per member); each chunk is combined on the
+    worker holding it and the per-point results come back in point order (what travels per
+    chunk: the chunk's combined predictions, O(points of the chunk x n_classes); the member
+    weights go once to each worker). Without ``n_classes`` the class count of labels comes
+    from a dask max. The client holds the returned numpy array, equal to the in-memory one
+    bit for bit.
 
     Examples
     --------

@@ -250,14 +250,14 @@ def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``members`` also a dask DataFrame,
-    one row per point and one column per member; ``y`` a dask Series); any chunking of the member axis is made one chunk. Each
-    point chunk becomes a `CorrelationStream` on the worker holding it, and the streams
-    merge pairwise in point order on the workers. What travels per chunk: its state,
-    O(members**2) (the co-moment matrix, ``8 M (M + 3) / 2`` bytes), independent of the
-    points. The client holds the finished result, O(members), or O(members**2) with
-    ``matrix``. Equal to the in-memory result to about 1e-13 relative (one pass with merged
-    co-moments in place of two passes).
+    (``members`` also a dask DataFrame, one row per point and one column per member; ``y`` a
+    dask Series); any chunking of the member axis is made one chunk. Each point chunk
+    becomes a `CorrelationStream` on the worker holding it, and the streams merge pairwise
+    in point order on the workers. What travels per chunk: its state, O(members**2) (the
+    co-moment matrix, ``8 M (M + 3) / 2`` bytes), independent of the points. The client
+    holds the finished result, O(members), or O(members**2) with ``matrix``. Equal to the
+    in-memory result to about 1e-13 relative (one pass with merged co-moments in place of
+    two passes).
 
     Examples
     --------

@@ -281,14 +281,14 @@ def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Dec
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``members`` also a dask DataFrame,
-    one row per point and one column per member; ``y`` a dask Series); any chunking of the member or class axis is made one chunk.
-    Each point chunk becomes a `DecompositionStream` on the worker holding it, and the
-    streams merge pairwise in point order on the workers. What travels per chunk: its
-    state, O(members) (the member weights and loss moments) plus the chunk's per-point
-    losses, 24 bytes a point; the member weights go once to each worker. The client holds
-    the result: three per-point arrays, O(points). Equal to the in-memory result to about
-    1e-15 relative (the per-point losses bit for bit).
+    (``members`` also a dask DataFrame, one row per point and one column per member; ``y`` a
+    dask Series); any chunking of the member or class axis is made one chunk. Each point
+    chunk becomes a `DecompositionStream` on the worker holding it, and the streams merge
+    pairwise in point order on the workers. What travels per chunk: its state, O(members)
+    (the member weights and loss moments) plus the chunk's per-point losses, 24 bytes a
+    point; the member weights go once to each worker. The client holds the result: three
+    per-point arrays, O(points). Equal to the in-memory result to about 1e-15 relative (the
+    per-point losses bit for bit).
 
     Examples
     --------

@@ -183,13 +183,13 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``members`` also a dask DataFrame,
-    one row per point and one column per member; ``y`` a dask Series). Without ``n_classes`` the class count of labels comes from a
-    dask max (one number per chunk). Each point chunk becomes a `DiversityStream` on the
-    worker holding it, and the streams' integer counts add pairwise on the workers. What
-    travels per chunk: its state, O(members**2 + members x n_classes) integer counts,
-    independent of the points. The client holds the finished measures only. Equal to the
-    in-memory result bit for bit (the counts are exact integers).
+    (``members`` also a dask DataFrame, one row per point and one column per member; ``y`` a
+    dask Series). Without ``n_classes`` the class count of labels comes from a dask max (one
+    number per chunk). Each point chunk becomes a `DiversityStream` on the worker holding
+    it, and the streams' integer counts add pairwise on the workers. What travels per chunk:
+    its state, O(members**2 + members x n_classes) integer counts, independent of the
+    points. The client holds the finished measures only. Equal to the in-memory result bit
+    for bit (the counts are exact integers).
 
     Examples
     --------

@@ -144,16 +144,15 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
     Notes
     -----
     Lazy inputs: ``members``, ``counts``, ``y`` and ``point_weights`` may be dask or zarr
-    arrays chunked along the training rows (``members`` and ``counts`` also dask
-    DataFrames, one row per training row and one column per member; ``y`` a dask Series);
-    the members and
-    the counts are aligned chunk by chunk (the chunks of the first lazy one), and any
-    chunking of the member axis is made one chunk. Each chunk becomes an `OutOfBagStream`
-    on the worker holding it, merged pairwise in row order on the workers. What travels per
+    arrays chunked along the training rows (``members`` and ``counts`` also dask DataFrames,
+    one row per training row and one column per member; ``y`` a dask Series); the members
+    and the counts are aligned chunk by chunk (the chunks of the first lazy one), and any
+    chunking of the member axis is made one chunk. Each chunk becomes an `OutOfBagStream` on
+    the worker holding it, merged pairwise in row order on the workers. What travels per
     chunk: its state, O(sizes) compensated loss sums, plus the chunk's per-row results
     (prediction, members out of bag and, for classification, probabilities: O(rows of the
-    chunk x n_classes)). The client holds the result, O(rows). Equal to the in-memory
-    result to about 1e-15 relative (the per-row predictions bit for bit).
+    chunk x n_classes)). The client holds the result, O(rows). Equal to the in-memory result
+    to about 1e-15 relative (the per-row predictions bit for bit).
 
     Losses are weighted means over the points that have at least one out-of-bag member;
     points without one get a NaN prediction, are left out of the losses, are counted in

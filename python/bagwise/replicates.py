@@ -77,10 +77,10 @@ def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
     (the last axis of ``members``; ``y`` also a dask Series); any chunking of the replicate
-    or member axis is made one chunk. Each point chunk becomes a `ReplicateSpreadStream`
-    on the worker holding it, merged pairwise in point order on the workers. What travels
-    per chunk: its state, 16 floats of compensated sums, plus the chunk's per-point arrays
-    (24 bytes a point, 56 with ``y``). The client holds the result, O(points). The per-point
+    or member axis is made one chunk. Each point chunk becomes a `ReplicateSpreadStream` on
+    the worker holding it, merged pairwise in point order on the workers. What travels per
+    chunk: its state, 16 floats of compensated sums, plus the chunk's per-point arrays (24
+    bytes a point, 56 with ``y``). The client holds the result, O(points). The per-point
     arrays equal the in-memory ones bit for bit, the means to about 1e-15 relative.
 
     Examples

@@ -335,14 +335,13 @@ def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=No
     Notes
     -----
     Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
-    (``members`` also a dask DataFrame,
-    one row per point and one column per member; ``y`` a dask Series). Each point chunk becomes a `SizeCurveStream` on the worker
-    holding it (the member orders are drawn there from the one seed, so every chunk scores
-    the same orders), and the streams merge pairwise in point order on the workers. What
-    travels per chunk: its state, O(orders x sizes) loss sums plus O(orders x members)
-    member orders, independent of the points; ``sizes`` goes once to each worker. The
-    client holds the finished curve only. Equal to the in-memory result to about 1e-15
-    relative.
+    (``members`` also a dask DataFrame, one row per point and one column per member; ``y`` a
+    dask Series). Each point chunk becomes a `SizeCurveStream` on the worker holding it (the
+    member orders are drawn there from the one seed, so every chunk scores the same orders),
+    and the streams merge pairwise in point order on the workers. What travels per chunk:
+    its state, O(orders x sizes) loss sums plus O(orders x members) member orders,
+    independent of the points; ``sizes`` goes once to each worker. The client holds the
+    finished curve only. Equal to the in-memory result to about 1e-15 relative.
 
     Examples
     --------
