@@ -120,7 +120,7 @@ def test_decompose(kind, chunking):
     lazy = bagwise.decompose(_chunked(members, chunking), y)
     eager = bagwise.decompose(members, y)  # reference: in-memory path, same function
     _same(lazy, eager)
-    # The per-point losses do not depend on the chunks: bit for bit.
+    # The per-point losses do not depend on the chunks: bit for bit (in-memory path).
     assert np.array_equal(lazy.ensemble_loss_per_point, eager.ensemble_loss_per_point)
 
 
@@ -170,13 +170,14 @@ def test_correlation_constant_member_probability_class_and_float32():
     with pytest.warns(bagwise.BagwiseWarning, match="constant residuals"):
         eager = bagwise.correlation(members, y)  # reference: in-memory path, same function
     _same(lazy, eager)
-    assert lazy.constant_members.tolist() == [2]
+    assert lazy.constant_members.tolist() == [2]  # the member made constant above
     members32 = _values()[0].astype(np.float32)
     _same(bagwise.correlation(_chunked(members32, "one"), y),
           bagwise.correlation(members32, y))  # reference: in-memory path, same function
     # One class of probabilities, as the in-memory docstring suggests.
     p, labels = _probabilities()
     lazy = bagwise.correlation(_chunked(p, "uneven")[:, :, 1], (labels == 1).astype(float))
+    # reference: in-memory path, same function
     _same(lazy, bagwise.correlation(p[:, :, 1], (labels == 1).astype(float)))
 
 
@@ -354,11 +355,13 @@ def test_bad_input_gives_the_in_memory_message(case):
     eager = _message(function, members, y)  # reference: in-memory path, same function
     axis = 2 if members.ndim == 3 and "replicate" in case else 1
     lazy = _message(function, _chunked(members, "uneven", axis=axis), y)
-    assert lazy == eager
-    assert eager[1].startswith("`")
+    assert lazy == eager  # reference: in-memory path, same function
+    assert eager[1].startswith("`")  # the error rule: the message opens with the argument
 
 
 def test_mismatched_lengths_name_the_argument():
+    # The error rule (messages open with the argument in backticks); the lengths are made
+    # unequal here, so the argument at fault is known.
     members, y = _values()
     with pytest.raises(ValueError, match="^`y`"):
         bagwise.decompose(_chunked(members, "uneven"), y[:-1])

@@ -41,16 +41,15 @@ def any_lazy(*values) -> bool:
 
 def largest(values: Sequence[tuple[Any, str]]) -> list[int | None]:
     """The largest element of each array of ``values`` (``(value, name)`` pairs; None for a
-    None value), computed where the chunks live in one pass (one number per chunk travels).
-    Used to infer a class count from labels without gathering them."""
+    None value): a lazy array's where its chunks live, in one pass (one number per chunk
+    travels), a numpy array's here. Infers a class count from labels without gathering
+    them."""
     import dask
-    import dask.array as da
 
-    tops = [None if value is None
-            else (as_dask(value, name) if is_lazy(value) else da.from_array(np.asarray(value))).max()
-            for value, name in values]
-    computed = iter(dask.compute(*[top for top in tops if top is not None]))
-    return [None if top is None else int(next(computed)) for top in tops]
+    lazy = [as_dask(value, name).max() if is_lazy(value) else None for value, name in values]
+    computed = iter(dask.compute(*[top for top in lazy if top is not None]))
+    return [None if value is None else int(next(computed)) if top is not None
+            else int(np.max(value)) for (value, _), top in zip(values, lazy, strict=True)]
 
 
 def as_dask(value, name: str):

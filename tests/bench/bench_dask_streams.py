@@ -75,7 +75,9 @@ def throughput(m: int, n: int, chunk: int) -> None:
         for b in range(m):
             stored[b] = y + rng.normal(size=n)
         stored.flush()
-        counts = bagwise.resample(n, m, rng=1).counts
+        counts_path = Path(folder) / "counts.npy"
+        np.save(counts_path, bagwise.resample(n, m, rng=1).counts)
+        counts = np.load(counts_path, mmap_mode="r")
         members = np.load(path, mmap_mode="r")
         starts = range(0, n, chunk)
 
@@ -93,11 +95,13 @@ def throughput(m: int, n: int, chunk: int) -> None:
 
         # Each chunk is read from the file on the worker that computes it (no data in the
         # graph), as a user's loader would.
-        lazy = da.concatenate([
-            da.from_delayed(dask.delayed(_read)(str(path), s, min(s + chunk, n)),
-                            shape=(m, min(s + chunk, n) - s), dtype=np.float64)
-            for s in starts], axis=1)
-        lazy_counts = da.from_array(counts, chunks=(m, chunk))
+        def read(file, dtype):
+            return da.concatenate([
+                da.from_delayed(dask.delayed(_read)(str(file), s, min(s + chunk, n)),
+                                shape=(m, min(s + chunk, n) - s), dtype=dtype)
+                for s in starts], axis=1)
+
+        lazy, lazy_counts = read(path, np.float64), read(counts_path, counts.dtype)
         reference = {"decompose": best(in_process_decompose),
                      "out_of_bag": best(in_process_out_of_bag)}
         with LocalCluster(processes=True, n_workers=2, threads_per_worker=1,
