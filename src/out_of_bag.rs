@@ -49,7 +49,7 @@ pub use crate::members::{Task, MAX_CLASSES, PROBABILITY_TOLERANCE};
 /// A compensated running sum (Neumaier 1974, "Rundungsfehleranalyse einiger Verfahren zur
 /// Summation endlicher Summen", ZAMM 54): the error of every addition is kept in `carry`,
 /// so the total is nearly independent of the order and grouping of the terms.
-#[derive(Debug, Clone, Copy, Default, PartialEq)]
+#[derive(Debug, Clone, Copy, Default, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Sum {
     total: f64,
     carry: f64,

@@ -34,7 +34,10 @@
 use ndarray::{s, ArrayView1, ArrayView3};
 use rayon::prelude::*;
 
+use serde::{Deserialize, Serialize};
+
 use crate::error::{Error, Result};
+use crate::members::MergeableState;
 use crate::numeric::{Moments, Real};
 use crate::out_of_bag::Sum;
 use crate::parallel::{Monitor, Pool};
@@ -146,6 +149,19 @@ pub fn replicate_spread<T: Real>(
     pool: &Pool,
     monitor: &dyn Monitor,
 ) -> Result<SpreadSummary> {
+    let sums = spread_sums(members, y, out, pool, monitor)?;
+    Ok(sums.summary(members.dim().2 as u64, y.is_some()))
+}
+
+/// The per-point rows of [`replicate_spread`] and the sums over the points behind its
+/// means.
+fn spread_sums<T: Real>(
+    members: ArrayView3<'_, T>,
+    y: Option<ArrayView1<'_, f64>>,
+    out: &mut [f64],
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<BlockSums> {
     let (r, m, n) = members.dim();
     if r < 2 {
         return Err(Error::value(
@@ -224,28 +240,11 @@ pub fn replicate_spread<T: Real>(
         done += k;
         monitor.progress(done, total)?;
     }
-    let nf = n as f64;
-    let with_y = |s: &Sum| {
-        if y.is_some() {
-            s.value() / nf
-        } else {
-            f64::NAN
-        }
-    };
-    Ok(SpreadSummary {
-        mean_within: sums.within.value() / nf,
-        mean_between: sums.between.value() / nf,
-        mean_variance: sums.ensemble.value() / nf,
-        n_negative_between: sums.negative,
-        mean_bias_squared: with_y(&sums.bias_squared),
-        mean_member_variance: with_y(&sums.variance),
-        mean_covariance: with_y(&sums.covariance),
-        mean_expected_squared_error: with_y(&sums.expected),
-    })
+    Ok(sums)
 }
 
 /// Sums over a block of points of the per-point quantities, merged in point order.
-#[derive(Debug, Default, Clone, Copy)]
+#[derive(Debug, Default, Clone, Copy, PartialEq, Serialize, Deserialize)]
 struct BlockSums {
     within: Sum,
     between: Sum,
@@ -258,6 +257,22 @@ struct BlockSums {
 }
 
 impl BlockSums {
+    /// The means over `n` points (those needing targets NaN without them).
+    fn summary(&self, n: u64, with_y: bool) -> SpreadSummary {
+        let nf = n as f64;
+        let with_y = |s: &Sum| if with_y { s.value() / nf } else { f64::NAN };
+        SpreadSummary {
+            mean_within: self.within.value() / nf,
+            mean_between: self.between.value() / nf,
+            mean_variance: self.ensemble.value() / nf,
+            n_negative_between: self.negative,
+            mean_bias_squared: with_y(&self.bias_squared),
+            mean_member_variance: with_y(&self.variance),
+            mean_covariance: with_y(&self.covariance),
+            mean_expected_squared_error: with_y(&self.expected),
+        }
+    }
+
     fn merge(&mut self, other: &BlockSums) {
         self.within.merge(&other.within);
         self.between.merge(&other.between);
@@ -339,7 +354,8 @@ impl Block<'_> {
             sums.ensemble.add(means.variance(1));
             sums.negative += u64::from(between < 0.0);
             if let (Some([bias_out, var_out, cov_out, err_out]), Some(y)) = (split.as_mut(), &y) {
-                let bias = means.mean() - y[j];
+                let target = y[self.start + j];
+                let bias = means.mean() - target;
                 let mut member_variance = Sum::default();
                 for mi in 0..m {
                     member_variance.add(member[mi * rows + j].variance(0));
@@ -353,7 +369,7 @@ impl Block<'_> {
                 };
                 let mut error = Sum::default();
                 for ri in 0..r {
-                    let d = replicate[ri * rows + j].mean() - y[j];
+                    let d = replicate[ri * rows + j].mean() - target;
                     error.add(d * d);
                 }
                 let expected = error.value() / r as f64;
@@ -368,6 +384,118 @@ impl Block<'_> {
             }
         }
         Ok(sums)
+    }
+}
+
+// -- replicate spread stream ---------------------------------------------------------------
+
+/// The replicate spread fed chunk by chunk of points: every point's quantities depend on
+/// that point alone, so a chunk's per-point rows are final when it is added; the state
+/// keeps the shape, whether targets came, the number of points and the compensated sums
+/// behind the means over points (merged in point order, Neumaier 1974). State: 16 floats
+/// and three integers, whatever the number of points.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct ReplicateSpreadState {
+    shape: Option<(usize, usize)>,
+    with_y: Option<bool>,
+    count: u64,
+    sums: BlockSums,
+}
+
+impl ReplicateSpreadState {
+    /// An empty state (replicates, members and targets are fixed by the first chunk).
+    pub fn new() -> Self {
+        ReplicateSpreadState::default()
+    }
+
+    /// (replicates, members) after the first chunk.
+    pub fn shape(&self) -> Option<(usize, usize)> {
+        self.shape
+    }
+
+    /// Number of points seen.
+    pub fn n_points(&self) -> u64 {
+        self.count
+    }
+
+    /// Whether the chunks came with targets (after the first chunk).
+    pub fn with_y(&self) -> Option<bool> {
+        self.with_y
+    }
+
+    fn fix(&mut self, shape: (usize, usize), with_y: bool, argument: &'static str) -> Result<()> {
+        if let Some(known) = self.shape {
+            if known != shape {
+                return Err(Error::value(
+                    argument,
+                    format!(
+                        "has {} replicates of {} members but earlier chunks had {} of {}",
+                        shape.0, shape.1, known.0, known.1
+                    ),
+                ));
+            }
+        }
+        if let Some(known) = self.with_y {
+            if known != with_y {
+                let (now, before) = if with_y {
+                    ("with", "without")
+                } else {
+                    ("without", "with")
+                };
+                let argument = if argument == "members" { "y" } else { argument };
+                return Err(Error::value(
+                    argument,
+                    format!("this chunk comes {now} targets but earlier chunks came {before}"),
+                ));
+            }
+        }
+        self.shape = Some(shape);
+        self.with_y = Some(with_y);
+        Ok(())
+    }
+
+    /// Adds a chunk of points (every replicate and member), writing its per-point rows to
+    /// `out` as [`replicate_spread`] does.
+    ///
+    /// # Errors
+    /// As [`replicate_spread`]; `members` when the replicates or members differ from earlier
+    /// chunks', `y` when targets come for some chunks only.
+    pub fn update<T: Real>(
+        &mut self,
+        members: ArrayView3<'_, T>,
+        y: Option<ArrayView1<'_, f64>>,
+        out: &mut [f64],
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        let (r, m, n) = members.dim();
+        let mut next = self.clone();
+        next.fix((r, m), y.is_some(), "members")?;
+        let sums = spread_sums(members, y, out, pool, monitor)?;
+        next.sums.merge(&sums);
+        next.count += n as u64;
+        *self = next;
+        Ok(())
+    }
+}
+
+impl MergeableState for ReplicateSpreadState {
+    type Output = SpreadSummary;
+
+    fn merge(&mut self, other: Self) -> Result<()> {
+        if let (Some(shape), Some(with_y)) = (other.shape, other.with_y) {
+            self.fix(shape, with_y, "other")?;
+        }
+        self.sums.merge(&other.sums);
+        self.count += other.count;
+        Ok(())
+    }
+
+    fn finish(&self) -> Result<SpreadSummary> {
+        if self.count == 0 {
+            return Err(Error::value("members", "no points were added"));
+        }
+        Ok(self.sums.summary(self.count, self.with_y == Some(true)))
     }
 }
 
@@ -490,5 +618,120 @@ mod tests {
         let out = run(t.view(), Some(&[0.0, 0.0]), &Pool::Global).unwrap();
         assert!(out.summary.mean_within.is_nan() && out.summary.mean_between.is_nan());
         assert!(out.summary.mean_covariance.is_nan());
+    }
+    #[test]
+    fn targets_beyond_the_first_block_are_read_at_their_point() {
+        // Every member predicts 0 and y_i = i, so bias_i = −i and E(f − y)² = i² at every
+        // point, in every block of points.
+        let n = 2 * BLOCK_POINTS + 7;
+        let t = Array3::<f64>::zeros((3, 2, n));
+        let y: Array1<f64> = (0..n).map(|i| i as f64).collect();
+        let out = run(t.view(), y.as_slice(), &Pool::Global).unwrap();
+        for i in [0, BLOCK_POINTS - 1, BLOCK_POINTS, n - 1] {
+            assert_eq!(out.split[0][i], -(i as f64));
+            assert_eq!(out.split[3][i], (i * i) as f64);
+        }
+    }
+
+    #[test]
+    fn stream_in_chunks_matches_one_pass() {
+        let (r, m, n) = (4, 3, 1500);
+        let t = Array3::from_shape_fn((r, m, n), |(a, b, c)| {
+            (((a * 11 + b * 5 + c * 7) % 13) as f64).cos() + c as f64 * 1e-3
+        });
+        let y: Array1<f64> = (0..n).map(|c| (c % 3) as f64 * 0.2).collect();
+        let whole = run(t.view(), y.as_slice(), &Pool::Global).unwrap();
+        let mut rows = Vec::new();
+        let mut first = ReplicateSpreadState::new();
+        let mut second = ReplicateSpreadState::new();
+        for (which, range) in [(0, 0..1), (0, 1..700), (1, 700..n)] {
+            let state = if which == 0 { &mut first } else { &mut second };
+            let mut out = vec![0.0; Row::WITH_Y * range.len()];
+            state
+                .update(
+                    t.slice(s![.., .., range.clone()]),
+                    Some(y.slice(s![range.clone()])),
+                    &mut out,
+                    &Pool::Global,
+                    &Silent,
+                )
+                .unwrap();
+            rows.push((range, out));
+        }
+        let mut first = ReplicateSpreadState::from_bytes(&first.to_bytes().unwrap()).unwrap();
+        first.merge(second).unwrap();
+        let summary = first.finish().unwrap();
+        assert_eq!(first.n_points(), n as u64);
+        assert_eq!(summary.n_negative_between, whole.summary.n_negative_between);
+        assert_relative_eq!(
+            summary.mean_within,
+            whole.summary.mean_within,
+            max_relative = 1e-14
+        );
+        assert_relative_eq!(
+            summary.mean_between,
+            whole.summary.mean_between,
+            max_relative = 1e-13
+        );
+        assert_relative_eq!(
+            summary.mean_covariance,
+            whole.summary.mean_covariance,
+            max_relative = 1e-13
+        );
+        for (range, out) in rows {
+            let len = range.len();
+            for (j, c) in range.enumerate() {
+                assert_eq!(out[Row::Within.index() * len + j], whole.within[c]);
+                assert_eq!(out[Row::Between.index() * len + j], whole.between[c]);
+                assert_eq!(out[Row::Bias.index() * len + j], whole.split[0][c]);
+            }
+        }
+    }
+
+    #[test]
+    fn stream_errors() {
+        let t = Array3::from_shape_fn((2, 3, 4), |(a, b, c)| (a + b * c) as f64);
+        let mut out = vec![0.0; Row::WITH_Y * 4];
+        let mut state = ReplicateSpreadState::new();
+        assert!(matches!(
+            state.finish(),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
+        state
+            .update(t.view(), None, &mut out[..12], &Pool::Global, &Silent)
+            .unwrap();
+        let y = Array1::zeros(4);
+        assert!(matches!(
+            state.update(t.view(), Some(y.view()), &mut out, &Pool::Global, &Silent),
+            Err(Error::InvalidValue { argument: "y", .. })
+        ));
+        assert!(matches!(
+            state.update(
+                t.slice(s![.., ..2, ..]),
+                None,
+                &mut out[..12],
+                &Pool::Global,
+                &Silent
+            ),
+            Err(Error::InvalidValue {
+                argument: "members",
+                ..
+            })
+        ));
+        assert_eq!(state.n_points(), 4);
+        let mut other = ReplicateSpreadState::new();
+        other
+            .update(t.view(), Some(y.view()), &mut out, &Pool::Global, &Silent)
+            .unwrap();
+        assert!(matches!(
+            state.merge(other),
+            Err(Error::InvalidValue {
+                argument: "other",
+                ..
+            })
+        ));
     }
 }

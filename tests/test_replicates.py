@@ -145,6 +145,20 @@ def test_ueda_nakano_split_adds_up_exactly():
     assert spread.mean_expected_squared_error == pytest.approx(expected.mean(), rel=1e-12)
 
 
+def test_targets_are_read_at_their_own_point_beyond_the_first_block():
+    # The core works in blocks of 512 points; every point must meet its own target.
+    # Reference: straightforward numpy, bias = mean over replicates and members - y and
+    # E[(f - y)^2] the mean over replicates (Ueda & Nakano 1996).
+    rng = np.random.default_rng(5)
+    R, M, n = 4, 3, 1100
+    y = np.arange(n, dtype=np.float64)
+    t = rng.normal(size=(R, M, n))
+    spread = bagwise.replicate_spread(t, y)
+    np.testing.assert_allclose(spread.bias, t.mean(axis=(0, 1)) - y, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(spread.expected_squared_error,
+                               ((t.mean(axis=1) - y) ** 2).mean(axis=0), rtol=1e-12)
+
+
 def test_members_needed_meets_its_definition():
     t = equicorrelated(30, 8, 200, 1.0, 0.2, seed=3)
     spread = bagwise.replicate_spread(t)

@@ -6,7 +6,7 @@ from ._core import __version__
 from ._warnings import BagwiseWarning
 from .aggregation import aggregate, vote_fractions
 from .compare import LearnerComparison, Verdict, compare_learners
-from .correlation import Correlation, correlation
+from .correlation import Correlation, CorrelationStream, correlation, correlation_stream
 from .decomposition import Decomposition, DecompositionStream, decompose, decompose_stream
 from .diagnosis import Diagnosis, diagnose
 from .diversity import Diversity, DiversityStream, diversity, diversity_stream
@@ -14,7 +14,12 @@ from .intervals import PredictionInterval, PredictionSet, prediction_interval
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
 from .read_ensemble import EnsembleArrays, read_ensemble
-from .replicates import ReplicateSpread, replicate_spread
+from .replicates import (
+    ReplicateSpread,
+    ReplicateSpreadStream,
+    replicate_spread,
+    replicate_spread_stream,
+)
 from .resampling import Resample, resample
 from .size_curve import SizeCurve, SizeCurveStream, size_curve, size_curve_stream
 from .uncertainty import (
@@ -57,6 +62,8 @@ __all__ = [
     "compare_learners",
     "Correlation",
     "correlation",
+    "correlation_stream",
+    "CorrelationStream",
     "count_gram",
     "CountGram",
     "decompose",
@@ -84,6 +91,8 @@ __all__ = [
     "read_ensemble",
     "replicate_spread",
     "ReplicateSpread",
+    "replicate_spread_stream",
+    "ReplicateSpreadStream",
     "Resample",
     "resample",
     "save",

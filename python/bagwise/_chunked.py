@@ -16,12 +16,14 @@ by chunk). dask is imported only when a lazy input is met.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
 
-__all__ = ["aligned_blocks", "as_dask", "is_lazy", "map_points", "reduce_streams"]
+__all__ = ["aligned_blocks", "any_lazy", "as_dask", "is_lazy", "largest", "map_points",
+           "map_over", "point_major", "point_starts", "reduce_over", "reduce_streams"]
 
 _LAZY_MODULES = ("dask", "dask_expr", "zarr")
 
@@ -39,6 +41,24 @@ def is_lazy(value) -> bool:
     if module.split(".")[0] in _LAZY_MODULES:
         return True
     return _memmap_file(value) is not None and _client_active()
+
+
+def any_lazy(*values) -> bool:
+    """True when any of ``values`` is lazy (see `is_lazy`)."""
+    return any(is_lazy(value) for value in values)
+
+
+def largest(values: Sequence[tuple[Any, str]]) -> list[int | None]:
+    """The largest element of each array of ``values`` (``(value, name)`` pairs; None for a
+    None value): a lazy array's where its chunks live, in one pass (one number per chunk
+    travels), a numpy array's here. Infers a class count from labels without gathering
+    them."""
+    import dask
+
+    lazy = [as_dask(value, name).max() if is_lazy(value) else None for value, name in values]
+    computed = iter(dask.compute(*[top for top in lazy if top is not None]))
+    return [None if value is None else int(next(computed)) if top is not None
+            else int(np.max(value)) for (value, _), top in zip(values, lazy, strict=True)]
 
 
 def _client_active() -> bool:
@@ -117,15 +137,25 @@ def as_dask(value, name: str, point_axis: int | None = None):
     raise TypeError(f"`{name}`: expected a dask or numpy array, got {type(value).__name__}")
 
 
+def point_major(value, name: str):
+    """``value`` with the points on its last axis: a dask DataFrame holds one row per point
+    and one column per member (or class, ...), so it becomes the transposed dask array of
+    its partitions, ``(n_columns, n_points)`` chunked along the points; anything else is
+    returned as is."""
+    if is_lazy(value) and hasattr(value, "columns"):
+        return as_dask(value, name).T
+    return value
+
+
 def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[Any]]:
     """Blocks of ``arrays`` chunk by chunk along the points.
 
     ``arrays`` holds ``(value, name, point_axis)``; a ``None`` value stays ``None`` and a
     ``None`` axis marks an argument passed whole to every chunk. The chunks along the points
     are those of the first lazy array; every other array is rechunked to them (a numpy array
-    is sliced on the client, so it travels once, a chunk to each task), and every other axis
-    is made one chunk. Returns, for each chunk of points, the list of its blocks (dask
-    delayed objects, or the whole values) in the order of ``arrays``.
+    is sliced on the client, so it travels once, a piece with each task), and every other
+    axis is made one chunk. Returns, for each chunk of points, the list of its blocks (dask
+    delayed objects, numpy pieces, or the whole values) in the order of ``arrays``.
     """
     import dask.array as da
 
@@ -146,31 +176,90 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
         if array.shape[axis] != n_points:
             raise ValueError(f"`{name}`: has {array.shape[axis]:,} points along axis {axis} "
                              f"but the other arrays {n_points:,}")
+        if not isinstance(array, da.Array):
+            # Sliced here: each task carries its own piece (no whole array in the graph).
+            bounds = np.cumsum((0,) + tuple(reference))
+            lead = (slice(None),) * axis
+            columns.append([array[(*lead, slice(lo, hi))]
+                            for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)])
+            continue
         chunks = tuple(reference if a == axis else (size,) for a, size in enumerate(array.shape))
-        array = (array.rechunk(chunks) if isinstance(array, da.Array)
-                 else da.from_array(array, chunks=chunks))
-        columns.append(list(np.ravel(array.to_delayed())))
+        columns.append(list(np.ravel(array.rechunk(chunks).to_delayed())))
     return [list(blocks) for blocks in zip(*columns, strict=True)]
 
 
+def point_starts(arrays: Sequence[tuple[Any, str, int | None]]) -> list[int]:
+    """The first point of every chunk `aligned_blocks` makes of the same ``arrays``."""
+    for value, name, axis in arrays:
+        if value is not None and axis is not None and is_lazy(value):
+            return [int(v) for v in np.cumsum((0,) + as_dask(value, name).chunks[axis][:-1])]
+    raise ValueError("no lazy array among the inputs")
+
+
+_NUMBERED = re.compile(r"\b(point|row) (\d+)")
+
+
+def _in_chunk(function: Callable[..., Any], start: int | None) -> Callable[..., Any]:
+    """``function`` whose ValueError / TypeError / OverflowError messages number points
+    from the first point of all chunks rather than of its chunk (``start`` added to every
+    "point N" / "row N"), so a chunk reports bad input as the in-memory call does."""
+    if not start:
+        return function
+
+    def shifted(*args):
+        try:
+            return function(*args)
+        except (ValueError, TypeError, OverflowError) as error:
+            if type(error) not in (ValueError, TypeError, OverflowError):
+                raise
+            message = _NUMBERED.sub(lambda m: f"{m[1]} {int(m[2]) + start}", str(error))
+            raise type(error)(message) from None
+
+    return shifted
+
+
 def _merged(left, right):
-    return left.merge(right)
+    # Streams merge in place; merging a copy keeps each task's input unchanged, so a task
+    # the scheduler runs again (after a lost worker) cannot count points twice.
+    import pickle
+
+    return pickle.loads(pickle.dumps(left)).merge(right)
 
 
-def reduce_streams(start: Callable[[], Any], update: Callable[..., Any],
-                   blocks: list[list[Any]]):
-    """One stream over all chunks: ``update(start(), *chunk_blocks)`` on each chunk where it
-    lives, then a pairwise tree of ``merge`` in point order; computes and returns the stream.
+def _shared(whole: Sequence[Any]) -> list[Any]:
+    """Whole arguments as one graph key each (numpy arrays; other values stay literals),
+    so an array travels once to each worker that needs it rather than once per task."""
+    import dask
+
+    return [dask.delayed(value, pure=True) if isinstance(value, np.ndarray) else value
+            for value in whole]
+
+
+def reduce_streams(start: Callable[..., Any], update: Callable[..., Any],
+                   blocks: list[list[Any]], whole: Sequence[Any] = (),
+                   starts: Sequence[int] | None = None):
+    """One stream over all chunks: ``update(start(*whole), *chunk_blocks)`` on each chunk
+    where it lives, then a pairwise tree of ``merge`` in point order; computes and returns
+    the stream.
 
     ``update`` must return the stream; states must pickle and ``merge`` must add the other
-    stream's points after its own (every bagwise stream does both).
+    stream's points after its own (every bagwise stream does both). ``whole`` holds the
+    arguments every chunk needs in full (member weights, a class count): numpy arrays among
+    them become one graph key each, sent once to each worker. With ``starts`` (the first
+    point of every chunk, `point_starts`), the point numbers in a chunk's error messages
+    count from the first point of all chunks.
     """
     import dask
 
-    def chunk_state(*chunk):
-        return update(start(), *chunk)
+    n_whole = len(whole)
 
-    states = [dask.delayed(chunk_state, pure=True)(*chunk) for chunk in blocks]
+    def chunk_state(*args):
+        return update(start(*args[:n_whole]), *args[n_whole:])
+
+    shared = _shared(whole)
+    starts = starts or [None] * len(blocks)
+    states = [dask.delayed(_in_chunk(chunk_state, first), pure=True)(*shared, *chunk)
+              for chunk, first in zip(blocks, starts, strict=True)]
     while len(states) > 1:
         paired = [dask.delayed(_merged, pure=True)(states[i], states[i + 1])
                   for i in range(0, len(states) - 1, 2)]
@@ -181,8 +270,26 @@ def reduce_streams(start: Callable[[], Any], update: Callable[..., Any],
     return stream
 
 
-def map_points(compute: Callable[..., Any], blocks: list[list[Any]]) -> list[Any]:
-    """``compute(*chunk_blocks)`` on each chunk where it lives; the results, in point order."""
+def map_points(compute: Callable[..., Any], blocks: list[list[Any]],
+               whole: Sequence[Any] = (), starts: Sequence[int] | None = None) -> list[Any]:
+    """``compute(*whole, *chunk_blocks)`` on each chunk where it lives; the results, in
+    point order (``whole`` and ``starts`` as in `reduce_streams`)."""
     import dask
 
-    return list(dask.compute(*[dask.delayed(compute, pure=True)(*chunk) for chunk in blocks]))
+    shared = _shared(whole)
+    starts = starts or [None] * len(blocks)
+    return list(dask.compute(*[dask.delayed(_in_chunk(compute, first), pure=True)(*shared, *chunk)
+                               for chunk, first in zip(blocks, starts, strict=True)]))
+
+
+def reduce_over(arrays: Sequence[tuple[Any, str, int | None]], start: Callable[..., Any],
+                update: Callable[..., Any], whole: Sequence[Any] = ()):
+    """`reduce_streams` over the `aligned_blocks` of ``arrays``, with their `point_starts`:
+    the one call a family's lazy path makes."""
+    return reduce_streams(start, update, aligned_blocks(arrays), whole, point_starts(arrays))
+
+
+def map_over(arrays: Sequence[tuple[Any, str, int | None]], compute: Callable[..., Any],
+             whole: Sequence[Any] = ()) -> list[Any]:
+    """`map_points` over the `aligned_blocks` of ``arrays``, with their `point_starts`."""
+    return map_points(compute, aligned_blocks(arrays), whole, point_starts(arrays))

@@ -7,6 +7,7 @@ import numpy.typing as npt
 __all__ = [
     "__version__",
     "correlation_matrix",
+    "CorrelationAccumulator",
     "CorrelationSummary",
     "CountGram",
     "crc32",
@@ -28,6 +29,7 @@ __all__ = [
     "prediction_set_arrays",
     "random_member_count",
     "replicate_spread",
+    "ReplicateSpreadAccumulator",
     "ReplicateSpreadParts",
     "Resampler",
     "residual_correlation",
@@ -316,6 +318,24 @@ class CorrelationSummary:
     @property
     def constant_members(self) -> npt.NDArray[np.int64]: ...
 
+@final
+class CorrelationAccumulator:
+    def __new__(cls) -> CorrelationAccumulator: ...
+    def update(
+        self, members: npt.NDArray[Any], y: npt.NDArray[np.float64], n_jobs: int | None = None
+    ) -> None: ...
+    def merge(self, other: CorrelationAccumulator) -> None: ...
+    @property
+    def n_members(self) -> int | None: ...
+    @property
+    def n_points(self) -> int: ...
+    def result(self) -> CorrelationSummary: ...
+    def matrix(self) -> npt.NDArray[np.float64]: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> CorrelationAccumulator: ...
+    def __reduce__(self) -> tuple[Any, tuple[bytes]]: ...
+
 def residual_correlation(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64],
@@ -514,6 +534,28 @@ def replicate_spread(
     y: npt.NDArray[np.float64] | None = None,
     n_jobs: int | None = None,
 ) -> ReplicateSpreadParts: ...
+
+@final
+class ReplicateSpreadAccumulator:
+    def __new__(cls) -> ReplicateSpreadAccumulator: ...
+    def update(
+        self,
+        members: npt.NDArray[Any],
+        y: npt.NDArray[np.float64] | None = None,
+        n_jobs: int | None = None,
+    ) -> npt.NDArray[np.float64]: ...
+    def merge(self, other: ReplicateSpreadAccumulator) -> None: ...
+    @property
+    def shape(self) -> tuple[int, int] | None: ...
+    @property
+    def n_points(self) -> int: ...
+    def result(
+        self,
+    ) -> tuple[float, float, float, int, list[float | None]]: ...
+    def to_bytes(self) -> bytes: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> ReplicateSpreadAccumulator: ...
+    def __reduce__(self) -> tuple[Any, tuple[bytes]]: ...
 
 @final
 class TreeEnsemble:

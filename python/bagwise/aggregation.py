@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _core
+from . import _chunked, _core
 from ._members import member_weights as _member_weights
 from ._members import members_array, n_classes_of
 from ._validation import n_jobs_value, positive_int
@@ -30,6 +30,36 @@ def _aggregate_iv(members, member_weights, n_classes, n_jobs):
             raise ValueError(f"`n_classes`: is {n_classes} but `members` has {members.shape[2]} "
                              "classes")
     return kind, members, member_weights, n_classes, n_jobs_value(n_jobs)
+
+
+def _lazy_classes(members, n_classes):
+    """The class count of lazy labels as `_aggregate_iv` finds it in memory (given or the
+    largest label + 1), checked against the largest label of all points, a dask max; the
+    float kinds' chunks check a given count themselves."""
+    array = _chunked.as_dask(members, "members")
+    if array.dtype.kind not in "iu" or array.ndim != 2:
+        return n_classes
+    (top,) = _chunked.largest([(members, "members")])
+    return n_classes_of(n_classes, np.array([top]))
+
+
+def _lazy_map(members, member_weights, n_classes, n_jobs, compute) -> np.ndarray:
+    """A per-point map over the point chunks of lazy ``members``, joined in point order."""
+    members = _chunked.point_major(members, "members")
+    n_classes = _lazy_classes(members, n_classes)
+    weights = None if member_weights is None else np.asarray(member_weights)
+    parts = _chunked.map_over([(members, "members", 1)], compute,
+                              whole=[weights, n_classes, n_jobs])
+    return np.concatenate(parts)
+
+
+def _aggregate_chunk(member_weights, n_classes, n_jobs, members):
+    return aggregate(members, member_weights=member_weights, n_classes=n_classes, n_jobs=n_jobs)
+
+
+def _vote_fractions_chunk(member_weights, n_classes, n_jobs, members):
+    return vote_fractions(members, n_classes=n_classes, member_weights=member_weights,
+                          n_jobs=n_jobs)
 
 
 def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> np.ndarray:
@@ -55,6 +85,16 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> n
         majority vote, int64 ``(n_points,)``; among tied classes the lowest class index wins
         (weighted totals are compared as float sums).
 
+    Notes
+    -----
+    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (or a dask
+    DataFrame, one row per point and one column per member); each chunk is combined on the
+    worker holding it and the per-point results come back in point order (what travels per
+    chunk: the chunk's combined predictions, O(points of the chunk x n_classes); the member
+    weights go once to each worker). Without ``n_classes`` the class count of labels comes
+    from a dask max. The client holds the returned numpy array, equal to the in-memory one
+    bit for bit.
+
     Examples
     --------
     >>> import numpy as np, bagwise
@@ -63,6 +103,8 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> n
     >>> bagwise.aggregate(np.array([[2, 0], [1, 1], [1, 2], [2, 2]]))  # ties go to class 1
     array([1, 2])
     """
+    if _chunked.is_lazy(members):
+        return _lazy_map(members, member_weights, n_classes, n_jobs, _aggregate_chunk)
     kind, members, member_weights, n_classes, n_jobs = _aggregate_iv(
         members, member_weights, n_classes, n_jobs)
     if kind == "labels":
@@ -91,6 +133,11 @@ def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None)
     -------
     ndarray of float64, shape (n_points, n_classes)
 
+    Notes
+    -----
+    Lazy inputs: as in `aggregate` (what travels per chunk: its fractions, O(points of the
+    chunk x n_classes)).
+
     Examples
     --------
     >>> import numpy as np, bagwise
@@ -98,6 +145,8 @@ def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None)
     array([[0.75, 0.25, 0.  ],
            [0.  , 0.25, 0.75]])
     """
+    if _chunked.is_lazy(members):
+        return _lazy_map(members, member_weights, n_classes, n_jobs, _vote_fractions_chunk)
     kind, members, member_weights, n_classes, n_jobs = _aggregate_iv(
         members, member_weights, n_classes, n_jobs)
     if kind != "labels":

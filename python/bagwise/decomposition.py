@@ -15,7 +15,7 @@ import math
 
 import numpy as np
 
-from . import _core
+from . import _chunked, _core
 from ._display import fmt as _fmt
 from ._members import loss_for, loss_option, members_array, n_classes_of, targets
 from ._members import member_weights as _member_weights
@@ -278,6 +278,18 @@ def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Dec
     -------
     Decomposition
 
+    Notes
+    -----
+    Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
+    (``members`` also a dask DataFrame, one row per point and one column per member; ``y`` a
+    dask Series); any chunking of the member or class axis is made one chunk. Each point
+    chunk becomes a `DecompositionStream` on the worker holding it, and the streams merge
+    pairwise in point order on the workers. What travels per chunk: its state, O(members)
+    (the member weights and loss moments) plus the chunk's per-point losses, 24 bytes a
+    point; the member weights go once to each worker. The client holds the result: three
+    per-point arrays, O(points). Equal to the in-memory result to about 1e-15 relative (the
+    per-point losses bit for bit).
+
     Examples
     --------
     >>> import numpy as np, bagwise
@@ -290,5 +302,25 @@ def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Dec
     >>> round(d.relative_gain, 2)                        # combining removes ~98% of the loss
     0.98
     """
+    if _chunked.any_lazy(members, y):
+        return _lazy_decompose(members, y, loss, member_weights, n_jobs)
     stream = decompose_stream(loss=loss, member_weights=member_weights, n_jobs=n_jobs)
     return stream.update(members, y).result()
+
+
+def _decompose_update(stream, members, y):
+    return stream.update(members, y)
+
+
+def _lazy_decompose(members, y, loss, member_weights, n_jobs) -> Decomposition:
+    """`decompose` over the point chunks of lazy arrays: one `DecompositionStream` per chunk
+    where it lives, merged pairwise in point order."""
+    loss = loss_option(loss)
+    weights = None if member_weights is None else np.asarray(member_weights)
+    n_jobs = n_jobs_value(n_jobs)
+    members = _chunked.point_major(members, "members")
+    stream = _chunked.reduce_over(
+        [(members, "members", 1), (y, "y", 0)],
+        lambda w: DecompositionStream(loss=loss, member_weights=w, n_jobs=n_jobs),
+        _decompose_update, whole=[weights])
+    return stream.result()

@@ -21,7 +21,7 @@ import math
 
 import numpy as np
 
-from . import _core
+from . import _chunked, _core
 from ._members import members_array, n_classes_of, targets
 from ._results import Result
 from ._validation import n_jobs_value, positive_int
@@ -180,6 +180,17 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     -------
     Diversity
 
+    Notes
+    -----
+    Lazy inputs: ``members`` and ``y`` may be dask or zarr arrays chunked along the points
+    (``members`` also a dask DataFrame, one row per point and one column per member; ``y`` a
+    dask Series). Without ``n_classes`` the class count of labels comes from a dask max (one
+    number per chunk). Each point chunk becomes a `DiversityStream` on the worker holding
+    it, and the streams' integer counts add pairwise on the workers. What travels per chunk:
+    its state, O(members**2 + members x n_classes) integer counts, independent of the
+    points. The client holds the finished measures only. Equal to the in-memory result bit
+    for bit (the counts are exact integers).
+
     Examples
     --------
     >>> import numpy as np, bagwise
@@ -192,8 +203,41 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     >>> d.redundant_pairs(top=1)
     [(0, 1, 0.5)]
     """
+    if _chunked.any_lazy(members, y):
+        return _lazy_diversity(members, y, n_classes, n_jobs)
     members, y, n_classes = _diversity_iv(members, y, n_classes)
     return DiversityStream(n_classes, n_jobs).update(members, y).result()
+
+
+def _lazy_n_classes(members, y, n_classes) -> int:
+    """The class count of lazy ``members`` and ``y`` as `_diversity_iv` finds it in memory
+    (given, the probabilities' last axis, or the largest label + 1), checked against the
+    largest labels of all points, found by a dask max (one number per chunk travels)."""
+    array = _chunked.as_dask(members, "members")
+    probabilities = array.ndim == 3 and array.dtype.kind == "f"
+    if not probabilities and array.dtype.kind not in "iu":
+        # The chunks refuse this kind with the in-memory message.
+        return 1 if n_classes is None else positive_int(n_classes, "n_classes")
+    top_members, top_y = _chunked.largest([(None if probabilities else members, "members"),
+                                           (y, "y")])
+    return n_classes_of(n_classes, None if probabilities else np.array([top_members]),
+                        None if top_y is None else np.array([top_y]),
+                        implied=array.shape[2] if probabilities else None, blame_labels=True)
+
+
+def _diversity_update(stream, members, y):
+    return stream.update(members, y)
+
+
+def _lazy_diversity(members, y, n_classes, n_jobs) -> Diversity:
+    """`diversity` over the point chunks of lazy arrays: one `DiversityStream` per chunk,
+    its integer counts added pairwise on the workers."""
+    members = _chunked.point_major(members, "members")
+    n_classes = _lazy_n_classes(members, y, n_classes)
+    n_jobs = n_jobs_value(n_jobs)
+    stream = _chunked.reduce_over([(members, "members", 1), (y, "y", 0)],
+                                  lambda: DiversityStream(n_classes, n_jobs), _diversity_update)
+    return stream.result()
 
 
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)

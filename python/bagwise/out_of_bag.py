@@ -8,7 +8,7 @@ import math
 
 import numpy as np
 
-from . import _core
+from . import _chunked, _core
 from ._members import as_array, in_bag_counts, members_array, n_classes_of, targets
 from ._results import Result
 from ._validation import n_jobs_value
@@ -143,6 +143,17 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
 
     Notes
     -----
+    Lazy inputs: ``members``, ``counts``, ``y`` and ``point_weights`` may be dask or zarr
+    arrays chunked along the training rows (``members`` and ``counts`` also dask DataFrames,
+    one row per training row and one column per member; ``y`` a dask Series); the members
+    and the counts are aligned chunk by chunk (the chunks of the first lazy one), and any
+    chunking of the member axis is made one chunk. Each chunk becomes an `OutOfBagStream` on
+    the worker holding it, merged pairwise in row order on the workers. What travels per
+    chunk: its state, O(sizes) compensated loss sums, plus the chunk's per-row results
+    (prediction, members out of bag and, for classification, probabilities: O(rows of the
+    chunk x n_classes)). The client holds the result, O(rows). Equal to the in-memory result
+    to about 1e-15 relative (the per-row predictions bit for bit).
+
     Losses are weighted means over the points that have at least one out-of-bag member;
     points without one get a NaN prediction, are left out of the losses, are counted in
     ``n_without_out_of_bag`` and raise a ``BagwiseWarning`` (as do point weights that sum
@@ -165,11 +176,35 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
     >>> oob.sizes[:4].tolist(), int(oob.sizes[-1])
     ([1, 2, 3, 4], 100)
     """
+    if _chunked.any_lazy(members, counts, y, point_weights):
+        return _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes)
     (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
      sizes) = _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes)
     state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
         members, counts, y, point_weights, sizes, kind, n_classes, n_jobs)
     return OutOfBag._build(state, kind, loss, prediction, n_oob, probabilities)
+
+
+def _out_of_bag_update(stream, members, counts, y, point_weights):
+    return stream.update(members, counts, y, point_weights)
+
+
+def _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes) -> OutOfBag:
+    """`out_of_bag` over the row chunks of lazy arrays: the members and the counts are
+    aligned chunk by chunk along the training rows, each chunk becomes an `OutOfBagStream`
+    on the worker holding it, merged pairwise in row order."""
+    if not _chunked.is_lazy(counts):
+        counts = getattr(counts, "counts", counts)  # a Resample
+    members = _chunked.point_major(members, "members")
+    counts = _chunked.point_major(counts, "counts")
+    start = out_of_bag_stream(loss=loss, n_jobs=n_jobs)
+    loss, n_jobs = start._loss, start._n_jobs
+    sizes = None if sizes is None else np.asarray(sizes)
+    stream = _chunked.reduce_over(
+        [(members, "members", 1), (counts, "counts", 1), (y, "y", 0),
+         (point_weights, "point_weights", 0)],
+        lambda k: OutOfBagStream(loss, n_jobs, k), _out_of_bag_update, whole=[sizes])
+    return stream.result()
 
 
 def out_of_bag_stream(*, loss=None, n_jobs=None, sizes=None) -> OutOfBagStream:
