@@ -18,9 +18,11 @@ from .resampling import Resample, resample
 from .size_curve import SizeCurve, SizeCurveStream, size_curve, size_curve_stream
 from .uncertainty import (
     CountGram,
+    CountGramStream,
     PredictionVariance,
     Spread,
     count_gram,
+    count_gram_stream,
     prediction_variance,
     spread,
 )
@@ -35,7 +37,9 @@ __all__ = [
     "Correlation",
     "correlation",
     "count_gram",
+    "count_gram_stream",
     "CountGram",
+    "CountGramStream",
     "decompose",
     "decompose_stream",
     "Decomposition",

@@ -21,7 +21,8 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["aligned_blocks", "as_dask", "is_lazy", "map_points", "reduce_streams"]
+__all__ = ["aligned_blocks", "as_dask", "is_lazy", "join_points", "map_points",
+           "reduce_streams", "shared"]
 
 _LAZY_MODULES = ("dask", "dask_expr", "zarr")
 
@@ -119,3 +120,24 @@ def map_points(compute: Callable[..., Any], blocks: list[list[Any]]) -> list[Any
     import dask
 
     return list(dask.compute(*[dask.delayed(compute, pure=True)(*chunk) for chunk in blocks]))
+
+
+def shared(value):
+    """``value`` (any picklable object: a Gram, a tuple of training arrays) as one dask key.
+
+    Pass it in `aligned_blocks` with a ``None`` axis: every chunk's task then depends on the
+    same key, so the value travels to each worker once (the scheduler's peer transfers),
+    never once per task as an argument embedded in every task would. The key is named
+    uniquely rather than hashed, so large arrays are not tokenized.
+    """
+    import uuid
+
+    import dask
+
+    return dask.delayed(value, name=f"bagwise-shared-{uuid.uuid4().hex}", traverse=False)
+
+
+def join_points(parts: list[tuple[np.ndarray, ...]]) -> tuple[np.ndarray, ...]:
+    """The per-point arrays of `map_points`'s results (each a tuple of arrays whose first
+    axis is the chunk's points), joined in point order."""
+    return tuple(np.concatenate([part[k] for part in parts]) for k in range(len(parts[0])))
