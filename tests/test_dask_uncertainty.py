@@ -232,7 +232,7 @@ def test_prediction_variance_on_the_cluster(client, data, method):
         lambda: bagwise.prediction_variance(members, counts, method=method))
     assert len(expected) == 1             # this small ensemble has not-estimable points
     for lazy_c in (counts, lazy_counts(counts)):
-        result, caught = recorded(lambda: bagwise.prediction_variance(
+        result, caught = recorded(lambda lazy_c=lazy_c: bagwise.prediction_variance(
             lazy_members(members), lazy_c, method=method))
         assert_same_result(result, reference)
         same_warnings(caught, expected)   # once on the client, not once per chunk
@@ -242,8 +242,8 @@ def test_one_point_chunks_and_uncorrected(data):
     members, counts = data["members"], data["counts"]
     for corrected in (True, False):
         reference, expected = recorded(   # in-memory path, same function
-            lambda: bagwise.prediction_variance(members, counts, corrected=corrected))
-        result, caught = recorded(lambda: bagwise.prediction_variance(
+            lambda corrected=corrected: bagwise.prediction_variance(members, counts, corrected=corrected))
+        result, caught = recorded(lambda corrected=corrected: bagwise.prediction_variance(
             lazy_members(members, chunks=1), counts, corrected=corrected))
         assert_same_result(result, reference)
         same_warnings(caught, expected)
@@ -267,14 +267,14 @@ def test_spread_and_count_gram_methods_on_the_cluster(client, data, tmp_path):
     stored = as_zarr(members, tmp_path / "members.zarr", chunks=(N_MEMBERS, 6))
     reference, expected = recorded(lambda: bagwise.spread(members, counts))  # in-memory path
     for lazy in (lazy_members(members), stored):
-        result, caught = recorded(lambda: bagwise.spread(lazy, lazy_counts(counts)))
+        result, caught = recorded(lambda lazy=lazy: bagwise.spread(lazy, lazy_counts(counts)))
         assert_same_result(result, reference)
         same_warnings(caught, expected)
     gram = bagwise.count_gram(lazy_counts(counts), jackknife=True)
     for method in ("ij", "jackknife"):
-        reference, expected = recorded(lambda: bagwise.count_gram(counts, jackknife=True)
+        reference, expected = recorded(lambda method=method: bagwise.count_gram(counts, jackknife=True)
                                        .prediction_variance(members, method=method))
-        result, caught = recorded(lambda: gram.prediction_variance(stored, method=method))
+        result, caught = recorded(lambda method=method: gram.prediction_variance(stored, method=method))
         assert_same_result(result, reference)   # in-memory path, same function
         same_warnings(caught, expected)
     result, _ = recorded(lambda: gram.spread(lazy_members(members)))
@@ -338,7 +338,7 @@ def test_little_bags_on_the_cluster(client, tmp_path):
     reference, expected = recorded(lambda: bagwise.prediction_variance(   # in-memory path
         members, counts, method="little_bags", group_size=4))
     for lazy_c in (counts, lazy_counts(counts, chunks=(3, 40, 37)), stored):
-        result, caught = recorded(lambda: bagwise.prediction_variance(
+        result, caught = recorded(lambda lazy_c=lazy_c: bagwise.prediction_variance(
             da.from_array(members, chunks=(40, POINT_CHUNKS)), lazy_c, method="little_bags",
             group_size=4))
         assert_same_result(result, reference)
@@ -373,7 +373,8 @@ def test_prediction_interval_on_the_cluster(client, data, tmp_path, method):
     for arguments in [(lazy_members(members), counts, train, y_train),
                       (lazy_members(members, chunks=1), lazy_counts(counts), stored,
                        da.from_array(y_train, chunks=20))]:
-        result, caught = recorded(lambda: bagwise.prediction_interval(*arguments, method=method))
+        result, caught = recorded(
+            lambda arguments=arguments: bagwise.prediction_interval(*arguments, method=method))
         assert_same_result(result, reference)
         same_warnings(caught, expected)
 
