@@ -541,6 +541,56 @@ fn out_of_bag_indicators<C: GramCount>(
     }
 }
 
+/// Per segment `(start, end, _)` of the indicator columns (member rows of `width` u8
+/// columns), the packed upper triangle of its exact integer Gram Σ_{i in segment} O_·i O_·iᵀ:
+/// one tiled pass computes every segment of a tile, so the tiles are scheduled once.
+fn segment_grams(
+    indicators: &[u8],
+    width: usize,
+    members: usize,
+    segments: &[(usize, usize, u32)],
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<Vec<Vec<u64>>> {
+    let row = |m: usize| &indicators[m * width..(m + 1) * width];
+    let depth = segments.len();
+    let mut out = vec![vec![0u64; members * (members + 1) / 2]; depth];
+    let tile_list = tiles(members);
+    let per_batch = (pool.threads() * 8).max(1);
+    let mut done = 0;
+    for batch in tile_list.chunks(per_batch) {
+        let blocks: Vec<(usize, usize, Vec<u64>)> = pool.run(|| {
+            batch
+                .par_iter()
+                .map(|&(a0, b0)| {
+                    let mut acc = vec![0u64; depth * TILE * TILE];
+                    for a in a0..(a0 + TILE).min(members) {
+                        for b in b0.max(a)..(b0 + TILE).min(members) {
+                            for (k, &(start, end, _)) in segments.iter().enumerate() {
+                                acc[(k * TILE + a - a0) * TILE + (b - b0)] =
+                                    dot_u8(&row(a)[start..end], &row(b)[start..end]);
+                            }
+                        }
+                    }
+                    (a0, b0, acc)
+                })
+                .collect()
+        });
+        for (a0, b0, acc) in blocks {
+            for (k, gram) in out.iter_mut().enumerate() {
+                for a in a0..(a0 + TILE).min(members) {
+                    for b in b0.max(a)..(b0 + TILE).min(members) {
+                        gram[packed(members, a, b)] = acc[(k * TILE + a - a0) * TILE + (b - b0)];
+                    }
+                }
+            }
+        }
+        done += batch.len();
+        monitor.progress(done, tile_list.len())?;
+    }
+    Ok(out)
+}
+
 /// The stored form of a [`CountGram`] (postcard bytes), versioned for forward checks.
 /// Postcard encodes fields by position, never by name: the bytes are pinned by the test
 /// `stored_bytes_are_pinned`.
@@ -633,12 +683,11 @@ fn packed(members: usize, a: usize, b: usize) -> usize {
     a * (2 * members - a + 1) / 2 + (b - a)
 }
 
-/// `into[k] += from[k]` exactly; an overflow of u64 is refused.
-fn add_exact(into: &mut [u64], from: &[u64]) -> Result<()> {
+/// `into[k] += from[k]`, after the caller checked that no sum overflows u64.
+fn add_exact(into: &mut [u64], from: &[u64]) {
     for (slot, &v) in into.iter_mut().zip(from) {
-        *slot = slot.checked_add(v).ok_or_else(gram_overflow)?;
+        *slot += v;
     }
-    Ok(())
 }
 
 fn gram_overflow() -> Error {
@@ -735,27 +784,11 @@ impl CountGramState {
         self.jackknife
     }
 
-    fn set_members(&mut self, members: usize) -> Result<()> {
-        match self.n_members {
-            None => {
-                self.n_members = Some(members as u64);
-                self.gram = vec![0; members * (members + 1) / 2];
-                self.row_totals = vec![0; members];
-                Ok(())
-            }
-            Some(b) if b as usize == members => Ok(()),
-            Some(b) => Err(Error::value(
-                "counts",
-                format!("has {members} members (rows) but the earlier chunks have {b}"),
-            )),
-        }
-    }
-
     /// Adds a chunk of rows: `counts` (n_members × rows of the chunk, any strides).
     ///
     /// # Errors
     /// `counts` with no member, another number of members than earlier chunks, or sums that
-    /// overflow u64; [`Error::Interrupted`] from the monitor.
+    /// overflow u64 (the state is then unchanged); [`Error::Interrupted`] from the monitor.
     pub fn update<C: GramCount>(
         &mut self,
         counts: ArrayView2<'_, C>,
@@ -766,83 +799,58 @@ impl CountGramState {
         if members == 0 {
             return Err(Error::value("counts", "a chunk has no member (row)"));
         }
-        // Every change goes to a copy first, so a refused chunk leaves the state as it was.
-        let mut next = self.clone();
-        next.set_members(members)?;
-        if n == 0 {
-            *self = next;
-            return Ok(());
+        if let Some(b) = self.n_members.filter(|&b| b as usize != members) {
+            return Err(Error::value(
+                "counts",
+                format!("has {members} members (rows) but the earlier chunks have {b}"),
+            ));
         }
-        let owned;
-        let rows: ArrayView2<'_, C> = if counts.is_standard_layout() {
-            counts
-        } else {
-            owned = counts.as_standard_layout().into_owned();
-            owned.view()
-        };
-        let slice = rows.as_slice().expect("standard layout");
-        let row = |m: usize| &slice[m * n..(m + 1) * n];
-        let full = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128]| {
-            for start in (0..n).step_by(COLUMN_BLOCK) {
-                let end = (start + COLUMN_BLOCK).min(n);
-                for a in ra.clone() {
-                    let xa = &row(a)[start..end];
-                    for b in rb.start.max(a)..rb.end {
-                        acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                            C::dot_exact(xa, &row(b)[start..end]);
-                    }
-                }
-            }
-        })?;
-        let chunk_gram = packed_upper(&full)?;
-        let totals: Vec<u64> = (0..members)
-            .map(|m| row(m).iter().map(|c| c.as_u64()).sum())
-            .collect();
-        let largest = slice.iter().map(|c| c.as_u64()).max().unwrap_or(0);
-        let mut out_of_bag: Vec<(u32, Vec<u64>)> = Vec::new();
-        let mut never = 0u64;
-        if self.jackknife {
-            let OutOfBagIndicators {
-                indicators,
-                width,
-                segments,
-                never: none_out,
-            } = out_of_bag_indicators(rows, pool);
-            never = none_out as u64;
-            let row = |m: usize| &indicators[m * width..(m + 1) * width];
-            for &(start, end, o) in &segments {
-                let g = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128]| {
+        // The chunk's own state, then one exact merge.
+        let mut part = CountGramState::new(self.jackknife);
+        part.n_members = Some(members as u64);
+        part.n_rows = n as u64;
+        part.gram = vec![0; members * (members + 1) / 2];
+        part.row_totals = vec![0; members];
+        if n > 0 {
+            let owned;
+            let rows: ArrayView2<'_, C> = if counts.is_standard_layout() {
+                counts
+            } else {
+                owned = counts.as_standard_layout().into_owned();
+                owned.view()
+            };
+            let slice = rows.as_slice().expect("standard layout");
+            let row = |m: usize| &slice[m * n..(m + 1) * n];
+            let full = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128]| {
+                for start in (0..n).step_by(COLUMN_BLOCK) {
+                    let end = (start + COLUMN_BLOCK).min(n);
                     for a in ra.clone() {
                         let xa = &row(a)[start..end];
                         for b in rb.start.max(a)..rb.end {
                             acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                                u128::from(dot_u8(xa, &row(b)[start..end]));
+                                C::dot_exact(xa, &row(b)[start..end]);
                         }
                     }
-                })?;
-                out_of_bag.push((o, packed_upper(&g)?));
+                }
+            })?;
+            part.gram = packed_upper(&full)?;
+            for (m, total) in part.row_totals.iter_mut().enumerate() {
+                *total = row(m).iter().map(|c| c.as_u64()).sum();
+            }
+            part.max_count = slice.iter().map(|c| c.as_u64()).max().unwrap_or(0);
+            if self.jackknife {
+                let OutOfBagIndicators {
+                    indicators,
+                    width,
+                    segments,
+                    never,
+                } = out_of_bag_indicators(rows, pool);
+                part.rows_never_out_of_bag = never as u64;
+                let grams = segment_grams(&indicators, width, members, &segments, pool, monitor)?;
+                part.out_of_bag = segments.iter().map(|s| s.2).zip(grams).collect();
             }
         }
-        add_exact(&mut next.gram, &chunk_gram)?;
-        add_exact(&mut next.row_totals, &totals)?;
-        next.max_count = next.max_count.max(largest);
-        next.n_rows += n as u64;
-        next.rows_never_out_of_bag += never;
-        for (o, g) in out_of_bag {
-            next.add_out_of_bag(o, &g)?;
-        }
-        *self = next;
-        Ok(())
-    }
-
-    fn add_out_of_bag(&mut self, o: u32, g: &[u64]) -> Result<()> {
-        match self.out_of_bag.get_mut(&o) {
-            Some(into) => add_exact(into, g),
-            None => {
-                self.out_of_bag.insert(o, g.to_vec());
-                Ok(())
-            }
-        }
+        self.merge(part)
     }
 
     /// The [`CountGram`] of all rows seen, of draw kind `kind` (detected as by
@@ -944,25 +952,48 @@ impl MergeableState for CountGramState {
         let Some(b) = other.n_members else {
             return Ok(());
         };
-        let mut next = self.clone();
-        next.set_members(b as usize).map_err(|_| {
-            Error::value(
-                "other",
-                format!(
-                    "has {b} members but this state {}",
-                    self.n_members.unwrap_or(0)
-                ),
-            )
-        })?;
-        add_exact(&mut next.gram, &other.gram)?;
-        add_exact(&mut next.row_totals, &other.row_totals)?;
-        next.max_count = next.max_count.max(other.max_count);
-        next.n_rows += other.n_rows;
-        next.rows_never_out_of_bag += other.rows_never_out_of_bag;
-        for (o, g) in &other.out_of_bag {
-            next.add_out_of_bag(*o, g)?;
+        match self.n_members {
+            None => {
+                *self = other;
+                return Ok(());
+            }
+            Some(a) if a != b => {
+                return Err(Error::value(
+                    "other",
+                    format!("has {b} members but this state {a}"),
+                ))
+            }
+            Some(_) => {}
         }
-        *self = next;
+        // Every sum is checked before anything changes, so a refused merge leaves the state
+        // as it was.
+        let fits = |into: &[u64], from: &[u64]| {
+            into.iter()
+                .zip(from)
+                .all(|(x, y)| x.checked_add(*y).is_some())
+        };
+        let all_fit = fits(&self.gram, &other.gram)
+            && fits(&self.row_totals, &other.row_totals)
+            && other
+                .out_of_bag
+                .iter()
+                .all(|(o, g)| self.out_of_bag.get(o).is_none_or(|into| fits(into, g)));
+        if !all_fit {
+            return Err(gram_overflow());
+        }
+        add_exact(&mut self.gram, &other.gram);
+        add_exact(&mut self.row_totals, &other.row_totals);
+        self.max_count = self.max_count.max(other.max_count);
+        self.n_rows += other.n_rows;
+        self.rows_never_out_of_bag += other.rows_never_out_of_bag;
+        for (o, g) in other.out_of_bag {
+            match self.out_of_bag.get_mut(&o) {
+                Some(into) => add_exact(into, &g),
+                None => {
+                    self.out_of_bag.insert(o, g);
+                }
+            }
+        }
         Ok(())
     }
 
@@ -1480,6 +1511,19 @@ mod tests {
         let before = big.clone();
         assert_eq!(argument(big.update(huge.view(), &POOL, &Silent)), "counts");
         assert_eq!(big, before);
+        // a merge whose sums overflow u64 is refused and changes nothing
+        let near = ndarray::array![[3_100_000_000u64, 1], [1, 1]];
+        let mut left = CountGramState::new(false);
+        left.update(near.view(), &POOL, &Silent).unwrap();
+        let mut right = left.clone();
+        let before = left.clone();
+        assert!(matches!(
+            left.merge(right.clone()),
+            Err(Error::InvalidValue { .. })
+        ));
+        assert_eq!(left, before);
+        assert!(right.update(near.view(), &POOL, &Silent).is_err());
+        assert_eq!(right, before);
         // entries beyond 2^53 are refused at the end (f64 would round them)
         let large = ndarray::array![[1u64 << 26, 1], [1, 1]];
         let mut state = CountGramState::new(false);
