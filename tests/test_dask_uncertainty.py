@@ -379,6 +379,25 @@ def test_prediction_interval_on_the_cluster(client, data, tmp_path, method):
         same_warnings(caught, expected)
 
 
+def test_float32_members_and_one_point_members(data):
+    members, counts = data["members"], data["counts"]
+    train, y_train = data["train_members"], data["y_train"]
+    single = members.astype(np.float32)
+    # float32 members with float64 training predictions: both read as float64, as in memory
+    reference = bagwise.prediction_interval(single, counts, train, y_train)   # in-memory path
+    assert_same_result(bagwise.prediction_interval(lazy_members(single), counts, train, y_train),
+                       reference)
+    reference, expected = recorded(lambda: bagwise.prediction_variance(single, counts))
+    result, caught = recorded(lambda: bagwise.prediction_variance(lazy_members(single), counts))
+    assert_same_result(result, reference)                                 # in-memory path
+    same_warnings(caught, expected)
+    # a 1-D members array is one point per member, lazy or not
+    reference, _ = recorded(lambda: bagwise.prediction_variance(members[:, 4], counts))
+    result, _ = recorded(lambda: bagwise.prediction_variance(da.from_array(members[:, 4]), counts))
+    assert result.variance.shape == (1,)
+    assert_same_result(result, reference)                                 # in-memory path
+
+
 def test_interval_warnings_once_on_the_client(client, data):
     members, train, y_train = data["members"], data["train_members"], data["y_train"]
     # every member draws rows 0-2 (left out of the calibration), and at level 0.99 the
