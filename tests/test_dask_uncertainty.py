@@ -387,6 +387,10 @@ def test_float32_members_and_one_point_members(data):
     reference = bagwise.prediction_interval(single, counts, train, y_train)   # in-memory path
     assert_same_result(bagwise.prediction_interval(lazy_members(single), counts, train, y_train),
                        reference)
+    swapped = members.astype(">f8")        # big-endian data from a file: read as float64
+    reference = bagwise.prediction_interval(swapped, counts, train, y_train)  # in-memory path
+    assert_same_result(bagwise.prediction_interval(lazy_members(swapped), counts, train, y_train),
+                       reference)
     reference, expected = recorded(lambda: bagwise.prediction_variance(single, counts))
     result, caught = recorded(lambda: bagwise.prediction_variance(lazy_members(single), counts))
     assert_same_result(result, reference)                                 # in-memory path

@@ -525,19 +525,22 @@ def _lazy_prediction_interval(members, counts, train_members, y_train, *, level,
     import dask
 
     array = _chunked.as_dask(members, "members")
-    _members_shape_iv(array.dtype, array.shape)
+    dtype = array.dtype
+    if dtype.kind == "f" and not dtype.isnative:  # each chunk is converted where it lives
+        dtype = dtype.newbyteorder("=")
+    _members_shape_iv(dtype, array.shape)
     classes = array.ndim == 3
     level, method = _options_iv(level, method, classes)
     training_arrays = (counts, train_members, y_train)
     if any(_chunked.is_lazy(value) for value in training_arrays):
         training = dask.delayed(_training_iv, pure=True)(
-            array.dtype, array.shape,
+            dtype, array.shape,
             *(_chunked.as_dask(v, name) if _chunked.is_lazy(v) else v
               for v, name in zip(training_arrays, ("counts", "train_members", "y_train"),
                                  strict=True)))
         shared = dask.delayed(_bundle, pure=True)(training, level, method, n_jobs_value(n_jobs))
     else:
-        training = _training_iv(array.dtype, array.shape, *training_arrays)
+        training = _training_iv(dtype, array.shape, *training_arrays)
         shared = _chunked.shared((training, level, method, n_jobs_value(n_jobs)))
     blocks = _chunked.aligned_blocks([(array, "members", 1), (shared, "training", None)])
     *per_point, flags = _chunked.join_points(_chunked.map_points(_interval_chunk, blocks))
