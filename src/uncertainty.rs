@@ -34,11 +34,14 @@
 //! corrected estimate subtracts (times the same factor).
 //! ```
 
+use std::collections::BTreeMap;
+
 use ndarray::{Array1, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
+use crate::members::MergeableState;
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 use crate::resampling::Count;
@@ -105,13 +108,17 @@ fn dot_wide<C: Count>(a: &[C], b: &[C]) -> u128 {
 /// u8 (the usual case) gets the fast kernel.
 pub trait GramCount: Count {
     /// Σ_i a_i b_i, exact.
-    fn dot(a: &[Self], b: &[Self]) -> f64;
+    fn dot(a: &[Self], b: &[Self]) -> f64 {
+        Self::dot_exact(a, b) as f64
+    }
+    /// Σ_i a_i b_i as an exact integer.
+    fn dot_exact(a: &[Self], b: &[Self]) -> u128;
 }
 
 impl GramCount for u8 {
     #[inline]
-    fn dot(a: &[u8], b: &[u8]) -> f64 {
-        dot_u8(a, b) as f64
+    fn dot_exact(a: &[u8], b: &[u8]) -> u128 {
+        u128::from(dot_u8(a, b))
     }
 }
 
@@ -119,8 +126,8 @@ macro_rules! wide_dot {
     ($($t:ty),*) => {$(
         impl GramCount for $t {
             #[inline]
-            fn dot(a: &[$t], b: &[$t]) -> f64 {
-                dot_wide(a, b) as f64
+            fn dot_exact(a: &[$t], b: &[$t]) -> u128 {
+                dot_wide(a, b)
             }
         }
     )*};
@@ -143,22 +150,22 @@ fn tiles(members: usize) -> Vec<(usize, usize)> {
 /// Fills a symmetric B × B matrix tile by tile: `tile(a0..a1, b0..b1, acc)` adds the
 /// entries (a, b), a ≤ b, of one tile into `acc[(a − a0) · TILE + (b − b0)]`. Tiles run in
 /// parallel and every entry is computed by one task, so results never depend on scheduling.
-fn symmetric_by_tiles(
+fn symmetric_by_tiles<T: Copy + Default + Send + Sync>(
     members: usize,
     pool: &Pool,
     monitor: &dyn Monitor,
-    tile: impl Fn(std::ops::Range<usize>, std::ops::Range<usize>, &mut [f64]) + Sync,
-) -> Result<Array2<f64>> {
+    tile: impl Fn(std::ops::Range<usize>, std::ops::Range<usize>, &mut [T]) + Sync,
+) -> Result<Array2<T>> {
     let tile_list = tiles(members);
-    let mut out = Array2::<f64>::zeros((members, members));
+    let mut out = Array2::<T>::default((members, members));
     let per_batch = (pool.threads() * 8).max(1);
     let mut done = 0;
     for batch in tile_list.chunks(per_batch) {
-        let blocks: Vec<(usize, usize, Vec<f64>)> = pool.run(|| {
+        let blocks: Vec<(usize, usize, Vec<T>)> = pool.run(|| {
             batch
                 .par_iter()
                 .map(|&(a0, b0)| {
-                    let mut acc = vec![0f64; TILE * TILE];
+                    let mut acc = vec![T::default(); TILE * TILE];
                     tile(
                         a0..(a0 + TILE).min(members),
                         b0..(b0 + TILE).min(members),
@@ -242,7 +249,7 @@ impl CountGram {
         }
         let slice = rows.as_slice().expect("standard layout");
         let row = |m: usize| &slice[m * n_rows..(m + 1) * n_rows];
-        let gram = symmetric_by_tiles(n_members, pool, monitor, |ra, rb, acc| {
+        let gram = symmetric_by_tiles(n_members, pool, monitor, |ra, rb, acc: &mut [f64]| {
             for start in (0..n_rows).step_by(COLUMN_BLOCK) {
                 let end = (start + COLUMN_BLOCK).min(n_rows);
                 for a in ra.clone() {
@@ -285,38 +292,17 @@ impl CountGram {
                 "shape differs from the counts the Gram was built from",
             ));
         }
-        let (members, n) = counts.dim();
-        let out_members: Vec<u32> = counts
-            .axis_iter(Axis(1))
-            .map(|column| column.iter().filter(|c| c.as_u64() == 0).count() as u32)
-            .collect();
-        let never = out_members.iter().filter(|&&o| o == 0).count();
-        let mut order: Vec<usize> = (0..n).filter(|&i| out_members[i] > 0).collect();
-        order.sort_by_key(|&i| (out_members[i], i));
-        let width = order.len();
-        // Segments of equal o_i in the sorted order, each with its weight 1/o_i².
-        let mut segments: Vec<(usize, usize, f64)> = Vec::new();
-        for (position, &i) in order.iter().enumerate() {
-            let o = out_members[i];
-            match segments.last_mut() {
-                Some(last) if out_members[order[last.0]] == o => last.1 = position + 1,
-                _ => segments.push((position, position + 1, 1.0 / (f64::from(o) * f64::from(o)))),
-            }
-        }
-        let mut indicators = vec![0u8; members * width];
-        pool.run(|| {
-            indicators
-                .par_chunks_mut(width.max(1))
-                .enumerate()
-                .for_each(|(m, out)| {
-                    for (slot, &i) in out.iter_mut().zip(&order) {
-                        *slot = u8::from(counts[[m, i]].as_u64() == 0);
-                    }
-                })
-        });
+        let members = counts.nrows();
+        let OutOfBagIndicators {
+            indicators,
+            width,
+            segments,
+            never,
+        } = out_of_bag_indicators(counts, pool);
         let row = |m: usize| &indicators[m * width..(m + 1) * width];
-        let h = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc| {
-            for &(start, end, weight) in &segments {
+        let h = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [f64]| {
+            for &(start, end, o) in &segments {
+                let weight = out_of_bag_weight(o);
                 for a in ra.clone() {
                     let xa = &row(a)[start..end];
                     for b in rb.start.max(a)..rb.end {
@@ -499,6 +485,112 @@ impl CountGram {
     }
 }
 
+/// The out-of-bag indicators O_bi = 1[N_bi = 0] of the rows with o_i = Σ_b O_bi > 0, as u8
+/// member rows of `width` columns, the rows sorted by (o_i, i); `segments` holds each run of
+/// equal o_i as (start, end, o_i), `never` counts the rows with o_i = 0.
+struct OutOfBagIndicators {
+    indicators: Vec<u8>,
+    width: usize,
+    segments: Vec<(usize, usize, u32)>,
+    never: usize,
+}
+
+/// The weight 1/o² of a row with o out-of-bag members in H.
+#[inline]
+fn out_of_bag_weight(o: u32) -> f64 {
+    1.0 / (f64::from(o) * f64::from(o))
+}
+
+fn out_of_bag_indicators<C: GramCount>(
+    counts: ArrayView2<'_, C>,
+    pool: &Pool,
+) -> OutOfBagIndicators {
+    let (members, n) = counts.dim();
+    let out_members: Vec<u32> = counts
+        .axis_iter(Axis(1))
+        .map(|column| column.iter().filter(|c| c.as_u64() == 0).count() as u32)
+        .collect();
+    let never = out_members.iter().filter(|&&o| o == 0).count();
+    let mut order: Vec<usize> = (0..n).filter(|&i| out_members[i] > 0).collect();
+    order.sort_by_key(|&i| (out_members[i], i));
+    let width = order.len();
+    let mut segments: Vec<(usize, usize, u32)> = Vec::new();
+    for (position, &i) in order.iter().enumerate() {
+        let o = out_members[i];
+        match segments.last_mut() {
+            Some(last) if last.2 == o => last.1 = position + 1,
+            _ => segments.push((position, position + 1, o)),
+        }
+    }
+    let mut indicators = vec![0u8; members * width];
+    pool.run(|| {
+        indicators
+            .par_chunks_mut(width.max(1))
+            .enumerate()
+            .for_each(|(m, out)| {
+                for (slot, &i) in out.iter_mut().zip(&order) {
+                    *slot = u8::from(counts[[m, i]].as_u64() == 0);
+                }
+            })
+    });
+    OutOfBagIndicators {
+        indicators,
+        width,
+        segments,
+        never,
+    }
+}
+
+/// Per segment `(start, end, _)` of the indicator columns (member rows of `width` u8
+/// columns), the packed upper triangle of its exact integer Gram Σ_{i in segment} O_·i O_·iᵀ:
+/// one tiled pass computes every segment of a tile, so the tiles are scheduled once.
+fn segment_grams(
+    indicators: &[u8],
+    width: usize,
+    members: usize,
+    segments: &[(usize, usize, u32)],
+    pool: &Pool,
+    monitor: &dyn Monitor,
+) -> Result<Vec<Vec<u64>>> {
+    let row = |m: usize| &indicators[m * width..(m + 1) * width];
+    let depth = segments.len();
+    let mut out = vec![vec![0u64; members * (members + 1) / 2]; depth];
+    let tile_list = tiles(members);
+    let per_batch = (pool.threads() * 8).max(1);
+    let mut done = 0;
+    for batch in tile_list.chunks(per_batch) {
+        let blocks: Vec<(usize, usize, Vec<u64>)> = pool.run(|| {
+            batch
+                .par_iter()
+                .map(|&(a0, b0)| {
+                    let mut acc = vec![0u64; depth * TILE * TILE];
+                    for a in a0..(a0 + TILE).min(members) {
+                        for b in b0.max(a)..(b0 + TILE).min(members) {
+                            for (k, &(start, end, _)) in segments.iter().enumerate() {
+                                acc[(k * TILE + a - a0) * TILE + (b - b0)] =
+                                    dot_u8(&row(a)[start..end], &row(b)[start..end]);
+                            }
+                        }
+                    }
+                    (a0, b0, acc)
+                })
+                .collect()
+        });
+        for (a0, b0, acc) in blocks {
+            for (k, gram) in out.iter_mut().enumerate() {
+                for a in a0..(a0 + TILE).min(members) {
+                    for b in b0.max(a)..(b0 + TILE).min(members) {
+                        gram[packed(members, a, b)] = acc[(k * TILE + a - a0) * TILE + (b - b0)];
+                    }
+                }
+            }
+        }
+        done += batch.len();
+        monitor.progress(done, tile_list.len())?;
+    }
+    Ok(out)
+}
+
 /// The stored form of a [`CountGram`] (postcard bytes), versioned for forward checks.
 /// Postcard encodes fields by position, never by name: the bytes are pinned by the test
 /// `stored_bytes_are_pinned`.
@@ -564,8 +656,13 @@ impl CountGram {
 /// Infers the draw kind: counts of 0/1 with the same number of rows in every member and
 /// fewer than n_rows rows is a subsample; anything else is a bootstrap.
 fn detect_kind<C: Count>(rows: ArrayView2<'_, C>, sums: &[u64]) -> DrawKind {
-    let n = rows.ncols() as u64;
     let binary = rows.iter().all(|c| c.as_u64() <= 1);
+    kind_from(binary, sums, rows.ncols() as u64)
+}
+
+/// [`detect_kind`] from what a stream keeps: whether every count is 0/1, the members' row
+/// totals and the number of rows.
+fn kind_from(binary: bool, sums: &[u64], n: u64) -> DrawKind {
     let same = sums.windows(2).all(|w| w[0] == w[1]);
     if binary && same && sums[0] < n {
         DrawKind::Subsample {
@@ -573,6 +670,335 @@ fn detect_kind<C: Count>(rows: ArrayView2<'_, C>, sums: &[u64]) -> DrawKind {
         }
     } else {
         DrawKind::Bootstrap
+    }
+}
+
+/// Largest Gram entry the finished [`CountGram`] holds exactly (f64 integers, 2^53).
+const EXACT_F64: u64 = 1 << 53;
+
+/// Index of entry (a, b), a ≤ b, in the packed upper triangle (row-major) of a B × B
+/// symmetric matrix.
+#[inline]
+fn packed(members: usize, a: usize, b: usize) -> usize {
+    a * (2 * members - a + 1) / 2 + (b - a)
+}
+
+/// `into[k] += from[k]`, after the caller checked that no sum overflows u64.
+fn add_exact(into: &mut [u64], from: &[u64]) {
+    for (slot, &v) in into.iter_mut().zip(from) {
+        *slot += v;
+    }
+}
+
+fn gram_overflow() -> Error {
+    Error::value(
+        "counts",
+        "a Gram entry Σ_i N_ai N_bi exceeds 2^64 − 1 (counts too large for exact integer sums)",
+    )
+}
+
+/// The packed upper triangle of a symmetric integer matrix built by [`symmetric_by_tiles`].
+fn packed_upper(full: &Array2<u128>) -> Result<Vec<u64>> {
+    let members = full.nrows();
+    let mut out = Vec::with_capacity(members * (members + 1) / 2);
+    for a in 0..members {
+        for b in a..members {
+            out.push(u64::try_from(full[[a, b]]).map_err(|_| gram_overflow())?);
+        }
+    }
+    Ok(out)
+}
+
+/// The count Gram built from chunks of training rows: the partial state of one chunk of
+/// columns of `counts` (all members, some rows), merged with the states of other chunks by
+/// exact integer addition and finished into the same [`CountGram`] as
+/// [`CountGram::new`] (and [`CountGram::add_out_of_bag_gram`]) on all rows at once.
+///
+/// ```text
+/// G = N Nᵀ = Σ_chunks N_c N_cᵀ               (a sum over rows, so over row chunks)
+/// H = Σ_i w(o_i) O_·i O_·iᵀ,  w(o) = 1/o²   (o_i = Σ_b O_bi, the row's own out-of-bag count)
+///   = Σ_o w(o) G_o,  G_o = Σ_{i: o_i = o} O_·i O_·iᵀ
+/// ```
+/// H is a sum over rows too: a row's weight depends on nothing but its own column of the
+/// counts (its out-of-bag count o_i), which every chunk holds whole, so each chunk adds
+/// exact integer Grams G_o keyed by o. `finish` forms Σ_o w(o) G_o in increasing o, the
+/// order [`CountGram::add_out_of_bag_gram`] adds its segments in, so H is bit-identical.
+///
+/// Kept: the packed upper triangle of G (u64), each member's row total and the largest count
+/// (for the scheme detection), the rows seen, and with the jackknife the G_o and the rows
+/// never out of bag. Size: 8·B(B + 1)/2 bytes for G, times (1 + K) with the jackknife, K the
+/// number of distinct out-of-bag counts among the rows (a few times √B for bootstrap counts).
+///
+/// Overflow: an entry of G is at most max_count² · n_rows; sums are checked in u64 and
+/// refused beyond 2^64 − 1 (u8 counts: beyond about 2.8·10^14 rows), and `finish` refuses
+/// entries beyond 2^53, where the f64 Gram would stop being exact.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CountGramState {
+    jackknife: bool,
+    n_members: Option<u64>,
+    n_rows: u64,
+    gram: Vec<u64>,
+    row_totals: Vec<u64>,
+    max_count: u64,
+    out_of_bag: BTreeMap<u32, Vec<u64>>,
+    rows_never_out_of_bag: u64,
+}
+
+impl CountGramState {
+    /// An empty state; `jackknife` also keeps the out-of-bag Grams.
+    pub fn new(jackknife: bool) -> Self {
+        CountGramState {
+            jackknife,
+            n_members: None,
+            n_rows: 0,
+            gram: Vec::new(),
+            row_totals: Vec::new(),
+            max_count: 0,
+            out_of_bag: BTreeMap::new(),
+            rows_never_out_of_bag: 0,
+        }
+    }
+
+    /// Members B (None before the first chunk).
+    pub fn n_members(&self) -> Option<usize> {
+        self.n_members.map(|b| b as usize)
+    }
+
+    /// Rows seen so far.
+    pub fn n_rows(&self) -> u64 {
+        self.n_rows
+    }
+
+    /// Each member's Σ_i N_bi over the rows seen.
+    pub fn row_totals(&self) -> &[u64] {
+        &self.row_totals
+    }
+
+    /// The largest count seen.
+    pub fn max_count(&self) -> u64 {
+        self.max_count
+    }
+
+    /// Whether the out-of-bag Grams are kept.
+    pub fn jackknife(&self) -> bool {
+        self.jackknife
+    }
+
+    /// Adds a chunk of rows: `counts` (n_members × rows of the chunk, any strides).
+    ///
+    /// # Errors
+    /// `counts` with no member, another number of members than earlier chunks, or sums that
+    /// overflow u64 (the state is then unchanged); [`Error::Interrupted`] from the monitor.
+    pub fn update<C: GramCount>(
+        &mut self,
+        counts: ArrayView2<'_, C>,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<()> {
+        let (members, n) = counts.dim();
+        if members == 0 {
+            return Err(Error::value("counts", "a chunk has no member (row)"));
+        }
+        if let Some(b) = self.n_members.filter(|&b| b as usize != members) {
+            return Err(Error::value(
+                "counts",
+                format!("has {members} members (rows) but the earlier chunks have {b}"),
+            ));
+        }
+        // The chunk's own state, then one exact merge.
+        let mut part = CountGramState::new(self.jackknife);
+        part.n_members = Some(members as u64);
+        part.n_rows = n as u64;
+        part.gram = vec![0; members * (members + 1) / 2];
+        part.row_totals = vec![0; members];
+        if n > 0 {
+            let owned;
+            let rows: ArrayView2<'_, C> = if counts.is_standard_layout() {
+                counts
+            } else {
+                owned = counts.as_standard_layout().into_owned();
+                owned.view()
+            };
+            let slice = rows.as_slice().expect("standard layout");
+            let row = |m: usize| &slice[m * n..(m + 1) * n];
+            let full = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128]| {
+                for start in (0..n).step_by(COLUMN_BLOCK) {
+                    let end = (start + COLUMN_BLOCK).min(n);
+                    for a in ra.clone() {
+                        let xa = &row(a)[start..end];
+                        for b in rb.start.max(a)..rb.end {
+                            acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                                C::dot_exact(xa, &row(b)[start..end]);
+                        }
+                    }
+                }
+            })?;
+            part.gram = packed_upper(&full)?;
+            for (m, total) in part.row_totals.iter_mut().enumerate() {
+                *total = row(m).iter().map(|c| c.as_u64()).sum();
+            }
+            part.max_count = slice.iter().map(|c| c.as_u64()).max().unwrap_or(0);
+            if self.jackknife {
+                let OutOfBagIndicators {
+                    indicators,
+                    width,
+                    segments,
+                    never,
+                } = out_of_bag_indicators(rows, pool);
+                part.rows_never_out_of_bag = never as u64;
+                let grams = segment_grams(&indicators, width, members, &segments, pool, monitor)?;
+                part.out_of_bag = segments.iter().map(|s| s.2).zip(grams).collect();
+            }
+        }
+        self.merge(part)
+    }
+
+    /// The [`CountGram`] of all rows seen, of draw kind `kind` (detected as by
+    /// [`CountGram::new`] when None).
+    ///
+    /// # Errors
+    /// `counts` when no chunk was added, with fewer than two members or rows, a member with
+    /// no in-bag row, a subsample size outside 1..n_rows − 1, or a Gram entry beyond 2^53.
+    pub fn finish_as(&self, kind: Option<DrawKind>) -> Result<CountGram> {
+        let Some(b) = self.n_members else {
+            return Err(Error::value("counts", "no chunk of counts was added"));
+        };
+        let (n_members, n_rows) = (b as usize, self.n_rows as usize);
+        if n_members < 2 {
+            return Err(Error::value(
+                "counts",
+                format!("needs at least 2 members (rows), got {n_members}"),
+            ));
+        }
+        if n_rows < 2 {
+            return Err(Error::value(
+                "counts",
+                format!("needs at least 2 training rows (columns), got {n_rows}"),
+            ));
+        }
+        if let Some(empty) = self.row_totals.iter().position(|&s| s == 0) {
+            return Err(Error::value(
+                "counts",
+                format!("member {empty} has no in-bag row (all counts are zero)"),
+            ));
+        }
+        let kind =
+            kind.unwrap_or_else(|| kind_from(self.max_count <= 1, &self.row_totals, self.n_rows));
+        if let DrawKind::Subsample { rows: s } = kind {
+            if s == 0 || s >= n_rows {
+                return Err(Error::value(
+                    "counts",
+                    format!(
+                        "a subsample must draw between 1 and n_rows − 1 rows, got {s} of {n_rows}"
+                    ),
+                ));
+            }
+        }
+        if self.gram.iter().any(|&v| v > EXACT_F64) {
+            return Err(Error::value(
+                "counts",
+                "a Gram entry Σ_i N_ai N_bi exceeds 2^53, beyond which float64 cannot hold it \
+                 exactly",
+            ));
+        }
+        let unpack = |at: &dyn Fn(usize) -> f64| {
+            let mut out = Array2::<f64>::zeros((n_members, n_members));
+            for a in 0..n_members {
+                for b in a..n_members {
+                    let v = at(packed(n_members, a, b));
+                    out[[a, b]] = v;
+                    out[[b, a]] = v;
+                }
+            }
+            out
+        };
+        let gram = unpack(&|k| self.gram[k] as f64);
+        let out_of_bag_gram = self.jackknife.then(|| {
+            // Σ_o w(o) G_o in increasing o, from 0.0: the order and the operations of
+            // `add_out_of_bag_gram`, so the same f64.
+            unpack(&|k| {
+                let mut acc = 0.0;
+                for (&o, g) in &self.out_of_bag {
+                    acc += out_of_bag_weight(o) * g[k] as f64;
+                }
+                acc
+            })
+        });
+        Ok(CountGram {
+            n_members,
+            n_rows,
+            kind,
+            gram,
+            out_of_bag_gram,
+            rows_never_out_of_bag: if self.jackknife {
+                self.rows_never_out_of_bag as usize
+            } else {
+                0
+            },
+        })
+    }
+}
+
+impl MergeableState for CountGramState {
+    type Output = CountGram;
+
+    fn merge(&mut self, other: Self) -> Result<()> {
+        if other.jackknife != self.jackknife {
+            return Err(Error::value(
+                "other",
+                "one state keeps the jackknife's out-of-bag Grams and the other does not",
+            ));
+        }
+        let Some(b) = other.n_members else {
+            return Ok(());
+        };
+        match self.n_members {
+            None => {
+                *self = other;
+                return Ok(());
+            }
+            Some(a) if a != b => {
+                return Err(Error::value(
+                    "other",
+                    format!("has {b} members but this state {a}"),
+                ))
+            }
+            Some(_) => {}
+        }
+        // Every sum is checked before anything changes, so a refused merge leaves the state
+        // as it was.
+        let fits = |into: &[u64], from: &[u64]| {
+            into.iter()
+                .zip(from)
+                .all(|(x, y)| x.checked_add(*y).is_some())
+        };
+        let all_fit = fits(&self.gram, &other.gram)
+            && fits(&self.row_totals, &other.row_totals)
+            && other
+                .out_of_bag
+                .iter()
+                .all(|(o, g)| self.out_of_bag.get(o).is_none_or(|into| fits(into, g)));
+        if !all_fit {
+            return Err(gram_overflow());
+        }
+        add_exact(&mut self.gram, &other.gram);
+        add_exact(&mut self.row_totals, &other.row_totals);
+        self.max_count = self.max_count.max(other.max_count);
+        self.n_rows += other.n_rows;
+        self.rows_never_out_of_bag += other.rows_never_out_of_bag;
+        for (o, g) in other.out_of_bag {
+            match self.out_of_bag.get_mut(&o) {
+                Some(into) => add_exact(into, &g),
+                None => {
+                    self.out_of_bag.insert(o, g);
+                }
+            }
+        }
+        Ok(())
+    }
+
+    fn finish(&self) -> Result<CountGram> {
+        self.finish_as(None)
     }
 }
 
@@ -966,6 +1392,151 @@ mod tests {
         assert!(v.correction[0] > 0.0);
         // the subsample scheme refuses the jackknife
         assert!(gram.variance(t.view(), Method::Jackknife, &POOL).is_err());
+    }
+
+    /// The stream over the column chunks `bounds` (start, end) of `counts`, merged in order.
+    fn streamed<C: GramCount>(
+        counts: ArrayView2<'_, C>,
+        bounds: &[(usize, usize)],
+        jackknife: bool,
+    ) -> CountGramState {
+        let mut total = CountGramState::new(jackknife);
+        for &(start, end) in bounds {
+            let mut part = CountGramState::new(jackknife);
+            part.update(counts.slice(ndarray::s![.., start..end]), &POOL, &Silent)
+                .unwrap();
+            total.merge(part).unwrap();
+        }
+        total
+    }
+
+    #[test]
+    fn row_chunks_give_the_whole_gram_exactly() {
+        // Reference: `CountGram::new` and `add_out_of_bag_gram` on all rows at once (the
+        // in-memory path); G and H must be bit-identical, whatever the chunking.
+        for (n, b, scheme, fraction) in [
+            (COLUMN_BLOCK + 700, TILE + 3, Scheme::Bootstrap, 1.0),
+            (60, 7, Scheme::Bootstrap, 0.5),
+            (40, 5, Scheme::Subsample, 0.5),
+        ] {
+            let counts = draw(n, b, scheme, fraction);
+            let mut whole = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
+            for bounds in [
+                vec![(0, n)],
+                vec![(0, 1), (1, 2), (2, n / 3), (n / 3, n)],
+                (0..n).map(|i| (i, i + 1)).collect::<Vec<_>>(),
+            ] {
+                let state = streamed(counts.view(), &bounds, false);
+                assert_eq!(state.finish().unwrap(), whole);
+            }
+            if scheme == Scheme::Bootstrap {
+                whole
+                    .add_out_of_bag_gram(counts.view(), &POOL, &Silent)
+                    .unwrap();
+                let bounds = [(0, 3), (3, 4), (4, n)];
+                let state = streamed(counts.view(), &bounds, true);
+                let finished = state.finish().unwrap();
+                assert_eq!(finished, whole);
+                // merged in another order: the same exact sums
+                let mut reversed = CountGramState::new(true);
+                for &(start, end) in bounds.iter().rev() {
+                    reversed
+                        .update(counts.slice(ndarray::s![.., start..end]), &POOL, &Silent)
+                        .unwrap();
+                }
+                assert_eq!(reversed.finish().unwrap(), whole);
+                // wider count types and strided chunks give the same state
+                let wide = counts.mapv(u64::from);
+                assert_eq!(streamed(wide.view(), &bounds, true), state);
+                let transposed = counts.t().to_owned();
+                assert_eq!(streamed(transposed.t(), &bounds, true), state);
+            }
+        }
+    }
+
+    #[test]
+    fn gram_state_hand_case_and_bytes() {
+        // counts [[1, 2, 0], [0, 1, 2]]: G = [[5, 2], [2, 5]] (by hand); rows 0 and 2 are out
+        // of bag for one member each, with indicators (0, 1) and (1, 0), so
+        // H = G_1 = [[1, 0], [0, 1]]; row 1 is never out of bag.
+        let counts = ndarray::array![[1u8, 2, 0], [0, 1, 2]];
+        let state = streamed(counts.view(), &[(0, 2), (2, 3)], true);
+        assert_eq!(
+            (state.n_members(), state.n_rows(), state.max_count()),
+            (Some(2), 3, 2)
+        );
+        assert_eq!(state.row_totals(), &[3, 3]);
+        let gram = state.finish().unwrap();
+        assert_eq!(gram.gram(), &ndarray::array![[5.0, 2.0], [2.0, 5.0]]);
+        assert_eq!(
+            gram.out_of_bag_gram.as_ref().unwrap(),
+            &ndarray::array![[1.0, 0.0], [0.0, 1.0]]
+        );
+        assert_eq!(gram.rows_never_out_of_bag(), 1);
+        let bytes = state.to_bytes().unwrap();
+        assert_eq!(CountGramState::from_bytes(&bytes).unwrap(), state);
+        assert!(CountGramState::from_bytes(&bytes[..bytes.len() - 3]).is_err());
+    }
+
+    #[test]
+    fn gram_state_refuses_bad_input_by_name() {
+        let argument = |r: Result<()>| match r {
+            Err(Error::InvalidValue { argument, .. }) => argument,
+            other => panic!("expected an error, got {other:?}"),
+        };
+        let mut state = CountGramState::new(false);
+        assert!(state.finish().is_err());
+        state
+            .update(ndarray::array![[1u8, 0], [0, 1]].view(), &POOL, &Silent)
+            .unwrap();
+        let three = ndarray::array![[1u8], [0], [1]];
+        assert_eq!(
+            argument(state.update(three.view(), &POOL, &Silent)),
+            "counts"
+        );
+        let mut other = CountGramState::new(true);
+        assert_eq!(argument(state.clone().merge(other.clone())), "other");
+        other = CountGramState::new(false);
+        other.update(three.view(), &POOL, &Silent).unwrap();
+        assert_eq!(argument(state.clone().merge(other)), "other");
+        // a member with no in-bag row
+        let mut empty = CountGramState::new(false);
+        empty
+            .update(ndarray::array![[1u8, 1], [0, 0]].view(), &POOL, &Silent)
+            .unwrap();
+        assert!(empty.finish().is_err());
+        // sums beyond u64 are refused, and the refused chunk leaves the state unchanged
+        let huge = ndarray::array![[u64::from(u32::MAX) + 1, 1], [1, 1]];
+        let mut big = CountGramState::new(false);
+        let before = big.clone();
+        assert_eq!(argument(big.update(huge.view(), &POOL, &Silent)), "counts");
+        assert_eq!(big, before);
+        // a merge whose sums overflow u64 is refused and changes nothing
+        let near = ndarray::array![[3_100_000_000u64, 1], [1, 1]];
+        let mut left = CountGramState::new(false);
+        left.update(near.view(), &POOL, &Silent).unwrap();
+        let mut right = left.clone();
+        let before = left.clone();
+        assert!(matches!(
+            left.merge(right.clone()),
+            Err(Error::InvalidValue { .. })
+        ));
+        assert_eq!(left, before);
+        assert!(right.update(near.view(), &POOL, &Silent).is_err());
+        assert_eq!(right, before);
+        // entries beyond 2^53 are refused at the end (f64 would round them)
+        let large = ndarray::array![[1u64 << 26, 1], [1, 1]];
+        let mut state = CountGramState::new(false);
+        state.update(large.view(), &POOL, &Silent).unwrap();
+        state.update(large.view(), &POOL, &Silent).unwrap();
+        assert!(state.finish().is_err());
+        state = CountGramState::new(false);
+        state.update(large.view(), &POOL, &Silent).unwrap();
+        // one chunk: 2^52 + 1, exact in f64 (twice that, 2^53 + 2, is refused above)
+        assert_eq!(
+            state.finish().unwrap().gram()[[0, 0]],
+            (1u64 << 52) as f64 + 1.0
+        );
     }
 
     #[test]

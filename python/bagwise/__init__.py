@@ -24,9 +24,11 @@ from .resampling import Resample, resample
 from .size_curve import SizeCurve, SizeCurveStream, size_curve, size_curve_stream
 from .uncertainty import (
     CountGram,
+    CountGramStream,
     PredictionVariance,
     Spread,
     count_gram,
+    count_gram_stream,
     prediction_variance,
     spread,
 )
@@ -65,7 +67,9 @@ __all__ = [
     "correlation_stream",
     "CorrelationStream",
     "count_gram",
+    "count_gram_stream",
     "CountGram",
+    "CountGramStream",
     "decompose",
     "decompose_stream",
     "Decomposition",

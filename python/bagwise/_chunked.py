@@ -22,8 +22,9 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["aligned_blocks", "any_lazy", "as_dask", "is_lazy", "largest", "map_points",
-           "map_over", "point_major", "point_starts", "reduce_over", "reduce_streams"]
+__all__ = ["aligned_blocks", "any_lazy", "as_dask", "is_lazy", "join_points", "largest",
+           "map_points", "map_over", "point_major", "point_starts", "reduce_over",
+           "reduce_streams", "shared"]
 
 _LAZY_MODULES = ("dask", "dask_expr", "zarr")
 
@@ -229,10 +230,8 @@ def _merged(left, right):
 def _shared(whole: Sequence[Any]) -> list[Any]:
     """Whole arguments as one graph key each (numpy arrays; other values stay literals),
     so an array travels once to each worker that needs it rather than once per task."""
-    import dask
 
-    return [dask.delayed(value, pure=True) if isinstance(value, np.ndarray) else value
-            for value in whole]
+    return [shared(value) if isinstance(value, np.ndarray) else value for value in whole]
 
 
 def reduce_streams(start: Callable[..., Any], update: Callable[..., Any],
@@ -293,3 +292,24 @@ def map_over(arrays: Sequence[tuple[Any, str, int | None]], compute: Callable[..
              whole: Sequence[Any] = ()) -> list[Any]:
     """`map_points` over the `aligned_blocks` of ``arrays``, with their `point_starts`."""
     return map_points(compute, aligned_blocks(arrays), whole, point_starts(arrays))
+
+
+def shared(value):
+    """``value`` (any picklable object: a Gram, a tuple of training arrays) as one dask key.
+
+    Pass it in `aligned_blocks` with a ``None`` axis: every chunk's task then depends on the
+    same key, so the value travels to each worker once (the scheduler's peer transfers),
+    never once per task as an argument embedded in every task would. The key is named
+    uniquely rather than hashed, so large arrays are not tokenized.
+    """
+    import uuid
+
+    import dask
+
+    return dask.delayed(value, name=f"bagwise-shared-{uuid.uuid4().hex}", traverse=False)
+
+
+def join_points(parts: list[tuple[np.ndarray, ...]]) -> tuple[np.ndarray, ...]:
+    """The per-point arrays of `map_points`'s results (each a tuple of arrays whose first
+    axis is the chunk's points), joined in point order."""
+    return tuple(np.concatenate([part[k] for part in parts]) for k in range(len(parts[0])))

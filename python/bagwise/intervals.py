@@ -11,7 +11,7 @@ from typing import ClassVar
 
 import numpy as np
 
-from . import _core
+from . import _chunked, _core
 from ._members import in_bag_counts
 from ._results import Result
 from ._validation import n_jobs_value
@@ -49,50 +49,61 @@ def _finite(array: np.ndarray, name: str) -> None:
         raise ValueError(f"`{name}`: contains NaN or infinite values")
 
 
-def _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs):
-    members = _float_array(members, "members")
-    if members.ndim not in (2, 3):
+def _members_shape_iv(dtype, shape) -> None:
+    """The checks of ``members`` that need only its dtype and shape."""
+    if dtype not in (np.float32, np.float64):
+        raise TypeError(f"`members`: expected float32 or float64 predictions, got dtype {dtype}")
+    if len(shape) not in (2, 3):
         raise ValueError(
             "`members`: expected shape (n_members, n_points) for values or (n_members, n_points, "
-            f"n_classes) for class probabilities, got {members.ndim} dimensions {members.shape}"
+            f"n_classes) for class probabilities, got {len(shape)} dimensions {shape}"
         )
-    if members.size == 0:
-        raise ValueError(f"`members`: is empty (shape {members.shape})")
-    if members.shape[0] < 2:
+    if math.prod(shape) == 0:
+        raise ValueError(f"`members`: is empty (shape {shape})")
+    if shape[0] < 2:
         raise ValueError(
             f"`members`: needs at least 2 members (out-of-bag calibration averages the members "
-            f"that did not see a row), got {members.shape[0]}"
+            f"that did not see a row), got {shape[0]}"
         )
-    classes = members.ndim == 3
-    if classes and members.shape[2] < 2:
-        raise ValueError(f"`members`: needs at least 2 classes, got {members.shape[2]}")
-    _finite(members, "members")
-    n_members = members.shape[0]
+    if len(shape) == 3 and shape[2] < 2:
+        raise ValueError(f"`members`: needs at least 2 classes, got {shape[2]}")
 
+
+def _members_values_iv(members: np.ndarray) -> None:
+    """The checks of ``members`` that read its values (finite; probabilities in [0, 1])."""
+    _finite(members, "members")
+    if members.ndim == 3 and (members.min() < 0 or members.max() > 1):
+        raise ValueError("`members`: class probabilities must lie in [0, 1]")
+
+
+def _training_iv(members_dtype, members_shape, counts, train_members, y_train):
+    """The training side, checked against the members' dtype and shape: ``(counts,
+    train_members, y_train, n_left_out)``, ``train_members`` as float64 when the dtypes of
+    the two prediction arrays differ."""
+    classes = len(members_shape) == 3
+    n_members = members_shape[0]
     train_members = _float_array(train_members, "train_members")
-    if train_members.ndim != members.ndim:
+    if train_members.ndim != len(members_shape):
         raise ValueError(
-            f"`train_members`: expected {members.ndim} dimensions like `members`, got shape "
-            f"{train_members.shape}"
+            f"`train_members`: expected {len(members_shape)} dimensions like `members`, got "
+            f"shape {train_members.shape}"
         )
     if train_members.shape[0] != n_members:
         raise ValueError(
             f"`train_members`: has {train_members.shape[0]} members but `members` has {n_members}"
         )
-    if classes and train_members.shape[2] != members.shape[2]:
+    if classes and train_members.shape[2] != members_shape[2]:
         raise ValueError(
-            f"`train_members`: has {train_members.shape[2]} classes but `members` has {members.shape[2]}"
+            f"`train_members`: has {train_members.shape[2]} classes but `members` has "
+            f"{members_shape[2]}"
         )
     n_rows = train_members.shape[1]
     if n_rows == 0:
         raise ValueError("`train_members`: has no training rows")
     _finite(train_members, "train_members")
-    if classes:
-        for name, array in (("members", members), ("train_members", train_members)):
-            if array.min() < 0 or array.max() > 1:
-                raise ValueError(f"`{name}`: class probabilities must lie in [0, 1]")
-    if members.dtype != train_members.dtype:  # one converted copy of the float32 one
-        members = members.astype(np.float64, copy=False)
+    if classes and (train_members.min() < 0 or train_members.max() > 1):
+        raise ValueError("`train_members`: class probabilities must lie in [0, 1]")
+    if members_dtype != train_members.dtype:  # one converted copy of the float32 one
         train_members = train_members.astype(np.float64, copy=False)
 
     counts = in_bag_counts(counts, n_members=n_members, n_rows=n_rows, rows_from="train_members",
@@ -110,12 +121,12 @@ def _prediction_interval_iv(members, counts, train_members, y_train, level, meth
     if classes:
         if y_train.dtype.kind not in "iu":
             raise TypeError(
-                f"`y_train`: expected integer class codes 0..{members.shape[2] - 1}, got dtype "
+                f"`y_train`: expected integer class codes 0..{members_shape[2] - 1}, got dtype "
                 f"{y_train.dtype}"
             )
-        if y_train.min() < 0 or y_train.max() >= members.shape[2]:
+        if y_train.min() < 0 or y_train.max() >= members_shape[2]:
             raise ValueError(
-                f"`y_train`: class codes must lie in 0..{members.shape[2] - 1}, got values in "
+                f"`y_train`: class codes must lie in 0..{members_shape[2] - 1}, got values in "
                 f"{y_train.min()}..{y_train.max()}"
             )
         y_train = np.ascontiguousarray(y_train, dtype=np.int64)
@@ -124,20 +135,33 @@ def _prediction_interval_iv(members, counts, train_members, y_train, level, meth
             raise TypeError(f"`y_train`: expected numbers, got dtype {y_train.dtype}")
         y_train = np.ascontiguousarray(y_train, dtype=np.float64)
         _finite(y_train, "y_train")
+    return counts, train_members, y_train, int(n_rows - used.sum())
 
+
+def _options_iv(level, method, classes: bool):
     if isinstance(level, bool) or not isinstance(level, numbers.Real):
         raise TypeError(f"`level`: expected a number, got {type(level).__name__}")
     level = float(level)
     if not 0 < level < 1:
         raise ValueError(f"`level`: must lie strictly between 0 and 1, got {level!r}")
-
     allowed = _SET_METHODS if classes else _INTERVAL_METHODS
     if method is None:
         method = allowed[0]
     if method not in allowed:
         kind = "class probabilities" if classes else "values"
         raise ValueError(f"`method`: for {kind} expected one of {allowed}, got {method!r}")
-    n_left_out = int(n_rows - used.sum())
+    return level, method
+
+
+def _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs):
+    members = _float_array(members, "members")
+    _members_shape_iv(members.dtype, members.shape)
+    _members_values_iv(members)
+    counts, train_members, y_train, n_left_out = _training_iv(
+        members.dtype, members.shape, counts, train_members, y_train)
+    if members.dtype != train_members.dtype:
+        members = members.astype(np.float64, copy=False)
+    level, method = _options_iv(level, method, members.ndim == 3)
     return members, counts, train_members, y_train, level, method, n_jobs_value(n_jobs), n_left_out
 
 
@@ -390,6 +414,13 @@ def prediction_interval(
     n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
 
+    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (axis 1);
+    ``counts``, ``train_members`` and ``y_train`` may be lazy too. The training side
+    (O(members × rows): counts, training predictions, targets) is checked once, on the
+    client when it is in memory or else on one worker, and travels once to each worker;
+    each chunk of points sends back only its bounds or class sets (O(points of one chunk)),
+    joined in point order on the client, which gives each warning once.
+
     Returns
     -------
     PredictionInterval or PredictionSet
@@ -419,32 +450,100 @@ def prediction_interval(
 def _prediction_interval(members, counts, train_members, y_train, *, level, method, n_jobs,
                          member_count):
     """`prediction_interval`, told how the members were counted (see `_guarantee`)."""
+    if any(_chunked.is_lazy(value) for value in (members, counts, train_members, y_train)):
+        return _lazy_prediction_interval(members, counts, train_members, y_train, level=level,
+                                         method=method, n_jobs=n_jobs, member_count=member_count)
     members, counts, train_members, y_train, level, method, n_jobs, n_left_out = (
         _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs)
     )
-    n_members, n_rows = counts.shape
+    if members.ndim == 3:
+        arrays = _core.prediction_set_arrays(
+            members, counts, train_members, y_train, level, method, n_jobs
+        )
+    else:
+        arrays = _core.prediction_interval_arrays(
+            members, counts, train_members, y_train, level, method, n_jobs
+        )
+    return _calibrated(arrays, members.ndim == 3, counts.shape, n_left_out, level, method,
+                       member_count)
+
+
+def _calibrated(arrays, classes, counts_shape, n_left_out, level, method, member_count):
+    """The result from the core's arrays ``(sets, n_used, finite)`` or ``(lower, upper,
+    n_used, finite)``, with the calibration warnings (each once)."""
+    n_members, n_rows = counts_shape
     if n_left_out:
         warn(
             f"`counts`: {n_left_out} of {n_rows} training rows were in bag for every member and are "
             "left out of the calibration (more members, or smaller samples, leave more rows out of bag)"
         )
     guarantee = _guarantee(method, level, member_count)
-    if members.ndim == 3:
-        sets, n_used, finite = _core.prediction_set_arrays(
-            members, counts, train_members, y_train, level, method, n_jobs
-        )
-    else:
-        lower, upper, n_used, finite = _core.prediction_interval_arrays(
-            members, counts, train_members, y_train, level, method, n_jobs
-        )
+    *per_point, n_used, finite = arrays
     if not finite:
-        what = "every class set holds all classes" if members.ndim == 3 else "the interval is infinite"
+        what = "every class set holds all classes" if classes else "the interval is infinite"
         warn(
             f"`level`: with {n_used} rows out of bag, {what} at level {level:.4g}; at least "
             f"{_rows_needed(level)} rows with an out-of-bag member are needed (or a lower `level`)"
         )
     common = dict(level=level, method=method, n_rows_used=int(n_used), n_rows=int(n_rows),
                   n_members=int(n_members), guarantee=guarantee)
-    if members.ndim == 3:
+    if classes:
+        (sets,) = per_point
         return PredictionSet(sets=sets, set_size=sets.sum(axis=1, dtype=np.int64), **common)
+    lower, upper = per_point
     return PredictionInterval(lower=lower, upper=upper, width=upper - lower, **common)
+
+
+def _interval_chunk(chunk, training):
+    """One chunk of points' interval bounds or class sets from the shared training side
+    (``counts, train_members, y_train, n_left_out``, options); the O(1) calibration figures
+    ride along so the client can warn once."""
+    (counts, train_members, y_train, n_left_out), level, method, n_jobs = training
+    members = _float_array(chunk, "members")
+    _members_values_iv(members)
+    if members.dtype != train_members.dtype:
+        members = members.astype(np.float64, copy=False)
+    if members.ndim == 3:
+        *per_point, n_used, finite = _core.prediction_set_arrays(
+            members, counts, train_members, y_train, level, method, n_jobs)
+    else:
+        *per_point, n_used, finite = _core.prediction_interval_arrays(
+            members, counts, train_members, y_train, level, method, n_jobs)
+    flags = np.array([[n_used, finite, n_left_out, counts.shape[1]]], dtype=np.int64)
+    return (*per_point, flags)
+
+
+def _bundle(*values):
+    return values
+
+
+def _lazy_prediction_interval(members, counts, train_members, y_train, *, level, method, n_jobs,
+                              member_count):
+    """`_prediction_interval` with lazy arrays: the members' chunks of points stay where
+    they live; the training side (O(members × rows)) is checked once (on the client when
+    it is in memory, else on one worker) and travels once to each worker."""
+    import dask
+
+    array = _chunked.as_dask(members, "members")
+    dtype = array.dtype
+    if dtype.kind == "f" and not dtype.isnative:  # each chunk is converted where it lives
+        dtype = dtype.newbyteorder("=")
+    _members_shape_iv(dtype, array.shape)
+    classes = array.ndim == 3
+    level, method = _options_iv(level, method, classes)
+    training_arrays = (counts, train_members, y_train)
+    if any(_chunked.is_lazy(value) for value in training_arrays):
+        training = dask.delayed(_training_iv, pure=True)(
+            dtype, array.shape,
+            *(_chunked.as_dask(v, name) if _chunked.is_lazy(v) else v
+              for v, name in zip(training_arrays, ("counts", "train_members", "y_train"),
+                                 strict=True)))
+        shared = dask.delayed(_bundle, pure=True)(training, level, method, n_jobs_value(n_jobs))
+    else:
+        training = _training_iv(dtype, array.shape, *training_arrays)
+        shared = _chunked.shared((training, level, method, n_jobs_value(n_jobs)))
+    blocks = _chunked.aligned_blocks([(array, "members", 1), (shared, "training", None)])
+    *per_point, flags = _chunked.join_points(_chunked.map_points(_interval_chunk, blocks))
+    n_used, finite, n_left_out, n_rows = (int(v) for v in flags[0])
+    return _calibrated((*per_point, n_used, bool(finite)), classes, (array.shape[0], n_rows),
+                       n_left_out, level, method, member_count)

@@ -15,6 +15,7 @@ reused for any number of new points.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 import warnings
 from statistics import NormalDist
@@ -22,14 +23,14 @@ from typing import ClassVar
 
 import numpy as np
 
-from . import _core
-from ._members import as_array, members_array
+from . import _chunked, _core
+from ._members import as_array, in_bag_counts, members_array
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value
 from ._warnings import warn
 
-__all__ = ["CountGram", "PredictionVariance", "Spread", "count_gram", "prediction_variance",
-           "spread"]
+__all__ = ["CountGram", "CountGramStream", "PredictionVariance", "Spread", "count_gram",
+           "count_gram_stream", "prediction_variance", "spread"]
 
 #: A variance estimate is "steady" when its Monte-Carlo noise (standard deviation over
 #: reseeded members on the same training rows) is at most this share of it: the standard
@@ -78,6 +79,179 @@ def _members_iv(members, n_members: int) -> tuple[np.ndarray, tuple[int, ...]]:
     return array, shape
 
 
+def _lazy_counts(counts, *, min_members: int = 2, min_rows: int = 2):
+    """Lazy ``counts`` as a dask array, checked by what the client knows without reading a
+    chunk (dtype and shape); the values are checked chunk by chunk where they live."""
+    array = _chunked.as_dask(counts, "counts")
+    if array.dtype.kind not in "iu":
+        raise TypeError(f"`counts`: expected integer in-bag counts (n_members, n_rows), got "
+                        f"dtype {array.dtype}")
+    if array.ndim != 2:
+        raise ValueError(f"`counts`: expected shape (n_members, n_rows), one row per member "
+                         f"and one column per training row, got {array.shape}")
+    if array.shape[0] < min_members or array.shape[1] < min_rows:
+        raise ValueError(f"`counts`: needs at least {min_members} members (rows) and "
+                         f"{min_rows} training rows (columns), got shape {array.shape}")
+    return array
+
+
+def _lazy_points(members, n_members: int, compute, *arguments):
+    """The per-point arrays of ``compute(chunk, arguments)`` over the chunks of points of
+    lazy ``members``, joined in point order. ``arguments`` (the Gram, options) travel as one
+    shared key, once per worker; only each chunk's per-point arrays come back."""
+    array = _chunked.as_dask(members, "members")
+    if array.ndim == 1:
+        array = array[:, None]
+    if array.ndim not in (2, 3):
+        raise ValueError(f"`members`: expected shape (n_members, n_points) or (n_members, "
+                         f"n_points, n_classes), got {array.shape}")
+    if array.shape[0] != n_members:
+        raise ValueError(f"`members`: has {array.shape[0]} members (rows) but `counts` has "
+                         f"{n_members}")
+    blocks = _chunked.aligned_blocks([(array, "members", 1),
+                                      (_chunked.shared(arguments), "arguments", None)])
+    return _chunked.join_points(_chunked.map_points(compute, blocks))
+
+
+def _gram_chunk(chunk, arguments):
+    """A chunk of points' (raw, correction, within, mean) from the shared core Gram."""
+    gram, method, n_jobs = arguments
+    members, shape = _members_iv(chunk, gram.n_members)
+    return tuple(part.reshape(shape) for part in gram.variance(members, method, n_jobs))
+
+
+def _little_bags_chunk(chunk, arguments):
+    """A chunk of points' (raw, correction, within, mean) of the bootstrap of little bags."""
+    n_members, group_size, n_jobs = arguments
+    members, shape = _members_iv(chunk, n_members)
+    return tuple(part.reshape(shape)
+                 for part in _core.little_bags_variance(members, group_size, n_jobs))
+
+
+def _subsample_rows(max_count: int, sums: np.ndarray) -> int:
+    """The rows per member of ``scheme="subsample"`` counts, from their largest count and
+    the members' row totals."""
+    if max_count > 1 or not np.all(sums == sums[0]):
+        raise ValueError("`scheme`: 'subsample' needs 0/1 counts with the same number "
+                         "of rows in every member")
+    return int(sums[0])
+
+
+def _scheme_iv(scheme):
+    if scheme not in (None, "bootstrap", "subsample"):
+        raise ValueError(f"`scheme`: expected 'bootstrap', 'subsample' or None, got {scheme!r}")
+    return scheme
+
+
+class CountGramStream:
+    """The `CountGram` of in-bag counts fed by chunks of training rows; see
+    `count_gram_stream`.
+
+    ``update(counts) -> self`` adds a chunk of columns of ``counts`` (every member, some
+    training rows), ``merge(other) -> self`` adds the rows of another stream, ``result()``
+    gives the `CountGram`. The sums are exact integers, so any chunking and any merge order
+    give the same Gram as `count_gram` on all rows at once; streams pickle (the core state
+    travels as bytes).
+    """
+
+    def __init__(self, *, scheme=None, jackknife=False, n_jobs=None):
+        self.scheme = _scheme_iv(scheme)
+        if not isinstance(jackknife, (bool, np.bool_)):
+            raise TypeError(f"`jackknife`: expected True or False, got {jackknife!r}")
+        self.jackknife = bool(jackknife)
+        self._n_jobs = n_jobs_value(n_jobs)
+        self._core = _core.CountGramAccumulator(self.jackknife)
+
+    @property
+    def n_members(self) -> int | None:
+        """Members (None before the first chunk)."""
+        return self._core.n_members
+
+    @property
+    def n_rows(self) -> int:
+        """Training rows added so far."""
+        return self._core.n_rows
+
+    def update(self, counts) -> CountGramStream:
+        """Add a chunk of training rows: ``counts`` of shape (n_members, rows in the chunk)."""
+        counts = in_bag_counts(counts, n_members=self._core.n_members, members_from="counts",
+                               unsigned=True, whole=False)
+        self._core.update(counts, self._n_jobs)
+        return self
+
+    def merge(self, other: CountGramStream) -> CountGramStream:
+        """Add the training rows of ``other`` (same options)."""
+        if not isinstance(other, CountGramStream):
+            raise TypeError(f"`other`: expected a CountGramStream, got {type(other).__name__}")
+        if (other.scheme, other.jackknife) != (self.scheme, self.jackknife):
+            raise ValueError(f"`other`: has scheme={other.scheme!r}, jackknife="
+                             f"{other.jackknife} but this stream scheme={self.scheme!r}, "
+                             f"jackknife={self.jackknife}")
+        self._core.merge(other._core)
+        return self
+
+    def result(self) -> CountGram:
+        """The `CountGram` of every training row added so far."""
+        if self._core.n_members is None:
+            raise ValueError("`counts`: no chunk was added (call update first)")
+        rows = None
+        if self.scheme == "subsample":
+            rows = _subsample_rows(self._core.max_count, self._core.row_totals)
+        return CountGram._wrap(self._core.finish(self.scheme, rows))
+
+    def __repr__(self):
+        return (f"CountGramStream(n_members={self.n_members}, n_rows={self.n_rows}, "
+                f"scheme={self.scheme!r}, jackknife={self.jackknife})")
+
+
+def count_gram_stream(*, scheme=None, jackknife=False, n_jobs=None) -> CountGramStream:
+    """Start a `CountGram` fed by chunks of training rows (columns of ``counts``).
+
+    Each chunk adds its partial Grams in exact integer arithmetic: G = N Nᵀ is a sum over
+    rows, and so is the jackknife's out-of-bag Gram, whose row weights depend only on the
+    row's own number of out-of-bag members. Streams over different chunks merge (in any
+    order) and pickle, so the chunks can be reduced where they live; `count_gram` on a dask
+    or zarr ``counts`` array does exactly that.
+
+    Parameters
+    ----------
+    scheme : {"bootstrap", "subsample"} or None
+        As in `CountGram`; None detects it from the counts of all chunks.
+    jackknife : bool
+        Also build the out-of-bag Gram needed by ``method="jackknife"``.
+    n_jobs : int, optional
+
+    Returns
+    -------
+    CountGramStream
+
+    Examples
+    --------
+    >>> import numpy as np, bagwise
+    >>> counts = bagwise.resample(100, 20, rng=0).counts
+    >>> stream = bagwise.count_gram_stream(jackknife=True)
+    >>> for start in range(0, 100, 30):
+    ...     _ = stream.update(counts[:, start:start + 30])
+    >>> bool(np.array_equal(stream.result().gram, bagwise.count_gram(counts).gram))
+    True
+    """
+    return CountGramStream(scheme=scheme, jackknife=jackknife, n_jobs=n_jobs)
+
+
+def _update_counts(stream: CountGramStream, chunk) -> CountGramStream:
+    return stream.update(chunk)
+
+
+def _lazy_count_gram(counts, scheme, jackknife, n_jobs) -> CountGram:
+    """The `CountGram` of lazy ``counts``: one stream state per chunk of training rows where
+    it lives, merged pairwise; only the O(members²) states travel."""
+    array = _lazy_counts(counts)
+    start = functools.partial(count_gram_stream, scheme=_scheme_iv(scheme),
+                              jackknife=jackknife, n_jobs=n_jobs)
+    blocks = _chunked.aligned_blocks([(array, "counts", 1)])
+    return _chunked.reduce_streams(start, _update_counts, blocks).result()
+
+
 class CountGram:
     """Gram matrices of an ensemble's in-bag counts, built once, reused for any points.
 
@@ -95,17 +269,25 @@ class CountGram:
     jackknife : bool
         Also build the out-of-bag Gram needed by ``method="jackknife"``.
     n_jobs : int, optional
+
+    Lazy inputs: ``counts`` may be a dask or zarr array chunked along the training rows (axis 1): each
+    chunk becomes a partial state on the worker that holds it (exact integer sums, see
+    `count_gram_stream`), the states are merged pairwise and the client receives one
+    O(members²) state (times the number of distinct out-of-bag counts with
+    ``jackknife=True``); the Gram is equal to the in-memory one entry for entry. ``members``
+    of `prediction_variance` and `spread` may be a dask or zarr array chunked along the
+    points: the Gram travels once to each worker, each chunk's per-point results come back
+    and are joined in point order, and the not-estimable warning is given once.
     """
 
     def __init__(self, counts, *, scheme=None, jackknife=False, n_jobs=None):
+        if _chunked.is_lazy(counts):
+            self._gram = _lazy_count_gram(counts, scheme, jackknife, n_jobs)._gram
+            return
         counts = _counts_iv(counts)
         subsample_rows = None
         if scheme == "subsample":
-            sums = counts.sum(axis=1)
-            if counts.max() > 1 or not np.all(sums == sums[0]):
-                raise ValueError("`scheme`: 'subsample' needs 0/1 counts with the same number "
-                                 "of rows in every member")
-            subsample_rows = int(sums[0])
+            subsample_rows = _subsample_rows(int(counts.max()), counts.sum(axis=1))
         self._gram = _core.CountGram(counts, scheme=scheme, subsample_rows=subsample_rows,
                                      jackknife=jackknife, n_jobs=n_jobs_value(n_jobs))
 
@@ -136,23 +318,34 @@ class CountGram:
         return self._gram.gram
 
     def prediction_variance(self, members, *, method="ij", corrected=True, n_jobs=None):
-        """Variance of the ensemble mean at each point; see :func:`prediction_variance`."""
+        """Variance of the ensemble mean at each point; see :func:`prediction_variance`.
+
+        Lazy inputs: dask or zarr ``members`` chunked along the points; this Gram
+        (O(members²)) travels once to each worker, each chunk's per-point arrays come back.
+        """
         if method not in ("ij", "jackknife"):
             raise ValueError(f"`method`: expected 'ij' or 'jackknife', got {method!r}")
         return self._estimate(members, method, corrected, n_jobs)[0]
 
     def spread(self, members, *, n_jobs=None):
-        """Between/within split of the member variance; see :func:`spread`."""
+        """Between/within split of the member variance; see :func:`spread`.
+
+        Lazy inputs: as in `prediction_variance`.
+        """
         return Spread._from_parts(*self._estimate(members, "ij", True, n_jobs))
 
     def _estimate(self, members, method, corrected, n_jobs):
         """The PredictionVariance of ``members`` and their across-member variance."""
-        members, shape = _members_iv(members, self.n_members)
         if method == "jackknife" and not self._gram.has_jackknife:
             raise ValueError("`method`: this CountGram was built without jackknife=True")
-        raw, correction, within, mean = (
-            part.reshape(shape)
-            for part in self._gram.variance(members, method, n_jobs_value(n_jobs)))
+        if _chunked.is_lazy(members):
+            raw, correction, within, mean = _lazy_points(
+                members, self.n_members, _gram_chunk, self._gram, method, n_jobs_value(n_jobs))
+        else:
+            members, shape = _members_iv(members, self.n_members)
+            raw, correction, within, mean = (
+                part.reshape(shape)
+                for part in self._gram.variance(members, method, n_jobs_value(n_jobs)))
         estimate = PredictionVariance._from_parts(
             method=method, corrected=corrected, raw=raw, correction=correction, mean=mean,
             n_members=self.n_members, n_rows=self.n_rows, scheme=self.scheme,
@@ -174,6 +367,10 @@ def _restore_gram(data: bytes) -> CountGram:
 
 def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGram:
     """Build the :class:`CountGram` of ``counts`` once, for repeated use on new points.
+
+    Lazy inputs: dask or zarr ``counts`` chunked along the training rows are reduced where
+    they live (`count_gram_stream`): each chunk sends one O(members²) partial state (times
+    the distinct out-of-bag counts with ``jackknife=True``), the client holds the Gram.
 
     Examples
     --------
@@ -529,35 +726,61 @@ def _share_reading(share: float) -> str:
             f"overstate the variance ({hint})")
 
 
-def _little_bags_iv(counts, group_size) -> tuple[np.ndarray, int, float]:
+def _little_bags_figures(counts, group_size: int):
+    """``(n_members, n_rows, largest count, member row totals, distinct rows per group)``
+    of ``counts`` in memory or lazy (then O(members) reductions computed where the chunks
+    live; no chunk travels)."""
+    if not _chunked.is_lazy(counts):
+        counts = _counts_iv(counts)
+        n_members, n_rows = counts.shape
+        if n_members % group_size:
+            return n_members, n_rows, None, None, None
+        used = counts.reshape(n_members // group_size, group_size, n_rows).any(axis=1)
+        return (n_members, n_rows, int(counts.max()), counts.sum(axis=1, dtype=np.int64),
+                used.sum(axis=1))
+    import dask
+
+    array = _lazy_counts(counts).rechunk({0: -1})
+    n_members, n_rows = array.shape
+    if n_members % group_size:
+        return n_members, n_rows, None, None, None
+    groups = n_members // group_size
+    used = array.map_blocks(
+        lambda block: (block > 0).reshape(groups, group_size, -1).any(axis=1),
+        chunks=((groups,), array.chunks[1]), dtype=bool).sum(axis=1)
+    low, high, sums, used = dask.compute(array.min(), array.max(),
+                                         array.sum(axis=1, dtype=np.int64), used)
+    if low < 0:
+        raise ValueError(f"`counts`: in-bag counts must be non-negative, got {low}")
+    return n_members, n_rows, int(high), sums, used
+
+
+def _little_bags_iv(counts, group_size) -> tuple[int, int, int, float]:
     """Checks that ``counts`` look like little bags drawn in consecutive groups of
     ``group_size`` (0/1, equal row sums, each group's members inside one half of the
-    rows); returns them with ℓ and each member's share of the rows."""
-    counts = _counts_iv(counts)
+    rows); returns the members, rows, ℓ and each member's share of the rows."""
     if group_size is None:
         group_size = 2
     if isinstance(group_size, bool) or not isinstance(group_size, (int, np.integer)):
         raise TypeError(f"`group_size`: expected an integer, got {type(group_size).__name__}")
     group_size = int(group_size)
-    n_members, n_rows = counts.shape
     if group_size < 2:
         raise ValueError("`group_size`: must be at least 2 (the within-group variance needs "
                          f"two members), got {group_size}")
+    n_members, n_rows, largest, sums, used = _little_bags_figures(counts, group_size)
     if n_members % group_size:
         raise ValueError(f"`group_size`: the {n_members} members do not split into whole "
                          f"groups of {group_size} (little bags lay members out in consecutive "
                          "groups, as `resample` draws them)")
-    if counts.max() > 1:
+    if largest > 1:
         raise ValueError(f"`counts`: little bags draw each row at most once per member (0/1 "
-                         f"counts), found a count of {int(counts.max())}")
-    sums = counts.sum(axis=1, dtype=np.int64)
+                         f"counts), found a count of {largest}")
     if sums.min() != sums.max():
         raise ValueError(f"`counts`: little-bags members all draw the same number of rows; "
                          f"these draw between {sums.min()} and {sums.max()}")
     if sums[0] == 0:
         raise ValueError("`counts`: the members draw no rows")
     half = n_rows // 2
-    used = counts.reshape(n_members // group_size, group_size, n_rows).any(axis=1).sum(axis=1)
     wide = np.flatnonzero(used > half)
     if len(wide):
         g = int(wide[0])
@@ -566,19 +789,23 @@ def _little_bags_iv(counts, group_size) -> tuple[np.ndarray, int, float]:
             f"{(g + 1) * group_size - 1}) use {int(used[g])} distinct rows, more than one half "
             f"({half} of {n_rows}); little bags keep each group inside one half - are the "
             f"members laid out in consecutive groups of {group_size}?")
-    return counts, group_size, float(sums[0]) / n_rows
+    return n_members, n_rows, group_size, float(sums[0]) / n_rows
 
 
 def _little_bags(members, counts, group_size, corrected, n_jobs) -> PredictionVariance:
     """The bootstrap-of-little-bags `PredictionVariance` (checked inputs)."""
-    counts, group_size, share = _little_bags_iv(counts, group_size)
-    members, shape = _members_iv(members, counts.shape[0])
-    raw, correction, _, mean = (
-        part.reshape(shape)
-        for part in _core.little_bags_variance(members, group_size, n_jobs_value(n_jobs)))
+    n_members, n_rows, group_size, share = _little_bags_iv(counts, group_size)
+    if _chunked.is_lazy(members):
+        raw, correction, _, mean = _lazy_points(members, n_members, _little_bags_chunk,
+                                                n_members, group_size, n_jobs_value(n_jobs))
+    else:
+        members, shape = _members_iv(members, n_members)
+        raw, correction, _, mean = (
+            part.reshape(shape)
+            for part in _core.little_bags_variance(members, group_size, n_jobs_value(n_jobs)))
     return PredictionVariance._from_parts(
         method="little_bags", corrected=corrected, raw=raw, correction=correction, mean=mean,
-        n_members=counts.shape[0], n_rows=counts.shape[1], scheme="little_bags",
+        n_members=n_members, n_rows=n_rows, scheme="little_bags",
         n_without_out_of_bag=0, group_size=group_size, member_share=share)
 
 
@@ -619,6 +846,13 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
         to look like little bags (0/1, equal row sums, each group's members inside one half
         of the rows). Other methods refuse it.
     n_jobs : int, optional
+
+    Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (axis 1),
+    ``counts`` one chunked along the training rows. The counts are reduced to the
+    O(members²) `CountGram` where their chunks live (little bags: O(members) row totals and
+    group figures), which then travels once to each worker; each chunk of points sends back
+    only its per-point arrays (O(points of one chunk)), joined in point order on the
+    client, which holds the per-point result and gives the not-estimable warning once.
 
     Returns
     -------
@@ -821,5 +1055,9 @@ def spread(members, counts, *, scheme=None, n_jobs=None) -> Spread:
 
     See :class:`Spread`. ``members`` (n_members, n_points) and ``counts`` (n_members, n_rows)
     as in :func:`prediction_variance`.
+
+    Lazy inputs: as in :func:`prediction_variance`: dask or zarr ``members`` chunked along
+    the points and ``counts`` chunked along the training rows; the O(members²) Gram travels
+    once to each worker and each chunk's per-point between/within arrays come back.
     """
     return CountGram(counts, scheme=scheme, n_jobs=n_jobs).spread(members, n_jobs=n_jobs)

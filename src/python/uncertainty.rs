@@ -1,13 +1,17 @@
 //! Bindings of [`crate::uncertainty`].
 
+use std::sync::Mutex;
+
 use numpy::IntoPyArray;
 use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::{run_core, to_py_err, CountArray, FloatArray};
+use crate::members::MergeableState;
 use crate::uncertainty::{
-    little_bags_variance as core_little_bags, CountGram, DrawKind, GramCount, Method,
+    little_bags_variance as core_little_bags, CountGram, CountGramState, DrawKind, GramCount,
+    Method,
 };
 
 fn parse_kind(kind: Option<&str>, subsample_rows: Option<usize>) -> PyResult<Option<DrawKind>> {
@@ -195,8 +199,110 @@ fn little_bags_variance(
     ))
 }
 
+/// The count Gram fed by chunks of training rows (columns of `counts`).
+#[pyclass(module = "bagwise._core", name = "CountGramAccumulator", frozen)]
+pub struct PyCountGramAccumulator {
+    inner: Mutex<CountGramState>,
+}
+
+impl PyCountGramAccumulator {
+    fn state(&self) -> std::sync::MutexGuard<'_, CountGramState> {
+        self.inner.lock().unwrap_or_else(|e| e.into_inner())
+    }
+}
+
+#[pymethods]
+impl PyCountGramAccumulator {
+    #[new]
+    #[pyo3(signature = (jackknife=false))]
+    fn new(jackknife: bool) -> Self {
+        let inner = Mutex::new(CountGramState::new(jackknife));
+        PyCountGramAccumulator { inner }
+    }
+
+    /// Adds the rows of `counts` (n_members, rows of the chunk).
+    #[pyo3(signature = (counts, n_jobs=None))]
+    fn update(
+        &self,
+        py: Python<'_>,
+        counts: &Bound<'_, PyAny>,
+        n_jobs: Option<usize>,
+    ) -> PyResult<()> {
+        let counts = CountArray::extract(counts)?;
+        with_counts!(counts, |view| run_core(
+            py,
+            n_jobs,
+            None,
+            |pool, monitor| self.state().update(view, pool, monitor)
+        ))
+    }
+
+    /// Adds the rows of `other` (exact integer sums).
+    fn merge(&self, other: &Self) -> PyResult<()> {
+        let other = other.state().clone();
+        self.state().merge(other).map_err(to_py_err)
+    }
+
+    /// The CountGram of all rows so far (`scheme` as in `CountGram`).
+    #[pyo3(signature = (scheme=None, subsample_rows=None))]
+    fn finish(&self, scheme: Option<&str>, subsample_rows: Option<usize>) -> PyResult<PyCountGram> {
+        let kind = parse_kind(scheme, subsample_rows)?;
+        let inner = self.state().finish_as(kind).map_err(to_py_err)?;
+        Ok(PyCountGram { inner })
+    }
+
+    #[getter]
+    fn n_members(&self) -> Option<usize> {
+        self.state().n_members()
+    }
+
+    #[getter]
+    fn n_rows(&self) -> u64 {
+        self.state().n_rows()
+    }
+
+    #[getter]
+    fn max_count(&self) -> u64 {
+        self.state().max_count()
+    }
+
+    #[getter]
+    fn jackknife(&self) -> bool {
+        self.state().jackknife()
+    }
+
+    /// Each member's total count over the rows so far (uint64).
+    #[getter]
+    fn row_totals(&self, py: Python<'_>) -> Py<PyAny> {
+        let totals = self.state().row_totals().to_vec();
+        totals.into_pyarray(py).into_any().unbind()
+    }
+
+    fn to_bytes<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyBytes>> {
+        let bytes = self.state().to_bytes().map_err(to_py_err)?;
+        Ok(PyBytes::new(py, &bytes))
+    }
+
+    #[staticmethod]
+    fn from_bytes(data: &[u8]) -> PyResult<Self> {
+        let state = CountGramState::from_bytes(data).map_err(to_py_err)?;
+        Ok(PyCountGramAccumulator {
+            inner: Mutex::new(state),
+        })
+    }
+
+    fn __reduce__<'py>(
+        slf: &Bound<'py, Self>,
+    ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let py = slf.py();
+        let from_bytes = slf.get_type().getattr("from_bytes")?;
+        Ok((from_bytes, (slf.get().to_bytes(py)?,)))
+    }
+}
+
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyCountGram>()?;
+    m.add_class::<PyCountGramAccumulator>()?;
     m.add_function(wrap_pyfunction!(little_bags_variance, m)?)
 }
 
