@@ -1076,7 +1076,8 @@ class BagRegressor(RegressorMixin, _Bag):
         the points when ``X`` is lazy (see `member_predictions`)."""
         if is_lazy(X):
             return self._lazy_points(X, "mean")
-        return self._predictor(self.n_jobs).mean(self._check_X(X))
+        X = self._check_X(X)
+        return self._predictor(self.n_jobs).mean(X)
 
 
 @register_estimator
@@ -1166,7 +1167,8 @@ class BagClassifier(ClassifierMixin, _Bag):
         array chunked like the points when ``X`` is lazy (see `member_predictions`)."""
         if is_lazy(X):
             return self._lazy_points(X, "mean")
-        return self._predictor(self.n_jobs).mean(self._check_X(X))
+        X = self._check_X(X)
+        return self._predictor(self.n_jobs).mean(X)
 
     def predict(self, X) -> np.ndarray:
         """The class with the largest mean probability (ties: the first in ``classes_``);
