@@ -26,6 +26,7 @@ from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor  # noqa: 
 import bagwise  # noqa: E402
 
 N_MEMBERS = 20
+THREADS_PER_WORKER = 1
 # Per worker; the refusal test below sends a training set above a third of it.
 MEMORY_LIMIT = 400 * 2**20
 
@@ -62,12 +63,57 @@ def test_unknown_backend_is_refused():
         bagwise.BagRegressor("linear", backend="spark").fit(X, Y)
 
 
+# -- lazy member predictions -----------------------------------------------------------
+@pytest.fixture(scope="module")
+def fitted():
+    return {
+        "tree": bagwise.BagRegressor("tree", n_members=N_MEMBERS, random_state=1,
+                                     split_features=2, backend="local").fit(X, Y),
+        "classes": bagwise.BagClassifier("tree", n_members=N_MEMBERS, random_state=1,
+                                         backend="local").fit(X, LABELS),
+        "wrapped": bagwise.BagClassifier(DecisionTreeClassifier(max_depth=4),
+                                         n_members=N_MEMBERS, random_state=1,
+                                         backend="local").fit(X, LABELS),
+    }
+
+
+def _members_of(predictor, block):
+    return predictor.member_predictions(block)
+
+
+def _carrying(array, nbytes):
+    """Tasks of the (optimised) graph whose pickled form is at least ``nbytes`` long."""
+    (optimised,) = dask.optimize(array)
+    return sum(len(pickle.dumps(task)) >= nbytes for task in dict(optimised.__dask_graph__()).values())
+
+
+@pytest.mark.parametrize("name", ["tree", "wrapped"])
+def test_without_a_client_the_model_is_one_key_of_the_graph(fitted, name):
+    bag = fitted[name]
+    lazy_X = da.from_array(X_TEST, chunks=(15, 6))
+    size = len(pickle.dumps(bag._predictor(1)))
+    assert size > 10 * len(pickle.dumps(X_TEST[:15]))
+    members = bag.member_predictions(lazy_X)
+    # Six chunks of points, one task carrying the model that all of them depend on;
+    # reference: the in-memory call.
+    assert _carrying(members, size) == 1
+    assert np.array_equal(members.compute(), bag.member_predictions(X_TEST))
+    # The wrong variant, the model embedded in every chunk's task, counts six.
+    predictor = bag._predictor(1)
+    embedded = [dask.delayed(_members_of, pure=True)(predictor, block)
+                for block in lazy_X.to_delayed().ravel()]
+    embedded = da.concatenate([da.from_delayed(task, shape=(N_MEMBERS, 15), dtype=float)
+                               for task in embedded], axis=1)
+    assert _carrying(embedded, size) == 6
+
+
 # -- on the cluster ------------------------------------------------------------------------
 @pytest.fixture(scope="module")
 def client():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        cluster = distributed.LocalCluster(processes=True, n_workers=2, threads_per_worker=1,
+        cluster = distributed.LocalCluster(processes=True, n_workers=2,
+                                           threads_per_worker=THREADS_PER_WORKER,
                                            dashboard_address=":0", memory_limit=MEMORY_LIMIT)
         client = distributed.Client(cluster)
     yield client
@@ -78,10 +124,15 @@ def client():
 
 
 def _group_workers(client, fit):
-    """The workers that ran the fit's member groups."""
+    """The workers that ran the fit's member groups, checking on the way that there was
+    one group per worker (not one task per member) and that a lazy training set was
+    joined once."""
     with distributed.get_task_stream(client) as stream:
         fit()
-    return {task["worker"] for task in stream.data if "_fit_" in task["key"]}
+    groups = [task["worker"] for task in stream.data if "_fit_" in task["key"]]
+    assert len(groups) in (2, 2 * THREADS_PER_WORKER)
+    assert sum("_concat_" in task["key"] for task in stream.data) <= 1
+    return set(groups)
 
 
 def _same_members(local, remote, X_points):
@@ -199,20 +250,6 @@ def test_errors_on_the_workers_reach_the_caller(client):
         bagwise.BagRegressor("tree", n_members=4).fit(_lazy(bad), _lazy(Y))
 
 
-# -- lazy member predictions -----------------------------------------------------------
-@pytest.fixture(scope="module")
-def fitted():
-    return {
-        "tree": bagwise.BagRegressor("tree", n_members=N_MEMBERS, random_state=1,
-                                     split_features=2, backend="local").fit(X, Y),
-        "classes": bagwise.BagClassifier("tree", n_members=N_MEMBERS, random_state=1,
-                                         backend="local").fit(X, LABELS),
-        "wrapped": bagwise.BagClassifier(DecisionTreeClassifier(max_depth=4),
-                                         n_members=N_MEMBERS, random_state=1,
-                                         backend="local").fit(X, LABELS),
-    }
-
-
 @pytest.mark.parametrize("name", ["tree", "classes", "wrapped"])
 def test_lazy_member_predictions_equal_in_memory(client, fitted, name):
     bag = fitted[name]
@@ -236,28 +273,22 @@ def test_lazy_member_predictions_of_a_dask_dataframe(client, fitted):
         assert len(members.chunks[1]) == 4
 
 
-def _members_of(predictor, block):
-    return predictor.member_predictions(block)
-
-
-def _carrying(array, nbytes):
-    """Tasks of the (optimised) graph whose pickled form is at least ``nbytes`` long."""
-    (optimised,) = dask.optimize(array)
-    return sum(len(pickle.dumps(task)) >= nbytes for task in dict(optimised.__dask_graph__()).values())
-
-
 @pytest.mark.parametrize("name", ["tree", "wrapped"])
-def test_the_model_is_one_key_of_the_graph(fitted, name):
+def test_the_model_is_sent_once_to_each_worker(client, fitted, name):
     bag = fitted[name]
     lazy_X = da.from_array(X_TEST, chunks=(15, 6))
-    size = len(pickle.dumps(bag._predictor(1)))
-    assert size > 10 * len(pickle.dumps(X_TEST[:15]))
-    # Six chunks of points, one task carrying the model that all of them depend on.
-    assert _carrying(bag.member_predictions(lazy_X), size) == 1
-    # The wrong variant, the model embedded in every chunk's task, counts six.
-    predictor = bag._predictor(1)
-    embedded = [dask.delayed(_members_of, pure=True)(predictor, block)
-                for block in lazy_X.to_delayed().ravel()]
-    embedded = da.concatenate([da.from_delayed(task, shape=(N_MEMBERS, 15), dtype=float)
-                               for task in embedded], axis=1)
-    assert _carrying(embedded, size) == 6
+    members = bag.member_predictions(lazy_X)
+    # Reference: the in-memory call.
+    assert np.array_equal(members.compute(), bag.member_predictions(X_TEST))
+    # The model is scattered once: no task of the graph carries it, all six chunks depend
+    # on its one key, and each worker holds one copy.
+    (model,) = bag._scattered.values()
+    assert _carrying(members, len(pickle.dumps(bag._predictor(1)))) == 0
+    graph = dict(members.__dask_graph__())
+    assert sum(model.key in getattr(task, "dependencies", ()) for task in graph.values()) == 6
+    assert len(client.who_has([model])[model.key]) == 2
+    # A later call sends nothing again.
+    bag.predict(lazy_X).compute()
+    assert bag._scattered[client.id] is model
+    # A bag pickles without it.
+    assert "_scattered" not in pickle.loads(pickle.dumps(bag)).__dict__

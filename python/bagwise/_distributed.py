@@ -133,19 +133,42 @@ def _predict_block(predictor, what: str, block):
     return getattr(predictor, what)(block)
 
 
+def _model_key(predictor, scattered: dict):
+    """The one key of ``predictor`` that every chunk's task depends on.
+
+    With a ``dask.distributed`` client: ``predictor`` scattered to every worker once and
+    kept in ``scattered`` (by client), so later predictions send nothing again; without
+    one, a single named key of the graph (never hashed: a model can be large).
+    """
+    import uuid
+
+    import dask
+
+    client = _current_client()
+    if client is None:
+        return dask.delayed(predictor, name=f"bagwise-model-{uuid.uuid4().hex}",
+                            traverse=False)
+    future = scattered.get(client.id)
+    if future is None or future.status != "finished":
+        future = client.scatter(predictor, broadcast=True, hash=False)
+        scattered.clear()
+        scattered[client.id] = future
+    return future
+
+
 def lazy_points(X, predictor, what: str, leading: tuple, trailing: tuple, dtype, *,
-                frame: bool):
+                frame: bool, scattered: dict):
     """``predictor.<what>`` of every chunk of ``X`` along the points, as one dask array of
     shape ``leading + (n_points,) + trailing`` chunked like ``X``'s points.
 
-    ``predictor`` becomes one key of the graph that every chunk's task depends on: a
+    ``predictor`` is one key that every chunk's task depends on (see `_model_key`): a
     worker receives it once, not once per chunk.
     """
     import dask
     import dask.array as da
 
     parts, lengths = _point_parts(X, frame)
-    model = dask.delayed(predictor, pure=True, traverse=False)
+    model = _model_key(predictor, scattered)
     blocks = [
         da.from_delayed(dask.delayed(_predict_block, pure=True)(model, what, part),
                         shape=leading + (n,) + trailing, dtype=dtype)
@@ -164,7 +187,10 @@ def member_ranges(n_members: int, weights: list[int]) -> list[tuple[int, int]]:
 
 def _workers(client) -> list[tuple[str, int, int]]:
     """(address, threads, memory limit in bytes or 0) of every worker, by address."""
-    info = client.scheduler_info(n_workers=-1)["workers"]
+    try:
+        info = client.scheduler_info(n_workers=-1)["workers"]
+    except TypeError:  # distributed before 2025 lists every worker without being asked
+        info = client.scheduler_info()["workers"]
     if not info:
         raise ValueError("`backend`: the dask.distributed Client has no workers")
     return sorted((address, int(w.get("nthreads", 1)), int(w.get("memory_limit") or 0))

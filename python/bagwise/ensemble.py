@@ -302,7 +302,7 @@ class _Bag(BaseEstimator):
     def _forget(self):
         for name in ("in_bag_", "n_features_in_", "feature_names_in_", "classes_", "members_",
                      "seed_", "_model", "_train_X", "_train_y", "count_gram_",
-                     "_counted_at_random"):
+                     "_counted_at_random", "_scattered"):
             self.__dict__.pop(name, None)
 
     def _fit(self, X, y, groups):
@@ -503,7 +503,14 @@ class _Bag(BaseEstimator):
         dtype = self.classes_.dtype if what == "labels" else np.float64
         # One thread per chunk's task: dask runs the chunks in parallel.
         return _distributed.lazy_points(X, self._predictor(1), what, leading, classes, dtype,
-                                        frame=not self._native)
+                                        frame=not self._native,
+                                        scattered=self.__dict__.setdefault("_scattered", {}))
+
+    def __getstate__(self):
+        # The model scattered to a cluster's workers for lazy predictions stays behind.
+        state = super().__getstate__()
+        state.pop("_scattered", None)
+        return state
 
     def member_predictions(self, X) -> np.ndarray:
         """Every member's prediction at every point.
@@ -525,9 +532,12 @@ class _Bag(BaseEstimator):
             computed until asked; then each chunk is predicted where it lives, on the
             workers of the active ``dask.distributed`` client (or dask's threads without
             one), and no chunk of ``X`` travels to the client. What travels to each worker
-            is the fitted model once (one key of the graph that every chunk depends on:
-            the native ensemble, or the fitted clones and the classes; never the training
-            rows), however many chunks it predicts.
+            is the fitted model once, however many chunks it predicts (the native
+            ensemble, or the fitted clones and the classes; never the training rows):
+            with a client it is scattered to every worker on the first lazy call and
+            stays there for later calls while the bag lives (until it is fitted again or
+            deleted); without one it is a single key of the graph that every chunk's
+            task depends on.
         """
         if is_lazy(X):
             return self._lazy_points(X, "member_predictions")
