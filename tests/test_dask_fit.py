@@ -281,12 +281,13 @@ def test_the_model_is_sent_once_to_each_worker(client, fitted, name):
     # Reference: the in-memory call.
     assert np.array_equal(members.compute(), bag.member_predictions(X_TEST))
     # The model is scattered once: no task of the graph carries it, all six chunks depend
-    # on its one key, and each worker holds one copy.
+    # on its one key, which lives on the workers (one copy each at most; dask's active
+    # memory manager may drop an idle extra copy, fetched again between workers).
     (model,) = bag._scattered.values()
     assert _carrying(members, len(pickle.dumps(bag._predictor(1)))) == 0
     graph = dict(members.__dask_graph__())
     assert sum(model.key in getattr(task, "dependencies", ()) for task in graph.values()) == 6
-    assert len(client.who_has([model])[model.key]) == 2
+    assert 1 <= len(client.who_has([model])[model.key]) <= 2
     # A later call sends nothing again.
     bag.predict(lazy_X).compute()
     assert bag._scattered[client.id] is model

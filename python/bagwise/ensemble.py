@@ -534,10 +534,12 @@ class _Bag(BaseEstimator):
             one), and no chunk of ``X`` travels to the client. What travels to each worker
             is the fitted model once, however many chunks it predicts (the native
             ensemble, or the fitted clones and the classes; never the training rows):
-            with a client it is scattered to every worker on the first lazy call and
-            stays there for later calls while the bag lives (until it is fitted again or
-            deleted); without one it is a single key of the graph that every chunk's
-            task depends on.
+            with a client it is scattered from here to every worker on the first lazy
+            call and stays on the cluster for later calls while the bag lives (until it
+            is fitted again or deleted; dask's active memory manager may drop an idle
+            extra copy, which a worker then fetches from another worker, never from
+            here); without one it is a single key of the graph that every chunk's task
+            depends on.
         """
         if is_lazy(X):
             return self._lazy_points(X, "member_predictions")
