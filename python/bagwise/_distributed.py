@@ -35,6 +35,9 @@ __all__ = ["FIT_MEMORY_FACTOR", "fit_client", "fit_native", "fit_wrapped",
 # is refused when the rows take more than 1/FIT_MEMORY_FACTOR of a worker's memory limit.
 FIT_MEMORY_FACTOR = 3
 
+# Member groups per worker of a native fit.
+GROUPS_PER_WORKER = 2
+
 
 def _joblib_dask() -> bool:
     """Whether joblib's active backend is dask's (``joblib.parallel_backend("dask")``)."""
@@ -269,16 +272,19 @@ def _run_groups(client, submit, slots, n_members: int, progress):
     futures = [submit(first, end, address, n_jobs)
                for (first, end), (address, n_jobs) in zip(ranges, slots, strict=False)]
     size = {future.key: end - first for future, (first, end) in zip(futures, ranges, strict=True)}
+    position = {future.key: k for k, future in enumerate(futures)}
+    groups = [None] * len(futures)
     try:
         with progress_callback(progress, "fitting") as callback:
             done = 0
+            # Each group is fetched (and unpickled here) as soon as it is fitted, while
+            # the workers go on with the later groups.
             for future in as_completed(futures):
-                if future.status == "error":
-                    future.result()
+                groups[position[future.key]] = future.result()
                 done += size[future.key]
                 if callback is not None:
                     callback(done, n_members)
-        return client.gather(futures)
+        return groups
     except BaseException:
         client.cancel(futures)
         raise
@@ -298,7 +304,10 @@ def fit_native(client, learner, X, target, counts, options: dict, progress):
         return client.submit(_fit_native_group, learner.core_class, x, y, part, n_jobs, group,
                              workers=[address], pure=False)
 
-    slots = [(address, threads) for address, threads, _ in workers]
+    # GROUPS_PER_WORKER groups per worker, in turn: a worker's first groups travel back
+    # while it fits its last one.
+    slots = [(address, threads) for _ in range(GROUPS_PER_WORKER)
+             for address, threads, _ in workers]
     parts = _run_groups(client, submit, slots, counts.shape[0], progress)
     return learner.core().join(parts)
 

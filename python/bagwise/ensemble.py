@@ -1002,8 +1002,9 @@ _PARAMETERS_DOC = """
         ``in_bag_.shape[0]``. Not for ``"bayesian"``/``"none"``, strata or groups.
     backend : {"auto", "local", "dask"}
         Where `fit` grows the members. ``"dask"``: in groups of consecutive members on the
-        workers of the active ``dask.distributed`` client (one group per worker for native
-        learners, one per worker thread for wrapped estimators), joined into one ensemble
+        workers of the active ``dask.distributed`` client (two groups per worker, in turn, for
+        native learners, so a worker's first group travels back while it fits the second;
+        one group per worker thread for wrapped estimators), joined into one ensemble
         that equals the one-machine fit with the same seed, member for member (see
         `fit`). ``"auto"`` (default) does so when ``X`` or ``y`` is a dask array or
         DataFrame (or a zarr array) and a client is active, or inside
