@@ -4,9 +4,10 @@ that grow groups of members on the workers of a ``dask.distributed`` cluster.
 What travels
 ------------
 - Predictions at a lazy ``X``: the fitted model (native ensemble, or the fitted clones
-  and classes) is one key of the graph that every chunk's task depends on, so each worker
-  receives it once, whatever the number of chunks; each chunk is predicted on a worker
-  and stays there until the result is computed.
+  and classes) is one key that every chunk's task depends on (scattered once to every
+  worker and kept for later calls when a client is active, else one key of the graph),
+  so each worker receives it once, whatever the number of chunks; each chunk is
+  predicted on a worker and stays there until the result is computed.
 - A fit: the training rows are joined into one array on one worker (a lazy ``X``) or
   scattered from the client to every worker (an in-memory ``X``), and fetched once by each
   worker that fits a group; the targets are broadcast once; each group receives only its
