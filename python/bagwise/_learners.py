@@ -35,6 +35,10 @@ class Learner:
     weighted: bool
     # (estimator, X, classification, seed) -> keyword options of the core's ``fit``
     options: Callable[[object, np.ndarray, bool, int], dict]
+    # Whether members draw from their member streams while fitting: a fit of members
+    # ``first .. first + k`` then passes ``first_member=first`` so they draw as in the
+    # whole fit (the other learners are determined by their rows of the counts).
+    member_streams: bool = False
 
     @property
     def available(self) -> bool:
@@ -60,7 +64,7 @@ LEARNERS: dict[str, Learner] = {
     learner.name: learner
     for learner in (
         Learner("tree", "TreeEnsemble", "tree", classification=True, weighted=False,
-                options=_tree_options),
+                options=_tree_options, member_streams=True),
         Learner("linear", "LinearEnsemble", "linear", classification=False, weighted=True,
                 options=lambda est, X, classification, seed: {"penalty": est.penalty}),
         Learner("neighbors", "NeighborsEnsemble", "neighbors", classification=True,

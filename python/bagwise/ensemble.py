@@ -24,6 +24,7 @@ from sklearn.utils.validation import (
 )
 
 from . import _core, persistence
+from ._chunked import is_lazy
 from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
 from ._validation import n_jobs_value, positive_int
@@ -33,6 +34,7 @@ from .resampling import LITTLE_BAGS_FRACTION, check_group_size, resample
 __all__ = ["BagClassifier", "BagRegressor"]
 
 _SCHEMES = ("bootstrap", "subsample", "bayesian", "little_bags", "none")
+_BACKENDS = ("auto", "local", "dask")
 _CRITERIA = ("gini", "entropy")
 _SPLITTERS = ("auto", "exact", "histogram")
 # Warnings scikit-learn raises per member when the feature names of ``X`` and of the
@@ -146,10 +148,12 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
         raise ValueError(f"`splitter`: expected one of {_SPLITTERS}, got {est.splitter!r}")
     if est.progress is not None and not isinstance(est.progress, bool) and not callable(est.progress):
         raise TypeError(f"`progress`: expected a bool or a callable, got {type(est.progress).__name__}")
+    if not isinstance(est.backend, str) or est.backend not in _BACKENDS:
+        raise ValueError(f"`backend`: expected one of {_BACKENDS}, got {est.backend!r}")
     return {
         "learner": learner, "n_members": n_members, "fraction": float(fraction),
         "group_size": group_size, "seed": _seed_of(est.random_state),
-        "n_jobs": n_jobs_value(est.n_jobs),
+        "n_jobs": n_jobs_value(est.n_jobs), "backend": est.backend,
     }
 
 
@@ -167,6 +171,65 @@ def _little_bags_iv(est: _Bag, n_members: int, classification: bool) -> int:
         raise ValueError("`stratify`: scheme='little_bags' draws half-samples of all rows; "
                          "stratified little bags are not supported")
     return int(group_size)
+
+
+def _distributed_in_memory(value):
+    from ._distributed import in_memory
+
+    return in_memory(value)
+
+
+def _member_values(member, X, classes):
+    """One fitted clone's values at ``X`` (regression, ``classes`` None) or its class
+    probabilities in the columns of ``classes`` (a class it never saw gets 0)."""
+    if classes is None:
+        return np.asarray(member.predict(X), dtype=np.float64).reshape(-1)
+    proba = np.asarray(member.predict_proba(X), dtype=np.float64)
+    out = np.zeros((proba.shape[0], len(classes)))
+    out[:, np.searchsorted(classes, member.classes_)] = proba
+    return out
+
+
+class _Predictor:
+    """What a fitted bag needs to predict, and nothing else (no training rows): the native
+    model or the fitted clones, and the classes. It is the one object a lazy prediction
+    sends to each worker; the in-memory path uses it too, so both compute alike."""
+
+    __slots__ = ("classes", "members", "model", "n_jobs")
+
+    def __init__(self, model, members, classes, n_jobs):
+        self.model, self.members, self.classes, self.n_jobs = model, members, classes, n_jobs
+
+    def member_predictions(self, X) -> np.ndarray:
+        if self.model is not None:
+            return self.model.member_predictions(X, self.n_jobs)
+        with warnings.catch_warnings():
+            # The bag has warned once if the feature names disagree; not once per member.
+            warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
+            return np.stack([_member_values(member, X, self.classes) for member in self.members])
+
+    def mean(self, X) -> np.ndarray:
+        """The members' mean, summed in member order at every point whatever the number
+        of points (numpy's ``mean(axis=0)`` switches to pairwise sums for one point), so
+        a chunk of points gets the same bits as the whole."""
+        members = self.member_predictions(X)
+        total = members[0].copy()
+        for values in members[1:]:
+            total += values
+        return total / len(members)
+
+    def labels(self, X) -> np.ndarray:
+        return self.classes[np.argmax(self.mean(X), axis=1)]
+
+
+def _member_seeds(template, seed: int, n_members: int) -> list:
+    """One reproducible ``random_state`` per wrapped member (None when the estimator has
+    none), as the member streams of the native path: member m's seed does not depend on
+    which group or machine fits it."""
+    if "random_state" not in template.get_params(deep=False):
+        return [None] * n_members
+    children = np.random.SeedSequence(seed).spawn(n_members)
+    return [int(c.generate_state(1)[0] & 0x7FFFFFFF) for c in children]
 
 
 def _fit_member(template, X, y, counts, use_sample_weight, random_state):
@@ -191,11 +254,33 @@ class _Bag(BaseEstimator):
     def fit(self, X, y, groups=None):
         """Fit every member on its resample of the rows of ``X``.
 
+        On a cluster (``backend``; by default when ``X`` or ``y`` is a dask array or
+        DataFrame and a ``dask.distributed`` client is active) the members are fitted in
+        groups of consecutive members on the workers and joined in member order into one
+        ensemble: the in-bag counts are drawn here as in the one-machine fit, and member m
+        draws its own randomness from member stream m wherever it is fitted (wrapped
+        estimators: member m's ``random_state`` from the seed), so ``in_bag_`` and every
+        member's predictions equal the one-machine fit with the same seed, bit for bit.
+
+        What travels: the targets (and a lazy ``y``) are computed here and broadcast once
+        to every worker; the training rows go once to every worker that fits a group (a
+        lazy ``X`` is joined into one array on one worker and fetched from there, an
+        in-memory one is scattered from here); each group receives only its own rows of
+        the counts and sends back its fitted members. Every worker holds the whole
+        training set, so it must fit a worker's memory: a fit whose rows take more than a
+        third of the smallest worker's ``memory_limit`` (the learner's own working copies
+        need about twice the rows again) is refused with a ``ValueError`` naming both
+        sizes; fit a sample of the rows, give the workers more memory, or fit in one
+        process with ``backend="local"``. The fitted members are gathered into this bag;
+        the bag keeps a lazy ``X`` lazily (`out_of_bag_predictions` computes it here when
+        called without ``X``).
+
         Parameters
         ----------
         X : array-like of shape (n_rows, n_features)
             Training rows. Native learners need numbers (float32 is kept as is); wrapped
-            estimators receive ``X`` in its own type (e.g. a DataFrame), row-indexed.
+            estimators receive ``X`` in its own type (e.g. a DataFrame, a dask DataFrame
+            as one pandas DataFrame on each worker), row-indexed.
         y : array-like of shape (n_rows,)
             Targets (regression) or class labels (classification).
         groups : array-like of shape (n_rows,), optional
@@ -217,18 +302,28 @@ class _Bag(BaseEstimator):
     def _forget(self):
         for name in ("in_bag_", "n_features_in_", "feature_names_in_", "classes_", "members_",
                      "seed_", "_model", "_train_X", "_train_y", "count_gram_",
-                     "_counted_at_random"):
+                     "_counted_at_random", "_scattered"):
             self.__dict__.pop(name, None)
 
     def _fit(self, X, y, groups):
+        from . import _distributed
+
         params = _bag_iv(self, self._classification)
         learner = params["learner"]
         native = isinstance(learner, str)
-        if native:
+        client = _distributed.fit_client(params["backend"], X, y)
+        if client is None:
+            X = _distributed.in_memory(X)
+        y, groups = _distributed.in_memory(y), _distributed.in_memory(groups)
+        if native and is_lazy(X):
+            validate_data(self, _distributed.schema(X), skip_check_array=True)
+            X = _distributed.lazy_design(X)
+            y = self._lazy_targets(y, X.shape[0])
+        elif native:
             X, y = validate_data(self, X, y, dtype=[np.float64, np.float32],
                                  y_numeric=not self._classification, ensure_min_samples=2)
         else:
-            validate_data(self, X, skip_check_array=True)
+            validate_data(self, _distributed.schema(X), skip_check_array=True)
             if y is None:
                 raise ValueError(f"{type(self).__name__} requires y to be passed, but the target y is None")
             y = column_or_1d(y, warn=True)
@@ -249,11 +344,17 @@ class _Bag(BaseEstimator):
             # Classification passes the class codes (int64, indices into ``classes_``),
             # converted from the labels here once.
             target = codes.astype(np.int64) if self._classification else np.asarray(y, np.float64)
-            model = self._fit_native(X, target, counts, params, None if classes is None else len(classes))
+            n_classes = None if classes is None else len(classes)
+            if client is None:
+                model = self._fit_native(X, target, counts, params, n_classes)
+            else:
+                model = _distributed.fit_native(client, LEARNERS[learner], X, target, counts,
+                                                self._native_options(X, params, n_classes),
+                                                self.progress)
             members = None
         else:
             model = None
-            members = self._fit_wrapped(X, y, counts, params)
+            members = self._fit_wrapped(X, y, counts, params, client)
         # Everything succeeded: publish the fitted state at once.
         self.in_bag_ = counts
         self.seed_ = params["seed"]
@@ -309,15 +410,36 @@ class _Bag(BaseEstimator):
                      f"(e.g. the default {LITTLE_BAGS_FRACTION}) keeps the bias small")
         return draw.row_weights if self.scheme == "bayesian" else draw.counts
 
-    def _fit_native(self, X, target, counts, params, n_classes):
+    def _lazy_targets(self, y, n_rows):
+        """The targets of a lazy ``X`` (computed here): 1-D, one per row, numbers for
+        regression."""
+        if y is None:
+            raise ValueError(f"{type(self).__name__} requires y to be passed, but the target y is None")
+        y = column_or_1d(y, warn=True)
+        if len(y) != n_rows:
+            raise ValueError(f"`y`: has {len(y):,} values but `X` has {n_rows:,} rows")
+        if n_rows < 2:
+            raise ValueError(f"`X`: bagging needs at least 2 rows, got {n_rows}")
+        if not self._classification and y.dtype.kind not in "fiub":
+            raise TypeError(f"`y`: expected numbers for regression, got dtype {y.dtype}")
+        return y
+
+    def _native_options(self, X, params, n_classes):
+        """The keyword options of the native learner's core ``fit`` (all but ``n_jobs`` and
+        ``progress``)."""
         learner = LEARNERS[params["learner"]]
         task = "classification" if self._classification else "regression"
         options = learner.options(self, X, self._classification, params["seed"])
-        with progress_callback(self.progress, "fitting") as callback:
-            return learner.core().fit(X, target, counts, task=task, n_classes=n_classes,
-                                      n_jobs=params["n_jobs"], progress=callback, **options)
+        return {"task": task, "n_classes": n_classes, **options}
 
-    def _fit_wrapped(self, X, y, counts, params):
+    def _fit_native(self, X, target, counts, params, n_classes):
+        learner = LEARNERS[params["learner"]]
+        options = self._native_options(X, params, n_classes)
+        with progress_callback(self.progress, "fitting") as callback:
+            return learner.core().fit(X, target, counts, n_jobs=params["n_jobs"],
+                                      progress=callback, **options)
+
+    def _fit_wrapped(self, X, y, counts, params, client=None):
         from joblib import Parallel, delayed
 
         template = params["learner"]
@@ -329,12 +451,12 @@ class _Bag(BaseEstimator):
                 raise ValueError(
                     f"`use_sample_weight`: {type(template).__name__}.fit does not accept sample_weight"
                 )
-        if "random_state" in template.get_params(deep=False):
-            # One reproducible seed per member, as the member streams of the native path.
-            children = np.random.SeedSequence(params["seed"]).spawn(members)
-            states = [int(c.generate_state(1)[0] & 0x7FFFFFFF) for c in children]
-        else:
-            states = [None] * members
+        states = _member_seeds(template, params["seed"], members)
+        if client is not None:
+            from . import _distributed
+
+            return _distributed.fit_wrapped(client, X, y, counts, template,
+                                            self.use_sample_weight, states, self.progress)
         n_jobs = -1 if params["n_jobs"] is None else params["n_jobs"]
         tasks = (delayed(_fit_member)(template, X, y, counts[m], self.use_sample_weight, states[m])
                  for m in range(members))
@@ -362,27 +484,67 @@ class _Bag(BaseEstimator):
         validate_data(self, X, reset=False, skip_check_array=True)
         return X
 
+    def _predictor(self, n_jobs) -> _Predictor:
+        return _Predictor(self.__dict__.get("_model"), self.__dict__.get("members_"),
+                          self.classes_ if self._classification else None, n_jobs)
+
+    def _lazy_points(self, X, what):
+        """``member_predictions`` (``what="member_predictions"``), the mean or the labels
+        at a lazy ``X``: a dask array chunked like its points, computed on the workers."""
+        from . import _distributed
+
+        check_is_fitted(self)
+        validate_data(self, _distributed.schema(X), reset=False, skip_check_array=True)
+        if self._native:
+            X = _distributed.lazy_design(X)
+        n_members = self._model.n_members if self._native else len(self.members_)
+        leading = (n_members,) if what == "member_predictions" else ()
+        classes = (len(self.classes_),) if self._classification and what != "labels" else ()
+        dtype = self.classes_.dtype if what == "labels" else np.float64
+        # One thread per chunk's task: dask runs the chunks in parallel.
+        return _distributed.lazy_points(X, self._predictor(1), what, leading, classes, dtype,
+                                        frame=not self._native,
+                                        scattered=self.__dict__.setdefault("_scattered", {}))
+
+    def __getstate__(self):
+        # The model scattered to a cluster's workers for lazy predictions stays behind.
+        state = super().__getstate__()
+        state.pop("_scattered", None)
+        return state
+
     def member_predictions(self, X) -> np.ndarray:
         """Every member's prediction at every point.
 
         Parameters
         ----------
         X : array-like of shape (n_points, n_features)
+            In memory, or lazy: a dask array or DataFrame (or a zarr array).
 
         Returns
         -------
-        ndarray of float64
+        ndarray of float64, or a dask array for a lazy ``X``
             ``(members, n_points)`` for regression, ``(members, n_points, n_classes)``
             class probabilities for classification (columns in the order of
             ``classes_``). Native learners answer in one parallel call.
+
+            A lazy ``X`` gives a dask array chunked like the points of ``X`` (one chunk
+            along the members), equal bit for bit to the in-memory answer. Nothing is
+            computed until asked; then each chunk is predicted where it lives, on the
+            workers of the active ``dask.distributed`` client (or dask's threads without
+            one), and no chunk of ``X`` travels to the client. What travels to each worker
+            is the fitted model once, however many chunks it predicts (the native
+            ensemble, or the fitted clones and the classes; never the training rows):
+            with a client it is scattered from here to every worker on the first lazy
+            call and stays on the cluster for later calls while the bag lives (until it
+            is fitted again or deleted; dask's active memory manager may drop an idle
+            extra copy, which a worker then fetches from another worker, never from
+            here); without one it is a single key of the graph that every chunk's task
+            depends on.
         """
+        if is_lazy(X):
+            return self._lazy_points(X, "member_predictions")
         X = self._check_X(X)
-        if self._native:
-            return self._model.member_predictions(X, self.n_jobs)
-        with warnings.catch_warnings():
-            # `_check_X` has warned once if the feature names disagree; not once per member.
-            warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
-            return np.stack([self._member_predict(member, X) for member in self.members_])
+        return self._predictor(self.n_jobs).member_predictions(X)
 
     def out_of_bag_predictions(self, X=None) -> np.ndarray:
         """Each member's predictions on the training rows, NaN where it saw the row.
@@ -408,7 +570,8 @@ class _Bag(BaseEstimator):
         if X is None:
             if "_train_X" not in self.__dict__:
                 raise ValueError("`X`: give the training rows (a loaded ensemble does not keep them)")
-            X = self._train_X
+            # The training rows of a fit on dask are computed here.
+            X = _distributed_in_memory(self._train_X)
         else:
             X = self._check_X(X)
         if _num_samples(X) != self.in_bag_.shape[1]:
@@ -417,6 +580,7 @@ class _Bag(BaseEstimator):
             )
         if self._native:
             return self._model.out_of_bag_predictions(X, self.in_bag_, self.n_jobs)
+        classes = self.classes_ if self._classification else None
         shape = (self.in_bag_.shape[1],) + ((len(self.classes_),) if self._classification else ())
         out = np.full((len(self.members_),) + shape, np.nan)
         with warnings.catch_warnings():
@@ -424,7 +588,7 @@ class _Bag(BaseEstimator):
             for m, member in enumerate(self.members_):
                 rows = np.flatnonzero(self.in_bag_[m] == 0)
                 if len(rows):
-                    out[m, rows] = self._member_predict(member, _safe_indexing(X, rows))
+                    out[m, rows] = _member_values(member, _safe_indexing(X, rows), classes)
         return out
 
     # -- diagnostics ----------------------------------------------------------------------
@@ -702,7 +866,7 @@ class _Bag(BaseEstimator):
             if "_train_X" not in self.__dict__:
                 raise ValueError("`X_train`: reference='refit' needs the training rows (a "
                                  "loaded ensemble does not keep them)")
-            X_train = self._train_X
+            X_train = _distributed_in_memory(self._train_X)
         else:
             X_train = self._check_X(X_train)
         if y_train is None:
@@ -836,6 +1000,16 @@ _PARAMETERS_DOC = """
         observation with probability at least ``1 - 2 alpha`` (their Theorem 1); with a
         fixed number (the default) that bound is not proved. The members fitted are
         ``in_bag_.shape[0]``. Not for ``"bayesian"``/``"none"``, strata or groups.
+    backend : {"auto", "local", "dask"}
+        Where `fit` grows the members. ``"dask"``: in groups of consecutive members on the
+        workers of the active ``dask.distributed`` client (two groups per worker, in turn, for
+        native learners, so a worker's first group travels back while it fits the second;
+        one group per worker thread for wrapped estimators), joined into one ensemble
+        that equals the one-machine fit with the same seed, member for member (see
+        `fit`). ``"auto"`` (default) does so when ``X`` or ``y`` is a dask array or
+        DataFrame (or a zarr array) and a client is active, or inside
+        ``joblib.parallel_backend("dask")``; a lazy input without a client is computed
+        and fitted in this process. ``"local"`` always fits in this process.
 """
 
 _ATTRIBUTES_DOC = """
@@ -891,7 +1065,7 @@ class BagRegressor(RegressorMixin, _Bag):
     def __init__(self, learner="tree", n_members=100, *, scheme="bootstrap", fraction=1.0,
                  group_size=2, max_depth=None, min_leaf=1, split_features=None, neighbors=5,
                  penalty=0.0, random_state=0, n_jobs=None, progress=False, splitter="auto",
-                 use_sample_weight=False, random_member_count=False):
+                 use_sample_weight=False, random_member_count=False, backend="auto"):
         self.learner = learner
         self.n_members = n_members
         self.scheme = scheme
@@ -908,13 +1082,15 @@ class BagRegressor(RegressorMixin, _Bag):
         self.splitter = splitter
         self.use_sample_weight = use_sample_weight
         self.random_member_count = random_member_count
-
-    def _member_predict(self, member, X):
-        return np.asarray(member.predict(X), dtype=np.float64).reshape(-1)
+        self.backend = backend
 
     def predict(self, X) -> np.ndarray:
-        """The ensemble mean over members, shape (n_points,)."""
-        return self.member_predictions(X).mean(axis=0)
+        """The ensemble mean over members, shape (n_points,); a dask array chunked like
+        the points when ``X`` is lazy (see `member_predictions`)."""
+        if is_lazy(X):
+            return self._lazy_points(X, "mean")
+        X = self._check_X(X)
+        return self._predictor(self.n_jobs).mean(X)
 
 
 @register_estimator
@@ -952,7 +1128,7 @@ class BagClassifier(ClassifierMixin, _Bag):
                  group_size=2, max_depth=None, min_leaf=1, split_features=None, neighbors=5,
                  penalty=0.0, random_state=0, n_jobs=None, progress=False, stratify=False,
                  criterion="gini", splitter="auto", use_sample_weight=False,
-                 random_member_count=False):
+                 random_member_count=False, backend="auto"):
         self.learner = learner
         self.n_members = n_members
         self.scheme = scheme
@@ -971,14 +1147,10 @@ class BagClassifier(ClassifierMixin, _Bag):
         self.splitter = splitter
         self.use_sample_weight = use_sample_weight
         self.random_member_count = random_member_count
+        self.backend = backend
 
     _classification = True
 
-    def _member_predict(self, member, X):
-        proba = np.asarray(member.predict_proba(X), dtype=np.float64)
-        out = np.zeros((proba.shape[0], len(self.classes_)))
-        out[:, np.searchsorted(self.classes_, member.classes_)] = proba
-        return out
 
     def diversity(self, X, y):
         """`bagwise.diversity` of the members' class predictions on a test set.
@@ -1004,10 +1176,17 @@ class BagClassifier(ClassifierMixin, _Bag):
         return diversity(members, target, n_classes=len(self.classes_), n_jobs=self.n_jobs)
 
     def predict_proba(self, X) -> np.ndarray:
-        """Mean of the members' class probabilities, shape (n_points, n_classes)."""
-        return self.member_predictions(X).mean(axis=0)
+        """Mean of the members' class probabilities, shape (n_points, n_classes); a dask
+        array chunked like the points when ``X`` is lazy (see `member_predictions`)."""
+        if is_lazy(X):
+            return self._lazy_points(X, "mean")
+        X = self._check_X(X)
+        return self._predictor(self.n_jobs).mean(X)
 
     def predict(self, X) -> np.ndarray:
-        """The class with the largest mean probability (ties: the first in ``classes_``)."""
+        """The class with the largest mean probability (ties: the first in ``classes_``);
+        a dask array when ``X`` is lazy."""
+        if is_lazy(X):
+            return self._lazy_points(X, "labels")
         proba = self.predict_proba(X)
         return self.classes_[np.argmax(proba, axis=1)]

@@ -22,7 +22,9 @@ use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::{check_design, count_bags, member_chunk, Bag, FittedMembers, Targets, Task};
+use super::{
+    check_design, check_parts, count_bags, member_chunk, Bag, FittedMembers, Targets, Task,
+};
 use crate::error::{Error, Result};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
@@ -492,6 +494,31 @@ impl FittedMembers for LinearEnsemble {
         LinearEnsemble::out_of_bag_into(self, x, &bags, out, pool)
     }
 
+    fn join(parts: Vec<Self>) -> Result<Self> {
+        check_parts(&parts)?;
+        let penalty = parts[0].penalty;
+        if let Some(k) = parts.iter().position(|part| part.penalty != penalty) {
+            return Err(Error::value(
+                "parts",
+                format!(
+                    "part {k} was fitted with penalty {} but part 0 with {penalty}",
+                    parts[k].penalty
+                ),
+            ));
+        }
+        let mut joined = LinearEnsemble {
+            n_features: parts[0].n_features,
+            penalty,
+            intercepts: Vec::new(),
+            coefficients: Vec::new(),
+        };
+        for part in parts {
+            joined.intercepts.extend(part.intercepts);
+            joined.coefficients.extend(part.coefficients);
+        }
+        Ok(joined)
+    }
+
     fn to_bytes(&self) -> Vec<u8> {
         postcard::to_allocvec(self).expect("serialising to memory cannot fail")
     }
@@ -524,6 +551,29 @@ mod tests {
             2.0 + x[[i, 0]] - 0.5 * x[[i, 1]] + 0.25 * x[[i, 2]] + ((i % 5) as f64 - 2.0) * 0.1
         });
         (x, y)
+    }
+
+    #[test]
+    fn member_ranges_joined_equal_the_whole_fit() {
+        let (x, y) = design(60);
+        let counts = Array2::from_shape_fn((5, 60), |(m, i)| ((i * (m + 3) + m) % 4) as u8);
+        let pool = Threads::Fixed(2).pool().unwrap();
+        let fit = |first: usize, end: usize| {
+            let b = bags(counts.slice(ndarray::s![first..end, ..]), 60).unwrap();
+            LinearEnsemble::fit(x.view(), y.view(), &b, 0.5, &pool, &Silent).unwrap()
+        };
+        let whole = fit(0, 5);
+        let joined = LinearEnsemble::join(vec![fit(0, 2), fit(2, 3), fit(3, 5)]).unwrap();
+        assert_eq!(joined, whole);
+        // Parts fitted with another penalty, or on other features, are refused.
+        let b = bags(counts.slice(ndarray::s![..1, ..]), 60).unwrap();
+        let other = LinearEnsemble::fit(x.view(), y.view(), &b, 1.0, &pool, &Silent).unwrap();
+        let err = LinearEnsemble::join(vec![whole.clone(), other]).unwrap_err();
+        assert!(err.to_string().contains("penalty"), "{err}");
+        let narrow = x.slice(ndarray::s![.., ..2]);
+        let other = LinearEnsemble::fit(narrow, y.view(), &b, 0.5, &pool, &Silent).unwrap();
+        assert!(LinearEnsemble::join(vec![whole, other]).is_err());
+        assert!(LinearEnsemble::join(Vec::new()).is_err());
     }
 
     #[test]

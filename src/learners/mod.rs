@@ -139,6 +139,16 @@ pub trait FittedMembers: Sized {
         Ok(())
     }
 
+    /// One ensemble of the members of `parts`, in order: the parts are ensembles of the
+    /// same learner and settings fitted on consecutive member ranges of one ensemble (see
+    /// e.g. [`tree::CheckedTreeParams::fit_members`]), so the join of a split fit is the
+    /// whole fit, member for member.
+    ///
+    /// # Errors
+    /// `parts` empty, or parts that disagree on the task, the number of features or a
+    /// setting of the learner (or, for neighbours, the training rows).
+    fn join(parts: Vec<Self>) -> Result<Self>;
+
     /// The fitted state as bytes.
     fn to_bytes(&self) -> Vec<u8>;
 
@@ -148,6 +158,32 @@ pub trait FittedMembers: Sized {
     /// # Errors
     /// `data` when the bytes do not decode or the decoded ensemble is not well formed.
     fn from_bytes(data: &[u8]) -> Result<Self>;
+}
+
+/// Checks the parts of a [`FittedMembers::join`]: at least one, all with the task and the
+/// number of features of the first.
+///
+/// # Errors
+/// `parts` empty or disagreeing.
+pub fn check_parts<E: FittedMembers>(parts: &[E]) -> Result<()> {
+    let first = parts
+        .first()
+        .ok_or_else(|| Error::value("parts", "needs at least one fitted ensemble"))?;
+    for (k, part) in parts.iter().enumerate().skip(1) {
+        if part.task() != first.task() || part.n_features() != first.n_features() {
+            return Err(Error::value(
+                "parts",
+                format!(
+                    "part {k} has task {:?} and {} features but part 0 has {:?} and {}",
+                    part.task(),
+                    part.n_features(),
+                    first.task(),
+                    first.n_features()
+                ),
+            ));
+        }
+    }
+    Ok(())
 }
 
 /// Checks that an output buffer holds `expected` values.

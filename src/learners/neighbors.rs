@@ -18,7 +18,7 @@ use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::{check_design, count_bags, Bag, FittedMembers, Targets, Task};
+use super::{check_design, check_parts, count_bags, Bag, FittedMembers, Targets, Task};
 use crate::error::{Error, Result};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
@@ -454,6 +454,30 @@ impl FittedMembers for NeighborsEnsemble {
         NeighborsEnsemble::out_of_bag_into(self, x, &bags, out, pool, monitor)
     }
 
+    fn join(parts: Vec<Self>) -> Result<Self> {
+        check_parts(&parts)?;
+        let first = &parts[0];
+        if let Some(k) = parts.iter().position(|part| {
+            part.neighbors != first.neighbors
+                || part.train != first.train
+                || part.targets != first.targets
+        }) {
+            return Err(Error::value(
+                "parts",
+                format!(
+                    "part {k} differs from part 0 in neighbors or in its training rows; \
+                     only parts of one ensemble fitted on the same rows can be joined"
+                ),
+            ));
+        }
+        let mut parts = parts.into_iter();
+        let mut joined = parts.next().expect("checked: at least one part");
+        for part in parts {
+            joined.bags.extend(part.bags);
+        }
+        Ok(joined)
+    }
+
     fn to_bytes(&self) -> Vec<u8> {
         postcard::to_allocvec(self).expect("serialising to memory cannot fail")
     }
@@ -476,6 +500,40 @@ mod tests {
     use crate::learners::bags;
     use crate::parallel::{Silent, Threads};
     use ndarray::{array, Array2};
+
+    #[test]
+    fn member_ranges_joined_equal_the_whole_fit() {
+        let x = Array2::from_shape_fn((30, 2), |(i, j)| ((i * 7 + j * 3) % 11) as f64);
+        let y: Vec<f64> = (0..30).map(|i| (i % 3) as f64).collect();
+        let counts = Array2::from_shape_fn((4, 30), |(m, i)| ((i + m) % 3) as u8);
+        let task = Task::Classification { n_classes: 3 };
+        let fit = |first: usize, end: usize, k: usize| {
+            let b = bags(counts.slice(ndarray::s![first..end, ..]), 30).unwrap();
+            NeighborsEnsemble::fit(x.view(), y.as_slice().into(), b, task, k, &Silent).unwrap()
+        };
+        let whole = fit(0, 4, 3);
+        let joined = NeighborsEnsemble::join(vec![fit(0, 1, 3), fit(1, 4, 3)]).unwrap();
+        assert_eq!(joined, whole);
+        let pool = Threads::Fixed(2).pool().unwrap();
+        let mut a = vec![0.0; 4 * 30 * 3];
+        let mut b = a.clone();
+        whole
+            .member_predictions_into(x.view(), &mut a, &pool, &Silent)
+            .unwrap();
+        joined
+            .member_predictions_into(x.view(), &mut b, &pool, &Silent)
+            .unwrap();
+        assert_eq!(a, b);
+        // Another k, or other training rows, cannot be joined.
+        assert!(NeighborsEnsemble::join(vec![whole.clone(), fit(0, 1, 2)]).is_err());
+        let shifted = x.mapv(|v| v + 1.0);
+        let b = bags(counts.slice(ndarray::s![..1, ..]), 30).unwrap();
+        let other =
+            NeighborsEnsemble::fit(shifted.view(), y.as_slice().into(), b, task, 3, &Silent)
+                .unwrap();
+        let err = NeighborsEnsemble::join(vec![whole, other]).unwrap_err();
+        assert!(err.to_string().contains("parts"), "{err}");
+    }
 
     #[test]
     fn multiplicity_fills_slots_and_ties_go_to_the_lower_row() {

@@ -146,6 +146,11 @@ pub(super) fn predict<'py, E: FittedMembers + Sync>(
     Ok(array.into_any())
 }
 
+/// `join`: one ensemble of the parts' members, in order (see [`FittedMembers::join`]).
+pub(super) fn join<E: FittedMembers>(parts: Vec<E>) -> PyResult<E> {
+    E::join(parts).map_err(to_py_err)
+}
+
 /// `to_bytes`.
 pub(super) fn to_bytes<'py, E: FittedMembers>(py: Python<'py>, model: &E) -> Bound<'py, PyBytes> {
     PyBytes::new(py, &model.to_bytes())

@@ -125,6 +125,15 @@ impl PyLinearEnsemble {
         learners::to_bytes(py, &self.inner)
     }
 
+    /// One ensemble of the members of `parts`, in order: ensembles of one learner and
+    /// settings fitted on consecutive member ranges of one ensemble, e.g. on several
+    /// machines. ValueError for parts that disagree.
+    #[staticmethod]
+    fn join(parts: Vec<PyRef<'_, Self>>) -> PyResult<Self> {
+        let parts = parts.iter().map(|part| part.inner.clone()).collect();
+        learners::join(parts).map(|inner| Self { inner })
+    }
+
     #[staticmethod]
     fn from_bytes(data: &[u8]) -> PyResult<Self> {
         learners::from_bytes(data).map(|inner| PyLinearEnsemble { inner })

@@ -30,11 +30,14 @@ impl PyTreeEnsemble {
     /// of in-bag draws (sum of counts) per leaf; `split_features` the features tried per
     /// node (None: all); `criterion` "squared_error" / "gini" (default) / "entropy";
     /// `splitter` "exact", "histogram" or "auto"; `seed` seeds the feature-sampling
-    /// streams; `progress(done, total)` is called about every 0.1 s and may raise to stop.
+    /// streams; `first_member` is the index of the first member fitted (member m draws
+    /// from stream m, so fits of consecutive member ranges, each with its rows of the
+    /// counts, joined by `join` equal the whole fit); `progress(done, total)` is called
+    /// about every 0.1 s and may raise to stop.
     #[staticmethod]
     #[pyo3(signature = (x, y, counts, *, task, n_classes=None, max_depth=None, min_leaf=1,
         split_features=None, criterion=None, splitter="auto", seed=0, n_members=None,
-        n_jobs=None, progress=None))]
+        first_member=0, n_jobs=None, progress=None))]
     #[allow(clippy::too_many_arguments)]
     fn fit(
         py: Python<'_>,
@@ -50,6 +53,7 @@ impl PyTreeEnsemble {
         splitter: &str,
         seed: u64,
         n_members: Option<i64>,
+        first_member: usize,
         n_jobs: Option<usize>,
         progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
@@ -74,6 +78,7 @@ impl PyTreeEnsemble {
                 &x,
                 &y,
                 InBag::<u8>::from_options(None, n_members),
+                first_member,
                 n_jobs,
                 progress,
             )?,
@@ -83,6 +88,7 @@ impl PyTreeEnsemble {
                 &x,
                 &y,
                 InBag::from_options(Some(c), n_members),
+                first_member,
                 n_jobs,
                 progress
             ))?,
@@ -155,6 +161,15 @@ impl PyTreeEnsemble {
         learners::to_bytes(py, &self.inner)
     }
 
+    /// One ensemble of the members of `parts`, in order: ensembles of one learner and
+    /// settings fitted on consecutive member ranges of one ensemble, e.g. on several
+    /// machines. ValueError for parts that disagree.
+    #[staticmethod]
+    fn join(parts: Vec<PyRef<'_, Self>>) -> PyResult<Self> {
+        let parts = parts.iter().map(|part| part.inner.clone()).collect();
+        learners::join(parts).map(|inner| Self { inner })
+    }
+
     /// Reads `to_bytes` output; corrupt or foreign bytes raise ValueError.
     #[staticmethod]
     fn from_bytes(data: &[u8]) -> PyResult<Self> {
@@ -190,12 +205,13 @@ fn grow<C: Count>(
     x: &FloatArray<'_, Ix2>,
     y: &YValues,
     in_bag: crate::Result<InBag<'_, C>>,
+    first_member: usize,
     n_jobs: Option<usize>,
     progress: Option<Py<PyAny>>,
 ) -> PyResult<TreeEnsemble> {
     let in_bag = in_bag.map_err(to_py_err)?;
     with_float!(x, |a| run_core(py, n_jobs, progress, |pool, monitor| {
-        params.fit(a, y.view(), in_bag, pool, monitor)
+        params.fit_members(a, y.view(), in_bag, first_member, pool, monitor)
     }))
 }
 

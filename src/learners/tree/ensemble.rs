@@ -8,7 +8,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
-use crate::learners::{FittedMembers, Task};
+use crate::learners::{check_parts, FittedMembers, Task};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 use crate::resampling::Count;
@@ -496,6 +496,16 @@ impl FittedMembers for TreeEnsemble {
         _monitor: &dyn Monitor,
     ) -> Result<()> {
         TreeEnsemble::predict_into(self, x, out, pool)
+    }
+
+    fn join(parts: Vec<Self>) -> Result<Self> {
+        check_parts(&parts)?;
+        let mut parts = parts.into_iter();
+        let mut joined = parts.next().expect("checked: at least one part");
+        for part in parts {
+            joined.trees.extend(part.trees);
+        }
+        Ok(joined)
     }
 
     fn to_bytes(&self) -> Vec<u8> {

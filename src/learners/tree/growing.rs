@@ -712,6 +712,32 @@ impl CheckedTreeParams {
         pool: &Pool,
         monitor: &dyn Monitor,
     ) -> Result<TreeEnsemble> {
+        self.fit_members(x, y, in_bag, 0, pool, monitor)
+    }
+
+    /// Grows members `first_member .. first_member + k` of an ensemble, `k` the members of
+    /// `in_bag` (whose row j holds the counts of member `first_member + j`): member m draws
+    /// its features from stream m, exactly as in the fit of the whole ensemble, so fits of
+    /// consecutive member ranges joined by [`TreeEnsemble::join`] equal the whole fit
+    /// (the feature bins depend on `x` alone, not on the members).
+    ///
+    /// ```text
+    /// fit(counts[0..M]) = join(fit_members(counts[a_0..a_1], a_0), ...,
+    ///                          fit_members(counts[a_{g-1}..a_g], a_{g-1}))
+    ///                     for 0 = a_0 < a_1 < ... < a_g = M
+    /// ```
+    ///
+    /// # Errors
+    /// As [`fit`](CheckedTreeParams::fit).
+    pub fn fit_members<T: Real, C: Count>(
+        &self,
+        x: ArrayView2<'_, T>,
+        y: Targets<'_>,
+        in_bag: InBag<'_, C>,
+        first_member: usize,
+        pool: &Pool,
+        monitor: &dyn Monitor,
+    ) -> Result<TreeEnsemble> {
         let p = &self.params;
         let (n_rows, n_features) = x.dim();
         if n_rows == 0 || n_features == 0 {
@@ -781,7 +807,8 @@ impl CheckedTreeParams {
         }
         let bins = p.splitter != Splitter::Exact;
         let columns = Columns::build(&x, bins, p.splitter != Splitter::Histogram, pool);
-        let draws = MemberStreams::new(feature_stream_seed(p.seed)).take(members);
+        let draws =
+            MemberStreams::starting_at(feature_stream_seed(p.seed), first_member).take(members);
         // The members grow on the pool in a worker thread while the calling thread reports
         // the number finished every HEARTBEAT; an error from the monitor (Ctrl-C, a
         // raising callback) raises `stop`, which every grower checks between nodes.
@@ -917,6 +944,7 @@ impl CheckedTreeParams {
 mod tests {
     use super::super::test_support::*;
     use super::*;
+    use crate::learners::FittedMembers;
     use crate::parallel::Silent;
     use ndarray::{Array1, Array2};
 
@@ -1036,6 +1064,72 @@ mod tests {
             assert_eq!(first.trees(), &one.trees()[..2]);
             assert_ne!(one.trees()[0], one.trees()[1]);
         }
+    }
+
+    #[test]
+    fn member_ranges_joined_equal_the_whole_fit() {
+        let x = data(1500, 5, 11, 0);
+        let y = signal(&x, 12);
+        let classes: Array1<usize> = y
+            .iter()
+            .map(|&v| usize::from(v > 1.0) + usize::from(v > 1.6))
+            .collect();
+        let mut counts = Array2::<u8>::zeros((7, 1500));
+        let mut d = Draws::from_seed(13);
+        for m in 0..7 {
+            d.for_each_below(1500, 1500, |i| counts[(m, i)] += 1);
+        }
+        let tasks = [
+            (Task::Regression, Targets::Regression(y.view())),
+            (
+                Task::Classification { n_classes: 3 },
+                Targets::Classes(classes.view()),
+            ),
+        ];
+        for (task, target) in tasks {
+            for splitter in [Splitter::Auto, Splitter::Exact, Splitter::Histogram] {
+                let mut p = params(task, splitter);
+                p.split_features = Some(2);
+                let config = p.check().unwrap();
+                let fit = |first: usize, end: usize| {
+                    let c = counts.slice(ndarray::s![first..end, ..]);
+                    config
+                        .fit_members(x.view(), target, InBag::Counts(c), first, &pool(2), &Silent)
+                        .unwrap()
+                };
+                let whole = fit(0, 7);
+                let parts = vec![fit(0, 3), fit(3, 4), fit(4, 7)];
+                let joined = TreeEnsemble::join(parts).unwrap();
+                assert_eq!(joined, whole);
+                assert_eq!(members(&joined, &x), members(&whole, &x));
+                // The wrong variant: a range fitted from stream 0 grows other trees (its
+                // features are drawn from member 0's stream, not member 3's).
+                let c = counts.slice(ndarray::s![3..4, ..]);
+                let restarted = config
+                    .fit_members(x.view(), target, InBag::Counts(c), 0, &pool(2), &Silent)
+                    .unwrap();
+                assert_ne!(restarted.trees()[0], whole.trees()[3]);
+            }
+        }
+    }
+
+    #[test]
+    fn joining_refuses_parts_of_other_ensembles() {
+        let x = data(200, 3, 1, 0);
+        let y = signal(&x, 2);
+        let ones: InBag<'_, u8> = InBag::AllRows { members: 2 };
+        let config = params(Task::Regression, Splitter::Exact).check().unwrap();
+        let fit = |x: ndarray::ArrayView2<'_, f64>| {
+            config
+                .fit(x, Targets::Regression(y.view()), ones, &pool(1), &Silent)
+                .unwrap()
+        };
+        let three = fit(x.view());
+        let two = fit(x.slice(ndarray::s![.., ..2]));
+        let err = TreeEnsemble::join(vec![three.clone(), two]).unwrap_err();
+        assert!(err.to_string().contains("parts"), "{err}");
+        assert!(TreeEnsemble::join(Vec::new()).is_err());
+        assert_eq!(TreeEnsemble::join(vec![three.clone()]).unwrap(), three);
     }
 
     #[test]
