@@ -181,12 +181,27 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
             # Sliced here: each task carries its own piece (no whole array in the graph).
             bounds = np.cumsum((0,) + tuple(reference))
             lead = (slice(None),) * axis
-            columns.append([array[(*lead, slice(lo, hi))]
-                            for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)])
+            pieces = [array[(*lead, slice(lo, hi))]
+                      for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)]
+            columns.append(_scattered(pieces) if array.nbytes > SCATTER_BYTES else pieces)
             continue
         chunks = tuple(reference if a == axis else (size,) for a, size in enumerate(array.shape))
         columns.append(list(np.ravel(array.rechunk(chunks).to_delayed())))
     return [list(blocks) for blocks in zip(*columns, strict=True)]
+
+
+#: An in-memory argument larger than this (1 MiB) is sent to the workers ahead of the graph
+#: when a distributed client is active, piece by piece, so the graph itself stays small.
+SCATTER_BYTES = 1 << 20
+
+
+def _scattered(pieces: list[np.ndarray]) -> list[Any]:
+    """``pieces`` on the cluster's workers (futures) when a client is active; else as they are."""
+    if not _client_active():
+        return pieces
+    from distributed import get_client
+
+    return get_client().scatter(pieces, hash=False)
 
 
 def point_starts(arrays: Sequence[tuple[Any, str, int | None]]) -> list[int]:
