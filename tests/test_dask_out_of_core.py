@@ -35,6 +35,7 @@ def on_disk(tmp_path_factory):
     counts = rng.integers(0, 3, size=(N_MEMBERS, N_POINTS), dtype=np.uint8)
     # Every point out of bag for at least one member, so no point is left uncovered.
     counts[np.arange(N_POINTS) % N_MEMBERS, np.arange(N_POINTS)] = 0
+    np.save(folder / "counts.npy", counts)
     path = folder / "members.npy"
     members = np.lib.format.open_memmap(path, mode="w+", dtype=np.float64,
                                         shape=(N_MEMBERS, N_POINTS))
@@ -46,7 +47,7 @@ def on_disk(tmp_path_factory):
         members[:, start:stop] = y[start:stop] + np.roll(noise, number, axis=0)
     members.flush()
     del members
-    return path, y, counts
+    return path, y, folder / "counts.npy"
 
 
 @pytest.fixture(scope="module")
@@ -93,10 +94,10 @@ def test_memory_mapped_matrix_larger_than_a_worker(on_disk, small_workers):
 def test_out_of_bag_of_a_matrix_larger_than_a_worker(on_disk, small_workers):
     path, y, counts = on_disk
     before = _pids(small_workers)
-    result = bagwise.out_of_bag(np.load(path, mmap_mode="r"), counts, y)
+    result = bagwise.out_of_bag(np.load(path, mmap_mode="r"), np.load(counts, mmap_mode="r"), y)
     # Reference: the in-memory path of the same function, on the same file read through
     # numpy's memory map in this process.
-    expected = bagwise.out_of_bag(np.asarray(np.load(path, mmap_mode="r")), counts, y)
+    expected = bagwise.out_of_bag(np.asarray(np.load(path, mmap_mode="r")), np.load(counts), y)
     np.testing.assert_allclose(result.ensemble_loss, expected.ensemble_loss, rtol=1e-12)
     np.testing.assert_allclose(result.curve, expected.curve, rtol=1e-12)
     np.testing.assert_array_equal(result.prediction, expected.prediction)

@@ -96,35 +96,40 @@ def _read_points(path, offset, dtype, shape, axis, start, stop):
     return np.array(whole[tuple(index)])
 
 
-def _from_memmap(value, path, offset, axis):
+def _from_memmap(value, path, offset, axis, chunks=None):
     """A dask array over a memory-mapped file, each chunk read from the file on its worker
-    (the last axis is the points for a 1-D array, axis 1 for members)."""
+    (the last axis is the points for a 1-D array, axis 1 for members). ``chunks`` (points
+    per chunk) reads it directly in another array's chunks, without a rechunk."""
     import dask
     import dask.array as da
 
-    row_bytes = value.itemsize * (value.size // max(value.shape[axis], 1))
-    step = max(1, MEMMAP_CHUNK_BYTES // max(row_bytes, 1))
+    if chunks is None:
+        row_bytes = value.itemsize * (value.size // max(value.shape[axis], 1))
+        step = max(1, MEMMAP_CHUNK_BYTES // max(row_bytes, 1))
+        chunks = [min(step, value.shape[axis] - start)
+                  for start in range(0, value.shape[axis], step)]
+    bounds = np.cumsum([0, *chunks])
     blocks = []
-    for start in range(0, value.shape[axis], step):
-        stop = min(start + step, value.shape[axis])
+    for start, stop in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True):
         shape = list(value.shape)
         shape[axis] = stop - start
-        chunk = dask.delayed(_read_points, pure=True)(path, offset, value.dtype, value.shape,
+        chunk = dask.delayed(_read_points, pure=False)(path, offset, value.dtype, value.shape,
                                                       axis, start, stop)
         blocks.append(da.from_delayed(chunk, shape=tuple(shape), dtype=value.dtype))
     return da.concatenate(blocks, axis=axis)
 
 
-def as_dask(value, name: str, point_axis: int | None = None):
+def as_dask(value, name: str, point_axis: int | None = None, chunks=None):
     """``value`` as a dask array (a zarr array read lazily; a DataFrame by its partitions,
     with their lengths computed so the point chunks are known; a memory-mapped file split
-    along ``point_axis`` into chunks its workers read themselves)."""
+    along ``point_axis`` into chunks its workers read themselves, ``chunks`` points each
+    when given)."""
     import dask.array as da
 
     source = _memmap_file(value)
     if source is not None:
         axis = point_axis if point_axis is not None else min(1, value.ndim - 1)
-        return _from_memmap(value, *source, axis)
+        return _from_memmap(value, *source, axis, chunks)
     module = (type(value).__module__ or "").split(".")[0]
     if module == "zarr":
         return da.from_zarr(value)
@@ -173,7 +178,9 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
         if value is None or axis is None:
             columns.append([value] * len(reference))
             continue
-        array = as_dask(value, name, axis) if is_lazy(value) else np.asarray(value)
+        same_points = _memmap_file(value) is not None and value.shape[axis] == n_points
+        array = (as_dask(value, name, axis, reference if same_points else None)
+                 if is_lazy(value) else np.asarray(value))
         if array.shape[axis] != n_points:
             raise ValueError(f"`{name}`: has {array.shape[axis]:,} points along axis {axis} "
                              f"but the other arrays {n_points:,}")
@@ -235,11 +242,10 @@ def _in_chunk(function: Callable[..., Any], start: int | None) -> Callable[..., 
 
 
 def _merged(left, right):
-    # Streams merge in place; merging a copy keeps each task's input unchanged, so a task
-    # the scheduler runs again (after a lost worker) cannot count points twice.
-    import pickle
-
-    return pickle.loads(pickle.dumps(left)).merge(right)
+    # Streams merge in place, without a copy (a state of per-point parts can be most of a
+    # worker's memory). Safe: each state feeds exactly one merge, and a merge whose worker
+    # is lost loses its in-place input with it, so both are recomputed from their chunks.
+    return left.merge(right)
 
 
 def _shared(whole: Sequence[Any]) -> list[Any]:
@@ -268,20 +274,43 @@ def reduce_streams(start: Callable[..., Any], update: Callable[..., Any],
     n_whole = len(whole)
 
     def chunk_state(*args):
-        return update(start(*args[:n_whole]), *args[n_whole:])
+        return _split_parts(update(start(*args[:n_whole]), *args[n_whole:]))
 
     shared = _shared(whole)
     starts = starts or [None] * len(blocks)
-    states = [dask.delayed(_in_chunk(chunk_state, first), pure=True)(*shared, *chunk)
-              for chunk, first in zip(blocks, starts, strict=True)]
+    split = [dask.delayed(_in_chunk(chunk_state, first), pure=False, nout=2)(*shared, *chunk)
+             for chunk, first in zip(blocks, starts, strict=True)]
+    states = [state for state, _ in split]
     while len(states) > 1:
-        paired = [dask.delayed(_merged, pure=True)(states[i], states[i + 1])
+        paired = [dask.delayed(_merged, pure=False)(states[i], states[i + 1])
                   for i in range(0, len(states) - 1, 2)]
         if len(states) % 2:
             paired.append(states[-1])
         states = paired
-    (stream,) = dask.compute(states[0])
+    stream, *parts = dask.compute(states[0], *[chunk_parts for _, chunk_parts in split])
+    if parts and parts[0] is not None:
+        stream._parts = [part for chunk_parts in parts for part in chunk_parts]
     return stream
+
+
+def _split_parts(stream) -> tuple[Any, list | None]:
+    """A chunk's stream without its per-point parts, and the parts: the parts come back to
+    the client chunk by chunk (O(points of one chunk) each), so the merge tree carries only
+    the O(members) state, never the per-point arrays of many chunks on one worker. The
+    stream keeps an empty-rowed copy of its first part, so merges still see its columns."""
+    parts = getattr(stream, "_parts", None)
+    if not isinstance(parts, list) or not parts:
+        return stream, None
+    stream._parts = [_no_rows(parts[0])]
+    return stream, parts
+
+
+def _no_rows(part):
+    if isinstance(part, np.ndarray):
+        return part[:0]
+    if isinstance(part, tuple):
+        return tuple(_no_rows(item) for item in part)
+    return part
 
 
 def map_points(compute: Callable[..., Any], blocks: list[list[Any]],
@@ -292,7 +321,7 @@ def map_points(compute: Callable[..., Any], blocks: list[list[Any]],
 
     shared = _shared(whole)
     starts = starts or [None] * len(blocks)
-    return list(dask.compute(*[dask.delayed(_in_chunk(compute, first), pure=True)(*shared, *chunk)
+    return list(dask.compute(*[dask.delayed(_in_chunk(compute, first), pure=False)(*shared, *chunk)
                                for chunk, first in zip(blocks, starts, strict=True)]))
 
 

@@ -174,7 +174,7 @@ def lazy_points(X, predictor, what: str, leading: tuple, trailing: tuple, dtype,
     parts, lengths = _point_parts(X, frame)
     model = _model_key(predictor, scattered)
     blocks = [
-        da.from_delayed(dask.delayed(_predict_block, pure=True)(model, what, part),
+        da.from_delayed(dask.delayed(_predict_block, pure=False)(model, what, part),
                         shape=leading + (n,) + trailing, dtype=dtype)
         for part, n in zip(parts, lengths, strict=True)
     ]
@@ -243,10 +243,10 @@ def _training_rows(client, X, frame: bool):
     if not is_lazy(X):
         return client.scatter(X, broadcast=True)
     if frame and _is_frame(X):
-        joined = dask.delayed(_concat_frames, pure=True)(list(X.to_delayed()))
+        joined = dask.delayed(_concat_frames, pure=False)(list(X.to_delayed()))
     else:
         array = X.rechunk({1: -1})
-        joined = dask.delayed(_concat_rows, pure=True)(list(np.ravel(array.to_delayed())))
+        joined = dask.delayed(_concat_rows, pure=False)(list(np.ravel(array.to_delayed())))
     return client.compute(joined)
 
 

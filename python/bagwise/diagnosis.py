@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 
+from . import _chunked
 from ._display import html_block, safe_html, text_block
 from ._members import in_bag_counts, members_array, targets
 from ._results import Result, check_tolerance
@@ -43,8 +44,49 @@ def _array(value, name):
         raise TypeError(f"`{name}`: expected an array, got {type(value).__name__} ({err})") from None
 
 
+def _members_of(value, name: str) -> tuple[str, Any]:
+    """``(kind, array)`` of members in memory (`members_array`) or lazy: then a dask array
+    (points on axis 1) whose kind is read from its dtype and shape, nothing computed."""
+    if not _chunked.is_lazy(value):
+        return members_array(value, name)
+    array = _chunked.as_dask(_chunked.point_major(value, name), name, 1)
+    if array.ndim in (2, 3) and 0 in array.shape:
+        raise ValueError(f"`{name}`: has an empty axis, shape {array.shape}")
+    stand_in = np.zeros((array.shape[0], 1, *array.shape[2:]), dtype=array.dtype)
+    kind, _ = members_array(stand_in, name)
+    return kind, array
+
+
+def _in_memory(value, name: str):
+    """A lazy per-point argument (targets, a reference) computed here: O(points), as the
+    per-point results a diagnosis holds."""
+    if value is None or not _chunked.is_lazy(value):
+        return value
+    import dask
+
+    return np.asarray(dask.compute(_chunked.as_dask(value, name))[0])
+
+
+def _lazy_counts_iv(counts, n_members: int, n_rows: int | None):
+    """Shape and dtype checks of lazy ``counts``; their values are checked chunk by chunk
+    where they live, by the sections that read them."""
+    counts = _chunked.as_dask(_chunked.point_major(counts, "counts"), "counts", 1)
+    if counts.ndim != 2 or counts.shape[0] != n_members:
+        raise ValueError(f"`counts`: expected ({n_members}, n_rows) (one row per member of "
+                         f"`members`), got shape {counts.shape}")
+    if n_rows is not None and counts.shape[1] != n_rows:
+        raise ValueError(f"`counts`: has {counts.shape[1]:,} rows but `train_members` has "
+                         f"{n_rows:,}")
+    if counts.dtype.kind not in "iu":
+        raise TypeError(f"`counts`: in-bag counts are non-negative integers, got dtype "
+                        f"{counts.dtype}")
+    return counts
+
+
 def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_jobs):
-    kind, members = members_array(members)
+    y, y_train, reference = (_in_memory(y, "y"), _in_memory(y_train, "y_train"),
+                             _in_memory(reference, "reference"))
+    kind, members = _members_of(members, "members")
     n_members, n_points = members.shape[:2]
     if n_members < 2:
         raise ValueError(f"`members`: a diagnosis needs at least 2 members, got {n_members}")
@@ -57,17 +99,22 @@ def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_
     if train_members is not None:
         if counts is None:
             raise ValueError("`counts`: `train_members` needs the in-bag counts they were fit with")
-        train_members = _array(train_members, "train_members")
+        train_members = (_chunked.as_dask(_chunked.point_major(train_members, "train_members"),
+                                          "train_members", 1)
+                         if _chunked.is_lazy(train_members)
+                         else _array(train_members, "train_members"))
         if train_members.ndim < 2 or train_members.shape[0] != n_members:
             raise ValueError(f"`train_members`: expected ({n_members}, n_rows, ...) (one row per "
                              f"member of `members`), got {train_members.shape}")
         n_rows = train_members.shape[1]
-    if counts is not None:
+    if counts is not None and _chunked.is_lazy(counts):
+        counts = _lazy_counts_iv(counts, n_members, n_rows)
+    elif counts is not None:
         # Members from `members`; training rows from `train_members` when given.
         counts = in_bag_counts(counts, n_members=n_members, n_rows=n_rows,
                                rows_from="train_members")
     if train_members is not None:
-        train_kind, _ = members_array(train_members, "train_members")
+        train_kind, train_members = _members_of(train_members, "train_members")
         if train_kind != kind:
             raise ValueError(f"`train_members`: holds {train_kind} but `members` holds {kind}")
     if reference is not None:

@@ -533,12 +533,12 @@ def _lazy_prediction_interval(members, counts, train_members, y_train, *, level,
     level, method = _options_iv(level, method, classes)
     training_arrays = (counts, train_members, y_train)
     if any(_chunked.is_lazy(value) for value in training_arrays):
-        training = dask.delayed(_training_iv, pure=True)(
+        training = dask.delayed(_training_iv, pure=False)(
             dtype, array.shape,
             *(_chunked.as_dask(v, name) if _chunked.is_lazy(v) else v
               for v, name in zip(training_arrays, ("counts", "train_members", "y_train"),
                                  strict=True)))
-        shared = dask.delayed(_bundle, pure=True)(training, level, method, n_jobs_value(n_jobs))
+        shared = dask.delayed(_bundle, pure=False)(training, level, method, n_jobs_value(n_jobs))
     else:
         training = _training_iv(dtype, array.shape, *training_arrays)
         shared = _chunked.shared((training, level, method, n_jobs_value(n_jobs)))

@@ -47,9 +47,26 @@ class Inputs:
         if self.kind == "labels":
             return None
         if self.kind == "probabilities":
+            if not isinstance(self.members, np.ndarray):
+                return _observed_lazy(self.members, self.y), np.ones(self.members.shape[1])
             observed = self.members[:, np.arange(self.members.shape[1]), self.y]
             return observed, np.ones(self.members.shape[1])
         return self.members, self.y
+
+
+def _observed(members: np.ndarray, y: np.ndarray) -> np.ndarray:
+    return members[:, np.arange(members.shape[1]), y]
+
+
+def _observed_lazy(members, y: np.ndarray):
+    """`Inputs.one_value`'s observed-class probabilities of lazy members, chunk by chunk
+    where the chunks live (a dask array (members, n_points))."""
+    import dask.array as da
+
+    members = members.rechunk({0: -1, 2: -1})
+    targets = da.from_array(y, chunks=(members.chunks[1],))
+    return da.blockwise(_observed, "ij", members, "ijk", targets, "j", concatenate=True,
+                        dtype=members.dtype)
 
 
 @dataclasses.dataclass(frozen=True)
