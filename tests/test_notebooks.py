@@ -219,3 +219,23 @@ def test_05_foreign_ensemble_matches_scikit_learn(tmp_path_factory):
     within_1 = _numbers(text, r"members within 1% of an infinite ensemble: (\d+)")[0]
     assert within_5 <= within_1
     assert _numbers(text, r"median correction share\s+([\d.]+)%")[0] < 50
+
+
+def test_06_cluster_gives_the_one_machine_answers(tmp_path_factory):
+    nb = _run("06_more_than_one_machine.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    assert _numbers(text, r"(\d+) workers")[0] == 2
+    # Reference: the same calls in memory, in the notebook itself (numpy.array_equal for
+    # the fitted members and counts; the in-memory diagnosis for the lazy one).
+    assert "identical member predictions: True" in text
+    assert "identical in-bag counts: True" in text
+    chunks = re.search(r"chunks along the points \(([\d, ]+)\)", text).group(1)
+    assert [int(c) for c in chunks.split(",")] == [250, 250, 250, 250]
+    on_cluster, in_memory, gap = _numbers(
+        text, r"ensemble loss ([\d.]+) on the cluster, ([\d.]+) in memory \(relative "
+              r"difference ([\d.e+-]+)\)")
+    assert gap <= 1e-12 and on_cluster == in_memory
+    assert "same readings: True" in text
+    assert "warnings: 2, the same text: True" in text
+    from_file, in_memory = _numbers(text, r"ambiguity from the file ([\d.]+), in memory ([\d.]+)")
+    assert from_file == in_memory

@@ -178,9 +178,12 @@ def aligned_blocks(arrays: Sequence[tuple[Any, str, int | None]]) -> list[list[A
         if value is None or axis is None:
             columns.append([value] * len(reference))
             continue
-        same_points = _memmap_file(value) is not None and value.shape[axis] == n_points
-        array = (as_dask(value, name, axis, reference if same_points else None)
-                 if is_lazy(value) else np.asarray(value))
+        source = _memmap_file(value) if is_lazy(value) else None
+        if source is not None and value.shape[axis] == n_points:
+            columns.append(_file_slices(value, *source, axis,
+                                        np.cumsum((0,) + tuple(reference))))
+            continue
+        array = as_dask(value, name, axis) if is_lazy(value) else np.asarray(value)
         if array.shape[axis] != n_points:
             raise ValueError(f"`{name}`: has {array.shape[axis]:,} points along axis {axis} "
                              f"but the other arrays {n_points:,}")
@@ -222,14 +225,32 @@ def point_starts(arrays: Sequence[tuple[Any, str, int | None]]) -> list[int]:
 _NUMBERED = re.compile(r"\b(point|row) (\d+)")
 
 
+class _FileSlice:
+    """A chunk of a memory-mapped file, read by the task that uses it: the read is part of
+    that task, so a chunk is never read by one worker and sent to another."""
+
+    def __init__(self, path, offset, dtype, shape, axis, start, stop):
+        self.where = (path, offset, dtype, shape, axis, start, stop)
+
+    def read(self) -> np.ndarray:
+        return _read_points(*self.where)
+
+
+def _file_slices(value, path, offset, axis, bounds) -> list[_FileSlice]:
+    return [_FileSlice(path, offset, value.dtype, value.shape, axis, lo, hi)
+            for lo, hi in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True)]
+
+
 def _in_chunk(function: Callable[..., Any], start: int | None) -> Callable[..., Any]:
-    """``function`` whose ValueError / TypeError / OverflowError messages number points
-    from the first point of all chunks rather than of its chunk (``start`` added to every
-    "point N" / "row N"), so a chunk reports bad input as the in-memory call does."""
-    if not start:
-        return function
+    """``function`` that reads its `_FileSlice` arguments first, and whose ValueError /
+    TypeError / OverflowError messages number points from the first point of all chunks
+    rather than of its chunk (``start`` added to every "point N" / "row N"), so a chunk
+    reports bad input as the in-memory call does."""
 
     def shifted(*args):
+        args = [arg.read() if isinstance(arg, _FileSlice) else arg for arg in args]
+        if not start:
+            return function(*args)
         try:
             return function(*args)
         except (ValueError, TypeError, OverflowError) as error:
