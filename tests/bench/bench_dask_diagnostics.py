@@ -32,6 +32,9 @@ BLOCK = 250_000
 
 
 def write(folder):
+    targets = os.path.join(folder, "y.npy")
+    if os.path.exists(targets) and os.path.exists(os.path.join(folder, "counts.npy")):
+        return np.load(targets)             # written by an earlier run into this folder
     rng = np.random.default_rng(7)
     y = rng.normal(size=N_POINTS)
     members = np.lib.format.open_memmap(os.path.join(folder, "members.npy"), mode="w+",
@@ -46,6 +49,7 @@ def write(folder):
         counts[:, start:stop] = block
     members.flush()
     counts.flush()
+    np.save(targets, y)
     return y
 
 
@@ -80,6 +84,8 @@ def on_cluster(folder, y):
                       dashboard_address=":0") as cluster, Client(cluster):
         members = np.load(os.path.join(folder, "members.npy"), mmap_mode="r")
         counts = np.load(os.path.join(folder, "counts.npy"), mmap_mode="r")
+        # One untimed run first: the workers import bagwise and map the file once.
+        bagwise.decompose(members, y)
         start = time.perf_counter()
         decomposition = bagwise.decompose(members, y)
         timings["decompose"] = time.perf_counter() - start
