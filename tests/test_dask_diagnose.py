@@ -8,11 +8,11 @@ relative; a section's per-point arrays are compared where they exist.
 
 from __future__ import annotations
 
-import pickle
 import warnings
 
 import numpy as np
 import pytest
+from _lazy import record_client_results
 
 import bagwise
 
@@ -129,21 +129,8 @@ def test_diagnose_gathers_no_chunk(monkeypatch):
     returns as much as one chunk of members (40 × 200 × 8 = 64,000 bytes) plus the
     per-point results of all 400 points (a handful of float64 arrays)."""
     test, y, counts, train, y_train = _arrays()
-    returned = []
-    compute = dask.compute
-
-    def recording(*args, **kwargs):
-        out = compute(*args, **kwargs)
-        returned.append(len(pickle.dumps(out)))
-        return out
-
-    def refuse(*args, **kwargs):
-        raise AssertionError("a lazy array was gathered to the client")
-
     lazy_test = _lazy(test, 200)
-    monkeypatch.setattr(dask, "compute", recording)
-    monkeypatch.setattr(da.Array, "__array__", refuse)
-    monkeypatch.setattr(da.Array, "compute", refuse)
+    returned = record_client_results(monkeypatch)
     _quiet(bagwise.diagnose, lazy_test, y, counts=_lazy(counts, 150),
            train_members=_lazy(train, 150), y_train=y_train)
     assert returned

@@ -19,6 +19,7 @@ import warnings
 
 import numpy as np
 import pytest
+from _lazy import record_client_results
 
 import bagwise
 from bagwise import _core
@@ -496,20 +497,7 @@ def test_only_states_come_back(monkeypatch):
     m, n = 20, 20_000
     members, y = _values(n=n, m=m)
     labels, labels_y = _labels(n=n, m=m)
-    returned = []
-    compute = dask.compute
-
-    def recording(*args, **kwargs):
-        out = compute(*args, **kwargs)
-        returned.append(len(pickle.dumps(out)))
-        return out
-
-    def refuse(*args, **kwargs):
-        raise AssertionError("a lazy array was gathered to the client")
-
-    monkeypatch.setattr(dask, "compute", recording)
-    monkeypatch.setattr(da.Array, "__array__", refuse)
-    monkeypatch.setattr(da.Array, "compute", refuse)
+    returned = record_client_results(monkeypatch)
     lazy = da.from_array(members, chunks=(m, 2_000))
     lazy_labels = da.from_array(labels, chunks=(m, 2_000))
     lazy_y = da.from_array(y, chunks=3_000)
