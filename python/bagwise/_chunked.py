@@ -3,15 +3,18 @@ mergeable stream over chunks of points and reduces the states where the chunks l
 
 Every diagnostic that accepts a lazy ``members`` array goes through `reduce_streams` (a
 statistic of all points: each chunk is turned into a stream state on the worker that holds
-it, the states are merged pairwise in point order, and only the final state comes back) or
+it, the states are merged pairwise in point order, and only the final state comes back; a
+stream's per-point parts come back chunk by chunk instead of riding the merge tree) or
 `map_points` (a per-point result: each chunk's per-point arrays come back and are joined in
 point order). No chunk of the inputs is gathered to the client; what travels is a chunk's
 state (or its per-point results) and, where a family needs one, a broadcast of O(members²)
 or O(members × rows).
 
 The scheduler is dask's current one: a ``dask.distributed.Client`` when one is active, the
-threaded scheduler otherwise (a memory-mapped or zarr array on one machine then streams chunk
-by chunk). dask is imported only when a lazy input is met.
+threaded scheduler otherwise (a zarr array on one machine then streams chunk by chunk). A
+memory-mapped file is lazy only while a client is active (each task reads its own chunk
+from the file); without one it goes to the core as it is, which reads it through the map.
+dask is imported only when a lazy input is met.
 """
 
 from __future__ import annotations
