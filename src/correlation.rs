@@ -124,26 +124,50 @@ pub fn residual_correlation<T: Real>(
         Ok(())
     };
     for_chunks(chunks, &mut no_slots(chunks), pool, monitor, work, merge)?;
-    let constant_members: Vec<usize> = (0..m).filter(|&b| constant[b]).collect();
-    let k = (m - constant_members.len()) as f64;
-    let pairs = (m as f64) * (m as f64 - 1.0);
-    let mean_residual_covariance = if m > 1 {
-        (plain.variance(1) - variance.iter().sum::<f64>()) / pairs
-    } else {
-        f64::NAN
-    };
-    let mean_residual_correlation = if k >= 2.0 {
-        (standard.variance(1) - k) / (k * (k - 1.0))
-    } else {
-        f64::NAN
-    };
-    Ok(ResidualCorrelation {
-        mean_residual_variance: variance.iter().sum::<f64>() / m as f64,
-        residual_variance: variance,
-        mean_residual_covariance,
-        mean_residual_correlation,
-        constant_members,
-    })
+    let k = constant.iter().filter(|&&c| !c).count() as f64;
+    // The variance of a sum is the sum of every (ordered) covariance.
+    let ordered_covariance = plain.variance(1) - variance.iter().sum::<f64>();
+    let ordered_correlation = standard.variance(1) - k;
+    Ok(ResidualCorrelation::from_pair_sums(
+        variance,
+        ordered_covariance,
+        ordered_correlation,
+        &constant,
+    ))
+}
+
+impl ResidualCorrelation {
+    /// The result from each member's residual variance and the sums, over ordered pairs of
+    /// different members, of their residual covariance and (non-constant members only)
+    /// correlation: the one finish of the two-pass routine and of `CorrelationState`.
+    fn from_pair_sums(
+        variance: Vec<f64>,
+        ordered_covariance: f64,
+        ordered_correlation: f64,
+        constant: &[bool],
+    ) -> Self {
+        let m = variance.len();
+        let constant_members: Vec<usize> = (0..m).filter(|&b| constant[b]).collect();
+        let k = (m - constant_members.len()) as f64;
+        let pairs = (m as f64) * (m as f64 - 1.0);
+        let mean_residual_covariance = if m > 1 {
+            ordered_covariance / pairs
+        } else {
+            f64::NAN
+        };
+        let mean_residual_correlation = if k >= 2.0 {
+            ordered_correlation / (k * (k - 1.0))
+        } else {
+            f64::NAN
+        };
+        ResidualCorrelation {
+            mean_residual_variance: variance.iter().sum::<f64>() / m as f64,
+            residual_variance: variance,
+            mean_residual_covariance,
+            mean_residual_correlation,
+            constant_members,
+        }
+    }
 }
 
 /// A residual is constant when its spread is within rounding of the values it came from:
@@ -582,27 +606,13 @@ impl MergeableState for CorrelationState {
                 }
             }
         }
-        let constant_members: Vec<usize> = (0..m).filter(|&b| constant[b]).collect();
-        let k = (m - constant_members.len()) as f64;
-        let pairs = (m as f64) * (m as f64 - 1.0);
         // Every unordered pair counts twice among the ordered pairs a ≠ b.
-        let mean_residual_covariance = if m > 1 {
-            2.0 * covariance / (n - 1.0) / pairs
-        } else {
-            f64::NAN
-        };
-        let mean_residual_correlation = if k >= 2.0 {
-            2.0 * correlation / (k * (k - 1.0))
-        } else {
-            f64::NAN
-        };
-        Ok(ResidualCorrelation {
-            mean_residual_variance: variance.iter().sum::<f64>() / m as f64,
-            residual_variance: variance,
-            mean_residual_covariance,
-            mean_residual_correlation,
-            constant_members,
-        })
+        Ok(ResidualCorrelation::from_pair_sums(
+            variance,
+            2.0 * covariance / (n - 1.0),
+            2.0 * correlation,
+            &constant,
+        ))
     }
 }
 
