@@ -6,13 +6,14 @@
 #   make lint    cargo fmt --check, clippy -D warnings, ruff
 #   make bench   release build, then the benchmarks under tests/bench/
 #   make dev     fast incremental rebuild for the edit loop
+#   make soak    release build, then 1,000 calls of every main entry point (RSS, threads, files)
 
 PYTHON ?= python3
 VENV   ?= .venv
 PY     := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
 
-.PHONY: demo test lint bench dev install install-test clean
+.PHONY: demo test lint bench dev install install-test clean soak
 
 $(VENV)/created:
 	@echo "creating $(VENV)"
@@ -51,6 +52,9 @@ bench: install
 	@set -e; for script in tests/bench/bench_*.py; do \
 		echo "== $$script"; $(PY) $$script; \
 	done
+
+soak: install
+	$(PY) tests/bench/soak.py
 
 clean:
 	rm -rf $(VENV) target
