@@ -1218,11 +1218,16 @@ mod tests {
         // node, at every depth, is uniform on the 5 features whatever the signal.
         // Chi-square per depth at p > 1e-3 (false failure 0.1% per depth by construction;
         // pass rate over 200 seeds: the ignored test below, run by
-        // `cargo test --release candidate_feature -- --ignored`).
+        // `cargo test candidate_feature_pass_rate -- --ignored`).
         let counts = node_features_by_depth(1, 600);
+        assert_eq!(counts[0].iter().sum::<usize>(), 600);
         for (depth, observed) in counts.iter().enumerate() {
-            assert_eq!(observed.iter().sum::<usize>(), 600 << depth);
-            assert!(uniform_p_value(observed) > 1e-3, "depth {depth}: {observed:?}");
+            // a lone candidate may cut off a single row, which is not split again
+            assert!(observed.iter().sum::<usize>() > 500 << depth);
+            assert!(
+                uniform_p_value(observed) > 1e-3,
+                "depth {depth}: {observed:?}"
+            );
         }
         // The check can fail: "always the first feature" and a one-in-ten bias towards
         // feature 0 over 1,200 nodes are rejected.
@@ -1232,7 +1237,7 @@ mod tests {
     }
 
     #[test]
-    #[ignore = "pass rate over 200 seeds; run with --release --ignored"]
+    #[ignore = "pass rate over 200 seeds (minutes); run with --ignored"]
     fn candidate_feature_pass_rate() {
         let passed = (1000..1200)
             .filter(|&seed| {
