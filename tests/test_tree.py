@@ -587,10 +587,13 @@ def test_candidate_split_features_are_a_uniform_choice(k):
     # Random subspaces (Breiman 2001; Ho 1998): each node tries k features chosen uniformly
     # without replacement among the p features. With k = 1 the root feature is uniform on
     # the 5 features; with k > 1 the strongest candidate wins, so its strength rank follows
-    # candidate_law. Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py (>= 99.5%
-    # for each k). Wrong samplers: "first k features" and "always includes feature 0" fail
-    # on every seed; "with replacement" equals the right law for k = 1 and fails for
-    # k = 2, 3 (the weakest feature wins whenever it is drawn k times).
+    # candidate_law. Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100% for
+    # each k (0.1% expected by construction). Wrong samplers: "first k features" and
+    # "always includes feature 0" fail on every seed; "with replacement" is the right law
+    # for k = 1 (passes 99.5%) and fails on every seed for k = 2, 3 (the weakest feature
+    # wins whenever it is drawn k times, a cell of probability 0). Every node, not only
+    # the root: the Rust test the_candidate_feature_at_every_node_is_uniform (199 of 200
+    # seeds pass).
     x, y = root_data()
     assert sorted(strength_ranks(x, y)) == list(range(5))
     right, wrong = candidate_features_check(seed=7, k=k)
