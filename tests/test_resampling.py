@@ -88,9 +88,10 @@ def one_row_binomial_check(seed, n=50, members=20000, row=7):
 
 
 def test_counts_of_one_row_are_binomial():
-    # N_i ~ Binomial(n, 1/n) (Efron & Tibshirani 1993). Pass rate over 200 seeds: see
-    # tests/bench/suite_a_pass_rate.py (>= 99.5%); the wrong variant with 5% fewer draws
-    # fails on every seed.
+    # N_i ~ Binomial(n, 1/n) (Efron & Tibshirani 1993). Pass rate over 200 seeds
+    # (tests/bench/suite_a_pass_rate.py): 100% (0.1% expected by construction). The wrong
+    # variant with 10% fewer draws fails on every seed; 5% fewer draws still passes on 5%
+    # of seeds, the edge of what 20,000 members resolve.
     right, wrong = one_row_binomial_check(3)
     assert right and not any(wrong.values()), wrong
 
@@ -132,9 +133,9 @@ def multinomial_check(seed, n=20, members=40000):
 
 
 def test_counts_are_multinomial_across_rows():
-    # Pass rate over 200 seeds: >= 99.5% (tests/bench/suite_a_pass_rate.py; Bonferroni
-    # bound 99.9%). Each wrong sampler fails on every seed; the smallest it catches is one
-    # draw in twenty missing (the diagonal moves by 0.0475, 25 standard errors).
+    # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100% (Bonferroni bound
+    # 99.9%). Each wrong sampler fails on every seed; the smallest it catches is one draw
+    # in twenty missing (each variance moves by 0.0475, about 5.5 standard errors).
     right, wrong = multinomial_check(5)
     assert right, "bagwise bootstrap counts"
     for name, passed in wrong.items():
