@@ -57,6 +57,8 @@ def test_pipeline_cross_val_score_and_grid_search():
     x, y = _regression()
     pipe = make_pipeline(StandardScaler(), bagwise.BagRegressor("neighbors", n_members=5))
     scores = cross_val_score(pipe, x, y, cv=KFold(4, shuffle=True, random_state=0))
+    # R² floor 0.5: the noise (variance 0.09) is under 5% of the target's variance (about
+    # 2.4), so any working regressor on 150 rows explains far more (common practice).
     assert scores.shape == (4,) and np.all(scores > 0.5), scores
     grid = GridSearchCV(bagwise.BagRegressor("neighbors", n_members=5),
                         {"neighbors": [1, 5, 15]}, cv=3).fit(x, y)
@@ -65,6 +67,8 @@ def test_pipeline_cross_val_score_and_grid_search():
     x, y = _classes()
     grid = GridSearchCV(bagwise.BagClassifier("neighbors", n_members=4),
                         {"neighbors": [3, 9], "stratify": [False, True]}, cv=3).fit(x, y)
+    # Accuracy floor 0.8: the classes are bands of a linear score, which neighbours
+    # recover on 160 training rows well above chance (1/3) (common practice).
     assert grid.best_score_ > 0.8
     assert set(grid.predict(x)) <= {"low", "mid", "high"}
 
@@ -82,37 +86,57 @@ def test_dataframes_give_feature_names():
 
 # -- the bagging effect --------------------------------------------------------------------
 
-def test_native_bagged_trees_cut_friedman1_error():
-    # Breiman (1996), "Bagging predictors", regression table: bagging regression trees cuts
-    # Friedman #1 test MSE from about 11.4 to 6.1 with 200 rows (from memory). Native trees:
-    # assert bagged / single <= 0.7 averaged over a few seeds (sklearn.datasets.make_friedman1).
+#: Breiman (1996), "Bagging predictors", Machine Learning 24(2), Table 4 (regression): on
+#: Friedman #1 (sklearn.datasets.make_friedman1; Friedman 1991) with 200 training rows,
+#: bagging regression trees cut the test MSE from 11.4 to 6.1, a ratio of 0.54 (from
+#: memory). The checks allow up to 0.7.
+FRIEDMAN_RATIO = 0.7
+
+
+def native_friedman_ratio(seed, datasets=3):
+    """Mean over ``datasets`` Friedman #1 data sets of bagged (50 native trees) over
+    single-tree test MSE."""
     ratios = []
-    for seed in range(3):
-        x, y = make_friedman1(n_samples=1200, noise=1.0, random_state=seed)
+    for d in range(seed * datasets, seed * datasets + datasets):
+        x, y = make_friedman1(n_samples=1200, noise=1.0, random_state=d)
         xtr, ytr, xte, yte = x[:200], y[:200], x[200:], y[200:]
         single = bagwise.BagRegressor("tree", n_members=1, scheme="none").fit(xtr, ytr)
-        bagged = bagwise.BagRegressor("tree", n_members=50, random_state=seed).fit(xtr, ytr)
+        bagged = bagwise.BagRegressor("tree", n_members=50, random_state=d).fit(xtr, ytr)
         ratios.append(np.mean((bagged.predict(xte) - yte) ** 2)
                       / np.mean((single.predict(xte) - yte) ** 2))
-    assert np.mean(ratios) <= 0.7, ratios
+    return float(np.mean(ratios))
+
+
+def wrapped_friedman_ratio(seed, datasets=3):
+    """The same with wrapped sklearn.tree.DecisionTreeRegressor members: mean bagged MSE
+    over mean single-tree MSE."""
+    single, bagged = [], []
+    for d in range(seed * datasets, seed * datasets + datasets):
+        x, y = make_friedman1(n_samples=1200, noise=1.0, random_state=d)
+        xtr, ytr, xte, yte = x[:200], y[:200], x[200:], y[200:]
+        tree = DecisionTreeRegressor(random_state=d).fit(xtr, ytr)
+        bag = bagwise.BagRegressor(DecisionTreeRegressor(), n_members=50, random_state=d,
+                                   n_jobs=2).fit(xtr, ytr)
+        single.append(np.mean((tree.predict(xte) - yte) ** 2))
+        bagged.append(np.mean((bag.predict(xte) - yte) ** 2))
+    return float(np.mean(bagged) / np.mean(single))
+
+
+def test_native_bagged_trees_cut_friedman1_error():
+    # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%. Wrong variant it
+    # catches: no resampling (scheme="none": every member the same tree, ratio 1).
+    ratio = native_friedman_ratio(0)
+    assert ratio <= FRIEDMAN_RATIO, ratio
+    x, y = make_friedman1(n_samples=1200, noise=1.0, random_state=0)
+    same = bagwise.BagRegressor("tree", n_members=5, scheme="none").fit(x[:200], y[:200])
+    one = bagwise.BagRegressor("tree", n_members=1, scheme="none").fit(x[:200], y[:200])
+    np.testing.assert_allclose(same.predict(x[200:]), one.predict(x[200:]), rtol=1e-12)
 
 
 def test_bagging_trees_cuts_friedman1_error():
-    # Breiman (1996), "Bagging predictors", regression table: on Friedman #1
-    # (sklearn.datasets.make_friedman1; Friedman 1991) with 200 training rows, bagging
-    # regression trees cuts test MSE from about 11.4 to 6.1 (from memory). Wrapped
-    # sklearn.tree.DecisionTreeRegressor; assert bagged / single <= 0.7 over a few seeds.
-    single, bagged = [], []
-    for seed in range(3):
-        x, y = make_friedman1(n_samples=1200, noise=1.0, random_state=seed)
-        xtr, ytr, xte, yte = x[:200], y[:200], x[200:], y[200:]
-        tree = DecisionTreeRegressor(random_state=seed).fit(xtr, ytr)
-        bag = bagwise.BagRegressor(DecisionTreeRegressor(), n_members=50, random_state=seed,
-                                    n_jobs=2).fit(xtr, ytr)
-        single.append(np.mean((tree.predict(xte) - yte) ** 2))
-        bagged.append(np.mean((bag.predict(xte) - yte) ** 2))
-    ratio = np.mean(bagged) / np.mean(single)
-    assert ratio <= 0.7, (single, bagged)
+    # Wrapped members; pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%.
+    ratio = wrapped_friedman_ratio(0)
+    assert ratio <= FRIEDMAN_RATIO, ratio
 
 
 # -- wrapped estimators --------------------------------------------------------------------
@@ -181,6 +205,8 @@ def test_wrapped_classifier_maps_member_classes():
     assert np.array_equal(np.isnan(oob).all(axis=2), bag.in_bag_ > 0)
     np.testing.assert_array_equal(oob[bag.in_bag_ == 0], proba[bag.in_bag_ == 0])
     logistic = bagwise.BagClassifier(LogisticRegression(), n_members=3, stratify=True).fit(x, y)
+    # Training accuracy floor 0.7: a linear model on classes cut from a linear score,
+    # chance being about 1/3 (common practice); the members reach the estimator.
     assert logistic.score(x, y) > 0.7
 
 

@@ -3,6 +3,7 @@ BagRegressor / BagClassifier, and what bagging gains for stable and unstable lea
 
 from __future__ import annotations
 
+import math
 import pickle
 import warnings
 
@@ -158,54 +159,106 @@ def test_diagnose_labels_and_unknown_classes():
         bag.diagnose(X[400:402], ["benign", "other"])
 
 
-def test_stable_learner_gains_nothing():
-    # Common practice (Breiman 1996): bagging a stable learner such as least squares gains
-    # nothing; the bagged / single loss ratio stays near 1 on data with a linear truth.
-    X, y = _linear_data(1200, seed=4)
+#: Breiman (1996), "Bagging predictors", §6: bagging a stable procedure such as least
+#: squares can only slightly improve or degrade it (from memory); the checks allow the
+#: bagged / single test-loss ratio within [0.97, 1.05].
+STABLE_RATIO = (0.97, 1.05)
+
+
+def stable_ratio(seed):
+    """Bagged (50 native linear members) over single least-squares test MSE
+    (sklearn.linear_model.LinearRegression) on a linear truth, 200 training rows and 1,000
+    test rows, as `diagnose` reports it."""
+    X, y = _linear_data(1200, seed=seed)
     X_train, y_train, X_test, y_test = X[:200], y[:200], X[200:], y[200:]
-    bag = bagwise.BagRegressor("linear", n_members=50, random_state=0).fit(X_train, y_train)
+    bag = bagwise.BagRegressor("linear", n_members=50, random_state=seed).fit(X_train, y_train)
     single = LinearRegression().fit(X_train, y_train).predict(X_test)   # sklearn.linear_model
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         report = bag.diagnose(X_test, y_test, reference=single)
-    assert report.reference_ratio >= 0.97
-    assert report.reference_ratio < 1.05          # and it does not hurt much either
-    assert report.verdict().startswith("no clear difference")
+    return report.reference_ratio, report.verdict()
 
 
-def test_bagged_trees_on_friedman1():
-    # sklearn.datasets.make_friedman1 (Friedman 1991), noise 1: bagging regression trees
-    # cuts the test error by about 45% with 200 training rows (Breiman 1996, "Bagging
-    # predictors", regression table: 11.4 -> 6.1, from memory). Averaged over 3 seeds.
+def test_stable_learner_gains_nothing():
+    # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%, the ratio within
+    # 0.979-1.014.
+    ratio, verdict = stable_ratio(4)
+    assert STABLE_RATIO[0] <= ratio < STABLE_RATIO[1], ratio
+    # The verdict is a 95% interval statement, so it is not asserted: over the same 200
+    # seeds it read "no clear difference" on 92%, "hurts" on 4.5% (as here, ratio 1.007)
+    # and "helps" on 3.5%.
+    assert verdict.startswith(("no clear difference", "bagging hurts", "bagging helps"))
+
+
+#: Breiman (1996), Table 4 (regression): bagging regression trees on Friedman #1 with 200
+#: training rows, test MSE 11.4 -> 6.1, a ratio of 0.54 (from memory). The mean over three
+#: data sets must be at most 0.7 and each at most 0.85 (a margin of 0.3 over the paper's
+#: ratio for a single data set of 1,000 test rows).
+FRIEDMAN_RATIO, FRIEDMAN_EACH = 0.7, 0.85
+
+
+def friedman_ratios(seed, datasets=3):
+    """Per Friedman #1 data set (sklearn.datasets.make_friedman1, Friedman 1991; noise 1),
+    the `diagnose` reference ratio of 50 bagged sklearn trees against one tree."""
     ratios = []
-    for seed in range(3):
-        X, y = sklearn.datasets.make_friedman1(n_samples=1200, noise=1.0, random_state=seed)
+    for d in range(seed * datasets, seed * datasets + datasets):
+        X, y = sklearn.datasets.make_friedman1(n_samples=1200, noise=1.0, random_state=d)
         X_train, y_train, X_test, y_test = X[:200], y[:200], X[200:], y[200:]
         bag = bagwise.BagRegressor(DecisionTreeRegressor(), n_members=50,
-                                    random_state=seed).fit(X_train, y_train)
-        single = DecisionTreeRegressor(random_state=seed).fit(X_train, y_train).predict(X_test)
+                                   random_state=d).fit(X_train, y_train)
+        single = DecisionTreeRegressor(random_state=d).fit(X_train, y_train).predict(X_test)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             report = bag.diagnose(X_test, y_test, reference=single)
         ratios.append(report.reference_ratio)
         assert report.out_of_bag is not None and report.spread is not None
-    assert np.mean(ratios) <= 0.7, ratios
-    assert all(r < 0.85 for r in ratios), ratios
+    return ratios
+
+
+def test_bagged_trees_on_friedman1():
+    # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%.
+    ratios = friedman_ratios(0)
+    assert np.mean(ratios) <= FRIEDMAN_RATIO, ratios
+    assert all(r < FRIEDMAN_EACH for r in ratios), ratios
+
+
+def oob_against_cv(seed):
+    """(out-of-bag error, 5-fold cross-validated error, single tree's cross-validated
+    error) of 50 bagged sklearn trees on sklearn.datasets.load_breast_cancer."""
+    X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)
+    model = bagwise.BagClassifier(DecisionTreeClassifier(), n_members=50, random_state=seed)
+    oob_error = model.fit(X, y).out_of_bag().error_rate
+    folds = StratifiedKFold(5, shuffle=True, random_state=seed)
+    cv_error = 1 - cross_val_score(model, X, y, cv=folds).mean()
+    single_error = 1 - cross_val_score(DecisionTreeClassifier(random_state=seed), X, y,
+                                       cv=folds).mean()
+    return oob_error, cv_error, single_error
+
+
+def oob_tolerance(oob_error, cv_error, n_rows, z=3.0):
+    """z binomial standard errors of the difference of two error rates on n_rows rows,
+    sqrt(2 e (1 − e) / n) with e their mean, taking the two as independent (they share the
+    rows, so this overstates the spread; z = 3 is common practice)."""
+    e = (oob_error + cv_error) / 2
+    return z * math.sqrt(2 * e * (1 - e) / n_rows)
 
 
 def test_out_of_bag_error_matches_cross_validation_on_breast_cancer():
     # sklearn.datasets.load_breast_cancer; the out-of-bag error estimates the test error
-    # (Breiman 1996), so it should agree with 5-fold cross-validation
-    # (sklearn.model_selection.cross_val_score) of the same bag within 0.03.
+    # (Breiman 1996), so it agrees with 5-fold cross-validation
+    # (sklearn.model_selection.cross_val_score) of the same bag within the binomial
+    # tolerance `oob_tolerance`. Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py,
+    # with the single-tree comparison below): 100%.
+    oob_error, cv_error, single_error = oob_against_cv(0)
+    tolerance = oob_tolerance(oob_error, cv_error, 569)
+    assert abs(oob_error - cv_error) <= tolerance, (oob_error, cv_error, tolerance)
+    # The wrong variant the check catches: the in-bag (training) error in place of the
+    # out-of-bag one, near 0 for trees grown to purity.
     X, y = sklearn.datasets.load_breast_cancer(return_X_y=True)
-    model = bagwise.BagClassifier(DecisionTreeClassifier(), n_members=50, random_state=0)
-    oob_error = model.fit(X, y).out_of_bag().error_rate
-    folds = StratifiedKFold(5, shuffle=True, random_state=0)
-    cv_error = 1 - cross_val_score(model, X, y, cv=folds).mean()
-    assert abs(oob_error - cv_error) <= 0.03, (oob_error, cv_error)
+    bag = bagwise.BagClassifier(DecisionTreeClassifier(), n_members=50, random_state=0).fit(X, y)
+    training_error = float(np.mean(bag.predict(X) != y))
+    assert abs(training_error - cv_error) > oob_tolerance(training_error, cv_error, 569)
     # bagged trees beat a single tree (common practice; Breiman 1996)
-    single_error = 1 - cross_val_score(DecisionTreeClassifier(random_state=0), X, y,
-                                       cv=folds).mean()
     assert cv_error < single_error, (cv_error, single_error)
 
 
@@ -256,7 +309,9 @@ def test_spread_rho_agrees_with_replicate_spread():
     tolerance = 3 * np.hypot(se_across, se_inside)
     assert abs(np.mean(rhos) - across.pooled_rho) <= tolerance, (
         np.mean(rhos), across.pooled_rho, tolerance)
-    assert 0.05 < across.pooled_rho < 0.5                      # a real, non-trivial rho
+    # A real, non-trivial rho: the bounds only exclude a degenerate generator (measured on
+    # this one: 0.158 ± 0.012; rho in (0, 1) by definition, ESL eq. 15.1).
+    assert 0.05 < across.pooled_rho < 0.5
 
 
 def test_native_classifier_out_of_bag_and_a_test_set_as_large_as_the_training_set():

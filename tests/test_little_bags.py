@@ -18,6 +18,7 @@ import warnings
 
 import numpy as np
 import pytest
+import scipy.stats
 from scipy import integrate
 from sklearn.base import clone
 
@@ -58,17 +59,61 @@ def test_a_group_half_has_floor_n_over_two_rows():
     assert np.mean(union == n // 2) > 0.5
 
 
+def little_bags_inclusion_check(counts, n, d, group_size):
+    """Exact inclusion law of the little bags (Sexton & Laake 2009): a group's half H holds
+    h = floor(n/2) uniform rows and each member d uniform rows of H, so a row is in a member
+    with probability d/n and in two members of the same group with probability
+    (h/n)(d/h)² = d²/(n h) (given H the members draw independently), against (d/n)² for
+    members of different groups. Per row, the inclusion rate against d/n, and pooled over
+    rows, the same-group pair rate against d²/(n h); each within the Bonferroni z of its
+    standard error (the standard deviation over groups, which are independent, over
+    √groups)."""
+    members = counts.shape[0]
+    groups = members // group_size
+    h = n // 2
+    inside = (counts > 0).reshape(groups, group_size, n)
+    per_group_rate = inside.mean(axis=1)                        # (groups, n)
+    pairs = (inside[:, 0] & inside[:, 1]).mean(axis=1)          # (groups,) first two members
+    root = math.sqrt(groups)
+    z = float(scipy.stats.norm.isf(1e-3 / (2 * (n + 1))))        # Bonferroni, 0.1% in all
+    rate_ok = np.all(np.abs(per_group_rate.mean(axis=0) - d / n)
+                     <= z * per_group_rate.std(axis=0, ddof=1) / root)
+    pair_ok = abs(pairs.mean() - d * d / (n * h)) <= z * pairs.std(ddof=1) / root
+    return bool(rate_ok and pair_ok)
+
+
+def little_bags_draw_check(seed, n=60, members=8000, fraction=0.2, group_size=2):
+    """(passes, {wrong variant: passes}): bagwise's little bags against the exact law, and
+    two wrong samplers (numpy): members drawing d rows of all rows (no shared half), and a
+    half of n/2 + 5 rows (a wrong half size)."""
+    d = round(n * fraction)
+    counts = bagwise.resample(n, members, scheme="little_bags", fraction=fraction,
+                              group_size=group_size, rng=seed).counts
+    rng = np.random.default_rng(seed)
+
+    def sampler(half_size):
+        out = np.zeros((members, n), dtype=np.int64)
+        for g in range(members // group_size):
+            half = rng.choice(n, half_size, replace=False)
+            for m in range(group_size):
+                out[g * group_size + m, rng.choice(half, d, replace=False)] = 1
+        return out
+
+    return little_bags_inclusion_check(counts, n, d, group_size), {
+        "no shared half": little_bags_inclusion_check(sampler(n), n, d, group_size),
+        "half of n/2 + 5 rows": little_bags_inclusion_check(sampler(n // 2 + 5), n, d,
+                                                            group_size),
+    }
+
+
 def test_rows_are_drawn_evenly_over_many_groups():
-    # Exchangeability: a row is in a member with probability round(n f)/n. Binomial
-    # standard error, 5 sigma (common practice).
-    n, members = 60, 6000
-    counts = bagwise.resample(n, members, scheme="little_bags", fraction=0.2, rng=7).counts
-    hits = counts.sum(axis=0)
-    p = 12 / n
-    # Two members of a group are positively correlated through the half: variance per group
-    # at most 4 p(1 - p), so use that bound.
-    sd = math.sqrt(members / 2 * 4 * p * (1 - p))
-    assert np.all(np.abs(hits - members * p) < 5 * sd)
+    # Pass rate over 200 seeds: tests/bench/suite_a_pass_rate.py, 100%; both wrong
+    # samplers fail on every seed. The smallest wrong variant it catches: a half 5 rows too
+    # large (pooled pair rate 0.069 instead of 0.080, about 20 standard errors).
+    right, wrong = little_bags_draw_check(7)
+    assert right
+    for name, passed in wrong.items():
+        assert not passed, name
 
 
 def test_draws_do_not_depend_on_threads_or_later_groups():
