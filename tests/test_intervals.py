@@ -509,9 +509,9 @@ def test_a_fitted_bag_gives_the_interval_of_its_own_arrays():
                                          train_members, y[train], level=0.8)
     np.testing.assert_array_equal(interval.lower, direct.lower)
     np.testing.assert_array_equal(interval.upper, direct.upper)
-    # FITTED_BOUND; false-failure rate over 200 splits and fits: tests/bench/
-    # suite_b_pass_rate.py, case "fitted interval" (PASS RATE); the wrong variant caught,
-    # the level read as the miss rate (0.2 for 0.8), is shown failing here:
+    # FITTED_BOUND; false-failure rate over 200 splits and fits (tests/bench/
+    # suite_b_pass_rate.py, case "fitted interval", seeds 5000-5199): passes 200/200; the
+    # wrong variant, the level read as the miss rate (0.2 for 0.8), caught 200/200:
     assert interval.coverage(y[test]) > FITTED_BOUND
     _, wrong, _, _, _, _ = fitted_interval(3, 0, level=0.2)
     assert not wrong.coverage(y[test]) > FITTED_BOUND
@@ -551,9 +551,9 @@ def fitted_sets_check(seed):
 def test_a_fitted_classifier_gives_class_sets_in_the_order_of_its_classes():
     bag, sets, codes = fitted_sets(None, 1)
     assert sets.sets.shape == (169, 2)
-    # SETS_BOUND; false-failure rate over 200 random splits and fits: tests/bench/
-    # suite_b_pass_rate.py, case "fitted sets" (PASS RATE); the wrong variant, the level
-    # read as the miss rate, fails:
+    # SETS_BOUND; false-failure rate over 200 random splits and fits (tests/bench/
+    # suite_b_pass_rate.py, case "fitted sets", seeds 5000-5199): passes 200/200; the
+    # wrong variant, the level read as the miss rate (0.1 for 0.9), caught 200/200:
     assert sets.coverage(codes) > SETS_BOUND
     _, wrong, _ = fitted_sets(None, 1, level=0.1)
     assert not wrong.coverage(codes) > SETS_BOUND

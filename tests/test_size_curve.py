@@ -109,9 +109,11 @@ def curve_law_checks(seed, *, members=60, n=3000, orders=200):
 
 def test_empirical_curve_agrees_with_the_law_within_standard_errors():
     # Source: Cochran (1977), Theorem 2.2, via `curve_law_checks`. False-failure rate over
-    # 200 seeds (tests/bench/suite_b_pass_rate.py, case "size law"): PASS RATE. Smallest
-    # wrong variant caught: W with ddof 0 (the law off by W (1/k − 1/M)/M; caught on
-    # CAUGHT of the same seeds); loss(M) + W/k is off by about 200 standard errors.
+    # 200 seeds (tests/bench/suite_b_pass_rate.py, case "size law", seeds 5000-5199):
+    # passes 200/200. Smallest wrong variant caught: W with ddof 0 (the law off by
+    # W (1/k − 1/M)/M; caught on 200/200, z about 7-9); loss(M) + W/k is off by about 200
+    # standard errors. The Brier check below uses the same Z on one seed (not measured
+    # separately; its z is of the same kind).
     checks = curve_law_checks(seed=11)
     assert checks["right"] <= Z, checks
     assert checks["W with ddof 0"] > Z, checks

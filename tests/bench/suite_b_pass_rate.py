@@ -6,6 +6,8 @@
                       against refitted ensembles; wrong variant a standard error 1.6x too large)
 * "paired bootstrap"  tests/test_compare.py `paired_bootstrap_check` (delta-method SE of the
                       verdict's ratio against a paired bootstrap; wrong variant unpaired)
+* "pairs coverage"    tests/test_compare.py `simulated_pairs_coverage` (400 intervals of the
+                      ratio on a known generator within 3 MC SE of 0.95; wrong variant unpaired)
 * "fitted interval"   tests/test_intervals.py `fitted_interval_check` (one split of diabetes,
                       coverage above 1 − 2α; wrong variant the level read as the miss rate)
 * "fitted sets"       tests/test_intervals.py `fitted_sets_check` (one split of breast cancer;
@@ -16,7 +18,8 @@ variant is caught (target 100%), over seeds the unit tests do not use. The other
 statistical checks have their own scripts: variance_pass_rate.py (test_uncertainty,
 including the spread's closed form, and test_replicates), noise_pass_rate.py
 (test_variance_status), coverage_pass_rate.py (test_intervals' coverage over splits),
-verdict_coverage.py --pass-rate (test_compare's coverage). Not collected by pytest.
+verdict_coverage.py --pass-rate (test_compare's coverage of the verdict over
+refitted bags). Not collected by pytest.
 
     python tests/bench/suite_b_pass_rate.py [--seeds 200] [--cases "size law,fitted sets"]
 """
@@ -56,8 +59,17 @@ def paired_bootstrap(seed):
     return compare.paired_bootstrap_check(bag.verdict(), seed)
 
 
+def pairs_coverage(seed):
+    """test_compare's coverage of 400 simulated pairs within 3 Monte-Carlo SE of 0.95; the
+    wrong variant (unpaired) must overcover beyond it."""
+    mc = compare.math.sqrt(0.95 * 0.05 / 400)
+    return (abs(compare.simulated_pairs_coverage(seed) - 0.95) <= 3 * mc,
+            compare.simulated_pairs_coverage(seed, paired=False) - 0.95 > 3 * mc)
+
+
 CASES = {
     "size law": size_law,
+    "pairs coverage": pairs_coverage,
     "std error figure": std_error_figure,
     "paired bootstrap": paired_bootstrap,
     "fitted interval": intervals.fitted_interval_check,
