@@ -116,6 +116,19 @@ DOES_BAGGING_HELP = [
         print(f"{name:>9}: member loss {d.member_loss:.3f}  ambiguity {d.ambiguity:.3f}  "
               f"ensemble loss {d.ensemble_loss:.3f}  removed {d.relative_gain:.1%}")
     """),
+    md("""
+    The same three numbers by hand, from the members' predictions with plain numpy: each
+    member's own test error, averaged; the members' spread around their average; and the
+    error of the bag's own `predict`.
+    """),
+    code("""
+    for name in learners:
+        members = bagged[name].member_predictions(X_test)
+        by_hand = np.mean((members - y_test) ** 2)
+        spread = np.mean((members - members.mean(axis=0)) ** 2)
+        print(f"{name:>9} by hand: member loss {by_hand:.3f}  spread {spread:.3f}  "
+              f"predict error {test_error(bagged[name]):.3f}")
+    """),
     code("""
     fig, ax = plt.subplots(figsize=(7, 3.4))
     rows = np.arange(len(learners))
@@ -210,6 +223,19 @@ HOW_MANY_MEMBERS = [
     print(f"loss of an infinite ensemble: {curve.infinite_loss:.4f} (200 members: {curve.ensemble_loss:.4f})")
     print(f"members within 5% of it: {within_5}")
     print(f"members within 1% of it: {within_1}")
+    """),
+    md("""
+    A check by hand: draw many random ensembles of those sizes from the 200 members, score
+    each on the test vines with plain numpy, and compare the mean with loss(∞).
+    """),
+    code("""
+    draws = np.random.default_rng(1)
+    for size in (within_5, within_1):
+        losses = [np.mean((test_members[draws.choice(200, size, replace=False)].mean(axis=0)
+                           - y_test) ** 2) for _ in range(400)]
+        print(f"random ensembles of {size} members: mean loss {np.mean(losses):.4f} "
+              f"± {np.std(losses, ddof=1) / np.sqrt(400):.4f}, "
+              f"{np.mean(losses) / curve.infinite_loss - 1:.2%} above loss(∞)")
     """),
     md("""
     ## Without a test set: the out-of-bag curve

@@ -211,6 +211,8 @@ def test_float32_gives_the_float64_results_without_a_copy():
                lambda m: bagwise.size_curve(m, y, orders=3).curve,
                lambda m: bagwise.correlation(m, y).mean_residual_correlation,
                lambda m: bagwise.aggregate(m)):
+        # the same values in f32 and f64: only the order of f64 accumulation may differ,
+        # far below f32's own resolution 2^-24 ≈ 6e-8 (common practice: 1e-6)
         np.testing.assert_allclose(fn(t32), fn(exact), rtol=1e-6)
     # Not copied: the traced peak stays far below the size of an f64 copy (numpy registers
     # its buffers with tracemalloc; the core's buffers are chunk-sized).

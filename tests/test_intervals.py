@@ -337,6 +337,12 @@ def case_coverages(case, first_seed, n_splits=20, level=0.8, in_bag=False):
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_coverage_on_bundled_data(case):
+    # False-failure rate (tests/bench/coverage_pass_rate.py, blocks of 20 splits from seed
+    # 1000 on, fastdev build): every case passes 105/105 blocks (2,100 splits; 1 run =
+    # 1 block).
+    # Smallest wrong variant caught: in-bag scores (the members that saw each row), failing
+    # on every block measured for diabetes-jackknife+ and breast_cancer-least_ambiguous
+    # (shown in test_in_bag_variant_undercovers_on_bundled_data).
     coverages = case_coverages(case, first_seed=0)
     passed, mean, std_error = coverage_check(coverages, 0.8, conservative(CASES[case][1]))
     assert passed, f"{case}: mean coverage {mean:.3f} +- {std_error:.3f}, nominal 0.8"
@@ -377,6 +383,8 @@ _SIMULATED = {}
 
 @pytest.mark.parametrize("method", ["jackknife+", "out_of_bag_residual"])
 def test_coverage_on_a_known_generator_and_the_in_bag_variant_undercovers(method):
+    # False-failure rate (tests/bench/coverage_pass_rate.py): both methods pass
+    # 105/105 blocks (2,100 splits); the in-bag variant fails on every one of them.
     passed, mean, std_error = coverage_check(simulated_coverages(0, method=method), 0.8,
                                              conservative(method))
     assert passed, f"mean coverage {mean:.3f} +- {std_error:.3f}, nominal 0.8"
@@ -471,40 +479,92 @@ def test_other_bad_options():
         result.coverage(np.zeros(3))
 
 
+def fitted_interval(split_seed, fit_seed, level=0.8):
+    """A bag of trees fitted on 300 random diabetes rows (sklearn.datasets.load_diabetes),
+    its interval on the other 142 at ``level``, and the direct call on its arrays."""
+    from sklearn.datasets import load_diabetes
+
+    X, y = load_diabetes(return_X_y=True)
+    order = np.random.default_rng(split_seed).permutation(len(y))
+    train, test = order[:300], order[300:]
+    bag = bagwise.BagRegressor("tree", n_members=60, random_state=fit_seed).fit(X[train], y[train])
+    interval = bag.prediction_interval(X[test], level=level)
+    return bag, interval, X, y, train, test
+
+
+#: The bound of the one-split coverage checks: jackknife+ covers at least 1 − 2α (Kim, Xu &
+#: Barber 2020, Theorem 1), 0.6 at level 0.8; 142 held-out points give a binomial standard
+#: error of about 0.034 around the nominal 0.8, so 0.6 is about 6 of them below it.
+FITTED_BOUND = 0.6
+
+
+def fitted_interval_check(seed):
+    """``(right passes, wrong variant fails)`` of the one-split interval check on the split
+    and fit of ``seed``. The wrong variant reads the level as the miss rate (0.2 for 0.8)."""
+    _, interval, _, y, _, test = fitted_interval(seed, seed)
+    _, wrong, _, _, _, _ = fitted_interval(seed, seed, level=0.2)
+    return interval.coverage(y[test]) > FITTED_BOUND, not wrong.coverage(y[test]) > FITTED_BOUND
+
+
 def test_a_fitted_bag_gives_the_interval_of_its_own_arrays():
     # The estimator method is the function on the bag's member predictions, in-bag counts
     # and out-of-bag training predictions; its coverage of held-out diabetes targets
     # (sklearn.datasets.load_diabetes) is checked against the level, not just wired.
-    from sklearn.datasets import load_diabetes
-
-    X, y = load_diabetes(return_X_y=True)
-    order = np.random.default_rng(3).permutation(len(y))
-    train, test = order[:300], order[300:]
-    bag = bagwise.BagRegressor("tree", n_members=60, random_state=0).fit(X[train], y[train])
-    interval = bag.prediction_interval(X[test], level=0.8)
+    bag, interval, X, y, train, test = fitted_interval(3, 0)
     train_members = bag.out_of_bag_predictions()
     train_members = np.where(bag.in_bag_ > 0, 0.0, train_members)
     direct = bagwise.prediction_interval(bag.member_predictions(X[test]), bag.in_bag_,
                                          train_members, y[train], level=0.8)
     np.testing.assert_array_equal(interval.lower, direct.lower)
     np.testing.assert_array_equal(interval.upper, direct.upper)
-    # 142 held-out points: coverage 0.8 has a binomial standard error of about 0.034;
-    # jackknife+ guarantees at least 1 - 2 alpha = 0.6 (Kim, Xu & Barber 2020, Theorem 1)
-    assert interval.coverage(y[test]) > 0.6
+    # FITTED_BOUND; false-failure rate over 200 splits and fits (tests/bench/
+    # suite_b_pass_rate.py, case "fitted interval", seeds 5000-5199): passes 200/200; the
+    # wrong variant, the level read as the miss rate (0.2 for 0.8), caught 200/200:
+    assert interval.coverage(y[test]) > FITTED_BOUND
+    _, wrong, _, _, _, _ = fitted_interval(3, 0, level=0.2)
+    assert not wrong.coverage(y[test]) > FITTED_BOUND
 
 
-def test_a_fitted_classifier_gives_class_sets_in_the_order_of_its_classes():
+def fitted_sets(split_seed, fit_seed, level=0.9):
+    """Least-ambiguous class sets of a bag of trees fitted on 400 breast-cancer rows
+    (sklearn.datasets.load_breast_cancer; the first 400 when ``split_seed`` is None, else a
+    random 400), on the other 169; returns the bag, the sets and the held-out codes."""
     from sklearn.datasets import load_breast_cancer
 
     X, y = load_breast_cancer(return_X_y=True)
     labels = np.array(["benign", "malignant"])[1 - y]
-    bag = bagwise.BagClassifier("tree", n_members=40, random_state=1).fit(X[:400], labels[:400])
-    sets = bag.prediction_interval(X[400:], level=0.9)
-    assert sets.sets.shape == (len(y) - 400, 2)
-    codes = np.searchsorted(bag.classes_, labels[400:])
-    # the least-ambiguous sets cover at least 1 - alpha in expectation (Sadinle, Lei &
-    # Wasserman 2019, Proposition 1); 169 points give a standard error of about 0.023
-    assert sets.coverage(codes) > 0.9 - 3 * 0.023
+    order = (np.arange(len(y)) if split_seed is None
+             else np.random.default_rng(split_seed).permutation(len(y)))
+    train, test = order[:400], order[400:]
+    bag = bagwise.BagClassifier("tree", n_members=40, random_state=fit_seed).fit(
+        X[train], labels[train])
+    sets = bag.prediction_interval(X[test], level=level)
+    return bag, sets, np.searchsorted(bag.classes_, labels[test])
+
+
+#: The least-ambiguous sets cover at least 1 − α in expectation (Sadinle, Lei & Wasserman
+#: 2019, Proposition 1); 169 points give a binomial standard error of about 0.023 at 0.9:
+#: 3 of them below the level.
+SETS_BOUND = 0.9 - 3 * 0.023
+
+
+def fitted_sets_check(seed):
+    """``(right passes, wrong variant fails)`` on a random split and fit from ``seed``; the
+    wrong variant reads the level as the miss rate (0.1 for 0.9)."""
+    _, sets, codes = fitted_sets(seed, seed)
+    _, wrong, _ = fitted_sets(seed, seed, level=0.1)
+    return sets.coverage(codes) > SETS_BOUND, not wrong.coverage(codes) > SETS_BOUND
+
+
+def test_a_fitted_classifier_gives_class_sets_in_the_order_of_its_classes():
+    bag, sets, codes = fitted_sets(None, 1)
+    assert sets.sets.shape == (169, 2)
+    # SETS_BOUND; false-failure rate over 200 random splits and fits (tests/bench/
+    # suite_b_pass_rate.py, case "fitted sets", seeds 5000-5199): passes 200/200; the
+    # wrong variant, the level read as the miss rate (0.1 for 0.9), caught 200/200:
+    assert sets.coverage(codes) > SETS_BOUND
+    _, wrong, _ = fitted_sets(None, 1, level=0.1)
+    assert not wrong.coverage(codes) > SETS_BOUND
 
 
 # ---------------------------------------------------------------------------------------
@@ -564,7 +624,10 @@ def binomial_check(counts, n_members, probability):
 
 def test_random_member_count_is_binomial_and_the_wrong_probability_fails():
     # Kim, Xu & Barber (2020), Algorithm 1: B~ ~ Binomial(B, (1 - 1/(n + 1))^m) for m draws
-    # with replacement; n = m = 9 gives 0.9^9 = 0.387 (against scipy.stats.binom)
+    # with replacement; n = m = 9 gives 0.9^9 = 0.387 (against scipy.stats.binom).
+    # False-failure rate (tests/bench/coverage_pass_rate.py, case member_count, the first
+    # check): passes 105/105 blocks (2,100 splits); the wrong probability (1 - 1/n)^m
+    # fails on every one.
     counts = member_count_draws(0, 3000)
     passed, p_value = binomial_check(counts, 60, 0.9 ** 9)
     assert passed, f"p-value {p_value:.2g}"

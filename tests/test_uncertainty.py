@@ -71,25 +71,117 @@ def test_ij_and_jackknife_equal_their_defining_sums(ensemble):
     np.testing.assert_allclose(raw_ij.mean, members.mean(axis=0), rtol=1e-12)
 
 
-def test_spread_splits_member_variance():
+def spread_checks(seed, *, n=200, n_members=400, sets=40, ensemble_size=10,
+                  tau=(0.03, 0.06, 0.12, 0.25)):
+    """``bagwise.spread`` against the closed form of a known data-generating process.
+
+    Training rows are i.i.d. N(MU, SIGMA²); member b's prediction at point j is the mean of
+    the rows over its bootstrap resample plus its own noise N(0, τ_j²) (a different τ_j at
+    each point). Over training sets and resamples, with multinomial counts (Efron &
+    Tibshirani 1993): the part two members share through the data is Var(x̄) = σ²/n
+    (between), a member's own part is E Var*(x̄*) + τ² = (n − 1)σ²/n² + τ² (within), one
+    member's variance is their sum (total), the correlation of two members is
+    between / total (rho; Breiman 2001, §4, ρ̄ as the correlation of two members' outputs
+    over the training sets; Hastie, Tibshirani & Friedman 2009, eq. 15.1) and an
+    M-member mean has variance between + within / M (same equation). The closed forms are
+    the truth; `spread_closed_form_matches_brute_force` checks them against plain numpy
+    refits with no bagwise in them. Per variant, the mean over ``sets`` training sets of
+    estimate/truth (mean over points) and its standard error (`ratio_check`).
+
+    Wrong variants: "rho = between / within" (the share of the within part instead of the
+    total); "raw between" (the IJ before its Monte-Carlo correction in the M-member
+    variance, which overstates it by about n/B of the within part; Wager, Hastie & Efron
+    2014).
+    """
+    rng = np.random.default_rng(seed)
+    tau = np.asarray(tau) * SIGMA
+    between, within = SIGMA**2 / n, (n - 1) * SIGMA**2 / n**2 + tau**2
+    truth = {"total": between + within, "rho": between / (between + within),
+             "predicted_variance": between + within / ensemble_size}
+    found: dict[str, list] = {}
+    for _ in range(sets):
+        x = rng.normal(MU, SIGMA, size=n)
+        counts = bagwise.resample(n, n_members, rng=int(rng.integers(2**62))).counts
+        members = (counts @ x / n)[:, None] + tau * rng.normal(size=(n_members, tau.size))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", bagwise.BagwiseWarning)
+            result = bagwise.spread(members, counts)
+            raw = bagwise.prediction_variance(members, counts, corrected=False).raw_variance
+        for name, value in {
+            "total": result.total, "rho": result.rho,
+            "predicted_variance": result.predicted_variance(ensemble_size),
+            "rho = between / within": result.between / result.within,
+            "raw between": raw + result.within / ensemble_size,
+        }.items():
+            found.setdefault(name, []).append(value)
+    targets = {"rho = between / within": "rho", "raw between": "predicted_variance"}
+    return {name: ratio_check(values, truth[targets.get(name, name)])
+            for name, values in found.items()}
+
+
+#: Right quantities of `spread_checks` (the rest are wrong variants that must fail).
+SPREAD_RIGHT = ("total", "rho", "predicted_variance")
+
+
+def test_spread_matches_the_closed_form_over_training_sets():
+    # Source: the closed form of `spread_checks` (simulation over independent training sets).
+    # False-failure rate (tests/bench/variance_pass_rate.py --cases spread, seeds
+    # 1000-1199, fastdev build): total, rho and predicted_variance all pass on 200/200
+    # (|z| at most 3.2). The estimators' own O(1/n) bias shows as a mean z of −0.8 for rho
+    # (a ratio of noisy parts, Jensen); at n = 100 it was −1.2 and the pass rate 99.0%,
+    # hence n = 200. Smallest wrong variant caught: rho = between / within (passes 0/200,
+    # z >= +6.4); the raw between part in predicted_variance passes 0/200 (z >= +30).
+    checks = spread_checks(seed=20140104)
+    for name in SPREAD_RIGHT:
+        assert checks.pop(name).passes, (name, checks)
+    for name, check in checks.items():
+        assert not check.passes, f"{name} passes: {check}"
+
+
+def test_spread_closed_form_matches_brute_force():
+    # The closed forms of `spread_checks` against plain numpy: members refitted on 20,000
+    # independent training sets (numpy multinomial counts), the sample correlation of two
+    # members (numpy.corrcoef) and the variance of a 10-member mean (numpy.var); tolerance
+    # 4 standard errors of the sample variance, sqrt(2 / (S − 1)) relative for normal-ish
+    # draws (a sample correlation's SE is (1 − ρ²)/√S; Fisher 1915, from memory).
+    rng = np.random.default_rng(5)
+    n, sets, m, tau = 100, 20_000, 10, 0.2
+    members = np.empty((sets, m))
+    for start in range(0, sets, 2000):                      # 2,000 training sets at a time
+        x = rng.normal(MU, SIGMA, size=(2000, n))
+        counts = rng.multinomial(n, np.full(n, 1 / n), size=(2000, m))   # (sets, m, n)
+        members[start:start + 2000] = (np.einsum("smn,sn->sm", counts, x) / n
+                                       + tau * rng.normal(size=(2000, m)))
+    between, within = SIGMA**2 / n, (n - 1) * SIGMA**2 / n**2 + tau**2
+    rel = 4 * math.sqrt(2 / (sets - 1))
+    assert abs(members[:, 0].var(ddof=1) / (between + within) - 1) < rel
+    assert abs(members.mean(axis=1).var(ddof=1) / (between + within / m) - 1) < rel
+    rho = between / (between + within)
+    assert abs(np.corrcoef(members[:, 0], members[:, 1])[0, 1] - rho) < 4 * (1 - rho**2) / math.sqrt(sets)
+    # and the within part: the variance across members of one training set (ddof 1)
+    assert abs(members.var(axis=1, ddof=1).mean() / within - 1) < rel
+
+
+def test_spread_parts_against_their_defining_sums():
     rng = np.random.default_rng(7)
-    n, b = 200, 4000
+    n, b = 200, 400
     x = rng.normal(size=n)
     counts = bagwise.resample(n, b, rng=9).counts
-    noise = rng.normal(scale=0.05, size=(b, 3))
-    members = (counts @ x / n)[:, None] + noise
+    members = (counts @ x / n)[:, None] + rng.normal(scale=0.05, size=(b, 3))
     result = bagwise.spread(members, counts)
-    np.testing.assert_allclose(result.within, members.var(axis=0, ddof=1), rtol=1e-12)
-    ideal_between = x.var() / n
-    np.testing.assert_allclose(result.between, ideal_between, rtol=0.15)
-    np.testing.assert_allclose(result.total, result.between + result.within, rtol=1e-14)
-    np.testing.assert_allclose(result.rho, result.between / result.total, rtol=1e-14)
-    # ESL eq. 15.1 in the between/within form.
-    np.testing.assert_allclose(result.predicted_variance(10),
-                               result.between + result.within / 10, rtol=1e-14)
+    # within: numpy.var across members (ddof 1); between: the corrected IJ by its defining
+    # sums (`direct_sums`; Wager, Hastie & Efron 2014), clipped at 0.
+    ij, _, spread_sq = direct_sums(members, counts)
+    between = np.maximum(ij - n / b**2 * spread_sq, 0)
+    within = members.var(axis=0, ddof=1)
+    np.testing.assert_allclose(result.within, within, rtol=1e-12)
+    np.testing.assert_allclose(result.between, between, rtol=1e-9)
+    np.testing.assert_allclose(result.total, between + within, rtol=1e-9)
+    np.testing.assert_allclose(result.rho, between / (between + within), rtol=1e-9)
+    np.testing.assert_allclose(result.predicted_variance(10), between + within / 10, rtol=1e-9)
     needed = result.members_needed(0.01)
-    assert result.mean_within / needed <= 0.01 * result.mean_between
-    assert result.mean_within / (needed - 1) > 0.01 * result.mean_between
+    assert within.mean() / needed <= 0.01 * between.mean()
+    assert within.mean() / (needed - 1) > 0.01 * between.mean()
     assert "rho" in repr(result) and "<table" in result._repr_html_()
     assert list(result.to_frame().columns) == ["point", "between", "within", "total", "rho",
                                               "noise", "status"]
@@ -127,6 +219,9 @@ def test_dtypes_strides_and_threads_give_identical_results():
             rtol=1e-12)
         f32 = bagwise.prediction_variance(members.astype(np.float32), counts,
                                           corrected=False).variance
+        # f32 members are the f64 values rounded (2^-24 ≈ 6e-8 relative), squared
+        # covariances double that and cancellation in the centring can raise it by the
+        # ratio of mean to spread (about 10 here; common practice: 1e-5)
         np.testing.assert_allclose(f32, base, rtol=1e-5)
         one = bagwise.prediction_variance(members, counts, corrected=False, n_jobs=1).variance
         two = bagwise.prediction_variance(members, counts, corrected=False, n_jobs=2).variance
@@ -144,6 +239,10 @@ def test_small_ensembles_warn_and_clip():
     assert f"not estimable with 10 members at {n_not} of 50 points" in messages[0]
     assert result.n_clipped > 0 and n_not >= result.n_clipped
     assert np.all(result.variance >= 0)
+    # members unrelated to the counts: the raw IJ is Monte-Carlo noise of expectation
+    # about n/B² Σ(t_b − t̄)², which the correction removes (Wager, Hastie & Efron 2014), so
+    # it is a majority of the raw estimate wherever the raw estimate is not a rare upward
+    # draw (with n/B = 50 here the correction is the bulk of it; common practice: > 0.5)
     assert np.all(result.correction_share > 0.5)
 
 
@@ -225,11 +324,18 @@ def test_results_are_frozen_and_share_members_needed():
     replicate = bagwise.replicate_spread(np.random.default_rng(5).normal(size=(3, 4, 5)))
     assert inspect.signature(result.members_needed) == inspect.signature(replicate.members_needed)
     assert result.members_needed() == result.members_needed(0.01)
-    # the between part is the corrected IJ variance of the same call
+    # the between part is the corrected IJ variance (defining sums, `direct_sums`)
+    ij, _, spread_sq = direct_sums(members, counts)
+    between = np.maximum(ij - 100 / 200**2 * spread_sq, 0)
+    np.testing.assert_allclose(result.between, between, rtol=1e-9)
     np.testing.assert_array_equal(result.between, estimate.variance)
-    assert result.pooled_rho == result.mean_between / result.mean_total
-    # ESL eq. 15.1 from the means over points
-    assert result.mean_predicted_variance(7) == result.mean_between + result.mean_within / 7
+    within = members.var(axis=0, ddof=1)                     # numpy.var, ddof 1
+    np.testing.assert_allclose(result.pooled_rho, between.mean() / (between + within).mean(),
+                               rtol=1e-9)
+    # ESL eq. 15.1 from the means over points (its meaning is checked by simulation in
+    # test_spread_matches_the_closed_form_over_training_sets)
+    np.testing.assert_allclose(result.mean_predicted_variance(7),
+                               between.mean() + within.mean() / 7, rtol=1e-9)
     assert result.predicted_variance([1, 7]).shape == (5, 2)
     with pytest.raises(ValueError, match="`n_members`"):
         result.predicted_variance(0)
@@ -422,6 +528,11 @@ def test_corrected_estimators_match_the_variance_over_training_sets(case):
     # Truth in closed form (see bagged_statistics_truth); estimators: V_IJ-U and V_J-U of
     # Wager, Hastie & Efron (2014), the subsample IJ of Wager & Athey (2018). The wrong
     # variants must fail the same criterion on the same ensembles.
+    # False-failure rate (tests/bench/variance_pass_rate.py, seeds 1000-1199, fastdev
+    # build): ij 200/200 pass, jackknife 200/200, subsample ij 200/200 (|z| at most 3.8).
+    # Smallest wrong variant caught: ij, the uncorrected IJ (passes 0/200, z >= +28);
+    # jackknife, the constant 1 in place of e − 1 (passes 0/200, z >= +6.6); subsample ij,
+    # the uncorrected IJ (passes 0/200, z >= +26).
     checks = monte_carlo_checks(case, seed=20140101)
     assert checks.pop("right").passes, checks
     for name, check in checks.items():
@@ -475,6 +586,10 @@ def tree_checks(seed, *, n=60, n_members=60, sets=64, points=20) -> dict[str, Ch
 def test_corrected_ij_matches_bagged_trees_over_training_sets():
     # Realism: CART members (Breiman et al. 1984) fit by bagwise.BagRegressor on 60 rows;
     # V_IJ-U of Wager, Hastie & Efron (2014) against the Monte-Carlo truth of tree_checks.
+    # False-failure rate (tests/bench/variance_pass_rate.py --cases "trees ij", seeds
+    # 1000-1199, fastdev build): passes 199/200 (99.5%; mean ratio 0.93, mean z −0.8: the
+    # corrected IJ's known downward bias on trees at n = B = 60). Smallest wrong variant
+    # caught: the uncorrected IJ, passes 0/200 (z >= +5.8).
     checks = tree_checks(seed=20140102)
     assert checks["right"].passes, checks
     assert not checks["uncorrected"].passes, checks
@@ -519,6 +634,9 @@ def test_jackknife_correction_constant_is_e_minus_one_by_simulation():
     # Wager, Hastie & Efron (2014): V_J-U = V_J − (e − 1)(n/B²) Σ_b (t_b − t̄)². The constant
     # is checked here by simulating the bias it removes (jackknife_constant_checks), not by
     # restating the code's formula; the constant 1 must fail on the same draws.
+    # False-failure rate (tests/bench/variance_pass_rate.py, seeds 1000-1199): passes
+    # 200/200 (|z| at most 3.3). Smallest wrong variant caught: the constant 1, passes
+    # 0/200 (z >= +9.5).
     checks = jackknife_constant_checks(seed=20140103)
     assert checks["right"].passes, checks
     assert not checks["constant 1"].passes, checks
@@ -530,4 +648,5 @@ CHECKS = {
     **{case: functools.partial(monte_carlo_checks, case) for case in MONTE_CARLO_CASES},
     "trees ij": tree_checks,
     "jackknife constant": jackknife_constant_checks,
+    "spread": spread_checks,
 }

@@ -4,7 +4,7 @@ noise without its 4V²/B term), and members_needed against the noise it promises
 as many members). Each check is a pure function of its seed; the unit tests use one seed.
 Not collected by pytest.
 
-    python tests/bench/noise_pass_rate.py [--seeds 100]
+    python tests/bench/noise_pass_rate.py [--seeds 200]
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ import test_variance_status as status  # noqa: E402
 
 def main():
     parser = argparse.ArgumentParser()
-    parser.add_argument("--seeds", type=int, default=100)
+    parser.add_argument("--seeds", type=int, default=200)
     args = parser.parse_args()
     seeds = range(2000, 2000 + args.seeds)
     for method in ("ij", "jackknife"):

@@ -4,7 +4,8 @@ tests/test_replicates.py.
 Every check there is a pure function of its seed: in test_uncertainty `CHECKS` (the corrected
 IJ, the corrected jackknife-after-bootstrap and the subsample IJ on bagged statistics with a
 closed-form truth, the corrected IJ on native bagged trees, the jackknife's correction
-constant by simulation), in test_replicates `equicorrelated_errors`. This script reruns each
+constant by simulation, the spread's total, rho and M-member variance against their closed
+form), in test_replicates `equicorrelated_errors`. This script reruns each
 on seeds the unit tests do not use and prints how often the right estimator passes (target
 >= 99%) and how often each wrong variant passes (target 0%), with the mean ratio to the truth
 and its mean standard error where the check is a ratio, and the mean and range of the
@@ -70,10 +71,16 @@ def main():
                          f"mean SE {np.mean([c.se for c in checks]):.4f}  ")
             else:
                 ratio = ""
-            role = "right" if variant == "right" else "wrong"
+            role = ("right" if variant == "right" or variant in uncertainty.SPREAD_RIGHT
+                    else "wrong")
             print(f"{case:20s} {variant:20s} ({role}) passes {passes}/{args.seeds} "
                   f"({passes / args.seeds:.1%})  {ratio}"
                   f"z mean {z.mean():+.2f} min {z.min():+.2f} max {z.max():+.2f}", flush=True)
+        if case == "spread":   # the unit test needs all three right quantities to pass
+            both = sum(all(run[name].passes for name in uncertainty.SPREAD_RIGHT)
+                       for run in runs)
+            print(f"{case:20s} all of {', '.join(uncertainty.SPREAD_RIGHT)} pass {both}/"
+                  f"{args.seeds} ({both / args.seeds:.1%})", flush=True)
         print(f"{case:20s} {seconds:.2f} s per seed", flush=True)
 
 
