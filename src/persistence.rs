@@ -20,6 +20,10 @@
 //! CRC-32/ISO-HDLC).
 
 use crate::error::{Error, Result};
+use crate::learners::linear::LinearEnsemble;
+use crate::learners::neighbors::NeighborsEnsemble;
+use crate::learners::tree::TreeEnsemble;
+use crate::learners::FittedMembers;
 
 /// The 8 magic bytes every file starts with.
 pub const MAGIC: [u8; 8] = *b"\x89BAGWISE";
@@ -164,6 +168,65 @@ impl Container {
             payload,
         })
     }
+}
+
+/// A fitted native ensemble read from a container, whichever its learner: the payload
+/// decoded by the learner that the kind tag names (the tags of `python/bagwise/_learners.py`).
+#[derive(Debug, Clone, PartialEq)]
+pub enum Model {
+    Tree(TreeEnsemble),
+    Linear(LinearEnsemble),
+    Neighbors(NeighborsEnsemble),
+}
+
+impl Model {
+    /// Decodes `payload` with the learner of kind tag `kind`.
+    ///
+    /// # Errors
+    /// `data` for an unknown kind tag, or a payload that does not decode into a well-formed
+    /// ensemble of that learner.
+    pub fn decode(kind: &str, payload: &[u8]) -> Result<Self> {
+        match kind {
+            "tree" => TreeEnsemble::from_bytes(payload).map(Model::Tree),
+            "linear" => <LinearEnsemble as FittedMembers>::from_bytes(payload).map(Model::Linear),
+            "neighbors" => {
+                <NeighborsEnsemble as FittedMembers>::from_bytes(payload).map(Model::Neighbors)
+            }
+            other => Err(Error::value(
+                "data",
+                format!("holds an unknown learner kind {other:?}"),
+            )),
+        }
+    }
+
+    /// The kind tag of the learner.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            Model::Tree(_) => "tree",
+            Model::Linear(_) => "linear",
+            Model::Neighbors(_) => "neighbors",
+        }
+    }
+
+    /// The payload bytes of the learner.
+    pub fn to_bytes(&self) -> Vec<u8> {
+        match self {
+            Model::Tree(m) => FittedMembers::to_bytes(m),
+            Model::Linear(m) => FittedMembers::to_bytes(m),
+            Model::Neighbors(m) => FittedMembers::to_bytes(m),
+        }
+    }
+}
+
+/// Reads a whole model file: the container ([`Container::from_bytes`]) and its payload
+/// ([`Model::decode`]), so every byte of the file is checked before anything is predicted.
+///
+/// # Errors
+/// `data` as the two steps.
+pub fn read_model(data: &[u8]) -> Result<(Container, Model)> {
+    let container = Container::from_bytes(data)?;
+    let model = Model::decode(&container.kind, &container.payload)?;
+    Ok((container, model))
 }
 
 fn truncated() -> Error {

@@ -524,12 +524,19 @@ impl FittedMembers for LinearEnsemble {
     }
 
     fn from_bytes(data: &[u8]) -> Result<Self> {
-        let ensemble: LinearEnsemble = postcard::from_bytes(data).map_err(|e| {
-            Error::value(
+        let (ensemble, rest): (LinearEnsemble, &[u8]) =
+            postcard::take_from_bytes(data).map_err(|e| {
+                Error::value(
+                    "data",
+                    format!("is not a valid linear ensemble encoding ({e})"),
+                )
+            })?;
+        if !rest.is_empty() {
+            return Err(Error::value(
                 "data",
-                format!("is not a valid linear ensemble encoding ({e})"),
-            )
-        })?;
+                "has trailing bytes after the linear ensemble",
+            ));
+        }
         ensemble.validate()?;
         Ok(ensemble)
     }
