@@ -518,4 +518,58 @@ mod tests {
         check(t, "infinite leaf value");
         assert_eq!(cases, 6);
     }
+    /// Every byte of a stored stream state set to 0x00, 0x01, 0x7F, 0x80, 0xFF, and a huge
+    /// varint inserted at every position: decoding refuses with `state`/`data`, or the
+    /// state finishes and merges with itself without a panic.
+    fn stored_state_edits<S: crate::members::MergeableState + Clone>(state: &S) -> (usize, usize) {
+        let data = state.to_bytes().unwrap();
+        let (mut cases, mut refused) = (0, 0);
+        let mut edits: Vec<Vec<u8>> = (0..data.len()).map(|cut| data[..cut].to_vec()).collect();
+        for at in 0..data.len() {
+            for byte in [0x00, 0x01, 0x7F, 0x80, 0xFF] {
+                let mut edit = data.clone();
+                edit[at] = byte;
+                edits.push(edit);
+            }
+            let mut edit = data.clone();
+            edit.splice(at..at, [0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x7F]);
+            edits.push(edit);
+        }
+        for edit in edits {
+            cases += 1;
+            let outcome = catch_unwind(AssertUnwindSafe(|| match S::from_bytes(&edit) {
+                Err(err) => {
+                    assert!(err.to_string().starts_with("`state`"), "{err}");
+                    true
+                }
+                Ok(restored) => {
+                    let _ = restored.finish();
+                    let mut merged = restored.clone();
+                    let _ = merged.merge(restored);
+                    false
+                }
+            }));
+            match outcome {
+                Ok(true) => refused += 1,
+                Ok(false) => {}
+                Err(_) => panic!("panicked on stored state {edit:?}"),
+            }
+        }
+        (cases, refused)
+    }
+
+    #[test]
+    fn corrupt_stream_states_are_refused_before_they_index_or_allocate() {
+        use crate::decomposition::Loss;
+        use crate::size_curve::SizeCurveState;
+        use crate::uncertainty::CountGramState;
+        let counts = Array2::from_shape_fn((4, 9), |(m, i)| ((i * 3 + m) % 3) as u8);
+        let mut gram = CountGramState::new(true);
+        gram.update(counts.view(), &Pool::Global, &Silent).unwrap();
+        let (cases, refused) = stored_state_edits(&gram);
+        assert!(refused > cases / 4, "count Gram: {refused} of {cases}");
+        let curve = SizeCurveState::new(Loss::SquaredError, 4, vec![1, 2, 4], 3, 7).unwrap();
+        let (cases, refused) = stored_state_edits(&curve);
+        assert!(refused > cases / 4, "size curve: {refused} of {cases}");
+    }
 }

@@ -119,7 +119,12 @@ impl Container {
             data,
             at: MAGIC.len(),
         };
-        let version = u32::from_le_bytes(reader.take(4)?.try_into().expect("4 bytes"));
+        let version = u32::from_le_bytes(
+            reader
+                .take(4, "the format version")?
+                .try_into()
+                .expect("4 bytes"),
+        );
         if version != FORMAT_VERSION {
             return Err(Error::value(
                 "data",
@@ -130,7 +135,7 @@ impl Container {
             ));
         }
         if data.len() < reader.at + 4 {
-            return Err(truncated());
+            return Err(truncated("the checksum", 4, data.len() - reader.at));
         }
         let (body, tail) = data.split_at(data.len() - 4);
         let stored = u32::from_le_bytes(tail.try_into().expect("4 bytes"));
@@ -144,18 +149,18 @@ impl Container {
             data: body,
             at: reader.at,
         };
-        let kind_len = reader.take(1)?[0] as usize;
-        let kind = reader.take(kind_len)?;
+        let kind_len = reader.take(1, "the kind length")?[0] as usize;
+        let kind = reader.take(kind_len, "the kind tag")?;
         if kind.is_empty() || !kind.iter().all(|b| b.is_ascii_graphic()) {
             return Err(Error::value("data", "has an invalid learner kind tag"));
         }
         let kind = String::from_utf8(kind.to_vec()).expect("ASCII");
-        let metadata_len = reader.length()?;
-        let metadata = std::str::from_utf8(reader.take(metadata_len)?)
+        let metadata_len = reader.length("the metadata length")?;
+        let metadata = std::str::from_utf8(reader.take(metadata_len, "the metadata")?)
             .map_err(|_| Error::value("data", "metadata is not valid UTF-8"))?
             .to_string();
-        let payload_len = reader.length()?;
-        let payload = reader.take(payload_len)?.to_vec();
+        let payload_len = reader.length("the payload length")?;
+        let payload = reader.take(payload_len, "the payload")?.to_vec();
         if reader.at != body.len() {
             return Err(Error::value(
                 "data",
@@ -229,8 +234,11 @@ pub fn read_model(data: &[u8]) -> Result<(Container, Model)> {
     Ok((container, model))
 }
 
-fn truncated() -> Error {
-    Error::value("data", "is truncated")
+fn truncated(field: &str, needed: impl std::fmt::Display, left: usize) -> Error {
+    Error::value(
+        "data",
+        format!("is truncated: {field} needs {needed} bytes but {left} remain"),
+    )
 }
 
 struct Reader<'a> {
@@ -239,16 +247,25 @@ struct Reader<'a> {
 }
 
 impl<'a> Reader<'a> {
-    fn take(&mut self, len: usize) -> Result<&'a [u8]> {
-        let end = self.at.checked_add(len).ok_or_else(truncated)?;
-        let slice = self.data.get(self.at..end).ok_or_else(truncated)?;
-        self.at = end;
+    /// The next `len` bytes, never read past the end (`field` names them in the error).
+    fn take(&mut self, len: usize, field: &str) -> Result<&'a [u8]> {
+        let left = self.data.len() - self.at;
+        if len > left {
+            return Err(truncated(field, len, left));
+        }
+        let slice = &self.data[self.at..self.at + len];
+        self.at += len;
         Ok(slice)
     }
 
-    fn length(&mut self) -> Result<usize> {
-        let raw = u64::from_le_bytes(self.take(8)?.try_into().expect("8 bytes"));
-        usize::try_from(raw).map_err(|_| truncated())
+    /// A u64 length field, checked against the bytes left before anything is sized by it.
+    fn length(&mut self, field: &str) -> Result<usize> {
+        let raw = u64::from_le_bytes(self.take(8, field)?.try_into().expect("8 bytes"));
+        let left = self.data.len() - self.at;
+        match usize::try_from(raw) {
+            Ok(len) if len <= left => Ok(len),
+            _ => Err(truncated(field, raw, left)),
+        }
     }
 }
 
