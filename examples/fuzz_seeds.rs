@@ -15,10 +15,21 @@ fn main() -> std::io::Result<()> {
     let seeds = bagwise::fuzzing::seed_files();
     for (name, file) in &seeds {
         fs::write(root.join("model_file").join(format!("seed_{name}")), file)?;
-        fs::write(root.join("model_file_fixed_crc").join(format!("seed_{name}")), file)?;
+        fs::write(
+            root.join("model_file_fixed_crc")
+                .join(format!("seed_{name}")),
+            file,
+        )?;
         let payload = bagwise::fuzzing::payload_input(file).expect("a seed file reads back");
-        fs::write(root.join("model_payload").join(format!("seed_{name}")), payload)?;
+        fs::write(
+            root.join("model_payload").join(format!("seed_{name}")),
+            payload,
+        )?;
     }
-    println!("wrote {} seed files per target under {}", seeds.len(), root.display());
+    println!(
+        "wrote {} seed files per target under {}",
+        seeds.len(),
+        root.display()
+    );
     Ok(())
 }

@@ -532,7 +532,10 @@ mod tests {
                 edits.push(edit);
             }
             let mut edit = data.clone();
-            edit.splice(at..at, [0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x7F]);
+            edit.splice(
+                at..at,
+                [0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x7F],
+            );
             edits.push(edit);
         }
         for edit in edits {
