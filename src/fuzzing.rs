@@ -251,19 +251,20 @@ fn exercise_members<E: FittedMembers>(model: &E) -> Result<()> {
 ///
 /// Truncation at every length; one bit flipped at every `stride`-th bit, a byte deleted and
 /// a byte (0x00, 0xFF) inserted at every `stride`-th position (`stride` 1: everywhere; an
-/// odd stride still reaches every bit position within a byte).
+/// odd stride still reaches every bit position within a byte), and at every bit and byte of
+/// the first [`EVERY_BYTE_BELOW`] bytes.
 pub fn raw_mutations(file: &[u8], stride: usize, mut visit: impl FnMut(&str, &[u8])) {
     let stride = stride.max(1);
     for cut in 0..file.len() {
         visit("truncated", &file[..cut]);
     }
     let mut buffer = file.to_vec();
-    for bit in (0..file.len() * 8).step_by(stride) {
+    for bit in (0..file.len() * 8).filter(|&bit| visited(bit / 8, bit, stride)) {
         buffer[bit / 8] ^= 1 << (bit % 8);
         visit("bit flip", &buffer);
         buffer[bit / 8] ^= 1 << (bit % 8);
     }
-    for at in (0..file.len()).step_by(stride) {
+    for at in (0..file.len()).filter(|&at| visited(at, at, stride)) {
         let mut deleted = file.to_vec();
         deleted.remove(at);
         visit("byte deleted", &deleted);
@@ -293,12 +294,23 @@ pub fn mutations_with_checksum(
     };
     raw_mutations(file, stride, &mut fixed);
     let mut buffer = file.to_vec();
-    for at in (0..file.len()).step_by(stride.max(1)) {
+    for at in (0..file.len()).filter(|&at| visited(at, at, stride)) {
         for byte in [0x00, 0x7F, 0x80, 0xFF] {
             let old = buffer[at];
             buffer[at] = byte;
             fixed("byte set", &buffer);
             buffer[at] = old;
+        }
+        if at + 4 >= file.len() {
+            continue;
+        }
+        // The payload's container length follows any size change, so the payload still
+        // parses as a container and reaches its decoder.
+        for varint in HUGE_VARINTS {
+            let mut data = file.to_vec();
+            data.splice(at..=at, varint.iter().copied());
+            fix_payload_length(&mut data);
+            fixed("huge varint in place", &data);
         }
     }
     // The container's length fields: kind length at 12, then the metadata and payload
@@ -328,6 +340,47 @@ pub fn mutations_with_checksum(
         }
         fixed("random edits", &data);
     }
+}
+
+/// Leading bytes mutated at every position whatever the stride: the container header and
+/// the start of the payload, where the decoders read their counts and sizes.
+pub const EVERY_BYTE_BELOW: usize = 160;
+
+/// Postcard varints of huge counts (2^64 − 1, 2^40, 2^32 + 1, 2^20 + 1) that overwrite a
+/// one-byte count in place.
+pub const HUGE_VARINTS: [&[u8]; 4] = [
+    &[0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x01],
+    &[0x80, 0x80, 0x80, 0x80, 0x80, 0x20],
+    &[0x81, 0x80, 0x80, 0x80, 0x10],
+    &[0x81, 0x80, 0x40],
+];
+
+/// Rewrites the payload length field of a container whose payload grew or shrank (the
+/// metadata left as it was), so the container parses again; a no-op on bytes that do not
+/// hold one.
+pub fn fix_payload_length(data: &mut [u8]) {
+    let Some(&kind_len) = data.get(12) else {
+        return;
+    };
+    let metadata_at = 13 + usize::from(kind_len);
+    let Some(field) = data.get(metadata_at..metadata_at + 8) else {
+        return;
+    };
+    let metadata_len = u64::from_le_bytes(field.try_into().expect("8 bytes"));
+    let Some(payload_at) = usize::try_from(metadata_len)
+        .ok()
+        .and_then(|m| (metadata_at + 8).checked_add(m))
+    else {
+        return;
+    };
+    if let Some(len) = data.len().checked_sub(payload_at + 8 + 4) {
+        data[payload_at..payload_at + 8].copy_from_slice(&(len as u64).to_le_bytes());
+    }
+}
+
+/// Whether a mutation at byte `at` (index `k` among bits or bytes) is made with `stride`.
+fn visited(at: usize, k: usize, stride: usize) -> bool {
+    at < EVERY_BYTE_BELOW || k % stride.max(1) == 0
 }
 
 /// One random byte-level edit: flip, set to an interesting value, insert, delete, or copy
@@ -448,7 +501,7 @@ mod tests {
             let mut visit =
                 |name: &str, data: &[u8]| run(&mut tally, &seed, name, data, check_payload);
             let mut buffer = input.clone();
-            for at in (1..input.len()).step_by((input.len() / 150) | 1) {
+            for at in (1..input.len()).filter(|&at| visited(at, at, (input.len() / 150) | 1)) {
                 for byte in [0x00, 0x01, 0x7F, 0x80, 0xFF] {
                     buffer[at] = byte;
                     visit("byte set", &buffer);
@@ -460,6 +513,13 @@ mod tests {
                     [0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x7F],
                 );
                 visit("huge varint inserted", &huge);
+                // A one-byte count or size overwritten by a huge one, the fields after it
+                // left in place: the decoded model is whole but for that count.
+                for varint in HUGE_VARINTS {
+                    let mut huge = input.clone();
+                    huge.splice(at..=at, varint.iter().copied());
+                    visit("huge varint in place", &huge);
+                }
             }
             for cut in 0..input.len() {
                 visit("truncated", &input[..cut]);
