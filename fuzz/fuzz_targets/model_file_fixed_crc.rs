@@ -8,6 +8,6 @@ fuzz_target!(|data: &[u8]| {
     let mut data = data.to_vec();
     bagwise::fuzzing::fix_checksum(&mut data);
     if let Err(err) = bagwise::fuzzing::check_file(&data) {
-        assert!(err.to_string().starts_with("`data`: "), "{err}");
+        assert!(bagwise::fuzzing::names_its_argument(&err), "{err}");
     }
 });
