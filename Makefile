@@ -7,13 +7,15 @@
 #   make bench   release build, then the benchmarks under tests/bench/
 #   make dev     fast incremental rebuild for the edit loop
 #   make soak    release build, then 1,000 calls of every main entry point (RSS, threads, files)
+#   make fuzz    the loader fuzz targets (cargo-fuzz, nightly) for FUZZ_SECONDS in all
 
 PYTHON ?= python3
 VENV   ?= .venv
 PY     := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
 
-.PHONY: demo test lint bench dev install install-test clean soak
+
+.PHONY: demo test lint bench dev install install-test clean soak fuzz
 
 $(VENV)/created:
 	@echo "creating $(VENV)"
@@ -55,6 +57,20 @@ bench: install
 
 soak: install
 	$(PY) tests/bench/soak.py
+# Loader fuzzing: seeds the corpora with valid files (examples/fuzz_seeds.rs), then runs
+# each target for its share of FUZZ_SECONDS. Needs `rustup toolchain install nightly` and
+# `cargo install cargo-fuzz`. A crash lands in fuzz/artifacts/<target>/.
+FUZZ_SECONDS ?= 600
+FUZZ_TARGETS ?= model_payload model_file_fixed_crc model_file
+FUZZ_RSS_MB  ?= 1024
+fuzz:
+	cargo run --quiet --example fuzz_seeds
+	@set -e; targets="$(FUZZ_TARGETS)"; share=$$(( $(FUZZ_SECONDS) / $$(echo $$targets | wc -w) )); \
+	for target in $$targets; do \
+		echo "== $$target for $$share s"; \
+		cargo +nightly fuzz run $$target -- -max_total_time=$$share \
+			-rss_limit_mb=$(FUZZ_RSS_MB) -malloc_limit_mb=$(FUZZ_RSS_MB) -print_final_stats=1; \
+	done
 
 clean:
 	rm -rf $(VENV) target

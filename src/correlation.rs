@@ -565,6 +565,26 @@ impl CorrelationState {
 impl MergeableState for CorrelationState {
     type Output = ResidualCorrelation;
 
+    fn check_stored(&self) -> Result<()> {
+        let m = self.members.unwrap_or(0);
+        let pairs = m
+            .checked_add(1)
+            .and_then(|k| k.checked_mul(m))
+            .map(|k| k / 2);
+        let ok = self.members != Some(0)
+            && (self.members.is_some() || self.count == 0)
+            && self.means.len() == m
+            && pairs == Some(self.comoments.len());
+        if ok {
+            Ok(())
+        } else {
+            Err(Error::value(
+                "state",
+                "is not a consistent correlation state (table sizes disagree)",
+            ))
+        }
+    }
+
     fn merge(&mut self, other: Self) -> Result<()> {
         if let (Some(a), Some(b)) = (self.members, other.members) {
             if a != b {

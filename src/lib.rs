@@ -15,7 +15,8 @@
 //! - [`numeric`]: the f32/f64 input trait and mergeable (Chan-style) moments;
 //! - [`parallel`]: explicit thread counts and progress/interrupt hooks for long loops;
 //! - [`learners`]: the native learners of bagged ensembles;
-//! - [`persistence`]: the checksummed file container of fitted ensembles.
+//! - [`persistence`]: the checksummed file container of fitted ensembles;
+//! - [`fuzzing`]: seed files, mutations and the contract of the loader fuzzing.
 //!
 //! The pyo3 bindings live in the `python` module behind the `python` cargo feature, which
 //! maturin turns on; `cargo test` builds and tests the core without linking Python.
@@ -25,6 +26,7 @@ pub mod correlation;
 pub mod decomposition;
 pub mod diversity;
 pub mod error;
+pub mod fuzzing;
 pub mod intervals;
 pub mod learners;
 pub mod members;

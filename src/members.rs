@@ -501,8 +501,21 @@ pub trait MergeableState: Serialize + DeserializeOwned {
     /// # Errors
     /// `state` for bytes that are not such a state.
     fn from_bytes(bytes: &[u8]) -> Result<Self> {
-        postcard::from_bytes(bytes)
-            .map_err(|e| Error::value("state", format!("is not a stored stream state: {e}")))
+        let state: Self = postcard::from_bytes(bytes)
+            .map_err(|e| Error::value("state", format!("is not a stored stream state: {e}")))?;
+        state.check_stored()?;
+        Ok(state)
+    }
+
+    /// Checks the sizes of a decoded state against one another (table lengths against the
+    /// member and size counts), so a corrupt stored state is refused by
+    /// [`from_bytes`](MergeableState::from_bytes) instead of indexing out of range or
+    /// allocating by a corrupt count in `finish`, `merge` or `update`.
+    ///
+    /// # Errors
+    /// `state` when the sizes disagree.
+    fn check_stored(&self) -> Result<()> {
+        Ok(())
     }
 }
 

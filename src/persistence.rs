@@ -20,6 +20,10 @@
 //! CRC-32/ISO-HDLC).
 
 use crate::error::{Error, Result};
+use crate::learners::linear::LinearEnsemble;
+use crate::learners::neighbors::NeighborsEnsemble;
+use crate::learners::tree::TreeEnsemble;
+use crate::learners::FittedMembers;
 
 /// The 8 magic bytes every file starts with.
 pub const MAGIC: [u8; 8] = *b"\x89BAGWISE";
@@ -115,7 +119,12 @@ impl Container {
             data,
             at: MAGIC.len(),
         };
-        let version = u32::from_le_bytes(reader.take(4)?.try_into().expect("4 bytes"));
+        let version = u32::from_le_bytes(
+            reader
+                .take(4, "the format version")?
+                .try_into()
+                .expect("4 bytes"),
+        );
         if version != FORMAT_VERSION {
             return Err(Error::value(
                 "data",
@@ -126,7 +135,7 @@ impl Container {
             ));
         }
         if data.len() < reader.at + 4 {
-            return Err(truncated());
+            return Err(truncated("the checksum", 4, data.len() - reader.at));
         }
         let (body, tail) = data.split_at(data.len() - 4);
         let stored = u32::from_le_bytes(tail.try_into().expect("4 bytes"));
@@ -140,18 +149,18 @@ impl Container {
             data: body,
             at: reader.at,
         };
-        let kind_len = reader.take(1)?[0] as usize;
-        let kind = reader.take(kind_len)?;
+        let kind_len = reader.take(1, "the kind length")?[0] as usize;
+        let kind = reader.take(kind_len, "the kind tag")?;
         if kind.is_empty() || !kind.iter().all(|b| b.is_ascii_graphic()) {
             return Err(Error::value("data", "has an invalid learner kind tag"));
         }
         let kind = String::from_utf8(kind.to_vec()).expect("ASCII");
-        let metadata_len = reader.length()?;
-        let metadata = std::str::from_utf8(reader.take(metadata_len)?)
+        let metadata_len = reader.length("the metadata length")?;
+        let metadata = std::str::from_utf8(reader.take(metadata_len, "the metadata")?)
             .map_err(|_| Error::value("data", "metadata is not valid UTF-8"))?
             .to_string();
-        let payload_len = reader.length()?;
-        let payload = reader.take(payload_len)?.to_vec();
+        let payload_len = reader.length("the payload length")?;
+        let payload = reader.take(payload_len, "the payload")?.to_vec();
         if reader.at != body.len() {
             return Err(Error::value(
                 "data",
@@ -166,8 +175,70 @@ impl Container {
     }
 }
 
-fn truncated() -> Error {
-    Error::value("data", "is truncated")
+/// A fitted native ensemble read from a container, whichever its learner: the payload
+/// decoded by the learner that the kind tag names (the tags of `python/bagwise/_learners.py`).
+#[derive(Debug, Clone, PartialEq)]
+pub enum Model {
+    Tree(TreeEnsemble),
+    Linear(LinearEnsemble),
+    Neighbors(NeighborsEnsemble),
+}
+
+impl Model {
+    /// Decodes `payload` with the learner of kind tag `kind`.
+    ///
+    /// # Errors
+    /// `data` for an unknown kind tag, or a payload that does not decode into a well-formed
+    /// ensemble of that learner.
+    pub fn decode(kind: &str, payload: &[u8]) -> Result<Self> {
+        match kind {
+            "tree" => TreeEnsemble::from_bytes(payload).map(Model::Tree),
+            "linear" => <LinearEnsemble as FittedMembers>::from_bytes(payload).map(Model::Linear),
+            "neighbors" => {
+                <NeighborsEnsemble as FittedMembers>::from_bytes(payload).map(Model::Neighbors)
+            }
+            other => Err(Error::value(
+                "data",
+                format!("holds an unknown learner kind {other:?}"),
+            )),
+        }
+    }
+
+    /// The kind tag of the learner.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            Model::Tree(_) => "tree",
+            Model::Linear(_) => "linear",
+            Model::Neighbors(_) => "neighbors",
+        }
+    }
+
+    /// The payload bytes of the learner.
+    pub fn to_bytes(&self) -> Vec<u8> {
+        match self {
+            Model::Tree(m) => FittedMembers::to_bytes(m),
+            Model::Linear(m) => FittedMembers::to_bytes(m),
+            Model::Neighbors(m) => FittedMembers::to_bytes(m),
+        }
+    }
+}
+
+/// Reads a whole model file: the container ([`Container::from_bytes`]) and its payload
+/// ([`Model::decode`]), so every byte of the file is checked before anything is predicted.
+///
+/// # Errors
+/// `data` as the two steps.
+pub fn read_model(data: &[u8]) -> Result<(Container, Model)> {
+    let container = Container::from_bytes(data)?;
+    let model = Model::decode(&container.kind, &container.payload)?;
+    Ok((container, model))
+}
+
+fn truncated(field: &str, needed: impl std::fmt::Display, left: usize) -> Error {
+    Error::value(
+        "data",
+        format!("is truncated: {field} needs {needed} bytes but {left} remain"),
+    )
 }
 
 struct Reader<'a> {
@@ -176,16 +247,25 @@ struct Reader<'a> {
 }
 
 impl<'a> Reader<'a> {
-    fn take(&mut self, len: usize) -> Result<&'a [u8]> {
-        let end = self.at.checked_add(len).ok_or_else(truncated)?;
-        let slice = self.data.get(self.at..end).ok_or_else(truncated)?;
-        self.at = end;
+    /// The next `len` bytes, never read past the end (`field` names them in the error).
+    fn take(&mut self, len: usize, field: &str) -> Result<&'a [u8]> {
+        let left = self.data.len() - self.at;
+        if len > left {
+            return Err(truncated(field, len, left));
+        }
+        let slice = &self.data[self.at..self.at + len];
+        self.at += len;
         Ok(slice)
     }
 
-    fn length(&mut self) -> Result<usize> {
-        let raw = u64::from_le_bytes(self.take(8)?.try_into().expect("8 bytes"));
-        usize::try_from(raw).map_err(|_| truncated())
+    /// A u64 length field, checked against the bytes left before anything is sized by it.
+    fn length(&mut self, field: &str) -> Result<usize> {
+        let raw = u64::from_le_bytes(self.take(8, field)?.try_into().expect("8 bytes"));
+        let left = self.data.len() - self.at;
+        match usize::try_from(raw) {
+            Ok(len) if len <= left => Ok(len),
+            _ => Err(truncated(field, raw, left)),
+        }
     }
 }
 

@@ -22,6 +22,7 @@ use crate::decomposition::{
 use crate::error::{Error, Result};
 use crate::members::{
     add_votes, class_of, for_chunks, no_slots, Chunks, Members, MergeableState, Targets,
+    MAX_CLASSES,
 };
 use crate::numeric::{Moments, Real};
 use crate::parallel::{Monitor, Pool};
@@ -439,6 +440,38 @@ impl SizeCurveState {
 
 impl MergeableState for SizeCurveState {
     type Output = SizeCurve;
+
+    fn check_stored(&self) -> Result<()> {
+        let m = self.members;
+        let sizes_ok = !self.sizes.is_empty()
+            && self.sizes.windows(2).all(|w| w[0] < w[1])
+            && self.sizes[0] >= 1
+            && self.sizes[self.sizes.len() - 1] <= m;
+        // Every order has m entries before `m` sizes anything (m is bounded by the bytes).
+        let orders_ok = !self.orders.is_empty()
+            && self.orders.iter().all(|order| order.len() == m)
+            && self.orders.iter().all(|order| {
+                let mut seen = vec![false; m];
+                order
+                    .iter()
+                    .all(|&b| b < m && !std::mem::replace(&mut seen[b], true))
+            });
+        let ok = m >= 1
+            && sizes_ok
+            && orders_ok
+            && self.orders.len().checked_mul(self.sizes.len()) == Some(self.sums.len())
+            && self
+                .n_classes
+                .is_none_or(|k| (1..=MAX_CLASSES).contains(&k));
+        if ok {
+            Ok(())
+        } else {
+            Err(Error::value(
+                "state",
+                "is not a consistent size-curve state (sizes, orders or sums disagree)",
+            ))
+        }
+    }
 
     fn merge(&mut self, other: Self) -> Result<()> {
         if other.loss != self.loss

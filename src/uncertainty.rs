@@ -942,6 +942,29 @@ impl CountGramState {
 impl MergeableState for CountGramState {
     type Output = CountGram;
 
+    fn check_stored(&self) -> Result<()> {
+        let b = self.n_members.map_or(Some(0), |b| usize::try_from(b).ok());
+        let pairs = b
+            .and_then(|b| b.checked_add(1)?.checked_mul(b))
+            .map(|k| k / 2);
+        let ok = self.n_members != Some(0)
+            && b == Some(self.row_totals.len())
+            && pairs == Some(self.gram.len())
+            && (self.jackknife || self.out_of_bag.is_empty())
+            && self
+                .out_of_bag
+                .iter()
+                .all(|(&o, g)| o > 0 && g.len() == self.gram.len());
+        if ok {
+            Ok(())
+        } else {
+            Err(Error::value(
+                "state",
+                "is not a consistent count Gram state (table sizes disagree)",
+            ))
+        }
+    }
+
     fn merge(&mut self, other: Self) -> Result<()> {
         if other.jackknife != self.jackknife {
             return Err(Error::value(

@@ -191,3 +191,16 @@ def test_stable_learners_gain_nothing_from_bagging():
     # Pass rate over 200 seeds (tests/bench/suite_a_pass_rate.py): 100%.
     ratio = stable_ratio(0)
     assert STABLE_RATIO[0] <= ratio < STABLE_RATIO[1], ratio
+
+
+def test_a_prediction_beyond_the_float64_range_is_an_error_naming_x():
+    # Finite coefficients times finite points can overflow float64 (found by the loader
+    # fuzzer on a corrupt model; reachable from a fit on tiny-scale features too): the
+    # prediction is refused, never returned as inf or NaN.
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=(40, 2)) * 1e-150
+    y = x @ np.array([1e150, -2e150]) + rng.normal(size=40)
+    bag = bagwise.BagRegressor("linear", n_members=3, random_state=0).fit(x, y)
+    assert np.isfinite(bag.predict(x)).all()
+    with pytest.raises(ValueError, match=r"^`x`: .*float64 range"):
+        bag.predict(np.full((2, 2), 1e300))

@@ -176,3 +176,123 @@ def test_files_with_the_former_estimator_and_parameter_names_still_load(tmp_path
     assert type(back) is bagwise.BagRegressor and back.get_params() == bag.get_params()
     assert back.seed_ == bag.seed_ == 3
     np.testing.assert_array_equal(back.member_predictions(x), bag.member_predictions(x))
+
+
+def test_paths_that_are_not_model_files_name_the_argument(tmp_path):
+    # Empty, missing, a directory, a truncated header: each a clear error naming `path`.
+    empty = tmp_path / "empty.bagwise"
+    empty.write_bytes(b"")
+    with pytest.raises(ValueError, match=r"^`path`: .*empty"):
+        bagwise.load(empty)
+    with pytest.raises(FileNotFoundError, match=r"^`path`: .*no such file"):
+        bagwise.load(tmp_path / "missing.bagwise")
+    with pytest.raises(IsADirectoryError, match=r"^`path`: .*directory"):
+        bagwise.load(tmp_path)
+    with pytest.raises(TypeError, match=r"^`path`"):
+        bagwise.load(3.5)
+    header = tmp_path / "header.bagwise"
+    header.write_bytes(b"\x89BAGWISE\x01\x00\x00")
+    with pytest.raises(ValueError, match=r"^`path`: .*truncated"):
+        bagwise.load(header)
+
+
+def test_wrong_kind_and_corrupt_metadata_are_refused_with_the_argument(tmp_path):
+    # Valid checksums around bad contents: a payload of another learner, and metadata
+    # edited field by field (missing keys, wrong types, shapes that disagree). Each edit
+    # is refused with a ValueError naming `path`, never another exception.
+    bag, _ = _fitted()["classes"]
+    path = tmp_path / "bag.bagwise"
+    bag.save(path)
+    kind, text, payload = _core.unpack_container(path.read_bytes())
+    linear_kind, _, linear_payload = _core.unpack_container(
+        _core.pack_container("linear", "{}", _fitted()["linear"][0]._model.to_bytes()))
+    meta = json.loads(text)
+    edits = [("tree", text, payload), (kind, text, linear_payload), (kind, "[]", payload),
+             (kind, "null", payload), (kind, "", payload), (kind, "\"text\"", payload)]
+    values = [None, 0, -1, 2**70, 1.5, "x", [], {}, [[1]], {"dtype": "<f8"}]
+    for key in meta:
+        reduced = {k: v for k, v in meta.items() if k != key}
+        edits.append((kind, json.dumps(reduced), payload))
+        for value in values:
+            if value != meta[key]:
+                edits.append((kind, json.dumps({**meta, key: value}), payload))
+    for field in ("dtype", "shape", "data"):
+        for value in values:
+            in_bag = {**meta["in_bag"], field: value}
+            edits.append((kind, json.dumps({**meta, "in_bag": in_bag}), payload))
+    for field in ("dtype", "values"):
+        for value in values:
+            classes = {**meta["classes"], field: value}
+            edits.append((kind, json.dumps({**meta, "classes": classes}), payload))
+    refused = 0
+    for edit in edits:
+        path.write_bytes(_core.pack_container(*edit))
+        try:
+            back = bagwise.load(path)
+        except ValueError as err:
+            assert str(err).startswith("`path`: "), (edit[1][:200], err)
+            refused += 1
+        else:
+            # An edit that still loads must give a working estimator.
+            points = np.zeros((2, back.n_features_in_))
+            if hasattr(back, "feature_names_in_"):
+                points = pd.DataFrame(points, columns=list(back.feature_names_in_))
+            back.predict(points)
+    assert refused >= len(edits) - 20, (refused, len(edits))
+
+
+def _stream_states():
+    """Core states of every stream after one chunk, as `pickle` stores them."""
+    rng = np.random.default_rng(4)
+    members, y = rng.normal(size=(4, 9)), rng.normal(size=9)
+    labels, truth = rng.integers(3, size=(4, 9)), rng.integers(3, size=9)
+    counts = bagwise.resample(9, 4, rng=1).counts
+    streams = {
+        "decompose": bagwise.decompose_stream().update(members, y),
+        "size_curve": bagwise.size_curve_stream(orders=3).update(members, y),
+        "correlation": bagwise.correlation_stream(matrix=True).update(members, y),
+        "diversity": bagwise.diversity_stream(n_classes=3).update(labels, truth),
+        "out_of_bag": bagwise.out_of_bag_stream().update(members, counts, y),
+        "replicate_spread": bagwise.replicate_spread_stream().update(
+            members.reshape(2, 2, 9), y),
+        "count_gram": bagwise.count_gram_stream(jackknife=True).update(counts),
+    }
+    return {name: getattr(stream, "_core", None) or stream._state
+            for name, stream in streams.items()}
+
+
+@pytest.mark.parametrize("name", sorted(_stream_states()))
+def test_corrupt_stream_states_are_refused_or_finish_without_a_panic(name):
+    # Pickled streams restore through `from_bytes`: every edit of the stored bytes (each
+    # byte set to 0x00, 0x01, 0x7F, 0x80, 0xFF, a huge varint inserted, truncation at every
+    # length) is refused with a ValueError naming `data`/`state`, or restores a state whose
+    # result and self-merge raise at most a ValueError; a Rust panic (PanicException, not an
+    # Exception) fails the test.
+    state = _stream_states()[name]
+    cls = type(state)
+    data = state.to_bytes()
+    assert cls.from_bytes(data).to_bytes() == data
+    edits = [data[:cut] for cut in range(len(data))]
+    for at in range(len(data)):
+        for byte in (0x00, 0x01, 0x7F, 0x80, 0xFF):
+            edits.append(data[:at] + bytes([byte]) + data[at + 1:])
+        edits.append(data[:at] + b"\xff" * 9 + b"\x7f" + data[at:])
+    refused = 0
+    for edit in edits:
+        try:
+            restored = cls.from_bytes(edit)
+        except ValueError as err:
+            assert str(err).startswith(("`data`", "`state`")), err
+            refused += 1
+            continue
+        for method in ("result", "finish", "losses"):
+            if hasattr(restored, method):
+                try:
+                    getattr(restored, method)()
+                except (ValueError, TypeError):
+                    pass
+        try:
+            restored.merge(cls.from_bytes(edit))
+        except ValueError:
+            pass
+    assert refused > 0

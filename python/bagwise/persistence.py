@@ -131,19 +131,36 @@ def load(path):
     Raises
     ------
     ValueError
-        When the file is not a bagwise file, has another format version, fails its
+        When the file is empty, not a bagwise file, has another format version, fails its
         checksum (corrupted or truncated) or holds inconsistent contents.
+    FileNotFoundError, IsADirectoryError, OSError
+        When ``path`` does not exist, is a directory or cannot be read.
+
+    Every message starts with the argument name, ``path``, in backticks.
     """
-    with open(os.fspath(path), "rb") as handle:
-        data = handle.read()
-    where = f"`path`: {os.fspath(path)!s}"
+    try:
+        name = os.fspath(path)
+    except TypeError:
+        raise TypeError(f"`path`: expected a str or os.PathLike, got {type(path).__name__}") from None
+    where = f"`path`: {name!s}"
+    if os.path.isdir(name):
+        raise IsADirectoryError(f"{where}: is a directory, not a bagwise file")
+    try:
+        with open(name, "rb") as handle:
+            data = handle.read()
+    except FileNotFoundError:
+        raise FileNotFoundError(f"{where}: no such file") from None
+    except OSError as err:
+        raise type(err)(f"{where}: cannot be read ({err.strerror or err})") from None
+    if not data:
+        raise ValueError(f"{where}: is empty, not a bagwise file")
     try:
         kind, text, payload = _core.unpack_container(data)
     except ValueError as err:
         raise ValueError(f"{where}: {err}") from None
     try:
         meta = json.loads(text)
-        if meta.get("format") != _FORMAT:
+        if not isinstance(meta, dict) or meta.get("format") != _FORMAT:
             raise ValueError("the metadata is not that of a bagwise ensemble")
         cls = _learners.estimator_class(meta["estimator"])
         learner = _learners.learner_of_tag(kind)
@@ -156,15 +173,23 @@ def load(path):
         classes = meta["classes"]
         if classes is not None:
             classes = np.array(classes["values"], dtype=classes["dtype"])
+            if classes.ndim != 1:
+                raise ValueError("the classes are not a list of labels")
         n_features = int(meta["n_features_in"])
+        seed = params["random_state"]
+        names = meta["feature_names_in"]
+        if names is not None:
+            names = np.asarray(names, dtype=object)
+            if names.shape != (n_features,):
+                raise ValueError("the feature names do not match the number of features")
     except ValueError as err:
         raise ValueError(f"{where}: inconsistent contents ({err})") from None
-    except (KeyError, TypeError, AttributeError) as err:
+    except (KeyError, TypeError, AttributeError, OverflowError) as err:
         raise ValueError(f"{where}: inconsistent contents (bad metadata: {err!r})") from None
     consistent = (
-        model.n_members == in_bag.shape[0]
+        in_bag.ndim == 2
+        and model.n_members == in_bag.shape[0]
         and model.n_features == n_features
-        and in_bag.ndim == 2
         and (classes is None) == (not cls._classification)
         and (classes is None or model.n_classes == len(classes))
     )
@@ -173,9 +198,9 @@ def load(path):
     estimator._model = model
     estimator.in_bag_ = in_bag
     estimator.n_features_in_ = n_features
-    estimator.seed_ = params["random_state"]
-    if meta["feature_names_in"] is not None:
-        estimator.feature_names_in_ = np.asarray(meta["feature_names_in"], dtype=object)
+    estimator.seed_ = seed
+    if names is not None:
+        estimator.feature_names_in_ = names
     if classes is not None:
         estimator.classes_ = classes
     return estimator

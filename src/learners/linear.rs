@@ -18,6 +18,8 @@
 //! or constant features, or fewer distinct in-bag rows than features + 1) instead of
 //! returning unstable coefficients.
 
+use std::sync::atomic::{AtomicBool, Ordering};
+
 use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
@@ -309,18 +311,19 @@ impl LinearEnsemble {
         if out.len() != n * self.members() {
             return Err(Error::value("out", "has the wrong length"));
         }
+        let overflowed = AtomicBool::new(false);
         pool.run(|| {
             out.par_chunks_mut(n).enumerate().for_each(|(m, row)| {
                 row.par_chunks_mut(POINT_CHUNK)
                     .enumerate()
                     .for_each(|(c, part)| {
                         for (k, slot) in part.iter_mut().enumerate() {
-                            *slot = self.predict_row(m, x, c * POINT_CHUNK + k);
+                            *slot = self.checked_row(m, x, c * POINT_CHUNK + k, &overflowed);
                         }
                     })
             })
         });
-        Ok(())
+        overflow_check(&overflowed)
     }
 
     /// Writes each member's prediction on its out-of-bag rows of the training design `x`
@@ -352,6 +355,7 @@ impl LinearEnsemble {
         if out.len() != n * self.members() {
             return Err(Error::value("out", "has the wrong length"));
         }
+        let overflowed = AtomicBool::new(false);
         pool.run(|| {
             out.par_chunks_mut(n)
                 .zip(bags.par_iter())
@@ -361,11 +365,41 @@ impl LinearEnsemble {
                     let mut inside = bag.rows.iter().peekable();
                     for (i, slot) in row.iter_mut().enumerate() {
                         if inside.next_if(|&&r| r == i).is_none() {
-                            *slot = self.predict_row(m, x, i);
+                            *slot = self.checked_row(m, x, i, &overflowed);
                         }
                     }
                 })
         });
+        overflow_check(&overflowed)
+    }
+
+    /// [`predict_row`](Self::predict_row), raising `overflowed` when the value is not
+    /// finite (finite coefficients times finite points can still exceed the f64 range).
+    #[inline]
+    fn checked_row<T: Real>(
+        &self,
+        member: usize,
+        x: ArrayView2<'_, T>,
+        i: usize,
+        overflowed: &AtomicBool,
+    ) -> f64 {
+        let v = self.predict_row(member, x, i);
+        if !v.is_finite() {
+            overflowed.store(true, Ordering::Relaxed);
+        }
+        v
+    }
+}
+
+/// The error of a prediction beyond the f64 range, never returned as an infinity or NaN.
+fn overflow_check(overflowed: &AtomicBool) -> Result<()> {
+    if overflowed.load(Ordering::Relaxed) {
+        Err(Error::value(
+            "x",
+            "gives a member prediction beyond the float64 range (intercept plus \
+             coefficients times x overflows)",
+        ))
+    } else {
         Ok(())
     }
 }
@@ -524,12 +558,19 @@ impl FittedMembers for LinearEnsemble {
     }
 
     fn from_bytes(data: &[u8]) -> Result<Self> {
-        let ensemble: LinearEnsemble = postcard::from_bytes(data).map_err(|e| {
-            Error::value(
+        let (ensemble, rest): (LinearEnsemble, &[u8]) =
+            postcard::take_from_bytes(data).map_err(|e| {
+                Error::value(
+                    "data",
+                    format!("is not a valid linear ensemble encoding ({e})"),
+                )
+            })?;
+        if !rest.is_empty() {
+            return Err(Error::value(
                 "data",
-                format!("is not a valid linear ensemble encoding ({e})"),
-            )
-        })?;
+                "has trailing bytes after the linear ensemble",
+            ));
+        }
         ensemble.validate()?;
         Ok(ensemble)
     }

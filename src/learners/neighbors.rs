@@ -20,6 +20,7 @@ use serde::{Deserialize, Serialize};
 
 use super::{check_design, check_parts, count_bags, Bag, FittedMembers, Targets, Task};
 use crate::error::{Error, Result};
+use crate::members::MAX_CLASSES;
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 use crate::resampling::Count;
@@ -157,7 +158,7 @@ impl NeighborsEnsemble {
         let classes_ok = match self.task {
             Task::Regression => true,
             Task::Classification { n_classes } => {
-                n_classes >= 1
+                (1..=MAX_CLASSES).contains(&n_classes)
                     && self
                         .targets
                         .iter()
@@ -483,12 +484,19 @@ impl FittedMembers for NeighborsEnsemble {
     }
 
     fn from_bytes(data: &[u8]) -> Result<Self> {
-        let ensemble: NeighborsEnsemble = postcard::from_bytes(data).map_err(|e| {
-            Error::value(
+        let (ensemble, rest): (NeighborsEnsemble, &[u8]) = postcard::take_from_bytes(data)
+            .map_err(|e| {
+                Error::value(
+                    "data",
+                    format!("is not a valid neighbours ensemble encoding ({e})"),
+                )
+            })?;
+        if !rest.is_empty() {
+            return Err(Error::value(
                 "data",
-                format!("is not a valid neighbours ensemble encoding ({e})"),
-            )
-        })?;
+                "has trailing bytes after the neighbours ensemble",
+            ));
+        }
         ensemble.validate()?;
         Ok(ensemble)
     }

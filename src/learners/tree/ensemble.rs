@@ -9,6 +9,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::learners::{check_parts, FittedMembers, Task};
+use crate::members::{MAX_CLASSES, PROBABILITY_TOLERANCE};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 use crate::resampling::Count;
@@ -163,6 +164,12 @@ impl TreeEnsemble {
         &self.trees
     }
 
+    /// The member trees, mutable, for the tests that corrupt a decoded ensemble.
+    #[cfg(test)]
+    pub(crate) fn trees_mut(&mut self) -> &mut Vec<Tree> {
+        &mut self.trees
+    }
+
     /// Node count of every member.
     pub fn node_counts(&self) -> Vec<usize> {
         self.trees.iter().map(Tree::node_count).collect()
@@ -203,13 +210,32 @@ impl TreeEnsemble {
         if width == 0 || self.n_features == 0 || self.trees.is_empty() {
             return Err(Error::value("data", "empty tree ensemble"));
         }
+        if width > MAX_CLASSES {
+            return Err(Error::value(
+                "data",
+                format!("has {width} classes, more than {MAX_CLASSES}"),
+            ));
+        }
+        let classification = matches!(self.task, Task::Classification { .. });
         for (m, t) in self.trees.iter().enumerate() {
             let n = t.nodes.len();
-            if n == 0 {
-                return Err(bad(m, "no nodes"));
+            if n == 0 || n > LEAF as usize {
+                return Err(bad(m, "no nodes, or more than 2^32 - 1"));
             }
-            if t.values.len() % width != 0 || t.values.iter().any(|v| v.is_nan()) {
+            if t.values.len() % width != 0 || t.values.iter().any(|v| !v.is_finite()) {
                 return Err(bad(m, "bad leaf values"));
+            }
+            // A class leaf holds fractions W_k / W: each in [0, 1], summing to 1.
+            let fractions = |leaf: &[f64]| {
+                leaf.iter()
+                    .all(|p| (-PROBABILITY_TOLERANCE..=1.0 + PROBABILITY_TOLERANCE).contains(p))
+                    && (leaf.iter().sum::<f64>() - 1.0).abs() <= PROBABILITY_TOLERANCE
+            };
+            if classification && !t.values.chunks_exact(width).all(fractions) {
+                return Err(bad(
+                    m,
+                    "class fractions of a leaf outside [0, 1] or not summing to 1",
+                ));
             }
             let leaves = t.values.len() / width;
             for (i, node) in t.nodes.iter().enumerate() {
