@@ -5,6 +5,7 @@
 #   make test    install test dependencies, run every Rust and Python test
 #   make lint    cargo fmt --check, clippy -D warnings, ruff
 #   make bench   release build, then the benchmarks under tests/bench/
+#   make properties  the property tests under the soak profile, with their case counts
 #   make dev     fast incremental rebuild for the edit loop
 
 PYTHON ?= python3
@@ -12,7 +13,7 @@ VENV   ?= .venv
 PY     := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
 
-.PHONY: demo test lint bench dev install install-test clean
+.PHONY: demo test lint bench dev install install-test clean properties
 
 $(VENV)/created:
 	@echo "creating $(VENV)"
@@ -46,6 +47,13 @@ lint: install-test
 	cargo clippy --quiet --all-targets -- -D warnings
 	cargo clippy --quiet --all-targets --features python -- -D warnings
 	$(VENV)/bin/ruff check python tests demo-data notebooks/build.py
+
+# The soak of the property tests: >= 20,000 generated cases over every public call; prints
+# the cases tried / accepted / refused / crashed per call and in total (also in
+# .venv/properties-summary.json).
+properties: install-test
+	BAGWISE_HYPOTHESIS_PROFILE=soak BAGWISE_PROPERTIES_SUMMARY=$(VENV)/properties-summary.json \
+		$(PY) -m pytest tests/test_properties.py -q -p no:cacheprovider
 
 bench: install
 	@set -e; for script in tests/bench/bench_*.py; do \

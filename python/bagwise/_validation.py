@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import contextlib
 import numbers
+import re
 import secrets
 
 import numpy as np
@@ -92,3 +94,24 @@ def rng_seed(rng: object) -> int:
     if not 0 <= rng < 2**64:
         raise ValueError(f"`rng`: must lie in [0, 2**64), got {rng}")
     return rng
+
+
+# An input error of scikit-learn's checks about the targets rather than the features.
+_ABOUT_TARGETS = re.compile(r"(^|\s)y\b|Input y|label|classes|inconsistent numbers of samples")
+
+
+@contextlib.contextmanager
+def naming(name: str, targets: str | None = None):
+    """Errors of input checks that name no argument (scikit-learn's ``validate_data``, numpy
+    conversions) raised again as a ``ValueError`` / ``TypeError`` whose message starts with
+    ``name`` in backticks, or ``targets`` when the message is about the targets. A message
+    that already starts with an argument in backticks passes unchanged."""
+    try:
+        yield
+    except (ValueError, TypeError) as err:
+        message = str(err)
+        if message.startswith("`"):
+            raise
+        which = targets if targets and _ABOUT_TARGETS.search(message) else name
+        kind = ValueError if isinstance(err, ValueError) else TypeError
+        raise kind(f"`{which}`: {message}") from None

@@ -636,7 +636,7 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     """
     from sklearn.utils.validation import check_consistent_length
 
-    from ._validation import n_jobs_value, positive_int
+    from ._validation import n_jobs_value, naming, positive_int
     from .ensemble import _seed_of
 
     named = _learners_iv(learners)
@@ -645,7 +645,8 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     if X is None or y is None:
         raise ValueError(f"`{'X' if X is None else 'y'}`: give the training rows and targets")
     try:
-        check_consistent_length(X, y)
+        with naming("X"):
+            check_consistent_length(X, y)
     except ValueError:
         raise ValueError(f"`y`: has {len(y)} targets but `X` has {len(X)} rows") from None
     y_array = np.asarray(y)

@@ -27,7 +27,7 @@ from . import _core, persistence
 from ._chunked import is_lazy
 from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
-from ._validation import n_jobs_value, positive_int
+from ._validation import n_jobs_value, naming, positive_int
 from ._warnings import warn
 from .resampling import LITTLE_BAGS_FRACTION, check_group_size, resample
 
@@ -320,8 +320,9 @@ class _Bag(BaseEstimator):
             X = _distributed.lazy_design(X)
             y = self._lazy_targets(y, X.shape[0])
         elif native:
-            X, y = validate_data(self, X, y, dtype=[np.float64, np.float32],
-                                 y_numeric=not self._classification, ensure_min_samples=2)
+            with naming("X", targets="y"):
+                X, y = validate_data(self, X, y, dtype=[np.float64, np.float32],
+                                     y_numeric=not self._classification, ensure_min_samples=2)
         else:
             validate_data(self, _distributed.schema(X), skip_check_array=True)
             if y is None:
@@ -479,9 +480,10 @@ class _Bag(BaseEstimator):
 
     def _check_X(self, X):
         check_is_fitted(self)
-        if self._native:
-            return validate_data(self, X, reset=False, dtype=[np.float64, np.float32])
-        validate_data(self, X, reset=False, skip_check_array=True)
+        with naming("X"):
+            if self._native:
+                return validate_data(self, X, reset=False, dtype=[np.float64, np.float32])
+            validate_data(self, X, reset=False, skip_check_array=True)
         return X
 
     def _predictor(self, n_jobs) -> _Predictor:
@@ -558,8 +560,9 @@ class _Bag(BaseEstimator):
         Returns
         -------
         ndarray of float64
-            Shaped as `member_predictions` on the training rows. Native learners compute
-            only the out-of-bag rows; with ``scheme="none"`` every entry is NaN.
+            Shaped as `member_predictions` on the training rows, NaN where the member drew
+            the row (in bag): only the out-of-bag entries are predictions (native learners
+            compute only those); with ``scheme="none"`` every entry is NaN.
         """
         check_is_fitted(self)
         if self.in_bag_.dtype.kind == "f":

@@ -42,6 +42,7 @@ import numpy as np
 
 from ._members import as_array, in_bag_counts
 from ._results import Result
+from ._validation import naming
 
 __all__ = ["EnsembleArrays", "read_ensemble"]
 
@@ -307,8 +308,11 @@ def _predicted(model, predict, X, X_train, y_train, counts, n_rows, classificati
     train = None
     if X_train is not None:
         _rows_of(X_train, n_rows, type(model).__name__)
-        train = predict(X_train)
-    return _result(model, predict(X), counts, train, y_train,
+        with naming("X_train"):
+            train = predict(X_train)
+    with naming("X"):
+        points = predict(X)
+    return _result(model, points, counts, train, y_train,
                    model.classes_ if classification else None)
 
 

@@ -224,7 +224,7 @@ class SizeCurveStream:
                 raise ValueError(f"`members`: this chunk has {members.shape[0]} members but "
                                  f"earlier chunks had {self._n_members}")
         y = targets(y, kind, members.shape[1])
-        n_classes = n_classes_of(None, members, y) if kind == "labels" else None
+        n_classes = n_classes_of(None, members, y, blame_labels=True) if kind == "labels" else None
         if kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
         self._core.update(members, y, n_classes, self._n_jobs)

@@ -137,6 +137,12 @@ def _subsample_rows(max_count: int, sums: np.ndarray) -> int:
     return int(sums[0])
 
 
+def _jackknife_iv(jackknife) -> bool:
+    if not isinstance(jackknife, (bool, np.bool_)):
+        raise TypeError(f"`jackknife`: expected True or False, got {jackknife!r}")
+    return bool(jackknife)
+
+
 def _scheme_iv(scheme):
     if scheme not in (None, "bootstrap", "subsample"):
         raise ValueError(f"`scheme`: expected 'bootstrap', 'subsample' or None, got {scheme!r}")
@@ -156,8 +162,7 @@ class CountGramStream:
 
     def __init__(self, *, scheme=None, jackknife=False, n_jobs=None):
         self.scheme = _scheme_iv(scheme)
-        if not isinstance(jackknife, (bool, np.bool_)):
-            raise TypeError(f"`jackknife`: expected True or False, got {jackknife!r}")
+        _jackknife_iv(jackknife)
         self.jackknife = bool(jackknife)
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = _core.CountGramAccumulator(self.jackknife)
@@ -284,6 +289,8 @@ class CountGram:
         if _chunked.is_lazy(counts):
             self._gram = _lazy_count_gram(counts, scheme, jackknife, n_jobs)._gram
             return
+        scheme = _scheme_iv(scheme)
+        jackknife = _jackknife_iv(jackknife)
         counts = _counts_iv(counts)
         subsample_rows = None
         if scheme == "subsample":
@@ -466,7 +473,9 @@ class PredictionVariance(Result):
     raw_variance, correction : ndarray
         The uncorrected estimate and the correction term (corrected = raw − correction).
     correction_share : ndarray
-        ``correction / raw_variance``: near 1 means too few members for a stable estimate.
+        ``correction / raw_variance``: near 1 means too few members for a stable estimate;
+        0 where both are 0 (the members agree exactly, nothing is removed), NaN where only
+        ``raw_variance`` is 0 (such a point is "not estimable").
     noise : ndarray
         The Monte-Carlo standard deviation of ``variance`` (before clipping): how much it
         would move if the members were redrawn on the same training rows (derived in
@@ -521,7 +530,11 @@ class PredictionVariance(Result):
                     member_share=math.nan) -> PredictionVariance:
         """The one place a PredictionVariance is built: from the core's estimate."""
         with np.errstate(divide="ignore", invalid="ignore"):
-            correction_share = np.where(raw > 0, correction / raw, np.nan)
+            # Members that agree exactly at a point have raw = correction = 0: nothing is
+            # removed, share 0 (not 0/0). A zero raw estimate with a non-zero correction
+            # stays NaN; such a point is "not estimable" and warned about below.
+            correction_share = np.where(raw > 0, correction / raw,
+                                        np.where(correction == 0, 0.0, np.nan))
         value = raw - correction if corrected else raw.copy()
         noise = _monte_carlo_noise(method, corrected, raw, correction, value,
                                    n_rows - n_without_out_of_bag, n_members, group_size)
