@@ -743,10 +743,21 @@ def _nan_in_bag(result) -> None:
         raise Crash("out-of-bag predictions are not NaN exactly at the in-bag entries")
 
 
+@contextlib.contextmanager
+def _in_folder(folder):
+    """Run in ``folder`` (a generated relative path writes there, not into the repository)."""
+    here = os.getcwd()
+    os.chdir(folder)
+    try:
+        yield
+    finally:
+        os.chdir(here)
+
+
 def _save_load(args):
-    with tempfile.TemporaryDirectory() as folder:
+    with tempfile.TemporaryDirectory() as folder, _in_folder(folder):
         path = args["path"]
-        if path == "file":
+        if isinstance(path, str) and path == "file":
             path = os.path.join(folder, "model.bag")
         bagwise.save(args["estimator"], path)
         loaded = bagwise.load(path)
