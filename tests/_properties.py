@@ -387,7 +387,7 @@ def run_case(call: Call, argument: str, bad: Bad) -> Outcome:
     args = call.base()
     start = args.get(argument)
     if start is None:
-        start = call.templates.get(argument)
+        start = call.templates.get(argument.removeprefix("opt_"))
     try:
         args[argument] = bad.make(start)
     except Exception:  # a replacement that does not apply to this argument

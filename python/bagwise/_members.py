@@ -264,7 +264,7 @@ def member_weights(weights, n_members: int, name: str = "member_weights") -> np.
     summing to 1 within `WEIGHT_TOLERANCE`."""
     if weights is None:
         return None
-    array = np.asarray(weights)
+    array = as_array(weights, name)
     if array.dtype.kind not in "fiu":
         raise TypeError(f"`{name}`: expected numbers, got dtype {array.dtype}")
     array = array.astype(np.float64)

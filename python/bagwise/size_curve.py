@@ -16,7 +16,7 @@ import numpy as np
 from . import _chunked, _core
 from ._display import fmt as _fmt
 from ._display import plus_minus
-from ._members import loss_for, loss_option, members_array, n_classes_of, targets
+from ._members import as_array, loss_for, loss_option, members_array, n_classes_of, targets
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value, positive_int, rng_seed
 from ._warnings import warn
@@ -182,7 +182,7 @@ def _default_sizes(n_members):
 def _sizes_iv(sizes, n_members):
     if sizes is None:
         return _default_sizes(n_members)
-    array = np.asarray(sizes)
+    array = as_array(sizes, "sizes")
     if array.ndim != 1 or array.size == 0:
         raise ValueError(f"`sizes`: expected a non-empty 1-D list of sizes, got shape {array.shape}")
     if array.dtype.kind not in "iu":
