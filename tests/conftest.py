@@ -21,7 +21,7 @@ _COMMON = dict(deadline=None, database=None, derandomize=True, print_blob=False,
                                       HealthCheck.filter_too_much,
                                       HealthCheck.function_scoped_fixture])
 settings.register_profile("quick", max_examples=12, **_COMMON)
-settings.register_profile("soak", max_examples=480, **_COMMON)
+settings.register_profile("soak", max_examples=600, **_COMMON)
 settings.load_profile(os.environ.get("BAGWISE_HYPOTHESIS_PROFILE", "quick"))
 
 

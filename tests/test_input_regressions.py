@@ -169,3 +169,62 @@ def test_ragged_lists_are_a_named_type_error(call, name):
     # was: numpy's "setting an array element with a sequence ..." naming no argument
     with pytest.raises(TypeError, match=rf"^`{name}`: expected an array"):
         call([[1.0, 2.0], [3.0]])
+
+
+def test_more_bugs_found_by_the_soak():
+    # resample: numpy's "array is too big" ValueError, naming no argument
+    with pytest.raises(MemoryError, match=r"^`n_members`: "):
+        bagwise.resample(R, 2**62)
+    # estimators: pyo3's "Python int too large to convert to C long"
+    with pytest.raises(OverflowError, match=r"^`max_depth`: \d+ does not fit in 64 bits"):
+        bagwise.BagRegressor(n_members=2, max_depth=2**70).fit(X, Y_X)
+    # the core's `x` is the estimator's `X` (was "`x`: member 0: ... rank deficient")
+    with pytest.raises(ValueError, match=r"^`X`: member 0: .*rank deficient"):
+        bagwise.BagRegressor("linear", n_members=2).fit(np.zeros_like(X), Y_X)
+    # estimator targets read by scikit-learn (was "y should be a 1d array ...")
+    bag = bagwise.BagRegressor(n_members=4, max_depth=2, random_state=0).fit(X, Y_X)
+    with pytest.raises(ValueError, match=r"^`y`: y should be a 1d array"):
+        bag.diagnose(X[:7], Y_X[None, :7])
+    # variances of members whose squares overflow (was numpy's "invalid value encountered
+    # in subtract" and an infinite variance)
+    with pytest.raises(ValueError, match=r"^`members`: values so large their variance"):
+        bagwise.prediction_variance(VALUES * 1e300, COUNTS)
+    with pytest.raises(ValueError, match=r"^`members`: values so large their variance"):
+        bagwise.spread(VALUES * 1e300, COUNTS)
+
+
+def test_read_ensemble_names_X_beyond_what_a_forest_reads():
+    # was: numpy's "overflow encountered in cast" RuntimeWarning from scikit-learn's trees
+    from sklearn.ensemble import RandomForestRegressor
+
+    model = RandomForestRegressor(n_estimators=3, random_state=0).fit(X, Y_X)
+    with pytest.raises(ValueError, match=r"^`X`: the model cannot read these values"):
+        bagwise.read_ensemble(model, X[:5] * 1e300)
+
+
+def test_a_tiny_level_gives_an_interval_not_a_panic():
+    # was: "internal error in bagwise: partition_at_index index 19 greater than length of
+    # slice 19" (the rank guard pushed k- = floor(alpha (n + 1)) past n)
+    train = RNG.normal(size=(M, R))
+    with pytest.warns(bagwise.BagwiseWarning, match="in bag for every member"):
+        result = bagwise.prediction_interval(VALUES, COUNTS, train, RNG.normal(size=R),
+                                             level=1e-273)
+    assert np.all(np.isfinite(result.lower)) and np.all(np.isfinite(result.upper))
+
+
+@pytest.mark.parametrize("reference, message", [
+    (Y * 1e300, r"^`reference`: values so large their squared error"),
+])
+def test_diagnose_refuses_a_reference_whose_loss_overflows(reference, message):
+    # was: numpy's "overflow encountered in square" RuntimeWarning and an infinite loss
+    counts = bagwise.resample(P, M, rng=1).counts
+    with pytest.raises(ValueError, match=message):
+        bagwise.diagnose(VALUES, Y, counts=counts, reference=reference)
+
+
+def test_diagnose_refuses_reference_probabilities_that_are_not_probabilities():
+    probabilities = RNG.dirichlet(np.ones(3), size=(M, P))
+    reference = np.full((P, 3), 1 / 3)
+    reference[0] = [5.0, -4.0, 0.0]
+    with pytest.raises(ValueError, match=r"^`reference`: class probabilities must lie in"):
+        bagwise.diagnose(probabilities, Y_LABELS, reference=reference)

@@ -27,7 +27,7 @@ from . import _core, persistence
 from ._chunked import is_lazy
 from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
-from ._validation import n_jobs_value, naming, positive_int
+from ._validation import LARGEST_COUNT, n_jobs_value, naming, positive_int, renamed_arguments
 from ._warnings import warn
 from .resampling import LITTLE_BAGS_FRACTION, check_group_size, resample
 
@@ -68,6 +68,8 @@ def _number(value, name: str, kind: type = numbers.Real, *, optional: bool = Fal
     if isinstance(value, bool) or not isinstance(value, kind):
         expected = "an integer" if kind is numbers.Integral else "a number"
         raise TypeError(f"`{name}`: expected {expected}, got {type(value).__name__}")
+    if kind is numbers.Integral and abs(int(value)) > LARGEST_COUNT:
+        raise OverflowError(f"`{name}`: {value} does not fit in 64 bits")
     return value
 
 
@@ -202,7 +204,10 @@ class _Predictor:
 
     def member_predictions(self, X) -> np.ndarray:
         if self.model is not None:
-            return self.model.member_predictions(X, self.n_jobs)
+            try:
+                return self.model.member_predictions(X, self.n_jobs)
+            except (ValueError, TypeError) as err:  # the core's `x` is the estimator's `X`
+                raise renamed_arguments(err, {"x": "X"}) from None
         with warnings.catch_warnings():
             # The bag has warned once if the feature names disagree; not once per member.
             warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
@@ -437,8 +442,11 @@ class _Bag(BaseEstimator):
         learner = LEARNERS[params["learner"]]
         options = self._native_options(X, params, n_classes)
         with progress_callback(self.progress, "fitting") as callback:
-            return learner.core().fit(X, target, counts, n_jobs=params["n_jobs"],
-                                      progress=callback, **options)
+            try:
+                return learner.core().fit(X, target, counts, n_jobs=params["n_jobs"],
+                                          progress=callback, **options)
+            except (ValueError, TypeError) as err:  # the core's `x` is the estimator's `X`
+                raise renamed_arguments(err, {"x": "X"}) from None
 
     def _fit_wrapped(self, X, y, counts, params, client=None):
         from joblib import Parallel, delayed
@@ -609,7 +617,8 @@ class _Bag(BaseEstimator):
         ``classes_``) for classification."""
         if y is None:
             raise ValueError(f"`{name}`: give the targets")
-        y = column_or_1d(y)
+        with naming(name):
+            y = column_or_1d(y)
         if len(y) != n_points:
             raise ValueError(f"`{name}`: has {len(y)} values for {n_points} points")
         if not self._classification:

@@ -137,6 +137,13 @@ def _subsample_rows(max_count: int, sums: np.ndarray) -> int:
     return int(sums[0])
 
 
+def _finite_estimate(*parts: np.ndarray) -> None:
+    """Variances from members so large their squares overflow float64 are refused, never
+    carried on as infinities."""
+    if not all(np.all(np.isfinite(part)) for part in parts):
+        raise ValueError("`members`: values so large their variance overflows float64")
+
+
 def _jackknife_iv(jackknife) -> bool:
     if not isinstance(jackknife, (bool, np.bool_)):
         raise TypeError(f"`jackknife`: expected True or False, got {jackknife!r}")
@@ -529,6 +536,7 @@ class PredictionVariance(Result):
                     scheme, n_without_out_of_bag, group_size=0,
                     member_share=math.nan) -> PredictionVariance:
         """The one place a PredictionVariance is built: from the core's estimate."""
+        _finite_estimate(raw, correction)
         with np.errstate(divide="ignore", invalid="ignore"):
             # Members that agree exactly at a point have raw = correction = 0: nothing is
             # removed, share 0 (not 0/0). A zero raw estimate with a non-zero correction
@@ -932,13 +940,14 @@ class Spread(Result):
     Attributes
     ----------
     between, within, total, rho : ndarray, shape (n_points,) or (n_points, n_classes)
-        Per point; ``between`` is never negative (clipped at zero, see ``n_clipped``).
+        Per point; ``between`` is never negative (clipped at zero, see ``n_clipped``);
+        ``rho`` is NaN where ``total`` is 0 (the members agree exactly: no share defined).
     noise, status : ndarray
         The between part's Monte-Carlo noise and status (as in `PredictionVariance`).
     mean_between, mean_within, mean_total : float
         Means over points (``mean_total = mean_between + mean_within``).
     pooled_rho : float
-        ``mean_between / mean_total``.
+        ``mean_between / mean_total``; NaN when ``mean_total`` is 0.
     pooled_status : str
         The status of the mean over points of the corrected between part, against the mean
         of its noise (an upper bound of the mean's noise, since the points share members).
@@ -970,6 +979,7 @@ class Spread(Result):
         """The one place a Spread is built: the corrected IJ ``estimate`` is the between
         part, ``within`` the across-member variance of the same call."""
         between = estimate.variance
+        _finite_estimate(within)
         total = between + within
         with np.errstate(divide="ignore", invalid="ignore"):
             rho = np.where(total > 0, between / total, np.nan)
