@@ -155,14 +155,18 @@ impl SizeCurveState {
             .try_reserve_exact(orders)
             .map_err(|_| too_many(cells))?;
         let sums = zeroed(
-            orders.checked_mul(sizes.len()).ok_or(too_many(usize::MAX))?,
+            orders
+                .checked_mul(sizes.len())
+                .ok_or(too_many(usize::MAX))?,
             "orders",
         )?;
         let mut streams = MemberStreams::new(seed);
         for _ in 0..orders {
-            let mut draws = streams.take(1).pop().expect("one stream");
+            let mut draws = streams.take(1).pop().expect("take(1) gives one stream");
             let mut order = Vec::new();
-            order.try_reserve_exact(members).map_err(|_| too_many(cells))?;
+            order
+                .try_reserve_exact(members)
+                .map_err(|_| too_many(cells))?;
             order.extend(0..members);
             for i in (1..members).rev() {
                 order.swap(i, draws.below(i + 1));
@@ -541,6 +545,20 @@ mod tests {
     use ndarray::{Array1, Array2};
 
     const POOL: Pool = Pool::Global;
+
+    #[test]
+    fn an_absurd_number_of_orders_is_an_error_not_an_abort() {
+        for orders in [1usize << 40, usize::MAX / 2] {
+            let state = SizeCurveState::new(Loss::SquaredError, 8, vec![1, 8], orders, 0);
+            assert!(matches!(
+                state,
+                Err(Error::OutOfMemory {
+                    argument: "orders",
+                    ..
+                })
+            ));
+        }
+    }
 
     use crate::members::test_values as values;
 
