@@ -342,7 +342,9 @@ class Outcome:
 
 def attempt(call: Call, args: dict) -> Outcome:
     """Run ``call`` on ``args``; a crash raises `Crash`, anything documented is returned."""
-    with warnings.catch_warnings(record=True) as caught, np.errstate(all="warn"):
+    # numpy's defaults, made explicit: underflow to 0 or a subnormal is not an error
+    with warnings.catch_warnings(record=True) as caught, np.errstate(
+            divide="warn", over="warn", invalid="warn", under="ignore"):
         warnings.simplefilter("always")
         try:
             result = call.run(args)

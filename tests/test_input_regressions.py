@@ -228,3 +228,17 @@ def test_diagnose_refuses_reference_probabilities_that_are_not_probabilities():
     reference[0] = [5.0, -4.0, 0.0]
     with pytest.raises(ValueError, match=r"^`reference`: class probabilities must lie in"):
         bagwise.diagnose(probabilities, Y_LABELS, reference=reference)
+
+
+def test_bugs_found_by_the_last_soak():
+    with pytest.raises(OverflowError, match=r"^`split_features`: \d+ does not fit in 64 bits"):
+        bagwise.BagRegressor(n_members=2, split_features=2**70).fit(X, Y_X)
+    # bytes have a split method, but they are not a splitter
+    with pytest.raises(TypeError, match=r"^`folds`: expected an integer >= 2"):
+        bagwise.compare_learners(X, Y_X, ["tree"], n_members=2, folds=b"x")
+    # classes that cannot be compared with the targets (was "'<' not supported ...")
+    bag = bagwise.BagClassifier(n_members=4, max_depth=2, random_state=0).fit(X, X[:, 0] > 0)
+    import datetime
+
+    with pytest.raises(TypeError, match=r"^`y`: "):
+        bag.diagnose(X[:3], np.array([datetime.datetime(2020, 1, 1)] * 3, dtype=object))

@@ -167,7 +167,7 @@ def _folds_iv(folds, n_rows):
         if not 2 <= folds <= n_rows:
             raise ValueError(f"`folds`: must lie in 2..{n_rows} (the training rows), got {folds}")
         return int(folds)
-    if isinstance(folds, str) or not callable(getattr(folds, "split", None)):
+    if isinstance(folds, (str, bytes)) or not callable(getattr(folds, "split", None)):
         raise TypeError("`folds`: expected an integer >= 2 or an object with split(X, y) "
                         f"such as sklearn.model_selection.KFold, got {type(folds).__name__}")
     return folds

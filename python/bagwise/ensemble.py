@@ -114,6 +114,8 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
     if split is not None:
         if isinstance(split, bool) or not isinstance(split, numbers.Real):
             raise TypeError(f"`split_features`: expected None, an int or a fraction, got {split!r}")
+        if isinstance(split, numbers.Integral):
+            _number(split, "split_features", numbers.Integral)
         if not isinstance(split, numbers.Integral) and not 0 < split <= 1:
             # A fraction is converted here, into a count of features.
             raise ValueError(f"`split_features`: a fraction must lie in (0, 1], got {split}")
@@ -625,7 +627,8 @@ class _Bag(BaseEstimator):
             if y.dtype.kind not in "fiu":
                 raise TypeError(f"`{name}`: expected numbers, got dtype {y.dtype}")
             return np.asarray(y, dtype=np.float64)
-        codes = np.searchsorted(self.classes_, y)
+        with naming(name):
+            codes = np.searchsorted(self.classes_, y)
         codes = np.minimum(codes, len(self.classes_) - 1)
         unknown = self.classes_[codes] != y
         if np.any(unknown):
