@@ -242,3 +242,12 @@ def test_bugs_found_by_the_last_soak():
 
     with pytest.raises(TypeError, match=r"^`y`: "):
         bag.diagnose(X[:3], np.array([datetime.datetime(2020, 1, 1)] * 3, dtype=object))
+
+
+def test_classifier_targets_that_are_not_classes_are_named():
+    # was: scikit-learn's "Unknown label type: ..." and numpy's "invalid value encountered
+    # in cast" RuntimeWarning, naming no argument
+    with pytest.raises(ValueError, match=r"^`y`: Unknown label type"):
+        bagwise.BagClassifier(n_members=2).fit(X, np.array([object()] * len(X), dtype=object))
+    with pytest.raises(ValueError, match=r"^`y`: "):
+        bagwise.BagClassifier(n_members=2).fit(X, X[:, 0] * 1e300)

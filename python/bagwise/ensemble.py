@@ -340,7 +340,12 @@ class _Bag(BaseEstimator):
                 raise ValueError(f"`X`: bagging needs at least 2 rows, got {_num_samples(X)} sample")
         n_rows = len(y)
         if self._classification:
-            check_classification_targets(y)
+            with naming("y"), warnings.catch_warnings():
+                warnings.simplefilter("error", RuntimeWarning)
+                try:
+                    check_classification_targets(y)
+                except RuntimeWarning as err:  # numpy casting huge floats while looking
+                    raise ValueError(f"`y`: cannot be read as class labels ({err})") from None
             classes, codes = np.unique(y, return_inverse=True)
             codes = codes.reshape(-1)
         else:
