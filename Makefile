@@ -5,6 +5,7 @@
 #   make test    install test dependencies, run every Rust and Python test
 #   make lint    cargo fmt --check, clippy -D warnings, ruff
 #   make bench   release build, then the benchmarks under tests/bench/
+#   make properties  the property tests under the soak profile, with their case counts
 #   make dev     fast incremental rebuild for the edit loop
 #   make soak    release build, then 1,000 calls of every main entry point (RSS, threads, files)
 #   make fuzz    the loader fuzz targets (cargo-fuzz, nightly) for FUZZ_SECONDS in all
@@ -14,8 +15,7 @@ VENV   ?= .venv
 PY     := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
 
-
-.PHONY: demo test lint bench dev install install-test clean soak fuzz
+.PHONY: demo test lint bench dev install install-test clean soak fuzz properties
 
 $(VENV)/created:
 	@echo "creating $(VENV)"
@@ -49,6 +49,13 @@ lint: install-test
 	cargo clippy --quiet --all-targets -- -D warnings
 	cargo clippy --quiet --all-targets --features python -- -D warnings
 	$(VENV)/bin/ruff check python tests demo-data notebooks/build.py
+
+# The soak of the property tests: >= 20,000 generated cases over every public call; prints
+# the cases tried / accepted / refused / crashed per call and in total (also in
+# .venv/properties-summary.json).
+properties: install-test
+	BAGWISE_HYPOTHESIS_PROFILE=soak BAGWISE_PROPERTIES_SUMMARY=$(VENV)/properties-summary.json \
+		$(PY) -m pytest tests/test_properties.py -q -p no:cacheprovider
 
 bench: install
 	@set -e; for script in tests/bench/bench_*.py; do \

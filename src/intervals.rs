@@ -84,7 +84,8 @@ pub fn ranks(level: f64, n: usize) -> Result<(usize, usize)> {
     }
     let alpha = 1.0 - level;
     let scaled = alpha * (n as f64 + 1.0);
-    let lower = (scaled * (1.0 + RANK_GUARD)).floor() as usize;
+    // ⌊α (n + 1)⌋ ≤ n for α < 1; the guard must not push a tiny level past n.
+    let lower = ((scaled * (1.0 + RANK_GUARD)).floor() as usize).min(n);
     let upper = ((n as f64 + 1.0 - scaled) * (1.0 - RANK_GUARD)).ceil() as usize;
     Ok((lower, upper.max(1)))
 }
@@ -846,6 +847,15 @@ mod tests {
         let (lo, up, c) = interval(IntervalMethod::JackknifePlus, 0.9).unwrap();
         assert_eq!((lo, up), (f64::NEG_INFINITY, f64::INFINITY));
         assert!(!c.finite());
+    }
+
+    #[test]
+    fn a_tiny_level_keeps_the_lower_rank_within_the_rows() {
+        // α (n + 1) = 19 - 1e-300 for n = 18: floor is 18 = n, never n + 1
+        for n in [1, 18, 1000] {
+            let (lower, upper) = ranks(1e-300, n).unwrap();
+            assert_eq!((lower, upper), (n, 1));
+        }
     }
 
     #[test]

@@ -19,7 +19,7 @@ use crate::aggregation::MemberWeights;
 use crate::decomposition::{
     non_finite_members, one_hot_target, residual_moments, value_target, Loss, TargetFill,
 };
-use crate::error::{Error, Result};
+use crate::error::{zeroed, Error, Result};
 use crate::members::{
     add_votes, class_of, for_chunks, no_slots, Chunks, Members, MergeableState, Targets,
     MAX_CLASSES,
@@ -141,23 +141,44 @@ impl SizeCurveState {
                 format!("every size must lie in 1..={members} (the number of members)"),
             ));
         }
+        // `orders` x `members` indices and `orders` x sizes sums: sized by arguments, so
+        // an absurd count is a `MemoryError` naming `orders`, never an aborted process.
+        let too_many = |bytes| Error::OutOfMemory {
+            argument: "orders",
+            bytes,
+        };
+        let cells = orders
+            .checked_mul(members.max(1))
+            .and_then(|n| n.checked_mul(std::mem::size_of::<usize>()))
+            .ok_or(too_many(usize::MAX))?;
+        let mut permutations: Vec<Vec<usize>> = Vec::new();
+        permutations
+            .try_reserve_exact(orders)
+            .map_err(|_| too_many(cells))?;
+        let sums = zeroed(
+            orders
+                .checked_mul(sizes.len())
+                .ok_or(too_many(usize::MAX))?,
+            "orders",
+        )?;
         let mut streams = MemberStreams::new(seed);
-        let permutations = streams
-            .take(orders)
-            .into_iter()
-            .map(|mut draws| {
-                let mut order: Vec<usize> = (0..members).collect();
-                for i in (1..members).rev() {
-                    order.swap(i, draws.below(i + 1));
-                }
-                order
-            })
-            .collect();
+        for _ in 0..orders {
+            let mut draws = streams.take(1).pop().expect("take(1) gives one stream");
+            let mut order = Vec::new();
+            order
+                .try_reserve_exact(members)
+                .map_err(|_| too_many(cells))?;
+            order.extend(0..members);
+            for i in (1..members).rev() {
+                order.swap(i, draws.below(i + 1));
+            }
+            permutations.push(order);
+        }
         Ok(SizeCurveState {
             loss,
             members,
             n_classes: None,
-            sums: vec![0.0; orders * sizes.len()],
+            sums,
             sizes,
             orders: permutations,
             n_points: 0,
@@ -557,6 +578,20 @@ mod tests {
     use ndarray::{Array1, Array2};
 
     const POOL: Pool = Pool::Global;
+
+    #[test]
+    fn an_absurd_number_of_orders_is_an_error_not_an_abort() {
+        for orders in [1usize << 40, usize::MAX / 2] {
+            let state = SizeCurveState::new(Loss::SquaredError, 8, vec![1, 8], orders, 0);
+            assert!(matches!(
+                state,
+                Err(Error::OutOfMemory {
+                    argument: "orders",
+                    ..
+                })
+            ));
+        }
+    }
 
     use crate::members::test_values as values;
 

@@ -325,7 +325,7 @@ BAD = [
     (bagwise.decompose, (P, PY.astype(float)), {}, "y", TypeError),
     (bagwise.decompose, (_with(L, (0, 0), -1), LY), {}, "members", ValueError),
     (bagwise.decompose, (L, _with(LY, 2, -2)), {}, "y", ValueError),
-    (bagwise.decompose, (_with(L, (0, 0), 10**7), LY), {}, "n_classes", ValueError),
+    (bagwise.decompose, (_with(L, (0, 0), 10**7), LY), {}, "members", ValueError),  # no n_classes argument
 ]
 
 

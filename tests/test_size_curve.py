@@ -257,7 +257,7 @@ def test_core_errors_name_the_argument():
 
 
 BAD = [
-    (bagwise.size_curve, (_with(L, (0, 0), 10**7), LY), {}, "n_classes", ValueError),
+    (bagwise.size_curve, (_with(L, (0, 0), 10**7), LY), {}, "members", ValueError),  # no n_classes argument
     (bagwise.size_curve, (T, Y), {"sizes": [0, 2]}, "sizes", ValueError),
     (bagwise.size_curve, (T, Y), {"sizes": [5]}, "sizes", ValueError),
     (bagwise.size_curve, (T, Y), {"sizes": [1.5]}, "sizes", TypeError),

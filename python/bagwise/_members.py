@@ -37,6 +37,7 @@ __all__ = [
     "CONVERT_INDICES",
     "INDEX_DISPERSION",
     "INDEX_MEAN",
+    "LARGEST_VALUE",
     "as_array",
     "in_bag_counts",
     "loss_for",
@@ -61,6 +62,9 @@ MAX_CLASSES = 1 << 20
 #: float32 softmax over a few hundred classes sums to 1 only within a few 1e-6). The core
 #: checks it; it is the one tolerance every family documents.
 PROBABILITY_TOLERANCE = 1e-5
+#: Largest magnitude of a target value: the square root of the largest float64 (about
+#: 1.34e154), above which a squared error overflows to infinity.
+LARGEST_VALUE = float(np.sqrt(np.finfo(np.float64).max))
 #: Largest |sum_b w_b - 1| of member weights.
 WEIGHT_TOLERANCE = 1e-6
 
@@ -189,6 +193,10 @@ def targets(y, kind: str, n_points: int, name: str = "y", *,
         if not np.all(np.isfinite(array)):
             raise ValueError(f"`{name}`: contains NaN or infinite values")
         if kind == "values":
+            if array.size and np.abs(array).max() > LARGEST_VALUE:
+                raise ValueError(f"`{name}`: has a value of {np.abs(array).max():.3g} in "
+                                 f"magnitude; above {LARGEST_VALUE:.3g} its squared error "
+                                 "overflows float64")
             return array
         fraction = array[array != np.round(array)]
         if fraction.size:
@@ -256,7 +264,7 @@ def member_weights(weights, n_members: int, name: str = "member_weights") -> np.
     summing to 1 within `WEIGHT_TOLERANCE`."""
     if weights is None:
         return None
-    array = np.asarray(weights)
+    array = as_array(weights, name)
     if array.dtype.kind not in "fiu":
         raise TypeError(f"`{name}`: expected numbers, got dtype {array.dtype}")
     array = array.astype(np.float64)
@@ -273,6 +281,8 @@ def member_weights(weights, n_members: int, name: str = "member_weights") -> np.
 
 def loss_option(loss) -> str | None:
     """The ``loss=`` option: ``None`` (the loss that fits the members) or one of the names."""
+    if loss is not None and not isinstance(loss, str):
+        raise TypeError(f"`loss`: expected {_LOSSES} or None, got {type(loss).__name__}")
     if loss is not None and loss not in _KIND_OF_LOSS:
         raise ValueError(f"`loss`: expected {_LOSSES}, got {loss!r}")
     return loss

@@ -2,19 +2,29 @@
 
 from __future__ import annotations
 
+import contextlib
 import numbers
+import re
 import secrets
 
 import numpy as np
 
+#: Largest count any integer option takes (the core reads them as 64-bit sizes).
+LARGEST_COUNT = 2**63 - 1
+#: Most threads ``n_jobs`` may ask for: a larger count is a typo, not a machine.
+MAX_N_JOBS = 4096
+
 
 def positive_int(value: object, name: str) -> int:
-    """Return ``value`` as a Python int if it is a whole number >= 1."""
+    """Return ``value`` as a Python int if it is a whole number in 1..`LARGEST_COUNT`
+    (``OverflowError`` above)."""
     if isinstance(value, bool) or not isinstance(value, numbers.Integral):
         raise TypeError(f"`{name}`: expected an integer, got {type(value).__name__}")
     value = int(value)
     if value < 1:
         raise ValueError(f"`{name}`: must be at least 1, got {value}")
+    if value > LARGEST_COUNT:
+        raise OverflowError(f"`{name}`: {value} does not fit in 64 bits")
     return value
 
 
@@ -34,7 +44,10 @@ def n_jobs_value(n_jobs: object) -> int | None:
     """``None`` or ``-1`` (all cores), or a positive thread count."""
     if n_jobs is None or (isinstance(n_jobs, int) and not isinstance(n_jobs, bool) and n_jobs == -1):
         return None
-    return positive_int(n_jobs, "n_jobs")
+    n_jobs = positive_int(n_jobs, "n_jobs")
+    if n_jobs > MAX_N_JOBS:
+        raise ValueError(f"`n_jobs`: at most {MAX_N_JOBS} threads, got {n_jobs}")
+    return n_jobs
 
 
 def label_codes(labels: object, n_rows: int, name: str) -> tuple[np.ndarray, np.ndarray]:
@@ -43,7 +56,10 @@ def label_codes(labels: object, n_rows: int, name: str) -> tuple[np.ndarray, np.
     Raises ``ValueError`` for a wrong length, missing values (NaN/None) or more than one
     dimension.
     """
-    array = np.asarray(labels)
+    try:
+        array = np.asarray(labels)
+    except (TypeError, ValueError) as err:
+        raise TypeError(f"`{name}`: expected an array, got {type(labels).__name__} ({err})") from None
     if array.ndim != 1:
         raise ValueError(f"`{name}`: expected a 1-D array of labels, got shape {array.shape}")
     if array.shape[0] != n_rows:
@@ -92,3 +108,24 @@ def rng_seed(rng: object) -> int:
     if not 0 <= rng < 2**64:
         raise ValueError(f"`rng`: must lie in [0, 2**64), got {rng}")
     return rng
+
+
+# An input error of scikit-learn's checks about the targets rather than the features.
+_ABOUT_TARGETS = re.compile(r"(^|\s)y\b|Input y|label|classes|inconsistent numbers of samples")
+
+
+@contextlib.contextmanager
+def naming(name: str, targets: str | None = None):
+    """Errors of input checks that name no argument (scikit-learn's ``validate_data``, numpy
+    conversions) raised again as a ``ValueError`` / ``TypeError`` whose message starts with
+    ``name`` in backticks, or ``targets`` when the message is about the targets. A message
+    that already starts with an argument in backticks passes unchanged."""
+    try:
+        yield
+    except (ValueError, TypeError) as err:
+        message = str(err)
+        if message.startswith("`"):
+            raise
+        which = targets if targets and _ABOUT_TARGETS.search(message) else name
+        kind = ValueError if isinstance(err, ValueError) else TypeError
+        raise kind(f"`{which}`: {message}") from None

@@ -167,7 +167,7 @@ def _folds_iv(folds, n_rows):
         if not 2 <= folds <= n_rows:
             raise ValueError(f"`folds`: must lie in 2..{n_rows} (the training rows), got {folds}")
         return int(folds)
-    if isinstance(folds, str) or not callable(getattr(folds, "split", None)):
+    if isinstance(folds, (str, bytes)) or not callable(getattr(folds, "split", None)):
         raise TypeError("`folds`: expected an integer >= 2 or an object with split(X, y) "
                         f"such as sklearn.model_selection.KFold, got {type(folds).__name__}")
     return folds
@@ -636,7 +636,7 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     """
     from sklearn.utils.validation import check_consistent_length
 
-    from ._validation import n_jobs_value, positive_int
+    from ._validation import n_jobs_value, naming, positive_int
     from .ensemble import _seed_of
 
     named = _learners_iv(learners)
@@ -645,7 +645,8 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     if X is None or y is None:
         raise ValueError(f"`{'X' if X is None else 'y'}`: give the training rows and targets")
     try:
-        check_consistent_length(X, y)
+        with naming("X"):
+            check_consistent_length(X, y)
     except ValueError:
         raise ValueError(f"`y`: has {len(y)} targets but `X` has {len(X)} rows") from None
     y_array = np.asarray(y)

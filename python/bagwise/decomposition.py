@@ -175,7 +175,7 @@ class DecompositionStream:
         y = targets(y, kind, members.shape[1])
         n_classes = None
         if kind == "labels":
-            n_classes = n_classes_of(None, members, y)
+            n_classes = n_classes_of(None, members, y, blame_labels=True)
         elif kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
         self._parts.append(self._core.update(members, y, n_classes, self._n_jobs))

@@ -24,7 +24,7 @@ import numpy as np
 
 from . import _chunked
 from ._display import html_block, safe_html, text_block
-from ._members import in_bag_counts, members_array, targets
+from ._members import PROBABILITY_TOLERANCE, in_bag_counts, members_array, targets
 from ._results import Result, check_tolerance
 from ._validation import n_jobs_value, rng_seed
 from ._warnings import once_per_call
@@ -83,6 +83,23 @@ def _lazy_counts_iv(counts, n_members: int, n_rows: int | None):
     return counts
 
 
+def _reference_values_iv(kind, reference, y):
+    """Probabilities that are probabilities (in [0, 1], summing to 1 within the members'
+    tolerance); values whose squared error against ``y`` is a finite number."""
+    if kind == "probabilities":
+        sums = reference.sum(axis=1)
+        if (reference.min() < -PROBABILITY_TOLERANCE or reference.max() > 1 + PROBABILITY_TOLERANCE
+                or np.any(np.abs(sums - 1) > PROBABILITY_TOLERANCE)):
+            raise ValueError("`reference`: class probabilities must lie in [0, 1] and sum to 1 "
+                             f"(within {PROBABILITY_TOLERANCE:g}) at every point")
+        return
+    with np.errstate(over="ignore", invalid="ignore"):
+        squares = (reference - y) ** 2
+    if not np.all(np.isfinite(squares)):
+        raise ValueError("`reference`: values so large their squared error against `y` "
+                         "overflows float64")
+
+
 def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_jobs):
     y, y_train, reference = (_in_memory(y, "y"), _in_memory(y_train, "y_train"),
                              _in_memory(reference, "reference"))
@@ -134,6 +151,7 @@ def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_
             reference = reference.astype(np.float64, copy=False)
             if not np.all(np.isfinite(reference)):
                 raise ValueError("`reference`: contains NaN or infinite values")
+            _reference_values_iv(kind, reference, y)
     return (kind, members, y, counts, reference, train_members, y_train, rng_seed(seed),
             n_jobs_value(n_jobs))
 

@@ -27,7 +27,7 @@ from . import _core, persistence
 from ._chunked import is_lazy
 from ._learners import LEARNERS, register_estimator
 from ._progress import progress_callback
-from ._validation import n_jobs_value, positive_int
+from ._validation import LARGEST_COUNT, n_jobs_value, naming, positive_int, renamed_arguments
 from ._warnings import warn
 from .resampling import LITTLE_BAGS_FRACTION, check_group_size, resample
 
@@ -68,6 +68,8 @@ def _number(value, name: str, kind: type = numbers.Real, *, optional: bool = Fal
     if isinstance(value, bool) or not isinstance(value, kind):
         expected = "an integer" if kind is numbers.Integral else "a number"
         raise TypeError(f"`{name}`: expected {expected}, got {type(value).__name__}")
+    if kind is numbers.Integral and abs(int(value)) > LARGEST_COUNT:
+        raise OverflowError(f"`{name}`: {value} does not fit in 64 bits")
     return value
 
 
@@ -112,6 +114,8 @@ def _bag_iv(est: _Bag, classification: bool) -> dict:
     if split is not None:
         if isinstance(split, bool) or not isinstance(split, numbers.Real):
             raise TypeError(f"`split_features`: expected None, an int or a fraction, got {split!r}")
+        if isinstance(split, numbers.Integral):
+            _number(split, "split_features", numbers.Integral)
         if not isinstance(split, numbers.Integral) and not 0 < split <= 1:
             # A fraction is converted here, into a count of features.
             raise ValueError(f"`split_features`: a fraction must lie in (0, 1], got {split}")
@@ -202,7 +206,10 @@ class _Predictor:
 
     def member_predictions(self, X) -> np.ndarray:
         if self.model is not None:
-            return self.model.member_predictions(X, self.n_jobs)
+            try:
+                return self.model.member_predictions(X, self.n_jobs)
+            except (ValueError, TypeError) as err:  # the core's `x` is the estimator's `X`
+                raise renamed_arguments(err, {"x": "X"}) from None
         with warnings.catch_warnings():
             # The bag has warned once if the feature names disagree; not once per member.
             warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
@@ -320,8 +327,9 @@ class _Bag(BaseEstimator):
             X = _distributed.lazy_design(X)
             y = self._lazy_targets(y, X.shape[0])
         elif native:
-            X, y = validate_data(self, X, y, dtype=[np.float64, np.float32],
-                                 y_numeric=not self._classification, ensure_min_samples=2)
+            with naming("X", targets="y"):
+                X, y = validate_data(self, X, y, dtype=[np.float64, np.float32],
+                                     y_numeric=not self._classification, ensure_min_samples=2)
         else:
             validate_data(self, _distributed.schema(X), skip_check_array=True)
             if y is None:
@@ -332,7 +340,12 @@ class _Bag(BaseEstimator):
                 raise ValueError(f"`X`: bagging needs at least 2 rows, got {_num_samples(X)} sample")
         n_rows = len(y)
         if self._classification:
-            check_classification_targets(y)
+            with naming("y"), warnings.catch_warnings():
+                warnings.simplefilter("error", RuntimeWarning)
+                try:
+                    check_classification_targets(y)
+                except RuntimeWarning as err:  # numpy casting huge floats while looking
+                    raise ValueError(f"`y`: cannot be read as class labels ({err})") from None
             classes, codes = np.unique(y, return_inverse=True)
             codes = codes.reshape(-1)
         else:
@@ -436,8 +449,11 @@ class _Bag(BaseEstimator):
         learner = LEARNERS[params["learner"]]
         options = self._native_options(X, params, n_classes)
         with progress_callback(self.progress, "fitting") as callback:
-            return learner.core().fit(X, target, counts, n_jobs=params["n_jobs"],
-                                      progress=callback, **options)
+            try:
+                return learner.core().fit(X, target, counts, n_jobs=params["n_jobs"],
+                                          progress=callback, **options)
+            except (ValueError, TypeError) as err:  # the core's `x` is the estimator's `X`
+                raise renamed_arguments(err, {"x": "X"}) from None
 
     def _fit_wrapped(self, X, y, counts, params, client=None):
         from joblib import Parallel, delayed
@@ -479,9 +495,10 @@ class _Bag(BaseEstimator):
 
     def _check_X(self, X):
         check_is_fitted(self)
-        if self._native:
-            return validate_data(self, X, reset=False, dtype=[np.float64, np.float32])
-        validate_data(self, X, reset=False, skip_check_array=True)
+        with naming("X"):
+            if self._native:
+                return validate_data(self, X, reset=False, dtype=[np.float64, np.float32])
+            validate_data(self, X, reset=False, skip_check_array=True)
         return X
 
     def _predictor(self, n_jobs) -> _Predictor:
@@ -558,8 +575,9 @@ class _Bag(BaseEstimator):
         Returns
         -------
         ndarray of float64
-            Shaped as `member_predictions` on the training rows. Native learners compute
-            only the out-of-bag rows; with ``scheme="none"`` every entry is NaN.
+            Shaped as `member_predictions` on the training rows, NaN where the member drew
+            the row (in bag): only the out-of-bag entries are predictions (native learners
+            compute only those); with ``scheme="none"`` every entry is NaN.
         """
         check_is_fitted(self)
         if self.in_bag_.dtype.kind == "f":
@@ -606,14 +624,16 @@ class _Bag(BaseEstimator):
         ``classes_``) for classification."""
         if y is None:
             raise ValueError(f"`{name}`: give the targets")
-        y = column_or_1d(y)
+        with naming(name):
+            y = column_or_1d(y)
         if len(y) != n_points:
             raise ValueError(f"`{name}`: has {len(y)} values for {n_points} points")
         if not self._classification:
             if y.dtype.kind not in "fiu":
                 raise TypeError(f"`{name}`: expected numbers, got dtype {y.dtype}")
             return np.asarray(y, dtype=np.float64)
-        codes = np.searchsorted(self.classes_, y)
+        with naming(name):
+            codes = np.searchsorted(self.classes_, y)
         codes = np.minimum(codes, len(self.classes_) - 1)
         unknown = self.classes_[codes] != y
         if np.any(unknown):

@@ -12,7 +12,7 @@ from typing import ClassVar
 import numpy as np
 
 from . import _chunked, _core
-from ._members import in_bag_counts
+from ._members import as_array, in_bag_counts
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -36,9 +36,7 @@ def _rows_needed(level: float) -> int:
 
 
 def _float_array(values, name: str) -> np.ndarray:
-    array = values if isinstance(values, np.ndarray) else np.asarray(values)
-    if array.dtype.kind == "f" and not array.dtype.isnative:  # e.g. big-endian data from a file
-        array = array.astype(array.dtype.newbyteorder("="))
+    array = as_array(values, name)  # a non-native byte order is converted once
     if array.dtype not in (np.float32, np.float64):
         raise TypeError(f"`{name}`: expected float32 or float64 predictions, got dtype {array.dtype}")
     return array
@@ -115,7 +113,7 @@ def _training_iv(members_dtype, members_shape, counts, train_members, y_train):
             "needs rows that some member did not see"
         )
 
-    y_train = np.asarray(y_train)
+    y_train = as_array(y_train, "y_train")
     if y_train.ndim != 1 or y_train.shape[0] != n_rows:
         raise ValueError(f"`y_train`: expected shape ({n_rows},) = (n_rows,), got {y_train.shape}")
     if classes:

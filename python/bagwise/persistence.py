@@ -65,6 +65,8 @@ def save(estimator, path) -> None:
     TypeError
         For an ensemble of wrapped estimators: those can only be pickled (and a pickle
         must never be loaded from an untrusted source, since unpickling can run code).
+    OSError
+        When ``path`` cannot be written; the message starts with `path`.
 
     Notes
     -----
@@ -121,8 +123,24 @@ def save(estimator, path) -> None:
     }
     data = _core.pack_container(_learners.learner_of_model(model).tag, json.dumps(metadata),
                                 model.to_bytes())
-    with open(os.fspath(path), "wb") as handle:
+    with _opened(path, "wb") as handle:
         handle.write(data)
+
+
+def _opened(path, mode: str):
+    """``open(path, mode)``, its errors naming `path`: a ``TypeError`` for what is not a
+    path, the ``OSError`` (same subclass and errno) for a file that cannot be opened."""
+    try:
+        name = os.fspath(path)
+    except TypeError:
+        raise TypeError(f"`path`: expected a str or os.PathLike, got {type(path).__name__}") from None
+    try:
+        return open(name, mode)  # the caller closes it
+    except OSError as err:
+        verb = "read" if "r" in mode else "write"
+        error = type(err)(f"`path`: cannot {verb} {name!s}: {err.strerror or err}")
+        error.errno = err.errno
+        raise error from None
 
 
 def load(path):

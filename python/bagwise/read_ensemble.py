@@ -35,13 +35,16 @@ voting, isolation forests, tree embeddings).
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import numbers
+import warnings
 
 import numpy as np
 
 from ._members import as_array, in_bag_counts
 from ._results import Result
+from ._validation import naming
 
 __all__ = ["EnsembleArrays", "read_ensemble"]
 
@@ -301,14 +304,30 @@ def _read_bagging(model, X, X_train, y_train):
     return _predicted(model, predict, X, X_train, y_train, counts, n_rows, classification)
 
 
+@contextlib.contextmanager
+def _overflow_named(name: str):
+    """A RuntimeWarning of the model's own input conversion (values beyond float32 cast
+    to infinity for scikit-learn's trees) as a ``ValueError`` naming the argument."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        try:
+            yield
+        except RuntimeWarning as err:
+            raise ValueError(f"`{name}`: the model cannot read these values ({err}; "
+                             "scikit-learn's trees read X as float32, at most 3.4e38)") from None
+
+
 def _predicted(model, predict, X, X_train, y_train, counts, n_rows, classification):
     """The result of a scikit-learn reader: ``predict`` at ``X`` and, when given, at the
     checked ``X_train``."""
     train = None
     if X_train is not None:
         _rows_of(X_train, n_rows, type(model).__name__)
-        train = predict(X_train)
-    return _result(model, predict(X), counts, train, y_train,
+        with naming("X_train"), _overflow_named("X_train"):
+            train = predict(X_train)
+    with naming("X"), _overflow_named("X"):
+        points = predict(X)
+    return _result(model, points, counts, train, y_train,
                    model.classes_ if classification else None)
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import functools
 import math
@@ -88,6 +89,22 @@ def _resample_iv(n_rows, n_members, scheme, fraction, strata, groups, block_leng
             raise ValueError(f"`block_length`: must be at most n_rows ({n_rows}), got {block_length}")
     return (n_rows, n_members, scheme, fraction, strata_codes, group_codes, block_length,
             group_size, rng_seed(rng), n_jobs_value(n_jobs))
+
+
+@contextlib.contextmanager
+def _fits_in_memory(n_members: int, n_rows: int):
+    """numpy's refusal of an absurd (n_members, n_rows) array ("array is too big", or its
+    own MemoryError) as a ``MemoryError`` naming `n_members`."""
+    try:
+        yield
+    except MemoryError:
+        raise MemoryError(f"`n_members`: {n_members:,} members x {n_rows:,} rows do not fit "
+                          "in memory") from None
+    except ValueError as err:
+        if "too big" not in str(err):
+            raise
+        raise MemoryError(f"`n_members`: {n_members:,} members x {n_rows:,} rows exceed the "
+                          "largest possible array") from None
 
 
 def resample(
@@ -177,7 +194,7 @@ def resample(
         block_length=block_length,
         group_size=group_size,
     )
-    with progress_callback(progress, "resampling") as callback:
+    with progress_callback(progress, "resampling") as callback, _fits_in_memory(n_members, n_rows):
         if scheme == "bayesian":
             counts, weights = None, plan.bayesian_weights(seed, n_members, n_jobs, callback)
         else:

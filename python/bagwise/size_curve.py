@@ -16,7 +16,7 @@ import numpy as np
 from . import _chunked, _core
 from ._display import fmt as _fmt
 from ._display import plus_minus
-from ._members import loss_for, loss_option, members_array, n_classes_of, targets
+from ._members import as_array, loss_for, loss_option, members_array, n_classes_of, targets
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value, positive_int, rng_seed
 from ._warnings import warn
@@ -182,7 +182,7 @@ def _default_sizes(n_members):
 def _sizes_iv(sizes, n_members):
     if sizes is None:
         return _default_sizes(n_members)
-    array = np.asarray(sizes)
+    array = as_array(sizes, "sizes")
     if array.ndim != 1 or array.size == 0:
         raise ValueError(f"`sizes`: expected a non-empty 1-D list of sizes, got shape {array.shape}")
     if array.dtype.kind not in "iu":
@@ -224,7 +224,7 @@ class SizeCurveStream:
                 raise ValueError(f"`members`: this chunk has {members.shape[0]} members but "
                                  f"earlier chunks had {self._n_members}")
         y = targets(y, kind, members.shape[1])
-        n_classes = n_classes_of(None, members, y) if kind == "labels" else None
+        n_classes = n_classes_of(None, members, y, blame_labels=True) if kind == "labels" else None
         if kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
         self._core.update(members, y, n_classes, self._n_jobs)

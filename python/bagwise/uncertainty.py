@@ -137,6 +137,19 @@ def _subsample_rows(max_count: int, sums: np.ndarray) -> int:
     return int(sums[0])
 
 
+def _finite_estimate(*parts: np.ndarray) -> None:
+    """Variances from members so large their squares overflow float64 are refused, never
+    carried on as infinities."""
+    if not all(np.all(np.isfinite(part)) for part in parts):
+        raise ValueError("`members`: values so large their variance overflows float64")
+
+
+def _jackknife_iv(jackknife) -> bool:
+    if not isinstance(jackknife, (bool, np.bool_)):
+        raise TypeError(f"`jackknife`: expected True or False, got {jackknife!r}")
+    return bool(jackknife)
+
+
 def _scheme_iv(scheme):
     if scheme not in (None, "bootstrap", "subsample"):
         raise ValueError(f"`scheme`: expected 'bootstrap', 'subsample' or None, got {scheme!r}")
@@ -156,8 +169,7 @@ class CountGramStream:
 
     def __init__(self, *, scheme=None, jackknife=False, n_jobs=None):
         self.scheme = _scheme_iv(scheme)
-        if not isinstance(jackknife, (bool, np.bool_)):
-            raise TypeError(f"`jackknife`: expected True or False, got {jackknife!r}")
+        _jackknife_iv(jackknife)
         self.jackknife = bool(jackknife)
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = _core.CountGramAccumulator(self.jackknife)
@@ -284,6 +296,8 @@ class CountGram:
         if _chunked.is_lazy(counts):
             self._gram = _lazy_count_gram(counts, scheme, jackknife, n_jobs)._gram
             return
+        scheme = _scheme_iv(scheme)
+        jackknife = _jackknife_iv(jackknife)
         counts = _counts_iv(counts)
         subsample_rows = None
         if scheme == "subsample":
@@ -466,7 +480,9 @@ class PredictionVariance(Result):
     raw_variance, correction : ndarray
         The uncorrected estimate and the correction term (corrected = raw − correction).
     correction_share : ndarray
-        ``correction / raw_variance``: near 1 means too few members for a stable estimate.
+        ``correction / raw_variance``: near 1 means too few members for a stable estimate;
+        0 where both are 0 (the members agree exactly, nothing is removed), NaN where only
+        ``raw_variance`` is 0 (such a point is "not estimable").
     noise : ndarray
         The Monte-Carlo standard deviation of ``variance`` (before clipping): how much it
         would move if the members were redrawn on the same training rows (derived in
@@ -520,8 +536,13 @@ class PredictionVariance(Result):
                     scheme, n_without_out_of_bag, group_size=0,
                     member_share=math.nan) -> PredictionVariance:
         """The one place a PredictionVariance is built: from the core's estimate."""
+        _finite_estimate(raw, correction)
         with np.errstate(divide="ignore", invalid="ignore"):
-            correction_share = np.where(raw > 0, correction / raw, np.nan)
+            # Members that agree exactly at a point have raw = correction = 0: nothing is
+            # removed, share 0 (not 0/0). A zero raw estimate with a non-zero correction
+            # stays NaN; such a point is "not estimable" and warned about below.
+            correction_share = np.where(raw > 0, correction / raw,
+                                        np.where(correction == 0, 0.0, np.nan))
         value = raw - correction if corrected else raw.copy()
         noise = _monte_carlo_noise(method, corrected, raw, correction, value,
                                    n_rows - n_without_out_of_bag, n_members, group_size)
@@ -919,13 +940,14 @@ class Spread(Result):
     Attributes
     ----------
     between, within, total, rho : ndarray, shape (n_points,) or (n_points, n_classes)
-        Per point; ``between`` is never negative (clipped at zero, see ``n_clipped``).
+        Per point; ``between`` is never negative (clipped at zero, see ``n_clipped``);
+        ``rho`` is NaN where ``total`` is 0 (the members agree exactly: no share defined).
     noise, status : ndarray
         The between part's Monte-Carlo noise and status (as in `PredictionVariance`).
     mean_between, mean_within, mean_total : float
         Means over points (``mean_total = mean_between + mean_within``).
     pooled_rho : float
-        ``mean_between / mean_total``.
+        ``mean_between / mean_total``; NaN when ``mean_total`` is 0.
     pooled_status : str
         The status of the mean over points of the corrected between part, against the mean
         of its noise (an upper bound of the mean's noise, since the points share members).
@@ -957,6 +979,7 @@ class Spread(Result):
         """The one place a Spread is built: the corrected IJ ``estimate`` is the between
         part, ``within`` the across-member variance of the same call."""
         between = estimate.variance
+        _finite_estimate(within)
         total = between + within
         with np.errstate(divide="ignore", invalid="ignore"):
             rho = np.where(total > 0, between / total, np.nan)
