@@ -87,3 +87,82 @@ impl Monitor for Silent {
         Ok(())
     }
 }
+
+/// How often [`watched`] reports progress to its monitor (and so how soon Ctrl-C is seen).
+pub const HEARTBEAT: std::time::Duration = std::time::Duration::from_millis(100);
+
+/// Shared between a long parallel job and the calling thread that watches it: the job adds
+/// the units it finishes and checks [`Watch::stopped`] between blocks of work (never inside
+/// the innermost arithmetic), so a stop asked for by the monitor ends it within one block.
+#[derive(Debug, Default)]
+pub struct Watch {
+    stop: std::sync::atomic::AtomicBool,
+    done: std::sync::atomic::AtomicUsize,
+}
+
+impl Watch {
+    /// Whether the monitor asked the job to stop (the job then returns early; its partial
+    /// output is discarded by [`watched`]).
+    #[inline]
+    pub fn stopped(&self) -> bool {
+        self.stop.load(std::sync::atomic::Ordering::Relaxed)
+    }
+
+    /// Adds `units` finished units of work.
+    #[inline]
+    pub fn advance(&self, units: usize) {
+        self.done
+            .fetch_add(units, std::sync::atomic::Ordering::Relaxed);
+    }
+}
+
+/// Runs `work` (which may use `pool`'s threads) on a helper thread while the calling thread
+/// reports the units done of `total` to `monitor` every [`HEARTBEAT`], and once more,
+/// `(total, total)`, when the work has finished. An error from the monitor (Ctrl-C, a
+/// raising callback) raises the watch's stop flag, waits for `work` to return and is
+/// returned in place of its (partial) result; so the monitor is only ever called from the
+/// calling thread, and the work's speed does not depend on how often it is watched.
+///
+/// # Errors
+/// The monitor's error.
+pub fn watched<R: Send>(
+    pool: &Pool,
+    monitor: &dyn Monitor,
+    total: usize,
+    work: impl FnOnce(&Watch) -> R + Send,
+) -> Result<R> {
+    let watch = Watch::default();
+    let (finished, signal) = std::sync::mpsc::channel::<()>();
+    let (result, outcome) = std::thread::scope(|scope| {
+        let watch = &watch;
+        let worker = scope.spawn(move || {
+            let result = pool.run(|| work(watch));
+            // The receiver lives until the worker is joined; a failed send cannot happen.
+            let _ = finished.send(());
+            result
+        });
+        let mut outcome = Ok(());
+        loop {
+            match signal.recv_timeout(HEARTBEAT) {
+                Err(std::sync::mpsc::RecvTimeoutError::Timeout) => {
+                    if outcome.is_ok() {
+                        let done = watch.done.load(std::sync::atomic::Ordering::Relaxed);
+                        if let Err(e) = monitor.progress(done.min(total), total) {
+                            watch.stop.store(true, std::sync::atomic::Ordering::Relaxed);
+                            outcome = Err(e);
+                        }
+                    }
+                }
+                // Finished, or the worker panicked (its sender dropped): join it below.
+                Ok(()) | Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => break,
+            }
+        }
+        let result = worker
+            .join()
+            .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
+        (result, outcome)
+    });
+    outcome?;
+    monitor.progress(total, total)?;
+    Ok(result)
+}
