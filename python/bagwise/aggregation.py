@@ -118,7 +118,8 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None, prog
         return _core.mean_prediction(members, member_weights, n_jobs, callback)
 
 
-def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None, progress=False) -> np.ndarray:
+def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None,
+                   progress=False) -> np.ndarray:
     """Share of the (weighted) member votes each class gets at every point.
 
     The fractions estimate class probabilities from hard votes: row ``j`` is

@@ -663,7 +663,7 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     progress_iv(progress)
     bags = [(name, _bag_of(name, spec, task, n_members, seed, n_jobs)) for name, spec in named]
     verdicts, rho, status, needed = [], [], [], []
-    with once_per_call(), progress_callback(progress, "comparing learners") as callback:
+    with once_per_call(), progress_callback(progress, "comparing learners", "step") as callback:
         # Per learner: its fit (reported member by member), then its verdict and spread.
         steps = iter(stages(callback, 2 * len(bags)))
         for _, bag in bags:

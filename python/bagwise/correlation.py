@@ -281,7 +281,7 @@ def correlation(members, y, *, matrix=False, n_jobs=None, progress=False) -> Cor
     if _chunked.any_lazy(members, y):
         return _lazy_correlation(members, y, matrix, n_jobs, progress)
     members, y, matrix, n_jobs = _correlation_iv(members, y, matrix, n_jobs)
-    with progress_callback(progress, "correlation", "point") as callback:
+    with progress_callback(progress, "correlation", "step" if matrix else "point") as callback:
         first, second = stages(callback, 2 if matrix else 1) + [None] * (1 - bool(matrix))
         summary = _core.residual_correlation(members, y, n_jobs, first)
         full = _core.correlation_matrix(members, y, n_jobs, second) if matrix else None

@@ -937,7 +937,8 @@ class _Bag(BaseEstimator):
                          train_members=train_members, train_y=train_y, seed=0,
                          n_jobs=self.n_jobs, members_are_training=False,
                          member_count=self._member_count(),
-                         group_size=self.group_size if self.scheme == "little_bags" else 0)
+                         group_size=self.group_size if self.scheme == "little_bags" else 0,
+                         progress=self.progress)
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""

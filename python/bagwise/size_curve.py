@@ -292,7 +292,8 @@ def size_curve_stream(*, loss=None, sizes=None, orders=20, rng=0, n_jobs=None) -
     return SizeCurveStream(loss=loss, sizes=sizes, orders=orders, rng=rng, n_jobs=n_jobs)
 
 
-def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=None, progress=False) -> SizeCurve:
+def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=None,
+               progress=False) -> SizeCurve:
     """Loss of the ensemble of the first k members, for k on a grid, over random orders.
 
     For each of ``orders`` random member orders (order ``o`` uses member stream ``o`` drawn

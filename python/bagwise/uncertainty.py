@@ -921,7 +921,7 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
             f"`scheme`: method={method!r} is not valid for little-bags counts (members of a "
             "group share a half-sample, so they are not independent draws); use "
             "method='little_bags'")
-    with progress_callback(progress, "prediction variance") as callback:
+    with progress_callback(progress, "prediction variance", "step") as callback:
         build, estimate = stages(callback, 2)
         gram = CountGram(counts, scheme=scheme, jackknife=(method == "jackknife"), n_jobs=n_jobs,
                          progress=build or False)
@@ -1090,7 +1090,7 @@ def spread(members, counts, *, scheme=None, n_jobs=None, progress=False) -> Spre
     once to each worker and each chunk's per-point between/within arrays come back.
     ``progress`` as in :func:`prediction_variance`.
     """
-    with progress_callback(progress, "spread") as callback:
+    with progress_callback(progress, "spread", "step") as callback:
         build, estimate = stages(callback, 2)
         gram = CountGram(counts, scheme=scheme, n_jobs=n_jobs, progress=build or False)
         return gram.spread(members, n_jobs=n_jobs, progress=estimate or False)
