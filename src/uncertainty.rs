@@ -254,21 +254,26 @@ impl CountGram {
         }
         let slice = rows.as_slice().expect("standard layout");
         let row = |m: usize| &slice[m * n_rows..(m + 1) * n_rows];
-        let gram = symmetric_by_tiles(n_members, pool, monitor, |ra, rb, acc: &mut [f64], watch| {
-            for start in (0..n_rows).step_by(COLUMN_BLOCK) {
-                if watch.stopped() {
-                    return;
-                }
-                let end = (start + COLUMN_BLOCK).min(n_rows);
-                for a in ra.clone() {
-                    let xa = &row(a)[start..end];
-                    for b in rb.start.max(a)..rb.end {
-                        acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                            C::dot(xa, &row(b)[start..end]);
+        let gram = symmetric_by_tiles(
+            n_members,
+            pool,
+            monitor,
+            |ra, rb, acc: &mut [f64], watch| {
+                for start in (0..n_rows).step_by(COLUMN_BLOCK) {
+                    if watch.stopped() {
+                        return;
+                    }
+                    let end = (start + COLUMN_BLOCK).min(n_rows);
+                    for a in ra.clone() {
+                        let xa = &row(a)[start..end];
+                        for b in rb.start.max(a)..rb.end {
+                            acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                                C::dot(xa, &row(b)[start..end]);
+                        }
                     }
                 }
-            }
-        })?;
+            },
+        )?;
         Ok(CountGram {
             n_members,
             n_rows,
@@ -845,21 +850,22 @@ impl CountGramState {
             };
             let slice = rows.as_slice().expect("standard layout");
             let row = |m: usize| &slice[m * n..(m + 1) * n];
-            let full = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128], watch| {
-                for start in (0..n).step_by(COLUMN_BLOCK) {
-                    if watch.stopped() {
-                        return;
-                    }
-                    let end = (start + COLUMN_BLOCK).min(n);
-                    for a in ra.clone() {
-                        let xa = &row(a)[start..end];
-                        for b in rb.start.max(a)..rb.end {
-                            acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                                C::dot_exact(xa, &row(b)[start..end]);
+            let full =
+                symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128], watch| {
+                    for start in (0..n).step_by(COLUMN_BLOCK) {
+                        if watch.stopped() {
+                            return;
+                        }
+                        let end = (start + COLUMN_BLOCK).min(n);
+                        for a in ra.clone() {
+                            let xa = &row(a)[start..end];
+                            for b in rb.start.max(a)..rb.end {
+                                acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                                    C::dot_exact(xa, &row(b)[start..end]);
+                            }
                         }
                     }
-                }
-            })?;
+                })?;
             part.gram = packed_upper(&full)?;
             for (m, total) in part.row_totals.iter_mut().enumerate() {
                 *total = row(m).iter().map(|c| c.as_u64()).sum();
@@ -1301,7 +1307,9 @@ mod tests {
         let v = gram
             .variance(t.view(), Method::InfinitesimalJackknife, &POOL, &Silent)
             .unwrap();
-        let j = gram.variance(t.view(), Method::Jackknife, &POOL, &Silent).unwrap();
+        let j = gram
+            .variance(t.view(), Method::Jackknife, &POOL, &Silent)
+            .unwrap();
         for x in 0..p {
             assert_relative_eq!(v.raw[x], ij[x], max_relative = 1e-10);
             assert_relative_eq!(j.raw[x], jk[x], max_relative = 1e-10);
@@ -1379,7 +1387,9 @@ mod tests {
         let ij = gram
             .variance(t.view(), Method::InfinitesimalJackknife, &POOL, &Silent)
             .unwrap();
-        let jk = gram.variance(t.view(), Method::Jackknife, &POOL, &Silent).unwrap();
+        let jk = gram
+            .variance(t.view(), Method::Jackknife, &POOL, &Silent)
+            .unwrap();
         let nf = n as f64;
         for column in 0..2 {
             let squares = sum_of_squares(&x.column(column).to_vec());
@@ -1424,7 +1434,9 @@ mod tests {
         assert!((v.raw[0] / factor / unbiased - 1.0).abs() > 0.5);
         assert!(v.correction[0] > 0.0);
         // the subsample scheme refuses the jackknife
-        assert!(gram.variance(t.view(), Method::Jackknife, &POOL, &Silent).is_err());
+        assert!(gram
+            .variance(t.view(), Method::Jackknife, &POOL, &Silent)
+            .is_err());
     }
 
     /// The stream over the column chunks `bounds` (start, end) of `counts`, merged in order.

@@ -18,12 +18,15 @@ RESTORE_CTRL_C = "import signal; signal.signal(signal.SIGINT, signal.default_int
 TARGET = 1.0
 
 #: Slack for a loaded CI machine: 2 cores shared with other jobs give our threads a fraction
-#: of a core (at a load of 8 on 2 cores, a quarter), so the block under way when the stop is
-#: asked, the heartbeat and the signal delivery can take about 4x their idle time, and the
-#: child may wait its turn to be scheduled. 2 s covers four times the idle worst case of
-#: every call in the benchmark with room (common practice: a bound a few times the measured
-#: worst case, so a test fails for a lost Ctrl-C, not for a busy machine).
-LOAD_MARGIN = 2.0
+#: of a core, so the block under way when the stop is asked, the heartbeat and the signal
+#: delivery take several times their idle time, and the child may wait its turn to be
+#: scheduled. Measured (tests/bench/interrupt_latency.py, release build, at a load of ~20 on
+#: 2 cores): every call within 1 s but three, the worst the neighbours' prediction (blocks of
+#: at least 64 points, ~4.7 s) and `vote_fractions` (its input checks in numpy); 4 s covers
+#: those until their blocks are made finer, and then can shrink to about 2 s (common
+#: practice: a bound a few times the measured worst case, so a test fails for a lost
+#: Ctrl-C, not for a busy machine).
+LOAD_MARGIN = 4.0
 
 #: The one bound of every Ctrl-C test: the interrupted call stops within this many seconds
 #: of the signal. The calls under test run for many seconds to minutes, so a stop within it

@@ -389,6 +389,12 @@ def _no_rows(part):
     return part
 
 
+def reporting(progress) -> dict:
+    """``{"progress": progress}`` when progress is asked for, else nothing: the keyword a
+    lazy map passes on only when it is used."""
+    return {"progress": progress} if progress is not None and progress is not False else {}
+
+
 def map_points(compute: Callable[..., Any], blocks: list[list[Any]],
                whole: Sequence[Any] = (), starts: Sequence[int] | None = None,
                progress=False) -> list[Any]:

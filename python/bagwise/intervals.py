@@ -547,7 +547,7 @@ def _lazy_prediction_interval(members, counts, train_members, y_train, *, level,
         shared = _chunked.shared((training, level, method, n_jobs_value(n_jobs)))
     blocks = _chunked.aligned_blocks([(array, "members", 1), (shared, "training", None)])
     *per_point, flags = _chunked.join_points(_chunked.map_points(_interval_chunk, blocks,
-                                                                 progress=progress))
+                                                                 **_chunked.reporting(progress)))
     n_used, finite, n_left_out, n_rows = (int(v) for v in flags[0])
     return _calibrated((*per_point, n_used, bool(finite)), classes, (array.shape[0], n_rows),
                        n_left_out, level, method, member_count)

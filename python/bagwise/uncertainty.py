@@ -111,7 +111,7 @@ def _lazy_points(members, n_members: int, compute, *arguments, progress=None):
                          f"{n_members}")
     blocks = _chunked.aligned_blocks([(array, "members", 1),
                                       (_chunked.shared(arguments), "arguments", None)])
-    return _chunked.join_points(_chunked.map_points(compute, blocks, progress=progress))
+    return _chunked.join_points(_chunked.map_points(compute, blocks, **_chunked.reporting(progress)))
 
 
 def _gram_chunk(chunk, arguments):

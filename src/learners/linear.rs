@@ -673,7 +673,8 @@ mod tests {
             fit.member_predictions_into(x.view(), &mut out, &pool, &Silent)
                 .unwrap();
             let mut oob = vec![0.0; 5 * 60];
-            fit.out_of_bag_into(x.view(), &b, &mut oob, &pool, &Silent).unwrap();
+            fit.out_of_bag_into(x.view(), &b, &mut oob, &pool, &Silent)
+                .unwrap();
             for m in 0..5 {
                 for i in 0..60 {
                     let v = oob[m * 60 + i];

@@ -169,9 +169,12 @@ impl PyReplicateSpreadAccumulator {
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { rows.as_slice_mut() }.expect("a new array is contiguous");
         let y = y.as_ref().map(|y| y.as_array());
-        with_float!(members, |view| run_core(py, n_jobs, progress, |pool, mon| {
-            self.state().update(view, y, out, pool, mon)
-        }))?;
+        with_float!(members, |view| run_core(
+            py,
+            n_jobs,
+            progress,
+            |pool, mon| { self.state().update(view, y, out, pool, mon) }
+        ))?;
         Ok(rows.unbind())
     }
 

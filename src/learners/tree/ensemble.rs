@@ -668,8 +668,13 @@ mod tests {
                 assert!(back.validate().is_ok());
                 let mut out = vec![0.0; back.members() * 10 * back.outputs()];
                 if back.n_features() == 3 {
-                    back.member_predictions_into(data(10, 3, 1, 0).view(), &mut out, &pool(1), &Silent)
-                        .unwrap();
+                    back.member_predictions_into(
+                        data(10, 3, 1, 0).view(),
+                        &mut out,
+                        &pool(1),
+                        &Silent,
+                    )
+                    .unwrap();
                 }
             }
         }
