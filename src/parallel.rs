@@ -142,19 +142,14 @@ pub fn watched<R: Send>(
             result
         });
         let mut outcome = Ok(());
-        loop {
-            match signal.recv_timeout(HEARTBEAT) {
-                Err(std::sync::mpsc::RecvTimeoutError::Timeout) => {
-                    if outcome.is_ok() {
-                        let done = watch.done.load(std::sync::atomic::Ordering::Relaxed);
-                        if let Err(e) = monitor.progress(done.min(total), total) {
-                            watch.stop.store(true, std::sync::atomic::Ordering::Relaxed);
-                            outcome = Err(e);
-                        }
-                    }
+        // Until the worker says it finished (or panicked, dropping its sender).
+        while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) = signal.recv_timeout(HEARTBEAT) {
+            if outcome.is_ok() {
+                let done = watch.done.load(std::sync::atomic::Ordering::Relaxed);
+                if let Err(e) = monitor.progress(done.min(total), total) {
+                    watch.stop.store(true, std::sync::atomic::Ordering::Relaxed);
+                    outcome = Err(e);
                 }
-                // Finished, or the worker panicked (its sender dropped): join it below.
-                Ok(()) | Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => break,
             }
         }
         let result = worker
