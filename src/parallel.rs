@@ -161,3 +161,62 @@ pub fn watched<R: Send>(
     monitor.progress(total, total)?;
     Ok(result)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A monitor that stops the work at its first heartbeat.
+    struct StopAtOnce;
+
+    impl Monitor for StopAtOnce {
+        fn progress(&self, _done: usize, _total: usize) -> Result<()> {
+            Err(Error::Interrupted)
+        }
+    }
+
+    /// Records every report.
+    #[derive(Default)]
+    struct Record(std::sync::Mutex<Vec<(usize, usize)>>);
+
+    impl Monitor for Record {
+        fn progress(&self, done: usize, total: usize) -> Result<()> {
+            self.0.lock().unwrap().push((done, total));
+            Ok(())
+        }
+    }
+
+    #[test]
+    fn watched_work_stops_when_the_monitor_says_so() {
+        let pool = Threads::Fixed(2).pool().unwrap();
+        let outcome = watched(&pool, &StopAtOnce, 10, |watch| {
+            // Would run for minutes; checks the flag between blocks of 1 ms.
+            let mut blocks = 0;
+            while !watch.stopped() && blocks < 600_000 {
+                std::thread::sleep(std::time::Duration::from_millis(1));
+                blocks += 1;
+            }
+            blocks
+        });
+        assert!(matches!(outcome, Err(Error::Interrupted)));
+    }
+
+    #[test]
+    fn watched_reports_monotone_progress_ending_at_total() {
+        let pool = Threads::Fixed(2).pool().unwrap();
+        let record = Record::default();
+        let value = watched(&pool, &record, 5, |watch| {
+            for _ in 0..5 {
+                std::thread::sleep(HEARTBEAT / 2);
+                watch.advance(1);
+            }
+            42
+        })
+        .unwrap();
+        assert_eq!(value, 42);
+        let seen = record.0.into_inner().unwrap();
+        assert_eq!(seen.last(), Some(&(5, 5)));
+        assert!(seen.windows(2).all(|w| w[0].0 <= w[1].0 && w[1].1 == 5));
+        assert!(seen.len() >= 2, "{seen:?}");
+    }
+}
