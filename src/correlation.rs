@@ -468,12 +468,14 @@ impl CorrelationState {
             }
         }
         let chunks = Chunks::of(members.ncols());
-        let mut merged = std::mem::take(self);
+        // Into a copy, kept only on success: an update stopped by Ctrl-C (or an error in a
+        // later block) leaves the state as it was.
+        let mut merged = self.clone();
         let work = |points: Range<usize>, _: &mut ()| Self::of_block(members, y, points);
         let merge = |part: CorrelationState| merged.absorb(part);
-        let outcome = for_chunks(chunks, &mut no_slots(chunks), pool, monitor, work, merge);
+        for_chunks(chunks, &mut no_slots(chunks), pool, monitor, work, merge)?;
         *self = merged;
-        outcome
+        Ok(())
     }
 
     /// Chan, Golub & LeVeque's pairwise update: `other`'s points after this state's.

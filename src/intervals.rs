@@ -21,7 +21,7 @@ use rayon::prelude::*;
 use crate::error::{zeroed, Error, Result};
 use crate::numeric::Real;
 use crate::out_of_bag::CountValue;
-use crate::parallel::{Monitor, Pool};
+use crate::parallel::{watched, Monitor, Pool};
 use crate::random::MemberStreams;
 
 /// Test points per task (jackknife+ works through them in sub-chunks of
@@ -367,7 +367,8 @@ fn bounds_of(
 }
 
 /// Runs `task(start, lower_chunk, upper_chunk)` over chunks of `chunk` points on the
-/// pool, calling the monitor between rounds; the chunking does not depend on the threads.
+/// pool, watched from the calling thread (progress in points; Ctrl-C stops the work within
+/// one chunk); the chunking does not depend on the threads.
 fn over_point_chunks<A: Send, B: Send>(
     first: &mut [A],
     second: &mut [B],
@@ -378,23 +379,20 @@ fn over_point_chunks<A: Send, B: Send>(
     task: impl Fn(usize, &mut [A], &mut [B]) -> Result<()> + Sync,
 ) -> Result<()> {
     let n_points = first.len();
-    let round = chunk * pool.threads().max(1) * 4;
-    let mut done = 0;
-    for (a, b) in first
-        .chunks_mut(round)
-        .zip(second.chunks_mut(round * width))
-    {
-        let start = done;
-        pool.run(|| {
-            a.par_chunks_mut(chunk)
-                .zip(b.par_chunks_mut(chunk * width))
-                .enumerate()
-                .try_for_each(|(c, (a, b))| task(start + c * chunk, a, b))
-        })?;
-        done += a.len();
-        monitor.progress(done, n_points)?;
-    }
-    Ok(())
+    watched(pool, monitor, n_points, |watch| {
+        first
+            .par_chunks_mut(chunk)
+            .zip(second.par_chunks_mut(chunk * width))
+            .enumerate()
+            .try_for_each(|(c, (a, b))| {
+                if watch.stopped() {
+                    return Err(Error::Interrupted);
+                }
+                task(c * chunk, a, b)?;
+                watch.advance(a.len());
+                Ok(())
+            })
+    })?
 }
 
 /// Prediction interval for a new observation at each of the `n_points` new points.

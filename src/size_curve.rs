@@ -205,6 +205,18 @@ impl SizeCurveState {
         Ok(())
     }
 
+    /// The chunks of `n` points: always [`CHUNK_POINTS`] each (so results do not depend on
+    /// anything else), but one chunk per thread a round when a point costs many operations
+    /// (orders × members × cells), so the monitor (progress, Ctrl-C) is called every few
+    /// hundred milliseconds at most whatever the number of orders.
+    fn chunks(&self, n: usize, per_order: usize, pool: &Pool) -> Chunks {
+        let mut chunks = Chunks::of(n);
+        if self.orders.len() * per_order >= 4096 {
+            chunks.per_round = pool.threads().max(1);
+        }
+        chunks
+    }
+
     fn merge_part(&mut self, part: CurvePart) {
         self.sums
             .iter_mut()
@@ -290,7 +302,7 @@ impl SizeCurveState {
                 within: Moments::of_slice(&within),
             })
         };
-        let chunks = Chunks::of(n);
+        let chunks = self.chunks(n, m * n_cells, pool);
         let mut parts = Vec::with_capacity(chunks.count());
         for_chunks(chunks, &mut no_slots(chunks), pool, monitor, work, |part| {
             parts.push(part);
@@ -443,7 +455,7 @@ impl SizeCurveState {
                 within: Moments::default(),
             })
         };
-        let chunks = Chunks::of(n);
+        let chunks = self.chunks(n, m, pool);
         let mut parts = Vec::with_capacity(chunks.count());
         for_chunks(chunks, &mut no_slots(chunks), pool, monitor, work, |part| {
             parts.push(part);

@@ -43,7 +43,7 @@ use serde::{Deserialize, Serialize};
 use crate::error::{Error, Result};
 use crate::members::MergeableState;
 use crate::numeric::Real;
-use crate::parallel::{Monitor, Pool};
+use crate::parallel::{watched, Monitor, Pool, Watch};
 use crate::resampling::Count;
 
 /// How the members' rows were drawn, which fixes the IJ scale and bias correction.
@@ -147,22 +147,27 @@ fn tiles(members: usize) -> Vec<(usize, usize)> {
     out
 }
 
-/// Fills a symmetric B × B matrix tile by tile: `tile(a0..a1, b0..b1, acc)` adds the
-/// entries (a, b), a ≤ b, of one tile into `acc[(a − a0) · TILE + (b − b0)]`. Tiles run in
-/// parallel and every entry is computed by one task, so results never depend on scheduling.
+/// Fills a symmetric B × B matrix tile by tile: `tile(a0..a1, b0..b1, acc, watch)` adds
+/// the entries (a, b), a ≤ b, of one tile into `acc[(a − a0) · TILE + (b − b0)]`, and
+/// returns early once `watch` is stopped (checked per block of rows, never inside a dot
+/// product). Tiles run in parallel in batches and every entry is computed by one task, so
+/// results never depend on scheduling; the calling thread watches (progress in tiles, Ctrl-C
+/// within one block of rows).
 fn symmetric_by_tiles<T: Copy + Default + Send + Sync>(
     members: usize,
     pool: &Pool,
     monitor: &dyn Monitor,
-    tile: impl Fn(std::ops::Range<usize>, std::ops::Range<usize>, &mut [T]) + Sync,
+    tile: impl Fn(std::ops::Range<usize>, std::ops::Range<usize>, &mut [T], &Watch) + Sync,
 ) -> Result<Array2<T>> {
     let tile_list = tiles(members);
-    let mut out = Array2::<T>::default((members, members));
     let per_batch = (pool.threads() * 8).max(1);
-    let mut done = 0;
-    for batch in tile_list.chunks(per_batch) {
-        let blocks: Vec<(usize, usize, Vec<T>)> = pool.run(|| {
-            batch
+    watched(pool, monitor, tile_list.len(), |watch| {
+        let mut out = Array2::<T>::default((members, members));
+        for batch in tile_list.chunks(per_batch) {
+            if watch.stopped() {
+                break;
+            }
+            let blocks: Vec<(usize, usize, Vec<T>)> = batch
                 .par_iter()
                 .map(|&(a0, b0)| {
                     let mut acc = vec![T::default(); TILE * TILE];
@@ -170,24 +175,24 @@ fn symmetric_by_tiles<T: Copy + Default + Send + Sync>(
                         a0..(a0 + TILE).min(members),
                         b0..(b0 + TILE).min(members),
                         &mut acc,
+                        watch,
                     );
                     (a0, b0, acc)
                 })
-                .collect()
-        });
-        for (a0, b0, acc) in blocks {
-            for a in a0..(a0 + TILE).min(members) {
-                for b in b0.max(a)..(b0 + TILE).min(members) {
-                    let v = acc[(a - a0) * TILE + (b - b0)];
-                    out[[a, b]] = v;
-                    out[[b, a]] = v;
+                .collect();
+            for (a0, b0, acc) in blocks {
+                for a in a0..(a0 + TILE).min(members) {
+                    for b in b0.max(a)..(b0 + TILE).min(members) {
+                        let v = acc[(a - a0) * TILE + (b - b0)];
+                        out[[a, b]] = v;
+                        out[[b, a]] = v;
+                    }
                 }
             }
+            watch.advance(batch.len());
         }
-        done += batch.len();
-        monitor.progress(done, tile_list.len())?;
-    }
-    Ok(out)
+        out
+    })
 }
 
 impl CountGram {
@@ -249,18 +254,26 @@ impl CountGram {
         }
         let slice = rows.as_slice().expect("standard layout");
         let row = |m: usize| &slice[m * n_rows..(m + 1) * n_rows];
-        let gram = symmetric_by_tiles(n_members, pool, monitor, |ra, rb, acc: &mut [f64]| {
-            for start in (0..n_rows).step_by(COLUMN_BLOCK) {
-                let end = (start + COLUMN_BLOCK).min(n_rows);
-                for a in ra.clone() {
-                    let xa = &row(a)[start..end];
-                    for b in rb.start.max(a)..rb.end {
-                        acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                            C::dot(xa, &row(b)[start..end]);
+        let gram = symmetric_by_tiles(
+            n_members,
+            pool,
+            monitor,
+            |ra, rb, acc: &mut [f64], watch| {
+                for start in (0..n_rows).step_by(COLUMN_BLOCK) {
+                    if watch.stopped() {
+                        return;
+                    }
+                    let end = (start + COLUMN_BLOCK).min(n_rows);
+                    for a in ra.clone() {
+                        let xa = &row(a)[start..end];
+                        for b in rb.start.max(a)..rb.end {
+                            acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                                C::dot(xa, &row(b)[start..end]);
+                        }
                     }
                 }
-            }
-        })?;
+            },
+        )?;
         Ok(CountGram {
             n_members,
             n_rows,
@@ -300,8 +313,11 @@ impl CountGram {
             never,
         } = out_of_bag_indicators(counts, pool);
         let row = |m: usize| &indicators[m * width..(m + 1) * width];
-        let h = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [f64]| {
+        let h = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [f64], watch| {
             for &(start, end, o) in &segments {
+                if watch.stopped() {
+                    return;
+                }
                 let weight = out_of_bag_weight(o);
                 for a in ra.clone() {
                     let xa = &row(a)[start..end];
@@ -383,6 +399,7 @@ impl CountGram {
         predictions: ArrayView2<'_, T>,
         method: Method,
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<VarianceEstimate> {
         let (b_count, n_points) = predictions.dim();
         if b_count != self.n_members {
@@ -412,11 +429,17 @@ impl CountGram {
         };
         const POINTS: usize = 256;
         let starts: Vec<usize> = (0..n_points).step_by(POINTS).collect();
-        let parts: Vec<Result<Vec<[f64; 3]>>> = pool.run(|| {
+        // Watched: a block of points costs B² · POINTS operations, so the stop flag is
+        // checked per block (never inside the product) and Ctrl-C is seen within one block.
+        let parts: Vec<Result<Vec<[f64; 3]>>> = watched(pool, monitor, n_points, |watch| {
             starts
                 .par_iter()
                 .map(|&start| {
+                    if watch.stopped() {
+                        return Err(Error::Interrupted);
+                    }
                     let end = (start + POINTS).min(n_points);
+                    watch.advance(end - start);
                     let block = predictions.slice(ndarray::s![.., start..end]);
                     // Centre over members in f64: t̃ (B × c).
                     let mut centred = Array2::<f64>::zeros((b_count, end - start));
@@ -447,7 +470,7 @@ impl CountGram {
                         .collect())
                 })
                 .collect()
-        });
+        })?;
         let mut quadratic = Array1::<f64>::zeros(n_points);
         let mut spread = Array1::<f64>::zeros(n_points);
         let mut mean = Array1::<f64>::zeros(n_points);
@@ -557,14 +580,20 @@ fn segment_grams(
     let mut out = vec![vec![0u64; members * (members + 1) / 2]; depth];
     let tile_list = tiles(members);
     let per_batch = (pool.threads() * 8).max(1);
-    let mut done = 0;
-    for batch in tile_list.chunks(per_batch) {
-        let blocks: Vec<(usize, usize, Vec<u64>)> = pool.run(|| {
-            batch
+    // Watched: the stop flag is checked per member row of a tile (never inside a dot).
+    watched(pool, monitor, tile_list.len(), |watch| {
+        for batch in tile_list.chunks(per_batch) {
+            if watch.stopped() {
+                break;
+            }
+            let blocks: Vec<(usize, usize, Vec<u64>)> = batch
                 .par_iter()
                 .map(|&(a0, b0)| {
                     let mut acc = vec![0u64; depth * TILE * TILE];
                     for a in a0..(a0 + TILE).min(members) {
+                        if watch.stopped() {
+                            break;
+                        }
                         for b in b0.max(a)..(b0 + TILE).min(members) {
                             for (k, &(start, end, _)) in segments.iter().enumerate() {
                                 acc[(k * TILE + a - a0) * TILE + (b - b0)] =
@@ -574,21 +603,21 @@ fn segment_grams(
                     }
                     (a0, b0, acc)
                 })
-                .collect()
-        });
-        for (a0, b0, acc) in blocks {
-            for (k, gram) in out.iter_mut().enumerate() {
-                for a in a0..(a0 + TILE).min(members) {
-                    for b in b0.max(a)..(b0 + TILE).min(members) {
-                        gram[packed(members, a, b)] = acc[(k * TILE + a - a0) * TILE + (b - b0)];
+                .collect();
+            for (a0, b0, acc) in blocks {
+                for (k, gram) in out.iter_mut().enumerate() {
+                    for a in a0..(a0 + TILE).min(members) {
+                        for b in b0.max(a)..(b0 + TILE).min(members) {
+                            gram[packed(members, a, b)] =
+                                acc[(k * TILE + a - a0) * TILE + (b - b0)];
+                        }
                     }
                 }
             }
+            watch.advance(batch.len());
         }
-        done += batch.len();
-        monitor.progress(done, tile_list.len())?;
-    }
-    Ok(out)
+        out
+    })
 }
 
 /// The stored form of a [`CountGram`] (postcard bytes), versioned for forward checks.
@@ -821,18 +850,22 @@ impl CountGramState {
             };
             let slice = rows.as_slice().expect("standard layout");
             let row = |m: usize| &slice[m * n..(m + 1) * n];
-            let full = symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128]| {
-                for start in (0..n).step_by(COLUMN_BLOCK) {
-                    let end = (start + COLUMN_BLOCK).min(n);
-                    for a in ra.clone() {
-                        let xa = &row(a)[start..end];
-                        for b in rb.start.max(a)..rb.end {
-                            acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                                C::dot_exact(xa, &row(b)[start..end]);
+            let full =
+                symmetric_by_tiles(members, pool, monitor, |ra, rb, acc: &mut [u128], watch| {
+                    for start in (0..n).step_by(COLUMN_BLOCK) {
+                        if watch.stopped() {
+                            return;
+                        }
+                        let end = (start + COLUMN_BLOCK).min(n);
+                        for a in ra.clone() {
+                            let xa = &row(a)[start..end];
+                            for b in rb.start.max(a)..rb.end {
+                                acc[(a - ra.start) * TILE + (b - rb.start)] +=
+                                    C::dot_exact(xa, &row(b)[start..end]);
+                            }
                         }
                     }
-                }
-            })?;
+                })?;
             part.gram = packed_upper(&full)?;
             for (m, total) in part.row_totals.iter_mut().enumerate() {
                 *total = row(m).iter().map(|c| c.as_u64()).sum();
@@ -1122,6 +1155,7 @@ pub fn little_bags_variance<T: Real>(
     predictions: ArrayView2<'_, T>,
     group_size: usize,
     pool: &Pool,
+    monitor: &dyn Monitor,
 ) -> Result<LittleBagsEstimate> {
     let (n_members, n_points) = predictions.dim();
     if group_size < 2 {
@@ -1154,11 +1188,16 @@ pub fn little_bags_variance<T: Real>(
     const POINTS: usize = 256;
     let starts: Vec<usize> = (0..n_points).step_by(POINTS).collect();
     let ell = group_size as f64;
-    let parts: Vec<Result<Vec<[f64; 3]>>> = pool.run(|| {
+    // Watched: the stop flag is checked per block of points (never inside the sums).
+    let parts: Vec<Result<Vec<[f64; 3]>>> = watched(pool, monitor, n_points, |watch| {
         starts
             .par_iter()
             .map(|&start| {
+                if watch.stopped() {
+                    return Err(Error::Interrupted);
+                }
                 let width = (start + POINTS).min(n_points) - start;
+                watch.advance(width);
                 // Per point: the running group mean and sum of squares (Welford), the
                 // running mean and sum of squares of the group means, Σ_g within_g.
                 let mut group_mean = vec![0f64; width];
@@ -1205,7 +1244,7 @@ pub fn little_bags_variance<T: Real>(
                     .collect())
             })
             .collect()
-    });
+    })?;
     let mut raw = Array1::<f64>::zeros(n_points);
     let mut within = Array1::<f64>::zeros(n_points);
     let mut mean = Array1::<f64>::zeros(n_points);
@@ -1289,9 +1328,11 @@ mod tests {
         gram.add_out_of_bag_gram(counts.view(), &POOL, &Silent)
             .unwrap();
         let v = gram
-            .variance(t.view(), Method::InfinitesimalJackknife, &POOL)
+            .variance(t.view(), Method::InfinitesimalJackknife, &POOL, &Silent)
             .unwrap();
-        let j = gram.variance(t.view(), Method::Jackknife, &POOL).unwrap();
+        let j = gram
+            .variance(t.view(), Method::Jackknife, &POOL, &Silent)
+            .unwrap();
         for x in 0..p {
             assert_relative_eq!(v.raw[x], ij[x], max_relative = 1e-10);
             assert_relative_eq!(j.raw[x], jk[x], max_relative = 1e-10);
@@ -1367,9 +1408,11 @@ mod tests {
             .unwrap();
         assert_eq!(gram.rows_never_out_of_bag(), 0);
         let ij = gram
-            .variance(t.view(), Method::InfinitesimalJackknife, &POOL)
+            .variance(t.view(), Method::InfinitesimalJackknife, &POOL, &Silent)
             .unwrap();
-        let jk = gram.variance(t.view(), Method::Jackknife, &POOL).unwrap();
+        let jk = gram
+            .variance(t.view(), Method::Jackknife, &POOL, &Silent)
+            .unwrap();
         let nf = n as f64;
         for column in 0..2 {
             let squares = sum_of_squares(&x.column(column).to_vec());
@@ -1404,7 +1447,7 @@ mod tests {
         let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
         assert_eq!(gram.kind(), DrawKind::Subsample { rows: s });
         let v = gram
-            .variance(t.view(), Method::InfinitesimalJackknife, &POOL)
+            .variance(t.view(), Method::InfinitesimalJackknife, &POOL, &Silent)
             .unwrap();
         let nf = n as f64;
         let unbiased = sum_of_squares(&values) / (nf * (nf - 1.0));
@@ -1414,7 +1457,9 @@ mod tests {
         assert!((v.raw[0] / factor / unbiased - 1.0).abs() > 0.5);
         assert!(v.correction[0] > 0.0);
         // the subsample scheme refuses the jackknife
-        assert!(gram.variance(t.view(), Method::Jackknife, &POOL).is_err());
+        assert!(gram
+            .variance(t.view(), Method::Jackknife, &POOL, &Silent)
+            .is_err());
     }
 
     /// The stream over the column chunks `bounds` (start, end) of `counts`, merged in order.
@@ -1614,7 +1659,7 @@ mod tests {
         let gram = CountGram::new(counts.view(), None, &POOL, &Silent).unwrap();
         let wrong = Array2::<f64>::zeros((4, 2));
         assert!(matches!(
-            gram.variance(wrong.view(), Method::InfinitesimalJackknife, &POOL),
+            gram.variance(wrong.view(), Method::InfinitesimalJackknife, &POOL, &Silent),
             Err(Error::InvalidValue {
                 argument: "members",
                 ..
@@ -1622,7 +1667,7 @@ mod tests {
         ));
         let nan = Array2::from_elem((3, 2), f64::NAN);
         assert!(matches!(
-            gram.variance(nan.view(), Method::InfinitesimalJackknife, &POOL),
+            gram.variance(nan.view(), Method::InfinitesimalJackknife, &POOL, &Silent),
             Err(Error::InvalidValue {
                 argument: "members",
                 ..
@@ -1632,7 +1677,8 @@ mod tests {
             gram.variance(
                 Array2::<f64>::zeros((3, 2)).view(),
                 Method::Jackknife,
-                &POOL
+                &POOL,
+                &Silent
             ),
             Err(Error::InvalidValue {
                 argument: "method",
@@ -1673,11 +1719,11 @@ mod tests {
                 ((m * 31 + x * 7) as f64 * 0.37).sin() * 3.0 + 1e3 + (x as f64) * 0.01
             });
             let direct = little_bags_direct(&t, l);
-            let v = little_bags_variance(t.view(), l, &POOL).unwrap();
+            let v = little_bags_variance(t.view(), l, &POOL, &Silent).unwrap();
             let single = t.mapv(|v| v as f32);
-            let v32 = little_bags_variance(single.view(), l, &POOL).unwrap();
+            let v32 = little_bags_variance(single.view(), l, &POOL, &Silent).unwrap();
             let strided = t.t().to_owned();
-            let vt = little_bags_variance(strided.t(), l, &POOL).unwrap();
+            let vt = little_bags_variance(strided.t(), l, &POOL, &Silent).unwrap();
             for (x, &[s2, w, m]) in direct.iter().enumerate() {
                 assert_relative_eq!(v.raw[x], s2, max_relative = 1e-10);
                 assert_relative_eq!(v.within[x], w, max_relative = 1e-10);
@@ -1694,14 +1740,14 @@ mod tests {
         // Two groups of two at one point: members 1, 3 | 2, 6. Group means 2 and 4,
         // S²_B = ((2 − 3)² + (4 − 3)²)/1 = 2; within 2 and 8, W = 5, W/ℓ = 2.5.
         let t = ndarray::array![[1.0f64], [3.0], [2.0], [6.0]];
-        let v = little_bags_variance(t.view(), 2, &POOL).unwrap();
+        let v = little_bags_variance(t.view(), 2, &POOL, &Silent).unwrap();
         assert_eq!(v.raw[0], 2.0);
         assert_eq!(v.within[0], 5.0);
         assert_eq!(v.correction[0], 2.5);
         assert_eq!(v.mean[0], 3.0);
         let empty = Array2::<f64>::zeros((4, 0));
         assert_eq!(
-            little_bags_variance(empty.view(), 2, &POOL)
+            little_bags_variance(empty.view(), 2, &POOL, &Silent)
                 .unwrap()
                 .raw
                 .len(),
@@ -1737,7 +1783,7 @@ mod tests {
                 .sum::<f64>()
                 / 40.0
         });
-        let v = little_bags_variance(t.view(), l, &POOL).unwrap();
+        let v = little_bags_variance(t.view(), l, &POOL, &Silent).unwrap();
         let mean = x.iter().sum::<f64>() / n as f64;
         let s2 = x.iter().map(|xi| (xi - mean).powi(2)).sum::<f64>() / (n - 1) as f64;
         let truth = s2 / n as f64;
@@ -1768,21 +1814,21 @@ mod tests {
             other => panic!("expected an error, got {other:?}"),
         };
         assert_eq!(
-            argument(little_bags_variance(t.view(), 1, &POOL)),
+            argument(little_bags_variance(t.view(), 1, &POOL, &Silent)),
             "group_size"
         );
         assert_eq!(
-            argument(little_bags_variance(t.view(), 4, &POOL)),
+            argument(little_bags_variance(t.view(), 4, &POOL, &Silent)),
             "group_size"
         );
         assert_eq!(
-            argument(little_bags_variance(t.view(), 6, &POOL)),
+            argument(little_bags_variance(t.view(), 6, &POOL, &Silent)),
             "members"
         );
         let mut nan = t.clone();
         nan[[3, 1]] = f64::NAN;
         assert_eq!(
-            argument(little_bags_variance(nan.view(), 3, &POOL)),
+            argument(little_bags_variance(nan.view(), 3, &POOL, &Silent)),
             "members"
         );
     }

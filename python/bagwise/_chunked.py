@@ -25,6 +25,8 @@ from typing import Any
 
 import numpy as np
 
+from ._progress import finish, progress_callback
+
 __all__ = ["aligned_blocks", "any_lazy", "as_dask", "is_lazy", "join_points", "largest",
            "map_points", "map_over", "point_major", "point_starts", "reduce_over",
            "reduce_streams", "shared"]
@@ -285,9 +287,51 @@ def _shared(whole: Sequence[Any]) -> list[Any]:
     return [shared(value) if isinstance(value, np.ndarray) else value for value in whole]
 
 
+def _compute(chunks: list[Any], rest: list[Any], progress) -> tuple[list[Any], list[Any]]:
+    """``dask.compute`` of the per-chunk outputs ``chunks`` and the other outputs ``rest``,
+    reporting the chunks done to ``progress`` (the user's argument: a bool or a callable):
+    on the workers of an active client as each chunk's future completes; on dask's local
+    schedulers as each chunk's task finishes (a scheduler callback, run on the calling
+    thread). Ctrl-C on the client stops the wait, and the released futures are cancelled."""
+    import dask
+
+    with progress_callback(progress, "chunks", "chunk") as callback:
+        if callback is None:
+            out = dask.compute(*chunks, *rest)
+        elif _client_active():
+            from distributed import as_completed, get_client
+
+            client = get_client()
+            futures = client.compute([*chunks, *rest])
+            per_chunk = {future.key for future in futures[:len(chunks)]}
+            done = 0
+            callback(0, len(chunks))
+            for future in as_completed(futures):
+                if future.key in per_chunk:
+                    done += 1
+                    callback(done, len(chunks))
+            out = client.gather(futures)
+        else:
+            from dask.callbacks import Callback
+
+            keys = {chunk.key for chunk in chunks}
+            done = [0]
+
+            def finished(key, *_):
+                if key in keys and done[0] < len(chunks):
+                    done[0] += 1
+                    callback(done[0], len(chunks))
+
+            callback(0, len(chunks))
+            with Callback(posttask=finished):
+                out = dask.compute(*chunks, *rest)
+        finish(callback, len(chunks))
+    return list(out[:len(chunks)]), list(out[len(chunks):])
+
+
 def reduce_streams(start: Callable[..., Any], update: Callable[..., Any],
                    blocks: list[list[Any]], whole: Sequence[Any] = (),
-                   starts: Sequence[int] | None = None):
+                   starts: Sequence[int] | None = None, progress=False):
     """One stream over all chunks: ``update(start(*whole), *chunk_blocks)`` on each chunk
     where it lives, then a pairwise tree of ``merge`` in point order; computes and returns
     the stream.
@@ -297,7 +341,8 @@ def reduce_streams(start: Callable[..., Any], update: Callable[..., Any],
     arguments every chunk needs in full (member weights, a class count): numpy arrays among
     them become one graph key each, sent once to each worker. With ``starts`` (the first
     point of every chunk, `point_starts`), the point numbers in a chunk's error messages
-    count from the first point of all chunks.
+    count from the first point of all chunks. ``progress`` (a bool or a callable) hears the
+    chunks done.
     """
     import dask
 
@@ -317,7 +362,8 @@ def reduce_streams(start: Callable[..., Any], update: Callable[..., Any],
         if len(states) % 2:
             paired.append(states[-1])
         states = paired
-    stream, *parts = dask.compute(states[0], *[chunk_parts for _, chunk_parts in split])
+    parts, (stream,) = _compute([chunk_parts for _, chunk_parts in split], [states[0]],
+                                progress)
     if parts and parts[0] is not None:
         stream._parts = [part for chunk_parts in parts for part in chunk_parts]
     return stream
@@ -343,29 +389,38 @@ def _no_rows(part):
     return part
 
 
+def reporting(progress) -> dict:
+    """``{"progress": progress}`` when progress is asked for, else nothing: the keyword a
+    lazy map passes on only when it is used."""
+    return {"progress": progress} if progress is not None and progress is not False else {}
+
+
 def map_points(compute: Callable[..., Any], blocks: list[list[Any]],
-               whole: Sequence[Any] = (), starts: Sequence[int] | None = None) -> list[Any]:
+               whole: Sequence[Any] = (), starts: Sequence[int] | None = None,
+               progress=False) -> list[Any]:
     """``compute(*whole, *chunk_blocks)`` on each chunk where it lives; the results, in
-    point order (``whole`` and ``starts`` as in `reduce_streams`)."""
+    point order (``whole``, ``starts`` and ``progress`` as in `reduce_streams`)."""
     import dask
 
     shared = _shared(whole)
     starts = starts or [None] * len(blocks)
-    return list(dask.compute(*[dask.delayed(_in_chunk(compute, first), pure=False)(*shared, *chunk)
-                               for chunk, first in zip(blocks, starts, strict=True)]))
+    tasks = [dask.delayed(_in_chunk(compute, first), pure=False)(*shared, *chunk)
+             for chunk, first in zip(blocks, starts, strict=True)]
+    return _compute(tasks, [], progress)[0]
 
 
 def reduce_over(arrays: Sequence[tuple[Any, str, int | None]], start: Callable[..., Any],
-                update: Callable[..., Any], whole: Sequence[Any] = ()):
+                update: Callable[..., Any], whole: Sequence[Any] = (), progress=False):
     """`reduce_streams` over the `aligned_blocks` of ``arrays``, with their `point_starts`:
     the one call a family's lazy path makes."""
-    return reduce_streams(start, update, aligned_blocks(arrays), whole, point_starts(arrays))
+    return reduce_streams(start, update, aligned_blocks(arrays), whole, point_starts(arrays),
+                          progress)
 
 
 def map_over(arrays: Sequence[tuple[Any, str, int | None]], compute: Callable[..., Any],
-             whole: Sequence[Any] = ()) -> list[Any]:
+             whole: Sequence[Any] = (), progress=False) -> list[Any]:
     """`map_points` over the `aligned_blocks` of ``arrays``, with their `point_starts`."""
-    return map_points(compute, aligned_blocks(arrays), whole, point_starts(arrays))
+    return map_points(compute, aligned_blocks(arrays), whole, point_starts(arrays), progress)
 
 
 def shared(value):

@@ -97,11 +97,16 @@ class LinearEnsemble:
         progress: Callable[[int, int], object] | None = None,
     ) -> LinearEnsemble: ...
     def member_predictions(
-        self, x: _Design, n_jobs: int | None = None
+        self, x: _Design, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
-    def predict(self, x: _Design, n_jobs: int | None = None) -> npt.NDArray[np.float64]: ...
+    def predict(
+        self, x: _Design, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
+    ) -> npt.NDArray[np.float64]: ...
     def out_of_bag_predictions(
-        self, x: _Design, counts: _Counts, n_jobs: int | None = None
+        self, x: _Design, counts: _Counts, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     @property
     def n_members(self) -> int: ...
@@ -137,11 +142,16 @@ class NeighborsEnsemble:
         progress: Callable[[int, int], object] | None = None,
     ) -> NeighborsEnsemble: ...
     def member_predictions(
-        self, x: _Design, n_jobs: int | None = None
+        self, x: _Design, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
-    def predict(self, x: _Design, n_jobs: int | None = None) -> npt.NDArray[np.float64]: ...
+    def predict(
+        self, x: _Design, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
+    ) -> npt.NDArray[np.float64]: ...
     def out_of_bag_predictions(
-        self, x: _Design, counts: _Counts, n_jobs: int | None = None
+        self, x: _Design, counts: _Counts, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     @property
     def n_members(self) -> int: ...
@@ -177,7 +187,8 @@ class CountGram:
         progress: Callable[[int, int], object] | None = None,
     ) -> CountGram: ...
     def variance(
-        self, members: npt.NDArray[np.floating], method: str, n_jobs: int | None = None
+        self, members: npt.NDArray[np.floating], method: str, n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> tuple[
         npt.NDArray[np.float64],
         npt.NDArray[np.float64],
@@ -206,7 +217,8 @@ class CountGram:
 class CountGramAccumulator:
     def __new__(cls, jackknife: bool = False) -> CountGramAccumulator: ...
     def update(
-        self, counts: npt.NDArray[np.unsignedinteger], n_jobs: int | None = None
+        self, counts: npt.NDArray[np.unsignedinteger], n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> None: ...
     def merge(self, other: CountGramAccumulator) -> None: ...
     def finish(
@@ -228,7 +240,8 @@ class CountGramAccumulator:
     def __reduce__(self) -> tuple[Callable[[bytes], CountGramAccumulator], tuple[bytes]]: ...
 
 def little_bags_variance(
-    members: npt.NDArray[np.floating], group_size: int, n_jobs: int | None = None
+    members: npt.NDArray[np.floating], group_size: int, n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> tuple[
     npt.NDArray[np.float64],
     npt.NDArray[np.float64],
@@ -242,12 +255,14 @@ def mean_prediction(
     members: npt.NDArray[np.floating],
     member_weights: npt.NDArray[np.float64] | None = None,
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> npt.NDArray[np.float64]: ...
 def majority_vote(
     members: npt.NDArray[np.int64],
     n_classes: int,
     member_weights: npt.NDArray[np.float64] | None = None,
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]: ...
 
 # -- decomposition -------------------------------------------------------------------------
@@ -276,6 +291,7 @@ class DecompositionAccumulator:
         y: npt.NDArray[Any],
         n_classes: int | None = None,
         n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> tuple[
         npt.NDArray[np.float64], npt.NDArray[np.float64], npt.NDArray[np.float64]
     ]: ...
@@ -323,6 +339,7 @@ class SizeCurveAccumulator:
         y: npt.NDArray[Any],
         n_classes: int | None = None,
         n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> None: ...
     def merge(self, other: SizeCurveAccumulator) -> None: ...
     def result(self) -> SizeCurveTable: ...
@@ -352,7 +369,8 @@ class CorrelationSummary:
 class CorrelationAccumulator:
     def __new__(cls) -> CorrelationAccumulator: ...
     def update(
-        self, members: npt.NDArray[Any], y: npt.NDArray[np.float64], n_jobs: int | None = None
+        self, members: npt.NDArray[Any], y: npt.NDArray[np.float64], n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> None: ...
     def merge(self, other: CorrelationAccumulator) -> None: ...
     @property
@@ -370,11 +388,13 @@ def residual_correlation(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64],
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> CorrelationSummary: ...
 def correlation_matrix(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64],
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> npt.NDArray[np.float64]: ...
 
 # -- diversity ---------------------------------------------------------------------------
@@ -387,6 +407,7 @@ class DiversityAccumulator:
         members: npt.NDArray[Any],
         y: npt.NDArray[np.int64],
         n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> None: ...
     def merge(self, other: DiversityAccumulator) -> None: ...
     @property
@@ -497,6 +518,7 @@ def out_of_bag_chunk(
     kind: str,
     n_classes: int | None = None,
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> tuple[
     OutOfBagState,
     tuple[npt.NDArray[np.float64], npt.NDArray[np.int64], npt.NDArray[np.float64] | None],
@@ -516,6 +538,7 @@ def prediction_interval_arrays(
     level: float,
     method: str,
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64], int, bool]: ...
 def prediction_set_arrays(
     members: npt.NDArray[np.floating],
@@ -525,6 +548,7 @@ def prediction_set_arrays(
     level: float,
     method: str,
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> tuple[npt.NDArray[np.bool_], int, bool]: ...
 @final
 class ReplicateSpreadParts:
@@ -563,6 +587,7 @@ def replicate_spread(
     members: npt.NDArray[np.floating],
     y: npt.NDArray[np.float64] | None = None,
     n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
 ) -> ReplicateSpreadParts: ...
 
 @final
@@ -573,6 +598,7 @@ class ReplicateSpreadAccumulator:
         members: npt.NDArray[Any],
         y: npt.NDArray[np.float64] | None = None,
         n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     def merge(self, other: ReplicateSpreadAccumulator) -> None: ...
     @property
@@ -609,16 +635,19 @@ class TreeEnsemble:
         progress: Callable[[int, int], object] | None = None,
     ) -> TreeEnsemble: ...
     def member_predictions(
-        self, x: npt.NDArray[np.floating], n_jobs: int | None = None
+        self, x: npt.NDArray[np.floating], n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     def out_of_bag_predictions(
         self,
         x: npt.NDArray[np.floating],
         counts: npt.NDArray[np.unsignedinteger],
         n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     def predict(
-        self, x: npt.NDArray[np.floating], n_jobs: int | None = None
+        self, x: npt.NDArray[np.floating], n_jobs: int | None = None,
+        progress: Callable[[int, int], object] | None = None,
     ) -> npt.NDArray[np.float64]: ...
     @property
     def n_members(self) -> int: ...

@@ -14,6 +14,7 @@ import numpy as np
 from . import _chunked, _core
 from ._members import member_weights as _member_weights
 from ._members import members_array, n_classes_of
+from ._progress import progress_callback
 from ._validation import n_jobs_value, positive_int
 
 __all__ = ["aggregate", "vote_fractions"]
@@ -43,13 +44,13 @@ def _lazy_classes(members, n_classes):
     return n_classes_of(n_classes, np.array([top]))
 
 
-def _lazy_map(members, member_weights, n_classes, n_jobs, compute) -> np.ndarray:
+def _lazy_map(members, member_weights, n_classes, n_jobs, compute, progress=False) -> np.ndarray:
     """A per-point map over the point chunks of lazy ``members``, joined in point order."""
     members = _chunked.point_major(members, "members")
     n_classes = _lazy_classes(members, n_classes)
     weights = None if member_weights is None else np.asarray(member_weights)
     parts = _chunked.map_over([(members, "members", 1)], compute,
-                              whole=[weights, n_classes, n_jobs])
+                              whole=[weights, n_classes, n_jobs], progress=progress)
     return np.concatenate(parts)
 
 
@@ -62,7 +63,7 @@ def _vote_fractions_chunk(member_weights, n_classes, n_jobs, members):
                           n_jobs=n_jobs)
 
 
-def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> np.ndarray:
+def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None, progress=False) -> np.ndarray:
     """Combine member predictions into the ensemble prediction.
 
     Parameters
@@ -76,6 +77,10 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> n
         Number of classes for labels (default: largest label + 1).
     n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -104,15 +109,17 @@ def aggregate(members, *, member_weights=None, n_classes=None, n_jobs=None) -> n
     array([1, 2])
     """
     if _chunked.is_lazy(members):
-        return _lazy_map(members, member_weights, n_classes, n_jobs, _aggregate_chunk)
+        return _lazy_map(members, member_weights, n_classes, n_jobs, _aggregate_chunk, progress)
     kind, members, member_weights, n_classes, n_jobs = _aggregate_iv(
         members, member_weights, n_classes, n_jobs)
-    if kind == "labels":
-        return _core.majority_vote(members, n_classes, member_weights, n_jobs)[0]
-    return _core.mean_prediction(members, member_weights, n_jobs)
+    with progress_callback(progress, "aggregate", "point") as callback:
+        if kind == "labels":
+            return _core.majority_vote(members, n_classes, member_weights, n_jobs, callback)[0]
+        return _core.mean_prediction(members, member_weights, n_jobs, callback)
 
 
-def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None) -> np.ndarray:
+def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None,
+                   progress=False) -> np.ndarray:
     """Share of the (weighted) member votes each class gets at every point.
 
     The fractions estimate class probabilities from hard votes: row ``j`` is
@@ -128,6 +135,10 @@ def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None)
         Non-negative member weights summing to 1.
     n_jobs : int, optional
         Worker threads.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -146,10 +157,12 @@ def vote_fractions(members, *, n_classes=None, member_weights=None, n_jobs=None)
            [0.  , 0.25, 0.75]])
     """
     if _chunked.is_lazy(members):
-        return _lazy_map(members, member_weights, n_classes, n_jobs, _vote_fractions_chunk)
+        return _lazy_map(members, member_weights, n_classes, n_jobs, _vote_fractions_chunk,
+                         progress)
     kind, members, member_weights, n_classes, n_jobs = _aggregate_iv(
         members, member_weights, n_classes, n_jobs)
     if kind != "labels":
         raise TypeError("`members`: vote fractions need integer labels; for probabilities the "
                         "soft vote is `aggregate(members)`")
-    return _core.majority_vote(members, n_classes, member_weights, n_jobs)[1]
+    with progress_callback(progress, "vote fractions", "point") as callback:
+        return _core.majority_vote(members, n_classes, member_weights, n_jobs, callback)[1]

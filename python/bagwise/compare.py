@@ -23,6 +23,7 @@ from statistics import NormalDist
 import numpy as np
 
 from ._display import fmt, safe_html
+from ._progress import progress_callback, progress_iv, stages
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._warnings import once_per_call, warn
 
@@ -575,7 +576,7 @@ def _bag_of(name, spec, task, n_members, seed, n_jobs):
 
 
 def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, loss=None,
-                     task=None, random_state=None, n_jobs=None) -> LearnerComparison:
+                     task=None, random_state=None, n_jobs=None, progress=False) -> LearnerComparison:
     """Does bagging help each of several learners? One `Verdict` per learner, side by side.
 
     Each learner is bagged on ``(X, y)`` (`BagRegressor` or `BagClassifier`, the same
@@ -616,6 +617,10 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
         One seed for every learner's members and folds (None: a fresh one, shared).
     n_jobs : int, optional
         Worker threads of each ensemble.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -656,11 +661,20 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
     loss = _loss_iv(loss, task)
     seed = _seed_of(random_state)
     n_jobs = n_jobs_value(n_jobs)
+    progress_iv(progress)
     bags = [(name, _bag_of(name, spec, task, n_members, seed, n_jobs)) for name, spec in named]
     verdicts, rho, status, needed = [], [], [], []
-    with once_per_call():
+    with once_per_call(), progress_callback(progress, "comparing learners", "step") as callback:
+        # Per learner: its fit (reported member by member), then its verdict and spread.
+        steps = iter(stages(callback, 2 * len(bags)))
         for _, bag in bags:
-            bag.fit(X, y)
+            fitting, judging = next(steps), next(steps)
+            given = bag.progress
+            bag.set_params(progress=fitting or False)
+            try:
+                bag.fit(X, y)
+            finally:
+                bag.set_params(progress=given)
             verdicts.append(bag.verdict(folds=folds, level=level, loss=loss))
             import warnings
 
@@ -679,6 +693,8 @@ def compare_learners(X, y, learners, *, n_members=100, folds=None, level=0.95, l
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 needed.append(verdicts[-1].members_needed())
+            if judging is not None:
+                judging(1, 1)
     return LearnerComparison(
         task=task, loss=loss, level=level, n_members=n_members,
         learners=tuple(name for name, _ in bags), verdicts=tuple(verdicts),

@@ -16,6 +16,7 @@ import numpy as np
 from . import _chunked, _core
 from ._display import fmt as _fmt
 from ._members import members_array, targets
+from ._progress import all_or_nothing, progress_callback, stages
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -140,11 +141,15 @@ class CorrelationStream:
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = _core.CorrelationAccumulator()
 
+    _callback = None
+
+    @all_or_nothing
     def update(self, members, y) -> CorrelationStream:
         """Add the value predictions of every member at a chunk of points and their
         targets. Returns the stream."""
         members, y = _values_iv(members, y)
-        self._core.update(members, np.ascontiguousarray(y, dtype=np.float64), self._n_jobs)
+        self._core.update(members, np.ascontiguousarray(y, dtype=np.float64), self._n_jobs,
+                          progress=self._callback)
         return self
 
     def merge(self, other: CorrelationStream) -> CorrelationStream:
@@ -211,17 +216,18 @@ def _correlation_update(stream, members, y):
     return stream.update(members, y)
 
 
-def _lazy_correlation(members, y, matrix, n_jobs) -> Correlation:
+def _lazy_correlation(members, y, matrix, n_jobs, progress=False) -> Correlation:
     """`correlation` over the point chunks of lazy arrays: one `CorrelationStream` per
     chunk where it lives, merged pairwise in point order."""
     matrix, n_jobs = _matrix_iv(matrix), n_jobs_value(n_jobs)
     members = _chunked.point_major(members, "members")
     stream = _chunked.reduce_over([(members, "members", 1), (y, "y", 0)],
-                                  lambda: CorrelationStream(matrix, n_jobs), _correlation_update)
+                                  lambda: CorrelationStream(matrix, n_jobs), _correlation_update,
+                                  progress=progress)
     return stream.result()
 
 
-def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
+def correlation(members, y, *, matrix=False, n_jobs=None, progress=False) -> Correlation:
     """Spread and pairwise correlation of the members' residuals ``r_b = t_b - y``.
 
     The mean pairwise correlation is computed in O(members * n_points) without forming the
@@ -242,6 +248,10 @@ def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
         computation; O(members**2 * n_points) work).
     n_jobs : int, optional
         Worker threads; results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -269,8 +279,10 @@ def correlation(members, y, *, matrix=False, n_jobs=None) -> Correlation:
     0.5
     """
     if _chunked.any_lazy(members, y):
-        return _lazy_correlation(members, y, matrix, n_jobs)
+        return _lazy_correlation(members, y, matrix, n_jobs, progress)
     members, y, matrix, n_jobs = _correlation_iv(members, y, matrix, n_jobs)
-    summary = _core.residual_correlation(members, y, n_jobs)
-    full = _core.correlation_matrix(members, y, n_jobs) if matrix else None
+    with progress_callback(progress, "correlation", "step" if matrix else "point") as callback:
+        first, second = stages(callback, 2 if matrix else 1) + [None] * (1 - bool(matrix))
+        summary = _core.residual_correlation(members, y, n_jobs, first)
+        full = _core.correlation_matrix(members, y, n_jobs, second) if matrix else None
     return _correlation(members.shape[1], summary, full)

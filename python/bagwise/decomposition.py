@@ -19,6 +19,7 @@ from . import _chunked, _core
 from ._display import fmt as _fmt
 from ._members import loss_for, loss_option, members_array, n_classes_of, targets
 from ._members import member_weights as _member_weights
+from ._progress import all_or_nothing, progress_callback, reporting
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -156,12 +157,15 @@ class DecompositionStream:
         self._kind = None
         self._parts: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
 
+    _callback = None
+
     def _start(self, kind, n_members):
         self.loss = loss_for(self.loss, kind)
         self._kind = kind
         self._weights = _member_weights(self._weights_arg, n_members)
         self._core = _core.DecompositionAccumulator(self.loss, self._weights)
 
+    @all_or_nothing
     def update(self, members, y) -> DecompositionStream:
         """Add the predictions of every member at a chunk of points and their targets."""
         kind, members = members_array(members)
@@ -178,7 +182,8 @@ class DecompositionStream:
             n_classes = n_classes_of(None, members, y, blame_labels=True)
         elif kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
-        self._parts.append(self._core.update(members, y, n_classes, self._n_jobs))
+        self._parts.append(self._core.update(members, y, n_classes, self._n_jobs,
+                                             progress=self._callback))
         return self
 
     def merge(self, other: DecompositionStream) -> DecompositionStream:
@@ -239,7 +244,7 @@ def decompose_stream(*, loss=None, member_weights=None, n_jobs=None) -> Decompos
     return DecompositionStream(loss=loss, member_weights=member_weights, n_jobs=n_jobs)
 
 
-def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Decomposition:
+def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None, progress=False) -> Decomposition:
     """Split the ensemble's loss into the mean member loss and the ambiguity.
 
     For a weighted average ``f = sum_b w_b t_b`` (weights summing to 1) the ambiguity
@@ -273,6 +278,10 @@ def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Dec
         Non-negative member weights summing to 1 (within 1e-6); equal by default.
     n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -303,16 +312,17 @@ def decompose(members, y, *, loss=None, member_weights=None, n_jobs=None) -> Dec
     0.98
     """
     if _chunked.any_lazy(members, y):
-        return _lazy_decompose(members, y, loss, member_weights, n_jobs)
+        return _lazy_decompose(members, y, loss, member_weights, n_jobs, progress)
     stream = decompose_stream(loss=loss, member_weights=member_weights, n_jobs=n_jobs)
-    return stream.update(members, y).result()
+    with progress_callback(progress, "decompose", "point") as callback, reporting(stream, callback):
+        return stream.update(members, y).result()
 
 
 def _decompose_update(stream, members, y):
     return stream.update(members, y)
 
 
-def _lazy_decompose(members, y, loss, member_weights, n_jobs) -> Decomposition:
+def _lazy_decompose(members, y, loss, member_weights, n_jobs, progress=False) -> Decomposition:
     """`decompose` over the point chunks of lazy arrays: one `DecompositionStream` per chunk
     where it lives, merged pairwise in point order."""
     loss = loss_option(loss)
@@ -322,5 +332,5 @@ def _lazy_decompose(members, y, loss, member_weights, n_jobs) -> Decomposition:
     stream = _chunked.reduce_over(
         [(members, "members", 1), (y, "y", 0)],
         lambda w: DecompositionStream(loss=loss, member_weights=w, n_jobs=n_jobs),
-        _decompose_update, whole=[weights])
+        _decompose_update, whole=[weights], progress=progress)
     return stream.result()

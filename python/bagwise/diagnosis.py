@@ -25,6 +25,7 @@ import numpy as np
 from . import _chunked
 from ._display import html_block, safe_html, text_block
 from ._members import PROBABILITY_TOLERANCE, in_bag_counts, members_array, targets
+from ._progress import progress_callback, progress_iv
 from ._results import Result, check_tolerance
 from ._validation import n_jobs_value, rng_seed
 from ._warnings import once_per_call
@@ -157,7 +158,7 @@ def _diagnose_iv(members, y, counts, reference, train_members, y_train, seed, n_
 
 
 def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_train=None,
-             rng=0, n_jobs=None) -> Diagnosis:
+             rng=0, n_jobs=None, progress=False) -> Diagnosis:
     """Everything bagwise can say about an ensemble from its member predictions, in one call.
 
     Parameters
@@ -194,6 +195,10 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
         Seed of the random member orders of the size curve (SPEC 7).
     n_jobs : int, optional
         Worker threads; results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -230,12 +235,14 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     if isinstance(members, EnsembleArrays):
         return _diagnose_read(members, y, counts=counts, reference=reference,
                               train_members=train_members, y_train=y_train, seed=rng,
-                              n_jobs=n_jobs)
+                              n_jobs=n_jobs, progress=progress)
     return _diagnose(members, y, counts=counts, reference=reference, train_members=train_members,
-                     train_y=y_train, seed=rng, n_jobs=n_jobs, members_are_training=None)
+                     train_y=y_train, seed=rng, n_jobs=n_jobs, members_are_training=None,
+                     progress=progress)
 
 
-def _diagnose_read(read, y, *, counts, reference, train_members, y_train, seed, n_jobs):
+def _diagnose_read(read, y, *, counts, reference, train_members, y_train, seed, n_jobs,
+                   progress=False):
     """`diagnose` of an `EnsembleArrays`: its members, counts and training-row predictions;
     ``y`` (and a ``y_train`` it lacks) as class labels of the model, read through
     ``read.class_codes``. Its members are never read as training-row predictions."""
@@ -259,16 +266,17 @@ def _diagnose_read(read, y, *, counts, reference, train_members, y_train, seed, 
         train = y_train = None
     return _diagnose(read.members, read.class_codes(y), counts=read.counts, reference=reference,
                      train_members=train, train_y=y_train, seed=seed, n_jobs=n_jobs,
-                     members_are_training=False)
+                     members_are_training=False, progress=progress)
 
 
 def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_jobs,
-              members_are_training, member_count=None, group_size=0):
+              members_are_training, member_count=None, group_size=0, progress=False):
     """`diagnose` (``train_y`` is its ``y_train``); ``members_are_training=False`` never
     reads ``members`` as training-row predictions (None: when ``counts`` has ``n_points``
     columns). Each warning of the
-    sections is given once, at the caller's line."""
-    with once_per_call():
+    sections is given once, at the caller's line; ``progress`` hears the sections done."""
+    progress_iv(progress)
+    with once_per_call(), progress_callback(progress, "diagnose", "section") as callback:
         (kind, members, y, counts, reference, train_members, train_y, seed,
          n_jobs) = _diagnose_iv(members, y, counts, reference, train_members, train_y, seed,
                                 n_jobs)
@@ -279,6 +287,8 @@ def _diagnose(members, y, *, counts, reference, train_members, train_y, seed, n_
         done: dict[str, Any] = {}
         for section in SECTIONS:
             done[section.key] = section.compute(inputs, done)
+            if callback is not None:
+                callback(len(done), len(SECTIONS))
     return Diagnosis(kind=kind, n_members=members.shape[0], n_points=members.shape[1],
                      _inputs=inputs, **done)
 

@@ -23,6 +23,7 @@ import numpy as np
 
 from . import _chunked, _core
 from ._members import members_array, n_classes_of, targets
+from ._progress import all_or_nothing, progress_callback, reporting
 from ._results import Result
 from ._validation import n_jobs_value, positive_int
 from ._warnings import warn
@@ -70,6 +71,9 @@ class DiversityStream:
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = None
 
+    _callback = None
+
+    @all_or_nothing
     def update(self, members, y) -> DiversityStream:
         """Add every member's labels (or probabilities) at a chunk of points and its
         targets. Returns the stream."""
@@ -79,7 +83,7 @@ class DiversityStream:
         elif members.shape[0] != self._core.n_members:
             raise ValueError(f"`members`: this chunk has {members.shape[0]} members but earlier "
                              f"chunks had {self._core.n_members}")
-        self._core.update(members, y, self._n_jobs)
+        self._core.update(members, y, self._n_jobs, progress=self._callback)
         return self
 
     def merge(self, other: DiversityStream) -> DiversityStream:
@@ -147,7 +151,7 @@ def diversity_stream(*, n_classes, n_jobs=None) -> DiversityStream:
     return DiversityStream(n_classes, n_jobs)
 
 
-def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
+def diversity(members, y, *, n_classes=None, n_jobs=None, progress=False) -> Diversity:
     """Diversity measures of a classifier ensemble (Kuncheva & Whitaker 2003).
 
     For every pair of members (i, j), with N11 the points both get right, N00 the points
@@ -175,6 +179,10 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
         Number of classes (default: the probabilities' last axis, or the largest label + 1).
     n_jobs : int, optional
         Worker threads (default: all cores); results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -204,9 +212,11 @@ def diversity(members, y, *, n_classes=None, n_jobs=None) -> Diversity:
     [(0, 1, 0.5)]
     """
     if _chunked.any_lazy(members, y):
-        return _lazy_diversity(members, y, n_classes, n_jobs)
+        return _lazy_diversity(members, y, n_classes, n_jobs, progress)
     members, y, n_classes = _diversity_iv(members, y, n_classes)
-    return DiversityStream(n_classes, n_jobs).update(members, y).result()
+    stream = DiversityStream(n_classes, n_jobs)
+    with progress_callback(progress, "diversity", "point") as callback, reporting(stream, callback):
+        return stream.update(members, y).result()
 
 
 def _lazy_n_classes(members, y, n_classes) -> int:
@@ -229,14 +239,15 @@ def _diversity_update(stream, members, y):
     return stream.update(members, y)
 
 
-def _lazy_diversity(members, y, n_classes, n_jobs) -> Diversity:
+def _lazy_diversity(members, y, n_classes, n_jobs, progress=False) -> Diversity:
     """`diversity` over the point chunks of lazy arrays: one `DiversityStream` per chunk,
     its integer counts added pairwise on the workers."""
     members = _chunked.point_major(members, "members")
     n_classes = _lazy_n_classes(members, y, n_classes)
     n_jobs = n_jobs_value(n_jobs)
     stream = _chunked.reduce_over([(members, "members", 1), (y, "y", 0)],
-                                  lambda: DiversityStream(n_classes, n_jobs), _diversity_update)
+                                  lambda: DiversityStream(n_classes, n_jobs), _diversity_update,
+                                  progress=progress)
     return stream.result()
 
 

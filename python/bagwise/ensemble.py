@@ -204,22 +204,29 @@ class _Predictor:
     def __init__(self, model, members, classes, n_jobs):
         self.model, self.members, self.classes, self.n_jobs = model, members, classes, n_jobs
 
-    def member_predictions(self, X) -> np.ndarray:
+    def member_predictions(self, X, progress=None) -> np.ndarray:
+        """``progress``: None or a ``callback(done, total)`` (never kept: this object
+        travels to workers)."""
         if self.model is not None:
             try:
-                return self.model.member_predictions(X, self.n_jobs)
+                return self.model.member_predictions(X, self.n_jobs, progress)
             except (ValueError, TypeError) as err:  # the core's `x` is the estimator's `X`
                 raise renamed_arguments(err, {"x": "X"}) from None
+        values = []
         with warnings.catch_warnings():
             # The bag has warned once if the feature names disagree; not once per member.
             warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
-            return np.stack([_member_values(member, X, self.classes) for member in self.members])
+            for member in self.members:
+                values.append(_member_values(member, X, self.classes))
+                if progress is not None:
+                    progress(len(values), len(self.members))
+        return np.stack(values)
 
-    def mean(self, X) -> np.ndarray:
+    def mean(self, X, progress=None) -> np.ndarray:
         """The members' mean, summed in member order at every point whatever the number
         of points (numpy's ``mean(axis=0)`` switches to pairwise sums for one point), so
         a chunk of points gets the same bits as the whole."""
-        members = self.member_predictions(X)
+        members = self.member_predictions(X, progress)
         total = members[0].copy()
         for values in members[1:]:
             total += values
@@ -561,7 +568,8 @@ class _Bag(BaseEstimator):
         if is_lazy(X):
             return self._lazy_points(X, "member_predictions")
         X = self._check_X(X)
-        return self._predictor(self.n_jobs).member_predictions(X)
+        with progress_callback(self.progress, "predicting", "prediction") as callback:
+            return self._predictor(self.n_jobs).member_predictions(X, callback)
 
     def out_of_bag_predictions(self, X=None) -> np.ndarray:
         """Each member's predictions on the training rows, NaN where it saw the row.
@@ -597,16 +605,20 @@ class _Bag(BaseEstimator):
                 f"`X`: has {_num_samples(X)} rows but the ensemble was fit on {self.in_bag_.shape[1]}"
             )
         if self._native:
-            return self._model.out_of_bag_predictions(X, self.in_bag_, self.n_jobs)
+            with progress_callback(self.progress, "predicting", "prediction") as callback:
+                return self._model.out_of_bag_predictions(X, self.in_bag_, self.n_jobs, callback)
         classes = self.classes_ if self._classification else None
         shape = (self.in_bag_.shape[1],) + ((len(self.classes_),) if self._classification else ())
         out = np.full((len(self.members_),) + shape, np.nan)
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), \
+                progress_callback(self.progress, "predicting", "member") as callback:
             warnings.filterwarnings("ignore", _MEMBER_FEATURE_NAMES, UserWarning)
             for m, member in enumerate(self.members_):
                 rows = np.flatnonzero(self.in_bag_[m] == 0)
                 if len(rows):
                     out[m, rows] = _member_values(member, _safe_indexing(X, rows), classes)
+                if callback is not None:
+                    callback(m + 1, len(self.members_))
         return out
 
     # -- diagnostics ----------------------------------------------------------------------
@@ -945,7 +957,8 @@ class _Bag(BaseEstimator):
                          train_members=train_members, train_y=train_y, seed=0,
                          n_jobs=self.n_jobs, members_are_training=False,
                          member_count=self._member_count(),
-                         group_size=self.group_size if self.scheme == "little_bags" else 0)
+                         group_size=self.group_size if self.scheme == "little_bags" else 0,
+                         progress=self.progress)
 
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""
@@ -1005,8 +1018,11 @@ _PARAMETERS_DOC = """
         Worker threads (default: all cores). Native results do not depend on it; wrapped
         members run on joblib n_jobs.
     progress : bool or callable
-        ``True`` shows a tqdm bar advancing per fitted member; a callable receives
-        ``(done, total)``.
+        ``True`` shows a tqdm bar advancing per fitted member (and per block of predictions
+        in ``member_predictions``, ``predict``, ``predict_proba`` and
+        ``out_of_bag_predictions``); a callable receives ``(done, total)``. Ctrl-C stops a
+        fit or a prediction within about a second; an interrupted fit leaves the estimator
+        unfitted, never half-fitted.
     use_sample_weight : bool
         Wrapped estimators only: fit each member on all rows with the counts as
         ``sample_weight`` instead of on the repeated rows.
@@ -1110,7 +1126,8 @@ class BagRegressor(RegressorMixin, _Bag):
         if is_lazy(X):
             return self._lazy_points(X, "mean")
         X = self._check_X(X)
-        return self._predictor(self.n_jobs).mean(X)
+        with progress_callback(self.progress, "predicting", "prediction") as callback:
+            return self._predictor(self.n_jobs).mean(X, callback)
 
 
 @register_estimator
@@ -1201,7 +1218,8 @@ class BagClassifier(ClassifierMixin, _Bag):
         if is_lazy(X):
             return self._lazy_points(X, "mean")
         X = self._check_X(X)
-        return self._predictor(self.n_jobs).mean(X)
+        with progress_callback(self.progress, "predicting", "prediction") as callback:
+            return self._predictor(self.n_jobs).mean(X, callback)
 
     def predict(self, X) -> np.ndarray:
         """The class with the largest mean probability (ties: the first in ``classes_``);

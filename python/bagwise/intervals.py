@@ -13,6 +13,7 @@ import numpy as np
 
 from . import _chunked, _core
 from ._members import as_array, in_bag_counts
+from ._progress import progress_callback
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -356,7 +357,8 @@ class PredictionSet(_Calibrated):
 
 
 def prediction_interval(
-    members, counts, train_members, y_train, *, level=0.9, method=None, n_jobs=None
+    members, counts, train_members, y_train, *, level=0.9, method=None, n_jobs=None,
+    progress=False
 ) -> PredictionInterval | PredictionSet:
     """Prediction interval (values) or class set (probabilities) for a new observation,
     calibrated on the members' out-of-bag predictions at the training rows.
@@ -411,6 +413,10 @@ def prediction_interval(
         ``"least_ambiguous"`` (default for probabilities) or ``"adaptive"``.
     n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (axis 1);
     ``counts``, ``train_members`` and ``y_train`` may be lazy too. The training side
@@ -442,26 +448,23 @@ def prediction_interval(
     0.89
     """
     return _prediction_interval(members, counts, train_members, y_train, level=level,
-                                method=method, n_jobs=n_jobs, member_count=None)
+                                method=method, n_jobs=n_jobs, member_count=None,
+                                progress=progress)
 
 
 def _prediction_interval(members, counts, train_members, y_train, *, level, method, n_jobs,
-                         member_count):
+                         member_count, progress=False):
     """`prediction_interval`, told how the members were counted (see `_guarantee`)."""
     if any(_chunked.is_lazy(value) for value in (members, counts, train_members, y_train)):
         return _lazy_prediction_interval(members, counts, train_members, y_train, level=level,
-                                         method=method, n_jobs=n_jobs, member_count=member_count)
+                                         method=method, n_jobs=n_jobs, member_count=member_count,
+                                         progress=progress)
     members, counts, train_members, y_train, level, method, n_jobs, n_left_out = (
         _prediction_interval_iv(members, counts, train_members, y_train, level, method, n_jobs)
     )
-    if members.ndim == 3:
-        arrays = _core.prediction_set_arrays(
-            members, counts, train_members, y_train, level, method, n_jobs
-        )
-    else:
-        arrays = _core.prediction_interval_arrays(
-            members, counts, train_members, y_train, level, method, n_jobs
-        )
+    core = _core.prediction_set_arrays if members.ndim == 3 else _core.prediction_interval_arrays
+    with progress_callback(progress, "prediction interval", "point") as callback:
+        arrays = core(members, counts, train_members, y_train, level, method, n_jobs, callback)
     return _calibrated(arrays, members.ndim == 3, counts.shape, n_left_out, level, method,
                        member_count)
 
@@ -516,7 +519,7 @@ def _bundle(*values):
 
 
 def _lazy_prediction_interval(members, counts, train_members, y_train, *, level, method, n_jobs,
-                              member_count):
+                              member_count, progress=False):
     """`_prediction_interval` with lazy arrays: the members' chunks of points stay where
     they live; the training side (O(members × rows)) is checked once (on the client when
     it is in memory, else on one worker) and travels once to each worker."""
@@ -541,7 +544,8 @@ def _lazy_prediction_interval(members, counts, train_members, y_train, *, level,
         training = _training_iv(dtype, array.shape, *training_arrays)
         shared = _chunked.shared((training, level, method, n_jobs_value(n_jobs)))
     blocks = _chunked.aligned_blocks([(array, "members", 1), (shared, "training", None)])
-    *per_point, flags = _chunked.join_points(_chunked.map_points(_interval_chunk, blocks))
+    *per_point, flags = _chunked.join_points(_chunked.map_points(_interval_chunk, blocks,
+                                                                 **_chunked.reporting(progress)))
     n_used, finite, n_left_out, n_rows = (int(v) for v in flags[0])
     return _calibrated((*per_point, n_used, bool(finite)), classes, (array.shape[0], n_rows),
                        n_left_out, level, method, member_count)

@@ -10,6 +10,7 @@ import numpy as np
 
 from . import _chunked, _core
 from ._members import as_array, in_bag_counts, members_array, n_classes_of, targets
+from ._progress import all_or_nothing, progress_callback
 from ._results import Result
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -101,7 +102,7 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earli
 
 
 def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None,
-               sizes=None) -> OutOfBag:
+               sizes=None, progress=False) -> OutOfBag:
     """Out-of-bag predictions and loss of a bagged ensemble, and its loss curve.
 
     For every training point only the members whose in-bag count of the point is zero
@@ -132,6 +133,10 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
         Non-negative weights of the points in the loss means (default: all 1).
     n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
     sizes : sequence of int, optional
         Ensemble sizes k at which the loss of the first k members is evaluated (default:
         about 8 geometrically spaced sizes per decade from 1 to the number of members).
@@ -177,11 +182,12 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
     ([1, 2, 3, 4], 100)
     """
     if _chunked.any_lazy(members, counts, y, point_weights):
-        return _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes)
+        return _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes, progress)
     (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
      sizes) = _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes)
-    state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
-        members, counts, y, point_weights, sizes, kind, n_classes, n_jobs)
+    with progress_callback(progress, "out of bag", "point") as callback:
+        state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
+            members, counts, y, point_weights, sizes, kind, n_classes, n_jobs, callback)
     return OutOfBag._build(state, kind, loss, prediction, n_oob, probabilities)
 
 
@@ -189,7 +195,8 @@ def _out_of_bag_update(stream, members, counts, y, point_weights):
     return stream.update(members, counts, y, point_weights)
 
 
-def _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes) -> OutOfBag:
+def _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes,
+                     progress=False) -> OutOfBag:
     """`out_of_bag` over the row chunks of lazy arrays: the members and the counts are
     aligned chunk by chunk along the training rows, each chunk becomes an `OutOfBagStream`
     on the worker holding it, merged pairwise in row order."""
@@ -203,7 +210,8 @@ def _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes) -> 
     stream = _chunked.reduce_over(
         [(members, "members", 1), (counts, "counts", 1), (y, "y", 0),
          (point_weights, "point_weights", 0)],
-        lambda k: OutOfBagStream(loss, n_jobs, k), _out_of_bag_update, whole=[sizes])
+        lambda k: OutOfBagStream(loss, n_jobs, k), _out_of_bag_update, whole=[sizes],
+        progress=progress)
     return stream.result()
 
 
@@ -251,6 +259,8 @@ class OutOfBagStream:
         self._state = None
         self._parts: list[tuple[np.ndarray, np.ndarray, np.ndarray | None]] = []
 
+    _callback = None
+
     def _check_compatible(self, kind, n_members, n_classes_of_probabilities):
         """Raises unless a chunk (or stream) of ``kind`` fits the chunks seen so far."""
         if self._state is None:
@@ -264,6 +274,7 @@ class OutOfBagStream:
             raise ValueError(f"`members`: has {n_classes_of_probabilities} classes but "
                              f"earlier chunks had {self._parts[0][2].shape[1]}")
 
+    @all_or_nothing
     def update(self, members, counts, y, point_weights=None) -> OutOfBagStream:
         """Add the next chunk of points: arrays as in :func:`out_of_bag`, restricted to the
         chunk's points (e.g. ``members[:, a:b]`` of a memory map). Returns the stream."""
@@ -273,7 +284,7 @@ class OutOfBagStream:
         self._check_compatible(kind, members.shape[0],
                                members.shape[2] if kind == "probabilities" else None)
         state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
-                                             n_classes, n_jobs)
+                                             n_classes, n_jobs, self._callback)
         self._state = state if self._state is None else self._state.merge(state)
         self._kind, self._loss = kind, loss
         self._parts.append(part)

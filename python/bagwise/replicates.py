@@ -12,6 +12,7 @@ import numpy as np
 
 from . import _chunked, _core
 from ._members import replicate_members, targets
+from ._progress import all_or_nothing, progress_callback
 from ._results import Result, check_tolerance, members_for
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -27,7 +28,7 @@ def _replicate_spread_iv(members, y, n_jobs):
     return members, y, n_jobs_value(n_jobs)
 
 
-def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
+def replicate_spread(members, y=None, *, n_jobs=None, progress=False) -> ReplicateSpread:
     """How much of the members' variance averaging removes, from ensembles refitted on
     independent training sets.
 
@@ -68,6 +69,10 @@ def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
         Targets, for the bias-variance-covariance split.
     n_jobs : int, optional
         Worker threads (default: all cores). Results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -96,9 +101,11 @@ def replicate_spread(members, y=None, *, n_jobs=None) -> ReplicateSpread:
     18
     """
     if _chunked.any_lazy(members, y):
-        return _lazy_replicate_spread(members, y, n_jobs)
+        return _lazy_replicate_spread(members, y, n_jobs, progress)
     members, y, n_jobs = _replicate_spread_iv(members, y, n_jobs)
-    return ReplicateSpread._from_parts(members.shape, _core.replicate_spread(members, y, n_jobs))
+    with progress_callback(progress, "replicate spread", "point") as callback:
+        parts = _core.replicate_spread(members, y, n_jobs, callback)
+    return ReplicateSpread._from_parts(members.shape, parts)
 
 
 _ROWS = ("within", "between", "variance", "bias", "member_variance", "covariance",
@@ -120,12 +127,15 @@ class ReplicateSpreadStream:
         self._core = _core.ReplicateSpreadAccumulator()
         self._parts: list[np.ndarray] = []
 
+    _callback = None
+
+    @all_or_nothing
     def update(self, members, y=None) -> ReplicateSpreadStream:
         """Add the predictions of every replicate and member at a chunk of points
         ``(n_replicates, n_members, chunk_points)`` and, if any, their targets. Returns the
         stream."""
         members, y, _ = _replicate_spread_iv(members, y, None)
-        self._parts.append(self._core.update(members, y, self._n_jobs))
+        self._parts.append(self._core.update(members, y, self._n_jobs, progress=self._callback))
         return self
 
     def merge(self, other: ReplicateSpreadStream) -> ReplicateSpreadStream:
@@ -196,12 +206,13 @@ def _replicate_update(stream, members, y):
     return stream.update(members, y)
 
 
-def _lazy_replicate_spread(members, y, n_jobs) -> ReplicateSpread:
+def _lazy_replicate_spread(members, y, n_jobs, progress=False) -> ReplicateSpread:
     """`replicate_spread` over the point chunks (last axis) of lazy arrays: one
     `ReplicateSpreadStream` per chunk where it lives, merged pairwise in point order."""
     n_jobs = n_jobs_value(n_jobs)
     stream = _chunked.reduce_over([(members, "members", 2), (y, "y", 0)],
-                                  lambda: ReplicateSpreadStream(n_jobs), _replicate_update)
+                                  lambda: ReplicateSpreadStream(n_jobs), _replicate_update,
+                                  progress=progress)
     return stream.result()
 
 

@@ -17,6 +17,7 @@ from . import _chunked, _core
 from ._display import fmt as _fmt
 from ._display import plus_minus
 from ._members import as_array, loss_for, loss_option, members_array, n_classes_of, targets
+from ._progress import all_or_nothing, progress_callback, reporting
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value, positive_int, rng_seed
 from ._warnings import warn
@@ -209,6 +210,9 @@ class SizeCurveStream:
         self._core = None
         self._n_members = None
 
+    _callback = None
+
+    @all_or_nothing
     def update(self, members, y) -> SizeCurveStream:
         """Add the predictions of every member at a chunk of points and their targets."""
         kind, members = members_array(members)
@@ -227,7 +231,7 @@ class SizeCurveStream:
         n_classes = n_classes_of(None, members, y, blame_labels=True) if kind == "labels" else None
         if kind == "probabilities" and y.max() >= members.shape[2]:
             raise ValueError(f"`y`: label {int(y.max())} is outside 0..{members.shape[2] - 1}")
-        self._core.update(members, y, n_classes, self._n_jobs)
+        self._core.update(members, y, n_classes, self._n_jobs, progress=self._callback)
         return self
 
     def merge(self, other: SizeCurveStream) -> SizeCurveStream:
@@ -288,7 +292,8 @@ def size_curve_stream(*, loss=None, sizes=None, orders=20, rng=0, n_jobs=None) -
     return SizeCurveStream(loss=loss, sizes=sizes, orders=orders, rng=rng, n_jobs=n_jobs)
 
 
-def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=None) -> SizeCurve:
+def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=None,
+               progress=False) -> SizeCurve:
     """Loss of the ensemble of the first k members, for k on a grid, over random orders.
 
     For each of ``orders`` random member orders (order ``o`` uses member stream ``o`` drawn
@@ -327,6 +332,10 @@ def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=No
         Must fit the members' kind.
     n_jobs : int, optional
         Worker threads; results do not depend on it.
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Returns
     -------
@@ -356,16 +365,17 @@ def size_curve(members, y, *, sizes=None, orders=20, rng=0, loss=None, n_jobs=No
     40
     """
     if _chunked.any_lazy(members, y):
-        return _lazy_size_curve(members, y, sizes, orders, rng, loss, n_jobs)
+        return _lazy_size_curve(members, y, sizes, orders, rng, loss, n_jobs, progress)
     stream = size_curve_stream(loss=loss, sizes=sizes, orders=orders, rng=rng, n_jobs=n_jobs)
-    return stream.update(members, y).result()
+    with progress_callback(progress, "size curve", "point") as callback, reporting(stream, callback):
+        return stream.update(members, y).result()
 
 
 def _size_curve_update(stream, members, y):
     return stream.update(members, y)
 
 
-def _lazy_size_curve(members, y, sizes, orders, rng, loss, n_jobs) -> SizeCurve:
+def _lazy_size_curve(members, y, sizes, orders, rng, loss, n_jobs, progress=False) -> SizeCurve:
     """`size_curve` over the point chunks of lazy arrays: one `SizeCurveStream` per chunk
     (each draws the same member orders from the one seed), merged pairwise in point order.
     The seed is fixed here, so a Generator or None is drawn from once."""
@@ -376,5 +386,5 @@ def _lazy_size_curve(members, y, sizes, orders, rng, loss, n_jobs) -> SizeCurve:
     stream = _chunked.reduce_over(
         [(members, "members", 1), (y, "y", 0)],
         lambda k: SizeCurveStream(loss=loss, sizes=k, orders=orders, rng=seed, n_jobs=n_jobs),
-        _size_curve_update, whole=[sizes])
+        _size_curve_update, whole=[sizes], progress=progress)
     return stream.result()

@@ -25,6 +25,7 @@ import numpy as np
 
 from . import _chunked, _core
 from ._members import as_array, in_bag_counts, members_array
+from ._progress import all_or_nothing, progress_callback, stages
 from ._results import Result, check_tolerance, members_for, not_estimable
 from ._validation import n_jobs_value
 from ._warnings import warn
@@ -95,7 +96,7 @@ def _lazy_counts(counts, *, min_members: int = 2, min_rows: int = 2):
     return array
 
 
-def _lazy_points(members, n_members: int, compute, *arguments):
+def _lazy_points(members, n_members: int, compute, *arguments, progress=None):
     """The per-point arrays of ``compute(chunk, arguments)`` over the chunks of points of
     lazy ``members``, joined in point order. ``arguments`` (the Gram, options) travel as one
     shared key, once per worker; only each chunk's per-point arrays come back."""
@@ -110,7 +111,7 @@ def _lazy_points(members, n_members: int, compute, *arguments):
                          f"{n_members}")
     blocks = _chunked.aligned_blocks([(array, "members", 1),
                                       (_chunked.shared(arguments), "arguments", None)])
-    return _chunked.join_points(_chunked.map_points(compute, blocks))
+    return _chunked.join_points(_chunked.map_points(compute, blocks, **_chunked.reporting(progress)))
 
 
 def _gram_chunk(chunk, arguments):
@@ -174,6 +175,8 @@ class CountGramStream:
         self._n_jobs = n_jobs_value(n_jobs)
         self._core = _core.CountGramAccumulator(self.jackknife)
 
+    _callback = None
+
     @property
     def n_members(self) -> int | None:
         """Members (None before the first chunk)."""
@@ -184,11 +187,12 @@ class CountGramStream:
         """Training rows added so far."""
         return self._core.n_rows
 
+    @all_or_nothing
     def update(self, counts) -> CountGramStream:
         """Add a chunk of training rows: ``counts`` of shape (n_members, rows in the chunk)."""
         counts = in_bag_counts(counts, n_members=self._core.n_members, members_from="counts",
                                unsigned=True, whole=False)
-        self._core.update(counts, self._n_jobs)
+        self._core.update(counts, self._n_jobs, progress=self._callback)
         return self
 
     def merge(self, other: CountGramStream) -> CountGramStream:
@@ -254,14 +258,14 @@ def _update_counts(stream: CountGramStream, chunk) -> CountGramStream:
     return stream.update(chunk)
 
 
-def _lazy_count_gram(counts, scheme, jackknife, n_jobs) -> CountGram:
+def _lazy_count_gram(counts, scheme, jackknife, n_jobs, progress=False) -> CountGram:
     """The `CountGram` of lazy ``counts``: one stream state per chunk of training rows where
     it lives, merged pairwise; only the O(members²) states travel."""
     array = _lazy_counts(counts)
     start = functools.partial(count_gram_stream, scheme=_scheme_iv(scheme),
                               jackknife=jackknife, n_jobs=n_jobs)
     blocks = _chunked.aligned_blocks([(array, "counts", 1)])
-    return _chunked.reduce_streams(start, _update_counts, blocks).result()
+    return _chunked.reduce_streams(start, _update_counts, blocks, progress=progress).result()
 
 
 class CountGram:
@@ -292,9 +296,9 @@ class CountGram:
     and are joined in point order, and the not-estimable warning is given once.
     """
 
-    def __init__(self, counts, *, scheme=None, jackknife=False, n_jobs=None):
+    def __init__(self, counts, *, scheme=None, jackknife=False, n_jobs=None, progress=False):
         if _chunked.is_lazy(counts):
-            self._gram = _lazy_count_gram(counts, scheme, jackknife, n_jobs)._gram
+            self._gram = _lazy_count_gram(counts, scheme, jackknife, n_jobs, progress)._gram
             return
         scheme = _scheme_iv(scheme)
         jackknife = _jackknife_iv(jackknife)
@@ -302,8 +306,10 @@ class CountGram:
         subsample_rows = None
         if scheme == "subsample":
             subsample_rows = _subsample_rows(int(counts.max()), counts.sum(axis=1))
-        self._gram = _core.CountGram(counts, scheme=scheme, subsample_rows=subsample_rows,
-                                     jackknife=jackknife, n_jobs=n_jobs_value(n_jobs))
+        with progress_callback(progress, "count Gram", "tile") as callback:
+            self._gram = _core.CountGram(counts, scheme=scheme, subsample_rows=subsample_rows,
+                                         jackknife=jackknife, n_jobs=n_jobs_value(n_jobs),
+                                         progress=callback)
 
     @classmethod
     def _wrap(cls, gram):
@@ -331,35 +337,42 @@ class CountGram:
         """G = N Nᵀ, shape (n_members, n_members)."""
         return self._gram.gram
 
-    def prediction_variance(self, members, *, method="ij", corrected=True, n_jobs=None):
-        """Variance of the ensemble mean at each point; see :func:`prediction_variance`.
+    def prediction_variance(self, members, *, method="ij", corrected=True, n_jobs=None,
+                            progress=False):
+        """Variance of the ensemble mean at each point; see :func:`prediction_variance`
+        (``progress`` as there).
 
         Lazy inputs: dask or zarr ``members`` chunked along the points; this Gram
         (O(members²)) travels once to each worker, each chunk's per-point arrays come back.
         """
         if method not in ("ij", "jackknife"):
             raise ValueError(f"`method`: expected 'ij' or 'jackknife', got {method!r}")
-        return self._estimate(members, method, corrected, n_jobs)[0]
+        with progress_callback(progress, "prediction variance", "point") as callback:
+            return self._estimate(members, method, corrected, n_jobs, callback)[0]
 
-    def spread(self, members, *, n_jobs=None):
-        """Between/within split of the member variance; see :func:`spread`.
+    def spread(self, members, *, n_jobs=None, progress=False):
+        """Between/within split of the member variance; see :func:`spread` (``progress`` as
+        there).
 
         Lazy inputs: as in `prediction_variance`.
         """
-        return Spread._from_parts(*self._estimate(members, "ij", True, n_jobs))
+        with progress_callback(progress, "spread", "point") as callback:
+            return Spread._from_parts(*self._estimate(members, "ij", True, n_jobs, callback))
 
-    def _estimate(self, members, method, corrected, n_jobs):
+    def _estimate(self, members, method, corrected, n_jobs, callback=None):
         """The PredictionVariance of ``members`` and their across-member variance."""
         if method == "jackknife" and not self._gram.has_jackknife:
             raise ValueError("`method`: this CountGram was built without jackknife=True")
         if _chunked.is_lazy(members):
             raw, correction, within, mean = _lazy_points(
-                members, self.n_members, _gram_chunk, self._gram, method, n_jobs_value(n_jobs))
+                members, self.n_members, _gram_chunk, self._gram, method, n_jobs_value(n_jobs),
+                progress=callback)
         else:
             members, shape = _members_iv(members, self.n_members)
             raw, correction, within, mean = (
                 part.reshape(shape)
-                for part in self._gram.variance(members, method, n_jobs_value(n_jobs)))
+                for part in self._gram.variance(members, method, n_jobs_value(n_jobs),
+                                                callback))
         estimate = PredictionVariance._from_parts(
             method=method, corrected=corrected, raw=raw, correction=correction, mean=mean,
             n_members=self.n_members, n_rows=self.n_rows, scheme=self.scheme,
@@ -379,12 +392,16 @@ def _restore_gram(data: bytes) -> CountGram:
     return CountGram._wrap(_core.CountGram.from_bytes(data))
 
 
-def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGram:
+def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None, progress=False) -> CountGram:
     """Build the :class:`CountGram` of ``counts`` once, for repeated use on new points.
 
     Lazy inputs: dask or zarr ``counts`` chunked along the training rows are reduced where
     they live (`count_gram_stream`): each chunk sends one O(members²) partial state (times
     the distinct out-of-bag counts with ``jackknife=True``), the client holds the Gram.
+
+    ``progress``: ``True`` shows a tqdm bar on stderr, a callable receives ``(done, total)``
+    (tiles of the Gram done; chunks for lazy ``counts``); Ctrl-C stops the build within
+    about a second.
 
     Examples
     --------
@@ -396,7 +413,7 @@ def count_gram(counts, *, scheme=None, jackknife=False, n_jobs=None) -> CountGra
     >>> bool(np.all(np.diag(gram.gram) == (counts.astype(np.int64) ** 2).sum(axis=1)))
     True
     """
-    return CountGram(counts, scheme=scheme, jackknife=jackknife, n_jobs=n_jobs)
+    return CountGram(counts, scheme=scheme, jackknife=jackknife, n_jobs=n_jobs, progress=progress)
 
 
 def _monte_carlo_noise(method, corrected, raw, correction, value, n_rows, n_members,
@@ -813,17 +830,20 @@ def _little_bags_iv(counts, group_size) -> tuple[int, int, int, float]:
     return n_members, n_rows, group_size, float(sums[0]) / n_rows
 
 
-def _little_bags(members, counts, group_size, corrected, n_jobs) -> PredictionVariance:
+def _little_bags(members, counts, group_size, corrected, n_jobs,
+                 callback=None) -> PredictionVariance:
     """The bootstrap-of-little-bags `PredictionVariance` (checked inputs)."""
     n_members, n_rows, group_size, share = _little_bags_iv(counts, group_size)
     if _chunked.is_lazy(members):
         raw, correction, _, mean = _lazy_points(members, n_members, _little_bags_chunk,
-                                                n_members, group_size, n_jobs_value(n_jobs))
+                                                n_members, group_size, n_jobs_value(n_jobs),
+                                                progress=callback)
     else:
         members, shape = _members_iv(members, n_members)
         raw, correction, _, mean = (
             part.reshape(shape)
-            for part in _core.little_bags_variance(members, group_size, n_jobs_value(n_jobs)))
+            for part in _core.little_bags_variance(members, group_size, n_jobs_value(n_jobs),
+                                                   callback))
     return PredictionVariance._from_parts(
         method="little_bags", corrected=corrected, raw=raw, correction=correction, mean=mean,
         n_members=n_members, n_rows=n_rows, scheme="little_bags",
@@ -831,7 +851,7 @@ def _little_bags(members, counts, group_size, corrected, n_jobs) -> PredictionVa
 
 
 def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=None,
-                        group_size=None, n_jobs=None) -> PredictionVariance:
+                        group_size=None, n_jobs=None, progress=False) -> PredictionVariance:
     """Variance of the bagged prediction at every point, from one fitted ensemble.
 
     Parameters
@@ -867,6 +887,10 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
         to look like little bags (0/1, equal row sums, each group's members inside one half
         of the rows). Other methods refuse it.
     n_jobs : int, optional
+    progress : bool or callable, optional
+        ``True`` shows a tqdm progress bar on stderr; a callable receives ``(done, total)``
+        as the work advances (monotone, ending at ``total``); ``False`` (default) reports
+        nothing. Ctrl-C stops the call within about a second either way.
 
     Lazy inputs: ``members`` may be a dask or zarr array chunked along the points (axis 1),
     ``counts`` one chunked along the training rows. The counts are reduced to the
@@ -907,7 +931,8 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
         if scheme not in (None, "little_bags"):
             raise ValueError(f"`scheme`: method='little_bags' reads little-bags counts, not "
                              f"scheme={scheme!r}")
-        return _little_bags(members, counts, group_size, corrected, n_jobs)
+        with progress_callback(progress, "prediction variance", "point") as callback:
+            return _little_bags(members, counts, group_size, corrected, n_jobs, callback)
     if method not in ("ij", "jackknife"):
         raise ValueError(f"`method`: expected 'ij', 'jackknife' or 'little_bags', got {method!r}")
     if group_size is not None:
@@ -917,8 +942,12 @@ def prediction_variance(members, counts, *, method="ij", corrected=True, scheme=
             f"`scheme`: method={method!r} is not valid for little-bags counts (members of a "
             "group share a half-sample, so they are not independent draws); use "
             "method='little_bags'")
-    gram = CountGram(counts, scheme=scheme, jackknife=(method == "jackknife"), n_jobs=n_jobs)
-    return gram.prediction_variance(members, method=method, corrected=corrected, n_jobs=n_jobs)
+    with progress_callback(progress, "prediction variance", "step") as callback:
+        build, estimate = stages(callback, 2)
+        gram = CountGram(counts, scheme=scheme, jackknife=(method == "jackknife"), n_jobs=n_jobs,
+                         progress=build or False)
+        return gram.prediction_variance(members, method=method, corrected=corrected,
+                                        n_jobs=n_jobs, progress=estimate or False)
 
 
 @dataclasses.dataclass(frozen=True, repr=False, eq=False)
@@ -1073,7 +1102,7 @@ def _n_members_iv(n_members) -> np.ndarray:
     return m.astype(np.float64)
 
 
-def spread(members, counts, *, scheme=None, n_jobs=None) -> Spread:
+def spread(members, counts, *, scheme=None, n_jobs=None, progress=False) -> Spread:
     """Split each point's member variance into between (training data) and within parts.
 
     See :class:`Spread`. ``members`` (n_members, n_points) and ``counts`` (n_members, n_rows)
@@ -1082,5 +1111,9 @@ def spread(members, counts, *, scheme=None, n_jobs=None) -> Spread:
     Lazy inputs: as in :func:`prediction_variance`: dask or zarr ``members`` chunked along
     the points and ``counts`` chunked along the training rows; the O(members²) Gram travels
     once to each worker and each chunk's per-point between/within arrays come back.
+    ``progress`` as in :func:`prediction_variance`.
     """
-    return CountGram(counts, scheme=scheme, n_jobs=n_jobs).spread(members, n_jobs=n_jobs)
+    with progress_callback(progress, "spread", "step") as callback:
+        build, estimate = stages(callback, 2)
+        gram = CountGram(counts, scheme=scheme, n_jobs=n_jobs, progress=build or False)
+        return gram.spread(members, n_jobs=n_jobs, progress=estimate or False)

@@ -29,7 +29,7 @@ use super::{
 };
 use crate::error::{Error, Result};
 use crate::numeric::Real;
-use crate::parallel::{Monitor, Pool};
+use crate::parallel::{watched, Monitor, Pool};
 use crate::resampling::Count;
 
 /// Smallest accepted ratio of a Cholesky pivot to its diagonal entry (a reciprocal
@@ -305,6 +305,7 @@ impl LinearEnsemble {
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_x(x)?;
         let n = x.nrows();
@@ -312,17 +313,22 @@ impl LinearEnsemble {
             return Err(Error::value("out", "has the wrong length"));
         }
         let overflowed = AtomicBool::new(false);
-        pool.run(|| {
+        watched(pool, monitor, out.len(), |watch| {
             out.par_chunks_mut(n).enumerate().for_each(|(m, row)| {
                 row.par_chunks_mut(POINT_CHUNK)
                     .enumerate()
                     .for_each(|(c, part)| {
+                        // Between chunks of points, never inside the dot products.
+                        if watch.stopped() {
+                            return;
+                        }
+                        watch.advance(part.len());
                         for (k, slot) in part.iter_mut().enumerate() {
                             *slot = self.checked_row(m, x, c * POINT_CHUNK + k, &overflowed);
                         }
                     })
             })
-        });
+        })?;
         overflow_check(&overflowed)
     }
 
@@ -339,6 +345,7 @@ impl LinearEnsemble {
         bags: &[Bag],
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_x(x)?;
         if bags.len() != self.members() {
@@ -356,11 +363,16 @@ impl LinearEnsemble {
             return Err(Error::value("out", "has the wrong length"));
         }
         let overflowed = AtomicBool::new(false);
-        pool.run(|| {
+        watched(pool, monitor, self.members(), |watch| {
             out.par_chunks_mut(n)
                 .zip(bags.par_iter())
                 .enumerate()
                 .for_each(|(m, (row, bag))| {
+                    // Between members (one pass over the rows each).
+                    if watch.stopped() {
+                        return;
+                    }
+                    watch.advance(1);
                     row.fill(f64::NAN);
                     let mut inside = bag.rows.iter().peekable();
                     for (i, slot) in row.iter_mut().enumerate() {
@@ -369,7 +381,7 @@ impl LinearEnsemble {
                         }
                     }
                 })
-        });
+        })?;
         overflow_check(&overflowed)
     }
 
@@ -511,9 +523,9 @@ impl FittedMembers for LinearEnsemble {
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
-        _monitor: &dyn Monitor,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
-        LinearEnsemble::member_predictions_into(self, x, out, pool)
+        LinearEnsemble::member_predictions_into(self, x, out, pool, monitor)
     }
 
     fn out_of_bag_into<T: Real, C: Count>(
@@ -522,10 +534,10 @@ impl FittedMembers for LinearEnsemble {
         counts: ArrayView2<'_, C>,
         out: &mut [f64],
         pool: &Pool,
-        _monitor: &dyn Monitor,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         let bags = count_bags(counts, x.nrows())?;
-        LinearEnsemble::out_of_bag_into(self, x, &bags, out, pool)
+        LinearEnsemble::out_of_bag_into(self, x, &bags, out, pool, monitor)
     }
 
     fn join(parts: Vec<Self>) -> Result<Self> {
@@ -701,10 +713,11 @@ mod tests {
             let pool = Threads::Fixed(t).pool().unwrap();
             let fit = LinearEnsemble::fit(x.view(), y.view(), &b, 0.0, &pool, &Silent).unwrap();
             let mut out = vec![0.0; 5 * 60];
-            fit.member_predictions_into(x.view(), &mut out, &pool)
+            fit.member_predictions_into(x.view(), &mut out, &pool, &Silent)
                 .unwrap();
             let mut oob = vec![0.0; 5 * 60];
-            fit.out_of_bag_into(x.view(), &b, &mut oob, &pool).unwrap();
+            fit.out_of_bag_into(x.view(), &b, &mut oob, &pool, &Silent)
+                .unwrap();
             for m in 0..5 {
                 for i in 0..60 {
                     let v = oob[m * 60 + i];

@@ -32,12 +32,13 @@ pub(super) fn member_weights(
 /// Weighted mean of `(members, n_points)` values, or soft vote of `(members, n_points,
 /// n_classes)` probabilities.
 #[pyfunction]
-#[pyo3(signature = (members, member_weights=None, n_jobs=None))]
+#[pyo3(signature = (members, member_weights=None, n_jobs=None, progress=None))]
 fn mean_prediction(
     py: Python<'_>,
     members: &Bound<'_, PyAny>,
     member_weights: Option<PyReadonlyArray1<'_, f64>>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<Py<PyAny>> {
     let ndim = members.getattr("ndim")?.extract::<usize>().unwrap_or(0);
     macro_rules! run {
@@ -48,7 +49,7 @@ fn mean_prediction(
             let out = zeros::<f64>(py, [n, c])?;
             // SAFETY: the array was just created here and is not shared with Python yet.
             let slice = unsafe { out.as_slice_mut() }.expect("a new array is contiguous");
-            run_core(py, n_jobs, None, |pool, monitor| {
+            run_core(py, n_jobs, progress, |pool, monitor| {
                 core::mean_cells(view, $probabilities, &w, slice, pool, monitor)
             })?;
             Ok(if $probabilities {
@@ -72,13 +73,14 @@ fn mean_prediction(
 
 /// Majority vote (lowest class index wins ties) and vote fractions of integer labels.
 #[pyfunction]
-#[pyo3(signature = (members, n_classes, member_weights=None, n_jobs=None))]
+#[pyo3(signature = (members, n_classes, member_weights=None, n_jobs=None, progress=None))]
 fn majority_vote<'py>(
     py: Python<'py>,
     members: PyReadonlyArray2<'py, i64>,
     n_classes: usize,
     member_weights: Option<PyReadonlyArray1<'py, f64>>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<(Py<PyAny>, Py<PyAny>)> {
     let view = members.as_array();
     let (m, n) = view.dim();
@@ -88,7 +90,7 @@ fn majority_vote<'py>(
     // SAFETY: both arrays were just created here and are not shared with Python yet.
     let (l, f) = unsafe { (labels.as_slice_mut(), fractions.as_slice_mut()) };
     let (l, f) = (l.expect("contiguous"), f.expect("contiguous"));
-    run_core(py, n_jobs, None, |pool, monitor| {
+    run_core(py, n_jobs, progress, |pool, monitor| {
         core::majority_vote(view, n_classes, &w, l, f, pool, monitor)
     })?;
     Ok((labels.into_any().unbind(), fractions.into_any().unbind()))

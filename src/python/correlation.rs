@@ -28,16 +28,17 @@ pub struct CorrelationSummary {
 
 /// Residual variances and mean pairwise covariance / correlation without the M × M matrix.
 #[pyfunction]
-#[pyo3(signature = (members, y, n_jobs=None))]
+#[pyo3(signature = (members, y, n_jobs=None, progress=None))]
 fn residual_correlation<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: PyReadonlyArray1<'py, f64>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<CorrelationSummary> {
     let y = y.as_array();
     let members = FloatArray::<Ix2>::extract(members, "members")?;
-    let r = with_float!(members, |v| run_core(py, n_jobs, None, |pool, mon| {
+    let r = with_float!(members, |v| run_core(py, n_jobs, progress, |pool, mon| {
         core::residual_correlation(v, y, pool, mon)
     }))?;
     Ok(summary(py, r))
@@ -76,19 +77,20 @@ impl PyCorrelationAccumulator {
     }
 
     /// Adds a chunk of points (all members).
-    #[pyo3(signature = (members, y, n_jobs=None))]
+    #[pyo3(signature = (members, y, n_jobs=None, progress=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
         members: &Bound<'py, PyAny>,
         y: PyReadonlyArray1<'py, f64>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<()> {
         let (members, y) = (
             FloatArray::<Ix2>::extract(members, "members")?,
             y.as_array(),
         );
-        with_float!(members, |v| run_core(py, n_jobs, None, |pool, mon| {
+        with_float!(members, |v| run_core(py, n_jobs, progress, |pool, mon| {
             self.state().update(v, y, pool, mon)
         }))
     }
@@ -155,12 +157,13 @@ impl PyCorrelationAccumulator {
 
 /// The full (members, members) residual correlation matrix.
 #[pyfunction]
-#[pyo3(signature = (members, y, n_jobs=None))]
+#[pyo3(signature = (members, y, n_jobs=None, progress=None))]
 fn correlation_matrix<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: PyReadonlyArray1<'py, f64>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<Py<PyAny>> {
     let y = y.as_array();
     let members = FloatArray::<Ix2>::extract(members, "members")?;
@@ -168,7 +171,7 @@ fn correlation_matrix<'py>(
     let out = zeros::<f64>(py, [m, m])?;
     // SAFETY: the array was just created here and is not shared with Python yet.
     let slice = unsafe { out.as_slice_mut() }.expect("a new array is contiguous");
-    with_float!(members, |v| run_core(py, n_jobs, None, |pool, mon| {
+    with_float!(members, |v| run_core(py, n_jobs, progress, |pool, mon| {
         core::correlation_matrix(v, y, slice, pool, mon)
     }))?;
     Ok(out.into_any().unbind())

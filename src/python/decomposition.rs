@@ -51,7 +51,7 @@ impl PyDecompositionAccumulator {
     }
 
     /// Adds a chunk; returns its per-point (ensemble, member, gain) losses.
-    #[pyo3(signature = (members, y, n_classes=None, n_jobs=None))]
+    #[pyo3(signature = (members, y, n_classes=None, n_jobs=None, progress=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
@@ -59,6 +59,7 @@ impl PyDecompositionAccumulator {
         y: &Bound<'py, PyAny>,
         n_classes: Option<usize>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
         let (members, y) = (MembersArray::extract(members)?, TargetArray::extract(y)?);
         let n = members.dim().1;
@@ -86,7 +87,7 @@ impl PyDecompositionAccumulator {
         with_members!(members, k, |view| run_core(
             py,
             n_jobs,
-            None,
+            progress,
             |pool, mon| { self.state().update(view, y, out, pool, mon) }
         ))?;
         let [e, m, g] = arrays.map(|a| a.into_any().unbind());

@@ -35,23 +35,24 @@ impl PyDiversityAccumulator {
 
     /// Adds int64 `(n_members, n_points)` labels or float `(n_members, n_points, n_classes)`
     /// probabilities of a chunk of points with their int64 targets.
-    #[pyo3(signature = (members, y, n_jobs=None))]
+    #[pyo3(signature = (members, y, n_jobs=None, progress=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
         members: &Bound<'py, PyAny>,
         y: PyReadonlyArray1<'py, i64>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<()> {
         let (y, state) = (y.as_array(), &self.inner);
         if let Ok(labels) = members.extract::<PyReadonlyArray2<'py, i64>>() {
             let p = Predictions::<f64>::Labels(labels.as_array());
-            return run_core(py, n_jobs, None, |pool, mon| {
+            return run_core(py, n_jobs, progress, |pool, mon| {
                 state.lock().expect("state lock").update(p, y, pool, mon)
             });
         }
         with_float!(FloatArray::<Ix3>::extract(members, "members")?, |v| {
-            run_core(py, n_jobs, None, |pool, mon| {
+            run_core(py, n_jobs, progress, |pool, mon| {
                 let p = Predictions::Probabilities(v);
                 state.lock().expect("state lock").update(p, y, pool, mon)
             })

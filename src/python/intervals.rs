@@ -32,7 +32,7 @@ macro_rules! with_float_pair {
 
 /// `(lower, upper, n_rows_used, finite)` of a regression interval (see the core).
 #[pyfunction]
-#[pyo3(signature = (members, counts, train_members, y_train, level, method, n_jobs=None))]
+#[pyo3(signature = (members, counts, train_members, y_train, level, method, n_jobs=None, progress=None))]
 #[allow(clippy::too_many_arguments, clippy::type_complexity)]
 fn prediction_interval_arrays<'py>(
     py: Python<'py>,
@@ -43,6 +43,7 @@ fn prediction_interval_arrays<'py>(
     level: f64,
     method: &str,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<(Bound<'py, PyAny>, Bound<'py, PyAny>, usize, bool)> {
     let method = match method {
         "jackknife+" => IntervalMethod::JackknifePlus,
@@ -63,7 +64,7 @@ fn prediction_interval_arrays<'py>(
     let (lo, up) = unsafe { (lower.as_slice_mut()?, upper.as_slice_mut()?) };
     let y = y_train.as_array();
     let calibration = with_float_pair!(members, train, |m, t| with_counts!(counts, |c| {
-        run_core(py, n_jobs, None, |pool, monitor| {
+        run_core(py, n_jobs, progress, |pool, monitor| {
             prediction_interval(m, c, t, y, level, method, lo, up, pool, monitor)
         })
     }))?;
@@ -78,7 +79,7 @@ fn prediction_interval_arrays<'py>(
 
 /// `(sets, n_rows_used, finite)` of a class set (see the core).
 #[pyfunction]
-#[pyo3(signature = (members, counts, train_members, y_train, level, method, n_jobs=None))]
+#[pyo3(signature = (members, counts, train_members, y_train, level, method, n_jobs=None, progress=None))]
 #[allow(clippy::too_many_arguments)]
 fn prediction_set_arrays<'py>(
     py: Python<'py>,
@@ -89,6 +90,7 @@ fn prediction_set_arrays<'py>(
     level: f64,
     method: &str,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<(Bound<'py, PyAny>, usize, bool)> {
     let method = match method {
         "least_ambiguous" => SetMethod::LeastAmbiguous,
@@ -108,7 +110,7 @@ fn prediction_set_arrays<'py>(
     let out = readwrite.as_array_mut();
     let y = y_train.as_array();
     let calibration = with_float_pair!(members, train, |m, t| with_counts!(counts, |c| {
-        run_core(py, n_jobs, None, |pool, monitor| {
+        run_core(py, n_jobs, progress, |pool, monitor| {
             prediction_set(m, c, t, y, level, method, out, pool, monitor)
         })
     }))?;

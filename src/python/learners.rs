@@ -95,12 +95,13 @@ pub(super) fn member_predictions<'py, E: FittedMembers + Sync>(
     model: &E,
     x: &Bound<'py, PyAny>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<Bound<'py, PyAny>> {
     let x = FloatArray::<Ix2>::extract(x, "x")?;
     let array = zeros_nd::<f64>(py, shape(model, true, rows_of(&x)))?;
     // SAFETY: the array was just created here and is not shared with Python yet.
     let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-    with_float!(x, |a| run_core(py, n_jobs, None, |pool, monitor| {
+    with_float!(x, |a| run_core(py, n_jobs, progress, |pool, monitor| {
         model.member_predictions_into(a, out, pool, monitor)
     }))?;
     Ok(array.into_any())
@@ -114,6 +115,7 @@ pub(super) fn out_of_bag_predictions<'py, E: FittedMembers + Sync>(
     x: &Bound<'py, PyAny>,
     counts: &Bound<'py, PyAny>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<Bound<'py, PyAny>> {
     let x = FloatArray::<Ix2>::extract(x, "x")?;
     let counts = CountArray::extract(counts)?;
@@ -123,7 +125,7 @@ pub(super) fn out_of_bag_predictions<'py, E: FittedMembers + Sync>(
     with_counts!(counts, |c| with_float!(x, |a| run_core(
         py,
         n_jobs,
-        None,
+        progress,
         |pool, monitor| model.out_of_bag_into(a, c, out, pool, monitor)
     )))?;
     Ok(array.into_any())
@@ -135,12 +137,13 @@ pub(super) fn predict<'py, E: FittedMembers + Sync>(
     model: &E,
     x: &Bound<'py, PyAny>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<Bound<'py, PyAny>> {
     let x = FloatArray::<Ix2>::extract(x, "x")?;
     let array = zeros_nd::<f64>(py, shape(model, false, rows_of(&x)))?;
     // SAFETY: the array was just created here and is not shared with Python yet.
     let out = unsafe { array.as_slice_mut() }.expect("a new array is contiguous");
-    with_float!(x, |a| run_core(py, n_jobs, None, |pool, monitor| {
+    with_float!(x, |a| run_core(py, n_jobs, progress, |pool, monitor| {
         model.predict_into(a, out, pool, monitor)
     }))?;
     Ok(array.into_any())

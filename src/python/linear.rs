@@ -50,37 +50,40 @@ impl PyLinearEnsemble {
     }
 
     /// (members, n_points) float64.
-    #[pyo3(signature = (x, n_jobs=None))]
+    #[pyo3(signature = (x, n_jobs=None, progress=None))]
     fn member_predictions<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        learners::member_predictions(py, &self.inner, x, n_jobs)
+        learners::member_predictions(py, &self.inner, x, n_jobs, progress)
     }
 
     /// (members, n_rows) float64, NaN where the member saw the row.
-    #[pyo3(signature = (x, counts, n_jobs=None))]
+    #[pyo3(signature = (x, counts, n_jobs=None, progress=None))]
     fn out_of_bag_predictions<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         counts: &Bound<'py, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        learners::out_of_bag_predictions(py, &self.inner, x, counts, n_jobs)
+        learners::out_of_bag_predictions(py, &self.inner, x, counts, n_jobs, progress)
     }
 
     /// The ensemble mean, (n_points,) float64.
-    #[pyo3(signature = (x, n_jobs=None))]
+    #[pyo3(signature = (x, n_jobs=None, progress=None))]
     fn predict<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        learners::predict(py, &self.inner, x, n_jobs)
+        learners::predict(py, &self.inner, x, n_jobs, progress)
     }
 
     /// Number of members.

@@ -268,7 +268,7 @@ impl<'py> Outputs<'py> {
 ///
 /// `kind` is "regression", "labels" (needs `n_classes`) or "probabilities".
 #[pyfunction]
-#[pyo3(signature = (members, counts, y, point_weights, sizes, kind, n_classes=None, n_jobs=None))]
+#[pyo3(signature = (members, counts, y, point_weights, sizes, kind, n_classes=None, n_jobs=None, progress=None))]
 #[allow(clippy::too_many_arguments)]
 fn out_of_bag_chunk<'py>(
     py: Python<'py>,
@@ -280,6 +280,7 @@ fn out_of_bag_chunk<'py>(
     kind: &str,
     n_classes: Option<usize>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<(PyOutOfBagState, ChunkArrays<'py>)> {
     let counts = IntArray::<Ix2>::extract(counts, "counts")?;
     let counts: Box<dyn InBagCounts + '_> = int_array!(&counts, a => Box::new(a.as_array()));
@@ -292,7 +293,7 @@ fn out_of_bag_chunk<'py>(
         outputs.slices(),
     );
     let (predictions, counts) = (&*predictions, &*counts);
-    let inner = run_core(py, n_jobs, None, |pool, monitor| {
+    let inner = run_core(py, n_jobs, progress, |pool, monitor| {
         out_of_bag(predictions, counts, y, weights, &sizes, out, pool, monitor)
     })?;
     Ok((PyOutOfBagState { inner }, outputs.into_arrays()))

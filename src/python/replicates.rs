@@ -23,12 +23,13 @@ pub struct PyReplicateSpreadParts {
 
 /// Per-point arrays and means over points of the replicate spread (see the core module).
 #[pyfunction]
-#[pyo3(signature = (members, y=None, n_jobs=None))]
+#[pyo3(signature = (members, y=None, n_jobs=None, progress=None))]
 fn replicate_spread<'py>(
     py: Python<'py>,
     members: &Bound<'py, PyAny>,
     y: Option<PyReadonlyArray1<'py, f64>>,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<PyReplicateSpreadParts> {
     let members = FloatArray::<Ix3>::extract(members, "members")?;
     let points = with_float!(members, |view| view.dim().2);
@@ -37,7 +38,7 @@ fn replicate_spread<'py>(
     let out = unsafe { rows.as_slice_mut() }.expect("a new array is contiguous");
     let y = y.as_ref().map(|y| y.as_array());
     let summary = with_float!(members, |view| {
-        run_core(py, n_jobs, None, |pool, monitor| {
+        run_core(py, n_jobs, progress, |pool, monitor| {
             spread_core(view, y, out, pool, monitor)
         })
     })?;
@@ -153,13 +154,14 @@ impl PyReplicateSpreadAccumulator {
     }
 
     /// Adds a chunk of points; returns its per-point rows (`ReplicateSpreadParts` order).
-    #[pyo3(signature = (members, y=None, n_jobs=None))]
+    #[pyo3(signature = (members, y=None, n_jobs=None, progress=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
         members: &Bound<'py, PyAny>,
         y: Option<PyReadonlyArray1<'py, f64>>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Py<PyArray2<f64>>> {
         let members = FloatArray::<Ix3>::extract(members, "members")?;
         let points = with_float!(members, |view| view.dim().2);
@@ -167,9 +169,12 @@ impl PyReplicateSpreadAccumulator {
         // SAFETY: the array was just created here and is not shared with Python yet.
         let out = unsafe { rows.as_slice_mut() }.expect("a new array is contiguous");
         let y = y.as_ref().map(|y| y.as_array());
-        with_float!(members, |view| run_core(py, n_jobs, None, |pool, mon| {
-            self.state().update(view, y, out, pool, mon)
-        }))?;
+        with_float!(members, |view| run_core(
+            py,
+            n_jobs,
+            progress,
+            |pool, mon| { self.state().update(view, y, out, pool, mon) }
+        ))?;
         Ok(rows.unbind())
     }
 

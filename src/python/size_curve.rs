@@ -72,7 +72,7 @@ impl PySizeCurveAccumulator {
     }
 
     /// Adds a chunk of points.
-    #[pyo3(signature = (members, y, n_classes=None, n_jobs=None))]
+    #[pyo3(signature = (members, y, n_classes=None, n_jobs=None, progress=None))]
     fn update<'py>(
         &self,
         py: Python<'py>,
@@ -80,6 +80,7 @@ impl PySizeCurveAccumulator {
         y: &Bound<'py, PyAny>,
         n_classes: Option<usize>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<()> {
         let (members, y) = (MembersArray::extract(members)?, TargetArray::extract(y)?);
         let k = n_classes.unwrap_or_else(|| match (&members, &y) {
@@ -92,7 +93,7 @@ impl PySizeCurveAccumulator {
         with_members!(members, k, |view| run_core(
             py,
             n_jobs,
-            None,
+            progress,
             |pool, mon| { self.state().update(view, y, pool, mon) }
         ))
     }

@@ -98,38 +98,41 @@ impl PyTreeEnsemble {
 
     /// Every member's predictions: (members, points) for regression, (members, points,
     /// n_classes) probabilities for classification.
-    #[pyo3(signature = (x, n_jobs=None))]
+    #[pyo3(signature = (x, n_jobs=None, progress=None))]
     fn member_predictions<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        learners::member_predictions(py, &self.inner, x, n_jobs)
+        learners::member_predictions(py, &self.inner, x, n_jobs, progress)
     }
 
     /// Member predictions on the training rows `x` only where the member did not see the
     /// row (`counts[m, i] == 0`), NaN elsewhere; same shape as `member_predictions`.
-    #[pyo3(signature = (x, counts, n_jobs=None))]
+    #[pyo3(signature = (x, counts, n_jobs=None, progress=None))]
     fn out_of_bag_predictions<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         counts: &Bound<'py, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        learners::out_of_bag_predictions(py, &self.inner, x, counts, n_jobs)
+        learners::out_of_bag_predictions(py, &self.inner, x, counts, n_jobs, progress)
     }
 
     /// The mean over members: (points,) values or (points, n_classes) probabilities.
-    #[pyo3(signature = (x, n_jobs=None))]
+    #[pyo3(signature = (x, n_jobs=None, progress=None))]
     fn predict<'py>(
         &self,
         py: Python<'py>,
         x: &Bound<'py, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        learners::predict(py, &self.inner, x, n_jobs)
+        learners::predict(py, &self.inner, x, n_jobs, progress)
     }
 
     /// Number of members.

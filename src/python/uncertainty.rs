@@ -73,7 +73,7 @@ impl PyCountGram {
     }
 
     /// (raw, correction, within, mean) per point for `members` (n_members, n_points).
-    #[pyo3(signature = (members, method, n_jobs=None))]
+    #[pyo3(signature = (members, method, n_jobs=None, progress=None))]
     #[allow(clippy::type_complexity)]
     fn variance(
         &self,
@@ -81,12 +81,13 @@ impl PyCountGram {
         members: &Bound<'_, PyAny>,
         method: &str,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
         let method = Method::parse(method).map_err(to_py_err)?;
         let members = FloatArray::<numpy::Ix2>::extract(members, "members")?;
         let estimate = with_float!(members, |view| {
-            run_core(py, n_jobs, None, |pool, _| {
-                self.inner.variance(view, method, pool)
+            run_core(py, n_jobs, progress, |pool, monitor| {
+                self.inner.variance(view, method, pool, monitor)
             })
         })?;
         Ok(estimate_arrays(
@@ -174,18 +175,19 @@ impl PyCountGram {
 /// (S²_B, W/ℓ, W, mean) per point for little-bags `members` (n_members, n_points) laid out
 /// in consecutive groups of `group_size`.
 #[pyfunction]
-#[pyo3(signature = (members, group_size, n_jobs=None))]
+#[pyo3(signature = (members, group_size, n_jobs=None, progress=None))]
 #[allow(clippy::type_complexity)]
 fn little_bags_variance(
     py: Python<'_>,
     members: &Bound<'_, PyAny>,
     group_size: usize,
     n_jobs: Option<usize>,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<(Py<PyAny>, Py<PyAny>, Py<PyAny>, Py<PyAny>)> {
     let members = FloatArray::<numpy::Ix2>::extract(members, "members")?;
     let estimate = with_float!(members, |view| {
-        run_core(py, n_jobs, None, |pool, _| {
-            core_little_bags(view, group_size, pool)
+        run_core(py, n_jobs, progress, |pool, monitor| {
+            core_little_bags(view, group_size, pool, monitor)
         })
     })?;
     Ok(estimate_arrays(
@@ -221,18 +223,19 @@ impl PyCountGramAccumulator {
     }
 
     /// Adds the rows of `counts` (n_members, rows of the chunk).
-    #[pyo3(signature = (counts, n_jobs=None))]
+    #[pyo3(signature = (counts, n_jobs=None, progress=None))]
     fn update(
         &self,
         py: Python<'_>,
         counts: &Bound<'_, PyAny>,
         n_jobs: Option<usize>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<()> {
         let counts = CountArray::extract(counts)?;
         with_counts!(counts, |view| run_core(
             py,
             n_jobs,
-            None,
+            progress,
             |pool, monitor| self.state().update(view, pool, monitor)
         ))
     }

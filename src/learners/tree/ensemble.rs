@@ -11,7 +11,7 @@ use crate::error::{Error, Result};
 use crate::learners::{check_parts, FittedMembers, Task};
 use crate::members::{MAX_CLASSES, PROBABILITY_TOLERANCE};
 use crate::numeric::Real;
-use crate::parallel::{Monitor, Pool};
+use crate::parallel::{watched, Monitor, Pool, Watch};
 use crate::resampling::Count;
 
 /// Marks a leaf in [`Tree::feature`].
@@ -303,6 +303,7 @@ impl TreeEnsemble {
         out: &mut [f64],
         skip: impl Fn(usize, usize) -> bool + Sync,
         pool: &Pool,
+        watch: &Watch,
     ) {
         let width = self.outputs();
         let n = x.nrows();
@@ -338,7 +339,12 @@ impl TreeEnsemble {
                     let n_features = self.n_features;
                     let mut buffer = Vec::new();
                     for block in (0..points).step_by(POINT_CHUNK) {
+                        // Between blocks (a few ms of walks each), never inside the walks.
+                        if watch.stopped() {
+                            return;
+                        }
                         let block_end = (block + POINT_CHUNK).min(points);
+                        watch.advance((block_end - block) * rows.len());
                         let range = first_point + block..first_point + block_end;
                         let block_rows = block_rows(&x, range, &mut buffer);
                         for (j, row) in rows.iter_mut().enumerate() {
@@ -365,18 +371,25 @@ impl TreeEnsemble {
     /// Every member's prediction for every point, written into `out` (members × points ×
     /// width, C order): regression values or class probabilities.
     ///
+    /// `monitor` hears the member × point predictions done about every
+    /// [`HEARTBEAT`](crate::parallel::HEARTBEAT); an error from it stops the walks within one
+    /// block of points.
+    ///
     /// # Errors
-    /// `x` with the wrong number of features or non-finite values; `out` of the wrong size.
+    /// `x` with the wrong number of features or non-finite values; `out` of the wrong size;
+    /// [`Error::Interrupted`] from the monitor.
     pub fn member_predictions_into<T: Real>(
         &self,
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_points(&x)?;
         self.check_out(out, self.members() * x.nrows() * self.outputs())?;
-        self.fill_members(x, out, |_, _| false, pool);
-        Ok(())
+        watched(pool, monitor, self.members() * x.nrows(), |watch| {
+            self.fill_members(x, out, |_, _| false, pool, watch)
+        })
     }
 
     /// Out-of-bag predictions on the training rows: member m's prediction for row i when
@@ -392,6 +405,7 @@ impl TreeEnsemble {
         counts: ArrayView2<'_, C>,
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_points(&x)?;
         if counts.dim() != (self.members(), x.nrows()) {
@@ -406,8 +420,9 @@ impl TreeEnsemble {
             ));
         }
         self.check_out(out, self.members() * x.nrows() * self.outputs())?;
-        self.fill_members(x, out, |m, p| counts[(m, p)].as_u64() != 0, pool);
-        Ok(())
+        watched(pool, monitor, self.members() * x.nrows(), |watch| {
+            self.fill_members(x, out, |m, p| counts[(m, p)].as_u64() != 0, pool, watch)
+        })
     }
 
     /// The ensemble prediction for every point into `out` (points × width): the mean over
@@ -421,6 +436,7 @@ impl TreeEnsemble {
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_points(&x)?;
         let width = self.outputs();
@@ -432,7 +448,8 @@ impl TreeEnsemble {
         }
         let groups = self.tree_groups();
         let span = n.div_ceil(2 * pool.threads()).next_multiple_of(BATCH);
-        pool.run(|| {
+        let members = self.members();
+        watched(pool, monitor, members * n, |watch| {
             out.par_chunks_mut(span * width)
                 .enumerate()
                 .for_each(|(r, part)| {
@@ -442,7 +459,12 @@ impl TreeEnsemble {
                     // Groups and members in member order, so every point's sum has one order.
                     for group in &groups {
                         for block in (0..points).step_by(POINT_CHUNK) {
+                            // Between blocks, never inside the walks.
+                            if watch.stopped() {
+                                return;
+                            }
                             let block_end = (block + POINT_CHUNK).min(points);
+                            watch.advance((block_end - block) * group.len());
                             let rows =
                                 block_rows(&x, r * span + block..r * span + block_end, &mut buffer);
                             let sums = &mut part[block * width..block_end * width];
@@ -459,8 +481,7 @@ impl TreeEnsemble {
                     }
                     part.iter_mut().for_each(|s| *s *= scale);
                 });
-        });
-        Ok(())
+        })
     }
 
     pub(super) fn check_out(&self, out: &[f64], expected: usize) -> Result<()> {
@@ -497,9 +518,9 @@ impl FittedMembers for TreeEnsemble {
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
-        _monitor: &dyn Monitor,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
-        TreeEnsemble::member_predictions_into(self, x, out, pool)
+        TreeEnsemble::member_predictions_into(self, x, out, pool, monitor)
     }
 
     fn out_of_bag_into<T: Real, C: Count>(
@@ -508,9 +529,9 @@ impl FittedMembers for TreeEnsemble {
         counts: ArrayView2<'_, C>,
         out: &mut [f64],
         pool: &Pool,
-        _monitor: &dyn Monitor,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
-        self.out_of_bag_predictions_into(x, counts, out, pool)
+        self.out_of_bag_predictions_into(x, counts, out, pool, monitor)
     }
 
     /// The trees' own sum (scaled by 1 / members), walked group by group.
@@ -519,9 +540,9 @@ impl FittedMembers for TreeEnsemble {
         x: ArrayView2<'_, T>,
         out: &mut [f64],
         pool: &Pool,
-        _monitor: &dyn Monitor,
+        monitor: &dyn Monitor,
     ) -> Result<()> {
-        TreeEnsemble::predict_into(self, x, out, pool)
+        TreeEnsemble::predict_into(self, x, out, pool, monitor)
     }
 
     fn join(parts: Vec<Self>) -> Result<Self> {
@@ -627,20 +648,20 @@ mod tests {
                 };
                 for threads in [1, 3] {
                     let mut out = vec![0.0; e.members() * n_points];
-                    e.member_predictions_into(points.view(), &mut out, &pool(threads))
+                    e.member_predictions_into(points.view(), &mut out, &pool(threads), &Silent)
                         .unwrap();
                     assert_eq!(out, expected, "{n_points} points, {threads} threads");
                     out.fill(0.0);
-                    e.member_predictions_into(fortran.view(), &mut out, &pool(threads))
+                    e.member_predictions_into(fortran.view(), &mut out, &pool(threads), &Silent)
                         .unwrap();
                     assert_eq!(out, expected, "column-major x");
                     out.fill(0.0);
-                    e.member_predictions_into(narrow.view(), &mut out, &pool(threads))
+                    e.member_predictions_into(narrow.view(), &mut out, &pool(threads), &Silent)
                         .unwrap();
                     assert_eq!(out, narrow_expected, "f32 x");
                     // The mean adds members in member order for every point.
                     let mut mean = vec![0.0; n_points];
-                    e.predict_into(points.view(), &mut mean, &pool(threads))
+                    e.predict_into(points.view(), &mut mean, &pool(threads), &Silent)
                         .unwrap();
                     for (i, m) in mean.iter().enumerate() {
                         let sum = (0..e.members()).fold(0.0, |s, t| s + expected[t * n_points + i]);
@@ -673,8 +694,13 @@ mod tests {
                 assert!(back.validate().is_ok());
                 let mut out = vec![0.0; back.members() * 10 * back.outputs()];
                 if back.n_features() == 3 {
-                    back.member_predictions_into(data(10, 3, 1, 0).view(), &mut out, &pool(1))
-                        .unwrap();
+                    back.member_predictions_into(
+                        data(10, 3, 1, 0).view(),
+                        &mut out,
+                        &pool(1),
+                        &Silent,
+                    )
+                    .unwrap();
                 }
             }
         }
@@ -691,7 +717,7 @@ mod tests {
         }
         let e = fit_reg(params(Task::Regression, Splitter::Exact), &x, &y, &counts);
         let mut oob = vec![0.0; 400];
-        e.out_of_bag_predictions_into(x.view(), counts.view(), &mut oob, &pool(2))
+        e.out_of_bag_predictions_into(x.view(), counts.view(), &mut oob, &pool(2), &Silent)
             .unwrap();
         let all = members(&e, &x);
         for (k, (&o, &a)) in oob.iter().zip(&all).enumerate() {

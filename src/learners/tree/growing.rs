@@ -1160,7 +1160,8 @@ mod tests {
         assert_eq!(a, b);
         // Fully grown on distinct rows: the training targets are reproduced.
         let mut out = vec![0.0; 500];
-        a.predict_into(x.view(), &mut out, &pool(1)).unwrap();
+        a.predict_into(x.view(), &mut out, &pool(1), &Silent)
+            .unwrap();
         assert!(out.iter().zip(&y).all(|(p, t)| (p - t).abs() < 1e-12));
     }
 

@@ -138,7 +138,7 @@ mod test_support {
 
     pub(super) fn members(e: &TreeEnsemble, x: &Array2<f64>) -> Vec<f64> {
         let mut out = vec![0.0; e.members() * x.nrows() * e.outputs()];
-        e.member_predictions_into(x.view(), &mut out, &pool(2))
+        e.member_predictions_into(x.view(), &mut out, &pool(2), &Silent)
             .unwrap();
         out
     }

@@ -236,7 +236,9 @@ mod tests {
         let mut out = vec![0.0; 20];
         let wide = data(10, 3, 1, 0);
         assert_eq!(
-            arg(e.predict_into(wide.view(), &mut out, &pool(1)).unwrap_err()),
+            arg(e
+                .predict_into(wide.view(), &mut out, &pool(1), &Silent)
+                .unwrap_err()),
             "x"
         );
     }
