@@ -247,7 +247,7 @@ def test_a_training_set_above_the_worker_memory_is_refused(client):
 def test_errors_on_the_workers_reach_the_caller(client):
     bad = X.copy()
     bad[5, 1] = np.nan
-    with pytest.raises(ValueError, match=r"^`x`: contains NaN"):
+    with pytest.raises(ValueError, match=r"^`X`: contains NaN"):
         bagwise.BagRegressor("tree", n_members=4).fit(_lazy(bad), _lazy(Y))
 
 

@@ -202,5 +202,5 @@ def test_a_prediction_beyond_the_float64_range_is_an_error_naming_x():
     y = x @ np.array([1e150, -2e150]) + rng.normal(size=40)
     bag = bagwise.BagRegressor("linear", n_members=3, random_state=0).fit(x, y)
     assert np.isfinite(bag.predict(x)).all()
-    with pytest.raises(ValueError, match=r"^`x`: .*float64 range"):
+    with pytest.raises(ValueError, match=r"^`X`: .*float64 range"):
         bag.predict(np.full((2, 2), 1e300))

@@ -368,9 +368,12 @@ class _Bag(BaseEstimator):
             if client is None:
                 model = self._fit_native(X, target, counts, params, n_classes)
             else:
-                model = _distributed.fit_native(client, LEARNERS[learner], X, target, counts,
-                                                self._native_options(X, params, n_classes),
-                                                self.progress)
+                try:
+                    model = _distributed.fit_native(client, LEARNERS[learner], X, target, counts,
+                                                    self._native_options(X, params, n_classes),
+                                                    self.progress)
+                except (ValueError, TypeError) as err:  # as in the local fit: `x` is `X`
+                    raise renamed_arguments(err, {"x": "X"}) from None
             members = None
         else:
             model = None
