@@ -117,9 +117,9 @@ def test_a_huge_label_is_blamed_on_the_array_holding_it(call):
 
 def test_load_and_save_name_the_path(tmp_path):
     # was: IsADirectoryError / FileNotFoundError / TypeError naming no argument
-    with pytest.raises(IsADirectoryError, match=r"^`path`: cannot read"):
+    with pytest.raises(IsADirectoryError, match=r"^`path`: .*is a directory"):
         bagwise.load(tmp_path)
-    with pytest.raises(FileNotFoundError, match=r"^`path`: cannot read"):
+    with pytest.raises(FileNotFoundError, match=r"^`path`: .*no such file"):
         bagwise.load(tmp_path / "missing.bag")
     with pytest.raises(TypeError, match=r"^`path`: expected a str or os.PathLike, got int"):
         bagwise.load(0)
