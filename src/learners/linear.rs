@@ -25,7 +25,8 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use super::{
-    check_design, check_parts, count_bags, member_chunk, Bag, FittedMembers, Targets, Task,
+    check_design, check_parts, check_selection, count_bags, member_chunk, Bag, FittedMembers,
+    Targets, Task,
 };
 use crate::error::{Error, Result};
 use crate::numeric::Real;
@@ -565,6 +566,20 @@ impl FittedMembers for LinearEnsemble {
         Ok(joined)
     }
 
+    fn select(&self, members: &[usize]) -> Result<Self> {
+        check_selection(members, self.intercepts.len())?;
+        let p = self.n_features;
+        Ok(LinearEnsemble {
+            n_features: p,
+            penalty: self.penalty,
+            intercepts: members.iter().map(|&m| self.intercepts[m]).collect(),
+            coefficients: members
+                .iter()
+                .flat_map(|&m| self.coefficients[m * p..(m + 1) * p].iter().copied())
+                .collect(),
+        })
+    }
+
     fn to_bytes(&self) -> Vec<u8> {
         postcard::to_allocvec(self).expect("serialising to memory cannot fail")
     }
@@ -618,6 +633,7 @@ mod tests {
         let whole = fit(0, 5);
         let joined = LinearEnsemble::join(vec![fit(0, 2), fit(2, 3), fit(3, 5)]).unwrap();
         assert_eq!(joined, whole);
+        crate::learners::check_select_contract(&whole, x.view());
         // Parts fitted with another penalty, or on other features, are refused.
         let b = bags(counts.slice(ndarray::s![..1, ..]), 60).unwrap();
         let other = LinearEnsemble::fit(x.view(), y.view(), &b, 1.0, &pool, &Silent).unwrap();

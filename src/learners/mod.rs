@@ -149,6 +149,14 @@ pub trait FittedMembers: Sized {
     /// setting of the learner (or, for neighbours, the training rows).
     fn join(parts: Vec<Self>) -> Result<Self>;
 
+    /// The ensemble of the members `members`, in that order (e.g. the first members of an
+    /// order of [`crate::ordering::order_members`]): member k of the result is member
+    /// `members[k]` of `self`, unchanged.
+    ///
+    /// # Errors
+    /// `members` empty, with an index out of range or repeated (see [`check_selection`]).
+    fn select(&self, members: &[usize]) -> Result<Self>;
+
     /// The fitted state as bytes.
     fn to_bytes(&self) -> Vec<u8>;
 
@@ -181,6 +189,30 @@ pub fn check_parts<E: FittedMembers>(parts: &[E]) -> Result<()> {
                     first.n_features()
                 ),
             ));
+        }
+    }
+    Ok(())
+}
+
+/// Checks the member indices of a [`FittedMembers::select`]: at least one, each below
+/// `n_members`, none repeated.
+///
+/// # Errors
+/// `members` empty, out of range or repeated.
+pub fn check_selection(members: &[usize], n_members: usize) -> Result<()> {
+    if members.is_empty() {
+        return Err(Error::value("members", "selects no member"));
+    }
+    let mut seen = vec![false; n_members];
+    for &m in members {
+        if m >= n_members {
+            return Err(Error::value(
+                "members",
+                format!("member {m} is out of range for an ensemble of {n_members} members"),
+            ));
+        }
+        if std::mem::replace(&mut seen[m], true) {
+            return Err(Error::value("members", format!("member {m} is repeated")));
         }
     }
     Ok(())
@@ -314,6 +346,46 @@ pub fn check_design<T: crate::numeric::Real>(
 /// busy, few enough that progress and Ctrl-C are seen often.
 pub(crate) fn member_chunk(threads: usize) -> usize {
     threads.max(1) * 2
+}
+
+/// The contract of [`FittedMembers::select`], shared by the learners' tests: the member
+/// predictions of a selection are the same rows of the whole ensemble's, selecting every
+/// member in order gives the ensemble back, a selection survives `to_bytes`, and empty,
+/// out-of-range or repeated selections are refused naming `members`.
+#[cfg(test)]
+pub(crate) fn check_select_contract<E: FittedMembers + PartialEq + std::fmt::Debug>(
+    model: &E,
+    x: ArrayView2<'_, f64>,
+) {
+    use crate::parallel::{Silent, Threads};
+    let pool = Threads::Fixed(2).pool().unwrap();
+    let m = model.n_members();
+    assert!(m >= 3, "the contract needs at least 3 members");
+    let width = x.nrows() * model.outputs();
+    let predict = |e: &E| {
+        let mut out = vec![0.0; e.n_members() * width];
+        e.member_predictions_into(x, &mut out, &pool, &Silent)
+            .unwrap();
+        out
+    };
+    let whole = predict(model);
+    let pick = [m - 1, 0, 1];
+    let selected = model.select(&pick).unwrap();
+    assert_eq!(selected.n_members(), 3);
+    let rows = predict(&selected);
+    for (k, &member) in pick.iter().enumerate() {
+        assert_eq!(
+            rows[k * width..(k + 1) * width],
+            whole[member * width..(member + 1) * width]
+        );
+    }
+    let all: Vec<usize> = (0..m).collect();
+    assert_eq!(&model.select(&all).unwrap(), model);
+    assert_eq!(E::from_bytes(&selected.to_bytes()).unwrap(), selected);
+    for bad in [vec![], vec![m], vec![0, 1, 0]] {
+        let err = model.select(&bad).unwrap_err();
+        assert!(err.to_string().starts_with("`members`"), "{err}");
+    }
 }
 
 #[cfg(test)]

@@ -18,7 +18,9 @@ use ndarray::{ArrayView1, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::{check_design, check_parts, count_bags, Bag, FittedMembers, Targets, Task};
+use super::{
+    check_design, check_parts, check_selection, count_bags, Bag, FittedMembers, Targets, Task,
+};
 use crate::error::{Error, Result};
 use crate::members::MAX_CLASSES;
 use crate::numeric::Real;
@@ -479,6 +481,18 @@ impl FittedMembers for NeighborsEnsemble {
         Ok(joined)
     }
 
+    fn select(&self, members: &[usize]) -> Result<Self> {
+        check_selection(members, self.bags.len())?;
+        Ok(NeighborsEnsemble {
+            task: self.task,
+            neighbors: self.neighbors,
+            n_features: self.n_features,
+            train: self.train.clone(),
+            targets: self.targets.clone(),
+            bags: members.iter().map(|&m| self.bags[m].clone()).collect(),
+        })
+    }
+
     fn to_bytes(&self) -> Vec<u8> {
         postcard::to_allocvec(self).expect("serialising to memory cannot fail")
     }
@@ -522,6 +536,7 @@ mod tests {
         let whole = fit(0, 4, 3);
         let joined = NeighborsEnsemble::join(vec![fit(0, 1, 3), fit(1, 4, 3)]).unwrap();
         assert_eq!(joined, whole);
+        crate::learners::check_select_contract(&whole, x.view());
         let pool = Threads::Fixed(2).pool().unwrap();
         let mut a = vec![0.0; 4 * 30 * 3];
         let mut b = a.clone();

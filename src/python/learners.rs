@@ -154,6 +154,16 @@ pub(super) fn join<E: FittedMembers>(parts: Vec<E>) -> PyResult<E> {
     E::join(parts).map_err(to_py_err)
 }
 
+/// `select`: the ensemble of those members in that order (see [`FittedMembers::select`]);
+/// negative indices are refused like out-of-range ones.
+pub(super) fn select<E: FittedMembers>(model: &E, members: Vec<i64>) -> PyResult<E> {
+    let members = members
+        .into_iter()
+        .map(|m| usize::try_from(m).unwrap_or(usize::MAX))
+        .collect::<Vec<_>>();
+    model.select(&members).map_err(to_py_err)
+}
+
 /// `to_bytes`.
 pub(super) fn to_bytes<'py, E: FittedMembers>(py: Python<'py>, model: &E) -> Bound<'py, PyBytes> {
     PyBytes::new(py, &model.to_bytes())

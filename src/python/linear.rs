@@ -137,6 +137,12 @@ impl PyLinearEnsemble {
         learners::join(parts).map(|inner| Self { inner })
     }
 
+    /// The ensemble of the members `members` (indices), in that order. ValueError when
+    /// empty, out of range or repeated.
+    fn select(&self, members: Vec<i64>) -> PyResult<Self> {
+        learners::select(&self.inner, members).map(|inner| Self { inner })
+    }
+
     #[staticmethod]
     fn from_bytes(data: &[u8]) -> PyResult<Self> {
         learners::from_bytes(data).map(|inner| PyLinearEnsemble { inner })

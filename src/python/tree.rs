@@ -173,6 +173,12 @@ impl PyTreeEnsemble {
         learners::join(parts).map(|inner| Self { inner })
     }
 
+    /// The ensemble of the members `members` (indices), in that order. ValueError when
+    /// empty, out of range or repeated.
+    fn select(&self, members: Vec<i64>) -> PyResult<Self> {
+        learners::select(&self.inner, members).map(|inner| Self { inner })
+    }
+
     /// Reads `to_bytes` output; corrupt or foreign bytes raise ValueError.
     #[staticmethod]
     fn from_bytes(data: &[u8]) -> PyResult<Self> {

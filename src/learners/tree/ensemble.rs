@@ -555,6 +555,15 @@ impl FittedMembers for TreeEnsemble {
         Ok(joined)
     }
 
+    fn select(&self, members: &[usize]) -> Result<Self> {
+        crate::learners::check_selection(members, self.trees.len())?;
+        Ok(TreeEnsemble {
+            task: self.task,
+            n_features: self.n_features,
+            trees: members.iter().map(|&m| self.trees[m].clone()).collect(),
+        })
+    }
+
     fn to_bytes(&self) -> Vec<u8> {
         TreeEnsemble::to_bytes(self)
     }

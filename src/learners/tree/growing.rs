@@ -1102,6 +1102,7 @@ mod tests {
                 let joined = TreeEnsemble::join(parts).unwrap();
                 assert_eq!(joined, whole);
                 assert_eq!(members(&joined, &x), members(&whole, &x));
+                crate::learners::check_select_contract(&whole, x.view());
                 // The wrong variant: a range fitted from stream 0 grows other trees (its
                 // features are drawn from member 0's stream, not member 3's).
                 let c = counts.slice(ndarray::s![3..4, ..]);
