@@ -416,6 +416,17 @@ impl<'a, T: Real> Problem<'a, T> {
     }
 }
 
+/// [`Members::check`], with the class count of labels named as required when it is 0.
+fn check_kind<T: Real>(members: &Members<'_, T>) -> Result<()> {
+    if let Members::Labels(_, 0) = members {
+        return Err(Error::value(
+            "n_classes",
+            "is required for label members (at least 1)",
+        ));
+    }
+    members.check()
+}
+
 /// Calls `f(j)` for every set bit j of `bits`, in order.
 #[inline]
 fn each_bit(bits: &[u64], f: &mut impl FnMut(usize)) {
@@ -522,7 +533,7 @@ pub fn order_members<T: Real>(
     pool: &Pool,
     monitor: &dyn Monitor,
 ) -> Result<Vec<usize>> {
-    members.check()?;
+    check_kind(&members)?;
     let regression = matches!(members, Members::Values(_));
     method.check_task(regression)?;
     if !(target_margin.is_finite() && target_margin > 0.0 && target_margin <= 1.0) {
@@ -1112,7 +1123,7 @@ pub fn order_curves<T: Real>(
     pool: &Pool,
     monitor: &dyn Monitor,
 ) -> Result<Vec<Vec<f64>>> {
-    members.check()?;
+    check_kind(&members)?;
     let n_members = members.n_members();
     let len = orders.first().map_or(0, Vec::len);
     if len == 0 {
