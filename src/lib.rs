@@ -10,6 +10,7 @@
 //! - [`resampling`]: which rows each member sees (bootstrap, subsampling, Bayesian weights,
 //!   strata, groups, moving blocks);
 //! - [`diversity`]: how differently classifier members err (Kuncheva & Whitaker 2003);
+//! - [`ordering`]: ordered aggregation and pruning (which members are redundant);
 //! - [`uncertainty`]: infinitesimal-jackknife and jackknife standard errors via count Grams;
 //! - [`random`]: one reproducible random stream per member;
 //! - [`numeric`]: the f32/f64 input trait and mergeable (Chan-style) moments;
@@ -31,6 +32,7 @@ pub mod intervals;
 pub mod learners;
 pub mod members;
 pub mod numeric;
+pub mod ordering;
 pub mod out_of_bag;
 pub mod parallel;
 pub mod persistence;

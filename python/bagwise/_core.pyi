@@ -23,6 +23,8 @@ __all__ = [
     "majority_vote",
     "mean_prediction",
     "NeighborsEnsemble",
+    "order_curves",
+    "order_members",
     "out_of_bag_chunk",
     "OutOfBagState",
     "pack_container",
@@ -526,6 +528,33 @@ def out_of_bag_chunk(
     tuple[npt.NDArray[np.float64], npt.NDArray[np.int64], npt.NDArray[np.float64] | None],
 ]: ...
 def default_sizes(n_members: int) -> list[int]: ...
+
+# -- ordering ------------------------------------------------------------------------------
+
+def order_members(
+    members: npt.NDArray[np.floating] | npt.NDArray[np.int64],
+    y: npt.NDArray[np.float64] | npt.NDArray[np.int64],
+    counts: npt.NDArray[np.integer] | None = None,
+    points: npt.NDArray[np.bool_] | None = None,
+    *,
+    method: str,
+    n_classes: int | None = None,
+    target_margin: float = 0.075,
+    size: int | None = None,
+    n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
+) -> npt.NDArray[np.int64]: ...
+def order_curves(
+    members: npt.NDArray[np.floating] | npt.NDArray[np.int64],
+    y: npt.NDArray[np.float64] | npt.NDArray[np.int64],
+    orders: npt.NDArray[np.int64],
+    counts: npt.NDArray[np.integer] | None = None,
+    points: npt.NDArray[np.bool_] | None = None,
+    *,
+    n_classes: int | None = None,
+    n_jobs: int | None = None,
+    progress: Callable[[int, int], object] | None = None,
+) -> npt.NDArray[np.float64]: ...
 
 # -- replicates ---------------------------------------------------------------------------
 

@@ -63,6 +63,7 @@ mod learners;
 mod linear;
 mod members;
 mod neighbors;
+mod ordering;
 mod out_of_bag;
 mod persistence;
 mod replicates;
@@ -249,6 +250,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     neighbors::register(m)?;
     persistence::register(m)?;
     out_of_bag::register(m)?;
+    ordering::register(m)?;
     replicates::register(m)?;
     tree::register(m)?;
     Ok(())

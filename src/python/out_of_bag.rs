@@ -60,6 +60,7 @@ macro_rules! int_array {
         }
     };
 }
+pub(crate) use int_array;
 
 /// Per-point outputs of one chunk: prediction, OOB member counts, class probabilities.
 type ChunkArrays<'py> = (
