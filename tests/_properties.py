@@ -280,7 +280,8 @@ def floats_option(*valid) -> st.SearchStrategy:
 
 #: Result fields documented as NaN where they are not defined, with no warning of their own
 #: (their status or a later call says it): rho where the members agree exactly.
-NAN_DOCUMENTED = {"Spread.rho", "Spread.pooled_rho"}
+# MemberOrder.honest_curve: all NaN when the caller asked for none (folds=None).
+NAN_DOCUMENTED = {"Spread.rho", "Spread.pooled_rho", "MemberOrder.honest_curve"}
 
 
 def numbers(value, seen=None, depth=0, *, documented_nan=True) -> list[np.ndarray]:
@@ -565,6 +566,19 @@ def function_calls() -> list[Call]:
                            "point_weights": st.one_of(array_bad("float", 1), option(np.ones(R))),
                            "sizes": st.one_of(array_bad("int", 1), option([1, 2], [M + 1], [0])),
                            "n_jobs": n_jobs_bad()}))
+        methods = (("reduce_error", "residual_correlation") if kind == "values" else
+                   ("reduce_error", "complementarity", "margin_distance", "orientation"))
+        order_bad = {"members": mb, "y": yb, "counts": COUNTS_BAD,
+                     "method": option(*methods, "orientation", "residual_correlation", "ij"),
+                     "folds": option(None, 2, 3, 1, 0, R + 1, 2**62),
+                     "orders": option(1, 2, 10**12),
+                     "target_margin": floats_option(0.075, 1.0, 0.0, 2.0),
+                     "rng": option(1, 2**64 - 1, 2**64, np.random.default_rng(0)),
+                     "n_jobs": n_jobs_bad()}
+        calls.append(Call(f"order_members[{kind}]", _fn(bagwise.order_members, "members", "y"),
+                          _copy(members=train, y=y_train, method=None, counts=COUNTS,
+                                folds=2, orders=3, target_margin=0.075, rng=0, n_jobs=None),
+                          order_bad))
         if kind != "labels":
             calls.append(Call(
                 f"prediction_interval[{kind}]",
@@ -749,6 +763,12 @@ def _method(which, method, *positional):
     return run
 
 
+def _pruned(args):
+    """A pruned regressor's member predictions at new rows (the bag itself holds no numbers
+    the contract reads)."""
+    return fitted("regressor").prune(**args).member_predictions(X_NEW)
+
+
 def _nan_in_bag(result) -> None:
     """Out-of-bag predictions: NaN exactly where the member drew the row, finite elsewhere."""
     in_bag = fitted("regressor").in_bag_ > 0
@@ -880,6 +900,21 @@ def estimator_calls() -> list[Call]:
                           weight=0.5))
         calls.append(Call(f"{cls}.out_of_bag", _method(which, "out_of_bag"),
                           _copy(loss=None), {"loss": option(*LOSSES)}))
+    calls.append(Call("BagRegressor.prune", _pruned, _copy(n_members=2, tolerance=0.01,
+                                                          method=None, X=None, y=None),
+                      {"n_members": option(1, 4, 0.5, "smallest", 0, 5, 1.5, "all", None),
+                       "tolerance": floats_option(0.01, 0.5, 0.0, 1.0),
+                       "method": option("reduce_error", "residual_correlation", "orientation"),
+                       "X": st.one_of(X_BAD, option(X_NEW)),
+                       "y": st.one_of(targets_bad("values"), option(Y_X[:7]))}))
+    calls.append(Call("BagClassifier.order_members", _method("classifier", "order_members"),
+                      _copy(X=None, y=None, method=None, out_of_bag=None, folds=2, orders=3),
+                      {"X": st.one_of(X_BAD, option(X_NEW)),
+                       "y": st.one_of(targets_bad("labels"), option(Y_X_LABELS[:7])),
+                       "method": option("reduce_error", "margin_distance", "orientation",
+                                        "residual_correlation"),
+                       "out_of_bag": option(True, False, None), "folds": option(None, 2, 1, 0),
+                       "orders": option(1, 10**12)}))
     calls.append(Call("BagRegressor.out_of_bag_predictions",
                       _method("regressor", "out_of_bag_predictions"), _copy(X=None),
                       {"X": X_BAD}, check=_nan_in_bag))

@@ -11,6 +11,7 @@ from .decomposition import Decomposition, DecompositionStream, decompose, decomp
 from .diagnosis import Diagnosis, diagnose
 from .diversity import Diversity, DiversityStream, diversity, diversity_stream
 from .intervals import PredictionInterval, PredictionSet, prediction_interval
+from .ordering import MemberOrder, order_members
 from .out_of_bag import OutOfBag, OutOfBagStream, out_of_bag, out_of_bag_stream
 from .persistence import load, save
 from .read_ensemble import EnsembleArrays, read_ensemble
@@ -83,6 +84,8 @@ __all__ = [
     "EnsembleArrays",
     "LearnerComparison",
     "load",
+    "MemberOrder",
+    "order_members",
     "out_of_bag",
     "out_of_bag_stream",
     "OutOfBag",

@@ -224,9 +224,9 @@ def n_classes_of(n_classes, labels: np.ndarray | None, y: np.ndarray | None = No
 
     ``n_classes`` if given, else ``implied`` (the probabilities' last axis), else the largest
     label + 1; at most ``max_classes``. A given count must equal ``implied``. A label at or
-    above the count is reported against ``n_classes``, or with ``blame_labels`` (a count
-    fixed before the labels are seen, as in a stream) against the array holding it, as is
-    an inferred count above ``max_classes``.
+    above a given count is reported against ``n_classes``, or with ``blame_labels`` (a count
+    fixed before the labels are seen, as in a stream) or when the count was not given
+    against the array holding it, as is an inferred count above ``max_classes``.
     """
     tops = []
     if labels is not None:
@@ -234,6 +234,7 @@ def n_classes_of(n_classes, labels: np.ndarray | None, y: np.ndarray | None = No
     if y is not None and y.size:
         tops.append((int(y.max()), y_name))
     top, where = max(tops, key=lambda t: t[0]) if tops else (-1, labels_name)
+    given = n_classes
     if n_classes is not None:
         n_classes = positive_int(n_classes, name)
         if n_classes > max_classes:
@@ -245,14 +246,12 @@ def n_classes_of(n_classes, labels: np.ndarray | None, y: np.ndarray | None = No
         n_classes = implied
     else:
         n_classes = top + 1
-        if n_classes > max_classes:
-            if blame_labels:
-                raise ValueError(f"`{where}`: at most {max_classes} classes are supported, "
-                                 f"found label {top}")
-            raise ValueError(f"`{name}`: at most {max_classes} classes are supported, got "
-                             f"{n_classes} (the largest label + 1)")
+        if n_classes > max_classes:  # the count was inferred: the label is what to fix
+            raise ValueError(f"`{where}`: at most {max_classes} classes are supported, "
+                             f"found label {top}")
     if top >= n_classes:
-        if blame_labels:
+        # a count the user did not give (the probabilities' width) is not theirs to fix
+        if blame_labels or given is None:
             raise ValueError(f"`{where}`: class labels must be class indices 0..{n_classes - 1}; "
                              f"got {top}")
         raise ValueError(f"`{name}`: is {n_classes} but a label {top} occurs")
