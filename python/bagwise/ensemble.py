@@ -316,7 +316,7 @@ class _Bag(BaseEstimator):
     def _forget(self):
         for name in ("in_bag_", "n_features_in_", "feature_names_in_", "classes_", "members_",
                      "seed_", "_model", "_train_X", "_train_y", "count_gram_",
-                     "_counted_at_random", "_scattered"):
+                     "_counted_at_random", "_scattered", "member_indices_"):
             self.__dict__.pop(name, None)
 
     def _fit(self, X, y, groups):
@@ -963,6 +963,147 @@ class _Bag(BaseEstimator):
                          group_size=self.group_size if self.scheme == "little_bags" else 0,
                          progress=self.progress)
 
+    # -- ordering and pruning -------------------------------------------------------------
+    def order_members(self, X=None, y=None, *, method=None, out_of_bag=None, folds=2,
+                      orders=10, target_margin=None):
+        """Order the members so that the first ``k`` make a good subensemble
+        (`bagwise.order_members`).
+
+        Without ``X`` the order is chosen on the bag's own out-of-bag predictions of its
+        training rows (no extra data); with ``X`` and ``y`` on the members' predictions at
+        those rows, meant as a validation set the members never trained on.
+
+        Parameters
+        ----------
+        X, y : array-like, optional
+            Validation rows and targets (labels as in ``classes_``); or, with
+            ``out_of_bag=True``, the training rows and targets (needed after `bagwise.load`).
+        method : str, optional
+            As in `bagwise.order_members` (default ``"reduce_error"``).
+        out_of_bag : bool, optional
+            Choose on out-of-bag predictions of the training rows; default: when ``X`` is
+            not given.
+        folds, orders, target_margin
+            As in `bagwise.order_members`; the folds and random orders are drawn from
+            ``seed_``.
+
+        Returns
+        -------
+        MemberOrder
+        """
+        from .ordering import TARGET_MARGIN, order_members
+
+        check_is_fitted(self)
+        if out_of_bag is None:
+            out_of_bag = X is None
+        if out_of_bag:
+            counts = self._integer_counts("ordering on out-of-bag predictions")
+            members = self.out_of_bag_predictions(X)
+            if y is None and "_train_y" not in self.__dict__:
+                raise ValueError("`y`: give the training targets (a loaded ensemble does not "
+                                 "keep them)")
+            target = self._train_y if y is None else self._targets(y, counts.shape[1])
+        else:
+            if X is None:
+                raise ValueError("`X`: give the validation rows, or out_of_bag=True")
+            counts = None
+            members = self.member_predictions(X)
+            target = self._targets(y, members.shape[1])
+        return order_members(members, target, method=method, counts=counts, folds=folds,
+                             orders=orders,
+                             target_margin=TARGET_MARGIN if target_margin is None else target_margin,
+                             rng=self.seed_, n_jobs=self.n_jobs, progress=self.progress)
+
+    def prune(self, n_members, *, tolerance=0.01, method=None, X=None, y=None, order=None):
+        """A smaller fitted bag: the first members of an order (ordered aggregation).
+
+        Parameters
+        ----------
+        n_members : int, float or "smallest"
+            Members to keep: a count, a share of the members in (0, 1) (rounded, at least
+            one), or ``"smallest"``: the smallest size whose loss on the order's
+            ``honest_curve`` comes within ``tolerance`` of the full ensemble's
+            (`MemberOrder.members_within`).
+        tolerance : float
+            Relative tolerance of ``"smallest"`` (default 1%).
+        method : str, optional
+            Ordering method (`bagwise.order_members`); default ``"reduce_error"``.
+        X, y : array-like, optional
+            A validation set to choose the order on; default: the bag's own out-of-bag
+            predictions of its training rows (after `bagwise.load`, pass ``order``).
+        order : MemberOrder, optional
+            An order computed before (e.g. by `order_members`); then ``method``, ``X`` and
+            ``y`` are not used.
+
+        Returns
+        -------
+        BagRegressor or BagClassifier
+            A new fitted bag of the same class holding the kept members in their original
+            order, with their rows of ``in_bag_``, the same seed, classes and training rows;
+            ``member_indices_`` gives their positions in this bag (composed over repeated
+            prunes, so they always index the bag first fitted). It predicts, saves, loads,
+            pickles and diagnoses like any bag; its ``n_members`` is the kept count and its
+            ``random_member_count`` is False (a pruned size is chosen, not random, so the
+            jackknife+-after-bootstrap's randomised-size guarantee no longer applies).
+        """
+        from .ordering import MemberOrder
+
+        check_is_fitted(self)
+        total = self.in_bag_.shape[0]
+        if order is None:
+            order = self.order_members(X, y, method=method)
+        elif not isinstance(order, MemberOrder):
+            raise TypeError(f"`order`: expected a MemberOrder, got {type(order).__name__}")
+        elif order.n_members != total:
+            raise ValueError(f"`order`: orders {order.n_members} members but this bag has {total}")
+        keep = self._kept_count(n_members, tolerance, order, total)
+        kept = np.sort(order.order[:keep])
+        return self._subset(kept)
+
+    @staticmethod
+    def _kept_count(n_members, tolerance, order, total) -> int:
+        if isinstance(n_members, str):
+            if n_members != "smallest":
+                raise ValueError(f"`n_members`: expected a count, a share in (0, 1) or "
+                                 f"'smallest', got {n_members!r}")
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                keep = order.members_within(tolerance, "honest")
+            if isinstance(keep, float):
+                raise ValueError("`order`: has no honest curve (folds=None), so 'smallest' "
+                                 "cannot be chosen; give a count or order with folds")
+            return keep
+        if isinstance(n_members, bool) or not isinstance(n_members, numbers.Real):
+            raise TypeError(f"`n_members`: expected a count, a share in (0, 1) or 'smallest', "
+                            f"got {type(n_members).__name__}")
+        if isinstance(n_members, numbers.Integral):
+            keep = int(n_members)
+            if not 1 <= keep <= total:
+                raise ValueError(f"`n_members`: must lie in 1..{total}, got {keep}")
+            return keep
+        share = float(n_members)
+        if not 0 < share < 1:
+            raise ValueError(f"`n_members`: a share must lie in (0, 1), got {share!r}")
+        return max(1, round(share * total))
+
+    def _subset(self, kept: np.ndarray):
+        """A new fitted bag of the members ``kept`` (sorted positions in this bag)."""
+        pruned = clone(self)
+        pruned.set_params(n_members=len(kept), random_member_count=False)
+        for name in ("n_features_in_", "feature_names_in_", "classes_", "seed_", "_train_X",
+                     "_train_y"):
+            if name in self.__dict__:
+                pruned.__dict__[name] = self.__dict__[name]
+        pruned.in_bag_ = np.ascontiguousarray(self.in_bag_[kept])
+        if self._native:
+            pruned._model = self._model.select(kept.tolist())
+        else:
+            pruned.members_ = [self.members_[i] for i in kept]
+        before = self.__dict__.get("member_indices_")
+        pruned.member_indices_ = (kept if before is None else before[kept]).astype(np.int64)
+        pruned._counted_at_random = False
+        return pruned
+
     def save(self, path) -> None:
         """Write a fitted native ensemble to ``path`` (see `bagwise.save`)."""
         persistence.save(self, path)
@@ -1066,6 +1207,9 @@ _ATTRIBUTES_DOC = """
     seed_ : int
         The integer seed the members were drawn with (also when ``random_state`` is
         None or a ``RandomState``).
+    member_indices_ : ndarray of int64
+        Only on a bag returned by `prune`: the positions of its members in the bag first
+        fitted.
 
     Notes
     -----

@@ -121,6 +121,8 @@ def save(estimator, path) -> None:
                     if hasattr(estimator, "classes_") else None),
         "in_bag": _array_to_json(estimator.in_bag_),
     }
+    if "member_indices_" in estimator.__dict__:  # a pruned bag: its members' first positions
+        metadata["member_indices"] = estimator.member_indices_.tolist()
     data = _core.pack_container(_learners.learner_of_model(model).tag, json.dumps(metadata),
                                 model.to_bytes())
     with _opened(path, "wb") as handle:
@@ -195,6 +197,11 @@ def load(path):
                 raise ValueError("the classes are not a list of labels")
         n_features = int(meta["n_features_in"])
         seed = params["random_state"]
+        indices = meta.get("member_indices")
+        if indices is not None:
+            indices = np.asarray(indices, dtype=np.int64)
+            if indices.shape != (in_bag.shape[0],) or (indices.size and indices.min() < 0):
+                raise ValueError("the member indices do not match the members")
         names = meta["feature_names_in"]
         if names is not None:
             names = np.asarray(names, dtype=object)
@@ -217,6 +224,8 @@ def load(path):
     estimator.in_bag_ = in_bag
     estimator.n_features_in_ = n_features
     estimator.seed_ = seed
+    if indices is not None:
+        estimator.member_indices_ = indices
     if names is not None:
         estimator.feature_names_in_ = names
     if classes is not None:
