@@ -18,7 +18,9 @@ The functions without the prefix compute the numbers a figure shows.
 - `plot_correlation_matrix`: the members x members residual correlation, ordered;
 - `plot_reliability`, `plot_margins`: vote fractions and vote margins of a classifier;
 - `plot_kappa_error`: the kappa-error diagram of the pairs of classifier members;
-- `plot_learner_comparison`: does bagging help each learner, ratios with their intervals.
+- `plot_learner_comparison`: does bagging help each learner, ratios with their intervals;
+- `plot_member_order`: which members are redundant, the loss of the first k members in a
+  chosen order against a random order.
 """
 
 from .classification import margins, plot_margins, plot_reliability, reliability
@@ -27,6 +29,7 @@ from .correlation import member_order, plot_correlation_matrix
 from .decomposition import plot_ambiguity_by_point, plot_decomposition
 from .diversity import kappa_error_points, plot_kappa_error
 from .intervals import plot_prediction_coverage, prediction_coverage
+from .ordering import plot_member_order
 from .size_curve import plot_size_curve
 from .uncertainty import (
     binned_std_errors,
@@ -48,6 +51,7 @@ __all__ = [
     "plot_learner_comparison",
     "plot_kappa_error",
     "plot_margins",
+    "plot_member_order",
     "plot_prediction_coverage",
     "plot_reliability",
     "plot_rho",

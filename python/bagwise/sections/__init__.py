@@ -13,6 +13,7 @@ from . import (
     decomposition,
     diversity,
     intervals,
+    ordering,
     out_of_bag,
     reference,
     size_curve,
@@ -35,4 +36,5 @@ SECTIONS: list[Section] = [
     intervals.section,
     spread.section,
     diversity.section,
+    ordering.section,
 ]
