@@ -20,10 +20,10 @@ def test_demo_prints_plain_findings_within_100_columns():
     assert max(len(line) for line in out.splitlines()) <= 100
     # every section ends in plain words; --members applies to every section
     sections = out.split("\n\n")
-    numbered = [part for part in sections if part[:2] in ("1.", "2.", "3.")]
-    assert len(numbered) >= 3
-    assert out.count("In plain words:") == 3
-    assert out.count("60 members") >= 3 and "100 members" not in out
+    numbered = [part for part in sections if part[:2] in ("1.", "2.", "3.", "4.")]
+    assert len(numbered) >= 4
+    assert out.count("In plain words:") == 4
+    assert out.count("60 members") >= 4 and "100 members" not in out
     # no self-checks shown to users, and no "± 0"
     assert "yes" not in out.split() and ": NO" not in out and "± 0 " not in out
 
@@ -89,6 +89,24 @@ def test_demo_diversity_section_reads_right():
     assert "most alike pairs" in out
     # common practice: fully grown trees disagree more than stumps of depth 2
     assert float(deep[2]) > float(shallow[2])
+
+
+def test_demo_redundancy_section_reads_right():
+    out = subprocess.run([sys.executable, "-m", "bagwise", "demo", "--members", "60"],
+                         cwd=ROOT, capture_output=True, text=True, check=True).stdout
+    assert "4. Redundant members" in out
+    for target, order in (("yield_kg", "reduce-error"), ("premium_grade", "reduce-error"),
+                          ("premium_grade", "complementarity")):
+        lines = out.split("4. Redundant members", 1)[1].splitlines()
+        cells = next(line.split()[2:] for line in lines if line.split()[:2] == [target, order])
+        full, smallest_k, smallest, fifth_k, fifth = cells[:5]
+        within, random = int(cells[5]), int(cells[6])
+        # the pruned sizes: "smallest" at most all members; 20% of 60 is 12
+        assert 1 <= int(smallest_k) <= 60 and int(fifth_k) == 12
+        assert 1 <= within <= 60 and 1 <= random <= 60
+        # losses are shares or squared errors, printed as numbers (never "nan")
+        assert all(float(v) >= 0 for v in (full, smallest, fifth))
+    assert "yield_kg: the first" in out
 
 
 def test_demo_reports_a_missing_file():

@@ -208,6 +208,65 @@ def diversity_section(data: dict[str, np.ndarray], members: int, seed: int) -> s
     return "\n".join(lines)
 
 
+def redundancy_section(data: dict[str, np.ndarray], members: int, seed: int) -> str:
+    """Order the members of bagged trees on their out-of-bag predictions, prune them, and
+    print what the smaller bags lose on the test vines."""
+    import warnings
+
+    from .ensemble import BagClassifier
+
+    X, _ = feature_matrix(data)
+    order = np.random.default_rng(seed).permutation(len(X))
+    train, test = order[: len(X) // 2], order[len(X) // 2:]
+    lines = [f"4. Redundant members: ordered on their out-of-bag predictions, pruned, "
+             f"{members} members (seed {seed})"]
+    rows, readings = [], []
+    tasks = (("yield_kg", BagRegressor, np.float64, "reduce_error"),
+             ("premium_grade", BagClassifier, np.int64, "reduce_error"),
+             ("premium_grade", BagClassifier, np.int64, "complementarity"))
+    for target, cls, dtype, method in tasks:
+        y = data[target].astype(dtype)
+        bag = cls("tree", n_members=members, random_state=seed).fit(X[train], y[train])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")   # a few rows out of bag of no member early on
+            chosen = bag.order_members(method=method)
+        full_test = bag.member_predictions(X[test])
+        held_out = chosen.evaluate(full_test, bag._targets(y[test], len(test)))
+        smallest = bag.prune("smallest", order=chosen)
+        fifth = bag.prune(0.2, order=chosen)
+
+        def test_loss(model, y_test=y[test], values=cls is BagRegressor):
+            predicted = model.predict(X[test])
+            if values:
+                return f"{np.mean((predicted - y_test) ** 2):.4f}"
+            return f"{np.mean(predicted != y_test):.4f}"
+
+        start = time.perf_counter()
+        bag.predict(X[test])
+        full_seconds = time.perf_counter() - start
+        start = time.perf_counter()
+        fifth.predict(X[test])
+        fifth_seconds = time.perf_counter() - start
+        rows.append([target, method.replace("_", "-"), test_loss(bag),
+                     f"{smallest.n_members}", test_loss(smallest), f"{fifth.n_members}",
+                     test_loss(fifth), f"{held_out.members_within(0.01)}",
+                     f"{held_out.members_within(0.01, 'random')}",
+                     f"{full_seconds / max(fifth_seconds, 1e-9):.1f}x"])
+        if method == "reduce_error":
+            readings.append(f"{target}: {held_out._reading()} (on the test vines)")
+    lines.append(_table(["target", "order", "all", "k", "smallest", "k", "20%",
+                         "within 1%", "random", "20% speed"], rows))
+    lines += _notes(
+        "test loss (squared error in kg^2, or error rate) of all members, of the smallest bag "
+        "within 1% of the full one on the cross-fitted out-of-bag curve (k members), and of "
+        "the best 20%; within 1%: members in the chosen order (and in a random order) whose "
+        "test loss comes within 1% of all members'; 20% speed: prediction time of all "
+        "members over the pruned bag's. Orders: reduce-error (Margineantu & Dietterich 1997), "
+        "complementarity (Martinez-Munoz & Suarez 2004).")
+    lines += _reading(*readings)
+    return "\n".join(lines)
+
+
 def run(path: str | None = None, *, members: int = 100, seed: int = 0, out: TextIO) -> None:
     """Print the demo report for the data at ``path`` (default: the copy shipped in the
     package), every section with ``members`` members."""
@@ -221,5 +280,6 @@ def run(path: str | None = None, *, members: int = 100, seed: int = 0, out: Text
     print(resampling_section(data, members, seed), file=out)
     print("\n" + bagging_section(data, members, seed), file=out)
     print("\n" + diversity_section(data, members, seed), file=out)
+    print("\n" + redundancy_section(data, members, seed), file=out)
     print("\nDiagnostics describe these data and learners, not a guarantee for deployment.",
           file=out)
