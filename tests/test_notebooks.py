@@ -291,3 +291,19 @@ def test_06_cluster_gives_the_one_machine_answers(tmp_path_factory):
     assert "warnings: 2, the same text: True" in text
     from_file, in_memory = _numbers(text, r"ambiguity from the file ([\d.]+), in memory ([\d.]+)")
     assert from_file == in_memory
+
+
+def test_07_pruned_bags_keep_the_chosen_sizes(tmp_path_factory):
+    nb = _run("07_which_members_are_redundant.ipynb", tmp_path_factory)
+    text = _texts(nb)
+    sizes = dict(re.findall(r"^\s*(all|smallest|20%): +(\d+) members", text, re.M))
+    assert int(sizes["all"]) == 100 and int(sizes["20%"]) == 20  # 20% of 100 members
+    dropped = re.search(r"members dropped by 'smallest': \[([\d, ]*)\]", text).group(1)
+    dropped = [int(d) for d in dropped.split(",") if d.strip()]
+    # the pruned bag is the full one without the dropped members, each dropped once
+    assert len(set(dropped)) == len(dropped) == 100 - int(sizes["smallest"])
+    assert all(0 <= d < 100 for d in dropped)
+    for method in ("reduce_error", "complementarity"):
+        k, random_k = _numbers(text, rf"{method}: .*? with (\d+) members \(random order: (\d+)\)")
+        assert 1 <= k <= 100 and 1 <= random_k <= 100
+    assert _images(nb) == 1

@@ -43,6 +43,10 @@ _LAZY = {"BagClassifier": "ensemble", "BagRegressor": "ensemble"}
 
 
 def __getattr__(name: str):
+    if name == "plots":  # `bagwise.plots.plot_...` without importing matplotlib up front
+        import importlib
+
+        return importlib.import_module(".plots", __name__)
     if name in _LAZY:
         import importlib
 
