@@ -59,7 +59,7 @@ def test_core_errors_name_the_argument():
 BAD = [
     (bagwise.aggregate, (_with(L, (1, 1), 7),), {"n_classes": 3}, "n_classes", ValueError),
     (bagwise.aggregate, (L,), {"n_classes": 0}, "n_classes", ValueError),
-    (bagwise.aggregate, (_with(L, (0, 0), 10**7),), {}, "n_classes", ValueError),
+    (bagwise.aggregate, (_with(L, (0, 0), 10**7),), {}, "members", ValueError),
     (bagwise.aggregate, (P,), {"n_classes": 5}, "n_classes", ValueError),
     (bagwise.aggregate, (_with(T, (0, 0), np.nan),), {}, "members", ValueError),
     (bagwise.aggregate, ([["a", "b"]],), {}, "members", TypeError),

@@ -127,7 +127,12 @@ def test_diagnose_gathers_no_chunk(monkeypatch):
     """What comes back to the client is states and per-point results, never a chunk of the
     members: turning a dask array into numpy on the client fails, and no single compute
     returns as much as one chunk of members (40 × 200 × 8 = 64,000 bytes) plus the
-    per-point results of all 400 points (a handful of float64 arrays)."""
+    per-point results of all 400 points (a handful of float64 arrays). The member order is
+    the one section that gathers members: a seeded sample of at most ``MAX_POINTS`` points,
+    100 here."""
+    from bagwise.sections import ordering
+
+    monkeypatch.setattr(ordering, "MAX_POINTS", 100)
     test, y, counts, train, y_train = _arrays()
     lazy_test = _lazy(test, 200)
     returned = record_client_results(monkeypatch)

@@ -245,3 +245,24 @@ def test_diagnose_reports_the_redundant_members():
     # without them: chosen and cross-fitted on the diagnosed points
     assert not alone.ordering.held_out and alone.ordering.folds == 2
     assert "cross-fitted over 2 folds" in " ".join(alone.readings())
+
+
+def test_diagnose_orders_a_seeded_sample_of_many_points(monkeypatch):
+    from bagwise.sections import ordering
+
+    monkeypatch.setattr(ordering, "MAX_POINTS", 120)
+    members, y = _regression(n_points=300)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        first, again = bagwise.diagnose(members, y, rng=7), bagwise.diagnose(members, y, rng=7)
+        other = bagwise.diagnose(members, y, rng=8)
+    section = first.ordering
+    assert section.n_points == 120
+    np.testing.assert_array_equal(section.curve, again.ordering.curve)  # the seed fixes it
+    assert not np.array_equal(section.curve, other.ordering.curve)
+    # the sample: 120 distinct points drawn from the diagnosis seed's own stream, in order
+    points = np.sort(np.random.default_rng([7, 15]).choice(300, 120, replace=False))
+    direct = bagwise.order_members(members[:, points], y[points], rng=7)
+    np.testing.assert_array_equal(section.order, direct.order)
+    np.testing.assert_array_equal(section.honest_curve, direct.honest_curve)
+    assert "(a sample of 120 of the 300 points)" in " ".join(first.readings())

@@ -108,10 +108,11 @@ def test_report_embeds_every_figure_and_fetches_nothing(diagnosis, page):
     parsed = Page(page)
     images = parsed.images()
     # decomposition (2), size curve (1), correlation heatmap (1), prediction-interval
-    # coverage (1), between/within (2, only where its between part is estimable); the
-    # standard errors have no figure without refitted ensembles to check them against
+    # coverage (1), member order (1), between/within (2, only where its between part is
+    # estimable); the standard errors have no figure without refitted ensembles to check
+    # them against
     between = 2 if diagnosis.spread.pooled_status != "not estimable" else 0
-    assert len(images) == 5 + between
+    assert len(images) == 6 + between
     for src in images:
         assert src.startswith("data:image/png;base64,")
         assert base64.b64decode(src.split(",", 1)[1]).startswith(PNG_SIGNATURE)
@@ -146,9 +147,10 @@ def test_heatmap_left_out_beyond_300_members():
     test, y_test, counts, _, _ = ensemble(members=301, n_test=60)
     report = bagwise.diagnose(test, y_test, counts=counts)
     images = Page(report.to_html()).images()
-    # decomposition (2), size curve (1), between/within (2 where estimable): no heatmap
+    # decomposition (2), size curve (1), member order (1), between/within (2 where
+    # estimable): no heatmap
     between = 2 if report.spread.pooled_status != "not estimable" else 0
-    assert len(images) == 3 + between
+    assert len(images) == 4 + between
 
 
 def test_label_report_has_the_figures_that_apply():
@@ -157,9 +159,9 @@ def test_label_report_has_the_figures_that_apply():
     members = np.where(rng.random((25, 300)) < 0.6, y, rng.integers(0, 3, size=(25, 300)))
     report = bagwise.diagnose(members, y)
     parsed = Page(report.to_html())
-    # decomposition bars (no ambiguity identity for error rates), the size curve and the
-    # kappa-error diagram of the member pairs
-    assert len(parsed.images()) == 3
+    # decomposition bars (no ambiguity identity for error rates), the size curve, the
+    # kappa-error diagram of the member pairs and the member order
+    assert len(parsed.images()) == 4
     assert "kappa-error diagram" in parsed.words
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
 
@@ -217,6 +219,7 @@ def _results():
                 (y_train > np.median(y_train)).astype(int), level=0.8),
             "EnsembleArrays": _read_forest(),
             "Verdict": _linear_bag().verdict(),
+            "MemberOrder": bagwise.order_members(test, y_test, orders=3),
             "LearnerComparison": bagwise.compare_learners(
                 *_linear_rows(), ["linear", "tree"], n_members=10, random_state=0),
         }
@@ -302,9 +305,9 @@ def test_probability_report_draws_the_figures_that_apply():
     parsed = Page(report.to_html())
     assert report.decomposition.loss == "brier_score"
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words
-    # decomposition (2), size curve (1), heatmap (1), kappa-error diagram (1); between/within
-    # has no figure for class probabilities (one split per class)
-    assert len(parsed.images()) == 5
+    # decomposition (2), size curve (1), heatmap (1), kappa-error diagram (1), member order
+    # (1); between/within has no figure for class probabilities (one split per class)
+    assert len(parsed.images()) == 6
 
 
 def test_report_of_a_fitted_bag_has_every_figure():
@@ -316,7 +319,7 @@ def test_report_of_a_fitted_bag_has_every_figure():
     parsed = Page(report.to_html())
     # as `diagnose` on the same arrays: decomposition (2), size curve (1),
     # prediction-interval coverage (1, from the bag's out-of-bag training predictions),
-    # between/within (2 where estimable); no heatmap for 400 members (more than 300)
+    # member order (1), between/within (2 where estimable); no heatmap for 400 members
     between = 2 if report.spread.pooled_status != "not estimable" else 0
-    assert len(parsed.images()) == 4 + between
+    assert len(parsed.images()) == 5 + between
     assert f"{report.decomposition.ensemble_loss:.6g}" in parsed.words

@@ -229,8 +229,9 @@ def diagnose(members, y, *, counts=None, reference=None, train_members=None, y_t
     ...                           counts=bag.in_bag_)
     >>> report.decomposition.ensemble_loss < report.decomposition.member_loss
     True
-    >>> sorted(report.summary())
-    ['correlation', 'decomposition', 'ensemble', 'intervals', 'size_curve', 'spread', 'uncertainty']
+    >>> sorted(report.summary())  # doctest: +NORMALIZE_WHITESPACE
+    ['correlation', 'decomposition', 'ensemble', 'intervals', 'ordering', 'size_curve',
+     'spread', 'uncertainty']
     """
     if isinstance(members, EnsembleArrays):
         return _diagnose_read(members, y, counts=counts, reference=reference,

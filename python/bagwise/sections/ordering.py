@@ -7,6 +7,36 @@ import numpy as np
 
 from ._base import TOLERANCE, Figure, Section, is_nan, quiet
 
+#: Points an order of the diagnosis reads at most: each greedy step reads every point, and
+#: a sample this size already tells a good order from a random one.
+MAX_POINTS = 10_000
+
+
+def _sample(n_points: int, seed) -> np.ndarray | None:
+    """Sorted point indices of a seeded sample of `MAX_POINTS`, or None for all points."""
+    if n_points <= MAX_POINTS:
+        return None
+    generator = np.random.default_rng([int(seed), 15])  # its own stream of the diagnosis seed
+    return np.sort(generator.choice(n_points, MAX_POINTS, replace=False))
+
+
+def _columns(value, points: np.ndarray | None):
+    """``value``'s points (axis 1 of members and counts, axis 0 of targets) at ``points``,
+    in memory: a lazy array gathers only those."""
+    from .. import _chunked
+
+    axis = 0 if value.ndim == 1 else 1
+    if _chunked.is_lazy(value):
+        import dask
+
+        value = _chunked.as_dask(value, "members", axis)
+        if points is not None:
+            value = value[(slice(None),) * axis + (points,)]
+        return np.asarray(dask.compute(value)[0])
+    if points is None:
+        return value
+    return np.take(value, points, axis=axis)
+
 
 class OrderingSection(Section):
     key = "ordering"
@@ -14,28 +44,31 @@ class OrderingSection(Section):
     result_type = "MemberOrder"
     doc = ("`order_members` (reduce-error): chosen on the out-of-bag predictions of the "
            "training rows and measured on the diagnosed points when both are given, else "
-           "chosen and cross-fitted on the diagnosed points; None for lazy inputs.")
+           f"chosen and cross-fitted on the diagnosed points; on at most {MAX_POINTS:,} of "
+           "them (a seeded sample, the same in memory and on a cluster).")
 
     def compute(self, inputs, done):
-        from .. import _chunked
         from .._validation import renamed_arguments
         from ..ordering import order_members
 
-        if _chunked.any_lazy(inputs.members, inputs.train_members):
-            return None  # an order reads every point at every step: not on a cluster
         if inputs.counts is not None and inputs.train_members is not None:
+            rows = _sample(inputs.train_members.shape[1], inputs.seed)
             try:
-                chosen = order_members(inputs.train_members, inputs.y_train,
-                                       counts=inputs.counts, folds=None, rng=inputs.seed,
-                                       n_jobs=inputs.n_jobs)
+                chosen = order_members(_columns(inputs.train_members, rows),
+                                       _columns(inputs.y_train, rows),
+                                       counts=_columns(inputs.counts, rows), folds=None,
+                                       rng=inputs.seed, n_jobs=inputs.n_jobs)
             except (ValueError, TypeError) as error:
                 raise renamed_arguments(error, {"members": "train_members",
                                                 "y": "y_train"}) from None
-            return chosen.evaluate(inputs.members, inputs.y, n_jobs=inputs.n_jobs)
+            points = _sample(inputs.members.shape[1], inputs.seed)
+            return chosen.evaluate(_columns(inputs.members, points), _columns(inputs.y, points),
+                                   n_jobs=inputs.n_jobs)
         training = (inputs.counts is not None and inputs.members_are_training is not False
                     and inputs.counts.shape[1] == inputs.members.shape[1])
-        return order_members(inputs.members, inputs.y,
-                             counts=inputs.counts if training else None,
+        points = _sample(inputs.members.shape[1], inputs.seed)
+        return order_members(_columns(inputs.members, points), _columns(inputs.y, points),
+                             counts=_columns(inputs.counts, points) if training else None,
                              rng=inputs.seed, n_jobs=inputs.n_jobs)
 
     def summary(self, result, diagnosis):
@@ -53,9 +86,11 @@ class OrderingSection(Section):
         else:
             how = (f"in the order chosen by reduce-error, cross-fitted over {result.folds} "
                    "folds of these points (each fold measured with the order the others chose)")
+        sample = (f" (a sample of {result.n_points:,} of the {diagnosis.n_points:,} points)"
+                  if result.n_points < diagnosis.n_points else "")
         out = [f"{honest} of {result.n_members} members come within {TOLERANCE:.0%} of the full "
-               f"ensemble's {loss} ({result.ensemble_loss:.4g}) {how}; in a random order "
-               f"{random} do"]
+               f"ensemble's {loss} ({result.ensemble_loss:.4g}) {how}{sample}; in a random "
+               f"order {random} do"]
         best = int(result.sizes[int(np.nanargmin(result.honest_curve))])
         lowest = float(result.honest_curve[best - 1])
         if lowest < result.ensemble_loss * (1 - TOLERANCE):
