@@ -64,14 +64,16 @@ def _contributions(members, kind, read, n_classes):
     return one_hot
 
 
-def _vote(totals):
+def _vote(totals, class_ties="lowest"):
     """Class of the aggregated vote: argmax, lowest class index among ties (np.argmax
     returns the first maximum; the tie rule of `members::vote`, documented in
-    src/ordering.rs)."""
+    src/ordering.rs); ``class_ties="highest"`` is a wrong variant."""
+    if class_ties == "highest":
+        return totals.shape[-1] - 1 - np.argmax(totals[..., ::-1], axis=-1)
     return np.argmax(totals, axis=-1)
 
 
-def _subensemble(members, kind, read, subset, n_classes):
+def _subensemble(members, kind, read, subset, n_classes, class_ties="lowest"):
     """(prediction, covered) of the members ``subset`` (a list, summed in its order): the
     mean value, or the vote of the summed probabilities / label counts, at each point over
     the members of ``subset`` that predict there; ``covered`` is k_i >= 1."""
@@ -89,7 +91,7 @@ def _subensemble(members, kind, read, subset, n_classes):
     for m in subset:
         totals = totals + contrib[m]
         k += read[m]
-    return _vote(totals), k > 0
+    return _vote(totals, class_ties), k > 0
 
 
 def _member_right(members, kind, y, read):
@@ -104,7 +106,7 @@ def _member_right(members, kind, y, read):
 
 def _signatures(members, kind, y, read):
     """(M, n) int: c_mi = +1 right, -1 wrong, 0 not predicting (Martínez-Muñoz & Suárez 2006,
-    §3: c_ti = 2 I(h_t(x_i) = y_i) - 1; the 0 for points a member does not predict is the
+    from memory: c_ti = 2 I(h_t(x_i) = y_i) - 1; the 0 for points a member does not predict is the
     out-of-bag rule of src/ordering.rs)."""
     right = _member_right(members, kind, y, read)
     return np.where(read, np.where(right, 1, -1), 0).astype(np.int64)
@@ -118,10 +120,10 @@ def _signed_square(x):
 # -- the methods -----------------------------------------------------------------------------
 
 def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest",
-                 fill_uncovered=True):
+                 fill_uncovered=True, class_ties="lowest"):
     """Reduce-error ordering: greedy forward selection, each step adding the member whose
     addition gives the subensemble of lowest loss on the points read (Margineantu &
-    Dietterich 1997, "Pruning adaptive boosting", ICML, §3 reduce-error pruning, here
+    Dietterich 1997, "Pruning adaptive boosting", ICML, reduce-error pruning (section from memory), here
     without its backfitting step, as src/ordering.rs states).
 
     Loss (src/ordering.rs "Loss of a subensemble", "greedy total"): regression the total
@@ -129,7 +131,8 @@ def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest"
     (mean probability, or vote fractions, argmax lowest class) is not y. Out of bag, a point
     no member of the subensemble predicts counts as an error, or as (y_i - ȳ)² with ȳ the
     mean target over the points read. ``fill_uncovered=False`` is a wrong variant: the mean
-    loss over the covered points only (the out-of-bag error of the subensemble).
+    loss over the covered points only (the out-of-bag error of the subensemble);
+    ``class_ties="highest"`` another: vote ties to the highest class.
     """
     y = np.asarray(y)
     read = _read(members, counts)
@@ -140,7 +143,8 @@ def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest"
         candidates = [c for c in range(n_members) if c not in chosen]
         scores = []
         for c in candidates:
-            prediction, covered = _subensemble(members, kind, read, chosen + [c], n_classes)
+            prediction, covered = _subensemble(members, kind, read, chosen + [c], n_classes,
+                                               class_ties)
             if kind == "values":
                 with np.errstate(invalid="ignore"):
                     per_point = np.where(covered, (prediction - y) ** 2, (y - y_bar) ** 2)
@@ -158,7 +162,7 @@ def complementarity(members, kind, y, counts=None, n_classes=None, *, ties="lowe
                     uncovered_wrong=True):
     """Complementarity ordering (Martínez-Muñoz & Suárez 2004, "Aggregation ordering in
     bagging", the complementarity measure; Martínez-Muñoz, Hernández-Lobato & Suárez 2009,
-    TPAMI 31(2), §3): greedy; step u adds the member maximising the number of points where it
+    TPAMI 31(2); from memory): greedy; step u adds the member maximising the number of points where it
     is right and the subensemble of the members chosen so far is wrong,
     Σ_i I(h_m(x_i) = y_i and H_S(x_i) ≠ y_i).
 
@@ -185,7 +189,7 @@ def complementarity(members, kind, y, counts=None, n_classes=None, *, ties="lowe
 def margin_distance(members, kind, y, counts=None, n_classes=None, *, target_margin,
                     ties="lowest", divide_by_size=True):
     """Margin distance minimisation (Martínez-Muñoz, Hernández-Lobato & Suárez 2009, IEEE
-    TPAMI 31(2), §3 "margin distance minimization"): with the reference point
+    TPAMI 31(2), "margin distance minimization"; from memory): with the reference point
     o = p (1, ..., 1), step u adds the member m minimising
     d(o, (1/u) (c_m + Σ_{j∈S} c_j)), c the signatures (+1 right, -1 wrong; 0 where a member
     does not predict, the out-of-bag rule of src/ordering.rs). The squared Euclidean
@@ -215,7 +219,7 @@ def margin_distance(members, kind, y, counts=None, n_classes=None, *, target_mar
 def orientation(members, kind, y, counts=None, n_classes=None, *, ties="lowest",
                 increasing_angle=True):
     """Orientation ordering (Martínez-Muñoz & Suárez 2006, "Pruning in ordered bagging
-    ensembles", ICML, §3): o is the projection of the diagonal (1, ..., 1) on the hyperplane
+    ensembles", ICML; from memory): o is the projection of the diagonal (1, ..., 1) on the hyperplane
     orthogonal to the ensemble signature c_ens = Σ_m c_m, o = 1 - (⟨1, c_ens⟩ / ‖c_ens‖²)
     c_ens; the members are sorted by increasing angle between c_m and o, i.e. decreasing
     cos = ⟨c_m, o⟩ / (‖c_m‖ ‖o‖).

@@ -84,7 +84,8 @@ def _case(kind, seed):
 
 def _inputs(kind, seed, out_of_bag):
     """(members, y, counts or None, n_classes) as given to the library and the reference;
-    out of bag, the entries no member predicts are poisoned (NaN, or the true class)."""
+    out of bag, every in-bag entry (one its member does not predict) is poisoned: NaN, or
+    for labels the true class."""
     members, y, counts, n_classes, _ = _case(kind, seed)
     if not out_of_bag:
         return members, y, None, n_classes
@@ -98,7 +99,7 @@ def _inputs(kind, seed, out_of_bag):
 
 @functools.cache
 def _library(kind, method, seed, out_of_bag):
-    members, y, counts, n_classes, = _inputs(kind, seed, out_of_bag)
+    members, y, counts, n_classes = _inputs(kind, seed, out_of_bag)
     with warnings.catch_warnings():
         # out of bag the first members may predict nowhere: curves NaN there, one warning
         warnings.simplefilter("ignore", bagwise.BagwiseWarning)
@@ -244,8 +245,8 @@ def test_reduce_error_out_of_bag_duplicate_of_a_chosen_member_minimal():
 
 
 def test_the_cases_cover_the_edges():
-    # the inputs the brief of these tests asks for: 1 member, 1 point, ties by construction,
-    # members predicting nowhere out of bag; checked, not assumed
+    # the edges the comparisons rely on, checked rather than assumed: 1 member, 1 point, both,
+    # the size ranges, duplicated members, members predicting nowhere out of bag, 2-4 classes
     shapes = [_case("labels", seed)[0].shape for seed in range(N_CASES)]
     assert (1, 1) in shapes and any(m == 1 and n > 1 for m, n in shapes)
     assert any(n == 1 and m > 1 for m, n in shapes)
@@ -273,6 +274,8 @@ VARIANTS = [
     # greedy on the out-of-bag error of the covered points (right: the greedy total with the
     # fill of uncovered points, src/ordering.rs)
     ("reduce_error", KINDS, (True,), {"fill_uncovered": False}),
+    # vote ties to the highest class (right: lowest, src/ordering.rs, members::vote)
+    ("reduce_error", CLASSES, BOTH, {"class_ties": "highest"}),
     # an empty subensemble / an uncovered point counted as right (src/ordering.rs: wrong)
     ("complementarity", CLASSES, BOTH, {"uncovered_wrong": False}),
     # the distance of the summed signature (Martínez-Muñoz, Hernández-Lobato & Suárez 2009:
