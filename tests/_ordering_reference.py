@@ -105,9 +105,9 @@ def _member_right(members, kind, y, read):
 
 
 def _signatures(members, kind, y, read):
-    """(M, n) int: c_mi = +1 right, -1 wrong, 0 not predicting (Martínez-Muñoz & Suárez 2006,
-    from memory: c_ti = 2 I(h_t(x_i) = y_i) - 1; the 0 for points a member does not predict is the
-    out-of-bag rule of src/ordering.rs)."""
+    """(M, n) int: c_mi = +1 right, -1 wrong, 0 not predicting (Martínez-Muñoz & Suárez
+    2006, from memory: c_ti = 2 I(h_t(x_i) = y_i) - 1; the 0 for points a member does not
+    predict is the out-of-bag rule of src/ordering.rs)."""
     right = _member_right(members, kind, y, read)
     return np.where(read, np.where(right, 1, -1), 0).astype(np.int64)
 
@@ -123,8 +123,8 @@ def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest"
                  fill_uncovered=True, class_ties="lowest"):
     """Reduce-error ordering: greedy forward selection, each step adding the member whose
     addition gives the subensemble of lowest loss on the points read (Margineantu &
-    Dietterich 1997, "Pruning adaptive boosting", ICML, reduce-error pruning (section from memory), here
-    without its backfitting step, as src/ordering.rs states).
+    Dietterich 1997, "Pruning adaptive boosting", ICML, reduce-error pruning, from memory;
+    here without its backfitting step, as src/ordering.rs states).
 
     Loss (src/ordering.rs "Loss of a subensemble", "greedy total"): regression the total
     squared error of the members' mean; classification the number of points whose vote
@@ -162,8 +162,8 @@ def complementarity(members, kind, y, counts=None, n_classes=None, *, ties="lowe
                     uncovered_wrong=True):
     """Complementarity ordering (Martínez-Muñoz & Suárez 2004, "Aggregation ordering in
     bagging", the complementarity measure; Martínez-Muñoz, Hernández-Lobato & Suárez 2009,
-    TPAMI 31(2); from memory): greedy; step u adds the member maximising the number of points where it
-    is right and the subensemble of the members chosen so far is wrong,
+    TPAMI 31(2); from memory): greedy; step u adds the member maximising the number of
+    points where it is right and the subensemble of the members chosen so far is wrong,
     Σ_i I(h_m(x_i) = y_i and H_S(x_i) ≠ y_i).
 
     The subensemble's vote is its aggregated vote (mean probability or vote fractions, the
@@ -219,10 +219,10 @@ def margin_distance(members, kind, y, counts=None, n_classes=None, *, target_mar
 def orientation(members, kind, y, counts=None, n_classes=None, *, ties="lowest",
                 increasing_angle=True):
     """Orientation ordering (Martínez-Muñoz & Suárez 2006, "Pruning in ordered bagging
-    ensembles", ICML; from memory): o is the projection of the diagonal (1, ..., 1) on the hyperplane
-    orthogonal to the ensemble signature c_ens = Σ_m c_m, o = 1 - (⟨1, c_ens⟩ / ‖c_ens‖²)
-    c_ens; the members are sorted by increasing angle between c_m and o, i.e. decreasing
-    cos = ⟨c_m, o⟩ / (‖c_m‖ ‖o‖).
+    ensembles", ICML; from memory): o is the projection of the diagonal (1, ..., 1) on the
+    hyperplane orthogonal to the ensemble signature c_ens = Σ_m c_m,
+    o = 1 - (⟨1, c_ens⟩ / ‖c_ens‖²) c_ens; the members are sorted by increasing angle
+    between c_m and o, i.e. decreasing cos = ⟨c_m, o⟩ / (‖c_m‖ ‖o‖).
 
     Documented conventions of src/ordering.rs: o = 1 when c_ens = 0; when o = 0 (c_ens a
     non-zero multiple of the diagonal; the library's "‖o‖² ≤ 1e-12 n" is exactly this for
