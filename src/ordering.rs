@@ -37,16 +37,17 @@
 //!   ‖o − (Σ_{j∈S} c_j + c_m) / u‖. Ties: lowest index.
 //! orientation (Martínez-Muñoz & Suárez 2006, "Pruning in ordered bagging ensembles",
 //!   ICML): c_ens = Σ_m c_m, o = 1 − (⟨1, c_ens⟩ / ‖c_ens‖²) c_ens (o = 1 when c_ens = 0);
-//!   members by decreasing ⟨c_m, o⟩ / (‖c_m‖ ‖o‖) (increasing angle). When
-//!   ‖o‖² ≤ 1e-12 · n (rounding), by decreasing ⟨c_m, 1⟩ / ‖c_m‖ (accuracy margin)
-//!   instead. A member with ‖c_m‖ = 0 (predicts nowhere) has no angle and comes last.
-//!   Ties: lowest index.
+//!   members by decreasing ⟨c_m, o⟩ / (‖c_m‖ ‖o‖) (increasing angle). When o = 0
+//!   (c_ens parallel to 1), by decreasing ⟨c_m, 1⟩ / ‖c_m‖ (accuracy margin) instead. A
+//!   member with ‖c_m‖ = 0 (predicts nowhere) has no angle and comes last. Scores are
+//!   compared exactly (integer numerators), so equal angles tie. Ties: lowest index.
 //! residual_correlation (regression; ours, in the spirit of complementarity): first the
 //!   member with the lowest own mean squared error over the points it predicts; then the
 //!   member whose residual e_m = f_m − y has the smallest Pearson correlation with the
 //!   subensemble's mean residual over the points where both are defined. A correlation is
-//!   undefined with fewer than 2 common points or a variance ≤ 1e-12 × the mean square
-//!   (constant residuals); such candidates rank after every defined one. Ties: lowest index.
+//!   undefined with fewer than 3 common points (on 2 it is ±1 whatever the members) or a
+//!   variance ≤ 1e-12 × the mean square (constant residuals); such candidates rank after
+//!   every defined one. Ties: lowest index.
 //! ```
 //!
 //! How each runs (exact results; the incremental forms give the orders of recomputing the
@@ -645,10 +646,11 @@ fn residual_gram<T: Real>(
 }
 
 /// Pearson correlation from sums over `n` common points; None when undefined (fewer than
-/// 2 points, or a variance ≤ 1e-12 × its mean square).
+/// 3 points, where it is ±1 whatever the residuals, or a variance ≤ 1e-12 × its mean
+/// square).
 #[inline]
 fn pearson(n: f64, se: f64, sr: f64, see: f64, srr: f64, ser: f64) -> Option<f64> {
-    if n < 2.0 {
+    if n < 3.0 {
         return None;
     }
     let var_e = see - se * se / n;
@@ -777,7 +779,9 @@ fn regression_out_of_bag<T: Real>(
                 |c| {
                     let mut delta = 0.0;
                     p.each_point(c, |j| {
-                        let mean = (r[j] + p.value(c, j) - y[j]) / f64::from(k[j] + 1);
+                        // the residual first, as r holds: a duplicate of a chosen member
+                        // then changes no point's loss by rounding
+                        let mean = (r[j] + (p.value(c, j) - y[j])) / f64::from(k[j] + 1);
                         delta += mean * mean - loss[j];
                     });
                     delta
@@ -1035,6 +1039,46 @@ fn margin_distance<T: Real>(
     Ok(order)
 }
 
+/// A member's cosine to the reference vector up to a positive factor common to all
+/// members: `numerator / sqrt(norm_sq)`, compared exactly.
+#[derive(Clone, Copy, PartialEq, Eq)]
+struct Angle {
+    numerator: i128,
+    norm_sq: u64,
+}
+
+impl Angle {
+    fn cmp_score(&self, other: &Self) -> std::cmp::Ordering {
+        use std::cmp::Ordering;
+        if self == other {
+            return Ordering::Equal;
+        }
+        let (a, b) = (self.numerator, other.numerator);
+        if a.signum() != b.signum() {
+            return a.signum().cmp(&b.signum());
+        }
+        // a / √p vs b / √q with equal signs: compare a² q with b² p (reversed when negative)
+        let squares = a
+            .checked_mul(a)
+            .and_then(|a2| a2.checked_mul(i128::from(other.norm_sq)))
+            .zip(
+                b.checked_mul(b)
+                    .and_then(|b2| b2.checked_mul(i128::from(self.norm_sq))),
+            );
+        let magnitude = match squares {
+            Some((left, right)) => left.cmp(&right),
+            // beyond i128 (about 1e38): in floats, where a tie would need equal inputs
+            None => ((a as f64).abs() / (self.norm_sq as f64).sqrt())
+                .total_cmp(&((b as f64).abs() / (other.norm_sq as f64).sqrt())),
+        };
+        if a < 0 {
+            magnitude.reverse()
+        } else {
+            magnitude
+        }
+    }
+}
+
 /// Every member, by increasing angle to the reference vector (one pass and a sort).
 fn orientation<T: Real>(p: &Problem<'_, T>, right: &[u64], pool: &Pool) -> Vec<usize> {
     let (m, w, n) = (p.n_members(), p.words, p.n());
@@ -1055,28 +1099,23 @@ fn orientation<T: Real>(p: &Problem<'_, T>, right: &[u64], pool: &Pool) -> Vec<u
     });
     let one_ens: i64 = ens.iter().sum();
     let sq_ens: i64 = ens.iter().map(|e| e * e).sum();
-    let a = if sq_ens == 0 {
-        0.0
-    } else {
-        one_ens as f64 / sq_ens as f64
-    };
-    let o_sq = if sq_ens == 0 {
-        n as f64
-    } else {
-        n as f64 - (one_ens as f64) * (one_ens as f64) / sq_ens as f64
-    };
-    let fallback = o_sq <= 1e-12 * n as f64;
-    let scores: Vec<Option<f64>> = pool.run(|| {
+    // ⟨c, o⟩ ‖c_ens‖² = ⟨c, 1⟩ ‖c_ens‖² − ⟨1, c_ens⟩ ⟨c, c_ens⟩, an integer; o = 0 exactly when
+    // n ‖c_ens‖² = ⟨1, c_ens⟩² (Cauchy–Schwarz), and then the accuracy margin ⟨c, 1⟩.
+    let parallel = sq_ens == 0 || i128::from(sq_ens) * n as i128 == i128::from(one_ens).pow(2);
+    let scores: Vec<Option<Angle>> = pool.run(|| {
         (0..m)
             .into_par_iter()
             .map(|c| {
-                let norm = (p.predicted(c) as f64).sqrt();
-                if norm == 0.0 {
+                let norm_sq = p.predicted(c);
+                if norm_sq == 0 {
                     return None;
                 }
-                let one_c = 2 * popcount(&right[c * w..(c + 1) * w]) as i64 - p.predicted(c) as i64;
-                if fallback {
-                    return Some(one_c as f64 / norm);
+                let one_c = 2 * popcount(&right[c * w..(c + 1) * w]) as i64 - norm_sq as i64;
+                if parallel {
+                    return Some(Angle {
+                        numerator: i128::from(one_c),
+                        norm_sq,
+                    });
                 }
                 let mut dot = 0i64;
                 p.each_point(c, |j| {
@@ -1087,15 +1126,19 @@ fn orientation<T: Real>(p: &Problem<'_, T>, right: &[u64], pool: &Pool) -> Vec<u
                     };
                     dot += sign * ens[j];
                 });
-                Some((one_c as f64 - a * dot as f64) / (norm * o_sq.sqrt()))
+                let numerator =
+                    i128::from(one_c) * i128::from(sq_ens) - i128::from(one_ens) * i128::from(dot);
+                Some(Angle { numerator, norm_sq })
             })
             .collect()
     });
     let mut order: Vec<usize> = (0..m).collect();
     // Decreasing score, undefined last, then lowest index.
-    order.sort_by(|&x, &y| {
-        let neg = |s: &Option<f64>| s.map(|v| -v);
-        undefined_last(&neg(&scores[x]), &neg(&scores[y])).then(x.cmp(&y))
+    order.sort_by(|&x, &y| match (&scores[x], &scores[y]) {
+        (Some(a), Some(b)) => b.cmp_score(a).then(x.cmp(&y)),
+        (Some(_), None) => std::cmp::Ordering::Less,
+        (None, Some(_)) => std::cmp::Ordering::Greater,
+        (None, None) => x.cmp(&y),
     });
     order
 }

@@ -225,8 +225,7 @@ def orientation(members, kind, y, counts=None, n_classes=None, *, ties="lowest",
     between c_m and o, i.e. decreasing cos = ⟨c_m, o⟩ / (‖c_m‖ ‖o‖).
 
     Documented conventions of src/ordering.rs: o = 1 when c_ens = 0; when o = 0 (c_ens a
-    non-zero multiple of the diagonal; the library's "‖o‖² ≤ 1e-12 n" is exactly this for
-    integer signatures of these sizes) by decreasing ⟨c_m, 1⟩ / ‖c_m‖; a member predicting
+    non-zero multiple of the diagonal) by decreasing ⟨c_m, 1⟩ / ‖c_m‖; a member predicting
     nowhere (‖c_m‖ = 0) last; ties to the lowest index. Exact: ‖o‖ > 0 is common to all
     members, so cos is ordered by sign(⟨c_m, o⟩) ⟨c_m, o⟩² / ‖c_m‖².
     ``increasing_angle=False`` is a wrong variant: decreasing angle.
@@ -268,7 +267,7 @@ def residual_correlation(members, kind, y, counts=None, n_classes=None, *, ties=
     squared error over the points it predicts; then, at each step, the member whose residual
     e_m = f_m - y has the smallest Pearson correlation with the subensemble's mean residual
     r_i = Σ_{s∈S, s predicts i} e_si / k_i over the points where both are defined.
-    Undefined (ranks after every defined one): fewer than 2 common points, or a variance
+    Undefined (ranks after every defined one): fewer than 3 common points, or a variance
     ≤ 1e-12 × the mean square of its values. Correlations are compared exactly, through
     sign(cov) cov² / (var_e var_r).
 
@@ -277,8 +276,7 @@ def residual_correlation(members, kind, y, counts=None, n_classes=None, *, ties=
     correlated member.
 
     ``unit_ties``: a list to which the steps decided by a tie of two or more candidates at a
-    correlation of exactly -1 or +1 are appended as (step, tied candidates) (with 2 common
-    points every defined correlation is ±1).
+    correlation of exactly -1 or +1 are appended as (step, tied candidates).
     """
     y = np.asarray(y, dtype=np.float64)
     read = _read(members, counts)
@@ -314,7 +312,7 @@ def residual_correlation(members, kind, y, counts=None, n_classes=None, *, ties=
             r[i] = total / int(k[i]) if mean_residual else total
         for c in candidates:
             common = np.flatnonzero(read[c] & (k > 0))
-            if len(common) < 2:
+            if len(common) < 3:  # on 2 points any correlation is ±1
                 scores.append(None)
                 continue
             ce, var_e, flat_e = spread(residual[c, common])

@@ -128,23 +128,16 @@ def _id(case):
 
 @functools.cache
 def _reference_order(kind, method, seed, out_of_bag):
-    """(reference order, whether residual correlation decided a step by a tie at a
-    correlation of exactly ±1: a known library defect, see below)."""
+    """(reference order, whether residual correlation decided a step by an exact tie at a
+    correlation of ±1)."""
     ties = []
     extra = {"unit_ties": ties} if method == "residual_correlation" else {}
     return _reference(kind, method, seed, out_of_bag, **extra), bool(ties)
 
 
-def _unit_tied(seed, oob):
-    return _reference_order("values", "residual_correlation", seed, oob)[1]
-
-
 def _seeds(method, oob):
-    """The cases of the main comparison: all, less (residual correlation) those decided by a
-    tie at correlation ±1, which are the xfail test of that defect below."""
-    if method != "residual_correlation":
-        return list(range(N_CASES))
-    return [s for s in range(N_CASES) if not _unit_tied(s, oob)]
+    """The cases of the main comparison."""
+    return list(range(N_CASES))
 
 
 def _mismatches(kind, method, oob, seeds):
@@ -169,49 +162,28 @@ def test_order_is_the_reference_order(case):
     assert not wrong, f"{len(wrong)} of {len(seeds)} orders differ:\n" + "\n".join(wrong[:5])
 
 
-# -- defects found: exact ties of the definitions decided by rounding ---------------------------
+# -- exact ties of the definitions ------------------------------------------------------------
 # src/ordering.rs: "Ties: lowest index" for every method, and "exact results; the incremental
-# forms give the orders of recomputing the ensemble per candidate". In the three cases below
-# the definition gives candidates exactly equal scores, and the library's float formula
-# (a rearrangement of the definition) gives them scores a rounding error apart, so the pick
-# is not the lowest index. Each is a minimal input, checked against the reference, and the
-# premise (an exact tie) is asserted on the reference side.
-
-UNIT_TIE_BUG = ("residual_correlation breaks exact ties at a correlation of ±1 (always the case "
-                "with 2 common points) by rounding of its one-pass Pearson formula, not by the "
-                "documented lowest member index")
-ORIENTATION_TIE_BUG = ("orientation computes <c_m, o> as <c_m, 1> - a <c_m, c_ens> with a float "
-                       "a = <1, c_ens> / |c_ens|^2, so members of exactly equal angle are "
-                       "ordered by rounding, not by the documented lowest member index")
-FILL_TIE_BUG = ("reduce_error out of bag (regression) scores a candidate by ((R_i + f) - y) / "
-                "(k_i + 1), rounded differently from the recomputed mean: a duplicate of a chosen "
-                "member (no change to the loss) beats a lower-index member that changes nothing")
+# forms give the orders of recomputing the ensemble per candidate". In the cases below the
+# definition gives candidates exactly equal scores, where a float rearrangement of it would
+# leave them a rounding error apart (each was such a defect once). Each is a minimal input,
+# checked against the reference, with the premise (an exact tie) asserted on its side.
 
 
-@pytest.mark.xfail(strict=True, reason=UNIT_TIE_BUG)
-def test_residual_correlation_ties_at_unit_correlation_minimal():
-    # two points: member 0 has the lowest squared error; members 1 and 2 both fall where
-    # member 0 rises, so both correlate exactly -1 with its residual (a Pearson correlation
-    # of two points is ±1): by the documented tie rule the order is 0, 1, 2
+def test_residual_correlation_on_two_points_is_undefined():
+    # two points: member 0 has the lowest squared error; a Pearson correlation of two points
+    # is ±1 whatever the residuals (numpy.corrcoef), so it tells members 1 and 2 nothing:
+    # both are undefined, and the tie goes to the lower index
     members, y = np.array([[0.1, 0.2], [2.0, 1.4], [1.6, 0.4]]), np.zeros(2)
-    ties = []
-    expected = ref.residual_correlation(members, "values", y, unit_ties=ties)
-    assert ties == [(1, [1, 2])]  # the premise: an exact tie at -1 between 1 and 2
+    for m in (1, 2):
+        assert abs(np.corrcoef(members[m] - y, members[0] - y)[0, 1]) == pytest.approx(1.0)
+    expected = ref.residual_correlation(members, "values", y)
+    assert expected == [0, 1, 2]
     result = bagwise.order_members(members, y, method="residual_correlation", folds=None,
                                    orders=1)
     assert result.order.tolist() == expected
 
 
-@pytest.mark.xfail(strict=True, reason=UNIT_TIE_BUG)
-@pytest.mark.parametrize("oob", [False, True], ids=["points", "out_of_bag"])
-def test_residual_correlation_ties_at_unit_correlation(oob):
-    seeds = [s for s in range(N_CASES) if _unit_tied(s, oob)]
-    assert seeds  # the cases exist (else this test proves nothing)
-    wrong = _mismatches("values", "residual_correlation", oob, seeds)
-    assert not wrong, f"{len(wrong)} of {len(seeds)} orders differ:\n" + "\n".join(wrong[:5])
-
-
-@pytest.mark.xfail(strict=True, reason=ORIENTATION_TIE_BUG)
 def test_orientation_exact_tie_of_angles_minimal():
     # 6 points, all of class 0; signatures c_0 = (-1,-1,-1,-1,+1,+1), c_1 = (+1,+1,+1,+1,-1,+1),
     # c_2 = (+1,+1,-1,+1,-1,-1); c_ens = (1,1,-1,1,-1,1), a = 2/6, o = 1 - c_ens/3 and
@@ -228,7 +200,6 @@ def test_orientation_exact_tie_of_angles_minimal():
     assert result.order.tolist() == expected
 
 
-@pytest.mark.xfail(strict=True, reason=FILL_TIE_BUG)
 def test_reduce_error_out_of_bag_duplicate_of_a_chosen_member_minimal():
     # member 0 predicts nowhere (in bag at both points), members 1 and 2 are equal and out of
     # bag at both. Member 1 first (lower loss than the fill); then adding member 0 or the
