@@ -769,7 +769,7 @@ WHICH_MEMBERS = [
 
     `prune` keeps the first members of the order as a fitted bag: the same members, their
     in-bag counts, and everything a bag does (save, load, diagnose). `"smallest"` keeps the
-    fewest members whose honest out-of-bag error is within 1% of the full bag's.
+    fewest members from which the honest out-of-bag error stays within 1% of the full bag's.
     """),
     code("""
     import time

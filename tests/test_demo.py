@@ -106,7 +106,7 @@ def test_demo_redundancy_section_reads_right():
         assert 1 <= within <= 60 and 1 <= random <= 60
         # losses are shares or squared errors, printed as numbers (never "nan")
         assert all(float(v) >= 0 for v in (full, smallest, fifth))
-    assert "yield_kg: the first" in out
+    assert "yield_kg: from the first" in out
 
 
 def test_demo_reports_a_missing_file():

@@ -127,7 +127,8 @@ def test_members_within_reads_the_chosen_curve():
         for tolerance in (0.01, 0.1, 0.5):
             found = result.members_within(tolerance, curve)
             inside = values <= (1 + tolerance) * result.ensemble_loss * (1 + 1e-12)
-            assert inside[found - 1] and not inside[:found - 1].any()
+            # from `found` on every size is inside, and the size before it is not
+            assert inside[found - 1:].all() and (found == 1 or not inside[found - 2])
     with pytest.warns(bagwise.BagwiseWarning, match="no honest curve"):
         assert np.isnan(bagwise.order_members(members, y, folds=None).members_within())
     with pytest.raises(ValueError, match="`curve`: expected one of"):
@@ -182,7 +183,7 @@ def test_display_frame_summary_and_figure():
     text = repr(result)
     assert "complementarity (Martínez-Muñoz & Suárez 2004)" in text
     assert "optimistic" not in text or "honest" in text
-    assert f"in a random order {result.members_within(0.01, 'random')} do" in text
+    assert f"a random order from {result.members_within(0.01, 'random')} on" in text
     assert "<table" in result._repr_html_()
     frame = result.to_frame()
     assert list(frame.columns) == ["size", "curve", "honest_curve", "random_curve"]
@@ -239,7 +240,7 @@ def test_diagnose_reports_the_redundant_members():
     np.testing.assert_allclose(section.curve, chosen.evaluate(members, y).curve)
     readings = " ".join(diagnosis.readings())
     within = section.members_within(0.01)
-    assert f"{within} of {members.shape[0]} members come within 1%" in readings
+    assert f"from {within} of {members.shape[0]} members on, the loss stays within 1%" in readings
     assert "out-of-bag predictions" in readings
     assert diagnosis.summary()["ordering"]["members_within"] == within
     # without them: chosen and cross-fitted on the diagnosed points

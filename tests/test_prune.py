@@ -125,12 +125,14 @@ def test_pruning_twice_composes_the_member_indices():
                                   bag.member_predictions(x)[twice.member_indices_])
 
 
-def test_smallest_keeps_the_first_size_within_tolerance_on_the_honest_curve():
+def test_smallest_keeps_the_size_from_which_the_honest_curve_stays_within_tolerance():
     bag, _, _ = _fitted("tree")
     order = bag.order_members()
     curve, full = order.honest_curve, order.ensemble_loss
-    # The definition, read off the curve directly (common practice for "within 1%").
-    expected = 1 + int(np.flatnonzero(curve <= 1.01 * full * (1 + 1e-12))[0])
+    # The definition, read off the curve directly (common practice for "within 1%"): the
+    # size after the last one outside the band
+    outside = [k for k in range(1, len(curve) + 1) if not curve[k - 1] <= 1.01 * full * (1 + 1e-12)]
+    expected = outside[-1] + 1 if outside else 1
     pruned = bag.prune("smallest", order=order)
     assert pruned.n_members == expected
     np.testing.assert_array_equal(pruned.member_indices_, np.sort(order.order[:expected]))

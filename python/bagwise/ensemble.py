@@ -1021,8 +1021,8 @@ class _Bag(BaseEstimator):
         ----------
         n_members : int, float or "smallest"
             Members to keep: a count, a share of the members in (0, 1) (rounded, at least
-            one), or ``"smallest"``: the smallest size whose loss on the order's
-            ``honest_curve`` comes within ``tolerance`` of the full ensemble's
+            one), or ``"smallest"``: the smallest size from which the loss on the order's
+            ``honest_curve`` stays within ``tolerance`` of the full ensemble's
             (`MemberOrder.members_within`).
         tolerance : float
             Relative tolerance of ``"smallest"`` (default 1%).

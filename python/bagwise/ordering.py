@@ -246,9 +246,11 @@ class MemberOrder(Result):
                 "random": self.random_curve}[curve]
 
     def members_within(self, tolerance: float = 0.01, curve: str = "honest") -> int | float:
-        """The smallest size ``k`` whose loss on ``curve`` is within ``tolerance``
-        (relative) of the full ensemble's: ``curve[k - 1] <= (1 + tolerance) ·
-        ensemble_loss``.
+        """The smallest size ``k`` from which the loss on ``curve`` stays within
+        ``tolerance`` (relative) of the full ensemble's: ``curve[j - 1] <= (1 + tolerance) ·
+        ensemble_loss`` for every ``j >= k``. A curve that dips inside by chance at a small
+        size (out of bag, the first members read few points) and leaves again does not
+        count; a NaN loss (no point read) counts as outside.
 
         ``curve``: ``"honest"`` (default: the cross-fitted curve, or ``curve`` itself when
         ``held_out``), ``"selected"`` (the order on the points that chose it: optimistic)
@@ -265,8 +267,8 @@ class MemberOrder(Result):
             return math.nan
         # A relative slack of 1e-12: the curves sum the same members in other orders.
         bound = (1 + tolerance) * self.ensemble_loss * (1 + 1e-12)
-        within = np.flatnonzero(values <= bound)
-        return int(within[0]) + 1 if within.size else self.n_members
+        outside = np.flatnonzero(~(values <= bound))
+        return min(int(outside[-1]) + 2, self.n_members) if outside.size else 1
 
     def evaluate(self, members, y, *, counts=None, n_classes=None, n_jobs=None,
                  progress=False) -> MemberOrder:
@@ -359,9 +361,9 @@ class MemberOrder(Result):
         if isinstance(honest, float) and math.isnan(honest):
             return (f"curve is measured on {self._where()}; pass folds to get an honest "
                     "estimate")
-        return (f"the first {honest} of {self.n_members} members in this order come within 1% "
-                f"of the full ensemble's {_LOSS_WORDS.get(self.loss, self.loss)}; "
-                f"in a random order {random} do")
+        return (f"from the first {honest} of {self.n_members} members on, this order stays "
+                f"within 1% of the full ensemble's {_LOSS_WORDS.get(self.loss, self.loss)}; "
+                f"a random order from {random} on")
 
 
 def _members(count: int) -> str:

@@ -88,9 +88,9 @@ class OrderingSection(Section):
                    "folds of these points (each fold measured with the order the others chose)")
         sample = (f" (a sample of {result.n_points:,} of the {diagnosis.n_points:,} points)"
                   if result.n_points < diagnosis.n_points else "")
-        out = [f"{honest} of {result.n_members} members come within {TOLERANCE:.0%} of the full "
-               f"ensemble's {loss} ({result.ensemble_loss:.4g}) {how}{sample}; in a random "
-               f"order {random} do"]
+        out = [f"from {honest} of {result.n_members} members on, the loss stays within "
+               f"{TOLERANCE:.0%} of the full ensemble's {loss} ({result.ensemble_loss:.4g}) {how}"
+               f"{sample}; in a random order from {random} on"]
         best = int(result.sizes[int(np.nanargmin(result.honest_curve))])
         lowest = float(result.honest_curve[best - 1])
         if lowest < result.ensemble_loss * (1 - TOLERANCE):
