@@ -6,16 +6,17 @@ Run after ``maturin develop --release``:
     python tests/bench/bench_ordering.py [--points 100000] [--members 500] [--repeat 2]
 
 The target (from the issue): "time comparable to a few passes over the member predictions;
-memory O(points)". Each case runs in its own process: it builds the member predictions,
-times one ``np.sum(members, axis=0)`` over them (a "pass", best of ``--repeat``), then
-``order_members`` twice:
+memory O(points)". Each case and mode runs in its own process (the memory one call leaves
+to the allocator would hide part of the next call's rise): it builds the member
+predictions, runs ``order_members`` in one of two modes,
 
 - ``order``: the order alone (``folds=None, orders=1``: the order and one random curve);
 - ``default``: the default call (``folds=2, orders=10``: the order, the curves of 11 orders
   and a 2-fold cross-fitted curve, i.e. two more orders on half the points each);
 
-and prints each time in passes, with the peak extra memory of the call: the rise of the
-process's peak resident set (VmHWM, reset before the call through /proc/self/clear_refs,
+then times one ``np.sum(members, axis=0)`` over the same array (a "pass", best of
+``--repeat``), and prints each time in passes, with the peak extra memory of the call: the
+rise of the process's peak resident set (VmHWM, reset before the call through /proc/self/clear_refs,
 Linux) above its resident set before the call, and the peak of tracemalloc (the Python-side
 allocations numpy reports; the Rust core's own allocations are not traced), both as a
 multiple of the size of the member array and in bytes per point. Nothing is asserted.
@@ -90,20 +91,23 @@ def measured(run):
     return seconds, rss_bytes("VmHWM") - before, traced
 
 
-def one_case(index, n_members, n_points, repeat):
+MODES = {"order": dict(folds=None, orders=1), "default": dict(folds=2, orders=10)}
+
+
+def one_case(index, mode, n_members, n_points, repeat):
+    """One mode of one case, in a fresh process: the memory a call leaves to the allocator
+    would otherwise hide part of the next call's rise."""
     import bagwise
 
     name, kind, method, out_of_bag = CASES[index]
     members, y = make_members(kind, n_members, n_points)
     counts = bagwise.resample(n_points, n_members, rng=0).counts if out_of_bag else None
+    seconds, rss, traced = measured(lambda: bagwise.order_members(
+        members, y, method=method, counts=counts, **MODES[mode]))
+    # the reference passes after the call, so they cannot lower its memory rise
     one_pass = min(measured(lambda: np.sum(members, axis=0))[0] for _ in range(repeat))
-    result = {"name": name, "bytes": members.nbytes, "pass": one_pass}
-    for label, options in (("order", dict(folds=None, orders=1)),
-                           ("default", dict(folds=2, orders=10))):
-        seconds, rss, traced = measured(lambda options=options: bagwise.order_members(
-            members, y, method=method, counts=counts, **options))
-        result[label] = {"seconds": seconds, "rss": rss, "traced": traced}
-    return result
+    return {"name": name, "bytes": members.nbytes, "pass": one_pass,
+            mode: {"seconds": seconds, "rss": rss, "traced": traced}}
 
 
 def main():
@@ -114,27 +118,32 @@ def main():
     parser.add_argument("--cases", default=",".join(str(i) for i in range(len(CASES))),
                         help="indices into CASES")
     parser.add_argument("--case", type=int, help=argparse.SUPPRESS)   # one case, in a child
+    parser.add_argument("--mode", choices=MODES, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.case is not None:
-        print(json.dumps(one_case(args.case, args.members, args.points, args.repeat)))
+        print(json.dumps(one_case(args.case, args.mode, args.members, args.points,
+                                  args.repeat)))
         return
     print(f"{args.members} members, {args.points:,} points, {N_CLASSES} classes for "
           f"probabilities; a pass = np.sum(members, axis=0), best of {args.repeat}; "
           "order = folds=None, orders=1; default = folds=2, orders=10", flush=True)
-    print(f"{'case':40s} {'array':>8s} {'pass':>7s} | {'order':>7s} {'passes':>7s} "
-          f"{'RSS+':>6s} {'B/pt':>6s} {'traced':>6s} | {'default':>7s} {'passes':>7s} "
-          f"{'RSS+':>6s} {'B/pt':>6s} {'traced':>6s}", flush=True)
+    head = " | ".join(f"{'pass':>7s} {mode:>7s} {'passes':>7s} {'RSS+':>6s} {'B/pt':>6s} "
+                      f"{'traced':>6s}" for mode in MODES)
+    print(f"{'case':40s} {'array':>8s} | {head}", flush=True)
     for index in map(int, args.cases.split(",")):
-        child = subprocess.run(
-            [sys.executable, __file__, "--case", str(index), "--members", str(args.members),
-             "--points", str(args.points), "--repeat", str(args.repeat)],
-            check=True, capture_output=True, text=True)
-        r = json.loads(child.stdout.strip().splitlines()[-1])
-        size = r["bytes"]
-        line = f"{r['name']:40s} {size / 2**20:6.0f}MB {r['pass']:6.3f}s"
-        for label in ("order", "default"):
-            m = r[label]
-            line += (f" | {m['seconds']:6.2f}s {m['seconds'] / r['pass']:7.1f} "
+        runs = {}
+        for mode in MODES:
+            child = subprocess.run(
+                [sys.executable, __file__, "--case", str(index), "--mode", mode,
+                 "--members", str(args.members), "--points", str(args.points),
+                 "--repeat", str(args.repeat)],
+                check=True, capture_output=True, text=True)
+            runs[mode] = json.loads(child.stdout.strip().splitlines()[-1])
+        size = runs["order"]["bytes"]
+        line = f"{runs['order']['name']:40s} {size / 2**20:6.0f}MB"
+        for mode, r in runs.items():
+            m = r[mode]
+            line += (f" | {r['pass']:6.3f}s {m['seconds']:6.2f}s {m['seconds'] / r['pass']:7.1f} "
                      f"{m['rss'] / size:6.3f} {m['rss'] / args.points:6.0f} "
                      f"{m['traced'] / size:6.3f}")
         print(line, flush=True)
