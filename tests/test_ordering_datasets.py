@@ -156,7 +156,11 @@ def test_compare_is_the_paired_criterion():
 #: Classification cases the criterion fails on seed 0, with the numbers measured (mean test
 #: error of the pruned bag, of the full bag, the difference in standard errors). Kept visible
 #: as non-strict expected failures; the criterion is not loosened for them.
-#: tests/bench/ordering_pass_rate.py gives their pass rates over other seeds.
+#: Pass rates of the pruned bag over seeds 1-100 (tests/bench/ordering_pass_rate.py, 100
+#: members; target 99%), reduce_error / complementarity / margin_distance / orientation:
+#: breast cancer 55 / 57 / 62 / 57%, wine 73 / 86 / 91 / 63%, digits 12 / 35 / 80 / 79%.
+#: No case reaches the target, so the cases that pass on seed 0 pass by chance as well; the
+#: controls below fail on every seed (first 2: 0% everywhere) or nearly (last 20%: 0-11%).
 CLASSIFICATION_FAILS = {
     ("breast_cancer", "reduce_error"): "seed 0: 0.05316 vs 0.04895, +0.00421 = +2.18 SE",
     ("breast_cancer", "margin_distance"): "seed 0: 0.05263 vs 0.04895, +0.00368 = +2.05 SE",
@@ -185,7 +189,7 @@ def test_a_fifth_of_the_ordered_members_matches_the_full_bag(name, method):
 
 #: Regression cases the criterion fails on seed 0, with the numbers measured (mean test
 #: squared error of the pruned bag, of the full bag, the difference in standard errors):
-#: reported, not asserted.
+#: reported, not asserted. Pass rates over seeds 1-100: diabetes 0%, Friedman #1 28%.
 REGRESSION_FAILS = {
     ("diabetes", "reduce_error"): "seed 0: 3509 vs 3374, +135.5 = +7.07 SE",
     ("friedman1", "reduce_error"): "seed 0: 6.872 vs 6.655, +0.217 = +2.00 SE",
