@@ -17,9 +17,12 @@
 //!                   member order of the prefix.
 //!   out of bag      k_i = members of S predicting at i; the loss at k is the mean over the
 //!                   points read with k_i ≥ 1 (NaN when there is none), as `out_of_bag`'s curve.
-//!   greedy total    a point not yet covered counts as an error (classification) or as
-//!                   (y_i − ȳ)², ȳ the mean of y over the points read (regression), so each
-//!                   criterion is a total over one fixed set of points.
+//!   greedy total    reduce_error: a point not yet covered counts at the mean loss of the
+//!                   members predicting there (the share of them wrong, or their mean
+//!                   (f_mi − y_i)²; 0 where none does), so each criterion is a total over one
+//!                   fixed set of points and covering a point gains only when the member
+//!                   beats a typical one there; complementarity: an uncovered point is
+//!                   wrong.
 //!
 //! Signatures (classification): c_m ∈ {+1 right, −1 wrong, 0 not predicting}^n over the
 //! points read; "right" is the member's label (probabilities: argmax, lowest index among
@@ -27,7 +30,8 @@
 //!
 //! reduce_error (Margineantu & Dietterich 1997, "Pruning adaptive boosting", ICML):
 //!   greedy forward selection; step u adds the member whose addition gives the lowest total
-//!   loss of the subensemble. Ties: lowest member index.
+//!   loss of the subensemble. Ties: lowest member index (classification totals compared at
+//!   a resolution of 2⁻²⁰ errors, so that exact ties of the shares survive rounding).
 //! complementarity (Martínez-Muñoz & Suárez 2004, "Aggregation ordering in bagging";
 //!   Martínez-Muñoz, Hernández-Lobato & Suárez 2009, IEEE TPAMI 31(2)): greedy; add the
 //!   member right on the most points where the current subensemble is wrong (empty
@@ -569,7 +573,7 @@ pub fn order_members<T: Real>(
             regression_out_of_bag(&problem, true, size, pool, monitor)?
         }
         (Method::ReduceError, false, _) => {
-            classification_reduce_error(&problem, size, pool, monitor)?
+            classification_reduce_error(&problem, &right, size, pool, monitor)?
         }
         (Method::Complementarity, false, _) => {
             complementarity(&problem, &right, size, pool, monitor)?
@@ -727,11 +731,24 @@ fn regression_out_of_bag<T: Real>(
 ) -> Result<Vec<usize>> {
     let (m, n) = (p.n_members(), p.n());
     let y = &p.y_values;
-    let y_bar = y.iter().sum::<f64>() / n as f64;
     let mut r = zeroed::<f64>(n, "members")?;
     let mut k = zeroed::<u32>(n, "members")?;
-    // Current loss per point: (R/k)² when covered, (y − ȳ)² otherwise.
-    let mut loss: Vec<f64> = y.iter().map(|v| (v - y_bar) * (v - y_bar)).collect();
+    // Current loss per point: (R/k)² when covered, else the members' mean squared error
+    // there (a member covering it gains only by beating a typical member).
+    let mut loss = zeroed::<f64>(n, "members")?;
+    for c in 0..m {
+        p.each_point(c, |j| {
+            let e = p.value(c, j) - y[j];
+            loss[j] += e * e;
+            k[j] += 1;
+        });
+    }
+    for (l, kj) in loss.iter_mut().zip(k.iter_mut()) {
+        if *kj > 0 {
+            *l /= f64::from(*kj);
+        }
+        *kj = 0;
+    }
     let mut chosen = vec![false; m];
     let mut order = Vec::with_capacity(size);
     for step in 0..size {
@@ -858,14 +875,40 @@ impl Votes {
     }
 }
 
+/// Units per error in which classification reduce-error compares its totals.
+const TIE_RESOLUTION: f64 = (1u64 << 20) as f64;
+
 fn classification_reduce_error<T: Real>(
     p: &Problem<'_, T>,
+    right: &[u64],
     size: usize,
     pool: &Pool,
     monitor: &dyn Monitor,
 ) -> Result<Vec<usize>> {
-    let (m, n) = (p.n_members(), p.n());
+    let (m, n, w) = (p.n_members(), p.n(), p.words);
     let y = &p.y_classes;
+    // An uncovered point counts at the share of its predicting members that are wrong, not
+    // as an error: covering it changes the total by (share right) − [right], i.e. the integer
+    // change of an uncovered-as-error total plus `uncovered_gain`, the share right.
+    let mut predicting = zeroed::<u32>(n, "members")?;
+    let mut right_count = zeroed::<u32>(n, "members")?;
+    for c in 0..m {
+        p.each_point(c, |j| {
+            predicting[j] += 1;
+            right_count[j] += u32::from(right[c * w + j / 64] >> (j % 64) & 1 == 1);
+        });
+    }
+    let uncovered_gain: Vec<f64> = predicting
+        .iter()
+        .zip(&right_count)
+        .map(|(&o, &r)| {
+            if o == 0 {
+                0.0
+            } else {
+                f64::from(r) / f64::from(o)
+            }
+        })
+        .collect();
     let mut votes = Votes::new(n, p.n_classes)?;
     let mut chosen = vec![false; m];
     let mut order = Vec::with_capacity(size);
@@ -880,15 +923,21 @@ fn classification_reduce_error<T: Real>(
             .iter()
             .for_each(|&j| words[j / 64] |= 1 << (j % 64));
         let (votes_ref, is_right_ref, words_ref) = (&votes, &is_right, &words);
+        let gain_ref = &uncovered_gain;
         let next = argmin(
             pool,
             &chosen,
             |c| {
-                // Change in the number of errors over the undecided points c predicts at.
+                // Change in the total loss over the undecided points c predicts at: whole
+                // errors, and the fill of the points it covers first.
                 let mut change = 0i64;
+                let mut fill = 0.0f64;
                 let mut score = |j: usize| {
                     let now = p.vote_with(c, j, votes_ref.row(j)) == y[j];
                     change += i64::from(is_right_ref[j]) - i64::from(now);
+                    if votes_ref.covered[j] == 0 {
+                        fill += gain_ref[j];
+                    }
                 };
                 match p.predict_row(c) {
                     None => undecided.iter().for_each(|&j| score(j)),
@@ -898,7 +947,10 @@ fn classification_reduce_error<T: Real>(
                         each_bit(&both, &mut score);
                     }
                 }
-                change
+                // At a resolution of 2⁻²⁰ errors, so that sums of shares which tie by the
+                // definition (1/3 + 2/3 − 1 = 0) tie here despite rounding; totals closer
+                // than that count as a tie (lowest index).
+                ((change as f64 + fill) * TIE_RESOLUTION).round() as i64
             },
             |a: &i64, b: &i64| a.cmp(b),
         );
@@ -1468,13 +1520,19 @@ mod tests {
     }
 
     #[test]
-    fn out_of_bag_regression_counts_uncovered_points_at_the_mean() {
-        // y = (0, 0, 3), ȳ = 1: an uncovered point costs (y − 1)² = 1, 1, 4.
-        // m0 predicts 0 at points 0, 1 (in bag at 2): total 0 + 0 + 4 = 4.
-        // m1 predicts 3 at point 2 only: total 1 + 1 + 0 = 2 → m1 first, although its
-        // error where it predicts (0) equals m0's.
-        let members = array![[0.0, 0.0, f64::NAN], [f64::NAN, f64::NAN, 3.0]];
-        let counts = array![[0u8, 0, 1], [2, 1, 0]];
+    fn out_of_bag_regression_counts_uncovered_points_at_the_members_mean_error() {
+        // y = (0, 0, 3). Out of bag: m0 predicts (0, 0, ·), m1 (·, ·, 3), m2 (1, 2, 1).
+        // An uncovered point costs its predicting members' mean squared error:
+        // point 0 (0 + 1)/2 = 0.5, point 1 (0 + 4)/2 = 2, point 2 (0 + 4)/2 = 2 → 4.5.
+        // m0 first: 0 + 0 + 2 = 2; m1: 0.5 + 2 + 0 = 2.5; m2: 1 + 4 + 4 = 9 → m0. Then m1
+        // (covers point 2 exactly) before m2. Counting an uncovered point as (y − ȳ)²
+        // (ȳ = 1: costs 1, 1, 4) would take m1 first (1 + 1 + 0 = 2 < 0 + 0 + 4).
+        let members = array![
+            [0.0, 0.0, f64::NAN],
+            [f64::NAN, f64::NAN, 3.0],
+            [1.0, 2.0, 1.0]
+        ];
+        let counts = array![[0u8, 0, 1], [2, 1, 0], [0, 0, 0]];
         let y = array![0.0, 0.0, 3.0];
         let c = counts.view();
         let got = order(
@@ -1483,19 +1541,20 @@ mod tests {
             Some(&c),
             Method::ReduceError,
         );
-        assert_eq!(got, vec![1, 0]);
-        // The curve: m1 alone covers point 2 only (error 0); both cover all, error 0.
+        assert_eq!(got, vec![0, 1, 2]);
+        // The curve, over the covered points: m0 alone (points 0, 1) 0; with m1 all points,
+        // 0; with m2 the means (0.5, 1, 2) against (0, 0, 3): (0.25 + 1 + 1) / 3 = 0.75.
         let curves = order_curves(
             Members::Values(members.view()),
             Targets::Values(y.view()),
             Some(&c),
             None,
-            &[vec![1, 0], vec![0, 1]],
+            &[vec![0, 1, 2]],
             &pool(1),
             &Silent,
         )
         .unwrap();
-        assert_eq!(curves, vec![vec![0.0, 0.0], vec![0.0, 0.0]]);
+        assert_eq!(curves, vec![vec![0.0, 0.0, 0.75]]);
     }
 
     #[test]
@@ -1913,7 +1972,6 @@ mod tests {
         predicts: &dyn Fn(usize, usize) -> bool,
     ) -> f64 {
         let n = d.y.len();
-        let y_bar = d.y.sum() / n as f64;
         (0..n)
             .map(|i| {
                 let (mut sum, mut k) = (0.0, 0);
@@ -1924,7 +1982,16 @@ mod tests {
                     }
                 }
                 if k == 0 {
-                    (d.y[i] - y_bar).powi(2)
+                    // uncovered: the mean squared error of the members predicting there
+                    let errors: Vec<f64> = (0..d.values.nrows())
+                        .filter(|&m| predicts(m, i))
+                        .map(|m| (d.values[[m, i]] - d.y[i]).powi(2))
+                        .collect();
+                    if errors.is_empty() {
+                        0.0
+                    } else {
+                        errors.iter().sum::<f64>() / errors.len() as f64
+                    }
                 } else {
                     (d.y[i] - sum / k as f64).powi(2)
                 }
@@ -1965,13 +2032,30 @@ mod tests {
         predicts: &dyn Fn(usize, usize) -> bool,
     ) -> f64 {
         (0..d.y.len())
-            .filter(
-                |&i| match class_totals(d, probabilities, subset, predicts, i) {
-                    None => true,
-                    Some(t) => vote(t) as i64 != d.classes[i],
+            .map(
+                |i| match class_totals(d, probabilities, subset, predicts, i) {
+                    // uncovered: the share of the members predicting there that are wrong
+                    None => {
+                        let members = d.labels.nrows();
+                        let (o, wrong) = (0..members).filter(|&m| predicts(m, i)).fold(
+                            (0, 0),
+                            |(o, wrong), m| {
+                                (
+                                    o + 1,
+                                    wrong + usize::from(!member_right(d, probabilities, m, i)),
+                                )
+                            },
+                        );
+                        if o == 0 {
+                            0.0
+                        } else {
+                            wrong as f64 / o as f64
+                        }
+                    }
+                    Some(t) => f64::from(u8::from(vote(t) as i64 != d.classes[i])),
                 },
             )
-            .count() as f64
+            .sum()
     }
 
     fn member_right(d: &Data, probabilities: bool, m: usize, i: usize) -> bool {

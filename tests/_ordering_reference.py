@@ -120,7 +120,7 @@ def _signed_square(x):
 # -- the methods -----------------------------------------------------------------------------
 
 def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest",
-                 fill_uncovered=True, class_ties="lowest"):
+                 fill_uncovered=True, fill_as_error=False, class_ties="lowest"):
     """Reduce-error ordering: greedy forward selection, each step adding the member whose
     addition gives the subensemble of lowest loss on the points read (Margineantu &
     Dietterich 1997, "Pruning adaptive boosting", ICML, reduce-error pruning, from memory;
@@ -129,15 +129,30 @@ def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest"
     Loss (src/ordering.rs "Loss of a subensemble", "greedy total"): regression the total
     squared error of the members' mean; classification the number of points whose vote
     (mean probability, or vote fractions, argmax lowest class) is not y. Out of bag, a point
-    no member of the subensemble predicts counts as an error, or as (y_i - ȳ)² with ȳ the
-    mean target over the points read. ``fill_uncovered=False`` is a wrong variant: the mean
-    loss over the covered points only (the out-of-bag error of the subensemble);
-    ``class_ties="highest"`` another: vote ties to the highest class.
+    no member of the subensemble predicts counts at the mean loss of all the members that
+    predict there: the share of them that are wrong, or the mean of (f_mi - y_i)²; 0 where
+    none does. ``fill_uncovered=False`` is a wrong variant: the mean loss over the covered
+    points only (the out-of-bag error of the subensemble); ``fill_as_error=True`` another
+    (an uncovered point an error, or (y_i - ȳ)²); ``class_ties="highest"`` a third: vote
+    ties to the highest class.
     """
     y = np.asarray(y)
     read = _read(members, counts)
-    n_members = members.shape[0]
-    y_bar = float(np.mean(y)) if kind == "values" else None
+    n_members, n_points = members.shape[:2]
+    if kind == "values":
+        with np.errstate(invalid="ignore"):
+            own = np.where(read, (members - y) ** 2, 0.0)
+        fill = [float(np.mean(own[read[:, i], i])) if read[:, i].any() else 0.0
+                for i in range(n_points)]
+        if fill_as_error:
+            fill = list((y - float(np.mean(y))) ** 2)
+    else:
+        wrong = _signatures(members, kind, y, read) == -1
+        fill = [Fraction(int(wrong[:, i].sum()), int(read[:, i].sum())) if read[:, i].any()
+                else Fraction(0) for i in range(n_points)]
+        if fill_as_error:
+            fill = [Fraction(1)] * n_points
+    fill = np.array(fill, dtype=object if kind != "values" else np.float64)
     chosen: list[int] = []
     while len(chosen) < n_members:
         candidates = [c for c in range(n_members) if c not in chosen]
@@ -147,9 +162,9 @@ def reduce_error(members, kind, y, counts=None, n_classes=None, *, ties="lowest"
                                                class_ties)
             if kind == "values":
                 with np.errstate(invalid="ignore"):
-                    per_point = np.where(covered, (prediction - y) ** 2, (y - y_bar) ** 2)
+                    per_point = np.where(covered, (prediction - y) ** 2, fill)
             else:
-                per_point = np.where(covered, prediction != y, True).astype(np.int64)
+                per_point = np.where(covered, (prediction != y).astype(object), fill)
             if fill_uncovered:
                 scores.append(per_point.sum())
             else:

@@ -245,6 +245,9 @@ VARIANTS = [
     # greedy on the out-of-bag error of the covered points (right: the greedy total with the
     # fill of uncovered points, src/ordering.rs)
     ("reduce_error", KINDS, (True,), {"fill_uncovered": False}),
+    # an uncovered point counted as an error / at the mean target (the fill before the
+    # members' mean loss: it favoured members with many out-of-bag rows)
+    ("reduce_error", KINDS, (True,), {"fill_as_error": True}),
     # vote ties to the highest class (right: lowest, src/ordering.rs, members::vote)
     ("reduce_error", CLASSES, BOTH, {"class_ties": "highest"}),
     # an empty subensemble / an uncovered point counted as right (src/ordering.rs: wrong)

@@ -436,8 +436,11 @@ def order_members(members, y, *, method=None, counts=None, n_classes=None, folds
         see the module documentation for their sources.
     counts : array-like of shape (n_members, n_points), optional
         In-bag counts: member m is read at point i only where ``counts[m, i] == 0``. While
-        choosing, a point no chosen member has out of bag yet counts as an error
-        (classification) or as the squared error of the mean target (regression).
+        choosing (reduce-error), a point no chosen member has out of bag yet counts at the
+        mean loss of the members that have it out of bag (the share of them wrong, or their
+        mean squared error), so covering it gains only when a member beats a typical one
+        there and members fit on fewer distinct rows are not favoured for their larger
+        out-of-bag sets. Complementarity counts such a point as wrong.
     n_classes : int, optional
         Number of classes of integer labels (default: the largest label + 1).
     folds : int or None
