@@ -274,26 +274,32 @@ pub fn classes_in(members: ArrayView2<'_, i64>, y: Option<ArrayView1<'_, i64>>) 
 /// `members` for the first row that does not.
 pub fn check_probabilities<T: Real>(cells: ArrayView2<'_, T>) -> Result<()> {
     for row in cells.rows() {
-        let mut sum = 0.0;
-        for &p in row {
-            let p = p.to_f64();
-            if !(-PROBABILITY_TOLERANCE..=1.0 + PROBABILITY_TOLERANCE).contains(&p) {
-                return Err(Error::value(
-                    "members",
-                    format!("probabilities must lie in [0, 1], got {p}"),
-                ));
-            }
-            sum += p;
-        }
-        if (sum - 1.0).abs() > PROBABILITY_TOLERANCE {
+        check_probability_row(row.iter().map(|p| p.to_f64()))?;
+    }
+    Ok(())
+}
+
+/// [`check_probabilities`] of one member's probabilities at one point, given as values.
+#[inline]
+pub fn check_probability_row(row: impl Iterator<Item = f64>) -> Result<()> {
+    let mut sum = 0.0;
+    for p in row {
+        if !(-PROBABILITY_TOLERANCE..=1.0 + PROBABILITY_TOLERANCE).contains(&p) {
             return Err(Error::value(
                 "members",
-                format!(
-                    "each member's probabilities must sum to 1 over the classes \
-                     (within {PROBABILITY_TOLERANCE:e}), got {sum}"
-                ),
+                format!("probabilities must lie in [0, 1], got {p}"),
             ));
         }
+        sum += p;
+    }
+    if (sum - 1.0).abs() > PROBABILITY_TOLERANCE {
+        return Err(Error::value(
+            "members",
+            format!(
+                "each member's probabilities must sum to 1 over the classes \
+                 (within {PROBABILITY_TOLERANCE:e}), got {sum}"
+            ),
+        ));
     }
     Ok(())
 }

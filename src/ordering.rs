@@ -84,7 +84,7 @@ use rayon::prelude::*;
 
 use crate::error::{zeroed, Error, Result};
 use crate::members::{
-    check_probabilities, class_of, for_chunks, no_slots, vote, Chunks, Members, Targets,
+    check_probability_row, class_of, for_chunks, no_slots, vote, Chunks, Members, Targets,
 };
 use crate::numeric::Real;
 use crate::out_of_bag::InBagCounts;
@@ -305,16 +305,26 @@ impl<'a, T: Real> Problem<'a, T> {
         }
     }
 
+    /// Member m's probabilities at point j, by index (a view per cell costs more than the
+    /// cell).
+    #[inline]
+    fn probability_row<'s>(
+        a: &'s ndarray::ArrayView3<'_, T>,
+        m: usize,
+        i: usize,
+    ) -> impl Iterator<Item = f64> + 's {
+        (0..a.dim().2).map(move |c| a[[m, i, c]].to_f64())
+    }
+
     /// Adds member m's contribution at point j to `totals` (one row of n_classes).
     #[inline]
     fn add_class_row(&self, m: usize, j: usize, totals: &mut [f64]) {
         match &self.members {
             Members::Probabilities(a) => {
-                let row = a.slice(s![m, self.idx[j], ..]);
                 totals
                     .iter_mut()
-                    .zip(row)
-                    .for_each(|(t, p)| *t += p.to_f64());
+                    .zip(Self::probability_row(a, m, self.idx[j]))
+                    .for_each(|(t, p)| *t += p);
             }
             Members::Labels(a, _) => totals[a[[m, self.idx[j]]] as usize] += 1.0,
             Members::Values(_) => unreachable!("classes only"),
@@ -325,10 +335,12 @@ impl<'a, T: Real> Problem<'a, T> {
     #[inline]
     fn vote_with(&self, m: usize, j: usize, totals: &[f64]) -> usize {
         match &self.members {
-            Members::Probabilities(a) => {
-                let row = a.slice(s![m, self.idx[j], ..]);
-                vote(totals.iter().zip(row).map(|(t, p)| t + p.to_f64()))
-            }
+            Members::Probabilities(a) => vote(
+                totals
+                    .iter()
+                    .zip(Self::probability_row(a, m, self.idx[j]))
+                    .map(|(t, p)| t + p),
+            ),
             Members::Labels(a, _) => {
                 let l = a[[m, self.idx[j]]] as usize;
                 vote(
@@ -391,9 +403,9 @@ impl<'a, T: Real> Problem<'a, T> {
                 if outcome.is_err() {
                     return;
                 }
-                let row = a.slice(s![m, self.idx[j]..self.idx[j] + 1, ..]);
-                outcome = check_probabilities(row);
-                let label = vote(row.iter().map(|p| p.to_f64()));
+                let i = self.idx[j];
+                outcome = check_probability_row(Self::probability_row(a, m, i));
+                let label = vote(Self::probability_row(a, m, i));
                 if label == self.y_classes[j] {
                     right[j / 64] |= 1 << (j % 64);
                 }
@@ -1274,6 +1286,8 @@ pub fn order_curves<T: Real>(
             let mut sum = vec![0.0; cells];
             let mut totals = vec![0.0; width * if regression { 1 } else { classes }];
             let mut k = vec![0u32; width];
+            // each member's cells are checked the first time an order reaches it
+            let mut checked = vec![false; n_members];
             let reads = |m: usize, j: usize| match p.predict_row(m) {
                 None => true,
                 Some(bits) => bits[j / 64] >> (j % 64) & 1 == 1,
@@ -1282,6 +1296,7 @@ pub fn order_curves<T: Real>(
                 totals.fill(0.0);
                 k.fill(0);
                 for (step, &m) in order.iter().enumerate() {
+                    let check = !std::mem::replace(&mut checked[m], true);
                     for (t, j) in range.clone().enumerate() {
                         if !reads(m, j) {
                             continue;
@@ -1300,7 +1315,9 @@ pub fn order_curves<T: Real>(
                             }
                             totals[t] += v;
                         } else {
-                            check_class_cell(&p, m, j)?;
+                            if check {
+                                check_class_cell(&p, m, j)?;
+                            }
                             p.add_class_row(m, j, &mut totals[t * classes..(t + 1) * classes]);
                         }
                     }
@@ -1350,7 +1367,7 @@ pub fn order_curves<T: Real>(
 fn check_class_cell<T: Real>(p: &Problem<'_, T>, m: usize, j: usize) -> Result<()> {
     match &p.members {
         Members::Probabilities(a) => {
-            check_probabilities(a.slice(s![m, p.idx[j]..p.idx[j] + 1, ..]))
+            check_probability_row(Problem::probability_row(a, m, p.idx[j]))
         }
         Members::Labels(a, c) => class_of(a[[m, p.idx[j]]], *c, "members").map(drop),
         Members::Values(_) => Ok(()),

@@ -38,8 +38,8 @@ import bagwise
 
 #: Random train/test splits per check (at least 20: the standard error is taken from them).
 SPLITS = 20
-#: Members of each bag (the paper used bags of 200 trees; 100 keeps the file quick).
-MEMBERS = 100
+#: Members of each bag (bags of 200 trees, as in the paper's experiments, from memory).
+MEMBERS = 200
 #: Share of the members kept (within the paper's 15-30%).
 SHARE = 0.2
 #: Share of the rows held out for testing.
@@ -153,22 +153,29 @@ def test_compare_is_the_paired_criterion():
     assert compare(full + [0.1, 0.2, -0.2, 0.0], full).passes   # 0.025 <= 0.0854
 
 
-#: Classification cases the criterion fails on seed 0, with the numbers measured (mean test
-#: error of the pruned bag, of the full bag, the difference in standard errors). Kept visible
-#: as non-strict expected failures; the criterion is not loosened for them.
-#: Pass rates of the pruned bag over seeds 1-100 (tests/bench/ordering_pass_rate.py, 100
-#: members; target 99%), reduce_error / complementarity / margin_distance / orientation:
-#: breast cancer 55 / 57 / 62 / 57%, wine 73 / 86 / 91 / 63%, digits 12 / 35 / 80 / 79%.
-#: No case reaches the target, so the cases that pass on seed 0 pass by chance as well; the
-#: controls below fail on every seed (first 2: 0% everywhere) or nearly (last 20%: 0-11%).
-CLASSIFICATION_FAILS = {
-    ("breast_cancer", "reduce_error"): "seed 0: 0.05316 vs 0.04895, +0.00421 = +2.18 SE",
-    ("breast_cancer", "margin_distance"): "seed 0: 0.05263 vs 0.04895, +0.00368 = +2.05 SE",
-    ("wine", "reduce_error"): "seed 0: 0.04333 vs 0.03500, +0.00833 = +1.88 SE",
-    ("wine", "margin_distance"): "seed 0: 0.04417 vs 0.03500, +0.00917 = +1.60 SE",
-    ("wine", "orientation"): "seed 0: 0.04583 vs 0.03500, +0.01083 = +2.16 SE",
-    ("digits", "reduce_error"): "seed 0: 0.06102 vs 0.05818, +0.00284 = +1.49 SE",
+#: Pass rates of the criterion for the first 20% over seeds 1-100 (100 batches of 20 splits,
+#: 200 members; tests/bench/ordering_pass_rate.py --batches 100 --members 200 --regression),
+#: reduce_error / complementarity / margin_distance / orientation:
+#:   digits         100 / 100 / 100 / 100%   (mean difference -1.8 to -3.6 SE: pruning helps)
+#:   breast cancer   85 /  89 /  89 /  71%   (mean -0.2 to +0.4 SE)
+#:   wine            82 /  93 /  98 /  72%   (mean -1.1 to +0.4 SE)
+#:   Friedman #1    100% (reduce_error; mean -2.1 SE); diabetes 0% (mean +6.0 SE).
+#: Where the pruned bag is no better than the full one the criterion passes about 84% of the
+#: time whatever the number of splits (P(z <= 1) for a null paired difference), so breast
+#: cancer and wine cannot be asserted at the 99% a test needs: they are reported (non-strict
+#: expected failures, printed). The controls fail on every seed (first 2: 0%) or nearly
+#: (last 20%: 0-13% on the classification sets, 0% on Friedman #1, 55% on diabetes).
+PASS_RATES = {
+    ("digits", "reduce_error"): 100, ("digits", "complementarity"): 100,
+    ("digits", "margin_distance"): 100, ("digits", "orientation"): 100,
+    ("breast_cancer", "reduce_error"): 85, ("breast_cancer", "complementarity"): 89,
+    ("breast_cancer", "margin_distance"): 89, ("breast_cancer", "orientation"): 71,
+    ("wine", "reduce_error"): 82, ("wine", "complementarity"): 93,
+    ("wine", "margin_distance"): 98, ("wine", "orientation"): 72,
+    ("friedman1", "reduce_error"): 100, ("diabetes", "reduce_error"): 0,
 }
+REPORTED = {key: f"passes {rate}% of seeds 1-100 (below the 99% a test needs)"
+            for key, rate in PASS_RATES.items() if rate < 99}
 
 
 def _cases(fails, names, methods):
@@ -178,8 +185,7 @@ def _cases(fails, names, methods):
             for name in names for method in methods]
 
 
-@pytest.mark.parametrize("name, method", _cases(CLASSIFICATION_FAILS, CLASSIFICATION,
-                                                CLASS_METHODS))
+@pytest.mark.parametrize("name, method", _cases(REPORTED, CLASSIFICATION, CLASS_METHODS))
 def test_a_fifth_of_the_ordered_members_matches_the_full_bag(name, method):
     losses = batch(name, 0)
     result = compare(losses[method, "first 20%"], losses["full"])
@@ -187,17 +193,7 @@ def test_a_fifth_of_the_ordered_members_matches_the_full_bag(name, method):
     assert result.passes, f"{name}, {method}: {result}"
 
 
-#: Regression cases the criterion fails on seed 0, with the numbers measured (mean test
-#: squared error of the pruned bag, of the full bag, the difference in standard errors):
-#: reported, not asserted. Pass rates over seeds 1-100: diabetes 0%, Friedman #1 28%.
-REGRESSION_FAILS = {
-    ("diabetes", "reduce_error"): "seed 0: 3509 vs 3374, +135.5 = +7.07 SE",
-    ("friedman1", "reduce_error"): "seed 0: 6.872 vs 6.655, +0.217 = +2.00 SE",
-}
-
-
-@pytest.mark.parametrize("name, method", _cases(REGRESSION_FAILS, REGRESSION,
-                                                ("reduce_error",)))
+@pytest.mark.parametrize("name, method", _cases(REPORTED, REGRESSION, ("reduce_error",)))
 def test_regression_reported(name, method):
     losses = batch(name, 0)
     result = compare(losses[method, "first 20%"], losses["full"])
