@@ -122,13 +122,20 @@ def test_the_honest_curve_out_of_bag_weights_folds_by_the_points_they_reach():
 def test_members_within_reads_the_chosen_curve():
     members, y = _regression()
     result = bagwise.order_members(members, y)
-    for curve, values in (("honest", result.honest_curve), ("selected", result.curve),
-                          ("random", result.random_curve)):
+    def stays(values, tolerance):
+        inside = values <= (1 + tolerance) * result.ensemble_loss * (1 + 1e-12)
+        # from `found` on every size is inside, and the size before it is not
+        return next(k for k in range(1, len(values) + 1) if inside[k - 1:].all())
+
+    for curve, values in (("honest", result.honest_curve), ("selected", result.curve)):
         for tolerance in (0.01, 0.1, 0.5):
-            found = result.members_within(tolerance, curve)
-            inside = values <= (1 + tolerance) * result.ensemble_loss * (1 + 1e-12)
-            # from `found` on every size is inside, and the size before it is not
-            assert inside[found - 1:].all() and (found == 1 or not inside[found - 2])
+            assert result.members_within(tolerance, curve) == stays(values, tolerance)
+    # random: the median over the random orders of each order's own size (common practice:
+    # one order against one order, not against the smoother mean of the curves)
+    np.testing.assert_allclose(result.random_curves.mean(axis=0), result.random_curve)
+    for tolerance in (0.01, 0.1, 0.5):
+        sizes = [stays(c, tolerance) for c in result.random_curves]
+        assert result.members_within(tolerance, "random") == int(np.ceil(np.median(sizes)))
     with pytest.warns(bagwise.BagwiseWarning, match="no honest curve"):
         assert np.isnan(bagwise.order_members(members, y, folds=None).members_within())
     with pytest.raises(ValueError, match="`curve`: expected one of"):

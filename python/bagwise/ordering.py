@@ -201,6 +201,9 @@ class MemberOrder(Result):
         The random orders.
     random_curve : ndarray of float64
         Mean over ``member_orders`` of the loss of their first ``k`` members.
+    random_curves : ndarray of float64, shape (orders, n_members)
+        Each random order's own curve (``members_within(curve="random")`` reads them one
+        by one: a mean of curves is smoother than any one order).
     honest_curve : ndarray of float64
         The loss at each size of a subensemble chosen by the same method without the
         points it is measured on: the points are split at random into ``folds`` folds, each
@@ -234,6 +237,7 @@ class MemberOrder(Result):
     curve: np.ndarray
     member_orders: np.ndarray
     random_curve: np.ndarray
+    random_curves: np.ndarray
     honest_curve: np.ndarray
     ensemble_loss: float
 
@@ -254,7 +258,9 @@ class MemberOrder(Result):
 
         ``curve``: ``"honest"`` (default: the cross-fitted curve, or ``curve`` itself when
         ``held_out``), ``"selected"`` (the order on the points that chose it: optimistic)
-        or ``"random"``. At ``k = n_members`` every curve is the full ensemble's loss, so
+        or ``"random"``: the median over the random orders of each one's size (rounded
+        up), since one chosen order is compared with one order at a time, not with their
+        smoother mean. At ``k = n_members`` every curve is the full ensemble's loss, so
         the answer is at most ``n_members``; NaN with one `BagwiseWarning` when the curve
         was not computed (``folds=None``) or the full ensemble's loss is NaN.
         """
@@ -267,8 +273,14 @@ class MemberOrder(Result):
             return math.nan
         # A relative slack of 1e-12: the curves sum the same members in other orders.
         bound = (1 + tolerance) * self.ensemble_loss * (1 + 1e-12)
-        outside = np.flatnonzero(~(values <= bound))
-        return min(int(outside[-1]) + 2, self.n_members) if outside.size else 1
+
+        def stays(values):
+            outside = np.flatnonzero(~(values <= bound))
+            return min(int(outside[-1]) + 2, self.n_members) if outside.size else 1
+
+        if curve == "random":
+            return int(math.ceil(np.median([stays(c) for c in self.random_curves])))
+        return stays(values)
 
     def evaluate(self, members, y, *, counts=None, n_classes=None, n_jobs=None,
                  progress=False) -> MemberOrder:
@@ -297,7 +309,8 @@ class MemberOrder(Result):
         curve = curves[0]
         return dataclasses.replace(
             self, n_points=members.shape[1], held_out=True, curve=curve,
-            random_curve=curves[1:].mean(axis=0), honest_curve=curve.copy(),
+            random_curve=curves[1:].mean(axis=0), random_curves=curves[1:].copy(),
+            honest_curve=curve.copy(),
             ensemble_loss=float(curve[-1]))
 
     def to_frame(self):
@@ -347,7 +360,7 @@ class MemberOrder(Result):
                      else f"{_members(honest)} ({basis})"))
         if not (isinstance(random, float) and math.isnan(random)):
             rows.append(("within 1% of it, random order",
-                         f"{_members(random)} (mean of {self.orders} orders)"))
+                         f"{_members(random)} (median of {self.orders} orders)"))
         best = _best(self.honest_curve)
         if best is not None:
             rows.append((f"lowest {loss}", f"{_fmt(best[1])} with {_members(best[0] + 1)} ({basis})"))
@@ -518,4 +531,5 @@ def order_members(members, y, *, method=None, counts=None, n_classes=None, folds
         folds=folds, orders=orders, seed=seed, target_margin=target_margin,
         order=np.asarray(order, dtype=np.int64), sizes=np.arange(1, n_members + 1),
         curve=curve, member_orders=member_orders, random_curve=curves[1:].mean(axis=0),
+        random_curves=curves[1:],
         honest_curve=honest, ensemble_loss=float(curve[-1]))
