@@ -79,29 +79,58 @@ impl Container {
     /// # Errors
     /// `kind` when empty, longer than 64 bytes or not printable ASCII.
     pub fn to_bytes(&self) -> Result<Vec<u8>> {
-        let kind = self.kind.as_bytes();
-        if kind.is_empty() || kind.len() > MAX_KIND || !kind.iter().all(|b| b.is_ascii_graphic()) {
-            return Err(Error::value(
-                "kind",
-                "must be 1 to 64 printable ASCII characters",
-            ));
-        }
-        let mut out = Vec::with_capacity(
-            8 + 4 + 1 + kind.len() + 16 + self.metadata.len() + self.payload.len() + 4,
-        );
-        out.extend_from_slice(&MAGIC);
-        out.extend_from_slice(&FORMAT_VERSION.to_le_bytes());
-        out.push(kind.len() as u8);
-        out.extend_from_slice(kind);
-        out.extend_from_slice(&(self.metadata.len() as u64).to_le_bytes());
-        out.extend_from_slice(self.metadata.as_bytes());
-        out.extend_from_slice(&(self.payload.len() as u64).to_le_bytes());
-        out.extend_from_slice(&self.payload);
-        let crc = crc32(&out);
-        out.extend_from_slice(&crc.to_le_bytes());
+        let mut out = vec![0u8; encoded_len(&self.kind, &self.metadata, self.payload.len())];
+        encode_into(&self.kind, &self.metadata, &self.payload, &mut out)?;
         Ok(out)
     }
+}
 
+/// The size of the container of `kind`, `metadata` and a payload of `payload_len` bytes.
+pub fn encoded_len(kind: &str, metadata: &str, payload_len: usize) -> usize {
+    8 + 4 + 1 + kind.len() + 8 + metadata.len() + 8 + payload_len + 4
+}
+
+/// [`Container::to_bytes`] written into `out` (exactly [`encoded_len`] bytes) from a
+/// borrowed payload, so a caller can encode straight into its own buffer (a model file is
+/// mostly payload: no copy of it is made here).
+///
+/// # Errors
+/// `kind` when empty, longer than 64 bytes or not printable ASCII.
+///
+/// # Panics
+/// When `out` is not [`encoded_len`] bytes long.
+pub fn encode_into(kind: &str, metadata: &str, payload: &[u8], out: &mut [u8]) -> Result<()> {
+    let kind = kind.as_bytes();
+    if kind.is_empty() || kind.len() > MAX_KIND || !kind.iter().all(|b| b.is_ascii_graphic()) {
+        return Err(Error::value(
+            "kind",
+            "must be 1 to 64 printable ASCII characters",
+        ));
+    }
+    assert_eq!(
+        out.len(),
+        8 + 4 + 1 + kind.len() + 8 + metadata.len() + 8 + payload.len() + 4
+    );
+    let mut at = 0;
+    let mut put = |bytes: &[u8]| {
+        out[at..at + bytes.len()].copy_from_slice(bytes);
+        at += bytes.len();
+    };
+    put(&MAGIC);
+    put(&FORMAT_VERSION.to_le_bytes());
+    put(&[kind.len() as u8]);
+    put(kind);
+    put(&(metadata.len() as u64).to_le_bytes());
+    put(metadata.as_bytes());
+    put(&(payload.len() as u64).to_le_bytes());
+    put(payload);
+    let body = out.len() - 4;
+    let crc = crc32(&out[..body]);
+    out[body..].copy_from_slice(&crc.to_le_bytes());
+    Ok(())
+}
+
+impl Container {
     /// Decodes and verifies a container.
     ///
     /// # Errors

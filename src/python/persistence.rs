@@ -4,7 +4,7 @@ use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::to_py_err;
-use crate::persistence::{crc32, Container};
+use crate::persistence::{crc32, encode_into, encoded_len, Container};
 
 /// Encodes a container: magic, version, kind tag, JSON metadata, payload, CRC-32.
 #[pyfunction]
@@ -14,13 +14,11 @@ fn pack_container<'py>(
     metadata: String,
     payload: &[u8],
 ) -> PyResult<Bound<'py, PyBytes>> {
-    let container = Container {
-        kind,
-        metadata,
-        payload: payload.to_vec(),
-    };
-    let bytes = container.to_bytes().map_err(to_py_err)?;
-    Ok(PyBytes::new(py, &bytes))
+    // encoded straight into the Python bytes: no copy of the payload on the way
+    let len = encoded_len(&kind, &metadata, payload.len());
+    PyBytes::new_with(py, len, |out| {
+        encode_into(&kind, &metadata, payload, out).map_err(to_py_err)
+    })
 }
 
 /// Verifies and decodes a container into (kind, metadata, payload).
