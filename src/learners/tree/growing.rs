@@ -680,6 +680,10 @@ impl<'a> Grower<'a> {
                 histogram: left_h,
             });
         }
+        // The node and value vectors grew by doubling; a kept tree holds only what it uses
+        // (up to half its memory otherwise, for as long as the model lives).
+        self.tree.nodes.shrink_to_fit();
+        self.tree.values.shrink_to_fit();
         Some(self.tree)
     }
 }
