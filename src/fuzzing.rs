@@ -388,7 +388,7 @@ pub fn fix_payload_length(data: &mut [u8]) {
 
 /// Whether a mutation at byte `at` (index `k` among bits or bytes) is made with `stride`.
 fn visited(at: usize, k: usize, stride: usize) -> bool {
-    at < EVERY_BYTE_BELOW || k % stride.max(1) == 0
+    at < EVERY_BYTE_BELOW || k.is_multiple_of(stride.max(1))
 }
 
 /// One random byte-level edit: flip, set to an interesting value, insert, delete, or copy

@@ -390,6 +390,8 @@ pub trait Count: Copy + Default + Send + Sync + 'static {
     const MAX: u64;
     /// Adds one; returns `true` if that overflowed (the stored value is then unusable).
     fn increment(&mut self) -> bool;
+    /// Adds one where the caller knows it cannot overflow (wraps if it could).
+    fn increment_unchecked(&mut self);
     /// The value `v`, or `None` if it does not fit.
     fn try_from_u64(v: u64) -> Option<Self>;
     /// Widens to u64.
@@ -405,6 +407,10 @@ macro_rules! impl_count {
                 let (value, overflow) = self.overflowing_add(1);
                 *self = value;
                 overflow
+            }
+            #[inline]
+            fn increment_unchecked(&mut self) {
+                *self = self.wrapping_add(1);
             }
             #[inline]
             fn try_from_u64(v: u64) -> Option<Self> {
@@ -645,7 +651,7 @@ impl Resampler {
     ) -> Result<()> {
         self.require_counts()?;
         let n = self.n_rows;
-        if out.is_empty() || out.len() % n != 0 {
+        if out.is_empty() || !out.len().is_multiple_of(n) {
             return Err(Error::value(
                 "members",
                 format!(
@@ -701,7 +707,7 @@ impl Resampler {
     ) -> Result<()> {
         let n = self.n_rows;
         let members = out.len() / n;
-        if members % group_size != 0 {
+        if !members.is_multiple_of(group_size) {
             return Err(Error::value(
                 "n_members",
                 format!(
@@ -735,6 +741,12 @@ impl Resampler {
                     "scheme",
                     "little bags are drawn a whole group at a time, not member by member",
                 ))
+            }
+            (Plan::Rows { draws }, Scheme::Bootstrap) if *draws as u64 <= T::MAX => {
+                // No row can pass T::MAX, so the hot loop needs no overflow check.
+                let n = row.len();
+                d.for_each_below(n, *draws, |i| row[i].increment_unchecked());
+                false
             }
             (Plan::Rows { draws }, Scheme::Bootstrap) => {
                 let n = row.len();
@@ -882,7 +894,7 @@ impl Resampler {
             ));
         }
         let n = self.n_rows;
-        if out.is_empty() || out.len() % n != 0 {
+        if out.is_empty() || !out.len().is_multiple_of(n) {
             return Err(Error::value(
                 "members",
                 format!(
