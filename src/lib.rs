@@ -28,6 +28,7 @@ pub mod decomposition;
 pub mod diversity;
 pub mod error;
 pub mod fuzzing;
+mod gram_kernel;
 pub mod intervals;
 pub mod learners;
 pub mod members;

@@ -35,12 +35,14 @@
 //! ```
 
 use std::collections::BTreeMap;
+use std::ops::Range;
 
 use ndarray::{Array1, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
+use crate::gram_kernel::{tile_dots_u8, MAX_COLUMNS};
 use crate::members::MergeableState;
 use crate::numeric::Real;
 use crate::parallel::{watched, Monitor, Pool, Watch};
@@ -69,31 +71,11 @@ pub struct CountGram {
     rows_never_out_of_bag: usize,
 }
 
-/// Rows per column block in the Gram kernels: 16 members × 8 KiB stay in L1/L2.
-const COLUMN_BLOCK: usize = 8192;
+/// Rows per column block in the Gram kernels: 16 members × 8 KiB stay in L1/L2 (and the
+/// u8 kernel's 32-bit lanes cannot overflow).
+const COLUMN_BLOCK: usize = MAX_COLUMNS;
 /// Members per tile side in the Gram kernels.
 const TILE: usize = 16;
-
-/// Σ_i a_i b_i for u8 counts: u32 lanes are exact for up to 66 051 products of 255², so
-/// blocks of 8192 cannot overflow; the block sums are added in u64.
-#[inline]
-fn dot_u8(a: &[u8], b: &[u8]) -> u64 {
-    let mut lanes = [0u32; 32];
-    let chunks_a = a.chunks_exact(32);
-    let chunks_b = b.chunks_exact(32);
-    let tail: u64 = chunks_a
-        .remainder()
-        .iter()
-        .zip(chunks_b.remainder())
-        .map(|(&x, &y)| u64::from(x) * u64::from(y))
-        .sum();
-    for (ca, cb) in chunks_a.zip(chunks_b) {
-        for k in 0..32 {
-            lanes[k] += u32::from(u16::from(ca[k]) * u16::from(cb[k]));
-        }
-    }
-    lanes.iter().map(|&v| u64::from(v)).sum::<u64>() + tail
-}
 
 /// Σ_i a_i b_i for any count type, accumulated in u128 (cannot overflow).
 #[inline]
@@ -113,12 +95,37 @@ pub trait GramCount: Count {
     }
     /// Σ_i a_i b_i as an exact integer.
     fn dot_exact(a: &[Self], b: &[Self]) -> u128;
+    /// Calls `add(a, b, Σ_i x_a[i] · x_b[i])` for every `a ∈ ra`, `b ∈ rb` with `b ≥ a`,
+    /// `x_m = row(m)` (equal lengths, at most [`COLUMN_BLOCK`]).
+    fn tile_dots<'r>(
+        ra: Range<usize>,
+        rb: Range<usize>,
+        row: impl Fn(usize) -> &'r [Self],
+        mut add: impl FnMut(usize, usize, u128),
+    ) where
+        Self: 'r,
+    {
+        for a in ra {
+            for b in rb.start.max(a)..rb.end {
+                add(a, b, Self::dot_exact(row(a), row(b)));
+            }
+        }
+    }
 }
 
 impl GramCount for u8 {
     #[inline]
     fn dot_exact(a: &[u8], b: &[u8]) -> u128 {
-        u128::from(dot_u8(a, b))
+        u128::from(crate::gram_kernel::dot_u8(a, b))
+    }
+
+    fn tile_dots<'r>(
+        ra: Range<usize>,
+        rb: Range<usize>,
+        row: impl Fn(usize) -> &'r [u8],
+        mut add: impl FnMut(usize, usize, u128),
+    ) {
+        tile_dots_u8(ra, rb, row, |a, b, v| add(a, b, u128::from(v)));
     }
 }
 
@@ -264,13 +271,14 @@ impl CountGram {
                         return;
                     }
                     let end = (start + COLUMN_BLOCK).min(n_rows);
-                    for a in ra.clone() {
-                        let xa = &row(a)[start..end];
-                        for b in rb.start.max(a)..rb.end {
-                            acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                                C::dot(xa, &row(b)[start..end]);
-                        }
-                    }
+                    C::tile_dots(
+                        ra.clone(),
+                        rb.clone(),
+                        |m| &row(m)[start..end],
+                        |a, b, v| {
+                            acc[(a - ra.start) * TILE + (b - rb.start)] += v as f64;
+                        },
+                    );
                 }
             },
         )?;
@@ -319,13 +327,14 @@ impl CountGram {
                     return;
                 }
                 let weight = out_of_bag_weight(o);
-                for a in ra.clone() {
-                    let xa = &row(a)[start..end];
-                    for b in rb.start.max(a)..rb.end {
-                        acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                            weight * dot_u8(xa, &row(b)[start..end]) as f64;
-                    }
-                }
+                tile_dots_u8(
+                    ra.clone(),
+                    rb.clone(),
+                    |m| &row(m)[start..end],
+                    |a, b, v| {
+                        acc[(a - ra.start) * TILE + (b - rb.start)] += weight * v as f64;
+                    },
+                );
             }
         })?;
         self.out_of_bag_gram = Some(h);
@@ -590,16 +599,19 @@ fn segment_grams(
                 .par_iter()
                 .map(|&(a0, b0)| {
                     let mut acc = vec![0u64; depth * TILE * TILE];
-                    for a in a0..(a0 + TILE).min(members) {
+                    let (ra, rb) = (a0..(a0 + TILE).min(members), b0..(b0 + TILE).min(members));
+                    for (k, &(start, end, _)) in segments.iter().enumerate() {
                         if watch.stopped() {
                             break;
                         }
-                        for b in b0.max(a)..(b0 + TILE).min(members) {
-                            for (k, &(start, end, _)) in segments.iter().enumerate() {
-                                acc[(k * TILE + a - a0) * TILE + (b - b0)] =
-                                    dot_u8(&row(a)[start..end], &row(b)[start..end]);
-                            }
-                        }
+                        tile_dots_u8(
+                            ra.clone(),
+                            rb.clone(),
+                            |m| &row(m)[start..end],
+                            |a, b, v| {
+                                acc[(k * TILE + a - a0) * TILE + (b - b0)] = v;
+                            },
+                        );
                     }
                     (a0, b0, acc)
                 })
@@ -857,13 +869,12 @@ impl CountGramState {
                             return;
                         }
                         let end = (start + COLUMN_BLOCK).min(n);
-                        for a in ra.clone() {
-                            let xa = &row(a)[start..end];
-                            for b in rb.start.max(a)..rb.end {
-                                acc[(a - ra.start) * TILE + (b - rb.start)] +=
-                                    C::dot_exact(xa, &row(b)[start..end]);
-                            }
-                        }
+                        C::tile_dots(
+                            ra.clone(),
+                            rb.clone(),
+                            |m| &row(m)[start..end],
+                            |a, b, v| acc[(a - ra.start) * TILE + (b - rb.start)] += v,
+                        );
                     }
                 })?;
             part.gram = packed_upper(&full)?;
