@@ -1,0 +1,185 @@
+"""Benchmark: how the native tree fit grows with the rows and the classes, and what it holds
+in memory, each figure a ratio against a reference measured in the same run.
+
+Run after a release build (``make bench`` or ``maturin develop --release``):
+
+    python tests/bench/bench_fit_scaling.py [--members 100] [--large 1000000]
+        [--only memory|scaling|classes]
+
+Every contender runs in its own subprocess, so its peak resident memory (``getrusage``) holds
+nothing of the others.
+
+- memory: ``BagRegressor(learner="tree")`` on Friedman #1 (sklearn.datasets.make_friedman1),
+  100,000 rows x 10 features; the rise of peak RSS over the fit against the model file
+  (``bagwise.save``) and the features. Target: rise <= 2 x file + 100 MiB.
+- scaling: fit time at 10k, 100k and ``--large`` rows (Friedman #1, 10 features). Target:
+  t(10 n) / t(n) <= 10 log(10 n) / log(n) (no faster than n log n); at the largest size the
+  same fit in LightGBM's random-forest mode (4,096 leaves, bagging fraction 0.632 every
+  iteration, all features), when lightgbm is installed (it is not a dependency).
+- classes: sklearn's digits (1,797 rows, 64 features, 10 classes) and make_classification
+  with 10 classes at 200,000 rows, against scikit-learn's RandomForestClassifier with every
+  feature tried (bagged CART trees), next to regression at 100,000 rows. Target: the speed-up
+  on 10 classes at least that of regression.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import subprocess
+import sys
+
+CHILD = r"""
+import json, os, resource, sys, tempfile, time
+import numpy as np
+
+spec = json.loads(sys.argv[1])
+which, data, n, members = spec["which"], spec["data"], spec["rows"], spec["members"]
+
+def rss_mib():
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+if data == "friedman1":
+    from sklearn.datasets import make_friedman1
+    x, y = make_friedman1(n_samples=n, noise=1.0, random_state=0)
+    task, n_classes = "regression", None
+elif data == "digits":
+    from sklearn.datasets import load_digits
+    x, y = load_digits(return_X_y=True)
+    x = x.astype(np.float64)
+    task, n_classes = "classification", 10
+else:
+    from sklearn.datasets import make_classification
+    x, y = make_classification(n_samples=n, n_features=20, n_informative=10, n_classes=10,
+                               random_state=0)
+    task, n_classes = "classification", 10
+import bagwise
+from bagwise._core import TreeEnsemble
+before = rss_mib()
+extra = {}
+start = time.perf_counter()
+if which == "estimator":
+    est = (bagwise.BagRegressor if task == "regression" else bagwise.BagClassifier)(
+        learner="tree", n_members=members, random_state=0, n_jobs=2)
+    est.fit(x, y)
+    fit_seconds = time.perf_counter() - start
+    fit_peak = rss_mib() - before
+    with tempfile.TemporaryDirectory() as tmp:
+        path = os.path.join(tmp, "model.bagwise")
+        bagwise.save(est, path)
+        extra["file_mib"] = os.path.getsize(path) / 2**20
+    extra["fit_peak_mib"] = fit_peak
+elif which == "bagwise":
+    counts = bagwise.resample(len(y), members, rng=0).counts
+    if task == "regression":
+        TreeEnsemble.fit(x, y, counts, task=task, seed=0, n_jobs=2)
+    else:
+        TreeEnsemble.fit(x, y.astype(np.int64), counts, task=task, n_classes=n_classes, seed=0,
+                         n_jobs=2)
+    fit_seconds = time.perf_counter() - start
+elif which == "sklearn":
+    from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
+    cls = RandomForestRegressor if task == "regression" else RandomForestClassifier
+    cls(n_estimators=members, max_features=None if task != "regression" else 1.0,
+        bootstrap=True, n_jobs=2, random_state=0).fit(x, y)
+    fit_seconds = time.perf_counter() - start
+else:
+    import lightgbm
+    params = dict(boosting_type="rf", n_estimators=members, num_leaves=4096,
+                  bagging_fraction=0.632, bagging_freq=1, feature_fraction=1.0,
+                  min_child_samples=1, min_child_weight=0.0, n_jobs=2, random_state=0,
+                  verbose=-1)
+    model = (lightgbm.LGBMRegressor if task == "regression" else lightgbm.LGBMClassifier)(**params)
+    model.fit(x, y)
+    fit_seconds = time.perf_counter() - start
+print(json.dumps({"fit": fit_seconds, "peak_extra_mib": rss_mib() - before,
+                  "features_mib": x.nbytes / 2**20, **extra}))
+"""
+
+
+def measure(which: str, data: str, rows: int, members: int) -> dict:
+    spec = json.dumps({"which": which, "data": data, "rows": rows, "members": members})
+    out = subprocess.run([sys.executable, "-c", CHILD, spec], check=True, capture_output=True,
+                         text=True)
+    return json.loads(out.stdout)
+
+
+def has_lightgbm() -> bool:
+    try:
+        import lightgbm  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def memory(members: int, failures: list[str]) -> None:
+    r = measure("estimator", "friedman1", 100_000, members)
+    budget = 2 * r["file_mib"] + 100
+    print(f"memory: BagRegressor(learner='tree', n_members={members}).fit, 100,000 x 10")
+    print(f"  peak RSS rise over the fit {r['fit_peak_mib']:.0f} MiB; model file "
+          f"{r['file_mib']:.0f} MiB; features {r['features_mib']:.1f} MiB; fit {r['fit']:.1f} s")
+    print(f"  rise / (2 x file + 100 MiB) = {r['fit_peak_mib'] / budget:.2f} (target <= 1); "
+          f"rise / (file + features) = "
+          f"{r['fit_peak_mib'] / (r['file_mib'] + r['features_mib']):.2f}")
+    if r["fit_peak_mib"] > budget:
+        failures.append("fit memory above 2 x model file + 100 MiB")
+
+
+def scaling(members: int, large: int, failures: list[str]) -> None:
+    sizes = [10_000, 100_000, large]
+    times = {n: measure("bagwise", "friedman1", n, members)["fit"] for n in sizes}
+    print(f"scaling: TreeEnsemble.fit, Friedman #1 x 10 features, {members} members, 2 threads")
+    for small, big in zip(sizes, sizes[1:]):
+        ratio = times[big] / times[small]
+        bound = big / small * math.log(big) / math.log(small)
+        print(f"  {small:>9,} -> {big:>9,} rows: {times[small]:7.2f} s -> {times[big]:7.2f} s, "
+              f"ratio {ratio:.1f} (n log n bound {bound:.1f}) -> {ratio / bound:.2f} of the bound")
+        if ratio > bound:
+            failures.append(f"fit grows faster than n log n from {small:,} to {big:,} rows")
+    if has_lightgbm():
+        lgb = measure("lightgbm", "friedman1", large, members)
+        print(f"  LightGBM random-forest mode at {large:,} rows: {lgb['fit']:.2f} s -> "
+              f"bagwise {lgb['fit'] / times[large]:.1f}x faster (target >= 1)")
+        if lgb["fit"] < times[large]:
+            failures.append(f"slower than LightGBM's random-forest mode at {large:,} rows")
+    else:
+        print("  (lightgbm not installed: the comparison at the largest size is skipped)")
+
+
+def classes(members: int, failures: list[str]) -> None:
+    print(f"classes: speed-up over RandomForest (every feature tried), {members} members, "
+          "2 threads")
+    ups = {}
+    for data, rows in (("friedman1", 100_000), ("digits", 1_797), ("ten_classes", 200_000)):
+        ref = measure("sklearn", data, rows, members)
+        ours = measure("bagwise", data, rows, members)
+        ups[data] = ref["fit"] / ours["fit"]
+        print(f"  {data:<12} {rows:>9,} rows: sklearn {ref['fit']:7.2f} s, bagwise "
+              f"{ours['fit']:7.2f} s -> {ups[data]:.1f}x")
+    for data in ("digits", "ten_classes"):
+        print(f"  {data}: speed-up / regression's = {ups[data] / ups['friedman1']:.2f} "
+              "(target >= 1)")
+        if ups[data] < ups["friedman1"]:
+            failures.append(f"{data}: less far ahead of scikit-learn than regression")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--members", type=int, default=100)
+    parser.add_argument("--large", type=int, default=1_000_000)
+    parser.add_argument("--only", choices=["memory", "scaling", "classes"], default=None)
+    args = parser.parse_args()
+    failures: list[str] = []
+    if args.only in (None, "memory"):
+        memory(args.members, failures)
+    if args.only in (None, "scaling"):
+        scaling(args.members, args.large, failures)
+    if args.only in (None, "classes"):
+        classes(args.members, failures)
+    if failures:
+        raise SystemExit("targets missed: " + "; ".join(failures))
+
+
+if __name__ == "__main__":
+    main()
