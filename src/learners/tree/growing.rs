@@ -118,6 +118,11 @@ pub(super) struct Grower<'a> {
     pub(super) slot_row: Vec<u32>,
     pub(super) weight: Vec<f64>,
     pub(super) target: Vec<f64>,
+    /// Per slot, regression: weight · target (the product every sum adds, computed once);
+    /// classification: empty.
+    pub(super) weighted_target: Vec<f64>,
+    /// Per slot, classification: the class code; regression: empty.
+    pub(super) class: Vec<u32>,
     /// The slots of each node's range `start..end`, in no particular order.
     pub(super) order: Vec<u32>,
     /// Per feature, `rank << 32 | slot` sorted by rank within each node's range (kept
@@ -152,9 +157,9 @@ impl<'a> Grower<'a> {
         let w = self.weight[p];
         stats[0] += w;
         if self.regression {
-            stats[1] += w * self.target[p];
+            stats[1] += self.weighted_target[p];
         } else {
-            stats[1 + self.target[p] as usize] += w;
+            stats[1 + self.class[p] as usize] += w;
         }
     }
 
@@ -283,9 +288,9 @@ impl<'a> Grower<'a> {
             let w = self.weight[p];
             h[o] += w;
             if self.regression {
-                h[o + 1] += w * self.target[p];
+                h[o + 1] += self.weighted_target[p];
             } else {
-                h[o + 1 + self.target[p] as usize] += w;
+                h[o + 1 + self.class[p] as usize] += w;
             }
         }
     }
@@ -366,7 +371,7 @@ impl<'a> Grower<'a> {
                 let slot = (keys[i] & 0xFFFF_FFFF) as usize;
                 let w = self.weight[slot];
                 wl += w;
-                sl += w * self.target[slot];
+                sl += self.weighted_target[slot];
                 let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
                 let wr = w_total - wl;
                 if rank == next || wl < self.min_leaf || wr < self.min_leaf {
@@ -393,7 +398,7 @@ impl<'a> Grower<'a> {
             for i in 0..keys.len().saturating_sub(1) {
                 let slot = (keys[i] & 0xFFFF_FFFF) as usize;
                 let w = self.weight[slot];
-                let k = 1 + self.target[slot] as usize;
+                let k = 1 + self.class[slot] as usize;
                 let right_k = total[k] - left[k];
                 squares_left += w * (2.0 * left[k] + w);
                 squares_right += w * (w - 2.0 * right_k);
@@ -892,7 +897,18 @@ impl CheckedTreeParams {
                 }
             }
         }
-        let target_pos = rows.iter().map(|&r| target[r as usize]).collect();
+        let target_pos: Vec<f64> = rows.iter().map(|&r| target[r as usize]).collect();
+        let regression = p.task == Task::Regression;
+        let weighted_target = if regression {
+            target_pos.iter().zip(&weight).map(|(y, w)| w * y).collect()
+        } else {
+            Vec::new()
+        };
+        let class = if regression {
+            Vec::new()
+        } else {
+            target_pos.iter().map(|&c| c as u32).collect()
+        };
         let n_in = rows.len();
         let mut sorted = Vec::new();
         if !columns.order.is_empty() {
@@ -919,13 +935,15 @@ impl CheckedTreeParams {
         let grower = Grower {
             columns,
             config: p,
-            regression: p.task == Task::Regression,
+            regression,
             stat_width,
             min_leaf: p.min_leaf as f64,
             order: (0..n_in as u32).collect(),
             slot_row: rows,
             weight,
             target: target_pos,
+            weighted_target,
+            class,
             sorted,
             keys: Vec::new(),
             goes_left: vec![false; n_in],
