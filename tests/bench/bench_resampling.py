@@ -39,7 +39,16 @@ before = rss_mib()
 start = time.perf_counter()
 counts = run()
 seconds = time.perf_counter() - start
-print(json.dumps({"seconds": seconds, "peak_extra_mib": rss_mib() - before,
+peak = rss_mib() - before
+# Then the best of two more calls: the memory of the result has been touched once (the
+# first call pays the operating system's page faults on a fresh array, both contenders).
+warm = []
+for _ in range(2):
+    counts = None
+    start = time.perf_counter()
+    counts = run()
+    warm.append(time.perf_counter() - start)
+print(json.dumps({"seconds": seconds, "warm": min(warm), "peak_extra_mib": peak,
                   "counts_mib": counts.nbytes / 2**20, "dtype": str(counts.dtype),
                   "oob_share": float((counts == 0).mean())}))
 """
@@ -60,9 +69,11 @@ def main() -> None:
     ours = measure("bagwise", args.rows, args.members)
     print(f"resample({args.rows:,}, {args.members:,}) bootstrap counts")
     for name, r in (("numpy loop", ref), ("bagwise", ours)):
-        print(f"  {name:<11} {r['seconds']:8.3f} s   peak extra {r['peak_extra_mib']:8.1f} MiB"
-              f"   counts {r['counts_mib']:.1f} MiB ({r['dtype']})   oob {r['oob_share']:.4f}")
-    print(f"  speed-up: {ref['seconds'] / ours['seconds']:.1f}x (target >= 10x)")
+        print(f"  {name:<11} first call {r['seconds']:8.3f} s, then {r['warm']:8.3f} s   "
+              f"peak extra {r['peak_extra_mib']:8.1f} MiB   counts {r['counts_mib']:.1f} MiB "
+              f"({r['dtype']})   oob {r['oob_share']:.4f}")
+    print(f"  speed-up: first call {ref['seconds'] / ours['seconds']:.1f}x (target >= 10x), "
+          f"later calls {ref['warm'] / ours['warm']:.1f}x")
     extra = ours["peak_extra_mib"] - ours["counts_mib"]
     print(f"  bagwise peak beyond the counts array: {extra:.1f} MiB "
           f"(target O(n_rows): a few MiB at this size)")
