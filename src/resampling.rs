@@ -994,6 +994,85 @@ fn subsample_into<T: Count>(
     }
 }
 
+/// Entries summed exactly in i32 before they join a row's i64 total: 4096 entries of at
+/// most 2^16 in magnitude stay below 2^31, and the i32 sums vectorise.
+const TOTAL_CHUNK: usize = 4096;
+
+/// An 8- or 16-bit count type; only signed types need their minimum looked for.
+pub trait SmallCount: Copy + Into<i32> + Send + Sync {
+    const SIGNED: bool;
+}
+
+macro_rules! impl_small_count {
+    ($($t:ty: $signed:expr),*) => {$(impl SmallCount for $t { const SIGNED: bool = $signed; })*};
+}
+impl_small_count!(u8: false, u16: false, i8: true, i16: true);
+
+/// Sum and minimum (`i32::MAX` for unsigned types) of one chunk of at most [`TOTAL_CHUNK`].
+#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+fn chunk_summary<C: SmallCount>(values: &[C]) -> (i32, i32) {
+    let sum = values.iter().map(|&c| c.into()).sum::<i32>();
+    let min = if C::SIGNED {
+        values.iter().map(|&c| c.into()).min().unwrap_or(i32::MAX)
+    } else {
+        i32::MAX
+    };
+    (sum, min)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn chunk_summary_avx2<C: SmallCount>(values: &[C]) -> (i32, i32) {
+    chunk_summary(values)
+}
+
+fn chunk_summary_dispatch<C: SmallCount>(values: &[C]) -> (i32, i32) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { chunk_summary_avx2(values) };
+        }
+    }
+    chunk_summary(values)
+}
+
+/// The row totals (as f64, exact below 2^53) and the smallest entry (0 at most for
+/// unsigned types) of in-bag counts (members, rows) of an 8- or 16-bit integer type, any
+/// strides, rows in parallel.
+pub fn count_row_totals<C: SmallCount>(
+    counts: ndarray::ArrayView2<'_, C>,
+    pool: &Pool,
+) -> (Vec<f64>, i64) {
+    let row_summary = |row: ndarray::ArrayView1<'_, C>| -> (f64, i64) {
+        let (mut total, mut low) = (0i64, i64::MAX);
+        for chunk in row.axis_chunks_iter(ndarray::Axis(0), TOTAL_CHUNK) {
+            let (sum, min) = match chunk.as_slice() {
+                Some(values) => chunk_summary_dispatch(values),
+                None => {
+                    let min = chunk.iter().map(|&c| c.into()).min();
+                    (
+                        chunk.iter().map(|&c| c.into()).sum::<i32>(),
+                        min.unwrap_or(i32::MAX),
+                    )
+                }
+            };
+            total += i64::from(sum);
+            low = low.min(i64::from(min));
+        }
+        (total as f64, low)
+    };
+    let rows: Vec<(f64, i64)> = pool.run(|| {
+        (0..counts.nrows())
+            .into_par_iter()
+            .map(|member| row_summary(counts.row(member)))
+            .collect()
+    });
+    let low = rows.iter().map(|r| r.1).min().unwrap_or(0);
+    let low = if C::SIGNED { low } else { low.min(0) };
+    (rows.into_iter().map(|r| r.0).collect(), low)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1341,5 +1420,30 @@ mod tests {
         assert_eq!(r.max_possible_count(), 1);
         assert_eq!(r.group_size(), 2);
         assert_eq!(Scheme::parse("little_bags").unwrap().name(), "little_bags");
+    }
+
+    #[test]
+    fn count_row_totals_are_exact_with_any_strides() {
+        // Rows longer than one i32 chunk, with values at the type's extremes.
+        let (m, n) = (3, 3 * TOTAL_CHUNK + 5);
+        let counts = Array2::from_shape_fn((m, n), |(i, j)| match (i + j) % 4 {
+            0 => i16::MIN,
+            1 => i16::MAX,
+            _ => (j % 7) as i16,
+        });
+        let naive: Vec<f64> = counts
+            .outer_iter()
+            .map(|r| r.iter().map(|&c| i64::from(c)).sum::<i64>() as f64)
+            .collect();
+        let pool = Pool::Global;
+        let (totals, low) = count_row_totals(counts.view(), &pool);
+        assert_eq!(totals, naive);
+        assert_eq!(low, i64::from(i16::MIN));
+        let transposed = counts.t().to_owned();
+        let (strided, low) = count_row_totals(transposed.t(), &pool);
+        assert_eq!(strided, naive);
+        assert_eq!(low, i64::from(i16::MIN));
+        let small = Array2::from_shape_fn((2, 9), |(i, j)| (i * 9 + j) as u8 + 1);
+        assert_eq!(count_row_totals(small.view(), &pool).0, vec![45.0, 126.0]);
     }
 }

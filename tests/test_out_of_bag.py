@@ -571,3 +571,71 @@ def test_missing_in_bag_entries_are_ignored():
     bad[np.nonzero(counts == 0)[0][0], np.nonzero(counts == 0)[1][0]] = np.nan
     with pytest.raises(ValueError, match="`members`"):
         bagwise.out_of_bag(bad, counts, y)
+
+
+def test_missing_in_bag_entries_retry_keeps_progress_monotone_and_streams_work():
+    # The missing in-bag entries are only looked for after the core refuses the members
+    # (far into the points here, so progress was reported before the retry).
+    rng = np.random.default_rng(8)
+    n, m = 150_000, 5   # more points than one round of blocks on one thread
+    counts = draw_counts(n, m, seed=8)
+    members = rng.normal(size=(m, n))
+    y = rng.normal(size=n)
+    marked = members.copy()
+    in_bag = np.flatnonzero(counts[3] > 0)
+    marked[3, in_bag[in_bag > 140_000][0]] = np.inf
+    reports = []
+    got = bagwise.out_of_bag(marked, counts, y, n_jobs=1,
+                             progress=lambda done, total: reports.append(done))
+    want = reference(members, counts, y, "regression")
+    np.testing.assert_allclose(got.prediction, want["prediction"], rtol=1e-12)
+    assert reports == sorted(reports) and reports[-1] == n
+    stream = bagwise.out_of_bag_stream().update(marked[:, :90_000], counts[:, :90_000],
+                                                y[:90_000])
+    stream.update(marked[:, 90_000:], counts[:, 90_000:], y[90_000:])
+    assert stream.result().ensemble_loss == pytest.approx(want["squared_error"], rel=1e-12)
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.float32])
+def test_values_over_block_and_group_boundaries(dtype):
+    # More points than one block (not a multiple of it), every member size on the curve
+    # and a member with no out-of-bag point; float32 members are summed in float64.
+    rng = np.random.default_rng(9)
+    n, m = 2 * 16_384 + 77, 21
+    counts = draw_counts(n, m, seed=9)
+    counts[4] = 1
+    members = (rng.normal(size=(m, n)) * 10).astype(dtype)
+    y = rng.normal(size=n)
+    sizes = list(range(1, m + 1))
+    got = bagwise.out_of_bag(members, counts, y, sizes=sizes)
+    for k in (1, 4, 5, 8, 9, 16, 17, m):
+        want = reference(members, counts, y, "regression", k=k)
+        assert got.curve[k - 1] == pytest.approx(want["squared_error"], rel=1e-12)
+        assert got.n_covered[k - 1] == want["covered"]
+    np.testing.assert_allclose(got.prediction, want["prediction"], rtol=1e-12)
+    np.testing.assert_array_equal(got.n_out_of_bag, want["n_oob"])
+
+
+@pytest.mark.parametrize("dtype", [np.uint8, np.int8, np.uint16, np.int16, np.int32, np.uint64])
+def test_count_dtypes_and_strides_give_the_same_result(dtype):
+    rng = np.random.default_rng(10)
+    n, m = 3_001, 12
+    counts = draw_counts(n, m, seed=10)
+    members = rng.normal(size=(m, n))
+    y = rng.normal(size=n)
+    want = reference(members, counts, y, "regression")
+    # Counts laid out point-major, and members read through a step of two.
+    strided_counts = np.asfortranarray(counts.astype(dtype))
+    wide = np.repeat(members, 2, axis=1)[:, ::2]
+    got = bagwise.out_of_bag(wide, strided_counts, y)
+    np.testing.assert_allclose(got.prediction, want["prediction"], rtol=1e-12)
+    assert got.ensemble_loss == pytest.approx(want["squared_error"], rel=1e-12)
+
+
+@pytest.mark.parametrize("dtype", [np.int8, np.int16])
+def test_negative_small_counts_are_named(dtype):
+    counts = draw_counts(50, 4, seed=11).astype(dtype)
+    counts[2, 31] = -3
+    with pytest.raises(ValueError, match=r"^`counts`: in-bag counts must be non-negative, got "
+                                         r"-3 \(member 2, row 31\)"):
+        bagwise.out_of_bag(np.zeros((4, 50)), counts, np.zeros(50))

@@ -11,6 +11,7 @@ __all__ = [
     "CorrelationSummary",
     "CountGram",
     "CountGramAccumulator",
+    "count_row_totals",
     "crc32",
     "DecompositionAccumulator",
     "DecompositionMeans",
@@ -43,6 +44,9 @@ __all__ = [
 ]
 __version__: str
 
+def count_row_totals(
+    counts: npt.NDArray[np.integer],
+) -> tuple[npt.NDArray[np.float64], int]: ...
 @final
 class Resampler:
     def __new__(

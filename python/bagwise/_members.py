@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import _core
 from ._validation import positive_int
 
 __all__ = [
@@ -405,8 +406,14 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
                          f"and one column per training row, got {array.shape}{hint}")
     if array.size == 0:
         raise ValueError(f"`{name}`: is empty (shape {array.shape})")
-    if dtype.kind == "i":
+    sums = None
+    if dtype.itemsize <= 2:
+        # One parallel pass for the totals and the minimum (numpy's float64 row sums cast
+        # every count and take longer than reading the members they come with).
+        sums, low = _core.count_row_totals(array)
+    elif dtype.kind == "i":
         low = array.min()
+    if dtype.kind == "i":
         if low < 0:
             member, row = np.unravel_index(int(np.argmin(array)), array.shape)
             raise ValueError(f"`{name}`: in-bag counts must be non-negative, got {low} "
@@ -420,7 +427,8 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
                 f"(n_rows, n_members); pass `{name}.T` (one row per member)")
         raise ValueError(f"`{name}`: has shape {_shape_text(array.shape)} but `{members_from}` "
                          f"has {n_members:,} members (one row of counts per member)")
-    sums = array.sum(axis=1, dtype=np.float64)
+    if sums is None:
+        sums = array.sum(axis=1, dtype=np.float64)
     mean = float(sums.sum()) / array.size
     if mean > INDEX_MEAN and _variance(array, mean) > INDEX_DISPERSION * mean:
         raise ValueError(

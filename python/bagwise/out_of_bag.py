@@ -68,18 +68,6 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earli
     # The members are the training rows' predictions: one column of counts per point.
     counts = in_bag_counts(counts, n_members=n_members, n_rows=n_points, rows_from="members",
                            whole=whole)
-    if members.dtype.kind == "f":
-        missing = ~np.isfinite(members)
-        if missing.any():
-            # Out-of-bag predictions often mark in-bag entries with NaN (as
-            # `BagRegressor.out_of_bag_predictions` does); those entries are never read, so
-            # they may be missing. A missing out-of-bag entry is still an error (core).
-            in_bag = counts != 0
-            seen = in_bag[..., None] if members.ndim == 3 else in_bag
-            if np.all(np.broadcast_to(seen, members.shape)[missing]):
-                # Fillers that pass the core's checks: 0, or uniform probabilities.
-                fill = 1.0 / members.shape[2] if members.ndim == 3 else 0.0
-                members = np.where(seen, fill, members).astype(members.dtype, copy=False)
     # Class targets may come as whole floats here (the core reads float64 targets).
     y = targets(y, "values" if kind == "regression" else kind, n_points, float_labels=True)
     n_classes = None
@@ -99,6 +87,56 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earli
         point_weights = np.ascontiguousarray(point_weights, dtype=np.float64)
     sizes = _sizes_iv(sizes, n_members)
     return members, counts, y, kind, n_classes, loss, point_weights, n_jobs_value(n_jobs), sizes
+
+
+def _in_bag_filled(members, counts):
+    """``members`` with every in-bag entry replaced by a filler the core accepts, when it has
+    missing (non-finite) entries and all of them are in bag; else ``None``.
+
+    Out-of-bag predictions often mark in-bag entries with NaN (as
+    `BagRegressor.out_of_bag_predictions` does); those entries are never read, so they may
+    be missing. A missing out-of-bag entry is still an error (core)."""
+    if members.dtype.kind != "f":
+        return None
+    missing = ~np.isfinite(members)
+    if not missing.any():
+        return None
+    in_bag = counts != 0
+    seen = in_bag[..., None] if members.ndim == 3 else in_bag
+    if not np.all(np.broadcast_to(seen, members.shape)[missing]):
+        return None
+    # Fillers that pass the core's checks: 0, or uniform probabilities.
+    fill = 1.0 / members.shape[2] if members.ndim == 3 else 0.0
+    return np.where(seen, fill, members).astype(members.dtype, copy=False)
+
+
+def _monotone(callback):
+    """``callback`` passed only reports that do not go back (a retried call restarts)."""
+    if callback is None:
+        return None
+    highest = [0]
+
+    def report(done, total):
+        if done >= highest[0]:
+            highest[0] = done
+            callback(done, total)
+
+    return report
+
+
+def _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs, callback):
+    """The core's result for one chunk. Missing members are looked for only when the core
+    refuses the members (one more pass over them would cost as much as the whole call)."""
+    callback = _monotone(callback)
+    try:
+        return _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
+                                      n_classes, n_jobs, callback)
+    except ValueError as err:
+        filled = _in_bag_filled(members, counts) if str(err).startswith("`members`") else None
+        if filled is None:
+            raise
+    return _core.out_of_bag_chunk(filled, counts, y, point_weights, sizes, kind, n_classes,
+                                  n_jobs, callback)
 
 
 def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None,
@@ -186,7 +224,7 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
     (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
      sizes) = _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes)
     with progress_callback(progress, "out of bag", "point") as callback:
-        state, (prediction, n_oob, probabilities) = _core.out_of_bag_chunk(
+        state, (prediction, n_oob, probabilities) = _chunk(
             members, counts, y, point_weights, sizes, kind, n_classes, n_jobs, callback)
     return OutOfBag._build(state, kind, loss, prediction, n_oob, probabilities)
 
@@ -283,8 +321,8 @@ class OutOfBagStream:
                                  self._sizes, earlier_kind=self._kind, whole=False)
         self._check_compatible(kind, members.shape[0],
                                members.shape[2] if kind == "probabilities" else None)
-        state, part = _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
-                                             n_classes, n_jobs, self._callback)
+        state, part = _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs,
+                             self._callback)
         self._state = state if self._state is None else self._state.merge(state)
         self._kind, self._loss = kind, loss
         self._parts.append(part)

@@ -167,5 +167,29 @@ impl PyResampler {
 }
 
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
-    m.add_class::<PyResampler>()
+    m.add_class::<PyResampler>()?;
+    m.add_function(wrap_pyfunction!(count_row_totals, m)?)
+}
+
+/// Row totals (float64) and the smallest entry of 8- or 16-bit integer in-bag counts.
+#[pyfunction]
+fn count_row_totals<'py>(
+    py: Python<'py>,
+    counts: &Bound<'py, PyAny>,
+) -> PyResult<(Bound<'py, numpy::PyArray1<f64>>, i64)> {
+    macro_rules! try_as {
+        ($($t:ty),*) => {$(
+            if let Ok(a) = counts.extract::<numpy::PyReadonlyArray2<'py, $t>>() {
+                let view = a.as_array();
+                let (totals, low) = run_core(py, None, None, |pool, _| {
+                    Ok(crate::resampling::count_row_totals(view, pool))
+                })?;
+                return Ok((totals.into_pyarray(py), low));
+            }
+        )*};
+    }
+    try_as!(u8, u16, i8, i16);
+    Err(pyo3::exceptions::PyTypeError::new_err(
+        "`counts`: expected a 2-D integer array of 8 or 16 bits",
+    ))
 }
