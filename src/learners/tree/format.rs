@@ -310,15 +310,21 @@ impl<'a> Input<'a> {
     }
 
     fn f64s(&mut self, count: usize, field: &dyn std::fmt::Display) -> Result<Vec<f64>> {
-        let len = count
-            .checked_mul(8)
-            .ok_or_else(|| corrupt(format_args!("{field}: {count} values")))?;
         Ok(self
-            .take(len, field)?
+            .take(byte_count(count, 8, field)?, field)?
             .chunks_exact(8)
             .map(|b| f64::from_le_bytes(b.try_into().expect("8 bytes")))
             .collect())
     }
+}
+
+/// `count` items of `size` bytes, an error when that overflows (32-bit targets).
+fn byte_count(count: usize, size: usize, field: &dyn std::fmt::Display) -> Result<usize> {
+    count.checked_mul(size).ok_or_else(|| {
+        corrupt(format_args!(
+            "{field}: {count} items overflow the address space"
+        ))
+    })
 }
 
 fn decode_v2(body: &[u8]) -> Result<TreeEnsemble> {
@@ -353,11 +359,11 @@ fn decode_v2(body: &[u8]) -> Result<TreeEnsemble> {
 fn decode_tree(input: &mut Input<'_>, m: usize, task: Task, n_features: usize) -> Result<Tree> {
     let field = |name: &str| format!("member {m}: {name}");
     let width = task.outputs();
-    let n = input.count(&field("the node count"), LEAF as usize - 1)?;
+    let n = input.count(&field("the node count"), LEAF as usize)?;
     match input.byte(&field("the layout"))? {
         LAYOUT_RAW => {
             let raw = input.take(
-                n.checked_mul(16).expect("n < 2^32"),
+                byte_count(n, 16, &field("the raw nodes"))?,
                 &field("the raw nodes"),
             )?;
             let nodes = raw
@@ -402,8 +408,10 @@ fn decode_grown(
         )));
     }
     let feature_bytes = feature_width(n_features);
-    let features = input.take(internal * feature_bytes, &field("the split features"))?;
-    let thresholds = input.take(internal * 8, &field("the thresholds"))?;
+    let features = field("the split features");
+    let features = input.take(byte_count(internal, feature_bytes, &features)?, &features)?;
+    let thresholds = field("the thresholds");
+    let thresholds = input.take(byte_count(internal, 8, &thresholds)?, &thresholds)?;
     let leaves = internal + 1;
     // Every leaf takes at least one byte: the node array below is backed by bytes present.
     if input.left() < leaves {
