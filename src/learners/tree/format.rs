@@ -382,10 +382,7 @@ fn decode_tree(input: &mut Input<'_>, m: usize, task: Task, n_features: usize) -
             Ok(Tree { nodes, values })
         }
         LAYOUT_GROWN => decode_grown(input, &field, n, task, n_features),
-        other => Err(corrupt(format_args!(
-            "{}: unknown layout {other}",
-            field("")
-        ))),
+        other => Err(corrupt(field(&format!("unknown layout {other}")))),
     }
 }
 
@@ -402,10 +399,9 @@ fn decode_grown(
         return Err(corrupt(field("internal-node bits set past the node count")));
     }
     if n != 2 * internal + 1 {
-        return Err(corrupt(format!(
-            "{} nodes with {internal} internal ones do not form a binary tree",
-            field(&n.to_string())
-        )));
+        return Err(corrupt(field(&format!(
+            "the node count {n} with {internal} internal nodes is not a binary tree"
+        ))));
     }
     let feature_bytes = feature_width(n_features);
     let features = field("the split features");
@@ -459,11 +455,10 @@ fn decode_grown(
                         values[start + usize::from(b) - 1] = 1.0;
                     }
                     b => {
-                        return Err(corrupt(format!(
-                            "{}: one-hot on class {} of {n_classes}",
-                            field(&format!("leaf {l}")),
+                        return Err(corrupt(field(&format!(
+                            "leaf {l} is one-hot on class {} of {n_classes}",
                             b - 1
-                        )))
+                        ))))
                     }
                 }
             }
@@ -792,6 +787,37 @@ mod tests {
         bytes.extend([0, 3, 1, 0x80, 0x80, 0x04, LAYOUT_RAW]);
         let err = TreeEnsemble::from_bytes(&bytes).unwrap_err().to_string();
         assert!(err.contains("raw nodes needs"), "{err}");
+    }
+
+    #[test]
+    fn malformed_trees_name_the_member_and_the_field() {
+        let cases: [(&[u8], &str); 5] = [
+            (&[0, 3, 1, 1, 7], "member 0: unknown layout 7"),
+            (&[0, 3, 1, 1, LAYOUT_GROWN, 0x02], "set past the node count"),
+            (
+                &[0, 3, 1, 3, LAYOUT_GROWN, 0x00],
+                "node count 3 with 0 internal",
+            ),
+            (
+                &[1, 2, 3, 1, 1, LAYOUT_GROWN, 0x00, 3],
+                "leaf 0 is one-hot on class 2 of 2",
+            ),
+            // five nodes, two internal, but the first listed is a leaf: the tree ends there
+            (
+                &[0, 3, 1, 5, LAYOUT_GROWN, 0b0_0110],
+                "end the tree before the node count",
+            ),
+        ];
+        for (body, expected) in cases {
+            let mut bytes = MAGIC.to_vec();
+            bytes.extend(body);
+            bytes.extend([0u8; 2 + 16 + 3 * 8]); // features, thresholds, leaves
+            let err = TreeEnsemble::from_bytes(&bytes).unwrap_err().to_string();
+            assert!(
+                err.starts_with("`data`: ") && err.contains(expected),
+                "{err}"
+            );
+        }
     }
 
     #[test]
