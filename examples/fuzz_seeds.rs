@@ -1,5 +1,6 @@
 //! Writes the seed corpus of the loader fuzz targets: one valid model file per learner,
-//! task and splitter (format version 1) into `fuzz/corpus/model_file` and
+//! task and splitter (container format 1; tree payloads of format 2, and two of the tree
+//! format 1 still read) into `fuzz/corpus/model_file` and
 //! `fuzz/corpus/model_file_fixed_crc`, and their kind byte + payload into
 //! `fuzz/corpus/model_payload`. Run from the repository root:
 //! `cargo run --example fuzz_seeds` (`make fuzz` does it first).

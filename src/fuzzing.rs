@@ -31,7 +31,8 @@ const MAX_PREDICTED_FEATURES: usize = 4096;
 pub const KINDS: [&str; 3] = ["tree", "linear", "neighbors"];
 
 /// Valid model files: (name, bytes), one per learner, task and splitter, all of format
-/// version [`crate::persistence::FORMAT_VERSION`], small enough for exhaustive mutation.
+/// version [`crate::persistence::FORMAT_VERSION`], small enough for exhaustive mutation,
+/// and two tree ensembles of the tree payload's previous format.
 ///
 /// # Panics
 /// Never for these fixed inputs (a failed fit is a bug in the learners).
@@ -144,6 +145,15 @@ pub fn seed_files() -> Vec<(String, Vec<u8>)> {
         "neighbors_classification",
         Model::Neighbors(neighbors(three)),
     );
+    // Files of tree format 1, which is still read (see tests/data/make_tree_v1_files.py).
+    out.push((
+        "tree_v1_regression".into(),
+        include_bytes!("../tests/data/tree_v1_regression.bagwise").to_vec(),
+    ));
+    out.push((
+        "tree_v1_classification".into(),
+        include_bytes!("../tests/data/tree_v1_classification.bagwise").to_vec(),
+    ));
     out
 }
 
@@ -456,11 +466,19 @@ mod tests {
     #[test]
     fn every_seed_file_reads_back_and_predicts() {
         let seeds = seed_files();
-        assert_eq!(seeds.len(), 7);
+        assert_eq!(seeds.len(), 9);
         for (name, file) in &seeds {
             let model = check_file(file).unwrap_or_else(|e| panic!("{name}: {e}"));
             let (container, _) = read_model(file).unwrap();
-            assert_eq!(model.to_bytes(), container.payload, "{name}");
+            if name.contains("_v1_") {
+                // re-encoded in the current format
+                assert_eq!(
+                    Model::decode(&container.kind, &model.to_bytes()).unwrap(),
+                    model
+                );
+            } else {
+                assert_eq!(model.to_bytes(), container.payload, "{name}");
+            }
             assert!(
                 check_payload(&payload_input(file).unwrap()).is_ok(),
                 "{name}"

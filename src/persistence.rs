@@ -11,7 +11,8 @@
 //! ..      8      length M of the metadata, u64 little-endian
 //! ..      M      metadata: UTF-8 JSON written by the Python layer (parameters, classes, ...)
 //! ..      8      length P of the payload, u64 little-endian
-//! ..      P      payload: the learner's postcard encoding
+//! ..      P      payload: the learner's encoding (postcard; trees: the compact format of
+//!                        src/learners/tree/format.rs, whose own header has its version)
 //! ..      4      CRC-32 of every byte before it, u32 little-endian; nothing follows
 //! ```
 //! CRC-32 is the ISO-HDLC variant (ISO 3309, ITU-T V.42; also zlib's and PNG's): reflected
@@ -100,6 +101,30 @@ pub fn encoded_len(kind: &str, metadata: &str, payload_len: usize) -> usize {
 /// # Panics
 /// When `out` is not [`encoded_len`] bytes long.
 pub fn encode_into(kind: &str, metadata: &str, payload: &[u8], out: &mut [u8]) -> Result<()> {
+    encode_with(
+        kind,
+        metadata,
+        payload.len(),
+        |at| at.copy_from_slice(payload),
+        out,
+    )
+}
+
+/// [`encode_into`] with the payload written in place by `write_payload` into its
+/// `payload_len` bytes of `out`, e.g. a model encoded straight into the file's buffer.
+///
+/// # Errors
+/// `kind` when empty, longer than 64 bytes or not printable ASCII.
+///
+/// # Panics
+/// When `out` is not [`encoded_len`] bytes long.
+pub fn encode_with(
+    kind: &str,
+    metadata: &str,
+    payload_len: usize,
+    write_payload: impl FnOnce(&mut [u8]),
+    out: &mut [u8],
+) -> Result<()> {
     let kind = kind.as_bytes();
     if kind.is_empty() || kind.len() > MAX_KIND || !kind.iter().all(|b| b.is_ascii_graphic()) {
         return Err(Error::value(
@@ -109,7 +134,7 @@ pub fn encode_into(kind: &str, metadata: &str, payload: &[u8], out: &mut [u8]) -
     }
     assert_eq!(
         out.len(),
-        8 + 4 + 1 + kind.len() + 8 + metadata.len() + 8 + payload.len() + 4
+        8 + 4 + 1 + kind.len() + 8 + metadata.len() + 8 + payload_len + 4
     );
     let mut at = 0;
     let mut put = |bytes: &[u8]| {
@@ -122,9 +147,9 @@ pub fn encode_into(kind: &str, metadata: &str, payload: &[u8], out: &mut [u8]) -
     put(kind);
     put(&(metadata.len() as u64).to_le_bytes());
     put(metadata.as_bytes());
-    put(&(payload.len() as u64).to_le_bytes());
-    put(payload);
+    put(&(payload_len as u64).to_le_bytes());
     let body = out.len() - 4;
+    write_payload(&mut out[at..body]);
     let crc = crc32(&out[..body]);
     out[body..].copy_from_slice(&crc.to_le_bytes());
     Ok(())

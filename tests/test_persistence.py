@@ -3,10 +3,12 @@ foreign and wrong-version files."""
 
 from __future__ import annotations
 
+import base64
 import json
 import pickle
 import struct
 import zlib
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -39,10 +41,14 @@ def _fitted():
                     frame),
         "int_classes": (bagwise.BagClassifier("neighbors", n_members=3, scheme="subsample",
                                                   fraction=0.7).fit(x, (x[:, 1] > 0) * 3 + 1), x),
+        "tree": (bagwise.BagRegressor("tree", n_members=4, random_state=2).fit(x, y), x),
+        "tree_classes": (bagwise.BagClassifier("tree", n_members=4, max_depth=3).fit(frame, labels),
+                         frame),
     }
 
 
-@pytest.mark.parametrize("name", ["linear", "neighbors", "classes", "int_classes"])
+@pytest.mark.parametrize("name", ["linear", "neighbors", "classes", "int_classes", "tree",
+                                  "tree_classes"])
 def test_save_and_load_give_identical_predictions(name, tmp_path):
     bag, x = _fitted()[name]
     path = tmp_path / "bag.bagwise"
@@ -216,7 +222,7 @@ def test_wrong_kind_and_corrupt_metadata_are_refused_with_the_argument(tmp_path)
         for value in values:
             if value != meta[key]:
                 edits.append((kind, json.dumps({**meta, key: value}), payload))
-    for field in ("dtype", "shape", "data"):
+    for field in ("dtype", "shape", "zlib"):
         for value in values:
             in_bag = {**meta["in_bag"], field: value}
             edits.append((kind, json.dumps({**meta, "in_bag": in_bag}), payload))
@@ -296,3 +302,68 @@ def test_corrupt_stream_states_are_refused_or_finish_without_a_panic(name):
         except ValueError:
             pass
     assert refused > 0
+
+
+DATA = Path(__file__).parent / "data"
+
+
+@pytest.mark.parametrize("name", ["tree_v1_regression", "tree_v1_classification"])
+def test_tree_files_of_the_previous_format_still_load(name, tmp_path):
+    # Written with tree format 1 and its in-bag counts uncompressed by the version at commit
+    # 2b202dc, with the predictions it made (tests/data/make_tree_v1_files.py).
+    path = DATA / f"{name}.bagwise"
+    _, _, payload = _core.unpack_container(path.read_bytes())
+    assert payload[:8] == b"bgwtree\x01"
+    points = np.load(DATA / "tree_v1_points.npy")
+    members = np.load(DATA / f"{name}_members.npy")
+    predicted = np.load(DATA / f"{name}_predicted.npy")
+    back = bagwise.load(path)
+
+    def check(bag):
+        np.testing.assert_array_equal(bag.member_predictions(points), members)
+        proba = bag.predict_proba(points) if hasattr(bag, "classes_") else bag.predict(points)
+        np.testing.assert_array_equal(proba, predicted)
+
+    check(back)
+    # Saved again, it is written in the current format and predicts the same.
+    again = tmp_path / "again.bagwise"
+    back.save(again)
+    _, text, payload = _core.unpack_container(again.read_bytes())
+    assert payload[:8] == b"bgwtree\x02" and "zlib" in json.loads(text)["in_bag"]
+    check(bagwise.load(again))
+    assert again.stat().st_size < path.stat().st_size
+
+
+def test_pack_model_refuses_what_is_not_a_native_ensemble():
+    with pytest.raises(TypeError, match="^`model`: .*got bytes"):
+        _core.pack_model("tree", "{}", b"trees")
+    bag, _ = _fitted()["tree"]
+    with pytest.raises(ValueError, match="^`kind`"):
+        _core.pack_model("", "{}", bag._model)
+    # The same bytes as the container packed around the model's own bytes.
+    assert (_core.pack_model("tree", "{}", bag._model)
+            == _core.pack_container("tree", "{}", bag._model.to_bytes()))
+
+
+def test_compressed_in_bag_counts_must_inflate_to_their_shape(tmp_path):
+    bag, _ = _fitted()["tree"]
+    path = tmp_path / "bag.bagwise"
+    bag.save(path)
+    kind, text, payload = _core.unpack_container(path.read_bytes())
+    meta = json.loads(text)
+    rows = bag.in_bag_.shape[1]
+    bomb = base64.b64encode(zlib.compress(bytes(10**7))).decode("ascii")
+    edits = [
+        {**meta["in_bag"], "shape": [4, rows - 1]},  # holds more than its shape
+        {**meta["in_bag"], "shape": [4, rows + 1]},  # holds less
+        {**meta["in_bag"], "shape": [0, 0], "zlib": bomb},  # empty shape, large stream
+        {**meta["in_bag"], "zlib": bomb},
+        {**meta["in_bag"], "zlib": meta["in_bag"]["zlib"][:-8]},  # cut short
+        {**meta["in_bag"], "zlib": base64.b64encode(b"not zlib").decode("ascii")},
+        {**meta["in_bag"], "shape": [4, True]},
+    ]
+    for in_bag in edits:
+        path.write_bytes(_core.pack_container(kind, json.dumps({**meta, "in_bag": in_bag}),
+                                              payload))
+        with pytest.raises(ValueError, match=r"^`path`: .*: inconsistent contents"):
+            bagwise.load(path)

@@ -29,6 +29,7 @@ __all__ = [
     "out_of_bag_chunk",
     "OutOfBagState",
     "pack_container",
+    "pack_model",
     "prediction_interval_arrays",
     "prediction_set_arrays",
     "random_member_count",
@@ -179,6 +180,9 @@ class NeighborsEnsemble:
 # -- persistence ---------------------------------------------------------------------------
 
 def pack_container(kind: str, metadata: str, payload: bytes) -> bytes: ...
+def pack_model(
+    kind: str, metadata: str, model: LinearEnsemble | NeighborsEnsemble | TreeEnsemble
+) -> bytes: ...
 def unpack_container(data: bytes) -> tuple[str, str, bytes]: ...
 def crc32(data: bytes) -> int: ...
 

@@ -580,8 +580,12 @@ impl FittedMembers for LinearEnsemble {
         })
     }
 
-    fn to_bytes(&self) -> Vec<u8> {
-        postcard::to_allocvec(self).expect("serialising to memory cannot fail")
+    fn encoded_len(&self) -> usize {
+        crate::learners::postcard_len(self)
+    }
+
+    fn encode_into(&self, out: &mut [u8]) {
+        crate::learners::postcard_into(self, out)
     }
 
     fn from_bytes(data: &[u8]) -> Result<Self> {

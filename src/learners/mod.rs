@@ -157,8 +157,23 @@ pub trait FittedMembers: Sized {
     /// `members` empty, with an index out of range or repeated (see [`check_selection`]).
     fn select(&self, members: &[usize]) -> Result<Self>;
 
+    /// Length of the fitted state's bytes ([`encode_into`](FittedMembers::encode_into)).
+    fn encoded_len(&self) -> usize;
+
+    /// Writes the fitted state's bytes into `out`, of exactly
+    /// [`encoded_len`](FittedMembers::encoded_len) bytes, so a caller can place them in a
+    /// buffer of its own (a model file) without an intermediate copy.
+    ///
+    /// # Panics
+    /// When `out` has another length.
+    fn encode_into(&self, out: &mut [u8]);
+
     /// The fitted state as bytes.
-    fn to_bytes(&self) -> Vec<u8>;
+    fn to_bytes(&self) -> Vec<u8> {
+        let mut out = vec![0; self.encoded_len()];
+        self.encode_into(&mut out);
+        out
+    }
 
     /// Reads [`to_bytes`](FittedMembers::to_bytes) output, checking every index so that
     /// corrupt bytes are an error and never a crash at prediction time.
@@ -166,6 +181,21 @@ pub trait FittedMembers: Sized {
     /// # Errors
     /// `data` when the bytes do not decode or the decoded ensemble is not well formed.
     fn from_bytes(data: &[u8]) -> Result<Self>;
+}
+
+/// Length of the postcard encoding of `value`.
+pub(crate) fn postcard_len<T: serde::Serialize>(value: &T) -> usize {
+    postcard::serialize_with_flavor(value, postcard::ser_flavors::Size::default())
+        .expect("sizing an encoding cannot fail")
+}
+
+/// The postcard encoding of `value` into `out`, of exactly [`postcard_len`] bytes.
+pub(crate) fn postcard_into<T: serde::Serialize>(value: &T, out: &mut [u8]) {
+    let len = out.len();
+    let written = postcard::to_slice(value, out)
+        .expect("the buffer holds the encoding")
+        .len();
+    assert_eq!(written, len, "buffer of the wrong length");
 }
 
 /// Checks the parts of a [`FittedMembers::join`]: at least one, all with the task and the

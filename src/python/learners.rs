@@ -164,9 +164,15 @@ pub(super) fn select<E: FittedMembers>(model: &E, members: Vec<i64>) -> PyResult
     model.select(&members).map_err(to_py_err)
 }
 
-/// `to_bytes`.
-pub(super) fn to_bytes<'py, E: FittedMembers>(py: Python<'py>, model: &E) -> Bound<'py, PyBytes> {
-    PyBytes::new(py, &model.to_bytes())
+/// `to_bytes`, encoded straight into the Python bytes.
+pub(super) fn to_bytes<'py, E: FittedMembers>(
+    py: Python<'py>,
+    model: &E,
+) -> PyResult<Bound<'py, PyBytes>> {
+    PyBytes::new_with(py, model.encoded_len(), |out| {
+        model.encode_into(out);
+        Ok(())
+    })
 }
 
 /// `from_bytes`: corrupt or foreign bytes raise ValueError.

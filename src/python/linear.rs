@@ -13,7 +13,7 @@ use crate::learners::FittedMembers;
 /// Bagged least squares / ridge regression members.
 #[pyclass(module = "bagwise._core", name = "LinearEnsemble", frozen)]
 pub struct PyLinearEnsemble {
-    inner: LinearEnsemble,
+    pub(super) inner: LinearEnsemble,
 }
 
 #[pymethods]
@@ -124,7 +124,7 @@ impl PyLinearEnsemble {
             .into_any())
     }
 
-    fn to_bytes<'py>(&self, py: Python<'py>) -> Bound<'py, PyBytes> {
+    fn to_bytes<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyBytes>> {
         learners::to_bytes(py, &self.inner)
     }
 
@@ -153,7 +153,7 @@ impl PyLinearEnsemble {
         py: Python<'py>,
     ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
         let rebuild = py.get_type::<Self>().getattr("from_bytes")?;
-        Ok((rebuild, (self.to_bytes(py),)))
+        Ok((rebuild, (self.to_bytes(py)?,)))
     }
 
     fn __repr__(&self) -> String {

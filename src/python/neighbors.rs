@@ -12,7 +12,7 @@ use crate::learners::{FittedMembers, Task};
 /// Bagged k-nearest-neighbour members (regression or classification).
 #[pyclass(module = "bagwise._core", name = "NeighborsEnsemble", frozen)]
 pub struct PyNeighborsEnsemble {
-    inner: NeighborsEnsemble,
+    pub(super) inner: NeighborsEnsemble,
 }
 
 #[pymethods]
@@ -107,7 +107,7 @@ impl PyNeighborsEnsemble {
         self.inner.neighbors()
     }
 
-    fn to_bytes<'py>(&self, py: Python<'py>) -> Bound<'py, PyBytes> {
+    fn to_bytes<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyBytes>> {
         learners::to_bytes(py, &self.inner)
     }
 
@@ -136,7 +136,7 @@ impl PyNeighborsEnsemble {
         py: Python<'py>,
     ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
         let rebuild = py.get_type::<Self>().getattr("from_bytes")?;
-        Ok((rebuild, (self.to_bytes(py),)))
+        Ok((rebuild, (self.to_bytes(py)?,)))
     }
 
     fn __repr__(&self) -> String {

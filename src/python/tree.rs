@@ -16,7 +16,7 @@ use crate::resampling::Count;
 /// weights, one tree per member; see `TreeEnsemble.fit`.
 #[pyclass(module = "bagwise._core", name = "TreeEnsemble", frozen)]
 pub struct PyTreeEnsemble {
-    inner: TreeEnsemble,
+    pub(super) inner: TreeEnsemble,
 }
 
 #[pymethods]
@@ -159,8 +159,9 @@ impl PyTreeEnsemble {
         self.inner.node_counts()
     }
 
-    /// The fitted trees as bytes (postcard behind a versioned header).
-    fn to_bytes<'py>(&self, py: Python<'py>) -> Bound<'py, PyBytes> {
+    /// The fitted trees as bytes (a compact format behind a versioned header, about 9 bytes
+    /// a node; see src/learners/tree/format.rs).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyBytes>> {
         learners::to_bytes(py, &self.inner)
     }
 
@@ -190,7 +191,7 @@ impl PyTreeEnsemble {
         py: Python<'py>,
     ) -> PyResult<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
         let from_bytes = py.get_type::<Self>().getattr("from_bytes")?;
-        Ok((from_bytes, (self.to_bytes(py),)))
+        Ok((from_bytes, (self.to_bytes(py)?,)))
     }
 
     fn __repr__(&self) -> String {

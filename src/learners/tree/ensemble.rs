@@ -135,9 +135,6 @@ pub struct TreeEnsemble {
     pub(super) trees: Vec<Tree>,
 }
 
-/// Leading bytes of [`TreeEnsemble::to_bytes`].
-pub(super) const MAGIC: &[u8; 8] = b"bgwtree\x01";
-
 impl TreeEnsemble {
     /// The task.
     pub fn task(&self) -> Task {
@@ -175,33 +172,22 @@ impl TreeEnsemble {
         self.trees.iter().map(Tree::node_count).collect()
     }
 
-    /// Serialises with postcard behind an 8-byte magic/version header.
+    /// The format-2 bytes (see [`super::format`]): about 9 bytes a node.
     pub fn to_bytes(&self) -> Vec<u8> {
-        let mut out = MAGIC.to_vec();
-        out.extend(postcard::to_allocvec(self).expect("serialising to memory cannot fail"));
+        let mut out = vec![0; self.encoded_len()];
+        self.encode_into(&mut out);
         out
     }
 
-    /// Reads [`to_bytes`](TreeEnsemble::to_bytes) output and checks every index, so a
-    /// corrupted buffer is an error and never a crash at prediction time.
+    /// Reads [`to_bytes`](TreeEnsemble::to_bytes) output, or the bytes of format 1, and
+    /// checks every index, so a corrupted buffer is an error and never a crash at
+    /// prediction time.
     ///
     /// # Errors
     /// `data` if the header is missing, the buffer does not decode, or the trees are not
     /// well formed.
     pub fn from_bytes(data: &[u8]) -> Result<Self> {
-        let body = data
-            .strip_prefix(MAGIC.as_slice())
-            .ok_or_else(|| Error::value("data", "not a bagwise tree ensemble (bad header)"))?;
-        let (ensemble, rest): (TreeEnsemble, &[u8]) = postcard::take_from_bytes(body)
-            .map_err(|e| Error::value("data", format!("corrupt tree ensemble: {e}")))?;
-        if !rest.is_empty() {
-            return Err(Error::value(
-                "data",
-                "trailing bytes after the tree ensemble",
-            ));
-        }
-        ensemble.validate()?;
-        Ok(ensemble)
+        Self::decode(data)
     }
 
     pub(super) fn validate(&self) -> Result<()> {
@@ -564,8 +550,12 @@ impl FittedMembers for TreeEnsemble {
         })
     }
 
-    fn to_bytes(&self) -> Vec<u8> {
-        TreeEnsemble::to_bytes(self)
+    fn encoded_len(&self) -> usize {
+        TreeEnsemble::encoded_len(self)
+    }
+
+    fn encode_into(&self, out: &mut [u8]) {
+        TreeEnsemble::encode_into(self, out)
     }
 
     fn from_bytes(data: &[u8]) -> Result<Self> {

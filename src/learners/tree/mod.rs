@@ -58,6 +58,7 @@
 
 mod columns;
 mod ensemble;
+mod format;
 mod growing;
 mod parameters;
 
