@@ -10,8 +10,9 @@ Every contender runs in its own subprocess, so its peak resident memory (``getru
 nothing of the others.
 
 - memory: ``BagRegressor(learner="tree")`` on Friedman #1 (sklearn.datasets.make_friedman1),
-  100,000 rows x 10 features; the rise of peak RSS over the fit against the model file
-  (``bagwise.save``) and the features. Target: rise <= 2 x file + 100 MiB.
+  100,000 rows x 10 features; the rise of peak RSS over the fit against the trees held in
+  memory, the features and the model file (``bagwise.save``). Target: rise <= trees +
+  features + 100 MiB of working memory.
 - scaling: fit time at 10k, 100k and ``--large`` rows (Friedman #1, 10 features). Target:
   t(10 n) / t(n) <= 10 log(10 n) / log(n) (no faster than n log n); at the largest size the
   same fit in LightGBM's random-forest mode (4,096 leaves, bagging fraction 0.632 every
@@ -70,6 +71,11 @@ if which == "estimator":
         bagwise.save(est, path)
         extra["file_mib"] = os.path.getsize(path) / 2**20
     extra["fit_peak_mib"] = fit_peak
+    # The fitted trees as held in memory: 16-byte nodes, one f64 per leaf and output.
+    nodes = sum(est._model.node_counts)
+    leaves = (nodes + est._model.n_members) // 2
+    width = 1 if task == "regression" else n_classes
+    extra["model_mib"] = (16 * nodes + 8 * width * leaves) / 2**20
 elif which == "bagwise":
     counts = bagwise.resample(len(y), members, rng=0).counts
     if task == "regression":
@@ -115,15 +121,20 @@ def has_lightgbm() -> bool:
 
 def memory(members: int, failures: list[str]) -> None:
     r = measure("estimator", "friedman1", 100_000, members)
-    budget = 2 * r["file_mib"] + 100
+    # What a fit must hold: the trees, the features, and working memory per thread of
+    # O(rows) (sorted lists and scratch of the member being grown: 100 MiB covers 2 threads
+    # at this size).
+    budget = r["model_mib"] + r["features_mib"] + 100
     print(f"memory: BagRegressor(learner='tree', n_members={members}).fit, 100,000 x 10")
-    print(f"  peak RSS rise over the fit {r['fit_peak_mib']:.0f} MiB; model file "
-          f"{r['file_mib']:.0f} MiB; features {r['features_mib']:.1f} MiB; fit {r['fit']:.1f} s")
-    print(f"  rise / (2 x file + 100 MiB) = {r['fit_peak_mib'] / budget:.2f} (target <= 1); "
-          f"rise / (file + features) = "
-          f"{r['fit_peak_mib'] / (r['file_mib'] + r['features_mib']):.2f}")
+    print(f"  peak RSS rise over the fit {r['fit_peak_mib']:.0f} MiB; trees in memory "
+          f"{r['model_mib']:.0f} MiB; model file {r['file_mib']:.0f} MiB; features "
+          f"{r['features_mib']:.1f} MiB; fit {r['fit']:.1f} s")
+    print(f"  rise / (trees + features + 100 MiB) = {r['fit_peak_mib'] / budget:.2f} "
+          f"(target <= 1); rise / (2 x file + 100 MiB) = "
+          f"{r['fit_peak_mib'] / (2 * r['file_mib'] + 100):.2f} (the file is about half the "
+          "trees in memory since the compact file format)")
     if r["fit_peak_mib"] > budget:
-        failures.append("fit memory above 2 x model file + 100 MiB")
+        failures.append("fit memory above the trees + features + 100 MiB")
 
 
 def scaling(members: int, large: int, failures: list[str]) -> None:
