@@ -123,6 +123,9 @@ pub(super) struct Grower<'a> {
     pub(super) weighted_target: Vec<f64>,
     /// Per slot, classification: the class code; regression: empty.
     pub(super) class: Vec<u32>,
+    /// Per slot, the bin codes of all its features (slot-major; empty without bins), so a
+    /// full histogram reads each slot once rather than once per feature.
+    pub(super) slot_codes: Vec<u8>,
     /// The slots of each node's range `start..end`, in no particular order.
     pub(super) order: Vec<u32>,
     /// Per feature, `rank << 32 | slot` sorted by rank within each node's range (kept
@@ -295,11 +298,33 @@ impl<'a> Grower<'a> {
         }
     }
 
+    /// Every feature's histogram of positions `start..end`. Each bin receives the same
+    /// additions in the same order as [`fill_histogram`](Self::fill_histogram) feature by
+    /// feature would give it (so the same bits), in one pass over the slots.
     pub(super) fn full_histogram(&mut self, start: usize, end: usize) -> Vec<f64> {
         let mut h = self.histogram_buffer();
-        let block = MAX_BINS * self.stat_width;
-        for (f, hf) in h.chunks_mut(block).enumerate() {
-            self.fill_histogram(f, start, end, hf);
+        let s = self.stat_width;
+        let n_features = self.columns.n_features;
+        let block = MAX_BINS * s;
+        for &slot in &self.order[start..end] {
+            let p = slot as usize;
+            let codes = &self.slot_codes[p * n_features..(p + 1) * n_features];
+            let w = self.weight[p];
+            if self.regression {
+                let wy = self.weighted_target[p];
+                for (f, &code) in codes.iter().enumerate() {
+                    let o = f * block + code as usize * s;
+                    h[o] += w;
+                    h[o + 1] += wy;
+                }
+            } else {
+                let k = 1 + self.class[p] as usize;
+                for (f, &code) in codes.iter().enumerate() {
+                    let o = f * block + code as usize * s;
+                    h[o] += w;
+                    h[o + k] += w;
+                }
+            }
         }
         h
     }
@@ -928,6 +953,18 @@ impl CheckedTreeParams {
                 }));
             }
         }
+        let slot_codes = if columns.codes.is_empty() {
+            Vec::new()
+        } else {
+            let mut codes = vec![0u8; n_in * columns.n_features];
+            for f in 0..columns.n_features {
+                let column = &columns.codes[f * columns.n_rows..(f + 1) * columns.n_rows];
+                for (slot, &r) in rows.iter().enumerate() {
+                    codes[slot * columns.n_features + f] = column[r as usize];
+                }
+            }
+            codes
+        };
         let stat_width = match p.task {
             Task::Regression => 2,
             Task::Classification { n_classes } => 1 + n_classes,
@@ -944,6 +981,7 @@ impl CheckedTreeParams {
             target: target_pos,
             weighted_target,
             class,
+            slot_codes,
             sorted,
             keys: Vec::new(),
             goes_left: vec![false; n_in],
