@@ -395,7 +395,7 @@ fn decode_grown(
 ) -> Result<Tree> {
     let flags = input.take(n.div_ceil(8), &field("the internal-node bits"))?;
     let internal: usize = flags.iter().map(|b| b.count_ones() as usize).sum();
-    if n % 8 != 0 && flags[n / 8] >> (n % 8) != 0 {
+    if !n.is_multiple_of(8) && flags[n / 8] >> (n % 8) != 0 {
         return Err(corrupt(field("internal-node bits set past the node count")));
     }
     if n != 2 * internal + 1 {
