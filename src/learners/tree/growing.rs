@@ -372,6 +372,11 @@ impl<'a> Grower<'a> {
     ) -> Option<Split> {
         let n_in = self.slot_row.len();
         let keys = &self.sorted[f * n_in + start..f * n_in + end];
+        // Sorted by rank: a feature constant in the node offers no boundary (the scan below
+        // would skip every row); its list is also left unpartitioned (see `partition`).
+        if keys.len() < 2 || keys[0] >> 32 == keys[keys.len() - 1] >> 32 {
+            return None;
+        }
         // (score, rank, next rank) of the best boundary so far; the threshold is looked up
         // only for the node's winning split. Later boundaries have higher thresholds, so
         // within a feature only a clearly higher score replaces the best (the tie rule of
@@ -581,6 +586,11 @@ impl<'a> Grower<'a> {
             buffer.resize(end - start, 0);
             for f in 0..columns.n_features {
                 let list = &mut self.sorted[f * n_in + start..f * n_in + end];
+                if list[0] >> 32 == list[list.len() - 1] >> 32 {
+                    // Constant here, so constant in every descendant: the exact scan reads
+                    // no slot of it again (it stops at the equal first and last ranks).
+                    continue;
+                }
                 let (mut k, mut r) = (0usize, 0usize);
                 for q in 0..list.len() {
                     let key = list[q];
