@@ -531,19 +531,20 @@ impl<L: LabelValue> MemberPredictions for Labels<'_, L> {
         let row = self
             .labels
             .slice(s![member, start..start + out_of_bag.len()]);
-        let mut out_of_range = false;
-        // Branch-free: an out-of-range label votes for the last class and flags the row.
-        let mut add = |((point, &flag), &label): ((&mut [u32], &u8), &L)| {
-            let class = label.wrapped();
-            out_of_range |= class >= c as u64;
-            point[class.min(c as u64 - 1) as usize] += u32::from(flag);
+        let in_range = match row.as_slice() {
+            Some(labels) => add_votes_dispatch(labels, out_of_bag, votes, c),
+            None => {
+                let stride = votes.len() / c;
+                let mut out_of_range = false;
+                for (j, (&label, &flag)) in row.iter().zip(out_of_bag).enumerate() {
+                    let class = label.wrapped();
+                    out_of_range |= class >= c as u64;
+                    votes[class.min(c as u64 - 1) as usize * stride + j] += u32::from(flag);
+                }
+                !out_of_range
+            }
         };
-        let points = votes.chunks_exact_mut(c).zip(out_of_bag);
-        match row.as_slice() {
-            Some(labels) => points.zip(labels).for_each(&mut add),
-            None => points.zip(row.iter()).for_each(&mut add),
-        }
-        if out_of_range {
+        if !in_range {
             let j = row
                 .iter()
                 .position(|l| l.wrapped() >= c as u64)
@@ -558,6 +559,67 @@ impl<L: LabelValue> MemberPredictions for Labels<'_, L> {
         }
         Ok(())
     }
+}
+
+/// Class counts up to which [`add_votes`] compares every label with every class (a pass per
+/// class that vectorises) instead of scattering the votes.
+const COMPARED_CLASSES: usize = 16;
+
+/// Adds the votes of contiguous `labels` of the points with `flags[j] == 1` into `votes`
+/// (class-major: class `k` of point `j` at `k * stride + j`, `stride = votes.len() / c`);
+/// whether every label (in bag or not) lies in 0..c.
+#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+fn add_votes<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut [u32], c: usize) -> bool {
+    let stride = votes.len() / c;
+    let labels = &labels[..flags.len()];
+    let mut out_of_range = false;
+    if c <= COMPARED_CLASSES {
+        for (k, column) in votes.chunks_exact_mut(stride).enumerate() {
+            let class = k as u64;
+            for ((v, &label), &flag) in column.iter_mut().zip(labels).zip(flags) {
+                *v += u32::from(label.wrapped() == class) & u32::from(flag);
+            }
+        }
+        for &label in labels {
+            out_of_range |= label.wrapped() >= c as u64;
+        }
+    } else {
+        // An out-of-range label votes for the last class and flags the row.
+        for (j, (&label, &flag)) in labels.iter().zip(flags).enumerate() {
+            let class = label.wrapped();
+            out_of_range |= class >= c as u64;
+            votes[class.min(c as u64 - 1) as usize * stride + j] += u32::from(flag);
+        }
+    }
+    !out_of_range
+}
+
+/// [`add_votes`] compiled for AVX2 when available (the same integer operations).
+fn add_votes_dispatch<L: LabelValue>(
+    labels: &[L],
+    flags: &[u8],
+    votes: &mut [u32],
+    c: usize,
+) -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { add_votes_avx2(labels, flags, votes, c) };
+        }
+    }
+    add_votes(labels, flags, votes, c)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn add_votes_avx2<L: LabelValue>(
+    labels: &[L],
+    flags: &[u8],
+    votes: &mut [u32],
+    c: usize,
+) -> bool {
+    add_votes(labels, flags, votes, c)
 }
 
 /// Class probabilities (members, points, classes); every member's row sums to one.
@@ -630,7 +692,9 @@ impl<T: Real> MemberPredictions for Probabilities<'_, T> {
 
 /// Running per-point class totals of a block of points (points × classes, row-major).
 pub enum ClassTotals {
-    /// Votes of label members: integers, exact as the f64 sums they replace.
+    /// Votes of label members: integers, exact as the f64 sums they replace. Class-major
+    /// (class `k` of point `j` at `k * points + j`), so that a class's votes are added in one
+    /// vectorised pass.
     Votes(Vec<u32>),
     /// Sums of member probabilities.
     Probabilities(Vec<f64>),
@@ -1139,11 +1203,11 @@ impl Block<'_> {
             let point = j * width..(j + 1) * width;
             self.prediction[j] = match &totals {
                 ClassTotals::Votes(votes) => {
-                    let point = &votes[point];
+                    let point = votes.iter().skip(j).step_by(padded);
                     out.iter_mut()
-                        .zip(point)
+                        .zip(point.clone())
                         .for_each(|(o, &s)| *o = f64::from(s) / count);
-                    vote(point.iter().map(|&s| f64::from(s)))
+                    vote(point.map(|&s| f64::from(s)))
                 }
                 ClassTotals::Probabilities(sums) => {
                     let point = &sums[point];
@@ -1293,10 +1357,11 @@ const TABULATED_MEMBERS: usize = 512;
 /// expressions of [`evaluate_classes`] (so with the same bits): votes are small integers,
 /// and a lookup replaces a division per class and a logarithm per point.
 struct VoteTerms {
-    /// (s/n − 0)², the Brier term of a class other than the target.
-    other: Vec<f64>,
-    /// (s/n − 1)² and ln(max(s/n, floor)), the Brier and log terms of the target class.
-    target: Vec<(f64, f64)>,
+    /// The Brier terms (s/n − 0)² of a class other than the target and (s/n − 1)² of the
+    /// target, picked by index rather than by a branch.
+    brier: Vec<[f64; 2]>,
+    /// ln(max(s/n, floor)), the log term of the target class.
+    log: Vec<f64>,
 }
 
 impl VoteTerms {
@@ -1306,29 +1371,30 @@ impl VoteTerms {
             return None;
         }
         let len = (members + 1) * (members + 2) / 2;
-        let (mut other, mut target) = (Vec::with_capacity(len), Vec::with_capacity(len));
+        let (mut brier, mut log) = (Vec::with_capacity(len), Vec::with_capacity(len));
         for n in 0..=members {
             for s in 0..=n {
                 let (s, n) = (s as f64, n as f64);
-                let d = s / n - 0.0;
-                other.push(d * d);
-                let d = s / n - 1.0;
-                target.push((d * d, (s / n).max(LOG_LOSS_FLOOR).ln()));
+                let (other, target) = (s / n - 0.0, s / n - 1.0);
+                brier.push([other * other, target * target]);
+                log.push((s / n).max(LOG_LOSS_FLOOR).ln());
             }
         }
-        Some(VoteTerms { other, target })
+        Some(VoteTerms { brier, log })
     }
 
-    /// Index of (s, n).
+    /// Index of (0, n); (s, n) follows at `s`.
     #[inline(always)]
-    fn at(s: u32, n: u32) -> usize {
-        let (s, n) = (s as usize, n as usize);
-        n * (n + 1) / 2 + s
+    fn row(n: u32) -> usize {
+        let n = n as usize;
+        n * (n + 1) / 2
     }
 }
 
-/// [`evaluate_classes`] of label votes (integer totals), the same sums in the same order;
-/// with `terms` the per-class quotients and the logarithm are looked up.
+/// [`evaluate_classes`] of class-major label votes (integer totals), the same sums in the
+/// same order; with `terms` the per-class quotients and the logarithm are looked up. No
+/// branch on the data: an uncovered point's terms are computed and replaced by 0.0, which
+/// leaves the (never negative-zero) partial sums unchanged.
 fn evaluate_votes(
     n_classes: usize,
     votes: &[u32],
@@ -1337,46 +1403,48 @@ fn evaluate_votes(
     w: &[f64],
     terms: Option<&VoteTerms>,
 ) -> ErrorSums {
+    let stride = n_oob.len();
     let mut e = ErrorSums::default();
     for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
         let start = block * SUB_BLOCK;
         let mut part = [0.0f64; 4];
         let mut covered = 0;
-        for (j, &count) in n.iter().enumerate().filter(|(_, &c)| c > 0) {
+        for (j, &count) in n.iter().enumerate() {
             let j = start + j;
-            let point = &votes[j * n_classes..(j + 1) * n_classes];
             let truth = y[j] as usize;
+            let target = votes[truth * stride + j];
             let mut brier = 0.0;
+            // The vote misses the target iff a class has more votes, or as many and a lower
+            // index (ties go to the lowest class).
+            let mut wrong = false;
             let log_p = match terms {
                 Some(t) => {
-                    for (c, &s) in point.iter().enumerate() {
-                        let at = VoteTerms::at(s, count);
-                        brier += if c == truth {
-                            t.target[at].0
-                        } else {
-                            t.other[at]
-                        };
+                    let row = VoteTerms::row(count);
+                    for c in 0..n_classes {
+                        let s = votes[c * stride + j];
+                        brier += t.brier[row + s as usize][usize::from(c == truth)];
+                        wrong |= (s > target) | ((s == target) & (c < truth));
                     }
-                    t.target[VoteTerms::at(point[truth], count)].1
+                    t.log[row + target as usize]
                 }
                 None => {
                     let count = f64::from(count);
-                    for (c, &s) in point.iter().enumerate() {
+                    for c in 0..n_classes {
+                        let s = votes[c * stride + j];
                         let d = f64::from(s) / count - if c == truth { 1.0 } else { 0.0 };
                         brier += d * d;
+                        wrong |= (s > target) | ((s == target) & (c < truth));
                     }
-                    (f64::from(point[truth]) / count).max(LOG_LOSS_FLOOR).ln()
+                    (f64::from(target) / count).max(LOG_LOSS_FLOOR).ln()
                 }
             };
-            covered += 1;
-            part[0] += w[j];
-            part[1] += if vote(point.iter().map(|&s| f64::from(s))) != truth {
-                w[j]
-            } else {
-                0.0
-            };
-            part[2] += w[j] * brier;
-            part[3] -= w[j] * log_p;
+            let is_covered = count > 0;
+            covered += u64::from(is_covered);
+            let weight = if is_covered { w[j] } else { 0.0 };
+            part[0] += weight;
+            part[1] += if wrong { weight } else { 0.0 };
+            part[2] += if is_covered { w[j] * brier } else { 0.0 };
+            part[3] -= if is_covered { w[j] * log_p } else { 0.0 };
         }
         e.covered += covered;
         e.weight.add(part[0]);
