@@ -655,12 +655,7 @@ impl<T: Real> MemberPredictions for Probabilities<'_, T> {
             .slice(s![member, start..start + out_of_bag.len(), ..]);
         let c = block.dim().1;
         let valid = match block.as_slice() {
-            Some(p) => match c {
-                2 => add_probabilities::<T, 2>(p, out_of_bag, sums),
-                3 => add_probabilities::<T, 3>(p, out_of_bag, sums),
-                4 => add_probabilities::<T, 4>(p, out_of_bag, sums),
-                _ => add_probabilities_any(p, c, out_of_bag, sums),
-            },
+            Some(p) => add_probabilities(p, c, out_of_bag, sums),
             None => {
                 let mut valid = true;
                 let points = block.outer_iter().zip(sums.chunks_exact_mut(c));
@@ -729,21 +724,43 @@ fn add_point<T: Real>(point: impl Iterator<Item = T>, out: &mut [f64], flag: u8)
     valid & ((total - 1.0).abs() <= PROBABILITY_TOLERANCE)
 }
 
-/// [`add_point`] over contiguous rows of `K` classes (the class loop unrolled).
-fn add_probabilities<T: Real, const K: usize>(p: &[T], flags: &[u8], sums: &mut [f64]) -> bool {
-    let mut valid = true;
-    for ((point, out), &flag) in p.chunks_exact(K).zip(sums.chunks_exact_mut(K)).zip(flags) {
-        let point: &[T; K] = point.try_into().expect("chunks of K");
-        valid &= add_point(point.iter().copied(), out, flag);
-    }
-    valid
-}
+/// Elements of a member row handled per pass of [`add_probabilities`] (stack scratch).
+const PROBABILITY_PASS: usize = 1024;
 
-/// [`add_point`] over contiguous rows of any number of classes.
-fn add_probabilities_any<T: Real>(p: &[T], c: usize, flags: &[u8], sums: &mut [f64]) -> bool {
+/// [`add_point`] over contiguous rows of `c` classes, in passes that run over elements
+/// rather than points, so that they vectorise for any `c`: per-element keep masks from
+/// the flags, then masked sums and the range check, then the row totals.
+fn add_probabilities<T: Real>(p: &[T], c: usize, flags: &[u8], sums: &mut [f64]) -> bool {
+    if c > PROBABILITY_PASS {
+        let mut valid = true;
+        for ((point, out), &flag) in p.chunks_exact(c).zip(sums.chunks_exact_mut(c)).zip(flags) {
+            valid &= add_point(point.iter().copied(), out, flag);
+        }
+        return valid;
+    }
+    let per_pass = PROBABILITY_PASS / c;
+    let mut keep = [0u64; PROBABILITY_PASS];
     let mut valid = true;
-    for ((point, out), &flag) in p.chunks_exact(c).zip(sums.chunks_exact_mut(c)).zip(flags) {
-        valid &= add_point(point.iter().copied(), out, flag);
+    let passes = p
+        .chunks(per_pass * c)
+        .zip(sums.chunks_mut(per_pass * c))
+        .zip(flags.chunks(per_pass));
+    for ((p, sums), flags) in passes {
+        let len = flags.len() * c;
+        let (p, sums, keep) = (&p[..len], &mut sums[..len], &mut keep[..len]);
+        for (masks, &flag) in keep.chunks_exact_mut(c).zip(flags) {
+            masks.fill(0u64.wrapping_sub(u64::from(flag)));
+        }
+        // All ones keeps p, zero gives +0.0: the sums' bits as with `p * keep`.
+        for ((sum, &v), &mask) in sums.iter_mut().zip(p).zip(keep.iter()) {
+            let v = v.to_f64();
+            valid &= (0.0..=f64::MAX).contains(&v);
+            *sum += f64::from_bits(v.to_bits() & mask);
+        }
+        for point in p.chunks_exact(c) {
+            let total = point.iter().fold(0.0, |t, &v| t + v.to_f64());
+            valid &= (total - 1.0).abs() <= PROBABILITY_TOLERANCE;
+        }
     }
     valid
 }
@@ -1332,11 +1349,13 @@ fn evaluate_classes(
             let p = (point[truth] / count).max(LOG_LOSS_FLOOR);
             covered += 1;
             part[0] += w[j];
-            part[1] += if vote(point.iter().copied()) != truth {
-                w[j]
-            } else {
-                0.0
-            };
+            // `vote(point) != truth` without a branch per class (sums are finite here, or
+            // the block fails): a class above the target, or equal with a lower index.
+            let target = point[truth];
+            let wrong = point.iter().enumerate().fold(false, |wrong, (c, &s)| {
+                wrong | (s > target) | ((s == target) & (c < truth))
+            });
+            part[1] += if wrong { w[j] } else { 0.0 };
             part[2] += w[j] * brier;
             part[3] -= w[j] * p.ln();
         }
