@@ -1424,12 +1424,13 @@ fn evaluate_votes(
 ) -> ErrorSums {
     let stride = n_oob.len();
     let mut e = ErrorSums::default();
+    let mut point_terms = [[0.0f64; 4]; SUB_BLOCK];
     for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
         let start = block * SUB_BLOCK;
         let mut part = [0.0f64; 4];
         let mut covered = 0;
-        for (j, &count) in n.iter().enumerate() {
-            let j = start + j;
+        for (i, &count) in n.iter().enumerate() {
+            let j = start + i;
             let truth = y[j] as usize;
             let target = votes[truth * stride + j];
             let mut brier = 0.0;
@@ -1460,10 +1461,19 @@ fn evaluate_votes(
             let is_covered = count > 0;
             covered += u64::from(is_covered);
             let weight = if is_covered { w[j] } else { 0.0 };
-            part[0] += weight;
-            part[1] += if wrong { weight } else { 0.0 };
-            part[2] += if is_covered { w[j] * brier } else { 0.0 };
-            part[3] -= if is_covered { w[j] * log_p } else { 0.0 };
+            point_terms[i] = [
+                weight,
+                if wrong { weight } else { 0.0 },
+                if is_covered { w[j] * brier } else { 0.0 },
+                if is_covered { w[j] * log_p } else { 0.0 },
+            ];
+        }
+        // The sums in point order, apart from the independent per-point work above.
+        for t in &point_terms[..n.len()] {
+            part[0] += t[0];
+            part[1] += t[1];
+            part[2] += t[2];
+            part[3] -= t[3];
         }
         e.covered += covered;
         e.weight.add(part[0]);
