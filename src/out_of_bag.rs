@@ -1963,6 +1963,38 @@ mod tests {
     }
 
     #[test]
+    fn tabulated_vote_terms_match_the_computed_ones_bit_for_bit() {
+        // Class-major votes of 3 classes over 70 points (two sub-blocks), every count from 0
+        // to the 9 members, weights that are not all 1; `None` computes every term.
+        let (members, c, n) = (9u32, 3, 72);
+        let mut votes = vec![0u32; c * n];
+        let mut n_oob = vec![0u32; n];
+        for j in 0..70 {
+            n_oob[j] = (j as u32 * 7) % (members + 1);
+            let mut left = n_oob[j];
+            for k in 0..c {
+                let v = if k == c - 1 {
+                    left
+                } else {
+                    (j as u32 + k as u32) % (left + 1)
+                };
+                votes[k * n + j] = v;
+                left -= v;
+            }
+        }
+        let y: Vec<f64> = (0..n).map(|j| (j % c) as f64).collect();
+        let w: Vec<f64> = (0..n)
+            .map(|j| if j < 70 { 0.5 + j as f64 / 7.0 } else { 0.0 })
+            .collect();
+        let terms = VoteTerms::new(members as usize).unwrap();
+        let looked_up = evaluate_votes(c, &votes, &n_oob, &y, &w, Some(&terms));
+        let computed = evaluate_votes(c, &votes, &n_oob, &y, &w, None);
+        assert_eq!(looked_up, computed);
+        assert!(looked_up.covered > 0 && looked_up.log_loss.value() > 0.0);
+        assert!(VoteTerms::new(TABULATED_MEMBERS + 1).is_none());
+    }
+
+    #[test]
     #[cfg(target_arch = "x86_64")]
     fn avx2_kernels_match_the_portable_ones_bit_for_bit() {
         if !std::arch::is_x86_feature_detected!("avx2") {
