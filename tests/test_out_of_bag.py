@@ -695,3 +695,20 @@ def test_labels_above_the_classes_of_y_are_counted():
     members[3, 7] = 70_000
     with pytest.raises(ValueError, match=r"^`members`: at most 65536 .* found label 70000"):
         bagwise.out_of_bag(members, counts, y)
+
+
+def test_labels_above_the_classes_of_y_keep_progress_monotone():
+    # The label above the classes of y sits in the last round of blocks, so the first run
+    # reports progress before it is refused and the run with all labels counted restarts.
+    n, m = 150_000, 3
+    counts = draw_counts(n, m, seed=14)
+    members = np.zeros((m, n), dtype=np.int64)
+    members[1, -1] = 3
+    y = np.zeros(n, dtype=np.int64)
+    y[:10] = 2
+    reports = []
+    got = bagwise.out_of_bag(members, counts, y, n_jobs=2,
+                             progress=lambda done, total: reports.append((done, total)))
+    assert got.probabilities.shape == (n, 4)
+    done = [d for d, _ in reports]
+    assert done == sorted(done) and reports[-1] == (n, n)

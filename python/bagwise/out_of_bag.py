@@ -155,6 +155,7 @@ def _checked_chunk(arguments, earlier_kind=None, whole=True, callback=None, chec
      sizes) = _out_of_bag_iv(*arguments, earlier_kind=earlier_kind, whole=whole)
     if check is not None:
         check(kind, members)
+    callback = _monotone(callback)  # one wrapper over both runs: reports never go back
     try:
         result = _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs,
                         callback)
