@@ -110,6 +110,9 @@ impl_count_value!(unsigned: u8, u16, u32, u64; signed: i8, i16, i32, i64);
 pub trait LabelValue: Copy + Send + Sync + 'static {
     /// The label as a class index, `None` when negative or too large for usize.
     fn index(self) -> Option<usize>;
+    /// The label as u64, negative labels wrapping to above any class count (a range check
+    /// without a branch).
+    fn wrapped(self) -> u64;
 }
 
 macro_rules! impl_label_value {
@@ -117,6 +120,9 @@ macro_rules! impl_label_value {
         impl LabelValue for $t {
             #[inline]
             fn index(self) -> Option<usize> { usize::try_from(self).ok() }
+            #[inline]
+            #[allow(clippy::cast_sign_loss)]
+            fn wrapped(self) -> u64 { self as u64 }
         }
     )*};
 }
@@ -283,6 +289,12 @@ pub trait InBagCounts: Sync {
     /// # Errors
     /// `counts` when a count is negative.
     fn out_of_bag_mask(&self, member: usize, start: usize, mask: &mut [f64]) -> Result<()>;
+    /// Writes 1 into `flags[j]` when point `start + j` is out of bag for `member`, else 0
+    /// (bytes: the class kernels select with them and count them).
+    ///
+    /// # Errors
+    /// `counts` when a count is negative.
+    fn out_of_bag_flags(&self, member: usize, start: usize, flags: &mut [u8]) -> Result<()>;
     /// Adds `(prediction, 1)` of every point `start + j` that is out of bag for each of the
     /// members `first..first + values.nrows()`, in order, into `acc[j]` (regression's fused
     /// pass).
@@ -328,6 +340,24 @@ impl<C: CountValue> InBagCounts for ArrayView2<'_, C> {
         Ok(())
     }
 
+    fn out_of_bag_flags(&self, member: usize, start: usize, flags: &mut [u8]) -> Result<()> {
+        let row = self.slice(s![member, start..start + flags.len()]);
+        let mut negative = false;
+        let mut write = |(out, &c): (&mut u8, &C)| {
+            negative |= c.is_negative();
+            *out = u8::from(c.is_zero());
+        };
+        match row.as_slice() {
+            Some(values) => flags.iter_mut().zip(values).for_each(&mut write),
+            None => flags.iter_mut().zip(row.iter()).for_each(&mut write),
+        }
+        if negative {
+            let j = row.iter().position(|c| c.is_negative()).unwrap_or(0);
+            return Err(negative_count(member, start + j));
+        }
+        Ok(())
+    }
+
     fn accumulate_values(
         &self,
         first: usize,
@@ -362,19 +392,31 @@ pub trait MemberPredictions: Sync {
     fn dim(&self) -> (usize, usize);
     /// Regression or classification with its number of classes.
     fn task(&self) -> Task;
-    /// Adds member `member`'s prediction for points `start..start + mask.len()`, times
-    /// `mask` (1.0 out of bag, 0.0 in bag), into `sums` (points × [`Task::outputs`],
-    /// row-major).
-    ///
-    /// A NaN or infinite prediction makes its point's sum non-finite (also when in bag,
-    /// since ∞·0 = NaN); the caller checks the sums once per block and then calls
-    /// [`MemberPredictions::find_bad_value`] for the message.
+    /// Classification: empty running totals of `len` entries (points × classes).
+    fn class_totals(&self, len: usize) -> ClassTotals {
+        ClassTotals::Probabilities(vec![0.0; len])
+    }
+
+    /// Classification: adds member `member`'s votes or probabilities of the points
+    /// `start + j` with `out_of_bag[j] == 1` into `totals` (points × classes, row-major);
+    /// every point's prediction is checked, in bag or not.
     ///
     /// # Errors
-    /// `members` for labels out of range or probabilities that are negative or do not sum
-    /// to one within [`PROBABILITY_TOLERANCE`].
-    fn accumulate(&self, member: usize, start: usize, mask: &[f64], sums: &mut [f64])
-        -> Result<()>;
+    /// `members` for labels out of range, or probabilities that are not finite and
+    /// non-negative or do not sum to one within [`PROBABILITY_TOLERANCE`].
+    fn add_classes(
+        &self,
+        member: usize,
+        start: usize,
+        out_of_bag: &[u8],
+        totals: &mut ClassTotals,
+    ) -> Result<()> {
+        let _ = (member, start, out_of_bag, totals);
+        Err(Error::value(
+            "members",
+            "regression members have no classes",
+        ))
+    }
 
     /// Regression members: the predictions of members `members` for points
     /// `start..start + len`, read by the fused counts kernel instead of
@@ -407,30 +449,6 @@ impl<T: Prediction> MemberPredictions for Values<'_, T> {
 
     fn task(&self) -> Task {
         Task::Regression
-    }
-
-    fn accumulate(
-        &self,
-        member: usize,
-        start: usize,
-        mask: &[f64],
-        sums: &mut [f64],
-    ) -> Result<()> {
-        let row = self.0.slice(s![member, start..start + mask.len()]);
-        // Independent multiply-adds: the compiler vectorises the contiguous case.
-        match row.as_slice() {
-            Some(values) => {
-                for ((sum, &keep), &v) in sums.iter_mut().zip(mask).zip(values) {
-                    *sum += v.to_f64() * keep;
-                }
-            }
-            None => {
-                for ((sum, &keep), &v) in sums.iter_mut().zip(mask).zip(row.iter()) {
-                    *sum += v.to_f64() * keep;
-                }
-            }
-        }
-        Ok(())
     }
 
     fn value_rows(
@@ -495,32 +513,113 @@ impl<L: LabelValue> MemberPredictions for Labels<'_, L> {
         }
     }
 
-    fn accumulate(
+    fn class_totals(&self, len: usize) -> ClassTotals {
+        ClassTotals::Votes(vec![0; len])
+    }
+
+    fn add_classes(
         &self,
         member: usize,
         start: usize,
-        mask: &[f64],
-        sums: &mut [f64],
+        out_of_bag: &[u8],
+        totals: &mut ClassTotals,
     ) -> Result<()> {
+        let ClassTotals::Votes(votes) = totals else {
+            return Err(Error::value("members", "labels need vote totals"));
+        };
         let c = self.n_classes;
-        let row = self.labels.slice(s![member, start..start + mask.len()]);
-        for (j, (&keep, &label)) in mask.iter().zip(row.iter()).enumerate() {
-            match label.index() {
-                Some(k) if k < c => sums[j * c + k] += keep,
-                _ => {
-                    return Err(Error::value(
-                        "members",
-                        format!(
-                            "class labels must lie in 0..{c}; member {member}, point {} is out \
-                             of range",
-                            start + j
-                        ),
-                    ))
+        let row = self
+            .labels
+            .slice(s![member, start..start + out_of_bag.len()]);
+        let in_range = match row.as_slice() {
+            Some(labels) => add_votes_dispatch(labels, out_of_bag, votes, c),
+            None => {
+                let stride = votes.len() / c;
+                let mut out_of_range = false;
+                for (j, (&label, &flag)) in row.iter().zip(out_of_bag).enumerate() {
+                    let class = label.wrapped();
+                    out_of_range |= class >= c as u64;
+                    votes[class.min(c as u64 - 1) as usize * stride + j] += u32::from(flag);
                 }
+                !out_of_range
             }
+        };
+        if !in_range {
+            let j = row
+                .iter()
+                .position(|l| l.wrapped() >= c as u64)
+                .unwrap_or(0);
+            return Err(Error::value(
+                "members",
+                format!(
+                    "class labels must lie in 0..{c}; member {member}, point {} is out of range",
+                    start + j
+                ),
+            ));
         }
         Ok(())
     }
+}
+
+/// Class counts up to which [`add_votes`] compares every label with every class (a pass per
+/// class that vectorises) instead of scattering the votes.
+const COMPARED_CLASSES: usize = 16;
+
+/// Adds the votes of contiguous `labels` of the points with `flags[j] == 1` into `votes`
+/// (class-major: class `k` of point `j` at `k * stride + j`, `stride = votes.len() / c`);
+/// whether every label (in bag or not) lies in 0..c.
+#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+fn add_votes<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut [u32], c: usize) -> bool {
+    let stride = votes.len() / c;
+    let labels = &labels[..flags.len()];
+    let mut out_of_range = false;
+    if c <= COMPARED_CLASSES {
+        for (k, column) in votes.chunks_exact_mut(stride).enumerate() {
+            let class = k as u64;
+            for ((v, &label), &flag) in column.iter_mut().zip(labels).zip(flags) {
+                *v += u32::from(label.wrapped() == class) & u32::from(flag);
+            }
+        }
+        for &label in labels {
+            out_of_range |= label.wrapped() >= c as u64;
+        }
+    } else {
+        // An out-of-range label votes for the last class and flags the row.
+        for (j, (&label, &flag)) in labels.iter().zip(flags).enumerate() {
+            let class = label.wrapped();
+            out_of_range |= class >= c as u64;
+            votes[class.min(c as u64 - 1) as usize * stride + j] += u32::from(flag);
+        }
+    }
+    !out_of_range
+}
+
+/// [`add_votes`] compiled for AVX2 when available (the same integer operations).
+fn add_votes_dispatch<L: LabelValue>(
+    labels: &[L],
+    flags: &[u8],
+    votes: &mut [u32],
+    c: usize,
+) -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { add_votes_avx2(labels, flags, votes, c) };
+        }
+    }
+    add_votes(labels, flags, votes, c)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn add_votes_avx2<L: LabelValue>(
+    labels: &[L],
+    flags: &[u8],
+    votes: &mut [u32],
+    c: usize,
+) -> bool {
+    add_votes(labels, flags, votes, c)
 }
 
 /// Class probabilities (members, points, classes); every member's row sums to one.
@@ -538,25 +637,40 @@ impl<T: Real> MemberPredictions for Probabilities<'_, T> {
         }
     }
 
-    fn accumulate(
+    fn add_classes(
         &self,
         member: usize,
         start: usize,
-        mask: &[f64],
-        sums: &mut [f64],
+        out_of_bag: &[u8],
+        totals: &mut ClassTotals,
     ) -> Result<()> {
-        let block = self.0.slice(s![member, start..start + mask.len(), ..]);
-        for (j, (point, &keep)) in block.outer_iter().zip(mask).enumerate() {
-            let out = &mut sums[j * point.len()..(j + 1) * point.len()];
-            let mut total = 0.0;
-            let mut valid = true;
-            for (o, &p) in out.iter_mut().zip(point.iter()) {
-                let p = p.to_f64();
-                valid &= p >= 0.0 && p.is_finite();
-                total += p;
-                *o += p * keep;
+        let ClassTotals::Probabilities(sums) = totals else {
+            return Err(Error::value(
+                "members",
+                "probabilities need probability sums",
+            ));
+        };
+        let block = self
+            .0
+            .slice(s![member, start..start + out_of_bag.len(), ..]);
+        let c = block.dim().1;
+        let valid = match block.as_slice() {
+            Some(p) => add_probabilities(p, c, out_of_bag, sums),
+            None => {
+                let mut valid = true;
+                let points = block.outer_iter().zip(sums.chunks_exact_mut(c));
+                for ((point, out), &flag) in points.zip(out_of_bag) {
+                    valid &= add_point(point.iter().copied(), out, flag);
+                }
+                valid
             }
-            if !valid || (total - 1.0).abs() > PROBABILITY_TOLERANCE {
+        };
+        if valid {
+            return Ok(());
+        }
+        for (j, point) in block.outer_iter().enumerate() {
+            let total: f64 = point.iter().fold(0.0, |t, &p| t + p.to_f64());
+            if !point_is_valid(point.iter().copied(), total) {
                 return Err(Error::value(
                     "members",
                     format!(
@@ -567,8 +681,88 @@ impl<T: Real> MemberPredictions for Probabilities<'_, T> {
                 ));
             }
         }
-        Ok(())
+        Err(Error::value("members", "class probabilities are invalid"))
     }
+}
+
+/// Running per-point class totals of a block of points (points × classes, row-major).
+pub enum ClassTotals {
+    /// Votes of label members: integers, exact as the f64 sums they replace. Class-major
+    /// (class `k` of point `j` at `k * points + j`), so that a class's votes are added in one
+    /// vectorised pass.
+    Votes(Vec<u32>),
+    /// Sums of member probabilities.
+    Probabilities(Vec<f64>),
+}
+
+/// Whether a probability row is finite, non-negative and sums (as `total`, added in class
+/// order) to one within [`PROBABILITY_TOLERANCE`].
+#[inline(always)]
+fn point_is_valid<T: Real>(point: impl Iterator<Item = T>, total: f64) -> bool {
+    let mut valid = true;
+    for p in point {
+        let p = p.to_f64();
+        // Fails for NaN, negative and infinite values.
+        valid &= (0.0..=f64::MAX).contains(&p);
+    }
+    valid & ((total - 1.0).abs() <= PROBABILITY_TOLERANCE)
+}
+
+/// Adds one point's probabilities into `out` when `flag` is 1; whether the row is valid.
+/// Adding 0.0 for an in-bag point leaves the (non-negative) sums' bits unchanged, as the
+/// masked `p * 0.0` did.
+#[inline(always)]
+fn add_point<T: Real>(point: impl Iterator<Item = T>, out: &mut [f64], flag: u8) -> bool {
+    let mut total = 0.0;
+    let mut valid = true;
+    for (o, p) in out.iter_mut().zip(point) {
+        let p = p.to_f64();
+        valid &= (0.0..=f64::MAX).contains(&p);
+        total += p;
+        *o += if flag != 0 { p } else { 0.0 };
+    }
+    valid & ((total - 1.0).abs() <= PROBABILITY_TOLERANCE)
+}
+
+/// Elements of a member row handled per pass of [`add_probabilities`] (stack scratch).
+const PROBABILITY_PASS: usize = 1024;
+
+/// [`add_point`] over contiguous rows of `c` classes, in passes that run over elements
+/// rather than points, so that they vectorise for any `c`: per-element keep masks from
+/// the flags, then masked sums and the range check, then the row totals.
+fn add_probabilities<T: Real>(p: &[T], c: usize, flags: &[u8], sums: &mut [f64]) -> bool {
+    if c > PROBABILITY_PASS {
+        let mut valid = true;
+        for ((point, out), &flag) in p.chunks_exact(c).zip(sums.chunks_exact_mut(c)).zip(flags) {
+            valid &= add_point(point.iter().copied(), out, flag);
+        }
+        return valid;
+    }
+    let per_pass = PROBABILITY_PASS / c;
+    let mut keep = [0u64; PROBABILITY_PASS];
+    let mut valid = true;
+    let passes = p
+        .chunks(per_pass * c)
+        .zip(sums.chunks_mut(per_pass * c))
+        .zip(flags.chunks(per_pass));
+    for ((p, sums), flags) in passes {
+        let len = flags.len() * c;
+        let (p, sums, keep) = (&p[..len], &mut sums[..len], &mut keep[..len]);
+        for (masks, &flag) in keep.chunks_exact_mut(c).zip(flags) {
+            masks.fill(0u64.wrapping_sub(u64::from(flag)));
+        }
+        // All ones keeps p, zero gives +0.0: the sums' bits as with `p * keep`.
+        for ((sum, &v), &mask) in sums.iter_mut().zip(p).zip(keep.iter()) {
+            let v = v.to_f64();
+            valid &= (0.0..=f64::MAX).contains(&v);
+            *sum += f64::from_bits(v.to_bits() & mask);
+        }
+        for point in p.chunks_exact(c) {
+            let total = point.iter().fold(0.0, |t, &v| t + v.to_f64());
+            valid &= (total - 1.0).abs() <= PROBABILITY_TOLERANCE;
+        }
+    }
+    valid
 }
 
 /// Error sums over the points covered by at least one OOB member among the first k.
@@ -847,6 +1041,10 @@ pub fn out_of_bag(
     let mut state = OutOfBagPartial::new(task, m, sizes)?;
     state.points = n as u64;
 
+    let terms = match (task, members.class_totals(0)) {
+        (Task::Classification { .. }, ClassTotals::Votes(_)) => VoteTerms::new(m),
+        _ => None,
+    };
     let block = block_points(width);
     let mut jobs: Vec<Option<Block<'_>>> = Vec::with_capacity(n.div_ceil(block));
     let mut probabilities = out.probabilities;
@@ -876,7 +1074,7 @@ pub fn out_of_bag(
         per_round: 8 * pool.threads().max(1),
     };
     let work = |_: std::ops::Range<usize>, job: &mut Option<Block<'_>>| match job.take() {
-        Some(job) => job.run(members, counts, y, weights, sizes),
+        Some(job) => job.run(members, counts, y, weights, sizes, terms.as_ref()),
         None => Err(Error::value("members", "a block of points was run twice")),
     };
     let merge = |sums: Vec<ErrorSums>| {
@@ -905,6 +1103,7 @@ impl Block<'_> {
         y: ArrayView1<'_, f64>,
         weights: Option<ArrayView1<'_, f64>>,
         sizes: &[usize],
+        terms: Option<&VoteTerms>,
     ) -> Result<Vec<ErrorSums>> {
         let rows = self.prediction.len();
         let task = members.task();
@@ -981,50 +1180,58 @@ impl Block<'_> {
             }
             return Ok(curve);
         }
-        let mut sums = vec![0.0; padded * width];
-        let mut n_oob = vec![0.0; padded];
-        let mut mask = vec![0.0; rows];
+        let mut totals = members.class_totals(padded * width);
+        let mut n_oob = vec![0u32; padded];
+        let mut out_of_bag = vec![0u8; rows];
         for member in 0..m {
-            counts.out_of_bag_mask(member, self.start, &mut mask)?;
-            members.accumulate(member, self.start, &mask, &mut sums[..rows * width])?;
-            n_oob.iter_mut().zip(&mask).for_each(|(c, &k)| *c += k);
+            counts.out_of_bag_flags(member, self.start, &mut out_of_bag)?;
+            members.add_classes(member, self.start, &out_of_bag, &mut totals)?;
+            n_oob
+                .iter_mut()
+                .zip(&out_of_bag)
+                .for_each(|(n, &flag)| *n += u32::from(flag));
             if next < sizes.len() && sizes[next] == member + 1 {
-                curve.push(evaluate_classes(
-                    width,
-                    &sums,
-                    &n_oob,
-                    &targets,
-                    &point_weights,
-                ));
+                curve.push(match &totals {
+                    ClassTotals::Votes(votes) => {
+                        evaluate_votes(width, votes, &n_oob, &targets, &point_weights, terms)
+                    }
+                    ClassTotals::Probabilities(sums) => {
+                        evaluate_classes(width, sums, &n_oob, &targets, &point_weights)
+                    }
+                });
                 next += 1;
             }
         }
-        if sums.iter().any(|v| !v.is_finite()) {
-            return Err(members.find_bad_value(self.start, rows));
+        if let ClassTotals::Probabilities(sums) = &totals {
+            if sums.iter().any(|v| !v.is_finite()) {
+                return Err(members.find_bad_value(self.start, rows));
+            }
         }
         // The whole ensemble: per-point outputs.
         for (j, &count) in n_oob[..rows].iter().enumerate() {
-            self.n_oob[j] = count as i64;
-            let point = &sums[j * width..(j + 1) * width];
-            match task {
-                Task::Regression => {
-                    self.prediction[j] = if count == 0.0 {
-                        f64::NAN
-                    } else {
-                        point[0] / count
-                    };
-                }
-                Task::Classification { .. } => {
-                    let out = &mut self.probabilities[j * width..(j + 1) * width];
-                    if count == 0.0 {
-                        self.prediction[j] = f64::NAN;
-                        out.fill(f64::NAN);
-                    } else {
-                        out.iter_mut().zip(point).for_each(|(o, &s)| *o = s / count);
-                        self.prediction[j] = vote(point.iter().copied()) as f64;
-                    }
-                }
+            self.n_oob[j] = i64::from(count);
+            let out = &mut self.probabilities[j * width..(j + 1) * width];
+            if count == 0 {
+                self.prediction[j] = f64::NAN;
+                out.fill(f64::NAN);
+                continue;
             }
+            let count = f64::from(count);
+            let point = j * width..(j + 1) * width;
+            self.prediction[j] = match &totals {
+                ClassTotals::Votes(votes) => {
+                    let point = votes.iter().skip(j).step_by(padded);
+                    out.iter_mut()
+                        .zip(point.clone())
+                        .for_each(|(o, &s)| *o = f64::from(s) / count);
+                    vote(point.map(|&s| f64::from(s)))
+                }
+                ClassTotals::Probabilities(sums) => {
+                    let point = &sums[point];
+                    out.iter_mut().zip(point).for_each(|(o, &s)| *o = s / count);
+                    vote(point.iter().copied())
+                }
+            } as f64;
         }
         Ok(curve)
     }
@@ -1120,7 +1327,7 @@ fn evaluate_regression(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> Err
 fn evaluate_classes(
     n_classes: usize,
     sums: &[f64],
-    n_oob: &[f64],
+    n_oob: &[u32],
     y: &[f64],
     w: &[f64],
 ) -> ErrorSums {
@@ -1129,8 +1336,9 @@ fn evaluate_classes(
         let start = block * SUB_BLOCK;
         let mut part = [0.0f64; 4];
         let mut covered = 0;
-        for (j, &count) in n.iter().enumerate().filter(|(_, &c)| c > 0.0) {
+        for (j, &count) in n.iter().enumerate().filter(|(_, &c)| c > 0) {
             let j = start + j;
+            let count = f64::from(count);
             let point = &sums[j * n_classes..(j + 1) * n_classes];
             let truth = y[j] as usize;
             let mut brier = 0.0;
@@ -1141,13 +1349,131 @@ fn evaluate_classes(
             let p = (point[truth] / count).max(LOG_LOSS_FLOOR);
             covered += 1;
             part[0] += w[j];
-            part[1] += if vote(point.iter().copied()) != truth {
-                w[j]
-            } else {
-                0.0
-            };
+            // `vote(point) != truth` without a branch per class (sums are finite here, or
+            // the block fails): a class above the target, or equal with a lower index.
+            let target = point[truth];
+            let wrong = point.iter().enumerate().fold(false, |wrong, (c, &s)| {
+                wrong | (s > target) | ((s == target) & (c < truth))
+            });
+            part[1] += if wrong { w[j] } else { 0.0 };
             part[2] += w[j] * brier;
             part[3] -= w[j] * p.ln();
+        }
+        e.covered += covered;
+        e.weight.add(part[0]);
+        e.wrong.add(part[1]);
+        e.brier.add(part[2]);
+        e.log_loss.add(part[3]);
+    }
+    e
+}
+
+/// Members up to which [`VoteTerms`] are tabulated ((m + 1)(m + 2)/2 entries of 24 bytes:
+/// 3 MB at 512).
+const TABULATED_MEMBERS: usize = 512;
+
+/// The loss terms of a vote fraction s/n for every 0 ≤ s ≤ n ≤ members, computed with the
+/// expressions of [`evaluate_classes`] (so with the same bits): votes are small integers,
+/// and a lookup replaces a division per class and a logarithm per point.
+struct VoteTerms {
+    /// The Brier terms (s/n − 0)² of a class other than the target and (s/n − 1)² of the
+    /// target, picked by index rather than by a branch.
+    brier: Vec<[f64; 2]>,
+    /// ln(max(s/n, floor)), the log term of the target class.
+    log: Vec<f64>,
+}
+
+impl VoteTerms {
+    /// `None` above [`TABULATED_MEMBERS`] (the terms are then computed per point).
+    fn new(members: usize) -> Option<Self> {
+        if members > TABULATED_MEMBERS {
+            return None;
+        }
+        let len = (members + 1) * (members + 2) / 2;
+        let (mut brier, mut log) = (Vec::with_capacity(len), Vec::with_capacity(len));
+        for n in 0..=members {
+            for s in 0..=n {
+                let (s, n) = (s as f64, n as f64);
+                let (other, target) = (s / n - 0.0, s / n - 1.0);
+                brier.push([other * other, target * target]);
+                log.push((s / n).max(LOG_LOSS_FLOOR).ln());
+            }
+        }
+        Some(VoteTerms { brier, log })
+    }
+
+    /// Index of (0, n); (s, n) follows at `s`.
+    #[inline(always)]
+    fn row(n: u32) -> usize {
+        let n = n as usize;
+        n * (n + 1) / 2
+    }
+}
+
+/// [`evaluate_classes`] of class-major label votes (integer totals), the same sums in the
+/// same order; with `terms` the per-class quotients and the logarithm are looked up. No
+/// branch on the data: an uncovered point's terms are computed and replaced by 0.0, which
+/// leaves the (never negative-zero) partial sums unchanged.
+fn evaluate_votes(
+    n_classes: usize,
+    votes: &[u32],
+    n_oob: &[u32],
+    y: &[f64],
+    w: &[f64],
+    terms: Option<&VoteTerms>,
+) -> ErrorSums {
+    let stride = n_oob.len();
+    let mut e = ErrorSums::default();
+    let mut point_terms = [[0.0f64; 4]; SUB_BLOCK];
+    for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
+        let start = block * SUB_BLOCK;
+        let mut part = [0.0f64; 4];
+        let mut covered = 0;
+        for (i, &count) in n.iter().enumerate() {
+            let j = start + i;
+            let truth = y[j] as usize;
+            let target = votes[truth * stride + j];
+            let mut brier = 0.0;
+            // The vote misses the target iff a class has more votes, or as many and a lower
+            // index (ties go to the lowest class).
+            let mut wrong = false;
+            let log_p = match terms {
+                Some(t) => {
+                    let row = VoteTerms::row(count);
+                    for c in 0..n_classes {
+                        let s = votes[c * stride + j];
+                        brier += t.brier[row + s as usize][usize::from(c == truth)];
+                        wrong |= (s > target) | ((s == target) & (c < truth));
+                    }
+                    t.log[row + target as usize]
+                }
+                None => {
+                    let count = f64::from(count);
+                    for c in 0..n_classes {
+                        let s = votes[c * stride + j];
+                        let d = f64::from(s) / count - if c == truth { 1.0 } else { 0.0 };
+                        brier += d * d;
+                        wrong |= (s > target) | ((s == target) & (c < truth));
+                    }
+                    (f64::from(target) / count).max(LOG_LOSS_FLOOR).ln()
+                }
+            };
+            let is_covered = count > 0;
+            covered += u64::from(is_covered);
+            let weight = if is_covered { w[j] } else { 0.0 };
+            point_terms[i] = [
+                weight,
+                if wrong { weight } else { 0.0 },
+                if is_covered { w[j] * brier } else { 0.0 },
+                if is_covered { w[j] * log_p } else { 0.0 },
+            ];
+        }
+        // The sums in point order, apart from the independent per-point work above.
+        for t in &point_terms[..n.len()] {
+            part[0] += t[0];
+            part[1] += t[1];
+            part[2] += t[2];
+            part[3] -= t[3];
         }
         e.covered += covered;
         e.weight.add(part[0]);
@@ -1634,6 +1960,38 @@ mod tests {
         assert_eq!(a.state.full(), b.state.full());
         let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
         assert_eq!(bits(&a.prediction), bits(&b.prediction));
+    }
+
+    #[test]
+    fn tabulated_vote_terms_match_the_computed_ones_bit_for_bit() {
+        // Class-major votes of 3 classes over 70 points (two sub-blocks), every count from 0
+        // to the 9 members, weights that are not all 1; `None` computes every term.
+        let (members, c, n) = (9u32, 3, 72);
+        let mut votes = vec![0u32; c * n];
+        let mut n_oob = vec![0u32; n];
+        for j in 0..70 {
+            n_oob[j] = (j as u32 * 7) % (members + 1);
+            let mut left = n_oob[j];
+            for k in 0..c {
+                let v = if k == c - 1 {
+                    left
+                } else {
+                    (j as u32 + k as u32) % (left + 1)
+                };
+                votes[k * n + j] = v;
+                left -= v;
+            }
+        }
+        let y: Vec<f64> = (0..n).map(|j| (j % c) as f64).collect();
+        let w: Vec<f64> = (0..n)
+            .map(|j| if j < 70 { 0.5 + j as f64 / 7.0 } else { 0.0 })
+            .collect();
+        let terms = VoteTerms::new(members as usize).unwrap();
+        let looked_up = evaluate_votes(c, &votes, &n_oob, &y, &w, Some(&terms));
+        let computed = evaluate_votes(c, &votes, &n_oob, &y, &w, None);
+        assert_eq!(looked_up, computed);
+        assert!(looked_up.covered > 0 && looked_up.log_loss.value() > 0.0);
+        assert!(VoteTerms::new(TABULATED_MEMBERS + 1).is_none());
     }
 
     #[test]

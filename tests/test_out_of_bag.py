@@ -639,3 +639,76 @@ def test_negative_small_counts_are_named(dtype):
     with pytest.raises(ValueError, match=r"^`counts`: in-bag counts must be non-negative, got "
                                          r"-3 \(member 2, row 31\)"):
         bagwise.out_of_bag(np.zeros((4, 50)), counts, np.zeros(50))
+
+
+@pytest.mark.parametrize("n_classes", [2, 3, 10])
+@pytest.mark.parametrize("members_of", ["labels int64", "labels uint8 strided",
+                                        "probabilities float64",
+                                        "probabilities float32 strided"])
+def test_classes_over_block_boundaries_match_numpy(n_classes, members_of):
+    # 20,011 points (prime: a multiple of no block), several blocks for every class count;
+    # the curve at sizes where few points are covered yet; ties in the votes.
+    rng = np.random.default_rng(12 + n_classes)
+    n, m = 20_011, 17
+    probs, counts, y = probability_data(n=n, m=m, c=n_classes, seed=12 + n_classes)
+    if members_of.startswith("labels"):
+        members = rng.integers(0, n_classes, size=(m, n))
+        members[:, :50] = np.arange(50) % n_classes   # ties between classes
+        if "uint8" in members_of:
+            members = members.astype(np.uint8)
+    else:
+        members = probs.astype(np.float32 if "float32" in members_of else np.float64)
+    if "strided" in members_of:
+        wide = np.repeat(members, 2, axis=1)
+        members = wide[:, ::2]
+        assert not members.flags.c_contiguous
+    weights = rng.random(n)
+    sizes = [1, 2, 3, 5, 8, 13, m]
+    got = bagwise.out_of_bag(members, counts, y, point_weights=weights, sizes=sizes)
+    kind = "labels" if members_of.startswith("labels") else "probabilities"
+    for i, k in enumerate(sizes):
+        want = reference(members, counts, y, kind, weights=weights, k=k)
+        assert got.n_covered[i] == want["covered"]
+        for loss in ("error_rate", "brier_score", "log_loss"):
+            assert got.loss_curve(loss)[i] == pytest.approx(want[loss], rel=1e-12), (k, loss)
+    np.testing.assert_array_equal(got.n_out_of_bag, want["n_oob"])
+    np.testing.assert_array_equal(got.prediction, want["prediction"])
+    np.testing.assert_allclose(got.probabilities, want["probabilities"], rtol=1e-12)
+
+
+def test_labels_above_the_classes_of_y_are_counted():
+    # y lacks the top class the members vote for: the class count comes from the labels.
+    rng = np.random.default_rng(13)
+    n, m = 3_001, 9
+    counts = draw_counts(n, m, seed=13)
+    members = rng.integers(0, 4, size=(m, n))
+    y = np.minimum(rng.integers(0, 4, size=n), 2)
+    got = bagwise.out_of_bag(members, counts, y)
+    want = reference(members, counts, y, "labels")
+    assert got.probabilities.shape == (n, 4)
+    np.testing.assert_allclose(got.probabilities, want["probabilities"], rtol=1e-12)
+    assert got.log_loss == pytest.approx(want["log_loss"], rel=1e-12)
+    stream = bagwise.out_of_bag_stream()
+    for part in (slice(0, 1000), slice(1000, n)):
+        stream.update(members[:, part], counts[:, part], y[part])
+    assert stream.result().log_loss == pytest.approx(want["log_loss"], rel=1e-12)
+    members[3, 7] = 70_000
+    with pytest.raises(ValueError, match=r"^`members`: at most 65536 .* found label 70000"):
+        bagwise.out_of_bag(members, counts, y)
+
+
+def test_labels_above_the_classes_of_y_keep_progress_monotone():
+    # The label above the classes of y sits in the last round of blocks, so the first run
+    # reports progress before it is refused and the run with all labels counted restarts.
+    n, m = 150_000, 3
+    counts = draw_counts(n, m, seed=14)
+    members = np.zeros((m, n), dtype=np.int64)
+    members[1, -1] = 3
+    y = np.zeros(n, dtype=np.int64)
+    y[:10] = 2
+    reports = []
+    got = bagwise.out_of_bag(members, counts, y, n_jobs=2,
+                             progress=lambda done, total: reports.append((done, total)))
+    assert got.probabilities.shape == (n, 4)
+    done = [d for d, _ in reports]
+    assert done == sorted(done) and reports[-1] == (n, n)

@@ -99,13 +99,16 @@ def _float_dtype(array: np.ndarray, name: str) -> None:
 
 def members_array(members, name: str = "members", *, kinds: tuple[str, ...] = KINDS,
                   numbers_as_values: bool = False, min_members: int = 1,
-                  purpose: str = "this function") -> tuple[str, np.ndarray]:
+                  purpose: str = "this function",
+                  check_labels: bool = True) -> tuple[str, np.ndarray]:
     """``(kind, array)``: the kind (one of `KINDS`) and the array the core reads.
 
     ``kinds`` are the kinds the caller takes (another kind is a ``TypeError`` saying what
     ``purpose`` needs); ``numbers_as_values`` reads integer and boolean arrays as values
     (one float64 copy) instead of labels, for families that take values only;
-    ``min_members`` is the fewest members ``purpose`` needs.
+    ``min_members`` is the fewest members ``purpose`` needs; ``check_labels=False`` returns
+    labels in their own integer dtype unchecked, for a core that checks their range itself
+    (each check is a pass over the labels).
 
     Raises ``TypeError`` for a dtype that is neither float32/float64 nor integer or a kind
     outside ``kinds``, ``ValueError`` for a wrong number of dimensions, an empty axis, too
@@ -146,7 +149,7 @@ def members_array(members, name: str = "members", *, kinds: tuple[str, ...] = KI
     if array.shape[0] < min_members:
         raise ValueError(f"`{name}`: needs at least {min_members} members, got "
                          f"{array.shape[0]}")
-    if found == "labels":
+    if found == "labels" and check_labels:
         if array.dtype == np.uint64 and array.max() > np.iinfo(np.int64).max:
             raise ValueError(f"`{name}`: labels are class indices; got {array.max()}")
         array = array.astype(np.int64, copy=False)

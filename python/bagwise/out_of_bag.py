@@ -56,11 +56,15 @@ def _loss_iv(loss, task):
 
 
 def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earlier_kind=None,
-                   whole=True):
+                   whole=True, check_labels=False):
     """Checks shapes and dtypes; values (NaN, ranges, sums) are checked by the core.
     ``earlier_kind``: the kind of a stream's earlier chunks, which this one must match;
-    ``whole``: False for a stream's chunk (the counts of some training rows only)."""
-    kind, members = members_array(members)
+    ``whole``: False for a stream's chunk (the counts of some training rows only).
+
+    Labels are passed on unread with the class count of ``y``: the core refuses a label
+    outside it, and `_checked_chunk` then calls again with ``check_labels`` (the count of
+    all labels, or the error naming the bad label)."""
+    kind, members = members_array(members, check_labels=check_labels)
     kind = _core_kind(kind)
     if earlier_kind is not None and kind != earlier_kind:
         raise ValueError(f"`members`: holds {kind} but earlier chunks held {earlier_kind}")
@@ -71,7 +75,10 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earli
     # Class targets may come as whole floats here (the core reads float64 targets).
     y = targets(y, "values" if kind == "regression" else kind, n_points, float_labels=True)
     n_classes = None
-    if kind == "labels":
+    if kind == "labels" and not check_labels:
+        n_classes = int(y.max()) + 1
+    if kind == "labels" and (check_labels or n_classes > OUT_OF_BAG_MAX_CLASSES):
+        members = members_array(members, check_labels=True)[1]
         n_classes = n_classes_of(None, members, y, max_classes=OUT_OF_BAG_MAX_CLASSES,
                                  blame_labels=True)
     y = np.ascontiguousarray(y, dtype=np.float64)
@@ -137,6 +144,30 @@ def _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs, ca
             raise
     return _core.out_of_bag_chunk(filled, counts, y, point_weights, sizes, kind, n_classes,
                                   n_jobs, callback)
+
+
+def _checked_chunk(arguments, earlier_kind=None, whole=True, callback=None, check=None):
+    """`_out_of_bag_iv`, ``check(kind, members)`` if given, then `_chunk`. Labels the core
+    refuses (outside the classes of ``y``) are checked and counted here, and the chunk is
+    run again with their count. ``arguments``: members, counts, y, loss, point_weights,
+    n_jobs, sizes."""
+    (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
+     sizes) = _out_of_bag_iv(*arguments, earlier_kind=earlier_kind, whole=whole)
+    if check is not None:
+        check(kind, members)
+    callback = _monotone(callback)  # one wrapper over both runs: reports never go back
+    try:
+        result = _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs,
+                        callback)
+    except ValueError as err:
+        if kind != "labels" or not str(err).startswith("`members`: class labels must lie"):
+            raise
+        (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
+         sizes) = _out_of_bag_iv(*arguments, earlier_kind=earlier_kind, whole=whole,
+                                 check_labels=True)
+        result = _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs,
+                        callback)
+    return result, kind, loss
 
 
 def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None,
@@ -221,11 +252,9 @@ def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None
     """
     if _chunked.any_lazy(members, counts, y, point_weights):
         return _lazy_out_of_bag(members, counts, y, loss, point_weights, n_jobs, sizes, progress)
-    (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
-     sizes) = _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes)
     with progress_callback(progress, "out of bag", "point") as callback:
-        state, (prediction, n_oob, probabilities) = _chunk(
-            members, counts, y, point_weights, sizes, kind, n_classes, n_jobs, callback)
+        (state, (prediction, n_oob, probabilities)), kind, loss = _checked_chunk(
+            (members, counts, y, loss, point_weights, n_jobs, sizes), callback=callback)
     return OutOfBag._build(state, kind, loss, prediction, n_oob, probabilities)
 
 
@@ -316,13 +345,13 @@ class OutOfBagStream:
     def update(self, members, counts, y, point_weights=None) -> OutOfBagStream:
         """Add the next chunk of points: arrays as in :func:`out_of_bag`, restricted to the
         chunk's points (e.g. ``members[:, a:b]`` of a memory map). Returns the stream."""
-        (members, counts, y, kind, n_classes, loss, point_weights, n_jobs,
-         sizes) = _out_of_bag_iv(members, counts, y, self._loss, point_weights, self._n_jobs,
-                                 self._sizes, earlier_kind=self._kind, whole=False)
-        self._check_compatible(kind, members.shape[0],
-                               members.shape[2] if kind == "probabilities" else None)
-        state, part = _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs,
-                             self._callback)
+        def check(kind, members):
+            self._check_compatible(kind, members.shape[0],
+                                   members.shape[2] if kind == "probabilities" else None)
+
+        (state, part), kind, loss = _checked_chunk(
+            (members, counts, y, self._loss, point_weights, self._n_jobs, self._sizes),
+            earlier_kind=self._kind, whole=False, callback=self._callback, check=check)
         self._state = state if self._state is None else self._state.merge(state)
         self._kind, self._loss = kind, loss
         self._parts.append(part)
