@@ -935,7 +935,11 @@ impl CheckedTreeParams {
         let target_pos: Vec<f64> = rows.iter().map(|&r| target[r as usize]).collect();
         let regression = p.task == Task::Regression;
         let weighted_target = if regression {
-            target_pos.iter().zip(&weight).map(|(y, w)| [*w, w * y]).collect()
+            target_pos
+                .iter()
+                .zip(&weight)
+                .map(|(y, w)| [*w, w * y])
+                .collect()
         } else {
             Vec::new()
         };
