@@ -89,10 +89,6 @@ fn dot_wide<C: Count>(a: &[C], b: &[C]) -> u128 {
 /// A count type the uncertainty estimators accept; the dot product is chosen by width and
 /// u8 (the usual case) gets the fast kernel.
 pub trait GramCount: Count {
-    /// Σ_i a_i b_i, exact.
-    fn dot(a: &[Self], b: &[Self]) -> f64 {
-        Self::dot_exact(a, b) as f64
-    }
     /// Σ_i a_i b_i as an exact integer.
     fn dot_exact(a: &[Self], b: &[Self]) -> u128;
     /// Calls `add(a, b, Σ_i x_a[i] · x_b[i])` for every `a ∈ ra`, `b ∈ rb` with `b ≥ a`,

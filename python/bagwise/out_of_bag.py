@@ -133,8 +133,8 @@ def _monotone(callback):
 
 def _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs, callback):
     """The core's result for one chunk. Missing members are looked for only when the core
-    refuses the members (one more pass over them would cost as much as the whole call)."""
-    callback = _monotone(callback)
+    refuses the members (one more pass over them would cost as much as the whole call).
+    ``callback`` must not go back on a retry: `_checked_chunk` wraps it once for all runs."""
     try:
         return _core.out_of_bag_chunk(members, counts, y, point_weights, sizes, kind,
                                       n_classes, n_jobs, callback)
