@@ -140,6 +140,9 @@ pub(super) struct Grower<'a> {
     pub(super) features: Vec<usize>,
     pub(super) spare_histograms: Vec<Vec<f64>>,
     pub(super) draws: Draws,
+    /// Exact scans skip boundaries that cannot reach the node's best (see
+    /// [`scan_exact`](Self::scan_exact)); off only in the test that shows it changes nothing.
+    pub(super) skip_below_node_best: bool,
     // Output.
     pub(super) tree: Tree,
 }
@@ -362,21 +365,34 @@ impl<'a> Grower<'a> {
         best
     }
 
-    /// Best exact split of feature `f` over positions `start..end`.
+    /// Best exact split of feature `f` over positions `start..end`, and whether the feature
+    /// offers any valid boundary there.
+    ///
+    /// `node_best` is the score of the node's best split among the features tried before:
+    /// boundaries below `node_best · (1 − 1e-9)` can neither beat nor tie it (ties are within
+    /// [`SCORE_TIE`]), so their scores are not computed. That changes which split is found
+    /// only when the feature's best lies near the node's best; the feature's own best could
+    /// then differ only if its scores climbed through that band in steps below `SCORE_TIE`.
     pub(super) fn scan_exact(
         &mut self,
         f: usize,
         start: usize,
         end: usize,
         total: &[f64],
-    ) -> Option<Split> {
+        node_best: Option<f64>,
+    ) -> (bool, Option<Split>) {
         let n_in = self.slot_row.len();
         let keys = &self.sorted[f * n_in + start..f * n_in + end];
         // Sorted by rank: a feature constant in the node offers no boundary (the scan below
         // would skip every row); its list is also left unpartitioned (see `partition`).
         if keys.len() < 2 || keys[0] >> 32 == keys[keys.len() - 1] >> 32 {
-            return None;
+            return (false, None);
         }
+        // Scores are ≥ 0 here (regression, Gini), so a floor of 0 would exclude nothing.
+        let floor = node_best
+            .filter(|&b| b > 0.0)
+            .map_or(0.0, |b| b * (1.0 - 1e-9));
+        let mut valid = false;
         // (score, rank, next rank) of the best boundary so far; the threshold is looked up
         // only for the node's winning split. Later boundaries have higher thresholds, so
         // within a feature only a clearly higher score replaces the best (the tie rule of
@@ -390,9 +406,8 @@ impl<'a> Grower<'a> {
         // that with a 1e-9 margin first skips both divisions for nearly every row without
         // changing which boundary wins.
         let may_beat = |a: f64, c: f64, wl: f64, wr: f64, best: &Option<(f64, u32, u32)>| {
-            best.is_none_or(|(b, _, _)| {
-                a < 0.0 || c < 0.0 || a * wr + c * wl > b * (wl * wr) * (1.0 - 1e-9)
-            })
+            let b = best.map_or(floor, |(b, _, _)| b.max(floor));
+            a < 0.0 || c < 0.0 || a * wr + c * wl > b * (wl * wr) * (1.0 - 1e-9)
         };
         if self.regression {
             let (w_total, s_total) = (total[0], total[1]);
@@ -407,6 +422,7 @@ impl<'a> Grower<'a> {
                 if rank == next || wl < self.min_leaf || wr < self.min_leaf {
                     continue;
                 }
+                valid = true;
                 let sr = s_total - sl;
                 let (a, c) = (sl * sl, sr * sr);
                 if !may_beat(a, c, wl, wr, &best) {
@@ -439,6 +455,7 @@ impl<'a> Grower<'a> {
                 if rank == next || wl < self.min_leaf || wr < self.min_leaf {
                     continue;
                 }
+                valid = true;
                 if !may_beat(squares_left, squares_right, wl, wr, &best) {
                     continue;
                 }
@@ -458,6 +475,7 @@ impl<'a> Grower<'a> {
                 if rank == next || wl < self.min_leaf || wr < self.min_leaf {
                     continue;
                 }
+                valid = true;
                 let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
                 if clearly_better(score, &best) {
                     best = Some((score, rank, next));
@@ -465,7 +483,7 @@ impl<'a> Grower<'a> {
             }
             self.left = left;
         }
-        best.map(|(score, rank, next)| {
+        let best = best.map(|(score, rank, next)| {
             // The threshold of this feature's best is read if it wins the node: start
             // fetching the two values now, without waiting for them.
             let d = &self.columns.distinct[f];
@@ -478,7 +496,8 @@ impl<'a> Grower<'a> {
                 cut: rank,
                 next,
             }
-        })
+        });
+        (valid, best)
     }
 
     /// Best split of a node; `histogram` is the node's full histogram when one is kept.
@@ -495,10 +514,11 @@ impl<'a> Grower<'a> {
         let block = MAX_BINS * self.stat_width;
         let mut best: Option<Split> = None;
         let mut try_feature = |g: &mut Self, f: usize| -> bool {
-            let found = if bins && !dense {
-                g.scan_codes(f, start, end, stats)
+            let (valid, found) = if bins && !dense {
+                let found = g.scan_codes(f, start, end, stats);
+                (found.is_some(), found)
             } else if bins {
-                match histogram {
+                let found = match histogram {
                     Some(h) => g.scan_histogram(f, &h[f * block..(f + 1) * block], stats),
                     None => {
                         let mut one = std::mem::take(&mut g.one_feature);
@@ -509,19 +529,18 @@ impl<'a> Grower<'a> {
                         g.one_feature = one;
                         found
                     }
-                }
+                };
+                (found.is_some(), found)
             } else {
-                g.scan_exact(f, start, end, stats)
+                let node_best = best.filter(|_| g.skip_below_node_best).map(|b| b.score);
+                g.scan_exact(f, start, end, stats, node_best)
             };
-            match found {
-                Some(s) => {
-                    if s.beats(&best) {
-                        best = Some(s);
-                    }
-                    true
+            if let Some(s) = found {
+                if s.beats(&best) {
+                    best = Some(s);
                 }
-                None => false,
             }
+            valid
         };
         match self.config.split_features {
             None => {
@@ -915,6 +934,19 @@ impl CheckedTreeParams {
         if stop.load(Ordering::Relaxed) {
             return None;
         }
+        self.grower(columns, target, in_bag, member, draws)
+            .grow(stop)
+    }
+
+    /// The grower of member `member`, its in-bag rows and sorted lists set up.
+    pub(super) fn grower<'c, C: Count>(
+        &'c self,
+        columns: &'c Columns,
+        target: &[f64],
+        in_bag: InBag<'_, C>,
+        member: usize,
+        draws: Draws,
+    ) -> Grower<'c> {
         let p = &self.params;
         let (mut rows, mut weight) = (Vec::new(), Vec::new());
         match in_bag {
@@ -983,7 +1015,7 @@ impl CheckedTreeParams {
             Task::Regression => 2,
             Task::Classification { n_classes } => 1 + n_classes,
         };
-        let grower = Grower {
+        Grower {
             columns,
             config: p,
             regression,
@@ -1009,8 +1041,8 @@ impl CheckedTreeParams {
                 nodes: Vec::new(),
                 values: Vec::new(),
             },
-        };
-        grower.grow(stop)
+            skip_below_node_best: true,
+        }
     }
 }
 
@@ -1037,6 +1069,56 @@ mod tests {
             let probe = Array2::from_shape_vec((3, 1), vec![2.5, 2.6, -9.0]).unwrap();
             assert_eq!(members(&e, &probe), vec![1.0, 5.0, 1.0]);
         }
+    }
+
+    #[test]
+    fn skipping_boundaries_below_the_node_best_changes_no_tree() {
+        // The exact scan's skip (see `Grower::scan_exact`) against the full scan, node by
+        // node: continuous features, heavy ties (3 and 12 levels), two criteria, every
+        // feature and a random pair per node, weights from bootstrap counts.
+        let mut compared = 0;
+        for (levels, criterion) in [(0, None), (3, None), (12, None), (0, Some(Criterion::Gini))] {
+            let x = data(1500, 5, 11 + levels as u64, levels);
+            let y = signal(&x, 3);
+            let task = match criterion {
+                None => Task::Regression,
+                Some(_) => Task::Classification { n_classes: 3 },
+            };
+            let target: Vec<f64> = match task {
+                Task::Regression => y.to_vec(),
+                _ => y
+                    .iter()
+                    .map(|v| ((v * 2.0).max(0.0) as usize % 3) as f64)
+                    .collect(),
+            };
+            let mut counts = Array2::<u8>::zeros((3, 1500));
+            let mut d = Draws::from_seed(5);
+            for m in 0..3 {
+                d.for_each_below(1500, 1500, |i| counts[(m, i)] += 1);
+            }
+            for split_features in [None, Some(2)] {
+                let mut p = params(task, Splitter::Exact);
+                p.split_features = split_features;
+                let config = p.check().unwrap();
+                let columns = Columns::build(&x.view(), false, true, &pool(1));
+                let stop = AtomicBool::new(false);
+                for m in 0..3 {
+                    let grow = |skip: bool| {
+                        let draws = MemberStreams::starting_at(7, m).take(1).remove(0);
+                        let in_bag = InBag::Counts(counts.view());
+                        let mut g = config.grower(&columns, &target, in_bag, m, draws);
+                        g.skip_below_node_best = skip;
+                        g.grow(&stop).unwrap()
+                    };
+                    let (skipping, full) = (grow(true), grow(false));
+                    assert!(full.nodes.len() > 50);
+                    assert_eq!(skipping.nodes, full.nodes, "levels {levels}, member {m}");
+                    assert_eq!(skipping.values, full.values);
+                    compared += 1;
+                }
+            }
+        }
+        assert_eq!(compared, 24);
     }
 
     #[test]
