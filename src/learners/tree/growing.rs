@@ -205,14 +205,18 @@ impl<'a> Grower<'a> {
     pub(super) fn is_pure(&self, start: usize, end: usize, stats: &[f64]) -> bool {
         if self.regression {
             let mean = stats[1] / stats[0];
-            let ss: f64 = self.order[start..end]
-                .iter()
-                .map(|&p| {
-                    let p = p as usize;
-                    let d = self.target[p] - mean;
-                    self.weight[p] * d * d
-                })
-                .sum();
+            // A rounded sum of terms ≥ 0 is at least each of its terms, so one term above
+            // the bound settles it (the first slot, nearly always) without the whole sum.
+            let mut ss = 0.0;
+            for &p in &self.order[start..end] {
+                let p = p as usize;
+                let d = self.target[p] - mean;
+                let term = self.weight[p] * d * d;
+                if term / stats[0] > f64::EPSILON {
+                    return false;
+                }
+                ss += term;
+            }
             ss / stats[0] <= f64::EPSILON
         } else {
             stats[1..].iter().any(|&c| c == stats[0])
@@ -989,15 +993,19 @@ impl CheckedTreeParams {
             rows.iter()
                 .enumerate()
                 .for_each(|(slot, &r)| slot_of_row[r as usize] = slot as u32);
-            sorted.reserve_exact(n_in * columns.n_features);
+            // One spare entry: every row is written, and the position advances only for
+            // in-bag rows (no branch on a draw's outcome).
+            sorted.resize(n_in * columns.n_features + 1, 0);
+            let mut k = 0;
             for f in 0..columns.n_features {
                 let order = &columns.order[f * columns.n_rows..(f + 1) * columns.n_rows];
-                sorted.extend(order.iter().filter_map(|&r| {
+                for &r in order {
                     let slot = slot_of_row[r as usize];
-                    (slot != u32::MAX)
-                        .then(|| (u64::from(columns.rank(f, r)) << 32) | u64::from(slot))
-                }));
+                    sorted[k] = (u64::from(columns.rank(f, r)) << 32) | u64::from(slot);
+                    k += usize::from(slot != u32::MAX);
+                }
             }
+            sorted.truncate(n_in * columns.n_features);
         }
         let slot_codes = if columns.codes.is_empty() {
             Vec::new()
