@@ -20,6 +20,9 @@ pub(super) struct Columns {
     pub(super) distinct: Vec<Vec<f64>>,
     pub(super) codes: Vec<u8>,
     pub(super) edges: Vec<Vec<f64>>,
+    /// Per feature and bin, the highest rank in the bin: codes grow with ranks, so
+    /// `code ≤ b` exactly when `rank ≤ last_rank_of_bin[f][b]`.
+    pub(super) last_rank_of_bin: Vec<Vec<u32>>,
 }
 
 /// Hints the processor to bring `value`'s cache line in; a no-op off x86-64.
@@ -52,6 +55,7 @@ pub(super) struct FeatureColumn {
     pub(super) distinct: Vec<f64>,
     pub(super) codes: Vec<u8>,
     pub(super) edges: Vec<f64>,
+    pub(super) last_rank_of_bin: Vec<u32>,
 }
 
 pub(super) fn build_column<T: Real>(column: ArrayView1<'_, T>, bins: bool) -> FeatureColumn {
@@ -74,7 +78,7 @@ pub(super) fn build_column<T: Real>(column: ArrayView1<'_, T>, bins: bool) -> Fe
         *multiplicity.last_mut().expect("pushed above") += 1;
         ranks[i as usize] = (distinct.len() - 1) as u32;
     }
-    let (mut codes, mut edges) = (Vec::new(), Vec::new());
+    let (mut codes, mut edges, mut last_rank_of_bin) = (Vec::new(), Vec::new(), Vec::new());
     if bins {
         let d = distinct.len();
         let mut bin_of_rank = vec![0u8; d];
@@ -101,6 +105,10 @@ pub(super) fn build_column<T: Real>(column: ArrayView1<'_, T>, bins: bool) -> Fe
             }
         }
         codes = ranks.iter().map(|&r| bin_of_rank[r as usize]).collect();
+        last_rank_of_bin = vec![0; usize::from(bin_of_rank[d - 1]) + 1];
+        for (r, &b) in bin_of_rank.iter().enumerate() {
+            last_rank_of_bin[usize::from(b)] = r as u32;
+        }
     }
     FeatureColumn {
         order: order.into_iter().map(|(_, i)| i).collect(),
@@ -108,6 +116,7 @@ pub(super) fn build_column<T: Real>(column: ArrayView1<'_, T>, bins: bool) -> Fe
         distinct,
         codes,
         edges,
+        last_rank_of_bin,
     }
 }
 
@@ -133,6 +142,7 @@ impl Columns {
             distinct: Vec::with_capacity(n_features),
             codes: Vec::with_capacity(if bins { n_rows * n_features } else { 0 }),
             edges: Vec::with_capacity(n_features),
+            last_rank_of_bin: Vec::with_capacity(n_features),
         };
         for c in columns {
             if exact {
@@ -142,6 +152,7 @@ impl Columns {
             out.codes.extend_from_slice(&c.codes);
             out.distinct.push(c.distinct);
             out.edges.push(c.edges);
+            out.last_rank_of_bin.push(c.last_rank_of_bin);
         }
         out
     }
@@ -176,5 +187,21 @@ mod tests {
         // 100 rows per bin when every value is distinct (common practice: quantile bins).
         assert!(per_bin.iter().all(|&k| k == 100), "{per_bin:?}");
         assert!(c.edges.windows(2).all(|w| w[0] < w[1]));
+    }
+
+    #[test]
+    fn a_cut_between_bins_is_a_cut_between_ranks() {
+        // Quantile bins (many distinct values, repeated ones) and one bin per value.
+        for (rows, levels) in [(30_000, 0), (30_000, 700), (500, 40)] {
+            let x = data(rows, 1, 8, levels);
+            let c = build_column(x.column(0), true);
+            assert_eq!(c.last_rank_of_bin.len(), c.edges.len() + 1);
+            for (row, &rank) in c.ranks.iter().enumerate() {
+                let code = c.codes[row];
+                for (b, &last) in c.last_rank_of_bin.iter().enumerate() {
+                    assert_eq!(usize::from(code) <= b, rank <= last, "row {row}, bin {b}");
+                }
+            }
+        }
     }
 }

@@ -577,11 +577,18 @@ impl<'a> Grower<'a> {
     pub(super) fn partition(&mut self, start: usize, end: usize, split: &Split) -> usize {
         let columns = self.columns;
         let n_in = self.slot_row.len();
-        if !split.by_bins && !self.sorted.is_empty() {
-            // The split feature's sorted list: its first entries (rank ≤ cut) go left.
+        if !self.sorted.is_empty() {
+            // The split feature's sorted list, read in order: its first entries (rank ≤ the
+            // cut's rank) go left. Bin codes grow with ranks, so a cut between bins is a
+            // cut between ranks too.
             let f = split.feature;
+            let cut = if split.by_bins {
+                columns.last_rank_of_bin[f][split.cut as usize]
+            } else {
+                split.cut
+            };
             for &key in &self.sorted[f * n_in + start..f * n_in + end] {
-                self.goes_left[(key & 0xFFFF_FFFF) as usize] = (key >> 32) as u32 <= split.cut;
+                self.goes_left[(key & 0xFFFF_FFFF) as usize] = (key >> 32) as u32 <= cut;
             }
         } else {
             for &slot in &self.order[start..end] {
@@ -608,6 +615,10 @@ impl<'a> Grower<'a> {
             let buffer = &mut self.buffer;
             buffer.resize(end - start, 0);
             for f in 0..columns.n_features {
+                if f == split.feature {
+                    // Its left side is already its first entries (see above).
+                    continue;
+                }
                 let list = &mut self.sorted[f * n_in + start..f * n_in + end];
                 if list[0] >> 32 == list[list.len() - 1] >> 32 {
                     // Constant here, so constant in every descendant: the exact scan reads
@@ -652,17 +663,30 @@ impl<'a> Grower<'a> {
         let all_features = self.config.split_features.is_none();
         let root_histogram =
             (all_features && self.dense_bins(n)).then(|| self.full_histogram(0, n));
-        let mut stack = vec![Pending {
+        let root = Pending {
             node: 0,
             start: 0,
             end: n,
             depth: 0,
             stats: root_stats,
             histogram: root_histogram,
-        }];
+        };
+        if !self.grow_nodes(vec![root], stop) {
+            return None;
+        }
+        // The node and value vectors grew by doubling; a kept tree holds only what it uses
+        // (up to half its memory otherwise, for as long as the model lives).
+        self.tree.nodes.shrink_to_fit();
+        self.tree.values.shrink_to_fit();
+        Some(self.tree)
+    }
+
+    /// Grows the nodes of `stack` and all their descendants, depth first and left child
+    /// first; false if `stop` was raised meanwhile (checked at every node).
+    fn grow_nodes(&mut self, mut stack: Vec<Pending>, stop: &AtomicBool) -> bool {
         while let Some(job) = stack.pop() {
             if stop.load(Ordering::Relaxed) {
-                return None;
+                return false;
             }
             let Pending {
                 node,
@@ -743,11 +767,7 @@ impl<'a> Grower<'a> {
                 histogram: left_h,
             });
         }
-        // The node and value vectors grew by doubling; a kept tree holds only what it uses
-        // (up to half its memory otherwise, for as long as the model lives).
-        self.tree.nodes.shrink_to_fit();
-        self.tree.values.shrink_to_fit();
-        Some(self.tree)
+        true
     }
 }
 
