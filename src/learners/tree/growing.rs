@@ -160,11 +160,14 @@ impl<'a> Grower<'a> {
     /// Adds slot `p` to `stats`.
     #[inline(always)]
     pub(super) fn add(&self, stats: &mut [f64], p: usize) {
-        let w = self.weight[p];
-        stats[0] += w;
         if self.regression {
-            stats[1] += self.weighted_target[p][1];
+            // Both from one cache line (the weight is stored beside its product).
+            let [w, wy] = self.weighted_target[p];
+            stats[0] += w;
+            stats[1] += wy;
         } else {
+            let w = self.weight[p];
+            stats[0] += w;
             stats[1 + self.class[p] as usize] += w;
         }
     }
@@ -205,13 +208,21 @@ impl<'a> Grower<'a> {
     pub(super) fn is_pure(&self, start: usize, end: usize, stats: &[f64]) -> bool {
         if self.regression {
             let mean = stats[1] / stats[0];
+            // First from the line the child's statistics were just summed from: the first
+            // slot's target as (w·y)/w is within 2.1 ε of y, so when it is clearly apart
+            // from the mean (≥ 1e-6 relative) its term is within 1e-8 of the exact one.
+            let [w, wy] = self.weighted_target[self.order[start] as usize];
+            let (y, d) = (wy / w, wy / w - mean);
+            if d.abs() >= 1e-6 * y.abs() && w * d * d * (1.0 - 1e-8) / stats[0] > f64::EPSILON {
+                return false;
+            }
             // A rounded sum of terms ≥ 0 is at least each of its terms, so one term above
             // the bound settles it (the first slot, nearly always) without the whole sum.
             let mut ss = 0.0;
             for &p in &self.order[start..end] {
                 let p = p as usize;
                 let d = self.target[p] - mean;
-                let term = self.weight[p] * d * d;
+                let term = self.weighted_target[p][0] * d * d;
                 if term / stats[0] > f64::EPSILON {
                     return false;
                 }
@@ -295,11 +306,13 @@ impl<'a> Grower<'a> {
         for &slot in &self.order[start..end] {
             let p = slot as usize;
             let o = codes[self.slot_row[p] as usize] as usize * s;
-            let w = self.weight[p];
-            h[o] += w;
             if self.regression {
-                h[o + 1] += self.weighted_target[p][1];
+                let [w, wy] = self.weighted_target[p];
+                h[o] += w;
+                h[o + 1] += wy;
             } else {
+                let w = self.weight[p];
+                h[o] += w;
                 h[o + 1 + self.class[p] as usize] += w;
             }
         }
@@ -316,16 +329,15 @@ impl<'a> Grower<'a> {
         for &slot in &self.order[start..end] {
             let p = slot as usize;
             let codes = &self.slot_codes[p * n_features..(p + 1) * n_features];
-            let w = self.weight[p];
             if self.regression {
-                let wy = self.weighted_target[p][1];
+                let [w, wy] = self.weighted_target[p];
                 for (f, &code) in codes.iter().enumerate() {
                     let o = f * block + code as usize * s;
                     h[o] += w;
                     h[o + 1] += wy;
                 }
             } else {
-                let k = 1 + self.class[p] as usize;
+                let (w, k) = (self.weight[p], 1 + self.class[p] as usize);
                 for (f, &code) in codes.iter().enumerate() {
                     let o = f * block + code as usize * s;
                     h[o] += w;
@@ -1147,6 +1159,49 @@ mod tests {
             }
         }
         assert_eq!(compared, 24);
+    }
+
+    #[test]
+    fn the_purity_shortcuts_agree_with_the_whole_sum() {
+        // Nodes of near-equal targets at every scale around the bound ss/W ≤ ε, the
+        // shortcuts (first slot from (w·y)/w, then the first term above the bound) against
+        // the plain definition.
+        let mut d = Draws::from_seed(4);
+        let (mut pure, mut impure) = (0, 0);
+        for case in 0..4000 {
+            let rows = 2 + case % 7;
+            let base: f64 = [0.0, 1.0, -3.0e5, 7.0e-12][case % 4];
+            let scale = if base == 0.0 { 1.0 } else { base.abs() };
+            let spread = 10f64.powi(-(((case / 4) % 20) as i32)) * scale;
+            let y: Vec<f64> = (0..rows)
+                .map(|_| base + spread * (d.open_unit() - 0.5) * f64::from(d.below(2) as u8))
+                .collect();
+            let x = Array2::from_shape_fn((rows, 1), |(i, _)| i as f64);
+            let counts = Array2::from_shape_fn((1, rows), |_| 1 + d.below(4) as u8);
+            let config = params(Task::Regression, Splitter::Exact).check().unwrap();
+            let columns = Columns::build(&x.view(), false, true, &pool(1));
+            let draws = MemberStreams::starting_at(1, 0).take(1).remove(0);
+            let g = config.grower(
+                &columns,
+                &y.to_vec(),
+                InBag::Counts(counts.view()),
+                0,
+                draws,
+            );
+            let stats = g.stats_of(0, rows);
+            let mean = stats[1] / stats[0];
+            let ss: f64 = (0..rows)
+                .map(|p| g.weight[p] * (g.target[p] - mean) * (g.target[p] - mean))
+                .sum();
+            let expected = ss / stats[0] <= f64::EPSILON;
+            assert_eq!(g.is_pure(0, rows, &stats), expected, "{y:?}");
+            if expected {
+                pure += 1;
+            } else {
+                impure += 1;
+            }
+        }
+        assert!(pure > 500 && impure > 500, "{pure} pure, {impure} not");
     }
 
     #[test]
