@@ -499,19 +499,12 @@ impl<'a> Grower<'a> {
             }
             self.left = left;
         }
-        let best = best.map(|(score, rank, next)| {
-            // The threshold of this feature's best is read if it wins the node: start
-            // fetching the two values now, without waiting for them.
-            let d = &self.columns.distinct[f];
-            prefetch(&d[rank as usize]);
-            prefetch(&d[next as usize]);
-            Split {
-                score,
-                feature: f,
-                by_bins: false,
-                cut: rank,
-                next,
-            }
+        let best = best.map(|(score, rank, next)| Split {
+            score,
+            feature: f,
+            by_bins: false,
+            cut: rank,
+            next,
         });
         (valid, best)
     }
@@ -580,6 +573,13 @@ impl<'a> Grower<'a> {
                     }
                 }
             }
+        }
+        if let Some(s) = best.filter(|s| !s.by_bins) {
+            // The winner's threshold is read once the node is partitioned: start fetching
+            // its two values now (out of cache in large tables), without waiting for them.
+            let d = &self.columns.distinct[s.feature];
+            prefetch(&d[s.cut as usize]);
+            prefetch(&d[s.next as usize]);
         }
         best
     }
