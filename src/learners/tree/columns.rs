@@ -14,8 +14,10 @@ use crate::parallel::Pool;
 pub(super) struct Columns {
     pub(super) n_rows: usize,
     pub(super) n_features: usize,
-    /// Rows sorted by value, per feature (only when exact splits are searched).
-    pub(super) order: Vec<u32>,
+    /// Per feature, `rank << 32 | row` of the rows sorted by value (only when exact splits
+    /// are searched): each member's sorted lists are read off it in one pass, the ranks
+    /// in order rather than looked up row by row.
+    pub(super) order: Vec<u64>,
     pub(super) ranks: Vec<u32>,
     pub(super) distinct: Vec<Vec<f64>>,
     pub(super) codes: Vec<u8>,
@@ -146,7 +148,11 @@ impl Columns {
         };
         for c in columns {
             if exact {
-                out.order.extend_from_slice(&c.order);
+                let ranked = c
+                    .order
+                    .iter()
+                    .map(|&row| (u64::from(c.ranks[row as usize]) << 32) | u64::from(row));
+                out.order.extend(ranked);
             }
             out.ranks.extend_from_slice(&c.ranks);
             out.codes.extend_from_slice(&c.codes);

@@ -1031,9 +1031,9 @@ impl CheckedTreeParams {
             let mut k = 0;
             for f in 0..columns.n_features {
                 let order = &columns.order[f * columns.n_rows..(f + 1) * columns.n_rows];
-                for &r in order {
-                    let slot = slot_of_row[r as usize];
-                    sorted[k] = (u64::from(columns.rank(f, r)) << 32) | u64::from(slot);
+                for &key in order {
+                    let slot = slot_of_row[(key & 0xFFFF_FFFF) as usize];
+                    sorted[k] = (key & !0xFFFF_FFFF) | u64::from(slot);
                     k += usize::from(slot != u32::MAX);
                 }
             }
