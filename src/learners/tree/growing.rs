@@ -675,30 +675,17 @@ impl<'a> Grower<'a> {
         let all_features = self.config.split_features.is_none();
         let root_histogram =
             (all_features && self.dense_bins(n)).then(|| self.full_histogram(0, n));
-        let root = Pending {
+        let mut stack = vec![Pending {
             node: 0,
             start: 0,
             end: n,
             depth: 0,
             stats: root_stats,
             histogram: root_histogram,
-        };
-        if !self.grow_nodes(vec![root], stop) {
-            return None;
-        }
-        // The node and value vectors grew by doubling; a kept tree holds only what it uses
-        // (up to half its memory otherwise, for as long as the model lives).
-        self.tree.nodes.shrink_to_fit();
-        self.tree.values.shrink_to_fit();
-        Some(self.tree)
-    }
-
-    /// Grows the nodes of `stack` and all their descendants, depth first and left child
-    /// first; false if `stop` was raised meanwhile (checked at every node).
-    fn grow_nodes(&mut self, mut stack: Vec<Pending>, stop: &AtomicBool) -> bool {
+        }];
         while let Some(job) = stack.pop() {
             if stop.load(Ordering::Relaxed) {
-                return false;
+                return None;
             }
             let Pending {
                 node,
@@ -779,7 +766,11 @@ impl<'a> Grower<'a> {
                 histogram: left_h,
             });
         }
-        true
+        // The node and value vectors grew by doubling; a kept tree holds only what it uses
+        // (up to half its memory otherwise, for as long as the model lives).
+        self.tree.nodes.shrink_to_fit();
+        self.tree.values.shrink_to_fit();
+        Some(self.tree)
     }
 }
 
