@@ -902,6 +902,17 @@ pub struct ErrorSums {
 }
 
 impl ErrorSums {
+    /// Adds a sub-block's classification sums, given per lane (weight, weight if missed,
+    /// weighted Brier, weighted log loss), lane by lane.
+    fn add_lanes(&mut self, covered: u64, lanes: [[f64; LANES]; 4]) {
+        let [weight, wrong, brier, log_loss] = lanes.map(|lane| lane.iter().sum::<f64>());
+        self.covered += covered;
+        self.weight.add(weight);
+        self.wrong.add(wrong);
+        self.brier.add(brier);
+        self.log_loss.add(log_loss);
+    }
+
     fn merge(&mut self, other: &ErrorSums) {
         self.covered += other.covered;
         self.weight.merge(&other.weight);
@@ -1308,6 +1319,7 @@ impl Block<'_> {
             return Ok(curve);
         }
         let mut totals = members.class_totals(padded);
+        let truth: Vec<u32> = targets.iter().map(|&t| t as u32).collect();
         let mut n_oob = vec![0u32; padded];
         let mut out_of_bag = vec![0u8; rows];
         for member in 0..m {
@@ -1323,7 +1335,7 @@ impl Block<'_> {
             if next < sizes.len() && sizes[next] == member + 1 {
                 curve.push(match &totals {
                     ClassTotals::Votes(votes) => {
-                        evaluate_votes(votes, &targets, &point_weights, terms)
+                        evaluate_votes(votes, &truth, &point_weights, terms)
                     }
                     ClassTotals::Probabilities(sums) => {
                         evaluate_classes(width, sums, &n_oob, &targets, &point_weights)
@@ -1504,18 +1516,14 @@ fn evaluate_classes(
     e
 }
 
-/// Members up to which [`VoteTerms`] are tabulated ((m + 1)(m + 2)/2 entries of 24 bytes:
-/// 3 MB at 512).
+/// Members up to which [`VoteTerms`] are tabulated ((m + 1)(m + 2)/2 entries of 8 bytes:
+/// 1 MB at 512).
 const TABULATED_MEMBERS: usize = 512;
 
-/// The loss terms of a vote fraction s/n for every 0 ≤ s ≤ n ≤ members, computed with the
-/// expressions of [`evaluate_classes`] (so with the same bits): votes are small integers,
-/// and a lookup replaces a division per class and a logarithm per point.
+/// The log term ln(max(s/n, floor)) of a vote fraction s/n for every 0 ≤ s ≤ n ≤ members,
+/// computed with the expression of [`evaluate_classes`] (so with the same bits): votes are
+/// small integers, and a lookup replaces a logarithm per point.
 struct VoteTerms {
-    /// The Brier terms (s/n − 0)² of a class other than the target and (s/n − 1)² of the
-    /// target, picked by index rather than by a branch.
-    brier: Vec<[f64; 2]>,
-    /// ln(max(s/n, floor)), the log term of the target class.
     log: Vec<f64>,
 }
 
@@ -1525,17 +1533,13 @@ impl VoteTerms {
         if members > TABULATED_MEMBERS {
             return None;
         }
-        let len = (members + 1) * (members + 2) / 2;
-        let (mut brier, mut log) = (Vec::with_capacity(len), Vec::with_capacity(len));
+        let mut log = Vec::with_capacity((members + 1) * (members + 2) / 2);
         for n in 0..=members {
             for s in 0..=n {
-                let (s, n) = (s as f64, n as f64);
-                let (other, target) = (s / n - 0.0, s / n - 1.0);
-                brier.push([other * other, target * target]);
-                log.push((s / n).max(LOG_LOSS_FLOOR).ln());
+                log.push((s as f64 / n as f64).max(LOG_LOSS_FLOOR).ln());
             }
         }
-        Some(VoteTerms { brier, log })
+        Some(VoteTerms { log })
     }
 
     /// Index of (0, n); (s, n) follows at `s`.
@@ -1546,33 +1550,89 @@ impl VoteTerms {
     }
 }
 
-/// [`evaluate_classes`] of packed label votes (integer totals), the same sums in the same
-/// order; with `terms` the per-class quotients and the logarithm are looked up. No branch on
-/// the data: an uncovered point's terms are computed and replaced by 0.0, which leaves the
-/// (never negative-zero) partial sums unchanged.
-fn evaluate_votes(votes: &Votes, y: &[f64], w: &[f64], terms: Option<&VoteTerms>) -> ErrorSums {
+/// [`evaluate_classes`] of packed label votes (integer totals) against the target classes
+/// `truth`; with `terms` the logarithm is looked up. No branch on the data: an uncovered
+/// point's terms are computed and replaced by 0.0. The terms of point `j` go to lane
+/// `j % LANES` of plain sums over each sub-block (as in [`evaluate_regression`]), so the
+/// one-word kernel adds four points with one vector add per term.
+fn evaluate_votes(votes: &Votes, truth: &[u32], w: &[f64], terms: Option<&VoteTerms>) -> ErrorSums {
     if votes.n_words == 1 && votes.lane_shift == 4 {
-        return evaluate_word_votes_dispatch(votes, y, w, terms);
+        return evaluate_word_votes_dispatch(votes, truth, w, terms);
     }
-    evaluate_votes_any(votes, y, w, terms)
+    evaluate_votes_any(votes, truth, w, terms)
 }
 
 /// [`evaluate_votes`] for any packing: a point's votes read class by class.
-fn evaluate_votes_any(votes: &Votes, y: &[f64], w: &[f64], terms: Option<&VoteTerms>) -> ErrorSums {
+fn evaluate_votes_any(
+    votes: &Votes,
+    truth: &[u32],
+    w: &[f64],
+    terms: Option<&VoteTerms>,
+) -> ErrorSums {
     let mut classes = vec![0u32; votes.n_classes];
-    evaluate_votes_with(votes, y, w, terms, move |j| {
-        classes
-            .iter_mut()
-            .enumerate()
-            .for_each(|(c, s)| *s = votes.get(c, j));
-        (classes.iter().sum(), classes.clone())
-    })
+    let mut e = ErrorSums::default();
+    for block in 0..votes.stride.div_ceil(SUB_BLOCK) {
+        let start = block * SUB_BLOCK;
+        let len = SUB_BLOCK.min(votes.stride - start);
+        let mut lanes = [[0.0f64; LANES]; 4];
+        let mut covered = 0;
+        for j in start..start + len {
+            classes
+                .iter_mut()
+                .enumerate()
+                .for_each(|(c, s)| *s = votes.get(c, j));
+            let count: u32 = classes.iter().sum();
+            let t = point_vote_terms(&classes, count, truth[j] as usize, w[j], terms);
+            covered += u64::from(count > 0);
+            for (lane, term) in lanes.iter_mut().zip(t) {
+                lane[j % LANES] += term;
+            }
+        }
+        e.add_lanes(covered, lanes);
+    }
+    e
 }
 
-/// [`evaluate_word_votes`] compiled for AVX2 when available (the same operations).
+/// One point's terms (weight, weight if missed, weighted Brier, weighted log of the
+/// target's share) from its votes per class, with the expressions of [`evaluate_classes`];
+/// all 0.0 for a point without out-of-bag votes.
+#[inline(always)]
+fn point_vote_terms(
+    classes: &[u32],
+    count: u32,
+    truth: usize,
+    weight: f64,
+    terms: Option<&VoteTerms>,
+) -> [f64; 4] {
+    let target = classes[truth];
+    let n = f64::from(count);
+    let mut brier = 0.0;
+    // The vote misses the target iff a class has more votes, or as many and a lower index
+    // (ties go to the lowest class).
+    let mut wrong = false;
+    for (c, &s) in classes.iter().enumerate() {
+        let d = f64::from(s) / n - if c == truth { 1.0 } else { 0.0 };
+        brier += d * d;
+        wrong |= (s > target) | ((s == target) & (c < truth));
+    }
+    let log_p = match terms {
+        Some(t) => t.log[VoteTerms::row(count) + target as usize],
+        None => (f64::from(target) / n).max(LOG_LOSS_FLOOR).ln(),
+    };
+    let weight = if count > 0 { weight } else { 0.0 };
+    [
+        weight,
+        if wrong { weight } else { 0.0 },
+        if count > 0 { weight * brier } else { 0.0 },
+        if count > 0 { -(weight * log_p) } else { 0.0 },
+    ]
+}
+
+/// [`evaluate_word_votes`] for the class count at hand, compiled for AVX2 when available
+/// (the same operations).
 fn evaluate_word_votes_dispatch(
     votes: &Votes,
-    y: &[f64],
+    truth: &[u32],
     w: &[f64],
     terms: Option<&VoteTerms>,
 ) -> ErrorSums {
@@ -1580,161 +1640,88 @@ fn evaluate_word_votes_dispatch(
     {
         if std::arch::is_x86_feature_detected!("avx2") {
             // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { evaluate_word_votes_avx2(votes, y, w, terms) };
+            return unsafe { evaluate_word_votes_avx2(votes, truth, w, terms) };
         }
     }
-    evaluate_word_votes(votes, y, w, terms)
+    evaluate_word_votes_any(votes, truth, w, terms)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
 unsafe fn evaluate_word_votes_avx2(
     votes: &Votes,
-    y: &[f64],
+    truth: &[u32],
     w: &[f64],
     terms: Option<&VoteTerms>,
 ) -> ErrorSums {
-    evaluate_word_votes(votes, y, w, terms)
+    evaluate_word_votes_any(votes, truth, w, terms)
+}
+
+#[inline(always)] // so that the AVX2 wrapper compiles its own copies
+fn evaluate_word_votes_any(
+    votes: &Votes,
+    truth: &[u32],
+    w: &[f64],
+    terms: Option<&VoteTerms>,
+) -> ErrorSums {
+    evaluate_word_votes(votes, truth, w, terms)
 }
 
 /// [`evaluate_votes`] of up to four classes in one word of 16-bit lanes, four points at a
-/// time in lane arrays that vectorise: the quotients s/n and their Brier terms are computed
-/// per class with the expressions of [`VoteTerms`] (so with its bits), and only the
-/// logarithm is looked up. Lanes above the classes hold 0 votes, whose terms (0.0, never a
-/// miss) change no sum.
-#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+/// time in lane arrays that vectorise; the terms of [`point_vote_terms`] with the same
+/// operations per point. Every lane is read (a fixed loop of four vectorises where one of
+/// the class count does not); lanes above the classes hold 0 votes, whose terms (0.0, never
+/// a miss) change no sum.
+#[inline(always)]
 fn evaluate_word_votes(
     votes: &Votes,
-    y: &[f64],
+    truth: &[u32],
     w: &[f64],
     terms: Option<&VoteTerms>,
 ) -> ErrorSums {
-    const P: usize = LANES;
     let mut e = ErrorSums::default();
-    let mut point_terms = [[0.0f64; 4]; SUB_BLOCK];
     for block in 0..votes.stride.div_ceil(SUB_BLOCK) {
         let start = block * SUB_BLOCK;
         let len = SUB_BLOCK.min(votes.stride - start);
-        let mut covered = 0;
-        for (quad, out) in point_terms[..len].chunks_exact_mut(P).enumerate() {
-            let j = start + quad * P;
-            let words: [u64; P] = std::array::from_fn(|l| votes.words[j + l]);
+        let mut lanes = [[0.0f64; LANES]; 4];
+        let mut covered = [0u64; LANES];
+        for j in (start..start + len).step_by(LANES) {
+            let words: [u64; LANES] = std::array::from_fn(|l| votes.words[j + l]);
+            let truth: [usize; LANES] = std::array::from_fn(|l| truth[j + l] as usize & 3);
             let counts = words.map(|v| (v.wrapping_mul(0x0001_0001_0001_0001) >> 48) as u32);
-            let truth: [usize; P] = std::array::from_fn(|l| y[j + l] as usize & 3);
             let lane = |c: usize| words.map(|v| ((v >> (16 * c)) & 0xffff) as u32);
-            let target: [u32; P] = std::array::from_fn(|l| lane(truth[l])[l]);
+            let target: [u32; LANES] =
+                std::array::from_fn(|l| ((words[l] >> (16 * truth[l])) & 0xffff) as u32);
             let n = counts.map(f64::from);
-            let mut brier = [0.0f64; P];
-            let mut wrong = [false; P];
+            let mut brier = [0.0f64; LANES];
+            let mut wrong = [false; LANES];
             for c in 0..4 {
                 let s = lane(c);
-                for l in 0..P {
+                for l in 0..LANES {
                     let d = f64::from(s[l]) / n[l] - if c == truth[l] { 1.0 } else { 0.0 };
                     brier[l] += d * d;
                     wrong[l] |= (s[l] > target[l]) | ((s[l] == target[l]) & (c < truth[l]));
                 }
             }
-            for l in 0..P {
-                let log_p = match terms {
-                    Some(t) => t.log[VoteTerms::row(counts[l]) + target[l] as usize],
-                    None => (f64::from(target[l]) / n[l]).max(LOG_LOSS_FLOOR).ln(),
-                };
+            let log_p: [f64; LANES] = std::array::from_fn(|l| match terms {
+                Some(t) => t.log[VoteTerms::row(counts[l]) + target[l] as usize],
+                None => (f64::from(target[l]) / n[l]).max(LOG_LOSS_FLOOR).ln(),
+            });
+            for l in 0..LANES {
                 let is_covered = counts[l] > 0;
-                covered += u64::from(is_covered);
+                covered[l] += u64::from(is_covered);
                 let weight = if is_covered { w[j + l] } else { 0.0 };
-                out[l] = [
-                    weight,
-                    if wrong[l] { weight } else { 0.0 },
-                    if is_covered { w[j + l] * brier[l] } else { 0.0 },
-                    if is_covered { w[j + l] * log_p } else { 0.0 },
-                ];
+                lanes[0][l] += weight;
+                lanes[1][l] += if wrong[l] { weight } else { 0.0 };
+                lanes[2][l] += if is_covered { weight * brier[l] } else { 0.0 };
+                lanes[3][l] += if is_covered {
+                    -(weight * log_p[l])
+                } else {
+                    0.0
+                };
             }
         }
-        let mut part = [0.0f64; 4];
-        // The sums in point order, as in [`evaluate_votes_with`].
-        for t in &point_terms[..len] {
-            part[0] += t[0];
-            part[1] += t[1];
-            part[2] += t[2];
-            part[3] -= t[3];
-        }
-        e.covered += covered;
-        e.weight.add(part[0]);
-        e.wrong.add(part[1]);
-        e.brier.add(part[2]);
-        e.log_loss.add(part[3]);
-    }
-    e
-}
-
-/// [`evaluate_votes`] with `point(j)` giving point `j`'s out-of-bag count and its votes per
-/// class (in class order; trailing classes without votes may be added).
-#[inline(always)]
-fn evaluate_votes_with<V: AsRef<[u32]>>(
-    votes: &Votes,
-    y: &[f64],
-    w: &[f64],
-    terms: Option<&VoteTerms>,
-    mut point: impl FnMut(usize) -> (u32, V),
-) -> ErrorSums {
-    let mut e = ErrorSums::default();
-    let mut point_terms = [[0.0f64; 4]; SUB_BLOCK];
-    for block in 0..votes.stride.div_ceil(SUB_BLOCK) {
-        let start = block * SUB_BLOCK;
-        let len = SUB_BLOCK.min(votes.stride - start);
-        let mut part = [0.0f64; 4];
-        let mut covered = 0;
-        for (i, terms_of_point) in point_terms[..len].iter_mut().enumerate() {
-            let j = start + i;
-            let (count, classes) = point(j);
-            let classes = classes.as_ref();
-            let truth = y[j] as usize;
-            let target = classes[truth];
-            let mut brier = 0.0;
-            // The vote misses the target iff a class has more votes, or as many and a lower
-            // index (ties go to the lowest class).
-            let mut wrong = false;
-            let log_p = match terms {
-                Some(t) => {
-                    let row = VoteTerms::row(count);
-                    for (c, &s) in classes.iter().enumerate() {
-                        brier += t.brier[row + s as usize][usize::from(c == truth)];
-                        wrong |= (s > target) | ((s == target) & (c < truth));
-                    }
-                    t.log[row + target as usize]
-                }
-                None => {
-                    let count = f64::from(count);
-                    for (c, &s) in classes.iter().enumerate() {
-                        let d = f64::from(s) / count - if c == truth { 1.0 } else { 0.0 };
-                        brier += d * d;
-                        wrong |= (s > target) | ((s == target) & (c < truth));
-                    }
-                    (f64::from(target) / count).max(LOG_LOSS_FLOOR).ln()
-                }
-            };
-            let is_covered = count > 0;
-            covered += u64::from(is_covered);
-            let weight = if is_covered { w[j] } else { 0.0 };
-            *terms_of_point = [
-                weight,
-                if wrong { weight } else { 0.0 },
-                if is_covered { w[j] * brier } else { 0.0 },
-                if is_covered { w[j] * log_p } else { 0.0 },
-            ];
-        }
-        // The sums in point order, apart from the independent per-point work above.
-        for t in &point_terms[..len] {
-            part[0] += t[0];
-            part[1] += t[1];
-            part[2] += t[2];
-            part[3] -= t[3];
-        }
-        e.covered += covered;
-        e.weight.add(part[0]);
-        e.wrong.add(part[1]);
-        e.brier.add(part[2]);
-        e.log_loss.add(part[3]);
+        e.add_lanes(covered.iter().sum(), lanes);
     }
     e
 }
@@ -2218,7 +2205,7 @@ mod tests {
     }
 
     #[test]
-    fn tabulated_vote_terms_match_the_computed_ones_bit_for_bit() {
+    fn vote_evaluations_tabulated_computed_and_four_at_a_time_agree_bit_for_bit() {
         // Class-major votes of 3 classes over 70 points (two sub-blocks), every count from 0
         // to the 9 members, weights that are not all 1; `None` computes every term.
         let (members, c, n) = (9u32, 3, 72);
@@ -2237,7 +2224,7 @@ mod tests {
                 left -= v;
             }
         }
-        let y: Vec<f64> = (0..n).map(|j| (j % c) as f64).collect();
+        let y: Vec<u32> = (0..n).map(|j| (j % c) as u32).collect();
         let w: Vec<f64> = (0..n)
             .map(|j| if j < 70 { 0.5 + j as f64 / 7.0 } else { 0.0 })
             .collect();
@@ -2249,6 +2236,7 @@ mod tests {
         assert_eq!(looked_up, evaluate_votes_any(&votes, &y, &w, Some(&terms)));
         assert_eq!(looked_up, evaluate_votes_any(&votes, &y, &w, None));
         assert_eq!(looked_up, evaluate_word_votes(&votes, &y, &w, Some(&terms)));
+        assert_eq!(looked_up, evaluate_word_votes(&votes, &y, &w, None));
         assert!(looked_up.covered > 0 && looked_up.log_loss.value() > 0.0);
         assert!(VoteTerms::new(TABULATED_MEMBERS + 1).is_none());
     }
