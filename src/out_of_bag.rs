@@ -621,6 +621,28 @@ unsafe fn add_votes_avx2<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut 
     add_votes(labels, flags, votes)
 }
 
+/// Bytes ahead of a pass over a member row at which it is prefetched: a block reads runs of
+/// many rows in turn, and the hardware prefetcher alone left the class kernels waiting on
+/// memory (probabilities over 200 × 166,666 × 3 on one thread: 0.080 s without, 0.066 s
+/// with; 0.074 s at 512 bytes ahead, 0.068 s at 8 KB).
+const PREFETCH_AHEAD: usize = 2048;
+
+/// Prefetches `row` [`PREFETCH_AHEAD`] bytes past element `index`, if that lies inside.
+#[inline(always)]
+fn prefetch_ahead<T>(row: &[T], index: usize) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        use std::arch::x86_64::{_mm_prefetch, _MM_HINT_T0};
+        let at = index * std::mem::size_of::<T>() + PREFETCH_AHEAD;
+        if at < std::mem::size_of_val(row) {
+            // SAFETY: the address lies inside `row`; a prefetch never faults.
+            unsafe { _mm_prefetch::<_MM_HINT_T0>(row.as_ptr().cast::<i8>().add(at)) };
+        }
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = (row, index);
+}
+
 /// Class probabilities (members, points, classes); every member's row sums to one.
 pub struct Probabilities<'a, T>(pub ArrayView3<'a, T>);
 
@@ -816,29 +838,48 @@ fn add_probabilities_any<T: Real>(p: &[T], c: usize, flags: &[u8], sums: &mut [f
     }
 }
 
-/// [`add_point`] over contiguous rows of `C` classes: with the class count known, the
-/// interleaved rows vectorise point by point.
+/// [`add_point`] over contiguous rows of `C` classes, four points (4·C elements) at a
+/// time: the sums are added element by element with each point's keep mask spread over its
+/// classes, so no element is moved between lanes; only the row totals gather a point's
+/// classes. A value is valid iff it is not below zero and its row total lies within the
+/// tolerance of one: NaN and infinite values make the total NaN or infinite, so this agrees
+/// with [`point_is_valid`].
 #[inline(always)]
 fn add_fixed_probabilities<T: Real, const C: usize>(
     p: &[T],
     flags: &[u8],
     sums: &mut [f64],
 ) -> bool {
-    let mut valid = true;
-    let points = p.chunks_exact(C).zip(sums.chunks_exact_mut(C)).zip(flags);
-    for ((point, out), &flag) in points {
-        let keep = 0u64.wrapping_sub(u64::from(flag));
-        let mut total = 0.0;
-        for (o, &v) in out.iter_mut().zip(point) {
-            let v = v.to_f64();
-            valid &= (0.0..=f64::MAX).contains(&v);
-            total += v;
-            // All ones keeps v, zero gives +0.0: the sums' bits as in [`add_probabilities`].
-            *o += f64::from_bits(v.to_bits() & keep);
+    let quads = flags.len() / 4;
+    let mut negative = false;
+    let mut on_total = true;
+    let elements = p.chunks_exact(4 * C).zip(sums.chunks_exact_mut(4 * C));
+    for (q, ((quad, out), flags)) in elements.zip(flags.chunks_exact(4)).enumerate().take(quads) {
+        prefetch_ahead(p, q * 4 * C);
+        let p = quad;
+        let keep: [u64; 4] = std::array::from_fn(|l| 0u64.wrapping_sub(u64::from(flags[l])));
+        let v: [[f64; C]; 4] =
+            std::array::from_fn(|l| std::array::from_fn(|k| p[l * C + k].to_f64()));
+        for l in 0..4 {
+            let mut total = 0.0;
+            for k in 0..C {
+                let x = v[l][k];
+                negative |= x < 0.0;
+                total += x;
+                // All ones keeps x, zero gives +0.0: the sums' bits as in [`add_probabilities`].
+                out[l * C + k] += f64::from_bits(x.to_bits() & keep[l]);
+            }
+            on_total &= (total - 1.0).abs() <= PROBABILITY_TOLERANCE;
         }
-        valid &= (total - 1.0).abs() <= PROBABILITY_TOLERANCE;
     }
-    valid
+    let done = quads * 4;
+    let rest = add_probabilities(
+        &p[done * C..flags.len() * C],
+        C,
+        &flags[done..],
+        &mut sums[done * C..flags.len() * C],
+    );
+    !negative & on_total & rest
 }
 
 /// Elements of a member row handled per pass of [`add_probabilities`] (stack scratch).
@@ -1338,7 +1379,7 @@ impl Block<'_> {
                         evaluate_votes(votes, &truth, &point_weights, terms)
                     }
                     ClassTotals::Probabilities(sums) => {
-                        evaluate_classes(width, sums, &n_oob, &targets, &point_weights)
+                        evaluate_classes(width, sums, &n_oob, &truth, &point_weights)
                     }
                 });
                 next += 1;
@@ -1471,47 +1512,157 @@ fn evaluate_regression(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> Err
 }
 
 /// The classification error sums of one block of points from its running sums (buffers
-/// padded as in [`evaluate_regression`]).
+/// padded as in [`evaluate_regression`]; `truth` the target classes). The terms of point `j`
+/// go to lane `j % LANES` of plain sums over each sub-block, as for votes; an uncovered
+/// point's terms are 0.0. Two to four classes take [`evaluate_fixed_classes`], four points
+/// at a time with the same operations per point.
 fn evaluate_classes(
     n_classes: usize,
     sums: &[f64],
     n_oob: &[u32],
-    y: &[f64],
+    truth: &[u32],
+    w: &[f64],
+) -> ErrorSums {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            return unsafe { evaluate_classes_avx2(n_classes, sums, n_oob, truth, w) };
+        }
+    }
+    evaluate_classes_any(n_classes, sums, n_oob, truth, w)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn evaluate_classes_avx2(
+    n_classes: usize,
+    sums: &[f64],
+    n_oob: &[u32],
+    truth: &[u32],
+    w: &[f64],
+) -> ErrorSums {
+    evaluate_classes_any(n_classes, sums, n_oob, truth, w)
+}
+
+#[inline(always)] // so that the AVX2 wrapper compiles its own copies
+fn evaluate_classes_any(
+    n_classes: usize,
+    sums: &[f64],
+    n_oob: &[u32],
+    truth: &[u32],
+    w: &[f64],
+) -> ErrorSums {
+    match n_classes {
+        2 => evaluate_fixed_classes::<2>(sums, n_oob, truth, w),
+        3 => evaluate_fixed_classes::<3>(sums, n_oob, truth, w),
+        4 => evaluate_fixed_classes::<4>(sums, n_oob, truth, w),
+        _ => evaluate_classes_general(n_classes, sums, n_oob, truth, w),
+    }
+}
+
+/// One point's terms (weight, weight if missed, weighted Brier, weighted log loss) from its
+/// probability sums over `n` > 0 out-of-bag members; 0.0 each when `n` is 0.
+#[inline(always)]
+fn point_class_terms(point: &[f64], n: u32, truth: usize, weight: f64) -> [f64; 4] {
+    let count = f64::from(n);
+    let mut brier = 0.0;
+    for (c, &s) in point.iter().enumerate() {
+        let d = s / count - if c == truth { 1.0 } else { 0.0 };
+        brier += d * d;
+    }
+    // `vote(point) != truth` without a branch per class (sums are finite here, or the block
+    // fails): a class above the target, or equal with a lower index.
+    let target = point[truth];
+    let wrong = point.iter().enumerate().fold(false, |wrong, (c, &s)| {
+        wrong | (s > target) | ((s == target) & (c < truth))
+    });
+    if n == 0 {
+        return [0.0; 4];
+    }
+    let p = (target / count).max(LOG_LOSS_FLOOR);
+    [
+        weight,
+        if wrong { weight } else { 0.0 },
+        weight * brier,
+        -(weight * p.ln()),
+    ]
+}
+
+fn evaluate_classes_general(
+    n_classes: usize,
+    sums: &[f64],
+    n_oob: &[u32],
+    truth: &[u32],
     w: &[f64],
 ) -> ErrorSums {
     let mut e = ErrorSums::default();
     for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
         let start = block * SUB_BLOCK;
-        let mut part = [0.0f64; 4];
+        let mut lanes = [[0.0f64; LANES]; 4];
         let mut covered = 0;
-        for (j, &count) in n.iter().enumerate().filter(|(_, &c)| c > 0) {
-            let j = start + j;
-            let count = f64::from(count);
+        for (i, &count) in n.iter().enumerate() {
+            let j = start + i;
             let point = &sums[j * n_classes..(j + 1) * n_classes];
-            let truth = y[j] as usize;
-            let mut brier = 0.0;
-            for (c, &s) in point.iter().enumerate() {
-                let d = s / count - if c == truth { 1.0 } else { 0.0 };
-                brier += d * d;
+            let t = point_class_terms(point, count, truth[j] as usize, w[j]);
+            covered += u64::from(count > 0);
+            for (lane, term) in lanes.iter_mut().zip(t) {
+                lane[i % LANES] += term;
             }
-            let p = (point[truth] / count).max(LOG_LOSS_FLOOR);
-            covered += 1;
-            part[0] += w[j];
-            // `vote(point) != truth` without a branch per class (sums are finite here, or
-            // the block fails): a class above the target, or equal with a lower index.
-            let target = point[truth];
-            let wrong = point.iter().enumerate().fold(false, |wrong, (c, &s)| {
-                wrong | (s > target) | ((s == target) & (c < truth))
-            });
-            part[1] += if wrong { w[j] } else { 0.0 };
-            part[2] += w[j] * brier;
-            part[3] -= w[j] * p.ln();
         }
-        e.covered += covered;
-        e.weight.add(part[0]);
-        e.wrong.add(part[1]);
-        e.brier.add(part[2]);
-        e.log_loss.add(part[3]);
+        e.add_lanes(covered, lanes);
+    }
+    e
+}
+
+/// [`evaluate_classes_general`] for `C` classes, four points at a time in lane arrays that
+/// vectorise (the logarithm stays one call per point).
+#[inline(always)]
+fn evaluate_fixed_classes<const C: usize>(
+    sums: &[f64],
+    n_oob: &[u32],
+    truth: &[u32],
+    w: &[f64],
+) -> ErrorSums {
+    let mut e = ErrorSums::default();
+    for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
+        let start = block * SUB_BLOCK;
+        let mut lanes = [[0.0f64; LANES]; 4];
+        let mut covered = [0u64; LANES];
+        for (quad, counts) in n.chunks_exact(LANES).enumerate() {
+            let j = start + quad * LANES;
+            let point: [[f64; C]; LANES] =
+                std::array::from_fn(|l| std::array::from_fn(|c| sums[(j + l) * C + c]));
+            let truth: [usize; LANES] = std::array::from_fn(|l| truth[j + l] as usize % C);
+            let count: [f64; LANES] = std::array::from_fn(|l| f64::from(counts[l]));
+            let target: [f64; LANES] = std::array::from_fn(|l| point[l][truth[l]]);
+            let mut brier = [0.0f64; LANES];
+            let mut wrong = [false; LANES];
+            #[allow(clippy::needless_range_loop)] // class order across four points
+            for c in 0..C {
+                for l in 0..LANES {
+                    let s = point[l][c];
+                    let d = s / count[l] - if c == truth[l] { 1.0 } else { 0.0 };
+                    brier[l] += d * d;
+                    wrong[l] |= (s > target[l]) | ((s == target[l]) & (c < truth[l]));
+                }
+            }
+            for l in 0..LANES {
+                let is_covered = counts[l] > 0;
+                covered[l] += u64::from(is_covered);
+                let weight = if is_covered { w[j + l] } else { 0.0 };
+                let log_p = if is_covered {
+                    (target[l] / count[l]).max(LOG_LOSS_FLOOR).ln()
+                } else {
+                    0.0
+                };
+                lanes[0][l] += weight;
+                lanes[1][l] += if wrong[l] { weight } else { 0.0 };
+                lanes[2][l] += if is_covered { weight * brier[l] } else { 0.0 };
+                lanes[3][l] += if is_covered { -(weight * log_p) } else { 0.0 };
+            }
+        }
+        e.add_lanes(covered.iter().sum(), lanes);
     }
     e
 }
@@ -2338,6 +2489,42 @@ mod tests {
                 let dispatched = run(&|sums| add_probabilities_dispatch(&p32, c, &flags, sums));
                 assert_eq!(dispatched, general, "{c} classes, {bad:?}, float32");
             }
+        }
+    }
+
+    #[test]
+    fn fixed_class_evaluation_matches_the_general_one_bit_for_bit() {
+        // Probability sums of 2 to 4 classes over 136 points (three sub-blocks, the last
+        // partial): uncovered points, ties between classes (target first, target second),
+        // sums below the log floor, weights that are not all 1.
+        for c in 2..=4 {
+            let n = 136;
+            let n_oob: Vec<u32> = (0..n).map(|j| (j as u32 * 5) % 7).collect();
+            let mut sums = vec![0.0; n * c];
+            for (j, point) in sums.chunks_exact_mut(c).enumerate() {
+                let count = f64::from(n_oob[j]);
+                for (k, s) in point.iter_mut().enumerate() {
+                    *s = count * ((j * 3 + k * 7) % 5) as f64 / 10.0;
+                }
+                if j % 11 == 0 {
+                    point[1] = point[0];
+                }
+                if j % 13 == 0 {
+                    point[0] = 1e-17 * count;
+                }
+            }
+            let truth: Vec<u32> = (0..n).map(|j| ((j * 7) % c) as u32).collect();
+            let w: Vec<f64> = (0..n).map(|j| 0.25 + (j % 9) as f64 / 3.0).collect();
+            let general = evaluate_classes_general(c, &sums, &n_oob, &truth, &w);
+            let fixed = match c {
+                2 => evaluate_fixed_classes::<2>(&sums, &n_oob, &truth, &w),
+                3 => evaluate_fixed_classes::<3>(&sums, &n_oob, &truth, &w),
+                _ => evaluate_fixed_classes::<4>(&sums, &n_oob, &truth, &w),
+            };
+            assert_eq!(fixed, general, "{c} classes");
+            assert_eq!(evaluate_classes(c, &sums, &n_oob, &truth, &w), general);
+            assert!(general.covered > 0 && general.wrong.value() > 0.0);
+            assert!(general.log_loss.value() > 30.0, "the floor is reached");
         }
     }
 
