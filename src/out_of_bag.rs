@@ -398,7 +398,8 @@ pub trait MemberPredictions: Sync {
     }
 
     /// Classification: adds member `member`'s votes or probabilities of the points
-    /// `start + j` with `out_of_bag[j] == 1` into `totals` (points × classes, row-major);
+    /// `start + j` with `out_of_bag[j] == 1` into `totals` (probability sums points ×
+    /// classes, row-major; or packed [`Votes`]);
     /// every point's prediction is checked, in bag or not.
     ///
     /// # Errors
@@ -706,11 +707,11 @@ impl<T: Real> MemberPredictions for Probabilities<'_, T> {
     }
 }
 
-/// Running per-point class totals of a block of points (points × classes, row-major).
+/// Running per-point class totals of a block of points.
 pub enum ClassTotals {
     /// Votes of label members: integers, exact as the f64 sums they replace.
     Votes(Votes),
-    /// Sums of member probabilities.
+    /// Sums of member probabilities (points × classes, row-major).
     Probabilities(Vec<f64>),
 }
 
@@ -2109,6 +2110,77 @@ mod tests {
         // Brier: point 0: 0.25 + 0.25 = 0.5; point 1: 0 + 0.25 + 0.25 = 0.5.
         assert_relative_eq!(full.brier_score(), 0.5);
         assert_relative_eq!(full.log_loss(), -(0.5f64).ln());
+    }
+
+    #[test]
+    fn every_vote_packing_matches_straightforward_counting() {
+        // One word of 16-bit lanes (1 to 4 classes), several words (5, 9), scattered votes
+        // (20), and 32-bit lanes from 65,536 members on: each against votes counted here
+        // point by point (common practice: the vote fraction is the share of out-of-bag
+        // members voting for the class).
+        for (c, m) in [
+            (1, 7),
+            (3, 7),
+            (4, 9),
+            (5, 7),
+            (9, 6),
+            (20, 5),
+            (3, 70_000),
+            (6, 70_000),
+        ] {
+            let n = 13;
+            // With 70,000 members nearly every member is out of bag and votes for class
+            // j % c, so that class's count passes the 16-bit lane's 65,535.
+            let big = m > 1 << 16;
+            let labels = Array2::from_shape_fn((m, n), |(i, j)| {
+                let class = if big && i % 100 != 0 {
+                    j
+                } else {
+                    i * 7 + j * 3 + i * j
+                };
+                (class % c) as i32
+            });
+            let counts = Array2::from_shape_fn((m, n), |(i, j)| {
+                let count = if big {
+                    usize::from((i + j) % 1000 == 0)
+                } else {
+                    (i + 2 * j + i / 3) % 3
+                };
+                count as u8
+            });
+            let y: Vec<f64> = (0..n).map(|j| (j % c) as f64).collect();
+            let members = Labels::new(labels.view(), c).unwrap();
+            let out = run(&members, &counts.view(), &y, None, &[m], &Pool::Global).unwrap();
+            let (mut wrong, mut brier, mut log_loss, mut covered) = (0.0, 0.0, 0.0, 0);
+            for j in 0..n {
+                let mut votes = vec![0u32; c];
+                for i in (0..m).filter(|&i| counts[[i, j]] == 0) {
+                    votes[labels[[i, j]] as usize] += 1;
+                }
+                let total: u32 = votes.iter().sum();
+                assert_eq!(out.n_oob[j], i64::from(total), "{c} classes, {m} members");
+                assert!(total > 0);
+                let shares: Vec<f64> = votes
+                    .iter()
+                    .map(|&v| f64::from(v) / f64::from(total))
+                    .collect();
+                assert_eq!(&out.probabilities[j * c..(j + 1) * c], &shares[..]);
+                let top = (0..c).fold(0, |best, k| if votes[k] > votes[best] { k } else { best });
+                assert_eq!(out.prediction[j], top as f64, "{c} classes, {m} members");
+                let truth = y[j] as usize;
+                covered += 1;
+                wrong += f64::from(u8::from(top != truth));
+                brier += (0..c)
+                    .map(|k| (shares[k] - f64::from(u8::from(k == truth))).powi(2))
+                    .sum::<f64>();
+                log_loss -= shares[truth].max(LOG_LOSS_FLOOR).ln();
+            }
+            let full = out.state.full();
+            assert_eq!(full.covered, covered);
+            assert_relative_eq!(full.error_rate(), wrong / n as f64, max_relative = 1e-12);
+            assert_relative_eq!(full.brier_score(), brier / n as f64, max_relative = 1e-12);
+            assert_relative_eq!(full.log_loss(), log_loss / n as f64, max_relative = 1e-12);
+        }
     }
 
     #[test]
