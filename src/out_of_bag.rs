@@ -41,6 +41,30 @@ use crate::members::{for_chunks, vote, Chunks};
 use crate::numeric::Real;
 use crate::parallel::{Monitor, Pool};
 
+/// Defines `$name`, which runs `$portable` compiled for AVX2 when the processor has it
+/// and as built otherwise: the same operations in the same order (no fused multiply-add),
+/// so both give the same bits. `$portable` must be `#[inline(always)]`, so that the AVX2
+/// wrapper compiles its own copy.
+macro_rules! with_avx2 {
+    ($(#[$doc:meta])* fn $name:ident [$($generics:tt)*] ($($arg:ident: $ty:ty),* $(,)?) -> $ret:ty = $portable:ident) => {
+        $(#[$doc])*
+        fn $name<$($generics)*>($($arg: $ty),*) -> $ret {
+            #[cfg(target_arch = "x86_64")]
+            {
+                #[target_feature(enable = "avx2")]
+                unsafe fn avx2<$($generics)*>($($arg: $ty),*) -> $ret {
+                    $portable($($arg),*)
+                }
+                if std::arch::is_x86_feature_detected!("avx2") {
+                    // SAFETY: the processor supports AVX2 (checked just above).
+                    return unsafe { avx2($($arg),*) };
+                }
+            }
+            $portable($($arg),*)
+        }
+    };
+}
+
 /// Probabilities below this are raised to it before taking the logarithm.
 pub const LOG_LOSS_FLOOR: f64 = 1e-15;
 
@@ -220,33 +244,11 @@ fn add_strided<C: CountValue, T: Real>(
     negative
 }
 
-/// [`add_group`] compiled for AVX2 when the processor has it (4 f64 lanes instead of
-/// SSE2's 2). Element-wise multiply-adds in the same order, no fused multiply-add, so both
-/// versions give bit-identical sums.
-#[inline]
-fn add_group_dispatch<C: CountValue, T: Real, const K: usize>(
-    counts: [&[C]; K],
-    values: [&[T]; K],
-    acc: Acc<'_>,
-) -> bool {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { add_group_avx2(counts, values, acc) };
-        }
-    }
-    add_group(counts, values, acc)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn add_group_avx2<C: CountValue, T: Real, const K: usize>(
-    counts: [&[C]; K],
-    values: [&[T]; K],
-    acc: Acc<'_>,
-) -> bool {
-    add_group(counts, values, acc)
+with_avx2! {
+    /// [`add_group`] compiled for AVX2 when the processor has it (4 f64 lanes instead of
+    /// SSE2's 2). Element-wise multiply-adds in the same order, no fused multiply-add, so both
+    /// versions give bit-identical sums.
+    fn add_group_dispatch[C: CountValue, T: Real, const K: usize](counts: [&[C]; K], values: [&[T]; K], acc: Acc<'_>) -> bool = add_group
 }
 
 fn add_rows<C: CountValue, T: Real>(
@@ -604,22 +606,9 @@ fn add_votes<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut Votes) -> bo
     !out_of_range
 }
 
-/// [`add_votes`] compiled for AVX2 when available (the same integer operations).
-fn add_votes_dispatch<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut Votes) -> bool {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { add_votes_avx2(labels, flags, votes) };
-        }
-    }
-    add_votes(labels, flags, votes)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn add_votes_avx2<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut Votes) -> bool {
-    add_votes(labels, flags, votes)
+with_avx2! {
+    /// [`add_votes`] compiled for AVX2 when available (the same integer operations).
+    fn add_votes_dispatch[L: LabelValue](labels: &[L], flags: &[u8], votes: &mut Votes) -> bool = add_votes
 }
 
 /// Bytes ahead of a pass over a member row at which it is prefetched: a block reads runs of
@@ -805,28 +794,10 @@ fn add_point<T: Real>(point: impl Iterator<Item = T>, out: &mut [f64], flag: u8)
     valid & ((total - 1.0).abs() <= PROBABILITY_TOLERANCE)
 }
 
-/// [`add_probabilities`] compiled for AVX2 when available, with the class count fixed
-/// for two to four classes (the same operations in the same order).
-fn add_probabilities_dispatch<T: Real>(p: &[T], c: usize, flags: &[u8], sums: &mut [f64]) -> bool {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { add_probabilities_avx2(p, c, flags, sums) };
-        }
-    }
-    add_probabilities_any(p, c, flags, sums)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn add_probabilities_avx2<T: Real>(
-    p: &[T],
-    c: usize,
-    flags: &[u8],
-    sums: &mut [f64],
-) -> bool {
-    add_probabilities_any(p, c, flags, sums)
+with_avx2! {
+    /// [`add_probabilities`] compiled for AVX2 when available, with the class count fixed
+    /// for two to four classes (the same operations in the same order).
+    fn add_probabilities_dispatch[T: Real](p: &[T], c: usize, flags: &[u8], sums: &mut [f64]) -> bool = add_probabilities_any
 }
 
 #[inline(always)] // so that the AVX2 wrapper compiles its own copies
@@ -1456,24 +1427,11 @@ const LANES: usize = 4;
 /// points into different chunks changes the totals by ~1e-15 relative at most.
 const SUB_BLOCK: usize = 64;
 
-/// The regression error sums of one block of points from its (sum, count) pairs (padded to
-/// whole lanes; padding has no OOB member and weight 0).
-/// [`evaluate_regression`] compiled for AVX2 when available (same operations and order).
-fn evaluate_regression_dispatch(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { evaluate_regression_avx2(sums, n_oob, y, w) };
-        }
-    }
-    evaluate_regression(sums, n_oob, y, w)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn evaluate_regression_avx2(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums {
-    evaluate_regression(sums, n_oob, y, w)
+with_avx2! {
+    /// The regression error sums of one block of points from its (sum, count) pairs (padded to
+    /// whole lanes; padding has no OOB member and weight 0).
+    /// [`evaluate_regression`] compiled for AVX2 when available (same operations and order).
+    fn evaluate_regression_dispatch[](sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> ErrorSums = evaluate_regression
 }
 
 #[inline(always)] // so that the AVX2 wrapper compiles its own copy
@@ -1512,38 +1470,13 @@ fn evaluate_regression(sums: &[f64], n_oob: &[f64], y: &[f64], w: &[f64]) -> Err
     e
 }
 
-/// The classification error sums of one block of points from its running sums (buffers
-/// padded as in [`evaluate_regression`]; `truth` the target classes). The terms of point `j`
-/// go to lane `j % LANES` of plain sums over each sub-block, as for votes; an uncovered
-/// point's terms are 0.0. Two to four classes take [`evaluate_fixed_classes`], four points
-/// at a time with the same operations per point.
-fn evaluate_classes(
-    n_classes: usize,
-    sums: &[f64],
-    n_oob: &[u32],
-    truth: &[u32],
-    w: &[f64],
-) -> ErrorSums {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { evaluate_classes_avx2(n_classes, sums, n_oob, truth, w) };
-        }
-    }
-    evaluate_classes_any(n_classes, sums, n_oob, truth, w)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn evaluate_classes_avx2(
-    n_classes: usize,
-    sums: &[f64],
-    n_oob: &[u32],
-    truth: &[u32],
-    w: &[f64],
-) -> ErrorSums {
-    evaluate_classes_any(n_classes, sums, n_oob, truth, w)
+with_avx2! {
+    /// The classification error sums of one block of points from its running sums (buffers
+    /// padded as in [`evaluate_regression`]; `truth` the target classes). The terms of point `j`
+    /// go to lane `j % LANES` of plain sums over each sub-block, as for votes; an uncovered
+    /// point's terms are 0.0. Two to four classes take [`evaluate_fixed_classes`], four points
+    /// at a time with the same operations per point.
+    fn evaluate_classes[](n_classes: usize, sums: &[f64], n_oob: &[u32], truth: &[u32], w: &[f64]) -> ErrorSums = evaluate_classes_any
 }
 
 #[inline(always)] // so that the AVX2 wrapper compiles its own copies
@@ -1780,33 +1713,10 @@ fn point_vote_terms(
     ]
 }
 
-/// [`evaluate_word_votes`] for the class count at hand, compiled for AVX2 when available
-/// (the same operations).
-fn evaluate_word_votes_dispatch(
-    votes: &Votes,
-    truth: &[u32],
-    w: &[f64],
-    terms: Option<&VoteTerms>,
-) -> ErrorSums {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the processor supports AVX2 (checked just above).
-            return unsafe { evaluate_word_votes_avx2(votes, truth, w, terms) };
-        }
-    }
-    evaluate_word_votes_any(votes, truth, w, terms)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn evaluate_word_votes_avx2(
-    votes: &Votes,
-    truth: &[u32],
-    w: &[f64],
-    terms: Option<&VoteTerms>,
-) -> ErrorSums {
-    evaluate_word_votes_any(votes, truth, w, terms)
+with_avx2! {
+    /// [`evaluate_word_votes`] for the class count at hand, compiled for AVX2 when available
+    /// (the same operations).
+    fn evaluate_word_votes_dispatch[](votes: &Votes, truth: &[u32], w: &[f64], terms: Option<&VoteTerms>) -> ErrorSums = evaluate_word_votes_any
 }
 
 #[inline(always)] // so that the AVX2 wrapper compiles its own copies
@@ -2499,9 +2409,9 @@ mod tests {
                 sums: &mut sums,
                 n: &mut n_oob,
             };
-            // SAFETY: AVX2 support was checked at the top of the test.
+            // The dispatch runs the AVX2 build here (support was checked at the top).
             let negative = if avx2 {
-                unsafe { add_group_avx2(c, v, acc) }
+                add_group_dispatch(c, v, acc)
             } else {
                 add_group(c, v, acc)
             };
@@ -2510,9 +2420,8 @@ mod tests {
             n_oob.resize(sums.len(), 0.0);
             let y: Vec<f64> = (0..sums.len()).map(|j| (j % 9) as f64).collect();
             let w = vec![1.5; sums.len()];
-            // SAFETY: as above.
             let e = if avx2 {
-                unsafe { evaluate_regression_avx2(&sums, &n_oob, &y, &w) }
+                evaluate_regression_dispatch(&sums, &n_oob, &y, &w)
             } else {
                 evaluate_regression(&sums, &n_oob, &y, &w)
             };
