@@ -1531,17 +1531,15 @@ fn evaluate_classes_general(
     w: &[f64],
 ) -> ErrorSums {
     let mut e = ErrorSums::default();
-    for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
-        let start = block * SUB_BLOCK;
+    for points in sub_blocks(n_oob.len()) {
         let mut lanes = [[0.0f64; LANES]; 4];
         let mut covered = 0;
-        for (i, &count) in n.iter().enumerate() {
-            let j = start + i;
+        for j in points {
             let point = &sums[j * n_classes..(j + 1) * n_classes];
-            let t = point_class_terms(point, count, truth[j] as usize, w[j]);
-            covered += u64::from(count > 0);
+            let t = point_class_terms(point, n_oob[j], truth[j] as usize, w[j]);
+            covered += u64::from(n_oob[j] > 0);
             for (lane, term) in lanes.iter_mut().zip(t) {
-                lane[i % LANES] += term;
+                lane[j % LANES] += term;
             }
         }
         e.add_lanes(covered, lanes);
@@ -1559,12 +1557,11 @@ fn evaluate_fixed_classes<const C: usize>(
     w: &[f64],
 ) -> ErrorSums {
     let mut e = ErrorSums::default();
-    for (block, n) in n_oob.chunks(SUB_BLOCK).enumerate() {
-        let start = block * SUB_BLOCK;
+    for points in sub_blocks(n_oob.len()) {
         let mut lanes = [[0.0f64; LANES]; 4];
         let mut covered = [0u64; LANES];
-        for (quad, counts) in n.chunks_exact(LANES).enumerate() {
-            let j = start + quad * LANES;
+        for j in points.step_by(LANES) {
+            let counts: [u32; LANES] = std::array::from_fn(|l| n_oob[j + l]);
             let point: [[f64; C]; LANES] =
                 std::array::from_fn(|l| std::array::from_fn(|c| sums[(j + l) * C + c]));
             let truth: [usize; LANES] = std::array::from_fn(|l| truth[j + l] as usize % C);
@@ -1581,20 +1578,20 @@ fn evaluate_fixed_classes<const C: usize>(
                     wrong[l] |= (s > target[l]) | ((s == target[l]) & (c < truth[l]));
                 }
             }
-            for l in 0..LANES {
-                let is_covered = counts[l] > 0;
-                covered[l] += u64::from(is_covered);
-                let weight = if is_covered { w[j + l] } else { 0.0 };
-                let log_p = if is_covered {
+            let log_p: [f64; LANES] = std::array::from_fn(|l| {
+                if counts[l] > 0 {
                     (target[l] / count[l]).max(LOG_LOSS_FLOOR).ln()
                 } else {
                     0.0
-                };
-                lanes[0][l] += weight;
-                lanes[1][l] += if wrong[l] { weight } else { 0.0 };
-                lanes[2][l] += if is_covered { weight * brier[l] } else { 0.0 };
-                lanes[3][l] += if is_covered { -(weight * log_p) } else { 0.0 };
-            }
+                }
+            });
+            let quad = QuadTerms {
+                counts,
+                wrong,
+                brier,
+                log_p,
+            };
+            quad.add_to(&mut lanes, &mut covered, &w[j..j + LANES]);
         }
         e.add_lanes(covered.iter().sum(), lanes);
     }
@@ -1656,12 +1653,10 @@ fn evaluate_votes_any(
 ) -> ErrorSums {
     let mut classes = vec![0u32; votes.n_classes];
     let mut e = ErrorSums::default();
-    for block in 0..votes.stride.div_ceil(SUB_BLOCK) {
-        let start = block * SUB_BLOCK;
-        let len = SUB_BLOCK.min(votes.stride - start);
+    for points in sub_blocks(votes.stride) {
         let mut lanes = [[0.0f64; LANES]; 4];
         let mut covered = 0;
-        for j in start..start + len {
+        for j in points {
             classes
                 .iter_mut()
                 .enumerate()
@@ -1742,12 +1737,10 @@ fn evaluate_word_votes(
     terms: Option<&VoteTerms>,
 ) -> ErrorSums {
     let mut e = ErrorSums::default();
-    for block in 0..votes.stride.div_ceil(SUB_BLOCK) {
-        let start = block * SUB_BLOCK;
-        let len = SUB_BLOCK.min(votes.stride - start);
+    for points in sub_blocks(votes.stride) {
         let mut lanes = [[0.0f64; LANES]; 4];
         let mut covered = [0u64; LANES];
-        for j in (start..start + len).step_by(LANES) {
+        for j in points.step_by(LANES) {
             let words: [u64; LANES] = std::array::from_fn(|l| votes.words[j + l]);
             let truth: [usize; LANES] = std::array::from_fn(|l| truth[j + l] as usize & 3);
             let counts = words.map(|v| (v.wrapping_mul(0x0001_0001_0001_0001) >> 48) as u32);
@@ -1769,23 +1762,58 @@ fn evaluate_word_votes(
                 Some(t) => t.log[VoteTerms::row(counts[l]) + target[l] as usize],
                 None => (f64::from(target[l]) / n[l]).max(LOG_LOSS_FLOOR).ln(),
             });
-            for l in 0..LANES {
-                let is_covered = counts[l] > 0;
-                covered[l] += u64::from(is_covered);
-                let weight = if is_covered { w[j + l] } else { 0.0 };
-                lanes[0][l] += weight;
-                lanes[1][l] += if wrong[l] { weight } else { 0.0 };
-                lanes[2][l] += if is_covered { weight * brier[l] } else { 0.0 };
-                lanes[3][l] += if is_covered {
-                    -(weight * log_p[l])
-                } else {
-                    0.0
-                };
-            }
+            let quad = QuadTerms {
+                counts,
+                wrong,
+                brier,
+                log_p,
+            };
+            quad.add_to(&mut lanes, &mut covered, &w[j..j + LANES]);
         }
         e.add_lanes(covered.iter().sum(), lanes);
     }
     e
+}
+
+/// The sub-blocks of `points` classification points (a whole number of lanes), whose
+/// terms are added in lanes (point `j` to lane `j % LANES`) and then to the totals.
+#[inline(always)]
+fn sub_blocks(points: usize) -> impl Iterator<Item = std::ops::Range<usize>> {
+    (0..points)
+        .step_by(SUB_BLOCK)
+        .map(move |start| start..(start + SUB_BLOCK).min(points))
+}
+
+/// Four points' parts of the classification terms, from the four-point kernels.
+struct QuadTerms {
+    counts: [u32; LANES],
+    wrong: [bool; LANES],
+    brier: [f64; LANES],
+    log_p: [f64; LANES],
+}
+
+impl QuadTerms {
+    /// Adds the terms of [`point_class_terms`] to the lanes (0.0 for an uncovered point).
+    #[inline(always)]
+    fn add_to(&self, lanes: &mut [[f64; LANES]; 4], covered: &mut [u64; LANES], w: &[f64]) {
+        for l in 0..LANES {
+            let is_covered = self.counts[l] > 0;
+            covered[l] += u64::from(is_covered);
+            let weight = if is_covered { w[l] } else { 0.0 };
+            lanes[0][l] += weight;
+            lanes[1][l] += if self.wrong[l] { weight } else { 0.0 };
+            lanes[2][l] += if is_covered {
+                weight * self.brier[l]
+            } else {
+                0.0
+            };
+            lanes[3][l] += if is_covered {
+                -(weight * self.log_p[l])
+            } else {
+                0.0
+            };
+        }
+    }
 }
 
 /// The losses of an [`OutOfBagPartial`] at every curve size, one array per loss of its task
