@@ -8,6 +8,7 @@ import json
 import os
 import re
 import sys
+import tempfile
 import textwrap
 import warnings
 
@@ -221,15 +222,19 @@ def _where_bad(message, kwargs, names):
 
 
 def _writable(path, option):
-    """Fail before any work when ``path`` cannot be written."""
-    existed = os.path.exists(path)
+    """Fail before any work when ``path`` cannot be written. An existing file is opened for
+    appending (nothing changes); for a new one a uniquely named probe is made beside it, so two
+    runs writing the same path at once neither see nor remove each other's file."""
     try:
-        with open(path, "a", encoding="utf-8"):
-            pass
+        if os.path.exists(path):
+            with open(path, "a", encoding="utf-8"):
+                pass
+        else:
+            folder = os.path.dirname(os.path.abspath(path))
+            with tempfile.NamedTemporaryFile(dir=folder, prefix=".bagwise-probe-"):
+                pass
     except OSError as err:
         raise CommandError(f"{option}: cannot write {path}: {err.strerror or err}") from None
-    if not existed:
-        os.remove(path)
 
 
 def _options(message, names):
