@@ -749,10 +749,11 @@ impl Resampler {
                 false
             }
             (Plan::Rows { draws }, Scheme::Bootstrap) => {
+                // Wrapping increments, then one check: a checked increment makes each draw
+                // wait for its (cache-missing) count before the next flag can be merged.
                 let n = row.len();
-                let mut overflow = false;
-                d.for_each_below(n, *draws, |i| overflow |= row[i].increment());
-                overflow
+                d.for_each_below(n, *draws, |i| row[i].increment_unchecked());
+                wrapped(row, *draws)
             }
             (Plan::Rows { draws }, _) => {
                 let n = row.len();
@@ -761,12 +762,11 @@ impl Resampler {
                 false
             }
             (Plan::Strata { strata, draws }, Scheme::Bootstrap) => {
-                let mut overflow = false;
                 for (s, &m) in draws.iter().enumerate() {
                     let rows = strata.members(s);
-                    d.for_each_below(rows.len(), m, |i| overflow |= row[rows[i]].increment());
+                    d.for_each_below(rows.len(), m, |i| row[rows[i]].increment_unchecked());
                 }
-                overflow
+                wrapped(row, draws.iter().sum())
             }
             (Plan::Strata { strata, draws }, _) => {
                 for (s, &m) in draws.iter().enumerate() {
@@ -956,6 +956,20 @@ impl Resampler {
 /// (row-major, `n` rows each, zeros on entry). The half H (`half` distinct rows of 0..n) is
 /// drawn from the first member's stream, then member k draws `draws` distinct rows of H
 /// from stream k (the first member continuing after the half).
+/// Whether some count of `row`, filled by `draws` wrapping increments from zero, wrapped:
+/// every wrap takes 2^bits off the total, so the total is `draws` exactly when none did.
+fn wrapped<T: Count>(row: &[T], draws: usize) -> bool {
+    let total = if T::MAX <= u64::from(u16::MAX) {
+        // Chunks of 2^16 counts below 2^16 sum exactly in 32 bits (and vectorise).
+        row.chunks(1 << 16)
+            .map(|chunk| u64::from(chunk.iter().map(|&c| c.as_u64() as u32).sum::<u32>()))
+            .sum::<u64>()
+    } else {
+        row.iter().map(|&c| c.as_u64()).sum::<u64>()
+    };
+    total != draws as u64
+}
+
 fn fill_group<T: Count>(
     streams: &mut [Draws],
     rows: &mut [T],
@@ -1211,6 +1225,30 @@ mod tests {
             r.counts_as::<u8>(7, 4, &POOL, &Silent).unwrap_err(),
             Error::CountOverflow { max: 255 }
         );
+    }
+
+    #[test]
+    fn a_count_that_wraps_to_zero_is_caught() {
+        // One row: every draw lands on it, so 255 draws fit a u8, 256 wrap it to 0 and 512
+        // wrap it twice (each wrap takes 256 off the row's total, which is how it is found).
+        for (draws, fits) in [
+            (255.0, true),
+            (256.0, false),
+            (511.0, false),
+            (512.0, false),
+        ] {
+            for design in [Design::Rows, Design::Strata(vec![0])] {
+                let r = plan(1, Scheme::Bootstrap, draws, design);
+                let got = r.counts_as::<u8>(3, 2, &POOL, &Silent);
+                if fits {
+                    assert!(got.unwrap().iter().all(|&c| c == 255));
+                } else {
+                    assert_eq!(got.unwrap_err(), Error::CountOverflow { max: 255 });
+                    let wide = as_u64(&r.counts(3, 2, &POOL, &Silent).unwrap());
+                    assert!(wide.iter().all(|&c| c == draws as u64));
+                }
+            }
+        }
     }
 
     #[test]
