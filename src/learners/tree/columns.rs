@@ -29,12 +29,12 @@ pub(super) struct Columns {
 
 /// Hints the processor to bring `value`'s cache line in; a no-op off x86-64.
 #[inline(always)]
-pub(super) fn prefetch(value: &f64) {
+pub(super) fn prefetch<T>(value: &T) {
     #[cfg(target_arch = "x86_64")]
     {
         use std::arch::x86_64::{_mm_prefetch, _MM_HINT_T0};
         // SAFETY: a prefetch never faults, and SSE is part of the x86-64 baseline.
-        unsafe { _mm_prefetch::<_MM_HINT_T0>((value as *const f64).cast::<i8>()) };
+        unsafe { _mm_prefetch::<_MM_HINT_T0>((value as *const T).cast::<i8>()) };
     }
     #[cfg(not(target_arch = "x86_64"))]
     let _ = value;
