@@ -69,6 +69,19 @@ pub(super) struct Split {
     pub(super) next: u32,
 }
 
+/// Bit `i` of a bit set (0 or 1).
+#[inline(always)]
+fn bit(bits: &[u64], i: usize) -> u64 {
+    (bits[i >> 6] >> (i & 63)) & 1
+}
+
+/// Sets bit `i` of a bit set to `value`.
+#[inline(always)]
+fn set_bit(bits: &mut [u64], i: usize, value: bool) {
+    let word = &mut bits[i >> 6];
+    *word = (*word & !(1 << (i & 63))) | (u64::from(value) << (i & 63));
+}
+
 /// Slots ahead of a pass over a node's slots at which their data is prefetched.
 const SLOTS_AHEAD: usize = 16;
 
@@ -136,7 +149,9 @@ pub(super) struct Grower<'a> {
     pub(super) sorted: Vec<u64>,
     // Scratch, reused by every node.
     pub(super) keys: Vec<u64>,
-    pub(super) goes_left: Vec<bool>,
+    /// One bit per slot, set when it goes left at the split being applied (bits, not
+    /// bools: 80 KB at a million rows, so the partitions' random reads stay in cache).
+    pub(super) goes_left: Vec<u64>,
     pub(super) buffer: Vec<u64>,
     pub(super) left: Vec<f64>,
     pub(super) one_feature: Vec<f64>,
@@ -627,21 +642,26 @@ impl<'a> Grower<'a> {
                 split.cut
             };
             for &key in &self.sorted[f * n_in + start..f * n_in + end] {
-                self.goes_left[(key & 0xFFFF_FFFF) as usize] = (key >> 32) as u32 <= cut;
+                set_bit(
+                    &mut self.goes_left,
+                    (key & 0xFFFF_FFFF) as usize,
+                    (key >> 32) as u32 <= cut,
+                );
             }
         } else {
             for &slot in &self.order[start..end] {
                 let row = self.slot_row[slot as usize];
-                self.goes_left[slot as usize] = if split.by_bins {
+                let left = if split.by_bins {
                     u32::from(columns.code(split.feature, row)) <= split.cut
                 } else {
                     columns.rank(split.feature, row) <= split.cut
                 };
+                set_bit(&mut self.goes_left, slot as usize, left);
             }
         }
         let (mut i, mut j) = (start, end);
         while i < j {
-            if self.goes_left[self.order[i] as usize] {
+            if bit(&self.goes_left, self.order[i] as usize) != 0 {
                 i += 1;
             } else {
                 j -= 1;
@@ -667,7 +687,7 @@ impl<'a> Grower<'a> {
                 let (mut k, mut r) = (0usize, 0usize);
                 for q in 0..list.len() {
                     let key = list[q];
-                    let left = usize::from(goes_left[(key & 0xFFFF_FFFF) as usize]);
+                    let left = bit(goes_left, (key & 0xFFFF_FFFF) as usize) as usize;
                     list[k] = key;
                     buffer[r] = key;
                     k += left;
@@ -1088,7 +1108,7 @@ impl CheckedTreeParams {
             slot_codes,
             sorted,
             keys: Vec::new(),
-            goes_left: vec![false; n_in],
+            goes_left: vec![0; n_in.div_ceil(64)],
             buffer: Vec::new(),
             left: vec![0.0; stat_width],
             one_feature: Vec::new(),
