@@ -952,10 +952,6 @@ impl Resampler {
     }
 }
 
-/// One group of little bags: `rows` holds the group's ℓ = `streams.len()` members
-/// (row-major, `n` rows each, zeros on entry). The half H (`half` distinct rows of 0..n) is
-/// drawn from the first member's stream, then member k draws `draws` distinct rows of H
-/// from stream k (the first member continuing after the half).
 /// Whether some count of `row`, filled by `draws` wrapping increments from zero, wrapped:
 /// every wrap takes 2^bits off the total, so the total is `draws` exactly when none did.
 fn wrapped<T: Count>(row: &[T], draws: usize) -> bool {
@@ -970,6 +966,10 @@ fn wrapped<T: Count>(row: &[T], draws: usize) -> bool {
     total != draws as u64
 }
 
+/// One group of little bags: `rows` holds the group's ℓ = `streams.len()` members
+/// (row-major, `n` rows each, zeros on entry). The half H (`half` distinct rows of 0..n) is
+/// drawn from the first member's stream, then member k draws `draws` distinct rows of H
+/// from stream k (the first member continuing after the half).
 fn fill_group<T: Count>(
     streams: &mut [Draws],
     rows: &mut [T],
