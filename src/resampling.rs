@@ -390,7 +390,8 @@ pub trait Count: Copy + Default + Send + Sync + 'static {
     const MAX: u64;
     /// Adds one; returns `true` if that overflowed (the stored value is then unusable).
     fn increment(&mut self) -> bool;
-    /// Adds one where the caller knows it cannot overflow (wraps if it could).
+    /// Adds one, wrapping past [`MAX`](Count::MAX): for callers that know it cannot
+    /// overflow, or that check the row's total afterwards (see `wrapped`).
     fn increment_unchecked(&mut self);
     /// The value `v`, or `None` if it does not fit.
     fn try_from_u64(v: u64) -> Option<Self>;
