@@ -132,6 +132,8 @@ pub(super) struct Grower<'a> {
     pub(super) min_leaf: f64,
     // Per in-bag row ("slot"): its row in x, weight and target; never permuted.
     pub(super) slot_row: Vec<u32>,
+    /// Per slot, classification: the weight (its in-bag count); regression: empty (the
+    /// weight is the first of `weighted_target`).
     pub(super) weight: Vec<f64>,
     pub(super) target: Vec<f64>,
     /// Per slot, regression: (weight, weight · target) side by side, so a scan fetches one
@@ -1054,6 +1056,7 @@ impl CheckedTreeParams {
         } else {
             target_pos.iter().map(|&c| c as u32).collect()
         };
+        let weight = if regression { Vec::new() } else { weight };
         let n_in = rows.len();
         let mut sorted = Vec::new();
         if !columns.order.is_empty() {
@@ -1229,7 +1232,7 @@ mod tests {
             let stats = g.stats_of(0, rows);
             let mean = stats[1] / stats[0];
             let ss: f64 = (0..rows)
-                .map(|p| g.weight[p] * (g.target[p] - mean) * (g.target[p] - mean))
+                .map(|p| g.weighted_target[p][0] * (g.target[p] - mean) * (g.target[p] - mean))
                 .sum();
             let expected = ss / stats[0] <= f64::EPSILON;
             assert_eq!(g.is_pure(0, rows, &stats), expected, "{y:?}");
