@@ -25,8 +25,8 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use super::{
-    check_design, check_parts, check_selection, count_bags, member_chunk, Bag, FittedMembers,
-    Targets, Task,
+    check_design, check_parts, check_selection, count_bags, member_chunk, Bag, BagSource,
+    FittedMembers, Targets, Task,
 };
 use crate::error::{Error, Result};
 use crate::numeric::Real;
@@ -190,7 +190,7 @@ impl LinearEnsemble {
     pub fn fit<T: Real>(
         x: ArrayView2<'_, T>,
         y: ArrayView1<'_, f64>,
-        bags: &[Bag],
+        bags: &dyn BagSource,
         penalty: f64,
         pool: &Pool,
         monitor: &dyn Monitor,
@@ -206,29 +206,33 @@ impl LinearEnsemble {
             return Err(Error::value("y", "contains NaN or infinite values"));
         }
         check_penalty(penalty)?;
-        if bags.is_empty() {
+        let members = bags.n_members();
+        if members == 0 {
             return Err(Error::value("counts", "needs at least one member"));
         }
-        if bags.iter().any(|b| b.rows.iter().any(|&i| i >= x.nrows())) {
-            return Err(Error::value("counts", "refers to rows beyond x"));
-        }
         let p = x.ncols();
-        let mut intercepts = Vec::with_capacity(bags.len());
-        let mut coefficients = Vec::with_capacity(bags.len() * p);
+        let mut intercepts = Vec::with_capacity(members);
+        let mut coefficients = Vec::with_capacity(members * p);
         let chunk = member_chunk(pool.threads());
-        for (c, block) in bags.chunks(chunk).enumerate() {
+        for start in (0..members).step_by(chunk) {
+            // Each member's bag is read where it is fitted, and dropped after.
             let fitted = pool.run(|| {
-                block
-                    .par_iter()
-                    .enumerate()
-                    .map(|(k, bag)| fit_member(x, y, bag, penalty, c * chunk + k))
+                (start..(start + chunk).min(members))
+                    .into_par_iter()
+                    .map(|m| {
+                        let bag = bags.bag(m)?;
+                        if bag.rows.iter().any(|&i| i >= x.nrows()) {
+                            return Err(Error::value("counts", "refers to rows beyond x"));
+                        }
+                        fit_member(x, y, &bag, penalty, m)
+                    })
                     .collect::<Result<Vec<_>>>()
             })?;
             for (b, beta) in fitted {
                 intercepts.push(b);
                 coefficients.extend(beta);
             }
-            monitor.progress(intercepts.len(), bags.len())?;
+            monitor.progress(intercepts.len(), members)?;
         }
         Ok(LinearEnsemble {
             n_features: p,
@@ -482,7 +486,7 @@ impl CheckedLinearParams {
         &self,
         x: ArrayView2<'_, T>,
         y: Targets<'_>,
-        bags: &[Bag],
+        bags: &dyn BagSource,
         pool: &Pool,
         monitor: &dyn Monitor,
     ) -> Result<LinearEnsemble> {
@@ -647,6 +651,24 @@ mod tests {
         let other = LinearEnsemble::fit(narrow, y.view(), &b, 0.5, &pool, &Silent).unwrap();
         assert!(LinearEnsemble::join(vec![whole, other]).is_err());
         assert!(LinearEnsemble::join(Vec::new()).is_err());
+    }
+
+    #[test]
+    fn bags_read_member_by_member_fit_the_same_ensemble() {
+        let (x, y) = design(60);
+        let mut counts = Array2::from_shape_fn((9, 60), |(m, i)| ((i * (m + 3) + m) % 4) as u8);
+        let pool = Threads::Fixed(2).pool().unwrap();
+        let all = bags(counts.view(), 60).unwrap();
+        let lazy = crate::learners::CountBags::new(counts.view(), 60).unwrap();
+        let fit = |source: &dyn BagSource| {
+            LinearEnsemble::fit(x.view(), y.view(), source, 0.5, &pool, &Silent)
+        };
+        assert_eq!(fit(&lazy).unwrap(), fit(&all).unwrap());
+        // A member without in-bag rows is named by its index in the whole.
+        counts.row_mut(7).fill(0);
+        let lazy = crate::learners::CountBags::new(counts.view(), 60).unwrap();
+        let err = fit(&lazy).unwrap_err().to_string();
+        assert!(err.contains("member 7 has no in-bag row"), "{err}");
     }
 
     #[test]

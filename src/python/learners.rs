@@ -9,7 +9,7 @@ use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::{run_core, to_py_err, zeros_nd, CountArray, FloatArray};
-use crate::learners::{bags, Bag, FittedMembers, Targets, Task};
+use crate::learners::{bags, Bag, BagSource, CountBags, FittedMembers, Targets, Task};
 
 /// The training targets: float64 values for regression, int64 class codes otherwise.
 pub(super) enum YValues {
@@ -55,6 +55,26 @@ pub(super) fn read_bags(counts: &Bound<'_, PyAny>, n_rows: usize) -> PyResult<Ve
         ($($t:ty),*) => {$(
             if let Ok(a) = counts.extract::<PyReadonlyArray2<'_, $t>>() {
                 return bags(a.as_array(), n_rows).map_err(to_py_err);
+            }
+        )*};
+    }
+    try_as!(u8, u16, u32, u64, f64);
+    Err(PyTypeError::new_err(
+        "`counts`: expected a 2-D array of unsigned integer counts or float64 weights",
+    ))
+}
+
+/// `counts` (members, rows) of unsigned integer counts or float64 weights as a
+/// [`BagSource`] that reads one member at a time, given to `f`.
+pub(super) fn with_bag_source<R>(
+    counts: &Bound<'_, PyAny>,
+    n_rows: usize,
+    f: impl Fn(&dyn BagSource) -> PyResult<R>,
+) -> PyResult<R> {
+    macro_rules! try_as {
+        ($($t:ty),*) => {$(
+            if let Ok(a) = counts.extract::<PyReadonlyArray2<'_, $t>>() {
+                return f(&CountBags::new(a.as_array(), n_rows).map_err(to_py_err)?);
             }
         )*};
     }

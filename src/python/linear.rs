@@ -5,7 +5,7 @@ use numpy::{IntoPyArray, PyArrayMethods};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
-use super::learners::{self, read_bags, rows_of, YValues};
+use super::learners::{self, rows_of, with_bag_source, YValues};
 use super::{run_core, to_py_err, FloatArray};
 use crate::learners::linear::{LinearEnsemble, LinearParams};
 use crate::learners::FittedMembers;
@@ -39,13 +39,13 @@ impl PyLinearEnsemble {
             .and_then(LinearParams::check)
             .map_err(to_py_err)?;
         let x = FloatArray::<Ix2>::extract(x, "x")?;
-        let (y, bags) = (
-            YValues::read(y, params.task())?,
-            read_bags(counts, rows_of(&x))?,
-        );
-        let inner = with_float!(x, |a| run_core(py, n_jobs, progress, |pool, monitor| {
-            params.fit(a, y.view(), &bags, pool, monitor)
-        }))?;
+        let y = YValues::read(y, params.task())?;
+        let inner = with_bag_source(counts, rows_of(&x), |bags| {
+            let progress = progress.as_ref().map(|p| p.clone_ref(py));
+            with_float!(x, |a| run_core(py, n_jobs, progress, |pool, monitor| {
+                params.fit(a, y.view(), bags, pool, monitor)
+            }))
+        })?;
         Ok(PyLinearEnsemble { inner })
     }
 
