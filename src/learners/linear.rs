@@ -25,7 +25,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use super::{
-    check_design, check_parts, check_selection, count_bags, member_chunk, Bag, BagSource,
+    check_design, check_parts, check_selection, member_chunk, Bag, BagSource, CountBags,
     FittedMembers, Targets, Task,
 };
 use crate::error::{Error, Result};
@@ -347,18 +347,18 @@ impl LinearEnsemble {
     pub fn out_of_bag_into<T: Real>(
         &self,
         x: ArrayView2<'_, T>,
-        bags: &[Bag],
+        bags: &dyn BagSource,
         out: &mut [f64],
         pool: &Pool,
         monitor: &dyn Monitor,
     ) -> Result<()> {
         self.check_x(x)?;
-        if bags.len() != self.members() {
+        if bags.n_members() != self.members() {
             return Err(Error::value(
                 "counts",
                 format!(
                     "has {} members but the ensemble has {}",
-                    bags.len(),
+                    bags.n_members(),
                     self.members()
                 ),
             ));
@@ -369,24 +369,24 @@ impl LinearEnsemble {
         }
         let overflowed = AtomicBool::new(false);
         watched(pool, monitor, self.members(), |watch| {
-            out.par_chunks_mut(n)
-                .zip(bags.par_iter())
-                .enumerate()
-                .for_each(|(m, (row, bag))| {
-                    // Between members (one pass over the rows each).
-                    if watch.stopped() {
-                        return;
+            out.par_chunks_mut(n).enumerate().try_for_each(|(m, row)| {
+                // Between members (one pass over the rows each).
+                if watch.stopped() {
+                    return Ok(());
+                }
+                watch.advance(1);
+                // Read here, not all members' bags up front (see `BagSource`).
+                let bag = bags.bag(m)?;
+                row.fill(f64::NAN);
+                let mut inside = bag.rows.iter().peekable();
+                for (i, slot) in row.iter_mut().enumerate() {
+                    if inside.next_if(|&&r| r == i).is_none() {
+                        *slot = self.checked_row(m, x, i, &overflowed);
                     }
-                    watch.advance(1);
-                    row.fill(f64::NAN);
-                    let mut inside = bag.rows.iter().peekable();
-                    for (i, slot) in row.iter_mut().enumerate() {
-                        if inside.next_if(|&&r| r == i).is_none() {
-                            *slot = self.checked_row(m, x, i, &overflowed);
-                        }
-                    }
-                })
-        })?;
+                }
+                Ok(())
+            })
+        })??;
         overflow_check(&overflowed)
     }
 
@@ -541,7 +541,7 @@ impl FittedMembers for LinearEnsemble {
         pool: &Pool,
         monitor: &dyn Monitor,
     ) -> Result<()> {
-        let bags = count_bags(counts, x.nrows())?;
+        let bags = CountBags::of_counts(counts, x.nrows())?;
         LinearEnsemble::out_of_bag_into(self, x, &bags, out, pool, monitor)
     }
 
@@ -663,7 +663,26 @@ mod tests {
         let fit = |source: &dyn BagSource| {
             LinearEnsemble::fit(x.view(), y.view(), source, 0.5, &pool, &Silent)
         };
-        assert_eq!(fit(&lazy).unwrap(), fit(&all).unwrap());
+        let ensemble = fit(&lazy).unwrap();
+        assert_eq!(ensemble, fit(&all).unwrap());
+        // Out-of-bag predictions, bags read from the counts member by member or prebuilt.
+        let mut lazy_out = vec![0.0; 9 * 60];
+        FittedMembers::out_of_bag_into(
+            &ensemble,
+            x.view(),
+            counts.view(),
+            &mut lazy_out,
+            &pool,
+            &Silent,
+        )
+        .unwrap();
+        let mut all_out = vec![0.0; 9 * 60];
+        ensemble
+            .out_of_bag_into(x.view(), &all, &mut all_out, &pool, &Silent)
+            .unwrap();
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&lazy_out), bits(&all_out));
+        assert!(lazy_out.iter().any(|v| v.is_nan()) && lazy_out.iter().any(|v| !v.is_nan()));
         // A member without in-bag rows is named by its index in the whole.
         counts.row_mut(7).fill(0);
         let lazy = crate::learners::CountBags::new(counts.view(), 60).unwrap();

@@ -347,12 +347,31 @@ impl BagSource for Vec<Bag> {
 }
 
 /// Bags read member by member from members × rows counts or weights.
-pub struct CountBags<'a, W: Weight>(ArrayView2<'a, W>);
+pub struct CountBags<'a, W> {
+    counts: ArrayView2<'a, W>,
+    weight: fn(W) -> f64,
+}
+
+impl<'a, C: Count> CountBags<'a, C> {
+    /// In-bag counts of any [`Count`] type.
+    ///
+    /// # Errors
+    /// As [`CountBags::new`].
+    pub fn of_counts(counts: ArrayView2<'a, C>, n_rows: usize) -> Result<Self> {
+        Self::checked(counts, n_rows, |c| c.as_u64() as f64)
+    }
+}
 
 impl<'a, W: Weight> CountBags<'a, W> {
     /// # Errors
     /// `counts` when its shape is not (members ≥ 1, `n_rows`).
     pub fn new(counts: ArrayView2<'a, W>, n_rows: usize) -> Result<Self> {
+        Self::checked(counts, n_rows, W::weight)
+    }
+}
+
+impl<'a, W: Copy + Sync> CountBags<'a, W> {
+    fn checked(counts: ArrayView2<'a, W>, n_rows: usize, weight: fn(W) -> f64) -> Result<Self> {
         let (members, rows) = counts.dim();
         if rows != n_rows {
             return Err(Error::value(
@@ -363,7 +382,7 @@ impl<'a, W: Weight> CountBags<'a, W> {
         if members == 0 {
             return Err(Error::value("counts", "needs at least one member (row)"));
         }
-        Ok(CountBags(counts))
+        Ok(CountBags { counts, weight })
     }
 
     /// The bag of member `m`.
@@ -372,8 +391,8 @@ impl<'a, W: Weight> CountBags<'a, W> {
             rows: Vec::new(),
             weights: Vec::new(),
         };
-        for (i, &c) in self.0.row(m).iter().enumerate() {
-            let w = c.weight();
+        for (i, &c) in self.counts.row(m).iter().enumerate() {
+            let w = (self.weight)(c);
             if !w.is_finite() || w < 0.0 {
                 return Err(Error::value(
                     "counts",
@@ -395,9 +414,9 @@ impl<'a, W: Weight> CountBags<'a, W> {
     }
 }
 
-impl<W: Weight> BagSource for CountBags<'_, W> {
+impl<W: Copy + Sync> BagSource for CountBags<'_, W> {
     fn n_members(&self) -> usize {
-        self.0.nrows()
+        self.counts.nrows()
     }
 
     fn bag(&self, member: usize) -> Result<std::borrow::Cow<'_, Bag>> {
