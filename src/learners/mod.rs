@@ -268,7 +268,8 @@ pub fn check_out(out: &[f64], expected: usize) -> Result<()> {
 /// # Errors
 /// As [`bags`].
 pub fn count_bags<C: Count>(counts: ArrayView2<'_, C>, n_rows: usize) -> Result<Vec<Bag>> {
-    bags(counts.mapv(|c| c.as_u64()).view(), n_rows)
+    let source = CountBags::of_counts(counts, n_rows)?;
+    (0..source.n_members()).map(|m| source.read(m)).collect()
 }
 
 /// A row-weight element: in-bag counts (unsigned integers) or continuous weights (f64).
