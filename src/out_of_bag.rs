@@ -567,6 +567,9 @@ impl<L: LabelValue> MemberPredictions for Labels<'_, L> {
 /// scattering the votes.
 const PASSED_WORDS: usize = 4;
 
+/// Points per run of the one-word vote pass, whose label lines are prefetched together.
+const VOTE_RUN: usize = 64;
+
 /// Adds the votes of contiguous `labels` of the points with `flags[j] == 1` into `votes`;
 /// whether every label (in bag or not) lies in 0..n_classes.
 #[inline(always)] // so that the AVX2 wrapper compiles its own copy
@@ -578,10 +581,19 @@ fn add_votes<L: LabelValue>(labels: &[L], flags: &[u8], votes: &mut Votes) -> bo
     let mut out_of_range = false;
     if votes.n_words == 1 {
         // The label picks the lane: one shift and one add per point.
-        for ((v, &label), &flag) in votes.words.iter_mut().zip(labels).zip(flags) {
-            let class = label.wrapped();
-            out_of_range |= class >= c;
-            *v += u64::from(flag) << ((class & lane_index) << lane_shift);
+        let line = (64 / std::mem::size_of::<L>()).max(1);
+        let runs = votes.words[..labels.len()]
+            .chunks_mut(VOTE_RUN)
+            .zip(labels.chunks(VOTE_RUN).zip(flags.chunks(VOTE_RUN)));
+        for (r, (words, (labels_run, flags_run))) in runs.enumerate() {
+            for at in (0..VOTE_RUN).step_by(line) {
+                prefetch_ahead(labels, r * VOTE_RUN + at);
+            }
+            for ((v, &label), &flag) in words.iter_mut().zip(labels_run).zip(flags_run) {
+                let class = label.wrapped();
+                out_of_range |= class >= c;
+                *v += u64::from(flag) << ((class & lane_index) << lane_shift);
+            }
         }
     } else if votes.n_words <= PASSED_WORDS {
         for (word, column) in votes.words.chunks_exact_mut(votes.stride).enumerate() {
@@ -1736,35 +1748,58 @@ fn evaluate_word_votes(
     w: &[f64],
     terms: Option<&VoteTerms>,
 ) -> ErrorSums {
+    // One copy of the loop per way of taking the logarithm, so neither branches per point.
+    match terms {
+        Some(t) => word_vote_sums::<true>(votes, truth, w, &t.log),
+        None => word_vote_sums::<false>(votes, truth, w, &[]),
+    }
+}
+
+/// [`evaluate_word_votes`] with the logarithm looked up in `log` (`LOOKUP`) or computed.
+#[inline(always)]
+fn word_vote_sums<const LOOKUP: bool>(
+    votes: &Votes,
+    truth: &[u32],
+    w: &[f64],
+    log: &[f64],
+) -> ErrorSums {
+    // Indices are clamped to the table rather than checked (they lie inside: s ≤ n ≤ m).
+    let last = log.len().saturating_sub(1);
     let mut e = ErrorSums::default();
     for points in sub_blocks(votes.stride) {
         let mut lanes = [[0.0f64; LANES]; 4];
         let mut covered = [0u64; LANES];
         for j in points.step_by(LANES) {
             let words: [u64; LANES] = std::array::from_fn(|l| votes.words[j + l]);
-            let truth: [usize; LANES] = std::array::from_fn(|l| truth[j + l] as usize & 3);
-            let counts = words.map(|v| (v.wrapping_mul(0x0001_0001_0001_0001) >> 48) as u32);
-            let lane = |c: usize| words.map(|v| ((v >> (16 * c)) & 0xffff) as u32);
-            let target: [u32; LANES] =
-                std::array::from_fn(|l| ((words[l] >> (16 * truth[l])) & 0xffff) as u32);
-            let n = counts.map(f64::from);
+            let truth: [u64; LANES] = std::array::from_fn(|l| u64::from(truth[j + l] & 3));
+            let counts = words.map(|v| v.wrapping_mul(0x0001_0001_0001_0001) >> 48);
+            let target: [u64; LANES] =
+                std::array::from_fn(|l| (words[l] >> (16 * truth[l])) & 0xffff);
+            let n = counts.map(|v| f64::from(v as u32));
             let mut brier = [0.0f64; LANES];
-            let mut wrong = [false; LANES];
-            for c in 0..4 {
-                let s = lane(c);
+            let mut wrong = [0u64; LANES];
+            for c in 0..4u64 {
                 for l in 0..LANES {
-                    let d = f64::from(s[l]) / n[l] - if c == truth[l] { 1.0 } else { 0.0 };
+                    let s = (words[l] >> (16 * c)) & 0xffff;
+                    let hit = if c == truth[l] { 1.0 } else { 0.0 };
+                    let d = f64::from(s as u32) / n[l] - hit;
                     brier[l] += d * d;
-                    wrong[l] |= (s[l] > target[l]) | ((s[l] == target[l]) & (c < truth[l]));
+                    wrong[l] |=
+                        u64::from(s > target[l]) | u64::from((s == target[l]) & (c < truth[l]));
                 }
             }
-            let log_p: [f64; LANES] = std::array::from_fn(|l| match terms {
-                Some(t) => t.log[VoteTerms::row(counts[l]) + target[l] as usize],
-                None => (f64::from(target[l]) / n[l]).max(LOG_LOSS_FLOOR).ln(),
+            let log_p: [f64; LANES] = std::array::from_fn(|l| {
+                if LOOKUP {
+                    log[(VoteTerms::row(counts[l] as u32) + target[l] as usize).min(last)]
+                } else {
+                    (f64::from(target[l] as u32) / n[l])
+                        .max(LOG_LOSS_FLOOR)
+                        .ln()
+                }
             });
             let quad = QuadTerms {
-                counts,
-                wrong,
+                counts: counts.map(|v| v as u32),
+                wrong: wrong.map(|v| v != 0),
                 brier,
                 log_p,
             };
@@ -1794,24 +1829,19 @@ struct QuadTerms {
 
 impl QuadTerms {
     /// Adds the terms of [`point_class_terms`] to the lanes (0.0 for an uncovered point).
+    /// Masks select the terms, not branches: the result is the same (+0.0 where a branch
+    /// gave 0.0), and a branch per lane kept the four points from sharing vector registers.
     #[inline(always)]
     fn add_to(&self, lanes: &mut [[f64; LANES]; 4], covered: &mut [u64; LANES], w: &[f64]) {
+        let masked = |x: f64, mask: u64| f64::from_bits(x.to_bits() & mask);
         for l in 0..LANES {
-            let is_covered = self.counts[l] > 0;
-            covered[l] += u64::from(is_covered);
-            let weight = if is_covered { w[l] } else { 0.0 };
-            lanes[0][l] += weight;
-            lanes[1][l] += if self.wrong[l] { weight } else { 0.0 };
-            lanes[2][l] += if is_covered {
-                weight * self.brier[l]
-            } else {
-                0.0
-            };
-            lanes[3][l] += if is_covered {
-                -(weight * self.log_p[l])
-            } else {
-                0.0
-            };
+            let keep = 0u64.wrapping_sub(u64::from(self.counts[l] > 0));
+            let miss = keep & 0u64.wrapping_sub(u64::from(self.wrong[l]));
+            covered[l] += keep & 1;
+            lanes[0][l] += masked(w[l], keep);
+            lanes[1][l] += masked(w[l], miss);
+            lanes[2][l] += masked(w[l] * self.brier[l], keep);
+            lanes[3][l] += masked(-(w[l] * self.log_p[l]), keep);
         }
     }
 }
