@@ -110,6 +110,33 @@ pub trait CountValue: Copy + Send + Sync + 'static {
     fn is_zero(self) -> bool;
     /// `true` when the count is below zero (always `false` for unsigned types).
     fn is_negative(self) -> bool;
+    /// The count as a wide integer.
+    fn wide(self) -> i128;
+    /// The sum of a contiguous run of counts.
+    #[inline(always)]
+    fn run_total(values: &[Self]) -> i128 {
+        values.iter().map(|&c| c.wide()).sum()
+    }
+}
+
+/// Sum of a run of bytes, eight at a time in the 16-bit lanes of a u64 (the additions
+/// vectorise): a lane gains at most 2 × 255 per word, so 128 words fit before the lanes are
+/// added up.
+#[inline(always)]
+fn byte_total(values: &[u8]) -> i128 {
+    const LOW: u64 = 0x00ff_00ff_00ff_00ff;
+    let whole = values.len() / 8 * 8;
+    let mut total: u64 = values[whole..].iter().map(|&b| u64::from(b)).sum();
+    for run in values[..whole].chunks(8 * 128) {
+        let mut lanes = 0u64;
+        for word in run.chunks_exact(8) {
+            let x = u64::from_le_bytes(word.try_into().unwrap_or([0; 8]));
+            lanes += (x & LOW) + ((x >> 8) & LOW);
+        }
+        total +=
+            (lanes & 0xffff) + ((lanes >> 16) & 0xffff) + ((lanes >> 32) & 0xffff) + (lanes >> 48);
+    }
+    i128::from(total)
 }
 
 macro_rules! impl_count_value {
@@ -119,16 +146,49 @@ macro_rules! impl_count_value {
             fn is_zero(self) -> bool { self == 0 }
             #[inline]
             fn is_negative(self) -> bool { false }
+            #[inline]
+            fn wide(self) -> i128 { i128::from(self) }
         })*
         $(impl CountValue for $i {
             #[inline]
             fn is_zero(self) -> bool { self == 0 }
             #[inline]
             fn is_negative(self) -> bool { self < 0 }
+            #[inline]
+            fn wide(self) -> i128 { i128::from(self) }
         })*
     };
 }
-impl_count_value!(unsigned: u8, u16, u32, u64; signed: i8, i16, i32, i64);
+impl_count_value!(unsigned: u16, u32, u64; signed: i8, i16, i32, i64);
+
+impl CountValue for u8 {
+    #[inline]
+    fn is_zero(self) -> bool {
+        self == 0
+    }
+    #[inline]
+    fn is_negative(self) -> bool {
+        false
+    }
+    #[inline]
+    fn wide(self) -> i128 {
+        i128::from(self)
+    }
+    #[inline(always)]
+    fn run_total(values: &[Self]) -> i128 {
+        byte_total(values)
+    }
+}
+
+with_avx2! {
+    /// [`CountValue::run_total`] compiled for AVX2 when available.
+    fn run_total_dispatch[C: CountValue](values: &[C]) -> i128 = run_total_any
+}
+
+#[inline(always)] // so that the AVX2 wrapper compiles its own copy
+fn run_total_any<C: CountValue>(values: &[C]) -> i128 {
+    C::run_total(values)
+}
 
 /// A class label element: any integer type; valid labels are 0..n_classes.
 pub trait LabelValue: Copy + Send + Sync + 'static {
@@ -297,6 +357,9 @@ pub trait InBagCounts: Sync {
     /// # Errors
     /// `counts` when a count is negative.
     fn out_of_bag_flags(&self, member: usize, start: usize, flags: &mut [u8]) -> Result<()>;
+    /// The sum of `member`'s counts of the points `start..start + len` (read again right
+    /// after a pass over them, from the cache).
+    fn total(&self, member: usize, start: usize, len: usize) -> i128;
     /// Adds `(prediction, 1)` of every point `start + j` that is out of bag for each of the
     /// members `first..first + values.nrows()`, in order, into `acc[j]` (regression's fused
     /// pass).
@@ -358,6 +421,14 @@ impl<C: CountValue> InBagCounts for ArrayView2<'_, C> {
             return Err(negative_count(member, start + j));
         }
         Ok(())
+    }
+
+    fn total(&self, member: usize, start: usize, len: usize) -> i128 {
+        let row = self.slice(s![member, start..start + len]);
+        match row.as_slice() {
+            Some(values) => run_total_dispatch(values),
+            None => row.iter().map(|&c| c.wide()).sum(),
+        }
     }
 
     fn accumulate_values(
@@ -1153,7 +1224,7 @@ pub fn out_of_bag(
     out: PointOutputs<'_>,
     pool: &Pool,
     monitor: &dyn Monitor,
-) -> Result<OutOfBagPartial> {
+) -> Result<OutOfBagPass> {
     let (m, n) = members.dim();
     let task = members.task();
     let width = task.outputs();
@@ -1240,14 +1311,29 @@ pub fn out_of_bag(
         Some(job) => job.run(members, counts, y, weights, sizes, terms.as_ref()),
         None => Err(Error::value("members", "a block of points was run twice")),
     };
-    let merge = |sums: Vec<ErrorSums>| {
+    let mut count_total = 0i128;
+    let merge = |(sums, total): (Vec<ErrorSums>, i128)| {
         for (a, b) in state.curve.iter_mut().zip(&sums) {
             a.merge(b);
         }
+        count_total += total;
         Ok(())
     };
     for_chunks(chunks, &mut jobs, pool, monitor, work, merge)?;
-    Ok(state)
+    Ok(OutOfBagPass {
+        state,
+        count_total: count_total as f64,
+    })
+}
+
+/// The result of [`out_of_bag`] besides its per-point outputs.
+#[derive(Debug, Clone)]
+pub struct OutOfBagPass {
+    /// The mergeable loss sums.
+    pub state: OutOfBagPartial,
+    /// The sum of all in-bag counts (exact below 2^53), so that callers can tell counts
+    /// from drawn row indices without reading the counts again.
+    pub count_total: f64,
 }
 
 /// One block of points and its slices of the outputs.
@@ -1267,8 +1353,9 @@ impl Block<'_> {
         weights: Option<ArrayView1<'_, f64>>,
         sizes: &[usize],
         terms: Option<&VoteTerms>,
-    ) -> Result<Vec<ErrorSums>> {
+    ) -> Result<(Vec<ErrorSums>, i128)> {
         let rows = self.prediction.len();
+        let mut count_total = 0i128;
         let task = members.task();
         let width = task.outputs();
         let y = y.slice(s![self.start..self.start + rows]);
@@ -1315,14 +1402,19 @@ impl Block<'_> {
                     _ => 1,
                 };
                 let group = member..member + k;
-                let values = members.value_rows(group, self.start, rows).ok_or_else(|| {
-                    Error::value("members", "regression members must give value rows")
-                })?;
+                let values = members
+                    .value_rows(group.clone(), self.start, rows)
+                    .ok_or_else(|| {
+                        Error::value("members", "regression members must give value rows")
+                    })?;
                 let acc = Acc {
                     sums: &mut sums[..rows],
                     n: &mut n_oob[..rows],
                 };
                 counts.accumulate_values(member, self.start, values, acc)?;
+                for i in group {
+                    count_total += counts.total(i, self.start, rows);
+                }
                 member += k;
                 if next < sizes.len() && sizes[next] == member {
                     curve.push(evaluate_regression_dispatch(
@@ -1341,7 +1433,7 @@ impl Block<'_> {
                 self.n_oob[j] = n as i64;
                 self.prediction[j] = if n == 0.0 { f64::NAN } else { sum / n };
             }
-            return Ok(curve);
+            return Ok((curve, count_total));
         }
         let mut totals = members.class_totals(padded);
         let truth: Vec<u32> = targets.iter().map(|&t| t as u32).collect();
@@ -1349,6 +1441,7 @@ impl Block<'_> {
         let mut out_of_bag = vec![0u8; rows];
         for member in 0..m {
             counts.out_of_bag_flags(member, self.start, &mut out_of_bag)?;
+            count_total += counts.total(member, self.start, rows);
             members.add_classes(member, self.start, &out_of_bag, &mut totals)?;
             // Votes carry their points' out-of-bag counts (the sum of the lanes).
             if let ClassTotals::Probabilities(_) = totals {
@@ -1406,7 +1499,7 @@ impl Block<'_> {
                 }
             } as f64;
         }
-        Ok(curve)
+        Ok((curve, count_total))
     }
 }
 
@@ -1988,6 +2081,7 @@ mod tests {
         prediction: Vec<f64>,
         n_oob: Vec<i64>,
         probabilities: Vec<f64>,
+        count_total: f64,
         state: OutOfBagPartial,
     }
 
@@ -2007,7 +2101,7 @@ mod tests {
         let mut prediction = vec![0.0; n];
         let mut n_oob = vec![0; n];
         let mut probabilities = vec![0.0; n * width];
-        let state = out_of_bag(
+        let pass = out_of_bag(
             members,
             counts,
             ArrayView1::from(y),
@@ -2025,8 +2119,46 @@ mod tests {
             prediction,
             n_oob,
             probabilities,
-            state,
+            state: pass.state,
+            count_total: pass.count_total,
         })
+    }
+
+    #[test]
+    fn the_pass_returns_the_sum_of_the_counts_it_read() {
+        // Runs of 255 fill the 16-bit lanes of the byte sum to their limit (128 words:
+        // 65,280 per lane, and 261,120 over a word's four lanes); 70,001 points make
+        // several blocks and a ragged end.
+        let (m, n) = (3, 70_001);
+        let c8 = Array2::from_shape_fn((m, n), |(i, j)| {
+            if (j / 1024) % 2 == 0 {
+                255u8
+            } else {
+                ((i * 31 + j * 7) % 256) as u8
+            }
+        });
+        let expected: f64 = c8.iter().map(|&c| f64::from(c)).sum();
+        let (c16, c64) = (c8.mapv(u16::from), c8.mapv(i64::from));
+        let transposed = c8.t().to_owned();
+        let strided = transposed.t();
+        let values = Array2::from_shape_fn((m, n), |(i, j)| (i + j % 5) as f64);
+        let labels = Array2::from_shape_fn((m, n), |(i, j)| ((i + j) % 3) as u8);
+        let probabilities = Array3::from_elem((m, n, 2), 0.5);
+        let y: Vec<f64> = (0..n).map(|j| (j % 2) as f64).collect();
+        let labels = Labels::new(labels.view(), 3).unwrap();
+        let kinds: [&dyn MemberPredictions; 3] = [
+            &Values(values.view()),
+            &labels,
+            &Probabilities(probabilities.view()),
+        ];
+        let (v8, v16, v64) = (c8.view(), c16.view(), c64.view());
+        let all_counts: [&dyn InBagCounts; 4] = [&v8, &v16, &v64, &strided];
+        for members in kinds {
+            for counts in all_counts {
+                let out = run(members, counts, &y, None, &[1, 3], &Pool::Global).unwrap();
+                assert_eq!(out.count_total, expected);
+            }
+        }
     }
 
     #[test]
@@ -2637,6 +2769,7 @@ mod stored_tests {
             &Silent,
         )
         .unwrap()
+        .state
     }
 
     #[test]

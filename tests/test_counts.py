@@ -81,6 +81,20 @@ def test_row_indices_are_refused_with_the_conversion(caller):
     quietly(CALLERS[caller], members, converted, y)
 
 
+@pytest.mark.parametrize("dtype", [np.uint8, np.uint16, np.uint64])
+@pytest.mark.parametrize("caller", ["out_of_bag", "out_of_bag_stream"])
+def test_unsigned_row_indices_are_refused_after_the_pass_that_sums_them(caller, dtype):
+    # The out-of-bag pass sums unsigned counts as it reads them, and the check for indices
+    # runs on that sum after it: the refusal must be the one made up front elsewhere.
+    members, _, y = good_inputs()
+    drawn = indices().astype(dtype)
+    with pytest.raises(ValueError) as up_front:
+        in_bag_counts(drawn)
+    with pytest.raises(ValueError, match=r"^`counts`: looks like drawn row indices") as error:
+        quietly(CALLERS[caller], members, drawn, y)
+    assert str(error.value) == str(up_front.value)
+
+
 @pytest.mark.parametrize("caller", list(CALLERS))
 def test_boolean_masks_are_refused_with_the_conversion(caller):
     members, counts, y = good_inputs()

@@ -437,7 +437,7 @@ def _core_states():
     counts = _counts()
 
     def oob_feed(state, lo, hi):
-        part, _ = _core.out_of_bag_chunk(values[:, lo:hi], counts[:, lo:hi], y[lo:hi], None,
+        part, _, _ = _core.out_of_bag_chunk(values[:, lo:hi], counts[:, lo:hi], y[lo:hi], None,
                                          [1, M], "regression", None, None)
         return part if state is None else state.merge(part)
 

@@ -435,7 +435,7 @@ def test_stream_merge_of_two_halves_equals_the_whole_and_pickles(kind):
 
 def test_core_state_rejects_corrupt_bytes():
     members, counts, y = regression_data(n=50, m=6, seed=27)
-    state, _ = bagwise._core.out_of_bag_chunk(members, counts, y, None, [6], "regression")
+    state, _, _ = bagwise._core.out_of_bag_chunk(members, counts, y, None, [6], "regression")
     data = state.to_bytes()
     assert bagwise._core.OutOfBagState.from_bytes(data).n_points == 50
     with pytest.raises(ValueError, match="`data`"):

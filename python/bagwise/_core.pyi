@@ -534,6 +534,7 @@ def out_of_bag_chunk(
 ) -> tuple[
     OutOfBagState,
     tuple[npt.NDArray[np.float64], npt.NDArray[np.int64], npt.NDArray[np.float64] | None],
+    float,
 ]: ...
 def default_sizes(n_members: int) -> list[int]: ...
 

@@ -40,6 +40,7 @@ __all__ = [
     "INDEX_MEAN",
     "LARGEST_VALUE",
     "as_array",
+    "check_count_total",
     "in_bag_counts",
     "loss_for",
     "loss_option",
@@ -353,7 +354,8 @@ def _shape_text(shape) -> str:
 def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
                   n_rows: int | None = None, members_from: str = "members",
                   rows_from: str | None = None, min_members: int = 1, min_rows: int = 1,
-                  unsigned: bool = False, whole: bool = True) -> np.ndarray:
+                  unsigned: bool = False, whole: bool = True,
+                  total_from_pass: bool = False) -> np.ndarray:
     """The in-bag counts ``(n_members, n_rows)`` of an ensemble, checked to be counts.
 
     The one reader of ``counts``: every function that takes them calls it, so the same
@@ -364,7 +366,10 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
     ``n_members`` / ``n_rows`` are the members and training rows another argument fixes
     (``members_from`` / ``rows_from`` name it in the message); ``whole`` says the counts
     cover every training row (False for a chunk of a stream), which allows the check for
-    transposed counts when no other argument fixes the shape.
+    transposed counts when no other argument fixes the shape. ``total_from_pass`` says the
+    caller's own pass reads every count and returns their sum: with ``n_members`` given and
+    unsigned counts, the counts are then not read here, and the caller passes that sum to
+    `check_count_total` after its pass (the drawn-row-indices check below).
 
     Refused, each with a message saying what the array looks like and how to convert it:
 
@@ -414,7 +419,10 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
     if array.size == 0:
         raise ValueError(f"`{name}`: is empty (shape {array.shape})")
     sums = None
-    if dtype.itemsize <= 2:
+    # Unsigned counts whose members another argument fixes need only their total here,
+    # which the caller's pass returns: no second pass over them.
+    deferred = total_from_pass and n_members is not None and dtype.kind == "u"
+    if dtype.itemsize <= 2 and not deferred:
         # One parallel pass for the totals and the minimum (numpy's float64 row sums cast
         # every count and take longer than reading the members they come with).
         sums, low = _core.count_row_totals(array)
@@ -434,17 +442,10 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
                 f"(n_rows, n_members); pass `{name}.T` (one row per member)")
         raise ValueError(f"`{name}`: has shape {_shape_text(array.shape)} but `{members_from}` "
                          f"has {n_members:,} members (one row of counts per member)")
-    if sums is None:
-        sums = array.sum(axis=1, dtype=np.float64)
-    mean = float(sums.sum()) / array.size
-    if mean > INDEX_MEAN and _variance(array, mean) > INDEX_DISPERSION * mean:
-        raise ValueError(
-            f"`{name}`: looks like drawn row indices, not in-bag counts: shape "
-            f"{_shape_text(array.shape)} with values spanning {array.min()}..{array.max()}, "
-            f"each member's row summing to about {sums.mean():,.0f} where in-bag counts sum "
-            f"to the member's draws (about {columns:,}, one per training row). Counts hold "
-            "how many times each member drew each training row, one column per row; "
-            f"convert indices with {CONVERT_INDICES}")
+    if not deferred:
+        if sums is None:
+            sums = array.sum(axis=1, dtype=np.float64)
+        check_count_total(array, float(sums.sum()), name)
     if n_rows is not None and columns != n_rows:
         where = f"`{rows_from}` has" if rows_from else "expected"
         raise ValueError(f"`{name}`: has shape {_shape_text(array.shape)} but {where} "
@@ -467,6 +468,20 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
         # Same width, reinterpreted: no copy (the counts are non-negative).
         array = array.view(dtype.str.replace("i", "u"))
     return array
+
+
+def check_count_total(array: np.ndarray, total: float, name: str = "counts") -> None:
+    """Raises when in-bag counts ``array`` (n_members, n_rows) whose entries sum to
+    ``total`` look like drawn row indices (see `in_bag_counts`)."""
+    mean = total / array.size
+    if mean > INDEX_MEAN and _variance(array, mean) > INDEX_DISPERSION * mean:
+        raise ValueError(
+            f"`{name}`: looks like drawn row indices, not in-bag counts: shape "
+            f"{_shape_text(array.shape)} with values spanning {array.min()}..{array.max()}, "
+            f"each member's row summing to about {total / array.shape[0]:,.0f} where in-bag "
+            f"counts sum to the member's draws (about {array.shape[1]:,}, one per training "
+            "row). Counts hold how many times each member drew each training row, one "
+            f"column per row; convert indices with {CONVERT_INDICES}")
 
 
 def _variance(array: np.ndarray, mean: float) -> float:

@@ -9,7 +9,7 @@ import math
 import numpy as np
 
 from . import _chunked, _core
-from ._members import as_array, in_bag_counts, members_array, n_classes_of, targets
+from ._members import as_array, check_count_total, in_bag_counts, members_array, n_classes_of, targets
 from ._progress import all_or_nothing, progress_callback
 from ._results import Result
 from ._validation import n_jobs_value
@@ -70,8 +70,9 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earli
         raise ValueError(f"`members`: holds {kind} but earlier chunks held {earlier_kind}")
     n_members, n_points = members.shape[:2]
     # The members are the training rows' predictions: one column of counts per point.
+    # The core's pass returns the counts' total for the check `_checked_chunk` makes.
     counts = in_bag_counts(counts, n_members=n_members, n_rows=n_points, rows_from="members",
-                           whole=whole)
+                           whole=whole, total_from_pass=True)
     # Class targets may come as whole floats here (the core reads float64 targets).
     y = targets(y, "values" if kind == "regression" else kind, n_points, float_labels=True)
     n_classes = None
@@ -167,7 +168,9 @@ def _checked_chunk(arguments, earlier_kind=None, whole=True, callback=None, chec
                                  check_labels=True)
         result = _chunk(members, counts, y, point_weights, sizes, kind, n_classes, n_jobs,
                         callback)
-    return result, kind, loss
+    state, arrays, count_total = result
+    check_count_total(counts, count_total, "counts")
+    return (state, arrays), kind, loss
 
 
 def out_of_bag(members, counts, y, *, loss=None, point_weights=None, n_jobs=None,

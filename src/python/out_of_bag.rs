@@ -265,7 +265,8 @@ impl<'py> Outputs<'py> {
     }
 }
 
-/// Out-of-bag predictions of a chunk of points and its mergeable loss state.
+/// Out-of-bag predictions of a chunk of points, its mergeable loss state and the sum of its
+/// counts (for the check that they are counts, made without a second pass).
 ///
 /// `kind` is "regression", "labels" (needs `n_classes`) or "probabilities".
 #[pyfunction]
@@ -282,7 +283,7 @@ fn out_of_bag_chunk<'py>(
     n_classes: Option<usize>,
     n_jobs: Option<usize>,
     progress: Option<Py<PyAny>>,
-) -> PyResult<(PyOutOfBagState, ChunkArrays<'py>)> {
+) -> PyResult<(PyOutOfBagState, ChunkArrays<'py>, f64)> {
     let counts = IntArray::<Ix2>::extract(counts, "counts")?;
     let counts: Box<dyn InBagCounts + '_> = int_array!(&counts, a => Box::new(a.as_array()));
     let members = Members::extract(members, kind, n_classes)?;
@@ -294,10 +295,15 @@ fn out_of_bag_chunk<'py>(
         outputs.slices(),
     );
     let (predictions, counts) = (&*predictions, &*counts);
-    let inner = run_core(py, n_jobs, progress, |pool, monitor| {
+    let pass = run_core(py, n_jobs, progress, |pool, monitor| {
         out_of_bag(predictions, counts, y, weights, &sizes, out, pool, monitor)
     })?;
-    Ok((PyOutOfBagState { inner }, outputs.into_arrays()))
+    let inner = pass.state;
+    Ok((
+        PyOutOfBagState { inner },
+        outputs.into_arrays(),
+        pass.count_total,
+    ))
 }
 
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
