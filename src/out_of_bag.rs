@@ -1653,7 +1653,8 @@ fn evaluate_classes_general(
 }
 
 /// [`evaluate_classes_general`] for `C` classes, four points at a time in lane arrays that
-/// vectorise (the logarithm stays one call per point).
+/// vectorise. The logarithms of a sub-block are taken in a loop of their own: a call per
+/// point inside the four-point loop kept its lanes from staying in vector registers.
 #[inline(always)]
 fn evaluate_fixed_classes<const C: usize>(
     sums: &[f64],
@@ -1662,10 +1663,11 @@ fn evaluate_fixed_classes<const C: usize>(
     w: &[f64],
 ) -> ErrorSums {
     let mut e = ErrorSums::default();
+    let mut shares = [[1.0f64; LANES]; SUB_BLOCK / LANES];
+    let mut quads: [Option<QuadTerms>; SUB_BLOCK / LANES] = [const { None }; SUB_BLOCK / LANES];
     for points in sub_blocks(n_oob.len()) {
-        let mut lanes = [[0.0f64; LANES]; 4];
-        let mut covered = [0u64; LANES];
-        for j in points.step_by(LANES) {
+        let first = points.start;
+        for (q, j) in points.clone().step_by(LANES).enumerate() {
             let counts: [u32; LANES] = std::array::from_fn(|l| n_oob[j + l]);
             let point: [[f64; C]; LANES] =
                 std::array::from_fn(|l| std::array::from_fn(|c| sums[(j + l) * C + c]));
@@ -1683,20 +1685,32 @@ fn evaluate_fixed_classes<const C: usize>(
                     wrong[l] |= (s > target[l]) | ((s == target[l]) & (c < truth[l]));
                 }
             }
-            let log_p: [f64; LANES] = std::array::from_fn(|l| {
+            // An uncovered point's share is 1 (its log term, 0.0, is masked out anyway).
+            let share = std::array::from_fn::<f64, LANES, _>(|l| target[l] / count[l]);
+            shares[q] = std::array::from_fn(|l| {
+                let share = share[l].max(LOG_LOSS_FLOOR);
                 if counts[l] > 0 {
-                    (target[l] / count[l]).max(LOG_LOSS_FLOOR).ln()
+                    share
                 } else {
-                    0.0
+                    1.0
                 }
             });
-            let quad = QuadTerms {
+            quads[q] = Some(QuadTerms {
                 counts,
                 wrong,
                 brier,
-                log_p,
-            };
-            quad.add_to(&mut lanes, &mut covered, &w[j..j + LANES]);
+                log_p: [0.0; LANES],
+            });
+        }
+        let used = (points.end - first) / LANES;
+        let mut lanes = [[0.0f64; LANES]; 4];
+        let mut covered = [0u64; LANES];
+        for (q, (quad, share)) in quads[..used].iter_mut().zip(&shares).enumerate() {
+            if let Some(quad) = quad.as_mut() {
+                quad.log_p = share.map(f64::ln);
+                let j = first + q * LANES;
+                quad.add_to(&mut lanes, &mut covered, &w[j..j + LANES]);
+            }
         }
         e.add_lanes(covered.iter().sum(), lanes);
     }
