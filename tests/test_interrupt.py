@@ -39,6 +39,26 @@ def test_ctrl_c_stops_tree_prediction_and_the_bag_predicts_after():
     assert out.strip() == "True", out
 
 
+def test_ctrl_c_stops_a_neighbors_fit_while_it_reads_the_bags():
+    # A neighbors model keeps every member's bag: 1,500 members on 200,000 rows are about
+    # 3 GB of row indices and weights, seconds of work that were once read before the core
+    # call, holding the GIL and deaf to Ctrl-C.
+    setup = """
+        import numpy as np, bagwise
+        x = np.random.default_rng(0).normal(size=(200_000, 4))
+        y = x.sum(axis=1)
+        counts = bagwise.resample(200_000, 1_500, rng=0).counts
+        fit = bagwise._core.NeighborsEnsemble.fit
+    """
+    then = """
+        small = fit(x[:100], y[:100], np.ones((3, 100), dtype=np.uint8), task="regression")
+        print(small.n_members)
+    """
+    out, latency = ctrl_c(setup, 'fit(x, y, counts, task="regression")', then, after=0.3)
+    assert latency < STOPS_WITHIN, latency
+    assert out.strip() == "3", out
+
+
 def test_ctrl_c_stops_the_diagnostics_and_they_run_after():
     # `diagnose` runs every section (decomposition, size curve, correlation, ...) one after
     # the other, repeated: about a second per call on 200 members x 100,000 points.

@@ -9,7 +9,7 @@ use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
 use super::{run_core, to_py_err, zeros_nd, CountArray, FloatArray};
-use crate::learners::{bags, Bag, BagSource, CountBags, FittedMembers, Targets, Task};
+use crate::learners::{BagSource, CountBags, FittedMembers, Targets, Task};
 
 /// The training targets: float64 values for regression, int64 class codes otherwise.
 pub(super) enum YValues {
@@ -47,21 +47,6 @@ impl YValues {
             YValues::Codes(v) => Targets::Classes(v.as_slice().into()),
         }
     }
-}
-
-/// Reads members × rows in-bag counts (any unsigned integer dtype) or float64 weights.
-pub(super) fn read_bags(counts: &Bound<'_, PyAny>, n_rows: usize) -> PyResult<Vec<Bag>> {
-    macro_rules! try_as {
-        ($($t:ty),*) => {$(
-            if let Ok(a) = counts.extract::<PyReadonlyArray2<'_, $t>>() {
-                return bags(a.as_array(), n_rows).map_err(to_py_err);
-            }
-        )*};
-    }
-    try_as!(u8, u16, u32, u64, f64);
-    Err(PyTypeError::new_err(
-        "`counts`: expected a 2-D array of unsigned integer counts or float64 weights",
-    ))
 }
 
 /// `counts` (members, rows) of unsigned integer counts or float64 weights as a

@@ -4,10 +4,10 @@ use numpy::ndarray::Ix2;
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
-use super::learners::{self, count, read_bags, rows_of, YValues};
+use super::learners::{self, count, rows_of, with_bag_source, YValues};
 use super::{run_core, to_py_err, FloatArray};
 use crate::learners::neighbors::{NeighborsEnsemble, NeighborsParams};
-use crate::learners::{FittedMembers, Task};
+use crate::learners::{collect_bags, FittedMembers, Task};
 
 /// Bagged k-nearest-neighbour members (regression or classification).
 #[pyclass(module = "bagwise._core", name = "NeighborsEnsemble", frozen)]
@@ -38,10 +38,13 @@ impl PyNeighborsEnsemble {
         let neighbors = count(neighbors);
         let params = (NeighborsParams { task, neighbors }.check()).map_err(to_py_err)?;
         let x = FloatArray::<Ix2>::extract(x, "x")?;
-        let (y, bags) = (YValues::read(y, task)?, read_bags(counts, rows_of(&x))?);
-        let inner = with_float!(x, |a| run_core(py, n_jobs, progress, |_, monitor| {
-            params.fit(a, y.view(), bags, monitor)
-        }))?;
+        let y = YValues::read(y, task)?;
+        let inner = with_bag_source(counts, rows_of(&x), |source| {
+            let progress = progress.as_ref().map(|p| p.clone_ref(py));
+            with_float!(x, |a| run_core(py, n_jobs, progress, |pool, monitor| {
+                params.fit(a, y.view(), collect_bags(source, pool, monitor)?, monitor)
+            }))
+        })?;
         Ok(PyNeighborsEnsemble { inner })
     }
 
