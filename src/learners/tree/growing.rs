@@ -501,6 +501,7 @@ impl<'a> Grower<'a> {
             let w_total = total[0];
             let mut squares_left = 0.0;
             let mut squares_right: f64 = total[1..].iter().map(|c| c * c).sum();
+            let mut w_left = 0.0;
             for i in 0..keys.len().saturating_sub(1) {
                 let slot = (keys[i] & 0xFFFF_FFFF) as usize;
                 let w = self.weight[slot];
@@ -509,9 +510,11 @@ impl<'a> Grower<'a> {
                 squares_left += w * (2.0 * left[k] + w);
                 squares_right += w * (w - 2.0 * right_k);
                 left[k] += w;
-                left[0] += w;
+                // The left weight in a register: kept in `left[0]` it went through memory
+                // every row, the longest chain of the loop (store, reload, add).
+                w_left += w;
                 let (rank, next) = ((keys[i] >> 32) as u32, (keys[i + 1] >> 32) as u32);
-                let (wl, wr) = (left[0], w_total - left[0]);
+                let (wl, wr) = (w_left, w_total - w_left);
                 if rank == next || wl < self.min_leaf || wr < self.min_leaf {
                     continue;
                 }
