@@ -367,9 +367,9 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
     (``members_from`` / ``rows_from`` name it in the message); ``whole`` says the counts
     cover every training row (False for a chunk of a stream), which allows the check for
     transposed counts when no other argument fixes the shape. ``total_from_pass`` says the
-    caller's own pass reads every count and returns their sum: with ``n_members`` given and
-    unsigned counts, the counts are then not read here, and the caller passes that sum to
-    `check_count_total` after its pass (the drawn-row-indices check below).
+    caller's own pass reads every count and returns their sum: with ``n_members`` given, the
+    drawn-row-indices check below is left to the caller, who passes that sum to
+    `check_count_total` after its pass (unsigned counts are then not read here at all).
 
     Refused, each with a message saying what the array looks like and how to convert it:
 
@@ -419,10 +419,10 @@ def in_bag_counts(counts, name: str = "counts", *, n_members: int | None = None,
     if array.size == 0:
         raise ValueError(f"`{name}`: is empty (shape {array.shape})")
     sums = None
-    # Unsigned counts whose members another argument fixes need only their total here,
-    # which the caller's pass returns: no second pass over them.
-    deferred = total_from_pass and n_members is not None and dtype.kind == "u"
-    if dtype.itemsize <= 2 and not deferred:
+    # With the members fixed by another argument, the total comes from the caller's pass;
+    # only signed counts are still read here, for their minimum.
+    deferred = total_from_pass and n_members is not None
+    if dtype.itemsize <= 2 and not (deferred and dtype.kind == "u"):
         # One parallel pass for the totals and the minimum (numpy's float64 row sums cast
         # every count and take longer than reading the members they come with).
         sums, low = _core.count_row_totals(array)
