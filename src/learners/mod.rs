@@ -268,8 +268,7 @@ pub fn check_out(out: &[f64], expected: usize) -> Result<()> {
 /// # Errors
 /// As [`bags`].
 pub fn count_bags<C: Count>(counts: ArrayView2<'_, C>, n_rows: usize) -> Result<Vec<Bag>> {
-    let source = CountBags::of_counts(counts, n_rows)?;
-    (0..source.n_members()).map(|m| source.read(m)).collect()
+    CountBags::of_counts(counts, n_rows)?.read_all()
 }
 
 /// A row-weight element: in-bag counts (unsigned integers) or continuous weights (f64).
@@ -310,8 +309,7 @@ impl Bag {
 /// `counts` when a weight is negative or not finite, when its shape is not
 /// (members, `n_rows`), or when a member has no row with positive weight.
 pub fn bags<W: Weight>(counts: ArrayView2<'_, W>, n_rows: usize) -> Result<Vec<Bag>> {
-    let source = CountBags::new(counts, n_rows)?;
-    (0..source.n_members()).map(|m| source.read(m)).collect()
+    CountBags::new(counts, n_rows)?.read_all()
 }
 
 /// Every member's bag from `source`, members in parallel; a Ctrl-C stops the reading
@@ -412,6 +410,11 @@ impl<'a, W: Copy + Sync> CountBags<'a, W> {
             return Err(Error::value("counts", "needs at least one member (row)"));
         }
         Ok(CountBags { counts, weight })
+    }
+
+    /// Every member's bag, in order, on this thread.
+    fn read_all(&self) -> Result<Vec<Bag>> {
+        (0..self.counts.nrows()).map(|m| self.read(m)).collect()
     }
 
     /// The bag of member `m`.
