@@ -12,6 +12,7 @@ use super::ensemble::{Node, Tree, TreeEnsemble, LEAF};
 use super::parameters::{
     feature_stream_seed, CheckedTreeParams, Criterion, Splitter, TreeParams, AUTO_HISTOGRAM_ABOVE,
 };
+use super::value_counts::ValueCounts;
 use super::MAX_BINS;
 use crate::error::{Error, Result};
 use crate::learners::{Targets, Task};
@@ -83,11 +84,37 @@ fn set_bit(bits: &mut [u64], i: usize, value: bool) {
 }
 
 /// Slots ahead of a pass over a node's slots at which their data is prefetched.
-const SLOTS_AHEAD: usize = 16;
+pub(super) const SLOTS_AHEAD: usize = 16;
 
 /// Scores within this relative distance are ties, so that the tie rule does not depend on
 /// the rounding of sums accumulated in a different order (e.g. weighted vs repeated rows).
 pub(super) const SCORE_TIE: f64 = 1e-12;
+
+/// The lowest score worth computing in a node whose best so far is `node_best`: boundaries
+/// below `node_best · (1 − 1e-9)` can neither beat nor tie it (ties are within
+/// [`SCORE_TIE`]). Scores are ≥ 0 where it is used (regression, Gini), so 0 excludes nothing.
+pub(super) fn score_floor(node_best: Option<f64>) -> f64 {
+    node_best
+        .filter(|&b| b > 0.0)
+        .map_or(0.0, |b| b * (1.0 - 1e-9))
+}
+
+/// Within a feature, whether `score` replaces the best so far. Later boundaries have higher
+/// thresholds, so only a clearly higher score does (the tie rule of [`Split::beats`]).
+#[inline(always)]
+pub(super) fn clearly_better(score: f64, best: Option<f64>) -> bool {
+    best.is_none_or(|b| score > b + SCORE_TIE * score.abs().max(b.abs()))
+}
+
+/// Whether a boundary of score `a/wl + c/wr` (every term ≥ 0) may beat the feature's best
+/// so far and the floor: only if `a·wr + c·wl > b·wl·wr`. The products are exact to a few
+/// ulps, so testing that with a 1e-9 margin skips both divisions for nearly every boundary
+/// without changing which one wins.
+#[inline(always)]
+pub(super) fn may_beat(a: f64, c: f64, wl: f64, wr: f64, best: Option<f64>, floor: f64) -> bool {
+    let b = best.map_or(floor, |b| b.max(floor));
+    a < 0.0 || c < 0.0 || a * wr + c * wl > b * (wl * wr) * (1.0 - 1e-9)
+}
 
 impl Split {
     /// The deterministic order: a clearly higher score wins; scores equal to within
@@ -163,6 +190,9 @@ pub(super) struct Grower<'a> {
     /// Exact scans skip boundaries that cannot reach the node's best (see
     /// [`scan_exact`](Self::scan_exact)); off only in the test that shows it changes nothing.
     pub(super) skip_below_node_best: bool,
+    /// Classification: the features split from per-value class counts, which have no
+    /// sorted list (see [`value_counts`](super::value_counts)).
+    pub(super) value_counts: Option<ValueCounts>,
     // Output.
     pub(super) tree: Tree,
 }
@@ -174,6 +204,8 @@ pub(super) struct Pending {
     pub(super) depth: usize,
     pub(super) stats: Vec<f64>,
     pub(super) histogram: Option<Vec<f64>>,
+    /// The node's value-count table, when it came from its parent's.
+    pub(super) counts: Option<Vec<u32>>,
 }
 
 impl<'a> Grower<'a> {
@@ -270,6 +302,20 @@ impl<'a> Grower<'a> {
         } else {
             stats[1..].iter().any(|&c| c == stats[0])
         }
+    }
+
+    /// Whether a node becomes a leaf without a split search.
+    fn stops(&self, start: usize, end: usize, depth: usize, stats: &[f64]) -> bool {
+        self.config.max_depth.is_some_and(|d| depth >= d)
+            || stats[0] < 2.0 * self.min_leaf
+            || end - start < 2
+            || self.is_pure(start, end, stats)
+    }
+
+    /// Whether a node of `rows` rows splits its counted features from value counts: every
+    /// node searched exactly does, when the member has counted features.
+    fn counts_values(&self, rows: usize) -> bool {
+        self.value_counts.is_some() && !self.use_bins(rows)
     }
 
     pub(super) fn use_bins(&self, rows: usize) -> bool {
@@ -448,26 +494,15 @@ impl<'a> Grower<'a> {
         if keys.len() < 2 || keys[0] >> 32 == keys[keys.len() - 1] >> 32 {
             return (false, None);
         }
-        // Scores are ≥ 0 here (regression, Gini), so a floor of 0 would exclude nothing.
-        let floor = node_best
-            .filter(|&b| b > 0.0)
-            .map_or(0.0, |b| b * (1.0 - 1e-9));
+        let floor = score_floor(node_best);
         let mut valid = false;
         // (score, rank, next rank) of the best boundary so far; the threshold is looked up
-        // only for the node's winning split. Later boundaries have higher thresholds, so
-        // within a feature only a clearly higher score replaces the best (the tie rule of
-        // `Split::beats`).
+        // only for the node's winning split.
         let mut best: Option<(f64, u32, u32)> = None;
-        let clearly_better = |score: f64, best: &Option<(f64, u32, u32)>| {
-            best.is_none_or(|(b, _, _)| score > b + SCORE_TIE * score.abs().max(b.abs()))
-        };
-        // Scores here are a/wl + c/wr with every term ≥ 0, so a boundary can beat the best b
-        // only if a·wr + c·wl > b·wl·wr; the products are exact to a few ulps, so testing
-        // that with a 1e-9 margin first skips both divisions for nearly every row without
-        // changing which boundary wins.
+        let clearly_better =
+            |score: f64, best: &Option<(f64, u32, u32)>| clearly_better(score, best.map(|b| b.0));
         let may_beat = |a: f64, c: f64, wl: f64, wr: f64, best: &Option<(f64, u32, u32)>| {
-            let b = best.map_or(floor, |(b, _, _)| b.max(floor));
-            a < 0.0 || c < 0.0 || a * wr + c * wl > b * (wl * wr) * (1.0 - 1e-9)
+            may_beat(a, c, wl, wr, best.map(|b| b.0), floor)
         };
         if self.regression {
             let (w_total, s_total) = (total[0], total[1]);
@@ -563,6 +598,7 @@ impl<'a> Grower<'a> {
         end: usize,
         stats: &[f64],
         histogram: Option<&[f64]>,
+        counts: Option<&[u32]>,
     ) -> Option<Split> {
         let n_features = self.columns.n_features;
         let bins = self.use_bins(end - start);
@@ -589,7 +625,13 @@ impl<'a> Grower<'a> {
                 (found.is_some(), found)
             } else {
                 let node_best = best.filter(|_| g.skip_below_node_best).map(|b| b.score);
-                g.scan_exact(f, start, end, stats, node_best)
+                match (&g.value_counts, counts) {
+                    (Some(v), Some(table)) if v.counts(f) => {
+                        let counts = v.of_feature(f, g.columns.distinct[f].len(), table);
+                        g.scan_counts(f, counts, stats, node_best)
+                    }
+                    _ => g.scan_exact(f, start, end, stats, node_best),
+                }
             };
             if let Some(s) = found {
                 if s.beats(&best) {
@@ -636,7 +678,8 @@ impl<'a> Grower<'a> {
     pub(super) fn partition(&mut self, start: usize, end: usize, split: &Split) -> usize {
         let columns = self.columns;
         let n_in = self.slot_row.len();
-        if !self.sorted.is_empty() {
+        let counted = |f: usize| self.value_counts.as_ref().is_some_and(|v| v.counts(f));
+        if !self.sorted.is_empty() && !counted(split.feature) {
             // The split feature's sorted list, read in order: its first entries (rank ≤ the
             // cut's rank) go left. Bin codes grow with ranks, so a cut between bins is a
             // cut between ranks too.
@@ -679,8 +722,9 @@ impl<'a> Grower<'a> {
             let buffer = &mut self.buffer;
             buffer.resize(end - start, 0);
             for f in 0..columns.n_features {
-                if f == split.feature {
-                    // Its left side is already its first entries (see above).
+                if f == split.feature || counted(f) {
+                    // Its left side is already its first entries (see above), or it has
+                    // no list (split from value counts).
                     continue;
                 }
                 let list = &mut self.sorted[f * n_in + start..f * n_in + end];
@@ -734,6 +778,7 @@ impl<'a> Grower<'a> {
             depth: 0,
             stats: root_stats,
             histogram: root_histogram,
+            counts: None,
         }];
         while let Some(job) = stack.pop() {
             if stop.load(Ordering::Relaxed) {
@@ -746,20 +791,28 @@ impl<'a> Grower<'a> {
                 depth,
                 stats,
                 histogram,
+                mut counts,
             } = job;
-            let stop = self.config.max_depth.is_some_and(|d| depth >= d)
-                || stats[0] < 2.0 * self.min_leaf
-                || end - start < 2
-                || self.is_pure(start, end, &stats);
+            let stop = self.stops(start, end, depth, &stats);
+            if !stop && counts.is_none() && self.counts_values(end - start) {
+                let slots = &self.order[start..end];
+                counts = self
+                    .value_counts
+                    .as_mut()
+                    .map(|v| v.table(slots, &self.class));
+            }
             let split = if stop {
                 None
             } else {
-                self.best_split(start, end, &stats, histogram.as_deref())
+                self.best_split(start, end, &stats, histogram.as_deref(), counts.as_deref())
             };
             let Some(split) = split else {
                 self.make_leaf(node, &stats);
                 if let Some(h) = histogram {
                     self.spare_histograms.push(h);
+                }
+                if let (Some(v), Some(t)) = (&mut self.value_counts, counts) {
+                    v.recycle(t);
                 }
                 continue;
             };
@@ -801,6 +854,36 @@ impl<'a> Grower<'a> {
                     self.spare_histograms.push(parent);
                 }
             }
+            // The same for value counts, when the larger child searches a split.
+            let (mut left_counts, mut right_counts) = (None, None);
+            if let Some(mut parent) = counts {
+                let left_smaller = mid - start <= end - mid;
+                let (small, large, large_stats) = if left_smaller {
+                    ((start, mid), (mid, end), &right_stats)
+                } else {
+                    ((mid, end), (start, mid), &left_stats)
+                };
+                let large_searched = !self.stops(large.0, large.1, depth + 1, large_stats);
+                let v = self
+                    .value_counts
+                    .as_mut()
+                    .expect("counts come from value_counts");
+                if large_searched {
+                    let small_counts = v.table(&self.order[small.0..small.1], &self.class);
+                    parent
+                        .iter_mut()
+                        .zip(&small_counts)
+                        .for_each(|(p, s)| *p -= s);
+                    let small_counts = Some(small_counts);
+                    if left_smaller {
+                        (left_counts, right_counts) = (small_counts, Some(parent));
+                    } else {
+                        (left_counts, right_counts) = (Some(parent), small_counts);
+                    }
+                } else {
+                    v.recycle(parent);
+                }
+            }
             stack.push(Pending {
                 node: c + 1,
                 start: mid,
@@ -808,6 +891,7 @@ impl<'a> Grower<'a> {
                 depth: depth + 1,
                 stats: right_stats,
                 histogram: right_h,
+                counts: right_counts,
             });
             stack.push(Pending {
                 node: c,
@@ -816,6 +900,7 @@ impl<'a> Grower<'a> {
                 depth: depth + 1,
                 stats: left_stats,
                 histogram: left_h,
+                counts: left_counts,
             });
         }
         // The node and value vectors grew by doubling; a kept tree holds only what it uses
@@ -1026,6 +1111,20 @@ impl CheckedTreeParams {
         member: usize,
         draws: Draws,
     ) -> Grower<'c> {
+        self.grower_choosing(columns, target, in_bag, member, draws, true)
+    }
+
+    /// [`grower`](Self::grower), with value counts allowed or not (off only in the test
+    /// that shows they change no tree).
+    pub(super) fn grower_choosing<'c, C: Count>(
+        &'c self,
+        columns: &'c Columns,
+        target: &[f64],
+        in_bag: InBag<'_, C>,
+        member: usize,
+        draws: Draws,
+        use_value_counts: bool,
+    ) -> Grower<'c> {
         let p = &self.params;
         let (mut rows, mut weight) = (Vec::new(), Vec::new());
         match in_bag {
@@ -1061,6 +1160,21 @@ impl CheckedTreeParams {
         };
         let weight = if regression { Vec::new() } else { weight };
         let n_in = rows.len();
+        let stat_width = match p.task {
+            Task::Regression => 2,
+            Task::Classification { n_classes } => 1 + n_classes,
+        };
+        let value_counts = if regression
+            || !use_value_counts
+            || p.split_features.is_some()
+            || p.splitter == Splitter::Histogram
+        {
+            None
+        } else {
+            let rank = |f: usize, row: u32| columns.rank(f, row);
+            ValueCounts::new(&columns.distinct, rank, &rows, &weight, stat_width)
+        };
+        let counted = |f: usize| value_counts.as_ref().is_some_and(|v| v.counts(f));
         let mut sorted = Vec::new();
         if !columns.order.is_empty() {
             // Each feature's global value order restricted to the in-bag rows: sorted
@@ -1074,6 +1188,11 @@ impl CheckedTreeParams {
             sorted.resize(n_in * columns.n_features + 1, 0);
             let mut k = 0;
             for f in 0..columns.n_features {
+                if counted(f) {
+                    // Split from value counts: its part of the lists is left unused.
+                    k += n_in;
+                    continue;
+                }
                 let order = &columns.order[f * columns.n_rows..(f + 1) * columns.n_rows];
                 for &key in order {
                     let slot = slot_of_row[(key & 0xFFFF_FFFF) as usize];
@@ -1094,10 +1213,6 @@ impl CheckedTreeParams {
                 }
             }
             codes
-        };
-        let stat_width = match p.task {
-            Task::Regression => 2,
-            Task::Classification { n_classes } => 1 + n_classes,
         };
         Grower {
             columns,
@@ -1126,6 +1241,7 @@ impl CheckedTreeParams {
                 values: Vec::new(),
             },
             skip_below_node_best: true,
+            value_counts,
         }
     }
 }

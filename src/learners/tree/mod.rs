@@ -61,6 +61,7 @@ mod ensemble;
 mod format;
 mod growing;
 mod parameters;
+mod value_counts;
 
 pub use crate::learners::Targets;
 pub use ensemble::{Node, Tree, TreeEnsemble};
