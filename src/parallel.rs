@@ -108,6 +108,12 @@ impl Watch {
         self.stop.load(std::sync::atomic::Ordering::Relaxed)
     }
 
+    /// The stop flag itself, for work that checks it as a plain flag.
+    #[inline]
+    pub fn flag(&self) -> &std::sync::atomic::AtomicBool {
+        &self.stop
+    }
+
     /// Adds `units` finished units of work.
     #[inline]
     pub fn advance(&self, units: usize) {

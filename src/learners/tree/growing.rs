@@ -1,8 +1,7 @@
 //! Growing the member trees: the split search (exact, histogram, sparse bins) and the
 //! parallel fit of all members.
 
-use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
-use std::time::{Duration, Instant};
+use std::sync::atomic::{AtomicBool, Ordering};
 
 use ndarray::ArrayView2;
 use rayon::prelude::*;
@@ -17,7 +16,7 @@ use super::MAX_BINS;
 use crate::error::{Error, Result};
 use crate::learners::{Targets, Task};
 use crate::numeric::Real;
-use crate::parallel::{Monitor, Pool};
+use crate::parallel::{watched, Monitor, Pool};
 use crate::random::{Draws, MemberStreams};
 use crate::resampling::Count;
 
@@ -85,6 +84,9 @@ fn set_bit(bits: &mut [u64], i: usize, value: bool) {
 
 /// Slots ahead of a pass over a node's slots at which their data is prefetched.
 pub(super) const SLOTS_AHEAD: usize = 16;
+
+/// A feature without a sorted list (none are kept, or it is split from value counts).
+const NO_LIST: usize = usize::MAX;
 
 /// Scores within this relative distance are ties, so that the tie rule does not depend on
 /// the rounding of sums accumulated in a different order (e.g. weighted vs repeated rows).
@@ -173,8 +175,9 @@ pub(super) struct Grower<'a> {
     pub(super) slot_codes: Vec<u8>,
     /// The slots of each node's range `start..end`, in no particular order.
     pub(super) order: Vec<u32>,
-    /// Per feature, `rank << 32 | slot` sorted by rank within each node's range (kept
-    /// sorted by stable partitions, so exact scans never sort); empty for histograms only.
+    /// Per listed feature (see `list_of_feature`), `rank << 32 | slot` sorted by rank
+    /// within each node's range (kept sorted by stable partitions, so exact scans never
+    /// sort); empty for histograms only.
     pub(super) sorted: Vec<u64>,
     // Scratch, reused by every node.
     pub(super) keys: Vec<u64>,
@@ -193,6 +196,10 @@ pub(super) struct Grower<'a> {
     /// Classification: the features split from per-value class counts, which have no
     /// sorted list (see [`value_counts`](super::value_counts)).
     pub(super) value_counts: Option<ValueCounts>,
+    /// Per feature, the index of its list in `sorted`, or [`NO_LIST`].
+    pub(super) list_of_feature: Vec<usize>,
+    /// Scratch of [`scan_counts`](Self::scan_counts): the classes present in a node.
+    pub(super) present_classes: Vec<usize>,
     // Output.
     pub(super) tree: Tree,
 }
@@ -302,6 +309,13 @@ impl<'a> Grower<'a> {
         } else {
             stats[1..].iter().any(|&c| c == stats[0])
         }
+    }
+
+    /// Where feature `f`'s sorted list starts in `sorted`, if it has one.
+    #[inline]
+    fn list_start(&self, f: usize) -> Option<usize> {
+        let list = self.list_of_feature[f];
+        (list != NO_LIST && !self.sorted.is_empty()).then(|| list * self.slot_row.len())
     }
 
     /// Whether a node becomes a leaf without a split search.
@@ -487,8 +501,10 @@ impl<'a> Grower<'a> {
         total: &[f64],
         node_best: Option<f64>,
     ) -> (bool, Option<Split>) {
-        let n_in = self.slot_row.len();
-        let keys = &self.sorted[f * n_in + start..f * n_in + end];
+        let list = self
+            .list_start(f)
+            .expect("a feature scanned exactly has a sorted list");
+        let keys = &self.sorted[list + start..list + end];
         // Sorted by rank: a feature constant in the node offers no boundary (the scan below
         // would skip every row); its list is also left unpartitioned (see `partition`).
         if keys.len() < 2 || keys[0] >> 32 == keys[keys.len() - 1] >> 32 {
@@ -677,9 +693,7 @@ impl<'a> Grower<'a> {
     /// position.
     pub(super) fn partition(&mut self, start: usize, end: usize, split: &Split) -> usize {
         let columns = self.columns;
-        let n_in = self.slot_row.len();
-        let counted = |f: usize| self.value_counts.as_ref().is_some_and(|v| v.counts(f));
-        if !self.sorted.is_empty() && !counted(split.feature) {
+        if let Some(list) = self.list_start(split.feature) {
             // The split feature's sorted list, read in order: its first entries (rank ≤ the
             // cut's rank) go left. Bin codes grow with ranks, so a cut between bins is a
             // cut between ranks too.
@@ -689,7 +703,7 @@ impl<'a> Grower<'a> {
             } else {
                 split.cut
             };
-            for &key in &self.sorted[f * n_in + start..f * n_in + end] {
+            for &key in &self.sorted[list + start..list + end] {
                 set_bit(
                     &mut self.goes_left,
                     (key & 0xFFFF_FFFF) as usize,
@@ -721,13 +735,13 @@ impl<'a> Grower<'a> {
             let goes_left = &self.goes_left;
             let buffer = &mut self.buffer;
             buffer.resize(end - start, 0);
-            for f in 0..columns.n_features {
-                if f == split.feature || counted(f) {
-                    // Its left side is already its first entries (see above), or it has
-                    // no list (split from value counts).
+            let n_in = self.slot_row.len();
+            for (f, &list) in self.list_of_feature.iter().enumerate() {
+                // The split feature's left side is already its first entries (see above).
+                if list == NO_LIST || f == split.feature {
                     continue;
                 }
-                let list = &mut self.sorted[f * n_in + start..f * n_in + end];
+                let list = &mut self.sorted[list * n_in + start..list * n_in + end];
                 if list[0] >> 32 == list[list.len() - 1] >> 32 {
                     // Constant here, so constant in every descendant: the exact scan reads
                     // no slot of it again (it stops at the equal first and last ranks).
@@ -911,9 +925,6 @@ impl<'a> Grower<'a> {
     }
 }
 
-/// How often the calling thread reports progress (and so checks for Ctrl-C) during a fit.
-pub(super) const HEARTBEAT: Duration = Duration::from_millis(100);
-
 impl CheckedTreeParams {
     /// The checked parameters.
     pub fn params(&self) -> &TreeParams {
@@ -1036,49 +1047,25 @@ impl CheckedTreeParams {
         let columns = Columns::build(&x, bins, p.splitter != Splitter::Histogram, pool);
         let draws =
             MemberStreams::starting_at(feature_stream_seed(p.seed), first_member).take(members);
-        // The members grow on the pool in a worker thread while the calling thread reports
-        // the number finished every HEARTBEAT; an error from the monitor (Ctrl-C, a
-        // raising callback) raises `stop`, which every grower checks between nodes.
-        let stop = AtomicBool::new(false);
-        let finished = AtomicUsize::new(0);
-        let (grown, outcome) = std::thread::scope(|scope| {
-            let worker = scope.spawn(|| {
-                pool.run(|| {
-                    draws
-                        .into_par_iter()
-                        .enumerate()
-                        .map(|(m, d)| {
-                            let tree = self.grow_member(&columns, &target, in_bag, m, d, &stop);
-                            finished.fetch_add(1, Ordering::Relaxed);
-                            tree
-                        })
-                        .collect::<Vec<Option<Tree>>>()
+        // The members grow on the pool while the calling thread reports the number
+        // finished; a stop from the monitor (Ctrl-C, a raising callback) is checked by every
+        // grower between nodes. The call returns as soon as the last member is grown (it
+        // used to poll every 5 ms, which was most of a small fit).
+        let grown = watched(pool, monitor, members, |watch| {
+            draws
+                .into_par_iter()
+                .enumerate()
+                .map(|(m, d)| {
+                    let tree = self.grow_member(&columns, &target, in_bag, m, d, watch.flag());
+                    watch.advance(1);
+                    tree
                 })
-            });
-            let mut outcome = Ok(());
-            let mut last = Instant::now();
-            while !worker.is_finished() {
-                std::thread::sleep(Duration::from_millis(5));
-                if outcome.is_ok() && last.elapsed() >= HEARTBEAT {
-                    last = Instant::now();
-                    let done = finished.load(Ordering::Relaxed);
-                    if let Err(e) = monitor.progress(done, members) {
-                        stop.store(true, Ordering::Relaxed);
-                        outcome = Err(e);
-                    }
-                }
-            }
-            let grown = worker
-                .join()
-                .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
-            (grown, outcome)
-        });
-        outcome?;
+                .collect::<Vec<Option<Tree>>>()
+        })?;
         let trees: Vec<Tree> = grown
             .into_iter()
             .collect::<Option<_>>()
             .ok_or(Error::Interrupted)?;
-        monitor.progress(members, members)?;
         Ok(TreeEnsemble {
             task: p.task,
             n_features,
@@ -1174,9 +1161,17 @@ impl CheckedTreeParams {
             let rank = |f: usize, row: u32| columns.rank(f, row);
             ValueCounts::new(&columns.distinct, rank, &rows, &weight, stat_width)
         };
-        let counted = |f: usize| value_counts.as_ref().is_some_and(|v| v.counts(f));
+        // Sorted lists for the features not split from value counts.
+        let mut list_of_feature = vec![NO_LIST; columns.n_features];
         let mut sorted = Vec::new();
         if !columns.order.is_empty() {
+            let mut n_lists = 0;
+            for (f, list) in list_of_feature.iter_mut().enumerate() {
+                if !value_counts.as_ref().is_some_and(|v| v.counts(f)) {
+                    *list = n_lists;
+                    n_lists += 1;
+                }
+            }
             // Each feature's global value order restricted to the in-bag rows: sorted
             // lists in O(features · rows), no sort per member.
             let mut slot_of_row = vec![u32::MAX; columns.n_rows];
@@ -1185,14 +1180,9 @@ impl CheckedTreeParams {
                 .for_each(|(slot, &r)| slot_of_row[r as usize] = slot as u32);
             // One spare entry: every row is written, and the position advances only for
             // in-bag rows (no branch on a draw's outcome).
-            sorted.resize(n_in * columns.n_features + 1, 0);
+            sorted.resize(n_in * n_lists + 1, 0);
             let mut k = 0;
-            for f in 0..columns.n_features {
-                if counted(f) {
-                    // Split from value counts: its part of the lists is left unused.
-                    k += n_in;
-                    continue;
-                }
+            for f in (0..columns.n_features).filter(|&f| list_of_feature[f] != NO_LIST) {
                 let order = &columns.order[f * columns.n_rows..(f + 1) * columns.n_rows];
                 for &key in order {
                     let slot = slot_of_row[(key & 0xFFFF_FFFF) as usize];
@@ -1200,7 +1190,7 @@ impl CheckedTreeParams {
                     k += usize::from(slot != u32::MAX);
                 }
             }
-            sorted.truncate(n_in * columns.n_features);
+            sorted.truncate(n_in * n_lists);
         }
         let slot_codes = if columns.codes.is_empty() {
             Vec::new()
@@ -1242,6 +1232,8 @@ impl CheckedTreeParams {
             },
             skip_below_node_best: true,
             value_counts,
+            list_of_feature,
+            present_classes: Vec::new(),
         }
     }
 }

@@ -138,6 +138,27 @@ impl ValueCounts {
     }
 }
 
+/// `Σ_k left_k²` and `Σ_k (total_k − left_k)²` over the classes `present`, in four
+/// independent sums (the terms are exact integers, so any order gives the same bits).
+#[inline(always)]
+fn squares(left: &[f64], total: &[f64], present: &[usize]) -> (f64, f64) {
+    let (mut a, mut c) = ([0.0; 4], [0.0; 4]);
+    let mut quads = present.chunks_exact(4);
+    for quad in &mut quads {
+        for j in 0..4 {
+            let (l, t) = (left[quad[j]], total[quad[j]]);
+            a[j] += l * l;
+            c[j] += (t - l) * (t - l);
+        }
+    }
+    for (j, &k) in quads.remainder().iter().enumerate() {
+        let (l, t) = (left[k], total[k]);
+        a[j] += l * l;
+        c[j] += (t - l) * (t - l);
+    }
+    ((a[0] + a[1]) + (a[2] + a[3]), (c[0] + c[1]) + (c[2] + c[3]))
+}
+
 impl Grower<'_> {
     /// [`scan_exact`](Self::scan_exact) of counted feature `f`, from its part `counts` of
     /// the node's table: the same boundaries in the same order, each scored from the same
@@ -152,9 +173,15 @@ impl Grower<'_> {
         let width = self.stat_width;
         let floor = score_floor(node_best);
         let w_total = total[0];
-        let class_totals: Vec<u64> = total[1..].iter().map(|&c| c as u64).collect();
-        let mut left_counts = vec![0u64; width - 1];
-        let mut w_left = 0u64;
+        // Counts are integers below 2^26 (see MAX_COUNTED_WEIGHT), so in f64 they, their
+        // squares and the sums of those are exact, whatever the order.
+        let mut left = std::mem::take(&mut self.left);
+        left.iter_mut().for_each(|v| *v = 0.0);
+        // The classes present in the node: the others' counts are zero in every value, and
+        // adding exact zeros changes no sum (deep nodes hold two or three classes).
+        let mut present = std::mem::take(&mut self.present_classes);
+        present.clear();
+        present.extend((1..width).filter(|&k| total[k] > 0.0));
         let mut valid = false;
         let mut best: Option<(f64, u32, u32)> = None;
         // The last value seen in the node: a boundary lies between it and the next one.
@@ -164,48 +191,28 @@ impl Grower<'_> {
                 continue;
             }
             if let Some(cut) = previous {
-                let (wl, wr) = (w_left as f64, w_total - w_left as f64);
+                let (wl, wr) = (left[0], w_total - left[0]);
                 if wl >= self.min_leaf && wr >= self.min_leaf {
                     valid = true;
-                    let score = match self.config.criterion {
-                        Criterion::Gini => {
-                            let mut squares_left = 0u64;
-                            let mut squares_right = 0u64;
-                            for (&l, &t) in left_counts.iter().zip(&class_totals) {
-                                squares_left += l * l;
-                                squares_right += (t - l) * (t - l);
-                            }
-                            let (a, c) = (squares_left as f64, squares_right as f64);
-                            if may_beat(a, c, wl, wr, best.map(|b| b.0), floor) {
-                                Some(a / wl + c / wr)
-                            } else {
-                                None
-                            }
-                        }
-                        _ => {
-                            let mut left = std::mem::take(&mut self.left);
-                            left[0] = wl;
-                            left[1..]
-                                .iter_mut()
-                                .zip(&left_counts)
-                                .for_each(|(l, &c)| *l = c as f64);
-                            let score = self.proxy(&left, None) + self.proxy(total, Some(&left));
-                            self.left = left;
-                            Some(score)
-                        }
+                    let score = if self.config.criterion == Criterion::Gini {
+                        let (a, c) = squares(&left, total, &present);
+                        may_beat(a, c, wl, wr, best.map(|b| b.0), floor).then(|| a / wl + c / wr)
+                    } else {
+                        Some(self.proxy(&left, None) + self.proxy(total, Some(&left)))
                     };
                     if let Some(score) = score.filter(|&s| clearly_better(s, best.map(|b| b.0))) {
                         best = Some((score, cut as u32, value as u32));
                     }
                 }
             }
-            w_left += u64::from(bin[0]);
-            left_counts
-                .iter_mut()
-                .zip(&bin[1..])
-                .for_each(|(l, &c)| *l += u64::from(c));
+            left[0] += f64::from(bin[0]);
+            for &k in &present {
+                left[k] += f64::from(bin[k]);
+            }
             previous = Some(value);
         }
+        self.left = left;
+        self.present_classes = present;
         let best = best.map(|(score, cut, next)| Split {
             score,
             feature: f,
