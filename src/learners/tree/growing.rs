@@ -200,6 +200,8 @@ pub(super) struct Grower<'a> {
     pub(super) list_of_feature: Vec<usize>,
     /// Scratch of [`scan_counts`](Self::scan_counts): the classes present in a node.
     pub(super) present_classes: Vec<usize>,
+    /// Scratch of [`scan_counts`](Self::scan_counts): the values present in a node.
+    pub(super) present_values: Vec<u32>,
     // Output.
     pub(super) tree: Tree,
 }
@@ -1192,7 +1194,14 @@ impl CheckedTreeParams {
             }
             sorted.truncate(n_in * n_lists);
         }
-        let slot_codes = if columns.codes.is_empty() {
+        // Only full histograms read them, and only nodes above SPARSE_BINS_UP_TO rows (and
+        // AUTO_HISTOGRAM_ABOVE under 'auto') build those.
+        let dense_nodes = match p.splitter {
+            Splitter::Exact => false,
+            Splitter::Histogram => n_in > SPARSE_BINS_UP_TO,
+            Splitter::Auto => n_in > AUTO_HISTOGRAM_ABOVE.max(SPARSE_BINS_UP_TO),
+        };
+        let slot_codes = if columns.codes.is_empty() || !dense_nodes {
             Vec::new()
         } else {
             let mut codes = vec![0u8; n_in * columns.n_features];
@@ -1234,6 +1243,7 @@ impl CheckedTreeParams {
             value_counts,
             list_of_feature,
             present_classes: Vec::new(),
+            present_values: Vec::new(),
         }
     }
 }

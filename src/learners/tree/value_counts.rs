@@ -182,15 +182,22 @@ impl Grower<'_> {
         let mut present = std::mem::take(&mut self.present_classes);
         present.clear();
         present.extend((1..width).filter(|&k| total[k] > 0.0));
+        // The values present in the node, gathered without a branch per value (which
+        // would be mispredicted about as often as not).
+        let mut values = std::mem::take(&mut self.present_values);
+        values.clear();
+        values.resize(counts.len() / width + 1, 0);
+        let mut n_values = 0;
+        for (value, bin) in counts.chunks_exact(width).enumerate() {
+            values[n_values] = value as u32;
+            n_values += usize::from(bin[0] != 0);
+        }
         let mut valid = false;
         let mut best: Option<(f64, u32, u32)> = None;
-        // The last value seen in the node: a boundary lies between it and the next one.
-        let mut previous: Option<usize> = None;
-        for (value, bin) in counts.chunks_exact(width).enumerate() {
-            if bin[0] == 0 {
-                continue;
-            }
-            if let Some(cut) = previous {
+        for i in 0..n_values {
+            let value = values[i] as usize;
+            if i > 0 {
+                // The boundary between the previous value present and this one.
                 let (wl, wr) = (left[0], w_total - left[0]);
                 if wl >= self.min_leaf && wr >= self.min_leaf {
                     valid = true;
@@ -201,16 +208,17 @@ impl Grower<'_> {
                         Some(self.proxy(&left, None) + self.proxy(total, Some(&left)))
                     };
                     if let Some(score) = score.filter(|&s| clearly_better(s, best.map(|b| b.0))) {
-                        best = Some((score, cut as u32, value as u32));
+                        best = Some((score, values[i - 1], value as u32));
                     }
                 }
             }
+            let bin = &counts[value * width..(value + 1) * width];
             left[0] += f64::from(bin[0]);
             for &k in &present {
                 left[k] += f64::from(bin[k]);
             }
-            previous = Some(value);
         }
+        self.present_values = values;
         self.left = left;
         self.present_classes = present;
         let best = best.map(|(score, cut, next)| Split {
