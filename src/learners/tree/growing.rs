@@ -622,6 +622,13 @@ impl<'a> Grower<'a> {
         let bins = self.use_bins(end - start);
         let dense = self.dense_bins(end - start);
         let block = MAX_BINS * self.stat_width;
+        if counts.is_some() {
+            // For the value-count scans: the others' counts are zero in every value, and
+            // adding exact zeros changes no sum (deep nodes hold two or three classes).
+            self.present_classes.clear();
+            let present = (1..self.stat_width).filter(|&k| stats[k] > 0.0);
+            self.present_classes.extend(present);
+        }
         let mut best: Option<Split> = None;
         let mut try_feature = |g: &mut Self, f: usize| -> bool {
             let (valid, found) = if bins && !dense {

@@ -66,8 +66,11 @@ impl ValueCounts {
         for (f, values) in distinct.iter().enumerate() {
             if values.len() <= FEW_VALUES {
                 start[f] = table_len;
-                counted.push(f);
-                table_len += values.len() * stat_width;
+                // A feature of one value never splits: it has no part of the table.
+                if values.len() > 1 {
+                    counted.push(f);
+                    table_len += values.len() * stat_width;
+                }
             }
         }
         if counted.is_empty() {
@@ -97,7 +100,12 @@ impl ValueCounts {
 
     /// Feature `f`'s part of a node's table (`f` counted, with `n_values` distinct values).
     pub(super) fn of_feature<'t>(&self, f: usize, n_values: usize, table: &'t [u32]) -> &'t [u32] {
-        &table[self.start[f]..self.start[f] + n_values * self.width]
+        let len = if n_values > 1 {
+            n_values * self.width
+        } else {
+            0
+        };
+        &table[self.start[f]..self.start[f] + len]
     }
 
     /// A table, zeroed.
@@ -177,11 +185,8 @@ impl Grower<'_> {
         // squares and the sums of those are exact, whatever the order.
         let mut left = std::mem::take(&mut self.left);
         left.iter_mut().for_each(|v| *v = 0.0);
-        // The classes present in the node: the others' counts are zero in every value, and
-        // adding exact zeros changes no sum (deep nodes hold two or three classes).
-        let mut present = std::mem::take(&mut self.present_classes);
-        present.clear();
-        present.extend((1..width).filter(|&k| total[k] > 0.0));
+        // The classes present in the node (see `best_split`).
+        let present = std::mem::take(&mut self.present_classes);
         // The values present in the node, gathered without a branch per value (which
         // would be mispredicted about as often as not).
         let mut values = std::mem::take(&mut self.present_values);
@@ -273,13 +278,13 @@ mod tests {
     #[test]
     fn value_counts_change_no_tree() {
         // Features of 2, 5, 17 and 64 values (counted) beside ones of 65 and 1,000+ values
-        // (sorted lists), three classes tied to two of them with noise; both criteria, both
+        // (sorted lists) and, last, one of a single value (no part of the table); three classes tied to two of them with noise; both criteria, both
         // exact searches, a depth limit and a leaf minimum, bootstrap weights. Rows above
         // 2,048 so that 'auto' hands binned parents' children to the exact search.
         let rows = 3000;
         let x = concatenate(
             Axis(1),
-            &[2, 5, 17, 64, 65, 0]
+            &[2, 5, 17, 64, 65, 0, 1]
                 .map(|levels| data(rows, 1, 40 + levels as u64, levels))
                 .iter()
                 .map(|a| a.view())
