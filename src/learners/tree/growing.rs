@@ -11,7 +11,7 @@ use super::ensemble::{Node, Tree, TreeEnsemble, LEAF};
 use super::parameters::{
     feature_stream_seed, CheckedTreeParams, Criterion, Splitter, TreeParams, AUTO_HISTOGRAM_ABOVE,
 };
-use super::value_counts::ValueCounts;
+use super::value_counts::{Part, Table, ValueCounts};
 use super::MAX_BINS;
 use crate::error::{Error, Result};
 use crate::learners::{Targets, Task};
@@ -214,7 +214,7 @@ pub(super) struct Pending {
     pub(super) stats: Vec<f64>,
     pub(super) histogram: Option<Vec<f64>>,
     /// The node's value-count table, when it came from its parent's.
-    pub(super) counts: Option<Vec<u32>>,
+    pub(super) counts: Option<Table>,
 }
 
 impl<'a> Grower<'a> {
@@ -616,7 +616,7 @@ impl<'a> Grower<'a> {
         end: usize,
         stats: &[f64],
         histogram: Option<&[f64]>,
-        counts: Option<&[u32]>,
+        counts: Option<&Table>,
     ) -> Option<Split> {
         let n_features = self.columns.n_features;
         let bins = self.use_bins(end - start);
@@ -652,8 +652,10 @@ impl<'a> Grower<'a> {
                 let node_best = best.filter(|_| g.skip_below_node_best).map(|b| b.score);
                 match (&g.value_counts, counts) {
                     (Some(v), Some(table)) if v.counts(f) => {
-                        let counts = v.of_feature(f, g.columns.distinct[f].len(), table);
-                        g.scan_counts(f, counts, stats, node_best)
+                        match v.of_feature(f, g.columns.distinct[f].len(), table) {
+                            Part::Narrow(counts) => g.scan_counts(f, counts, stats, node_best),
+                            Part::Wide(counts) => g.scan_counts(f, counts, stats, node_best),
+                        }
                     }
                     _ => g.scan_exact(f, start, end, stats, node_best),
                 }
@@ -827,7 +829,7 @@ impl<'a> Grower<'a> {
             let split = if stop {
                 None
             } else {
-                self.best_split(start, end, &stats, histogram.as_deref(), counts.as_deref())
+                self.best_split(start, end, &stats, histogram.as_deref(), counts.as_ref())
             };
             let Some(split) = split else {
                 self.make_leaf(node, &stats);
@@ -840,6 +842,11 @@ impl<'a> Grower<'a> {
                 continue;
             };
             let mid = self.partition(start, end, &split);
+            // A split with an empty side would grow the same node again, without end.
+            assert!(
+                start < mid && mid < end,
+                "a split leaves rows on both sides"
+            );
             let left_stats = self.stats_of(start, mid);
             let right_stats = self.stats_of(mid, end);
             let c = self.tree.nodes.len();
@@ -893,10 +900,7 @@ impl<'a> Grower<'a> {
                     .expect("counts come from value_counts");
                 if large_searched {
                     let small_counts = v.table(&self.order[small.0..small.1], &self.class);
-                    parent
-                        .iter_mut()
-                        .zip(&small_counts)
-                        .for_each(|(p, s)| *p -= s);
+                    ValueCounts::subtract(&mut parent, &small_counts);
                     let small_counts = Some(small_counts);
                     if left_smaller {
                         (left_counts, right_counts) = (small_counts, Some(parent));
