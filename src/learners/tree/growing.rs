@@ -1098,25 +1098,14 @@ impl CheckedTreeParams {
         if stop.load(Ordering::Relaxed) {
             return None;
         }
-        self.grower(columns, target, in_bag, member, draws)
+        self.grower(columns, target, in_bag, member, draws, true)
             .grow(stop)
     }
 
-    /// The grower of member `member`, its in-bag rows and sorted lists set up.
+    /// The grower of member `member`, its in-bag rows and sorted lists set up; value counts
+    /// are used where they apply when `use_value_counts` (off only in the test that shows
+    /// they change no tree).
     pub(super) fn grower<'c, C: Count>(
-        &'c self,
-        columns: &'c Columns,
-        target: &[f64],
-        in_bag: InBag<'_, C>,
-        member: usize,
-        draws: Draws,
-    ) -> Grower<'c> {
-        self.grower_choosing(columns, target, in_bag, member, draws, true)
-    }
-
-    /// [`grower`](Self::grower), with value counts allowed or not (off only in the test
-    /// that shows they change no tree).
-    pub(super) fn grower_choosing<'c, C: Count>(
         &'c self,
         columns: &'c Columns,
         target: &[f64],
@@ -1319,7 +1308,7 @@ mod tests {
                     let grow = |skip: bool| {
                         let draws = MemberStreams::starting_at(7, m).take(1).remove(0);
                         let in_bag = InBag::Counts(counts.view());
-                        let mut g = config.grower(&columns, &target, in_bag, m, draws);
+                        let mut g = config.grower(&columns, &target, in_bag, m, draws, true);
                         g.skip_below_node_best = skip;
                         g.grow(&stop).unwrap()
                     };
@@ -1360,6 +1349,7 @@ mod tests {
                 InBag::Counts(counts.view()),
                 0,
                 draws,
+                true,
             );
             let stats = g.stats_of(0, rows);
             let mean = stats[1] / stats[0];

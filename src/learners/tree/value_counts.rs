@@ -339,7 +339,7 @@ mod tests {
                 let grow = |counting: bool| {
                     let draws = MemberStreams::starting_at(7, m).take(1).remove(0);
                     let in_bag = InBag::Counts(counts.view());
-                    let g = config.grower_choosing(&columns, target, in_bag, m, draws, counting);
+                    let g = config.grower(&columns, target, in_bag, m, draws, counting);
                     // Whether it counts, and in u16.
                     let counted = g.value_counts.as_ref().map(|v| v.narrow);
                     (g.grow(&stop).unwrap(), counted)
