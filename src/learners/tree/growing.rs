@@ -1194,26 +1194,7 @@ impl CheckedTreeParams {
             }
             sorted.truncate(n_in * n_lists);
         }
-        // Only full histograms read them, and only nodes above SPARSE_BINS_UP_TO rows (and
-        // AUTO_HISTOGRAM_ABOVE under 'auto') build those.
-        let dense_nodes = match p.splitter {
-            Splitter::Exact => false,
-            Splitter::Histogram => n_in > SPARSE_BINS_UP_TO,
-            Splitter::Auto => n_in > AUTO_HISTOGRAM_ABOVE.max(SPARSE_BINS_UP_TO),
-        };
-        let slot_codes = if columns.codes.is_empty() || !dense_nodes {
-            Vec::new()
-        } else {
-            let mut codes = vec![0u8; n_in * columns.n_features];
-            for f in 0..columns.n_features {
-                let column = &columns.codes[f * columns.n_rows..(f + 1) * columns.n_rows];
-                for (slot, &r) in rows.iter().enumerate() {
-                    codes[slot * columns.n_features + f] = column[r as usize];
-                }
-            }
-            codes
-        };
-        Grower {
+        let mut grower = Grower {
             columns,
             config: p,
             regression,
@@ -1225,7 +1206,7 @@ impl CheckedTreeParams {
             target: target_pos,
             weighted_target,
             class,
-            slot_codes,
+            slot_codes: Vec::new(),
             sorted,
             keys: Vec::new(),
             goes_left: vec![0; n_in.div_ceil(64)],
@@ -1244,7 +1225,20 @@ impl CheckedTreeParams {
             list_of_feature,
             present_classes: Vec::new(),
             present_values: Vec::new(),
+        };
+        // Only full histograms read them: none without a dense node (the root is the
+        // largest).
+        if !columns.codes.is_empty() && grower.dense_bins(n_in) {
+            let mut codes = vec![0u8; n_in * columns.n_features];
+            for f in 0..columns.n_features {
+                let column = &columns.codes[f * columns.n_rows..(f + 1) * columns.n_rows];
+                for (slot, &r) in grower.slot_row.iter().enumerate() {
+                    codes[slot * columns.n_features + f] = column[r as usize];
+                }
+            }
+            grower.slot_codes = codes;
         }
+        grower
     }
 }
 
