@@ -466,11 +466,15 @@ impl Counts {
     }
 }
 
-/// Members handled between two monitor calls: about 2^22 draws per thread, so a chunk
+/// Members handled between two monitor calls: about 2^22 draws per thread (at least four
+/// members), so a chunk
 /// takes a few milliseconds and Ctrl-C is noticed quickly.
 fn chunk_members(draws_per_member: usize, threads: usize) -> usize {
-    let per_thread = (1usize << 22) / draws_per_member.max(1);
-    (per_thread.max(1) * threads.max(1)).max(1)
+    // A multiple of four per thread: the bootstrap draws members four at a time.
+    let per_thread = ((1usize << 22) / draws_per_member.max(1))
+        .max(1)
+        .next_multiple_of(4);
+    per_thread * threads.max(1)
 }
 
 impl Resampler {
@@ -679,11 +683,20 @@ impl Resampler {
                 monitor,
             );
         }
+        let by_four = matches!(self.plan, Plan::Rows { .. })
+            && self.scheme == Scheme::Bootstrap
+            && n <= u32::MAX as usize;
         let mut done = 0;
         for block in out.chunks_mut(chunk * n) {
             let k = block.len() / n;
             let mut draws = streams.take(k);
             pool.run(|| {
+                if by_four {
+                    return block
+                        .par_chunks_mut(4 * n)
+                        .zip(draws.par_chunks_mut(4))
+                        .try_for_each(|(rows, d)| self.fill_bootstrap_by_four(d, rows));
+                }
                 block
                     .par_chunks_mut(n)
                     .zip(draws.par_iter_mut())
@@ -730,6 +743,32 @@ impl Resampler {
             });
             done += k;
             monitor.progress(done, members)?;
+        }
+        Ok(())
+    }
+
+    /// Bootstrap counts of up to four members into `rows` (row-major, zeros on entry): four
+    /// members' draws side by side, each exactly its own stream's (fewer members one by one).
+    fn fill_bootstrap_by_four<T: Count>(&self, draws: &mut [Draws], rows: &mut [T]) -> Result<()> {
+        let Plan::Rows { draws: count } = self.plan else {
+            unreachable!("only the plain bootstrap is drawn by four")
+        };
+        let n = self.n_rows;
+        let [a, b, c, d] = draws else {
+            return draws
+                .iter_mut()
+                .zip(rows.chunks_mut(n))
+                .try_for_each(|(d, row)| self.fill_member(d, row));
+        };
+        let mut parts = rows.chunks_exact_mut(n);
+        let mut lanes: [&mut [T]; 4] = std::array::from_fn(|_| parts.next().expect("four rows"));
+        Draws::for_each_below_by_four([a, b, c, d], n, count, |lane, i| {
+            debug_assert!(i < n);
+            // SAFETY: the draws lie below n = the length of every row (as in `fill_member`).
+            unsafe { lanes[lane].get_unchecked_mut(i) }.increment_unchecked();
+        });
+        if lanes.iter().any(|row| wrapped(row, count)) {
+            return Err(Error::CountOverflow { max: T::MAX });
         }
         Ok(())
     }
