@@ -3,7 +3,7 @@
 Run with ``make bench`` (release build). Each contender runs in its own subprocess so its
 peak resident memory can be read from ``getrusage`` without the other's allocations.
 
-    python tests/bench/bench_resampling.py [--rows 1000000] [--members 1000] [--processes 3]
+    python tests/bench/bench_resampling.py [--rows 1000000] [--members 1000] [--processes 5]
 """
 
 from __future__ import annotations
@@ -55,18 +55,10 @@ print(json.dumps({"seconds": seconds, "warm": min(warm), "peak_extra_mib": peak,
 """
 
 
-def touch_memory(mib: int) -> None:
-    """Writes `mib` MiB once in a throwaway process. On a virtual machine the first write to
-    guest memory that was never used costs the host's fault as well (a fresh process's first
-    200 MiB took 0.15 or 0.27 s by luck); afterwards the system hands out memory that is
-    backed, to both contenders alike, and the first-call figures measure the resampling."""
-    subprocess.run([sys.executable, "-c", f"import numpy as np; np.ones({mib} << 20, np.uint8)"],
-                   check=True)
-
-
 def measure(which: str, rows: int, members: int, processes: int) -> dict:
-    """The median over `processes` fresh processes of each timing (one process's first call
-    moved by a sixth from run to run, either contender)."""
+    """The median over `processes` fresh processes of each timing. On this virtual machine a
+    fresh process's first write to 190 MiB took 0.02-0.41 s by luck (numpy alike), so a single
+    first call of bagwise moved between 0.14 and 0.40 s; later calls stay within a tenth."""
     runs = []
     for _ in range(processes):
         out = subprocess.run([sys.executable, "-c", CHILD, str(rows), str(members), which],
@@ -82,9 +74,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, default=1_000_000)
     parser.add_argument("--members", type=int, default=1000)
-    parser.add_argument("--processes", type=int, default=3)
+    parser.add_argument("--processes", type=int, default=5)
     args = parser.parse_args()
-    touch_memory(3 * args.rows * args.members >> 20)
     ref = measure("numpy", args.rows, args.members, args.processes)
     ours = measure("bagwise", args.rows, args.members, args.processes)
     print(f"resample({args.rows:,}, {args.members:,}) bootstrap counts "
