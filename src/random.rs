@@ -334,24 +334,22 @@ impl StateLanes {
     ) -> [usize; 4] {
         #[cfg(target_arch = "x86_64")]
         {
-            #[target_feature(enable = "avx2,avx512f,avx512vl")]
-            unsafe fn avx512(
-                state: &mut StateLanes,
-                bound: u32,
-                count: usize,
-                visit: &mut impl FnMut(usize, usize),
-            ) -> [usize; 4] {
-                state.draw_by_four(bound, count, visit)
+            /// `draw_by_four` compiled with `$features` (it is inlined into each copy).
+            macro_rules! compiled_with {
+                ($features:literal, $name:ident) => {
+                    #[target_feature(enable = $features)]
+                    unsafe fn $name(
+                        state: &mut StateLanes,
+                        bound: u32,
+                        count: usize,
+                        visit: &mut impl FnMut(usize, usize),
+                    ) -> [usize; 4] {
+                        state.draw_by_four(bound, count, visit)
+                    }
+                };
             }
-            #[target_feature(enable = "avx2")]
-            unsafe fn avx2(
-                state: &mut StateLanes,
-                bound: u32,
-                count: usize,
-                visit: &mut impl FnMut(usize, usize),
-            ) -> [usize; 4] {
-                state.draw_by_four(bound, count, visit)
-            }
+            compiled_with!("avx2,avx512f,avx512vl", avx512);
+            compiled_with!("avx2", avx2);
             if std::arch::is_x86_feature_detected!("avx512f")
                 && std::arch::is_x86_feature_detected!("avx512vl")
                 && std::arch::is_x86_feature_detected!("avx2")
