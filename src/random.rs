@@ -156,7 +156,7 @@ impl Draws {
     }
 
     /// [`for_each_below`](Draws::for_each_below) on four streams at once: `visit(lane, k)`
-    /// receives, for each lane in turn, the `count` integers in `0..bound` that stream
+    /// receives, for each lane, the `count` integers in `0..bound` that stream
     /// `lanes[lane]` alone would give, in its order, and every stream ends where its own
     /// call would have left it. The four generators advance side by side in vector lanes
     /// (the bootstrap is bound by the generator's arithmetic, not by its memory traffic);

@@ -467,8 +467,7 @@ impl Counts {
 }
 
 /// Members handled between two monitor calls: about 2^22 draws per thread (at least four
-/// members), so a chunk
-/// takes a few milliseconds and Ctrl-C is noticed quickly.
+/// members), so a chunk takes a few milliseconds and Ctrl-C is noticed quickly.
 fn chunk_members(draws_per_member: usize, threads: usize) -> usize {
     // A multiple of four per thread: the bootstrap draws members four at a time.
     let per_thread = ((1usize << 22) / draws_per_member.max(1))
