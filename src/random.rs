@@ -168,14 +168,24 @@ impl Draws {
         count: usize,
         mut visit: impl FnMut(usize, usize),
     ) {
-        if bound > u32::MAX as usize || lanes.iter().any(|d| d.has_spare) {
+        if bound > u32::MAX as usize {
             for (lane, d) in lanes.into_iter().enumerate() {
                 d.for_each_below(bound, count, |k| visit(lane, k));
             }
             return;
         }
+        let bound32 = bound as u32;
+        // A lane that starts on a spare half uses it first, as `for_each_below` does.
+        let mut first = [0usize; 4];
+        let mut lanes = lanes;
+        for (lane, d) in lanes.iter_mut().enumerate() {
+            while first[lane] < count && d.has_spare {
+                visit(lane, d.below_u32(bound32) as usize);
+                first[lane] += 1;
+            }
+        }
         let mut state = StateLanes::of(&lanes);
-        let done = state.draw_by_four_dispatch(bound as u32, count, &mut visit);
+        let done = state.draw_by_four_dispatch(bound32, count, first, &mut visit);
         assert!(
             done.iter().all(|&d| d <= count),
             "a lane drew past its count"
@@ -279,21 +289,24 @@ impl StateLanes {
     }
 
     /// The two-per-word loop of [`Draws::for_each_below`] on all lanes while every lane
-    /// still needs two draws; the draws made per lane. A half is accepted as there (Lemire
-    /// 2019); a word with a rejected half in some lane (about 2 in 10^4 at a million rows)
-    /// takes the per-half path.
+    /// still needs two draws, lane `l` having made `first[l]` already; the draws made per
+    /// lane, those included. A half is accepted as there (Lemire 2019); a word with a
+    /// rejected half in some lane (about 2 in 10^4 at a million rows) takes the per-half
+    /// path.
     #[inline(always)]
     fn draw_by_four(
         &mut self,
         bound: u32,
         count: usize,
+        first: [usize; 4],
         visit: &mut impl FnMut(usize, usize),
     ) -> [usize; 4] {
         let threshold = u64::from(bound.wrapping_neg() % bound);
         let bound = u64::from(bound);
         // Draws per lane: twice the words without a rejection, plus `extra[l]` from the
-        // others (one test of the most per word, not four).
-        let (mut clean_words, mut extra, mut most_extra) = (0usize, [0usize; 4], 0usize);
+        // others and before (one test of the most per word, not four).
+        let mut extra = first;
+        let (mut clean_words, mut most_extra) = (0usize, first.into_iter().max().unwrap_or(0));
         while 2 * clean_words + most_extra + 2 <= count {
             let words = self.next();
             let high: [u64; 4] = std::array::from_fn(|l| (words[l] >> 32) * bound);
@@ -330,6 +343,7 @@ impl StateLanes {
         &mut self,
         bound: u32,
         count: usize,
+        first: [usize; 4],
         visit: &mut impl FnMut(usize, usize),
     ) -> [usize; 4] {
         #[cfg(target_arch = "x86_64")]
@@ -342,9 +356,10 @@ impl StateLanes {
                         state: &mut StateLanes,
                         bound: u32,
                         count: usize,
+                        first: [usize; 4],
                         visit: &mut impl FnMut(usize, usize),
                     ) -> [usize; 4] {
-                        state.draw_by_four(bound, count, visit)
+                        state.draw_by_four(bound, count, first, visit)
                     }
                 };
             }
@@ -355,14 +370,14 @@ impl StateLanes {
                 && std::arch::is_x86_feature_detected!("avx2")
             {
                 // SAFETY: the processor supports AVX-512F/VL (and so AVX2), checked here.
-                return unsafe { avx512(self, bound, count, visit) };
+                return unsafe { avx512(self, bound, count, first, visit) };
             }
             if std::arch::is_x86_feature_detected!("avx2") {
                 // SAFETY: the processor supports AVX2 (checked just above).
-                return unsafe { avx2(self, bound, count, visit) };
+                return unsafe { avx2(self, bound, count, first, visit) };
             }
         }
-        self.draw_by_four(bound, count, visit)
+        self.draw_by_four(bound, count, first, visit)
     }
 }
 
@@ -421,8 +436,8 @@ mod tests {
     }
 
     /// Four streams drawn side by side give each stream's own draws, in its order, and
-    /// leave each where a call of its own would (also through the per-lane tail and with a
-    /// stream that starts on a spare half).
+    /// leave each where a call of its own would (also through the per-lane tail and with
+    /// one or every stream starting on a spare half, as after a stratum of an odd count).
     #[test]
     fn draws_by_four_equal_four_single_streams() {
         // 2^31 + 1 rejects almost half the halves; 3 · 2^32 takes the 64-bit path.
@@ -437,11 +452,11 @@ mod tests {
         ];
         for bound in bounds {
             for count in [0usize, 1, 2, 3, 7, 64, 5001] {
-                for spare_lane in [None, Some(2)] {
+                for spare_lanes in [&[][..], &[2], &[0, 1, 2, 3]] {
                     let mut streams = MemberStreams::new(bound as u64 ^ 99);
                     let mut single = streams.take(4);
                     let mut by_four = single.clone();
-                    if let Some(l) = spare_lane {
+                    for &l in spare_lanes {
                         assert_eq!(single[l].below(5), by_four[l].below(5));
                     }
                     let expected: Vec<Vec<usize>> = single
@@ -480,10 +495,13 @@ mod tests {
             };
             let (mut portable, mut dispatched) = (refs(&mut first), refs(&mut second));
             let (mut seen_portable, mut seen_dispatched) = (Vec::new(), Vec::new());
+            let first = [0, 1, 0, 2];
             let done_portable =
-                portable.draw_by_four(bound, 999, &mut |l, k| seen_portable.push((l, k)));
-            let done_dispatched = dispatched
-                .draw_by_four_dispatch(bound, 999, &mut |l, k| seen_dispatched.push((l, k)));
+                portable.draw_by_four(bound, 999, first, &mut |l, k| seen_portable.push((l, k)));
+            let done_dispatched =
+                dispatched.draw_by_four_dispatch(bound, 999, first, &mut |l, k| {
+                    seen_dispatched.push((l, k))
+                });
             assert_eq!(done_portable, done_dispatched);
             assert_eq!(seen_portable, seen_dispatched);
             assert_eq!(portable.words, dispatched.words);

@@ -682,9 +682,8 @@ impl Resampler {
                 monitor,
             );
         }
-        let by_four = matches!(self.plan, Plan::Rows { .. })
-            && self.scheme == Scheme::Bootstrap
-            && n <= u32::MAX as usize;
+        let by_four = matches!(self.plan, Plan::Rows { .. } | Plan::Strata { .. })
+            && self.scheme == Scheme::Bootstrap;
         let mut done = 0;
         for block in out.chunks_mut(chunk * n) {
             let k = block.len() / n;
@@ -746,12 +745,10 @@ impl Resampler {
         Ok(())
     }
 
-    /// Bootstrap counts of up to four members into `rows` (row-major, zeros on entry): four
-    /// members' draws side by side, each exactly its own stream's (fewer members one by one).
+    /// Bootstrap counts of up to four members into `rows` (row-major, zeros on entry), plain
+    /// or stratified: four members' draws side by side, each exactly its own stream's
+    /// (fewer members one by one).
     fn fill_bootstrap_by_four<T: Count>(&self, draws: &mut [Draws], rows: &mut [T]) -> Result<()> {
-        let Plan::Rows { draws: count } = self.plan else {
-            unreachable!("only the plain bootstrap is drawn by four")
-        };
         let n = self.n_rows;
         let [a, b, c, d] = draws else {
             return draws
@@ -761,12 +758,28 @@ impl Resampler {
         };
         let mut parts = rows.chunks_exact_mut(n);
         let mut lanes: [&mut [T]; 4] = std::array::from_fn(|_| parts.next().expect("four rows"));
-        Draws::for_each_below_by_four([a, b, c, d], n, count, |lane, i| {
-            debug_assert!(i < n);
-            // SAFETY: the draws lie below n = the length of every row (as in `fill_member`).
-            unsafe { lanes[lane].get_unchecked_mut(i) }.increment_unchecked();
-        });
-        if lanes.iter().any(|row| wrapped(row, count)) {
+        let total = match &self.plan {
+            Plan::Rows { draws: count } => {
+                Draws::for_each_below_by_four([a, b, c, d], n, *count, |lane, i| {
+                    debug_assert!(i < n);
+                    // SAFETY: the draws lie below n = every row's length (as in `fill_member`).
+                    unsafe { lanes[lane].get_unchecked_mut(i) }.increment_unchecked();
+                });
+                *count
+            }
+            Plan::Strata { strata, draws } => {
+                for (s, &m) in draws.iter().enumerate() {
+                    let members = strata.members(s);
+                    let streams = [&mut *a, &mut *b, &mut *c, &mut *d];
+                    Draws::for_each_below_by_four(streams, members.len(), m, |lane, i| {
+                        lanes[lane][members[i]].increment_unchecked();
+                    });
+                }
+                draws.iter().sum()
+            }
+            _ => unreachable!("only the plain and stratified bootstrap are drawn by four"),
+        };
+        if lanes.iter().any(|row| wrapped(row, total)) {
             return Err(Error::CountOverflow { max: T::MAX });
         }
         Ok(())
@@ -1180,6 +1193,24 @@ mod tests {
         assert!(as_u64(&full.counts(0, 3, &POOL, &Silent).unwrap())
             .iter()
             .all(|&v| v == 1));
+    }
+
+    /// Members drawn four at a time (plain, and stratified with strata of odd sizes, so
+    /// streams enter the next stratum on a spare half) get the counts each member's own
+    /// stream gives it alone; 10 members leave a group of two, drawn one by one.
+    #[test]
+    fn members_drawn_by_four_equal_members_drawn_alone() {
+        let codes: Vec<usize> = (0..301).map(|i| [0, 1, 1, 2, 2, 2, 2][i % 7]).collect();
+        for design in [Design::Rows, Design::Strata(codes)] {
+            let r = plan(301, Scheme::Bootstrap, 1.0, design);
+            let by_four = r.counts_as::<u8>(8, 10, &POOL, &Silent).unwrap();
+            let mut streams = MemberStreams::new(8).take(10);
+            for (m, d) in streams.iter_mut().enumerate() {
+                let mut alone = vec![0u8; 301];
+                r.fill_member(d, &mut alone).unwrap();
+                assert_eq!(by_four.row(m).to_vec(), alone, "member {m}");
+            }
+        }
     }
 
     #[test]
