@@ -184,8 +184,9 @@ impl Draws {
                 first[lane] += 1;
             }
         }
-        let mut state = StateLanes::of(&lanes);
-        let done = state.draw_by_four_dispatch(bound32, count, first, &mut visit);
+        let mut state = StateLanes::of(&lanes, first);
+        state.draw_by_four_dispatch(bound32, count, &mut visit);
+        let done = state.drawn;
         assert!(
             done.iter().all(|&d| d <= count),
             "a lane drew past its count"
@@ -236,10 +237,13 @@ impl Draws {
 /// that one step of all four is a handful of vector operations.
 struct StateLanes {
     words: [[u64; 4]; 4],
+    /// The draws each lane has made in the current call.
+    drawn: [usize; 4],
 }
 
 impl StateLanes {
-    fn of(lanes: &[&mut Draws; 4]) -> Self {
+    /// The states of `lanes`, which have made `drawn` draws of the call already.
+    fn of(lanes: &[&mut Draws; 4], drawn: [usize; 4]) -> Self {
         let mut words = [[0u64; 4]; 4];
         for (l, d) in lanes.iter().enumerate() {
             let bytes = d.rng.state();
@@ -249,7 +253,7 @@ impl StateLanes {
                 word[l] = u64::from_le_bytes(le);
             }
         }
-        StateLanes { words }
+        StateLanes { words, drawn }
     }
 
     /// Puts each lane's state back into its stream (an exact round trip: a reachable
@@ -289,24 +293,17 @@ impl StateLanes {
     }
 
     /// The two-per-word loop of [`Draws::for_each_below`] on all lanes while every lane
-    /// still needs two draws, lane `l` having made `first[l]` already; the draws made per
-    /// lane, those included. A half is accepted as there (Lemire 2019); a word with a
-    /// rejected half in some lane (about 2 in 10^4 at a million rows) takes the per-half
-    /// path.
+    /// still needs two draws of `count`, counted in `drawn`. A half is accepted as there
+    /// (Lemire 2019); a word with a rejected half in some lane (about 2 in 10^4 at a
+    /// million rows) takes the per-half path.
     #[inline(always)]
-    fn draw_by_four(
-        &mut self,
-        bound: u32,
-        count: usize,
-        first: [usize; 4],
-        visit: &mut impl FnMut(usize, usize),
-    ) -> [usize; 4] {
+    fn draw_by_four(&mut self, bound: u32, count: usize, visit: &mut impl FnMut(usize, usize)) {
         let threshold = u64::from(bound.wrapping_neg() % bound);
         let bound = u64::from(bound);
         // Draws per lane: twice the words without a rejection, plus `extra[l]` from the
         // others and before (one test of the most per word, not four).
-        let mut extra = first;
-        let (mut clean_words, mut most_extra) = (0usize, first.into_iter().max().unwrap_or(0));
+        let mut extra = self.drawn;
+        let (mut clean_words, mut most_extra) = (0usize, extra.into_iter().max().unwrap_or(0));
         while 2 * clean_words + most_extra + 2 <= count {
             let words = self.next();
             let high: [u64; 4] = std::array::from_fn(|l| (words[l] >> 32) * bound);
@@ -334,7 +331,7 @@ impl StateLanes {
                 clean_words += 1;
             }
         }
-        extra.map(|e| 2 * clean_words + e)
+        self.drawn = extra.map(|e| 2 * clean_words + e);
     }
 
     /// [`draw_by_four`](StateLanes::draw_by_four) compiled for AVX-512 (vector rotates)
@@ -343,9 +340,8 @@ impl StateLanes {
         &mut self,
         bound: u32,
         count: usize,
-        first: [usize; 4],
         visit: &mut impl FnMut(usize, usize),
-    ) -> [usize; 4] {
+    ) {
         #[cfg(target_arch = "x86_64")]
         {
             /// `draw_by_four` compiled with `$features` (it is inlined into each copy).
@@ -356,10 +352,9 @@ impl StateLanes {
                         state: &mut StateLanes,
                         bound: u32,
                         count: usize,
-                        first: [usize; 4],
                         visit: &mut impl FnMut(usize, usize),
-                    ) -> [usize; 4] {
-                        state.draw_by_four(bound, count, first, visit)
+                    ) {
+                        state.draw_by_four(bound, count, visit)
                     }
                 };
             }
@@ -370,14 +365,14 @@ impl StateLanes {
                 && std::arch::is_x86_feature_detected!("avx2")
             {
                 // SAFETY: the processor supports AVX-512F/VL (and so AVX2), checked here.
-                return unsafe { avx512(self, bound, count, first, visit) };
+                return unsafe { avx512(self, bound, count, visit) };
             }
             if std::arch::is_x86_feature_detected!("avx2") {
                 // SAFETY: the processor supports AVX2 (checked just above).
-                return unsafe { avx2(self, bound, count, first, visit) };
+                return unsafe { avx2(self, bound, count, visit) };
             }
         }
-        self.draw_by_four(bound, count, first, visit)
+        self.draw_by_four(bound, count, visit)
     }
 }
 
@@ -491,18 +486,13 @@ mod tests {
                 let [a, b, c, d] = &mut v[..] else {
                     unreachable!()
                 };
-                StateLanes::of(&[a, b, c, d])
+                StateLanes::of(&[a, b, c, d], [0, 1, 0, 2])
             };
             let (mut portable, mut dispatched) = (refs(&mut first), refs(&mut second));
             let (mut seen_portable, mut seen_dispatched) = (Vec::new(), Vec::new());
-            let first = [0, 1, 0, 2];
-            let done_portable =
-                portable.draw_by_four(bound, 999, first, &mut |l, k| seen_portable.push((l, k)));
-            let done_dispatched =
-                dispatched.draw_by_four_dispatch(bound, 999, first, &mut |l, k| {
-                    seen_dispatched.push((l, k))
-                });
-            assert_eq!(done_portable, done_dispatched);
+            portable.draw_by_four(bound, 999, &mut |l, k| seen_portable.push((l, k)));
+            dispatched.draw_by_four_dispatch(bound, 999, &mut |l, k| seen_dispatched.push((l, k)));
+            assert_eq!(portable.drawn, dispatched.drawn);
             assert_eq!(seen_portable, seen_dispatched);
             assert_eq!(portable.words, dispatched.words);
         }
