@@ -163,7 +163,7 @@ impl Draws {
     /// the integer operations are those of the single stream, so the draws are identical.
     /// The visits of different lanes interleave: only each lane's own order is kept.
     pub fn for_each_below_by_four(
-        lanes: [&mut Draws; 4],
+        mut lanes: [&mut Draws; 4],
         bound: usize,
         count: usize,
         mut visit: impl FnMut(usize, usize),
@@ -177,7 +177,6 @@ impl Draws {
         let bound32 = bound as u32;
         // A lane that starts on a spare half uses it first, as `for_each_below` does.
         let mut first = [0usize; 4];
-        let mut lanes = lanes;
         for (lane, d) in lanes.iter_mut().enumerate() {
             while first[lane] < count && d.has_spare {
                 visit(lane, d.below_u32(bound32) as usize);
