@@ -1201,6 +1201,46 @@ fn block_points(task: Task, points: usize, bytes_per_point: usize) -> usize {
     cached.min(shared.max(4096)).max(SUB_BLOCK)
 }
 
+/// The targets of the points: values or class indices as floats, or class indices as
+/// integers, read as they are (a float copy of a million integer classes is 8 MB and a
+/// pass).
+#[derive(Debug, Clone, Copy)]
+pub enum Targets<'a> {
+    Floats(ArrayView1<'a, f64>),
+    Integers(ArrayView1<'a, i64>),
+}
+
+impl Targets<'_> {
+    /// The number of points.
+    pub fn len(&self) -> usize {
+        match self {
+            Targets::Floats(y) => y.len(),
+            Targets::Integers(y) => y.len(),
+        }
+    }
+
+    /// Whether there are no points.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Writes the targets of the points `start..start + out.len()` into `out` as floats
+    /// (integer classes are exact below 2^53; larger ones are out of range either way).
+    fn copy_into(&self, start: usize, out: &mut [f64]) {
+        let rows = start..start + out.len();
+        match self {
+            Targets::Floats(y) => out
+                .iter_mut()
+                .zip(y.slice(s![rows]))
+                .for_each(|(t, &v)| *t = v),
+            Targets::Integers(y) => out
+                .iter_mut()
+                .zip(y.slice(s![rows]))
+                .for_each(|(t, &v)| *t = v as f64),
+        }
+    }
+}
+
 /// Out-of-bag predictions of every point and the error curve over the first k members.
 ///
 /// `members` are predictions on the training points (see the module documentation for the
@@ -1218,7 +1258,7 @@ fn block_points(task: Task, points: usize, bytes_per_point: usize) -> usize {
 pub fn out_of_bag(
     members: &dyn MemberPredictions,
     counts: &dyn InBagCounts,
-    y: ArrayView1<'_, f64>,
+    y: Targets<'_>,
     weights: Option<ArrayView1<'_, f64>>,
     sizes: &[usize],
     out: PointOutputs<'_>,
@@ -1349,7 +1389,7 @@ impl Block<'_> {
         self,
         members: &dyn MemberPredictions,
         counts: &dyn InBagCounts,
-        y: ArrayView1<'_, f64>,
+        y: Targets<'_>,
         weights: Option<ArrayView1<'_, f64>>,
         sizes: &[usize],
         terms: Option<&VoteTerms>,
@@ -1358,9 +1398,12 @@ impl Block<'_> {
         let mut count_total = 0i128;
         let task = members.task();
         let width = task.outputs();
-        let y = y.slice(s![self.start..self.start + rows]);
         let weights = weights.map(|w| w.slice_move(s![self.start..self.start + rows]));
-        check_targets(task, y, self.start)?;
+        // Buffers padded to whole lanes; padding points have no OOB member and weight 0.
+        let padded = rows.div_ceil(LANES) * LANES;
+        let mut targets = vec![0.0; padded];
+        y.copy_into(self.start, &mut targets[..rows]);
+        check_targets(task, &targets[..rows], self.start)?;
         if let Some(w) = &weights {
             if let Some(j) = w.iter().position(|&v| !(v.is_finite() && v >= 0.0)) {
                 return Err(Error::value(
@@ -1373,11 +1416,7 @@ impl Block<'_> {
                 ));
             }
         }
-        // Buffers padded to whole lanes; padding points have no OOB member and weight 0.
-        let padded = rows.div_ceil(LANES) * LANES;
-        let mut targets = vec![0.0; padded];
         let mut point_weights = vec![0.0; padded];
-        targets.iter_mut().zip(y.iter()).for_each(|(t, &v)| *t = v);
         match &weights {
             Some(w) => point_weights
                 .iter_mut()
@@ -1503,7 +1542,7 @@ impl Block<'_> {
     }
 }
 
-fn check_targets(task: Task, y: ArrayView1<'_, f64>, start: usize) -> Result<()> {
+fn check_targets(task: Task, y: &[f64], start: usize) -> Result<()> {
     let bad = match task {
         Task::Regression => y
             .iter()
@@ -2118,7 +2157,7 @@ mod tests {
         let pass = out_of_bag(
             members,
             counts,
-            ArrayView1::from(y),
+            Targets::Floats(ArrayView1::from(y)),
             weights.map(ArrayView1::from),
             sizes,
             PointOutputs {
@@ -2224,6 +2263,52 @@ mod tests {
         // Brier: point 0: 0.25 + 0.25 = 0.5; point 1: 0 + 0.25 + 0.25 = 0.5.
         assert_relative_eq!(full.brier_score(), 0.5);
         assert_relative_eq!(full.log_loss(), -(0.5f64).ln());
+    }
+
+    #[test]
+    fn integer_targets_give_what_float_targets_give() {
+        // The same classes as int64 and as float64, over several blocks of points: the
+        // same outputs and loss sums bit for bit; a bad class is named either way.
+        let (m, n) = (7, 40_000);
+        let t = Array2::from_shape_fn((m, n), |(i, j)| ((i * 7 + j * 13) % 5 % 3) as i64);
+        let c = Array2::from_shape_fn((m, n), |(i, j)| ((i + 3 * j) % 4 == 0) as u8);
+        let classes: Vec<i64> = (0..n as i64).map(|j| j % 3).collect();
+        let floats: Vec<f64> = classes.iter().map(|&v| v as f64).collect();
+        let labels = Labels::new(t.view(), 3).unwrap();
+        let run_with = |y: Targets<'_>| {
+            let (mut prediction, mut n_oob, mut probabilities) =
+                (vec![0.0; n], vec![0; n], vec![0.0; 3 * n]);
+            let out = PointOutputs {
+                prediction: &mut prediction,
+                n_out_of_bag: &mut n_oob,
+                probabilities: &mut probabilities,
+            };
+            let pass = out_of_bag(
+                &labels,
+                &c.view(),
+                y,
+                None,
+                &[2, m],
+                out,
+                &Pool::Global,
+                &Silent,
+            );
+            pass.map(|p| (p.state, prediction, n_oob, probabilities))
+        };
+        let from_floats = run_with(Targets::Floats(ArrayView1::from(&floats))).unwrap();
+        let from_integers = run_with(Targets::Integers(ArrayView1::from(&classes))).unwrap();
+        assert!(from_floats.0.points() == n as u64 && from_floats.1.iter().all(|p| p.is_finite()));
+        assert_eq!(from_integers.0, from_floats.0);
+        assert_eq!(from_integers.1, from_floats.1);
+        assert_eq!(from_integers.2, from_floats.2);
+        assert_eq!(from_integers.3, from_floats.3);
+        let mut bad = classes.clone();
+        bad[n - 5] = 3;
+        let err = run_with(Targets::Integers(ArrayView1::from(&bad))).unwrap_err();
+        assert!(
+            err.to_string().contains(&format!("point {} is 3", n - 5)),
+            "{err}"
+        );
     }
 
     #[test]
@@ -2778,7 +2863,7 @@ mod stored_tests {
             probabilities: &mut [],
         };
         let (values, counts) = (Values(t.view()), c.view());
-        let y = ArrayView1::from(&y);
+        let y = Targets::Floats(ArrayView1::from(&y));
         out_of_bag(
             &values,
             &counts,

@@ -300,6 +300,29 @@ def test_label_dtypes_and_float32_members():
     assert len({r.brier_score for r in results}) == 1
 
 
+@pytest.mark.parametrize("kind", ["labels", "probabilities"])
+def test_class_targets_of_any_dtype_give_identical_results(kind):
+    # Class indices reach the core as int64 without a float copy; whole floats (1.0) and
+    # narrower integers must give the same bits, over several blocks of points.
+    rng = np.random.default_rng(12)
+    n, m = 30_000, 40
+    y = rng.integers(0, 3, size=n)
+    counts = bagwise.resample(n, m, rng=12).counts
+    if kind == "labels":
+        members = (y + (rng.random((m, n)) < 0.4)) % 3
+    else:
+        members = rng.dirichlet(np.ones(3), size=(m, n))
+    results = [bagwise.out_of_bag(members, counts, target)
+               for target in (y, y.astype(np.float64), y.astype(np.int32), y.astype(np.uint8),
+                              list(y))]
+    assert results[0].n_without_out_of_bag == 0
+    for r in results[1:]:
+        np.testing.assert_array_equal(r.prediction, results[0].prediction)
+        np.testing.assert_array_equal(r.probabilities, results[0].probabilities)
+        np.testing.assert_array_equal(r.curve, results[0].curve)
+        assert r.ensemble_loss == results[0].ensemble_loss
+
+
 def test_results_do_not_depend_on_threads():
     members, counts, y = regression_data(n=50_000, m=12, seed=12)
     one = bagwise.out_of_bag(members, counts, y, n_jobs=1)

@@ -524,7 +524,7 @@ class LossCurves:
 def out_of_bag_chunk(
     members: npt.NDArray[np.floating] | npt.NDArray[np.integer],
     counts: npt.NDArray[np.integer],
-    y: npt.NDArray[np.float64],
+    y: npt.NDArray[np.float64] | npt.NDArray[np.int64],
     point_weights: npt.NDArray[np.float64] | None,
     sizes: list[int],
     kind: str,

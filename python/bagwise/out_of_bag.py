@@ -82,7 +82,8 @@ def _out_of_bag_iv(members, counts, y, loss, point_weights, n_jobs, sizes, earli
         members = members_array(members, check_labels=True)[1]
         n_classes = n_classes_of(None, members, y, max_classes=OUT_OF_BAG_MAX_CLASSES,
                                  blame_labels=True)
-    y = np.ascontiguousarray(y, dtype=np.float64)
+    # Class indices go to the core as the int64 `targets` returns (no float copy).
+    y = np.ascontiguousarray(y, dtype=np.float64 if kind == "regression" else np.int64)
     loss = _loss_iv(loss, "regression" if kind == "regression" else "classification")
     if point_weights is not None:
         point_weights = as_array(point_weights, "point_weights")
