@@ -68,7 +68,7 @@ macro_rules! with_avx2 {
 /// Probabilities below this are raised to it before taking the logarithm.
 pub const LOG_LOSS_FLOOR: f64 = 1e-15;
 
-pub use crate::members::{Task, MAX_CLASSES, PROBABILITY_TOLERANCE};
+pub use crate::members::{Targets, Task, MAX_CLASSES, PROBABILITY_TOLERANCE};
 
 /// A compensated running sum (Neumaier 1974, "Rundungsfehleranalyse einiger Verfahren zur
 /// Summation endlicher Summen", ZAMM 54): the error of every addition is kept in `carry`,
@@ -1201,43 +1201,20 @@ fn block_points(task: Task, points: usize, bytes_per_point: usize) -> usize {
     cached.min(shared.max(4096)).max(SUB_BLOCK)
 }
 
-/// The targets of the points: values or class indices as floats, or class indices as
-/// integers, read as they are (a float copy of a million integer classes is 8 MB and a
-/// pass).
-#[derive(Debug, Clone, Copy)]
-pub enum Targets<'a> {
-    Floats(ArrayView1<'a, f64>),
-    Integers(ArrayView1<'a, i64>),
-}
-
-impl Targets<'_> {
-    /// The number of points.
-    pub fn len(&self) -> usize {
-        match self {
-            Targets::Floats(y) => y.len(),
-            Targets::Integers(y) => y.len(),
-        }
-    }
-
-    /// Whether there are no points.
-    pub fn is_empty(&self) -> bool {
-        self.len() == 0
-    }
-
-    /// Writes the targets of the points `start..start + out.len()` into `out` as floats
-    /// (integer classes are exact below 2^53; larger ones are out of range either way).
-    fn copy_into(&self, start: usize, out: &mut [f64]) {
-        let rows = start..start + out.len();
-        match self {
-            Targets::Floats(y) => out
-                .iter_mut()
-                .zip(y.slice(s![rows]))
-                .for_each(|(t, &v)| *t = v),
-            Targets::Integers(y) => out
-                .iter_mut()
-                .zip(y.slice(s![rows]))
-                .for_each(|(t, &v)| *t = v as f64),
-        }
+/// Writes the targets of the points `start..start + out.len()` into `out` as floats: class
+/// indices are read as the int64 they are (a float copy of a million of them would be 8 MB
+/// and a pass), exact below 2^53 (larger ones are out of range either way).
+fn copy_targets(y: Targets<'_>, start: usize, out: &mut [f64]) {
+    let rows = start..start + out.len();
+    match y {
+        Targets::Values(y) => out
+            .iter_mut()
+            .zip(y.slice(s![rows]))
+            .for_each(|(t, &v)| *t = v),
+        Targets::Labels(y) => out
+            .iter_mut()
+            .zip(y.slice(s![rows]))
+            .for_each(|(t, &v)| *t = v as f64),
     }
 }
 
@@ -1402,7 +1379,7 @@ impl Block<'_> {
         // Buffers padded to whole lanes; padding points have no OOB member and weight 0.
         let padded = rows.div_ceil(LANES) * LANES;
         let mut targets = vec![0.0; padded];
-        y.copy_into(self.start, &mut targets[..rows]);
+        copy_targets(y, self.start, &mut targets[..rows]);
         check_targets(task, &targets[..rows], self.start)?;
         if let Some(w) = &weights {
             if let Some(j) = w.iter().position(|&v| !(v.is_finite() && v >= 0.0)) {
@@ -2157,7 +2134,7 @@ mod tests {
         let pass = out_of_bag(
             members,
             counts,
-            Targets::Floats(ArrayView1::from(y)),
+            Targets::Values(ArrayView1::from(y)),
             weights.map(ArrayView1::from),
             sizes,
             PointOutputs {
@@ -2295,8 +2272,8 @@ mod tests {
             );
             pass.map(|p| (p.state, prediction, n_oob, probabilities))
         };
-        let from_floats = run_with(Targets::Floats(ArrayView1::from(&floats))).unwrap();
-        let from_integers = run_with(Targets::Integers(ArrayView1::from(&classes))).unwrap();
+        let from_floats = run_with(Targets::Values(ArrayView1::from(&floats))).unwrap();
+        let from_integers = run_with(Targets::Labels(ArrayView1::from(&classes))).unwrap();
         assert!(from_floats.0.points() == n as u64 && from_floats.1.iter().all(|p| p.is_finite()));
         assert_eq!(from_integers.0, from_floats.0);
         assert_eq!(from_integers.1, from_floats.1);
@@ -2304,7 +2281,7 @@ mod tests {
         assert_eq!(from_integers.3, from_floats.3);
         let mut bad = classes.clone();
         bad[n - 5] = 3;
-        let err = run_with(Targets::Integers(ArrayView1::from(&bad))).unwrap_err();
+        let err = run_with(Targets::Labels(ArrayView1::from(&bad))).unwrap_err();
         assert!(
             err.to_string().contains(&format!("point {} is 3", n - 5)),
             "{err}"
@@ -2863,7 +2840,7 @@ mod stored_tests {
             probabilities: &mut [],
         };
         let (values, counts) = (Values(t.view()), c.view());
-        let y = Targets::Floats(ArrayView1::from(&y));
+        let y = Targets::Values(ArrayView1::from(&y));
         out_of_bag(
             &values,
             &counts,

@@ -6,10 +6,11 @@ use pyo3::exceptions::{PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
+use super::members::TargetArray;
 use super::{run_core, to_py_err, zeros_nd, FloatArray};
 use crate::out_of_bag::{
     default_curve_sizes, out_of_bag, InBagCounts, Labels, LossCurves, MemberPredictions,
-    OutOfBagPartial, PointOutputs, Probabilities, Targets, Task, Values,
+    OutOfBagPartial, PointOutputs, Probabilities, Task, Values,
 };
 
 /// An integer array (counts or class labels) of any of the eight integer dtypes, read
@@ -305,30 +306,6 @@ fn out_of_bag_chunk<'py>(
         outputs.into_arrays(),
         pass.count_total,
     ))
-}
-
-/// `y` as float64 values or int64 class indices, read without a copy.
-enum TargetArray<'py> {
-    Floats(PyReadonlyArray1<'py, f64>),
-    Integers(PyReadonlyArray1<'py, i64>),
-}
-
-impl<'py> TargetArray<'py> {
-    fn extract(y: &Bound<'py, PyAny>) -> PyResult<Self> {
-        if let Ok(y) = y.extract() {
-            return Ok(TargetArray::Floats(y));
-        }
-        y.extract()
-            .map(TargetArray::Integers)
-            .map_err(|_| PyTypeError::new_err("`y`: expected a 1-D float64 or int64 array"))
-    }
-
-    fn view(&self) -> Targets<'_> {
-        match self {
-            TargetArray::Floats(y) => Targets::Floats(y.as_array()),
-            TargetArray::Integers(y) => Targets::Integers(y.as_array()),
-        }
-    }
 }
 
 pub(super) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
