@@ -2245,7 +2245,7 @@ mod tests {
     #[test]
     fn integer_targets_give_what_float_targets_give() {
         // The same classes as int64 and as float64, over several blocks of points: the
-        // same outputs and loss sums bit for bit; a bad class is named either way.
+        // same outputs and loss sums bit for bit; a bad integer class is named.
         let (m, n) = (7, 40_000);
         let t = Array2::from_shape_fn((m, n), |(i, j)| ((i * 7 + j * 13) % 5 % 3) as i64);
         let c = Array2::from_shape_fn((m, n), |(i, j)| ((i + 3 * j) % 4 == 0) as u8);
