@@ -189,6 +189,7 @@ pub(super) struct Grower<'a> {
     pub(super) one_feature: Vec<f64>,
     pub(super) features: Vec<usize>,
     pub(super) spare_histograms: Vec<Vec<f64>>,
+    pub(super) spare_stats: Vec<Vec<f64>>,
     pub(super) draws: Draws,
     /// Exact scans skip boundaries that cannot reach the node's best (see
     /// [`scan_exact`](Self::scan_exact)); off only in the test that shows it changes nothing.
@@ -260,8 +261,13 @@ impl<'a> Grower<'a> {
         }
     }
 
-    pub(super) fn stats_of(&self, start: usize, end: usize) -> Vec<f64> {
-        let mut s = vec![0.0; self.stat_width];
+    /// The statistics of positions `start..end`, in a vector from `spare_stats` when there
+    /// is one (a node's vector goes back there once it is done: an allocation per node was
+    /// 2 to 4% of a fit).
+    pub(super) fn stats_of(&mut self, start: usize, end: usize) -> Vec<f64> {
+        let mut s = self.spare_stats.pop().unwrap_or_default();
+        s.clear();
+        s.resize(self.stat_width, 0.0);
         let order = &self.order[start..end];
         for (i, &slot) in order.iter().enumerate() {
             if let Some(&ahead) = order.get(i + SLOTS_AHEAD) {
@@ -839,6 +845,7 @@ impl<'a> Grower<'a> {
                 if let (Some(v), Some(t)) = (&mut self.value_counts, counts) {
                     v.recycle(t);
                 }
+                self.spare_stats.push(stats);
                 continue;
             };
             let mid = self.partition(start, end, &split);
@@ -929,6 +936,7 @@ impl<'a> Grower<'a> {
                 histogram: left_h,
                 counts: left_counts,
             });
+            self.spare_stats.push(stats);
         }
         // The node and value vectors grew by doubling; a kept tree holds only what it uses
         // (up to half its memory otherwise, for as long as the model lives).
@@ -1215,6 +1223,7 @@ impl CheckedTreeParams {
             one_feature: Vec::new(),
             features: (0..columns.n_features).collect(),
             spare_histograms: Vec::new(),
+            spare_stats: Vec::new(),
             draws,
             tree: Tree {
                 nodes: Vec::new(),
@@ -1337,7 +1346,7 @@ mod tests {
             let config = params(Task::Regression, Splitter::Exact).check().unwrap();
             let columns = Columns::build(&x.view(), false, true, &pool(1));
             let draws = MemberStreams::starting_at(1, 0).take(1).remove(0);
-            let g = config.grower(
+            let mut g = config.grower(
                 &columns,
                 &y.to_vec(),
                 InBag::Counts(counts.view()),
